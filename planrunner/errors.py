@@ -1,0 +1,60 @@
+"""The project's error hierarchy.
+
+Every error a user can cause is one of these. Each carries *where* (file, line, column, or a row
+or analysis id), *what* is wrong, and *what to do*, so that the command line can print one clear
+line and map the kind to an exit code (see `planrunner.cli`).
+"""
+
+from __future__ import annotations
+
+
+class PlanrunnerError(Exception):
+    """Base of every error that planrunner raises on purpose."""
+
+    def __init__(self, message: str, *, where: str | None = None, hint: str | None = None):
+        super().__init__(message)
+        self.message = message
+        self.where = where
+        self.hint = hint
+
+    def __str__(self) -> str:
+        text = f"{self.where}: {self.message}" if self.where else self.message
+        return f"{text} ({self.hint})" if self.hint else text
+
+
+class PlanError(PlanrunnerError):
+    """The plan file is wrong: syntax, schema or cross references."""
+
+    def __init__(self, message: str, *, where: str | None = None, hint: str | None = None,
+                 problems: list[str] | None = None):
+        super().__init__(message, where=where, hint=hint)
+        self.problems = problems or []
+
+    def __str__(self) -> str:
+        if self.problems:
+            return "\n".join(self.problems)
+        return super().__str__()
+
+
+class DataError(PlanrunnerError):
+    """A data file is missing, changed, or does not match what the plan declares."""
+
+
+class EngineError(PlanrunnerError):
+    """The data reach an engine but the method cannot be applied to them (too few rows, ...)."""
+
+
+class ExpressionError(PlanrunnerError):
+    """A row filter expression cannot be parsed or evaluated.
+
+    `position` is the 0-based character offset in the expression text where the problem is.
+    """
+
+    def __init__(self, message: str, *, position: int = 0, text: str = "", hint: str | None = None):
+        super().__init__(message, hint=hint)
+        self.position = position
+        self.text = text
+
+    def excerpt(self) -> str:
+        """The expression with a caret under the offending character."""
+        return f"{self.text}\n{' ' * self.position}^"
