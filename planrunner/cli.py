@@ -1,0 +1,116 @@
+"""Command line: the only layer that prints and chooses exit codes.
+
+Exit codes (DESIGN.md §5): 0 success; 2 the plan, data or arguments are wrong; 3 verify found a
+difference; 1 an unexpected failure (with versions, and a request to report it).
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+import traceback
+from typing import Sequence
+
+from . import __version__
+from .errors import PlanrunnerError
+from .report import number, pvalue
+
+EXIT_OK, EXIT_FAILURE, EXIT_INPUT, EXIT_DIFFERS = 0, 1, 2, 3
+
+
+class _Parser(argparse.ArgumentParser):
+    def error(self, message: str) -> None:  # argparse would exit 2 with usage; keep that, but say what to do
+        self.print_usage(sys.stderr)
+        print(f"planrunner: error: {message} (see 'planrunner {self.prog.split()[-1]} --help')"
+              if " " in self.prog else f"planrunner: error: {message} (see 'planrunner --help')",
+              file=sys.stderr)
+        raise SystemExit(EXIT_INPUT)
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = _Parser(prog="planrunner", description="Run pre-specified resampling analyses from a YAML plan.")
+    parser.add_argument("--version", action="version", version=f"planrunner {__version__}")
+    verbs = parser.add_subparsers(dest="verb", required=True, metavar="COMMAND", parser_class=_Parser)
+
+    check = verbs.add_parser("check", help="validate a plan (and its data, when present) without computing")
+    check.add_argument("plan", help="path to the plan (YAML)")
+    check.add_argument("--plan-only", action="store_true", help="do not read the data files")
+
+    run = verbs.add_parser("run", help="run every analysis of a plan and write the record and reports")
+    run.add_argument("plan", help="path to the plan (YAML)")
+    run.add_argument("--out", help="folder under which the run folder is created (default: runs/ beside the plan)")
+    run.add_argument("--operator", help="who runs the analysis (default: the login name)")
+    run.add_argument("--quiet", action="store_true", help="print only the run folder")
+    return parser
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    args_list = list(sys.argv[1:] if argv is None else argv)
+    try:
+        args = build_parser().parse_args(args_list)
+    except SystemExit as exc:
+        return int(exc.code or 0)
+    try:
+        if args.verb == "check":
+            return _check(args)
+        if args.verb == "run":
+            return _run(args, args_list)
+    except PlanrunnerError as exc:
+        print(f"planrunner: {exc}", file=sys.stderr)
+        return EXIT_INPUT
+    except KeyboardInterrupt:
+        print("planrunner: interrupted; no record was written", file=sys.stderr)
+        return 130
+    except Exception:  # an unexpected failure: show enough to report it
+        from .record import environment
+        env = environment()
+        print("planrunner: unexpected failure; please report it with the lines below.", file=sys.stderr)
+        print(f"planrunner {env['planrunner']}, Python {env['python']}, {env['platform']}, "
+              + ", ".join(f"{k} {v}" for k, v in env["packages"].items()), file=sys.stderr)
+        traceback.print_exc(file=sys.stderr)
+        return EXIT_FAILURE
+    return EXIT_INPUT
+
+
+def _check(args: argparse.Namespace) -> int:
+    from .runner import check_plan
+    outcome = check_plan(args.plan, with_data=not args.plan_only)
+    plan = outcome.loaded.plan
+    print(f"{args.plan}: plan '{plan.plan}' is valid: {len(plan.datasets)} dataset(s), {len(plan.analyses)} analysis(es)")
+    if outcome.tables is not None:
+        for t in outcome.tables.values():
+            excluded = sum(e.rows for e in t.excluded)
+            print(f"  {t.name}: {t.file}: {t.rows_read} rows read, {t.rows_used} used, {excluded} excluded; sha256 {t.sha256}")
+    else:
+        print("  data files not read (--plan-only)")
+    return EXIT_OK
+
+
+def _run(args: argparse.Namespace, argv: list[str]) -> int:
+    from .runner import run_plan
+    outcome = run_plan(args.plan, out=args.out, operator=args.operator, command=["planrunner", *argv])
+    if not args.quiet:
+        print(summary_table(outcome.record))
+    print(f"record written to {outcome.folder}")
+    return EXIT_OK
+
+
+def summary_table(record: dict) -> str:
+    """A compact terminal table: one row per analysis."""
+    header = ("analysis", "method", "estimate", "interval", "p-value", "n", "warnings")
+    rows = [header]
+    for a in record["analyses"]:
+        first = a["intervals"][0] if a["intervals"] else None
+        interval = (f"{first['method']} {first['level'] * 100:g}%: {number(first['lower'])} to {number(first['upper'])}"
+                    if first else "")
+        n = ", ".join(f"{g} {k}" for g, k in a["n"]["groups"].items())
+        rows.append((a["id"], a["method"], number(a["estimate"]), interval,
+                     pvalue(a["p_value"]) if a["p_value"] is not None else "", n, str(len(a["warnings"]))))
+    widths = [max(len(r[i]) for r in rows) for i in range(len(header))]
+    lines = ["  ".join(cell.ljust(w) for cell, w in zip(r, widths)).rstrip() for r in rows]
+    lines.insert(1, "  ".join("-" * w for w in widths))
+    return f"{record['plan']['title']}\n" + "\n".join(lines)
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())

@@ -1,0 +1,92 @@
+"""Turn a checked plan and the tables it read into jobs: pure arrays plus everything an engine needs.
+
+After this step nothing refers to the plan or to pandas any more; a job can be sent to another
+process and gives the same numbers there.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+
+from .engines.statistics import Statistic, get_statistic
+from .engines.streams import Stream, stream_for
+from .errors import DataError
+from .io import Table
+from .schema import Plan
+
+
+@dataclass(frozen=True)
+class Job:
+    analysis_id: str
+    method: str
+    statistic: Statistic
+    samples: tuple[np.ndarray, ...]
+    strata: tuple[np.ndarray, ...] | None
+    group_labels: tuple[str, ...]
+    strata_labels: tuple[str, ...] | None
+    options: dict[str, Any]
+    stream: Stream
+
+    def counts(self) -> dict[str, Any]:
+        """Observations per group and, where declared, per stratum within group."""
+        n: dict[str, Any] = {label: int(s.shape[0]) for label, s in zip(self.group_labels, self.samples)}
+        if self.strata is None or self.strata_labels is None:
+            return {"groups": n}
+        cells = {label: {self.strata_labels[k]: int(np.sum(codes == k)) for k in np.unique(codes)}
+                 for label, codes in zip(self.group_labels, self.strata)}
+        return {"groups": n, "strata": cells}
+
+
+def compile_jobs(plan: Plan, tables: dict[str, Table]) -> list[Job]:
+    return [compile_job(plan, analysis, tables[analysis.data]) for analysis in plan.analyses]
+
+
+def _options(plan: Plan, analysis: Any) -> dict[str, Any]:
+    d = plan.defaults
+    if analysis.method == "bootstrap":
+        return {"resamples": analysis.resamples or d.resamples,
+                "confidence": analysis.confidence or d.confidence,
+                "intervals": tuple(analysis.intervals)}
+    if analysis.method == "permutation":
+        return {"resamples": analysis.resamples or d.resamples,
+                "alternative": analysis.alternative or d.alternative,
+                "exact": analysis.exact}
+    return {}
+
+
+def compile_job(plan: Plan, analysis: Any, table: Table) -> Job:
+    statistic = get_statistic(analysis.statistic)
+    outcome = table.columns[analysis.outcome]
+    where = f"analysis '{analysis.id}'"
+    values = outcome.astype(float)
+    if statistic.outcome == "binary" and not np.isin(values, (0.0, 1.0)).all():
+        bad = table.lines[~np.isin(values, (0.0, 1.0))][:5]
+        raise DataError(f"'{analysis.statistic}' needs 0/1 outcomes but '{analysis.outcome}' has other values "
+                        f"(lines {', '.join(map(str, bad))})", where=f"{table.file}",
+                        hint="declare a boolean outcome or recode it as 0 and 1")
+    if analysis.groups is None:
+        masks = [np.ones(values.size, dtype=bool)]
+        labels: tuple[str, ...] = ("all rows",)
+    else:
+        group_column = np.array([str(v).lower() if isinstance(v, (bool, np.bool_)) else str(v)
+                                 for v in table.columns[analysis.groups.by]], dtype=object)
+        labels = tuple(analysis.groups.compare)
+        masks = [group_column == level for level in labels]
+    for label, mask in zip(labels, masks):
+        if not mask.any():
+            raise DataError(f"{where}: no rows are left in group '{label}'", where=table.file,
+                            hint=f"check groups.compare against the values of '{analysis.groups.by}'"
+                                 " and the keep filter" if analysis.groups else "check the keep filter")
+    samples = tuple(values[m] for m in masks)
+    strata = strata_labels = None
+    if analysis.strata is not None:
+        stratum_column = np.array([str(v) for v in table.columns[analysis.strata]], dtype=object)
+        strata_labels_all, codes = np.unique(stratum_column, return_inverse=True)
+        strata_labels = tuple(str(s) for s in strata_labels_all)
+        strata = tuple(codes[m].astype(np.int64) for m in masks)
+    return Job(analysis_id=analysis.id, method=analysis.method, statistic=statistic, samples=samples,
+               strata=strata, group_labels=labels, strata_labels=strata_labels,
+               options=_options(plan, analysis), stream=stream_for(plan.seed, analysis.id))
