@@ -1,0 +1,35 @@
+"""Shared helpers: write a plan and its data into a temporary folder and run it."""
+
+from __future__ import annotations
+
+import datetime as dt
+import textwrap
+from pathlib import Path
+
+import pytest
+
+FIXED_TIME = dt.datetime(2026, 12, 1, 9, 30, tzinfo=dt.timezone.utc)
+
+
+def fixed_clock() -> dt.datetime:
+    return FIXED_TIME
+
+
+@pytest.fixture
+def write_plan(tmp_path: Path):
+    """write_plan(plan_text, {"data.csv": csv_text}) -> path of plan.yaml in a fresh folder."""
+    def write(plan_text: str, files: dict[str, str] | None = None, name: str = "plan.yaml") -> Path:
+        for filename, text in (files or {}).items():
+            target = tmp_path / filename
+            target.parent.mkdir(parents=True, exist_ok=True)
+            target.write_text(textwrap.dedent(text).lstrip(), encoding="utf-8")
+        plan = tmp_path / name
+        plan.write_text(textwrap.dedent(plan_text).lstrip(), encoding="utf-8")
+        return plan
+    return write
+
+
+def csv_of_groups(column: str, groups: dict[str, list[float]]) -> str:
+    """A two-column CSV: group,<column>."""
+    lines = [f"group,{column}"] + [f"{g},{v}" for g, values in groups.items() for v in values]
+    return "\n".join(lines) + "\n"

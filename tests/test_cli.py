@@ -1,0 +1,106 @@
+"""End to end through the command line: the demo plan, reruns, `check`, exit codes."""
+
+from __future__ import annotations
+
+import json
+import shutil
+import subprocess
+import sys
+from pathlib import Path
+
+import pytest
+
+from planrunner import cli
+
+ROOT = Path(__file__).resolve().parent.parent
+DEMO = ROOT / "plans" / "liner-trial" / "plan.yaml"
+
+NUMBER_FIELDS = ("estimate", "standard_error", "bias", "intervals", "p_value", "exact", "resamples",
+                 "monte_carlo", "details", "distribution", "n", "warnings", "adjusted_p_values")
+
+
+def numbers(record: dict) -> dict:
+    return {a["id"]: {k: a.get(k) for k in NUMBER_FIELDS} for a in record["analyses"]}
+
+
+def run_demo(tmp_path: Path, capsys) -> tuple[Path, dict, str]:
+    code = cli.main(["run", str(DEMO), "--out", str(tmp_path), "--operator", "tester"])
+    out = capsys.readouterr().out
+    assert code == 0, out
+    folder = Path(out.strip().splitlines()[-1].removeprefix("record written to "))
+    return folder, json.loads((folder / "record.json").read_text(encoding="utf-8")), out
+
+
+def test_demo_plan_runs_and_writes_three_files(tmp_path, capsys):
+    folder, record, out = run_demo(tmp_path, capsys)
+    assert sorted(p.name for p in folder.iterdir()) == ["record.json", "report.html", "report.md"]
+    assert record["format"] == "planrunner.record/1"
+    assert [a["id"] for a in record["analyses"]] == ["primary", "mean-shift-test", "excursion-rate-test",
+                                                   "mean-jackknife"]
+    for a in record["analyses"]:
+        assert a["estimate"] is not None
+    assert "primary" in out and "mean-shift-test" in out  # the summary table
+    data = record["datasets"][0]
+    assert data["rows_read"] == 240
+    assert data["rows_used"] == 240 - sum(e["rows"] for e in data["excluded"])
+    assert {e["reason"].split(" ")[0] for e in data["excluded"]} == {"missing", "keep:"}
+    html = (folder / "report.html").read_text(encoding="utf-8")
+    assert "<svg" in html and "http://" not in html.replace("http://www.w3.org/2000/svg", "")
+    assert record["caution"] in html.replace("\n", " ") or "Caution" in html
+    assert record["multiplicity"][0]["method"] == "holm"
+
+
+def test_rerun_gives_identical_numbers_in_a_new_folder(tmp_path, capsys):
+    first, record1, _ = run_demo(tmp_path, capsys)
+    second, record2, _ = run_demo(tmp_path, capsys)
+    assert first != second and first.exists()
+    assert numbers(record1) == numbers(record2)
+
+
+def test_check_valid_plan_exit_0(capsys):
+    assert cli.main(["check", str(DEMO)]) == 0
+    assert "is valid" in capsys.readouterr().out
+    assert cli.main(["check", "--plan-only", str(DEMO)]) == 0
+
+
+def test_check_invalid_plan_exit_2_without_traceback(tmp_path, capsys):
+    bad = tmp_path / "plan.yaml"
+    bad.write_text(DEMO.read_text(encoding="utf-8").replace("seed: 20261201", "seeed: 20261201"), encoding="utf-8")
+    assert cli.main(["check", str(bad)]) == 2
+    err = capsys.readouterr().err
+    assert "unknown key 'seeed'" in err and "did you mean 'seed'" in err and "Traceback" not in err
+
+
+def test_missing_plan_and_bad_arguments_exit_2(tmp_path, capsys):
+    assert cli.main(["check", str(tmp_path / "nope.yaml")]) == 2
+    assert "plan file not found" in capsys.readouterr().err
+    assert cli.main(["frobnicate"]) == 2
+    assert cli.main([]) == 2
+
+
+def test_changed_data_file_under_pin_exit_2(tmp_path, capsys):
+    folder = tmp_path / "trial"
+    shutil.copytree(DEMO.parent, folder, ignore=shutil.ignore_patterns("runs"))
+    plan = folder / "plan.yaml"
+    plan.write_text(plan.read_text(encoding="utf-8").replace(
+        "    file: data/shipments.csv\n", "    file: data/shipments.csv\n    sha256: " + "a" * 64 + "\n"), encoding="utf-8")
+    assert cli.main(["run", str(plan), "--out", str(tmp_path / "out")]) == 2
+    assert "the file has changed" in capsys.readouterr().err
+    assert not (tmp_path / "out").exists() or not any((tmp_path / "out").iterdir())
+
+
+def test_unexpected_failure_exit_1_with_versions(monkeypatch, capsys):
+    import planrunner.runner as runner
+
+    def boom(*args, **kwargs):
+        raise RuntimeError("simulated bug")
+    monkeypatch.setattr(runner, "check_plan", boom)
+    assert cli.main(["check", str(DEMO)]) == 1
+    err = capsys.readouterr().err
+    assert "please report" in err and "numpy" in err
+
+
+def test_python_dash_m_entry_point(tmp_path):
+    done = subprocess.run([sys.executable, "-m", "planrunner", "check", "--plan-only", str(DEMO)],
+                          capture_output=True, text=True, cwd=ROOT)
+    assert done.returncode == 0, done.stderr

@@ -1,0 +1,190 @@
+"""Outside check values reproduced end to end: from a plan file and a CSV to the record.
+
+Values and tolerances from ../shared/REFERENCES.md; the source is named beside each one.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+from scipy import stats
+
+from planrunner.runner import run_plan
+
+from conftest import csv_of_groups, fixed_clock
+
+# Source: E&T Table 2.1 (mouse survival data, published, confirmed)
+TREATMENT = [94, 197, 16, 38, 99, 141, 23]
+CONTROL = [52, 104, 146, 10, 51, 30, 40, 27, 46]
+MOUSE_CSV = csv_of_groups("days", {"treatment": TREATMENT, "control": CONTROL})
+
+PLAN = """
+plan: outside
+title: Outside values
+seed: {seed}
+datasets:
+  mice:
+    file: mice.csv
+    columns:
+      group: {{type: category, levels: [treatment, control]}}
+      days: {{type: number}}
+analyses:
+{analyses}
+"""
+
+
+def run(write_plan, tmp_path, analyses: str, seed: int = 20261201) -> dict:
+    plan = write_plan(PLAN.format(seed=seed, analyses=analyses), {"mice.csv": MOUSE_CSV})
+    record = run_plan(plan, out=tmp_path / "out", clock=fixed_clock).record
+    return {a["id"]: a for a in record["analyses"]}
+
+
+def test_pt_mouse_exact_permutation_from_a_plan(write_plan, tmp_path):
+    result = run(write_plan, tmp_path, """
+  - id: greater
+    data: mice
+    outcome: days
+    groups: {by: group, compare: [treatment, control]}
+    statistic: mean_difference
+    method: permutation
+    alternative: greater
+    resamples: 20000
+  - id: both
+    data: mice
+    outcome: days
+    groups: {by: group, compare: [treatment, control]}
+    statistic: mean_difference
+    method: permutation
+    resamples: 20000
+""")
+    greater = result["greater"]
+    assert greater["exact"] is True
+    # Source: REFERENCES.md PT-MOUSE, exact: 1613 of C(16,7) = 11440 splits
+    assert greater["details"]["arrangements"] == 11440
+    assert greater["details"]["count_greater_equal"] == 1613
+    assert greater["p_value"] == 1613 / 11440
+    # Source: REFERENCES.md PT-MOUSE (published, as cited): difference of means 30.63
+    assert greater["estimate"] == pytest.approx(30.6349206349, rel=1e-10)
+    # scipy reference: permutation_test two-sided = 2·min, 0.281993007 (REFERENCES.md PT-MOUSE)
+    expected = stats.permutation_test((TREATMENT, CONTROL), lambda x, y: np.mean(x) - np.mean(y),
+                                      permutation_type="independent", n_resamples=np.inf).pvalue
+    assert result["both"]["p_value"] == pytest.approx(expected, rel=1e-12)
+    assert result["both"]["p_value"] == pytest.approx(0.2819930070, rel=1e-9)  # Source: REFERENCES.md PT-MOUSE
+
+
+def test_pt_mouse_monte_carlo_within_tolerance(write_plan, tmp_path):
+    m = 4000
+    result = run(write_plan, tmp_path, f"""
+  - id: mc
+    data: mice
+    outcome: days
+    groups: {{by: group, compare: [treatment, control]}}
+    statistic: mean_difference
+    method: permutation
+    alternative: greater
+    exact: never
+    resamples: {m}
+""")["mc"]
+    p = 1613 / 11440  # Source: REFERENCES.md PT-MOUSE, exact
+    assert result["exact"] is False and result["resamples"] == m
+    assert abs(result["p_value"] - p) <= 4 * math.sqrt(p * (1 - p) / m)  # tolerance: REFERENCES.md §3
+    assert result["p_value"] >= 1 / (m + 1)
+
+
+def test_bs_mouse_standard_errors_from_a_plan(write_plan, tmp_path):
+    b = 2000
+    result = run(write_plan, tmp_path, f"""
+  - id: mean-se
+    data: mice
+    outcome: days
+    groups: {{by: group, compare: [treatment, control]}}
+    statistic: mean_difference
+    method: bootstrap
+    resamples: {b}
+""")
+    # Source: REFERENCES.md BS-STRAT / BS-MOUSE: ideal two-sample SE 26.908107910089 (exact),
+    # E&T §8.3 B = 1400: 26.85 (published, as cited); tolerance ±1.7 at B = 2000 (4 s.d.)
+    assert abs(result["mean-se"]["standard_error"] - 26.908107910089) <= 1.7
+    assert result["mean-se"]["resamples"] == b
+
+
+def test_bs_mouse_one_group_mean_and_median(write_plan, tmp_path):
+    plan = write_plan("""
+plan: outside-one
+title: Treatment group only
+seed: 7
+datasets:
+  treated:
+    file: treated.csv
+    columns:
+      days: {type: number}
+analyses:
+  - id: mean
+    data: treated
+    outcome: days
+    statistic: mean
+    method: bootstrap
+    resamples: 2000
+  - id: median
+    data: treated
+    outcome: days
+    statistic: median
+    method: bootstrap
+    resamples: 2000
+""", {"treated.csv": "days\n" + "\n".join(map(str, TREATMENT)) + "\n"})
+    record = {a["id"]: a for a in run_plan(plan, out=plan.parent / "out", clock=fixed_clock).record["analyses"]}
+    # Source: E&T Table 2.2, B = ∞ column (from memory 23.36 / 37.83), confirmed exactly in
+    # REFERENCES.md BS-MOUSE: 23.3635234373 / 37.8346743939; MC tolerance at B = 2000: ±1.42 / ±2.12
+    assert abs(record["mean"]["standard_error"] - 23.3635234373) <= 1.42
+    assert abs(record["median"]["standard_error"] - 37.8346743939) <= 2.12
+
+
+def test_jackknife_two_sample_se_from_a_plan(write_plan, tmp_path):
+    result = run(write_plan, tmp_path, """
+  - id: jack
+    data: mice
+    outcome: days
+    groups: {by: group, compare: [treatment, control]}
+    statistic: mean_difference
+    method: jackknife
+""")["jack"]
+    # Source: REFERENCES.md §4 identity 6 (mouse): sqrt(s1²/n1 + s2²/n2) = 28.936067137
+    assert result["standard_error"] == pytest.approx(28.936067137, rel=1e-9)
+    assert result["bias"] == pytest.approx(0.0, abs=1e-9)  # identity 3: jackknife bias of a mean is 0
+
+
+def test_percentile_and_bca_agree_with_scipy_bootstrap(write_plan, tmp_path):
+    """Mean of the treatment group, one sample: both at B = 20000, endpoints within 4 MC s.d."""
+    b = 20000
+    plan = write_plan(f"""
+plan: versus-scipy
+title: Agreement with scipy.stats.bootstrap
+seed: 99
+datasets:
+  treated:
+    file: treated.csv
+    columns:
+      days: {{type: number}}
+analyses:
+  - id: mean
+    data: treated
+    outcome: days
+    statistic: mean
+    method: bootstrap
+    resamples: {b}
+    confidence: 0.9
+    intervals: [percentile, bca]
+""", {"treated.csv": "days\n" + "\n".join(map(str, TREATMENT)) + "\n"})
+    ours = run_plan(plan, out=plan.parent / "out", clock=fixed_clock).record["analyses"][0]
+    se = ours["standard_error"]
+    for interval in ours["intervals"]:
+        method = {"percentile": "percentile", "bca": "BCa"}[interval["method"]]
+        theirs = stats.bootstrap((np.array(TREATMENT, float),), np.mean, n_resamples=b, confidence_level=0.9,
+                                 method=method, rng=np.random.default_rng(5)).confidence_interval
+        # MC s.d. of a 5% / 95% endpoint: sqrt(q(1-q)/B)/f(x_q), with f the normal density of the
+        # bootstrap distribution (scale se) at its 5% point; both sides are random, hence sqrt(2).
+        sd = math.sqrt(0.05 * 0.95 / b) / (stats.norm.pdf(stats.norm.ppf(0.05)) / se) * math.sqrt(2)
+        assert abs(interval["lower"] - theirs.low) <= 4 * sd, (method, interval, theirs)
+        assert abs(interval["upper"] - theirs.high) <= 4 * sd, (method, interval, theirs)
