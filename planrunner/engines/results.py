@@ -1,0 +1,120 @@
+"""Frozen result types shared by the engines.
+
+Results hold numbers only (no formatting). They keep what each number came from (the resample
+distribution, the counts behind a p-value, the quantile levels behind an interval) so that the
+record can be re-derived by hand. Arrays inside are read-only. Because numpy arrays have no
+single truth value, the array-carrying results compare by identity (``eq=False``).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+__all__ = [
+    "BootstrapResult",
+    "EngineWarning",
+    "Interval",
+    "JackknifeResult",
+    "PermutationResult",
+    "frozen_array",
+]
+
+
+def frozen_array(values: np.ndarray) -> np.ndarray:
+    """A read-only float copy (results must not change after they are made)."""
+    a = np.array(values, dtype=np.float64, copy=True)
+    a.flags.writeable = False
+    return a
+
+
+@dataclass(frozen=True)
+class EngineWarning:
+    """A degenerate or doubtful outcome, reported next to the numbers (never a silent NaN)."""
+
+    code: str
+    message: str
+
+
+@dataclass(frozen=True)
+class Interval:
+    """A confidence interval; ``lower``/``upper`` are None (with a ``note``) when it is undefined.
+
+    ``quantile_levels`` are the levels of the resample distribution the endpoints were read at
+    (for BCa the adjusted levels), when the method reads quantiles.
+    """
+
+    method: str
+    level: float
+    lower: float | None
+    upper: float | None
+    note: str | None = None
+    quantile_levels: tuple[float, float] | None = None
+
+
+@dataclass(frozen=True, eq=False)
+class BootstrapResult:
+    """Bootstrap estimate, standard error, bias and intervals of one statistic.
+
+    ``standard_error`` is the sd of the B replicates with divisor B−1; ``bias`` is mean(θ*) − θ̂.
+    They are None only when some replicate is not finite (see ``warnings``).
+    """
+
+    estimate: float
+    standard_error: float | None
+    bias: float | None
+    intervals: tuple[Interval, ...]
+    resamples: int
+    scheme: str
+    n: tuple[int, ...]
+    distribution: np.ndarray
+    z0: float | None
+    acceleration: float | None
+    conventions: dict[str, str] = field(default_factory=dict)
+    warnings: tuple[EngineWarning, ...] = ()
+
+
+@dataclass(frozen=True, eq=False)
+class JackknifeResult:
+    """Delete-one jackknife of one statistic (REFERENCES §0.1 conventions).
+
+    ``replicates[g][i]`` is the statistic with observation i of group g deleted;
+    ``pseudo_values[g][i] = n_g θ̂ − (n_g−1) replicates[g][i]``.
+    """
+
+    estimate: float
+    bias: float
+    standard_error: float
+    corrected_estimate: float
+    replicates: tuple[np.ndarray, ...]
+    pseudo_values: tuple[np.ndarray, ...]
+    n: tuple[int, ...]
+    warnings: tuple[EngineWarning, ...] = ()
+    scheme: str = "delete-one observation"
+    conventions: dict[str, str] = field(default_factory=dict)
+
+
+@dataclass(frozen=True, eq=False)
+class PermutationResult:
+    """Permutation test of one statistic; ``count_*`` and ``null`` let anyone recompute ``p_value``.
+
+    exact: p_greater = count_greater / arrangements; Monte Carlo: (count_greater + 1) / (resamples + 1);
+    likewise for ``less``; two-sided = min(1, 2 min(p_greater, p_less)) (``two_sided_rule="doubled"``).
+    """
+
+    observed: float
+    p_value: float
+    alternative: str
+    two_sided_rule: str
+    exact: bool
+    arrangements: int
+    resamples: int
+    count_greater: int
+    count_less: int
+    null: np.ndarray
+    tolerance: float
+    n: tuple[int, ...]
+    scheme: str
+    warnings: tuple[EngineWarning, ...] = ()
+    conventions: dict[str, str] = field(default_factory=dict)
