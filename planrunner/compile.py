@@ -80,6 +80,9 @@ def compile_job(plan: Plan, analysis: Any, table: Table) -> Job:
             raise DataError(f"{where}: no rows are left in group '{label}'", where=table.file,
                             hint=f"check groups.compare against the values of '{analysis.groups.by}'"
                                  " and the keep filter" if analysis.groups else "check the keep filter")
+    if analysis.predictor is not None:
+        # two-column statistics take (n, 2) arrays: predictor first, outcome second
+        values = np.column_stack([table.columns[analysis.predictor].astype(float), values])
     samples = tuple(values[m] for m in masks)
     strata = strata_labels = None
     if analysis.strata is not None:

@@ -291,6 +291,8 @@ def _check_analysis(at: Path_, a: Any, plan: Plan) -> list[Problem]:
         return True
 
     column(at + ("outcome",), a.outcome, NUMERIC_TYPES, "an outcome")
+    if a.predictor is not None:
+        column(at + ("predictor",), a.predictor, NUMERIC_TYPES, "a predictor")
     statistic = STATISTICS.get(a.statistic)
     if statistic is None:
         out.append(Problem(at + ("statistic",), f"unknown statistic '{a.statistic}'",
@@ -318,6 +320,12 @@ def _check_analysis(at: Path_, a: Any, plan: Plan) -> list[Problem]:
             one_to_two = {"mean": "mean_difference", "median": "median_difference"}
             out.append(Problem(at + ("statistic",), f"'{a.statistic}' describes one group but the analysis compares two",
                                f"use {one_to_two.get(a.statistic, 'a two-group statistic')} or remove groups"))
+        if statistic.columns == 2 and a.predictor is None:
+            out.append(Problem(at + ("statistic",), f"'{a.statistic}' relates two columns but the analysis has no predictor",
+                               "add predictor: COLUMN (the outcome is the other column)"))
+        if statistic.columns == 1 and a.predictor is not None:
+            out.append(Problem(at + ("predictor",), f"'{a.statistic}' uses one column; predictor does not apply",
+                               "remove predictor, or use a statistic of two columns such as correlation"))
         if statistic.outcome == "binary" and a.outcome in cols and cols[a.outcome].type not in ("boolean", "integer"):
             out.append(Problem(at + ("outcome",), f"'{a.statistic}' needs a 0/1 or true/false outcome",
                                "declare the outcome as boolean, or as integer holding 0 and 1"))

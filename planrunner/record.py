@@ -91,6 +91,8 @@ def _distribution(kind: str, values: np.ndarray, bins: int) -> dict[str, Any]:
 def question(analysis: Any, statistic_label: str, unit: str | None) -> str:
     """The analysis in words, e.g. 'foam minus standard: difference in medians of minutes_above_8c'."""
     what = f"{statistic_label} of {analysis.outcome}" + (f" ({unit})" if unit else "")
+    if analysis.predictor is not None:
+        what = f"{statistic_label} of {analysis.predictor} and {analysis.outcome}"
     if analysis.groups is not None:
         first, second = analysis.groups.compare
         what = f"{first} minus {second} by {analysis.groups.by}: {what}"
@@ -110,6 +112,7 @@ def analysis_entry(loaded: LoadedPlan, analysis: Any, job: Job, result: Any) -> 
         "question": question(analysis, job.statistic.label, unit),
         "data": analysis.data,
         "outcome": analysis.outcome,
+        "predictor": analysis.predictor,
         "unit": unit,
         "groups": None if analysis.groups is None else {"by": analysis.groups.by,
                                                         "compare": list(analysis.groups.compare)},

@@ -88,6 +88,7 @@ class AnalysisBase(Strict):
     role: Role = "primary"
     data: Identifier
     outcome: ColumnName
+    predictor: ColumnName | None = None
     groups: Groups | None = None
     strata: ColumnName | None = None
     statistic: Annotated[str, Field(min_length=1)]

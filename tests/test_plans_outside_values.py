@@ -188,3 +188,48 @@ analyses:
         sd = math.sqrt(0.05 * 0.95 / b) / (stats.norm.pdf(stats.norm.ppf(0.05)) / se) * math.sqrt(2)
         assert abs(interval["lower"] - theirs.low) <= 4 * sd, (method, interval, theirs)
         assert abs(interval["upper"] - theirs.high) <= 4 * sd, (method, interval, theirs)
+
+
+# Source: E&T Table 3.1 (law school LSAT, GPA; published, confirmed; REFERENCES.md JK-LAW uses 2.76 for school 13)
+LAW = [(576, 3.39), (635, 3.30), (558, 2.81), (578, 3.03), (666, 3.44), (580, 3.07), (555, 3.00), (661, 3.43),
+       (651, 3.36), (605, 3.13), (653, 3.12), (575, 2.74), (545, 2.76), (572, 2.88), (594, 2.96)]
+LAW_PLAN = """
+plan: law
+title: Law school correlation
+seed: 12345
+datasets:
+  law:
+    file: law.csv
+    columns:
+      lsat: {type: number}
+      gpa: {type: number}
+analyses:
+  - id: jack
+    data: law
+    outcome: gpa
+    predictor: lsat
+    statistic: correlation
+    method: jackknife
+  - id: boot
+    data: law
+    outcome: gpa
+    predictor: lsat
+    statistic: correlation
+    method: bootstrap
+    resamples: 2000
+"""
+
+
+def test_jk_law_and_bs_law_from_a_plan(write_plan, tmp_path):
+    csv = "lsat,gpa\n" + "\n".join(f"{x},{y}" for x, y in LAW) + "\n"
+    plan = write_plan(LAW_PLAN, {"law.csv": csv})
+    result = {a["id"]: a for a in run_plan(plan, out=tmp_path / "out", clock=fixed_clock).record["analyses"]}
+    jack = result["jack"]
+    # Source: REFERENCES.md JK-LAW, exact: r = 0.776374491289, se_jack = 0.142518618602, bias = −0.006473623046
+    # (E&T p. 19 prints r = .776, published, confirmed)
+    assert jack["estimate"] == pytest.approx(0.776374491289407, rel=1e-12)
+    assert jack["standard_error"] == pytest.approx(0.14251861860227, rel=1e-12)
+    assert jack["bias"] == pytest.approx(-0.00647362304592, rel=1e-10)
+    # Source: REFERENCES.md BS-LAW: SE 0.13378 (B = 10⁶, MC); tolerance ±0.0103 at B = 2000 (4 s.d.)
+    assert abs(result["boot"]["standard_error"] - 0.1338) <= 0.0103
+    assert "Pearson correlation of lsat and gpa" in result["boot"]["question"]

@@ -97,7 +97,15 @@ def _difference(one: Callable[[np.ndarray], np.ndarray]) -> Callable[[np.ndarray
     return compute
 
 
+def _pearson(xy: np.ndarray) -> np.ndarray:
+    """Pearson correlation of the two columns (predictor, outcome); xy has shape (..., 2, n)."""
+    x = xy[..., 0, :] - xy[..., 0, :].mean(axis=-1, keepdims=True)
+    y = xy[..., 1, :] - xy[..., 1, :].mean(axis=-1, keepdims=True)
+    return (x * y).sum(axis=-1) / np.sqrt((x * x).sum(axis=-1) * (y * y).sum(axis=-1))
+
+
 register(Statistic("mean", "mean", 1, True, "numeric", _mean, form="mean"))
+register(Statistic("correlation", "Pearson correlation", 1, True, "numeric", _pearson, columns=2))
 register(Statistic("median", "median", 1, False, "numeric", _median, form="median"))
 register(Statistic("proportion", "proportion of 1s", 1, True, "binary", _mean, form="mean"))
 register(Statistic("mean_difference", "difference in means", 2, True, "numeric",
