@@ -122,9 +122,10 @@ def bca_acceleration(replicates: Sequence[np.ndarray]) -> float:
         u = (n - 1) * (np.mean(r) - r)
         num += float(np.sum(u ** 3)) / n ** 3
         den += float(np.sum(u ** 2)) / n ** 2
-    if den == 0.0:
-        return math.nan
-    return num / (6.0 * den ** 1.5)
+    scale = 6.0 * den ** 1.5
+    if scale == 0.0 or not math.isfinite(scale):
+        return math.nan  # no spread (or one too small to square and cube in floating point)
+    return num / scale
 
 
 def percentile_of_score(distribution: np.ndarray, score: float, tolerance: float) -> float:
