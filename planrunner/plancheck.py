@@ -23,6 +23,8 @@ from .schema import METHODS, Plan
 from .yamlsafe import LoadedYaml, Path_, dotted, load_yaml
 
 NUMERIC_TYPES = ("number", "integer", "boolean")
+# design keys each method can honour; anything else is refused rather than silently ignored
+SUPPORTED_DESIGNS: dict[str, tuple[str, ...]] = {"bootstrap": (), "permutation": (), "jackknife": ()}
 GROUPING_TYPES = ("category", "boolean", "integer", "text")
 
 
@@ -312,6 +314,23 @@ def _check_analysis(at: Path_, a: Any, plan: Plan) -> list[Problem]:
         column(at + ("strata",), a.strata, GROUPING_TYPES, "a stratum")
         if a.strata in (a.outcome, a.groups.by if a.groups else None):
             out.append(Problem(at + ("strata",), f"'{a.strata}' cannot be both the strata and the outcome or groups"))
+    for key in ("pairs", "clusters", "order"):
+        name = getattr(a, key)
+        if name is not None:
+            column(at + (key,), name, GROUPING_TYPES + ("date", "number"), f"the {key} column")
+            if name in (a.outcome, a.predictor, a.groups.by if a.groups else None, a.strata):
+                out.append(Problem(at + (key,), f"'{name}' is already used as outcome, predictor, groups or strata"))
+            if key not in SUPPORTED_DESIGNS[a.method]:
+                out.append(Problem(at + (key,), f"{key} are not yet supported with method {a.method}",
+                                   "remove the key, or choose a method that supports this design"))
+    for k, name in enumerate(a.covariates or []):
+        column(at + ("covariates", k), name, NUMERIC_TYPES, "a covariate")
+    if a.covariates is not None and "covariates" not in SUPPORTED_DESIGNS[a.method]:
+        out.append(Problem(at + ("covariates",), f"covariates are not yet supported with method {a.method}",
+                           "remove the key, or choose a method that supports this design"))
+    if statistic is not None and a.groups is not None and statistic.samples == 2 and len(a.groups.compare) != 2:
+        out.append(Problem(at + ("groups", "compare"), f"'{a.statistic}' compares exactly two groups, "
+                           f"but {len(a.groups.compare)} levels are listed", "list two levels: [FIRST, SECOND]"))
     if statistic is not None:
         if statistic.samples == 2 and a.groups is None:
             out.append(Problem(at + ("statistic",), f"'{a.statistic}' compares two groups but the analysis has no groups",

@@ -62,10 +62,10 @@ class Dataset(Strict):
 
 
 class Groups(Strict):
-    """Which column defines the groups and which levels are compared, first minus second."""
+    """Which column defines the groups and which levels are compared (two: first minus second)."""
 
     by: ColumnName
-    compare: Annotated[list[str], Field(min_length=2, max_length=2)]
+    compare: Annotated[list[str], Field(min_length=2, max_length=50)]
 
     @model_validator(mode="after")
     def _distinct(self) -> "Groups":
@@ -91,6 +91,11 @@ class AnalysisBase(Strict):
     predictor: ColumnName | None = None
     groups: Groups | None = None
     strata: ColumnName | None = None
+    # the design, declared once; each method derives its resampling scheme from it
+    pairs: ColumnName | None = None  # rows sharing a value are one unit measured under each group
+    clusters: ColumnName | None = None  # rows sharing a value are one randomised/sampled unit
+    order: ColumnName | None = None  # time order of the rows (dependent data)
+    covariates: Annotated[list[ColumnName], Field(min_length=1)] | None = None
     statistic: Annotated[str, Field(min_length=1)]
 
 
