@@ -35,12 +35,15 @@ def build_parser() -> argparse.ArgumentParser:
     check = verbs.add_parser("check", help="validate a plan (and its data, when present) without computing")
     check.add_argument("plan", help="path to the plan (YAML)")
     check.add_argument("--plan-only", action="store_true", help="do not read the data files")
+    check.add_argument("--param", action="append", metavar="NAME=VALUE", help="a value for a plan parameter")
 
     run = verbs.add_parser("run", help="run every analysis of a plan and write the record and reports")
     run.add_argument("plan", help="path to the plan (YAML)")
     run.add_argument("--out", help="folder under which the run folder is created (default: runs/ beside the plan)")
     run.add_argument("--operator", help="who runs the analysis (default: the login name)")
     run.add_argument("--quiet", action="store_true", help="print only the run folder")
+    _add_audit_run_options(run)
+    _add_audit_verbs(verbs)
     return parser
 
 
@@ -55,6 +58,8 @@ def main(argv: Sequence[str] | None = None) -> int:
             return _check(args)
         if args.verb == "run":
             return _run(args, args_list)
+        if args.verb in AUDIT_VERBS:
+            return AUDIT_VERBS[args.verb](args)
     except PlanrunnerError as exc:
         print(f"planrunner: {exc}", file=sys.stderr)
         return EXIT_INPUT
@@ -74,7 +79,8 @@ def main(argv: Sequence[str] | None = None) -> int:
 
 def _check(args: argparse.Namespace) -> int:
     from .runner import check_plan
-    outcome = check_plan(args.plan, with_data=not args.plan_only)
+    from .params import parse_assignments
+    outcome = check_plan(args.plan, with_data=not args.plan_only, params=parse_assignments(args.param))
     plan = outcome.loaded.plan
     print(f"{args.plan}: plan '{plan.plan}' is valid: {len(plan.datasets)} dataset(s), {len(plan.analyses)} analysis(es)")
     if outcome.tables is not None:
@@ -87,10 +93,14 @@ def _check(args: argparse.Namespace) -> int:
 
 
 def _run(args: argparse.Namespace, argv: list[str]) -> int:
+    from .params import parse_assignments
     from .runner import run_plan
-    outcome = run_plan(args.plan, out=args.out, operator=args.operator, command=["planrunner", *argv])
+    outcome = run_plan(args.plan, out=args.out, operator=args.operator, command=["planrunner", *argv],
+                       params=parse_assignments(args.param), lock=args.lock,
+                       refuse_deviations=args.refuse_deviations, reason=args.reason)
     if not args.quiet:
         print(summary_table(outcome.record))
+        print(lock_summary(outcome.record))
     print(f"record written to {outcome.folder}")
     return EXIT_OK
 
@@ -110,6 +120,9 @@ def summary_table(record: dict) -> str:
     lines = ["  ".join(cell.ljust(w) for cell, w in zip(r, widths)).rstrip() for r in rows]
     lines.insert(1, "  ".join("-" * w for w in widths))
     return f"{record['plan']['title']}\n" + "\n".join(lines)
+
+
+from .cli_audit import AUDIT_VERBS, _add_audit_run_options, _add_audit_verbs, lock_summary  # noqa: E402
 
 
 if __name__ == "__main__":  # pragma: no cover

@@ -19,6 +19,7 @@ from pydantic import BaseModel
 from .engines.statistics import STATISTICS
 from .errors import ExpressionError, PlanError
 from .expr import parse_expression
+from .params import parameter_problems
 from .schema import METHODS, Plan
 from .yamlsafe import LoadedYaml, Path_, dotted, load_yaml
 
@@ -250,6 +251,7 @@ def cross_check(plan: Plan) -> list[Problem]:
                 problems.append(Problem(("multiplicity", j, "family", k),
                                         f"analysis '{member}' is a jackknife and has no p-value",
                                         "adjust only bootstrap or permutation analyses"))
+    problems += [Problem(path, message, hint) for path, message, hint in parameter_problems(plan)]
     return problems
 
 

@@ -138,6 +138,16 @@ class MultiplicityFamily(Strict):
     method: MultiplicityMethod
 
 
+class Parameter(Strict):
+    """A named value given on the command line and used only in data file paths and titles."""
+
+    type: Literal["text", "integer", "date", "month"] = "text"
+    pattern: Annotated[str, Field(min_length=1)] | None = None  # the whole value must match
+    values: Annotated[list[str], Field(min_length=1)] | None = None  # the allowed values
+    default: str | None = None
+    description: str | None = None
+
+
 class ReportOptions(Strict):
     bins: Annotated[int, Field(ge=5, le=200)] = 40
     note: str | None = None
@@ -155,3 +165,5 @@ class Plan(Strict):
     analyses: Annotated[list[Analysis], Field(min_length=1, max_length=500)]
     multiplicity: list[MultiplicityFamily] = Field(default_factory=list)
     report: ReportOptions = Field(default_factory=ReportOptions)
+    parameters: dict[Annotated[str, Field(pattern=r"^[A-Za-z_][A-Za-z0-9_]{0,63}$")], Parameter] = Field(
+        default_factory=dict)

@@ -1,0 +1,73 @@
+"""The methods paragraph: the record's settings in plain sentences, ready for a statistical report.
+
+Built only from the record, so it always says what was run, never what was meant to run.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+INTERVAL_WORDS = {"percentile": "percentile", "bca": "bias-corrected and accelerated (BCa)"}
+ALTERNATIVE_WORDS = {
+    "two-sided": "two-sided (twice the smaller one-sided p-value, at most 1)",
+    "greater": "one-sided (the first group larger)",
+    "less": "one-sided (the first group smaller)",
+}
+
+
+def _list(words: list[str]) -> str:
+    if len(words) <= 1:
+        return "".join(words)
+    return ", ".join(words[:-1]) + " and " + words[-1]
+
+
+def _comparison(a: dict[str, Any]) -> str:
+    if a.get("groups"):
+        first, second = a["groups"]["compare"][:2]
+        return f" ({first} minus {second}, groups defined by {a['groups']['by']})"
+    return ""
+
+
+def _sentence(a: dict[str, Any]) -> str:
+    what = f"the {a['statistic_label']} of {a['outcome']}{_comparison(a)}"
+    settings = a.get("settings") or {}
+    lead = f"Analysis '{a['id']}' ({a['role']})"
+    if a["method"] == "bootstrap":
+        methods = _list([INTERVAL_WORDS.get(m, m) for m in settings.get("intervals", [])])
+        level = settings.get("confidence")
+        return (f"{lead} estimated {what} and its uncertainty by the nonparametric bootstrap, resampling "
+                f"{a['scheme']}, with {a['resamples']} resamples; the standard error is the standard "
+                f"deviation of the replicates, and {level * 100:g}% {methods} intervals were computed.")
+    if a["method"] == "permutation":
+        how = ("by complete enumeration of all {:,} arrangements".format(a["details"]["arrangements"])
+               if a["exact"] else f"from {a['resamples']} random arrangements, with p = (b + 1)/(m + 1)")
+        return (f"{lead} tested {what} by a permutation test with {a['scheme']}; the p-value was obtained "
+                f"{how} and is {ALTERNATIVE_WORDS.get(a['alternative'], a['alternative'])}.")
+    return (f"{lead} estimated the bias and standard error of {what} by the delete-one jackknife "
+            f"({a['scheme']}).")
+
+
+def methods_text(record: dict[str, Any]) -> str:
+    """One paragraph describing every analysis, the multiplicity adjustment, seeds and software."""
+    parts = [f"The analyses were pre-specified in the plan '{record['plan']['id']}' "
+             f"(SHA-256 {record['plan']['sha256'][:16]}…)."]
+    lock = record["plan"].get("lock")
+    if lock:
+        count = len(lock["deviations"])
+        parts.append(f"The plan was locked on {lock['locked_utc']} by {lock['operator']}; "
+                     + ("the analysis ran as locked." if count == 0 else
+                        f"the analysis that ran deviates from the lock in {count} place(s), listed in the record."))
+    parts += [_sentence(a) for a in record["analyses"]]
+    for fam in record.get("multiplicity", []):
+        parts.append(f"The p-values of {_list([repr(i) for i in fam['family']])} were adjusted together by the "
+                     f"{fam.get('method_label', fam['method'])} method.")
+    seed = record["seed"]
+    parts.append(f"All random numbers came from the root seed {seed['root']} through numpy's {seed['generator']} "
+                 f"generator, with one independent stream per analysis derived from a hash of its id and drawn "
+                 f"in blocks of {seed['draw_block']} resamples, so that every number can be reproduced exactly.")
+    env = record["environment"]
+    packages = env.get("packages", {})
+    software = [f"planrunner {env['planrunner']}", f"Python {env['python']}"] + [
+        f"{name} {packages[name]}" for name in ("numpy", "scipy") if packages.get(name)]
+    parts.append(f"Software: {_list(software)}.")
+    return " ".join(parts)
