@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import json
 import math
+import re
 import tempfile
 from dataclasses import dataclass, field, replace
 from pathlib import Path
@@ -32,6 +33,7 @@ FLOAT_RELATIVE_TOLERANCE = 1e-9
 # A Monte Carlo quantity whose record states its Monte Carlo s.d. may differ by this many s.d.
 # when the random streams differ (REFERENCES.md: about 4 MC s.d.).
 MC_SDS = 4.0
+HEADLINE = re.compile(r"^(analyses\[\d+\]\.(estimate|standard_error|bias|p_value|intervals|adjusted_p_values)|datasets)")
 MC_FIELDS = {"standard_error": "standard_error_sd", "bias": "bias_sd", "p_value": "p_value_sd"}
 
 
@@ -190,6 +192,7 @@ def verify_record(path: str | Path, *, plan: str | Path | None = None) -> Verify
     found = [_judge(d.path, d.before, d.after, recorded)
              for d in differences({k: v for k, v in recorded.items() if k != RECORD_HASH_FIELD},
                                   {k: v for k, v in rerun.items() if k != RECORD_HASH_FIELD})]
+    found.sort(key=lambda d: HEADLINE.match(d.path) is None)  # the reported numbers first (stable sort)
     return VerifyReport(record_file, plan_file, problems, notes, found, _numbers(recorded), True, plan_changes)
 
 

@@ -35,16 +35,16 @@ def _sentence(a: dict[str, Any]) -> str:
     if a["method"] == "bootstrap":
         methods = _list([INTERVAL_WORDS.get(m, m) for m in settings.get("intervals", [])])
         level = settings.get("confidence")
-        return (f"{lead} estimated {what} and its uncertainty by the nonparametric bootstrap, resampling "
-                f"{a['scheme']}, with {a['resamples']} resamples; the standard error is the standard "
+        return (f"{lead} estimated {what} and its uncertainty by the nonparametric bootstrap "
+                f"(scheme: {a['scheme']}) with {a['resamples']} resamples; the standard error is the standard "
                 f"deviation of the replicates, and {level * 100:g}% {methods} intervals were computed.")
     if a["method"] == "permutation":
         how = ("by complete enumeration of all {:,} arrangements".format(a["details"]["arrangements"])
-               if a["exact"] else f"from {a['resamples']} random arrangements, with p = (b + 1)/(m + 1)")
-        return (f"{lead} tested {what} by a permutation test with {a['scheme']}; the p-value was obtained "
-                f"{how} and is {ALTERNATIVE_WORDS.get(a['alternative'], a['alternative'])}.")
+               if a["exact"] else f"from {a['resamples']} random arrangements as (b + 1)/(m + 1)")
+        return (f"{lead} tested {what} by a permutation test (scheme: {a['scheme']}); the p-value, obtained "
+                f"{how}, is {ALTERNATIVE_WORDS.get(a['alternative'], a['alternative'])}.")
     return (f"{lead} estimated the bias and standard error of {what} by the delete-one jackknife "
-            f"({a['scheme']}).")
+            f"(scheme: {a['scheme']}).")
 
 
 def methods_text(record: dict[str, Any]) -> str:

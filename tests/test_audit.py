@@ -1,0 +1,412 @@
+"""The audit trail end to end from the command line: lock, deviations, verify, history, parameters,
+compare, JSON Schemas, methods text and the self-check."""
+
+from __future__ import annotations
+
+import json
+import shutil
+from pathlib import Path
+
+import jsonschema
+import pytest
+
+from planrunner import cli
+from planrunner.audit import FieldDifference, _judge
+from planrunner.canonical import record_sha256
+from planrunner.schemas import plan_schema, record_schema
+from planrunner.yamlsafe import load_yaml
+
+ROOT = Path(__file__).resolve().parent.parent
+MONTHLY = ROOT / "plans" / "monthly-fill"
+
+
+@pytest.fixture
+def project(tmp_path: Path) -> Path:
+    """A copy of the monthly demo plan and its data; returns the plan file."""
+    target = tmp_path / "monthly-fill"
+    shutil.copytree(MONTHLY, target, ignore=shutil.ignore_patterns("runs", "*.lock.json"))
+    plan = target / "plan.yaml"
+    # fewer resamples keep the suite fast; the plan is otherwise the demo plan
+    plan.write_text(plan.read_text(encoding="utf-8").replace("resamples: 4999", "resamples: 999"), encoding="utf-8")
+    return plan
+
+
+def run(args: list[str], capsys) -> tuple[int, str, str]:
+    code = cli.main(args)
+    captured = capsys.readouterr()
+    return code, captured.out, captured.err
+
+
+def run_plan(plan: Path, capsys, *extra: str) -> tuple[Path, dict, str]:
+    code, out, err = run(["run", str(plan), "--operator", "tester", *extra], capsys)
+    assert code == 0, err
+    folder = Path(out.strip().splitlines()[-1].removeprefix("record written to "))
+    return folder, json.loads((folder / "record.json").read_text(encoding="utf-8")), out
+
+
+def rewrite_record(folder: Path, change, *, rehash: bool = False) -> None:
+    path = folder / "record.json"
+    record = json.loads(path.read_text(encoding="utf-8"))
+    change(record)
+    if rehash:
+        record["record_sha256"] = record_sha256(record)
+    path.write_text(json.dumps(record, indent=2, sort_keys=True), encoding="utf-8")
+
+
+# --- lock and deviations ---------------------------------------------------------------------------
+
+def test_lock_then_edit_then_run_lists_the_deviation_with_its_path(project, capsys):
+    code, out, _ = run(["lock", str(project), "--operator", "ana", "--note", "protocol v1"], capsys)
+    assert code == 0 and "lock written to" in out
+    lock = json.loads((project.parent / "plan.lock.json").read_text(encoding="utf-8"))
+    assert lock["operator"] == "ana" and lock["note"] == "protocol v1"
+    assert lock["locked_utc"].endswith("Z") and len(lock["sha256"]) == 64 and len(lock["canonical_sha256"]) == 64
+    assert lock["data"] == [{"name": "fills", "file": "data/fills-2026-10.csv", "present": True,
+                             "sha256": lock["data"][0]["sha256"], "bytes": lock["data"][0]["bytes"]}]
+
+    text = project.read_text(encoding="utf-8")
+    project.write_text(text.replace("intervals: [percentile, bca]", "intervals: [percentile]"), encoding="utf-8")
+    _, record, out = run_plan(project, capsys)
+    entry = record["plan"]["lock"]
+    assert entry["deviations"] == [{"path": "analyses[0].intervals[1]", "locked": "bca", "now": "(absent)"}]
+    assert entry["operator"] == "ana" and entry["note"] == "protocol v1" and entry["file"] == "plan.lock.json"
+    assert entry["sha256"] == lock["sha256"] and entry["canonical_sha256"] == lock["canonical_sha256"]
+    assert "1 DEVIATION(S)" in out and "analyses[0].intervals[1]" in out  # the run summary shows it
+
+    code, _, err = run(["run", str(project), "--refuse-deviations"], capsys)
+    assert code == 2 and "analyses[0].intervals[1]: locked 'bca'" in err
+
+
+def test_changed_setting_and_changed_comment_are_told_apart(project, capsys):
+    run(["lock", str(project)], capsys)
+    project.write_text(project.read_text(encoding="utf-8").replace("# Monthly", "# The monthly"), encoding="utf-8")
+    _, record, out = run_plan(project, capsys)
+    entry = record["plan"]["lock"]
+    assert entry["deviations"] == [] and entry["content_identical"] and not entry["plan_bytes_identical"]
+    assert "no deviations; only comments or layout changed" in out
+    project.write_text(project.read_text(encoding="utf-8").replace("seed: 20261101", "seed: 20261102"), encoding="utf-8")
+    _, record, _ = run_plan(project, capsys)
+    assert record["plan"]["lock"]["deviations"] == [{"path": "seed", "locked": 20261101, "now": 20261102}]
+
+
+def test_data_changed_after_lock_is_a_deviation(project, capsys):
+    run(["lock", str(project)], capsys)
+    data = project.parent / "data" / "fills-2026-10.csv"
+    data.write_text(data.read_text(encoding="utf-8").replace("10.0", "10.1", 1), encoding="utf-8")
+    _, record, _ = run_plan(project, capsys)
+    (deviation,) = record["plan"]["lock"]["deviations"]
+    assert deviation["path"] == "data.fills.sha256" and deviation["now"] == record["datasets"][0]["sha256"]
+    # another month's file is another file, not a deviation of the locked one
+    _, record, _ = run_plan(project, capsys, "--param", "month=2026-11")
+    assert record["plan"]["lock"]["deviations"] == []
+
+
+def test_lock_is_never_replaced_and_an_edited_lock_is_refused(project, capsys):
+    assert run(["lock", str(project)], capsys)[0] == 0
+    code, _, err = run(["lock", str(project)], capsys)
+    assert code == 2 and "already locked" in err
+    lock_file = project.parent / "plan.lock.json"
+    lock = json.loads(lock_file.read_text(encoding="utf-8"))
+    lock["content"]["seed"] = 1  # someone "fixes" the lock to match an edited plan
+    lock_file.write_text(json.dumps(lock), encoding="utf-8")
+    code, _, err = run(["run", str(project)], capsys)
+    assert code == 2 and "lock file was changed" in err
+
+
+def test_refuse_deviations_without_a_lock_is_an_error(project, capsys):
+    code, _, err = run(["run", str(project), "--refuse-deviations"], capsys)
+    assert code == 2 and "no lock file" in err
+
+
+def test_run_without_lock_records_null(project, capsys):
+    _, record, out = run_plan(project, capsys)
+    assert record["plan"]["lock"] is None and "plan lock: none" in out
+
+
+# --- verify ----------------------------------------------------------------------------------------
+
+def test_verify_untouched_run_is_identical(project, capsys):
+    folder, _, _ = run_plan(project, capsys)
+    code, out, _ = run(["verify", str(folder)], capsys)
+    assert code == 0, out
+    assert "identical" in out and "verify: PASSED" in out
+
+
+def test_verify_fails_after_one_data_byte_changes(project, capsys):
+    folder, record, _ = run_plan(project, capsys)
+    data = project.parent / "data" / "fills-2026-10.csv"
+    raw = bytearray(data.read_bytes())
+    where = raw.index(b"10.0")  # the first fill weight: 10.0x -> 10.1x
+    raw[where + 3] = ord("1")
+    data.write_bytes(bytes(raw))
+    code, out, _ = run(["verify", str(folder / "record.json")], capsys)
+    assert code == 3
+    assert "DIFFERENCE datasets[0].sha256" in out
+    assert "analyses[0].estimate" in out and "OUTSIDE" in out and "verify: FAILED" in out
+
+
+def test_verify_fails_after_one_record_value_changes(project, capsys):
+    folder, _, _ = run_plan(project, capsys)
+    rewrite_record(folder, lambda r: r["analyses"][1].update(p_value=0.5))
+    code, out, _ = run(["verify", str(folder)], capsys)
+    assert code == 3
+    assert "DIFFERENCE record_sha256" in out and "analyses[1].p_value" in out
+
+
+def test_verify_names_the_field_even_when_the_tamperer_rehashes(project, capsys):
+    folder, _, _ = run_plan(project, capsys)
+    rewrite_record(folder, lambda r: r["analyses"][0].update(standard_error=r["analyses"][0]["standard_error"] * 2),
+                   rehash=True)
+    code, out, _ = run(["verify", str(folder)], capsys)
+    assert code == 3 and "record_sha256" not in out.split("field")[0]
+    assert "analyses[0].standard_error" in out and "Monte Carlo" in out
+
+
+def test_verify_fails_after_the_seed_changes_in_the_record(project, capsys):
+    folder, _, _ = run_plan(project, capsys)
+    rewrite_record(folder, lambda r: r["seed"].update(root=r["seed"]["root"] + 1))
+    code, out, _ = run(["verify", str(folder)], capsys)
+    assert code == 3 and "seed.root" in out
+
+
+def test_verify_fails_after_the_seed_changes_in_the_plan(project, capsys):
+    folder, _, _ = run_plan(project, capsys)
+    project.write_text(project.read_text(encoding="utf-8").replace("seed: 20261101", "seed: 7"), encoding="utf-8")
+    code, out, _ = run(["verify", str(folder)], capsys)
+    assert code == 3
+    assert "DIFFERENCE plan.sha256" in out and "plan change: seed: recorded 20261101, now 7" in out
+
+
+def test_verify_states_other_package_versions_without_failing(project, capsys):
+    folder, _, _ = run_plan(project, capsys)
+    from planrunner.methods import methods_text
+
+    def elsewhere(r: dict) -> None:  # the record as another installation would have written it
+        r["environment"]["packages"]["numpy"] = "0.0.1"
+        r["methods_text"] = methods_text(r)
+    rewrite_record(folder, elsewhere, rehash=True)
+    code, out, _ = run(["verify", str(folder)], capsys)
+    assert code == 0, out
+    assert "note (stated, not a failure): environment.packages.numpy: recorded '0.0.1'" in out
+
+
+def test_verify_of_a_parameterised_run_uses_the_recorded_value(project, capsys):
+    folder, record, _ = run_plan(project, capsys, "--param", "month=2026-11")
+    assert record["parameters"] == {"month": "2026-11"}
+    code, out, _ = run(["verify", str(folder)], capsys)
+    assert code == 0, out
+
+
+def test_verify_not_a_record_is_exit_2(tmp_path, capsys):
+    bad = tmp_path / "record.json"
+    bad.write_text("{}", encoding="utf-8")
+    code, _, err = run(["verify", str(bad)], capsys)
+    assert code == 2 and "not a planrunner record" in err
+
+
+def test_tolerance_rules():
+    record = {"analyses": [{"monte_carlo": {"standard_error_sd": 0.01}}]}
+    # Source: REFERENCES.md, about 4 MC s.d. for Monte Carlo quantities; 1e-9 relative for floating point
+    assert _judge("analyses[0].standard_error", 1.0, 1.039, record).within
+    assert not _judge("analyses[0].standard_error", 1.0, 1.041, record).within
+    assert _judge("analyses[0].estimate", 1.0, 1.0 + 1e-12, record).within
+    assert not _judge("analyses[0].estimate", 1.0, 1.0 + 1e-6, record).within
+    assert not _judge("analyses[0].details.count_less_equal", 10, 11, record).within
+    assert not _judge("analyses[0].scheme", "a", "b", record).within
+    assert isinstance(_judge("x", 1.0, 2.0, record), FieldDifference)
+
+
+# --- history ---------------------------------------------------------------------------------------
+
+def _two_runs(project: Path, capsys) -> Path:
+    run_plan(project, capsys, "--reason", "October extract")
+    run_plan(project, capsys, "--reason", "November extract", "--param", "month=2026-11")
+    return project.parent / "runs" / "history.jsonl"
+
+
+def test_history_lists_runs_and_the_chain_is_intact(project, capsys):
+    log = _two_runs(project, capsys)
+    code, out, _ = run(["history", str(project)], capsys)
+    assert code == 0 and "history chain: intact" in out
+    assert "October extract" in out and "November extract" in out
+    first, second = [json.loads(line) for line in log.read_text(encoding="utf-8").splitlines()]
+    assert second["previous_sha256"] == first["entry_sha256"] and first["previous_sha256"] == "0" * 64
+    assert {"run_id", "finished_utc", "operator", "reason", "plan_sha256", "record_sha256"} <= set(first)
+
+
+def test_history_detects_an_edited_entry(project, capsys):
+    log = _two_runs(project, capsys)
+    log.write_text(log.read_text(encoding="utf-8").replace("October extract", "October re-extract"), encoding="utf-8")
+    code, out, _ = run(["history", str(log)], capsys)
+    assert code == 3 and "BROKEN line 1: the entry was changed" in out
+
+
+def test_history_detects_a_removed_entry(project, capsys):
+    log = _two_runs(project, capsys)
+    lines = log.read_text(encoding="utf-8").splitlines()
+    log.write_text(lines[1] + "\n", encoding="utf-8")  # the first entry removed
+    code, out, _ = run(["history", str(log.parent)], capsys)
+    assert code == 3 and "link to the previous entry is broken" in out
+    log.write_text(lines[0] + "\n", encoding="utf-8")  # the last entry removed
+    code, out, _ = run(["history", str(log.parent)], capsys)
+    assert code == 3 and "is not in the history" in out
+
+
+def test_history_detects_a_replaced_record(project, capsys):
+    _two_runs(project, capsys)
+    folder = sorted((project.parent / "runs").glob("monthly-fill-*"))[0]
+    rewrite_record(folder, lambda r: r.update(operator="someone else"), rehash=True)
+    code, out, _ = run(["history", str(project)], capsys)
+    assert code == 3 and "is not the one logged" in out
+
+
+# --- parameters ------------------------------------------------------------------------------------
+
+def test_parameter_fills_file_and_titles_and_is_recorded(project, capsys):
+    _, record, _ = run_plan(project, capsys, "--param", "month=2026-11")
+    assert record["parameters"] == {"month": "2026-11"}
+    assert record["datasets"][0]["file"] == "data/fills-2026-11.csv"
+    assert record["plan"]["title"] == "Fill weight by filling head, 2026-11"
+    assert record["analyses"][0]["title"] == "Mean fill weight, head B minus head A, 2026-11"
+    assert "{month}" in record["plan"]["text"]  # the plan itself is recorded as written
+
+
+@pytest.mark.parametrize("value, fragment", [
+    ("2026-13", "is not a month YYYY-MM"),
+    ("2026-09", "does not match the pattern"),
+    ("2026-12", "is not one of the allowed values"),
+    ("../2026-10", "path separator"),
+])
+def test_parameter_value_that_does_not_match_is_refused(project, capsys, value, fragment):
+    code, _, err = run(["run", str(project), "--param", f"month={value}"], capsys)
+    assert code == 2 and fragment in err and "--param month" in err
+    assert not (project.parent / "runs").exists()
+
+
+def test_unknown_or_malformed_parameter_is_refused(project, capsys):
+    code, _, err = run(["check", str(project), "--param", "mnth=2026-11"], capsys)
+    assert code == 2 and "did you mean 'month'" in err
+    code, _, err = run(["check", str(project), "--param", "month"], capsys)
+    assert code == 2 and "is not NAME=VALUE" in err
+
+
+def test_parameter_without_value_or_default_is_refused(project, capsys):
+    project.write_text(project.read_text(encoding="utf-8").replace('    default: "2026-10"\n', ""), encoding="utf-8")
+    code, _, err = run(["check", str(project)], capsys)
+    assert code == 2 and "no value given" in err
+
+
+# --- compare ---------------------------------------------------------------------------------------
+
+def test_compare_shows_a_changed_estimate(project, capsys, tmp_path):
+    october, rec_a, _ = run_plan(project, capsys)
+    november, rec_b, _ = run_plan(project, capsys, "--param", "month=2026-11")
+    md, page = tmp_path / "c.md", tmp_path / "c.html"
+    code, out, _ = run(["compare", str(october), str(november / "record.json"), "--markdown", str(md),
+                        "--html", str(page)], capsys)
+    assert code == 0
+    est_a, est_b = rec_a["analyses"][0]["estimate"], rec_b["analyses"][0]["estimate"]
+    assert est_a != est_b
+    from planrunner.report import number
+    line = next(line for line in out.splitlines() if line.startswith("head-difference  both"))
+    assert number(est_a) in line and number(est_b) in line and number(est_b - est_a).lstrip("-") in line
+    assert "month=2026-10" in out and "month=2026-11" in out and "changed" in out
+    assert md.read_text(encoding="utf-8").startswith("# Comparison of two runs")
+    html = page.read_text(encoding="utf-8")
+    assert "<table>" in html and number(est_b) in html and "http" not in html.split("<body>")[1]
+    # a report is never overwritten
+    code, _, err = run(["compare", str(october), str(november), "--markdown", str(md)], capsys)
+    assert code == 2 and "never overwrites" in err
+
+
+def test_compare_lists_plan_differences(project, capsys):
+    first, _, _ = run_plan(project, capsys)
+    project.write_text(project.read_text(encoding="utf-8").replace("resamples: 999", "resamples: 499"), encoding="utf-8")
+    second, _, _ = run_plan(project, capsys)
+    _, out, _ = run(["compare", str(first), str(second)], capsys)
+    assert "defaults.resamples  999   499" in out or ("defaults.resamples" in out and "499" in out)
+
+
+# --- JSON Schemas ----------------------------------------------------------------------------------
+
+PLANS = sorted((ROOT / "plans").glob("*/plan.yaml"))
+
+
+@pytest.mark.parametrize("path", PLANS, ids=[p.parent.name for p in PLANS])
+def test_plan_schema_validates_every_plan(path):
+    data = load_yaml(path.read_text(encoding="utf-8"), str(path)).data
+    jsonschema.Draft202012Validator(plan_schema()).validate(data)
+
+
+def test_plan_schema_rejects_an_unknown_key():
+    data = load_yaml(PLANS[0].read_text(encoding="utf-8"), "plan").data
+    data["analyses"][0]["statistc"] = "mean"
+    with pytest.raises(jsonschema.ValidationError):
+        jsonschema.Draft202012Validator(plan_schema()).validate(data)
+
+
+def test_record_schema_validates_real_records(project, capsys):
+    jsonschema.Draft202012Validator.check_schema(record_schema())
+    run(["lock", str(project)], capsys)
+    _, record, _ = run_plan(project, capsys)
+    demo_folder, demo, _ = run_plan(ROOT / "plans" / "liner-trial" / "plan.yaml", capsys,
+                                    "--out", str(project.parent / "demo-runs"))
+    for r in (record, demo):
+        jsonschema.Draft202012Validator(record_schema()).validate(r)
+    broken = dict(record)
+    del broken["record_sha256"]
+    with pytest.raises(jsonschema.ValidationError):
+        jsonschema.Draft202012Validator(record_schema()).validate(broken)
+
+
+def test_schema_command_prints_json(capsys):
+    code, out, _ = run(["schema", "plan"], capsys)
+    assert code == 0 and json.loads(out)["$id"] == "urn:planrunner:schema:plan:1"
+    code, out, _ = run(["schema", "record"], capsys)
+    assert code == 0 and json.loads(out)["properties"]["format"] == {"const": "planrunner.record/1"}
+
+
+# --- methods text ----------------------------------------------------------------------------------
+
+def test_methods_text_names_what_ran(project, capsys):
+    run(["lock", str(project)], capsys)
+    _, record, _ = run_plan(project, capsys)
+    text = record["methods_text"]
+    for fragment in ("bootstrap", "999 resamples", "95% percentile and bias-corrected and accelerated (BCa)",
+                     "permutation test", "two-sided", "root seed 20261101", "PCG64",
+                     f"numpy {record['environment']['packages']['numpy']}", "ran as locked"):
+        assert fragment in text, fragment
+    demo = json.loads(json.dumps(record))
+    demo["multiplicity"] = [{"family": ["head-difference", "head-test"], "method": "holm",
+                             "method_label": "Holm step-down"}]
+    from planrunner.methods import methods_text
+    assert "adjusted together by the Holm step-down method" in methods_text(demo)
+
+
+# --- self-check ------------------------------------------------------------------------------------
+
+def test_selfcheck_passes_and_its_report_is_hashed(tmp_path, capsys):
+    out_file = tmp_path / "selfcheck.json"
+    code, out, _ = run(["selfcheck", "--out", str(out_file)], capsys)
+    assert code == 0, out
+    report = json.loads(out_file.read_text(encoding="utf-8"))
+    assert report["all_passed"] and report["failed"] == 0 and len(report["cases"]) >= 15
+    assert all(c["source"] and c["expected"] is not None and c["obtained"] is not None for c in report["cases"])
+    assert {"python", "platform", "packages", "planrunner"} <= set(report["environment"])
+    assert run(["selfcheck", "--check", str(out_file)], capsys)[0] == 0
+    report["cases"][0]["obtained"] = 0.7
+    out_file.write_text(json.dumps(report), encoding="utf-8")
+    code, out, _ = run(["selfcheck", "--check", str(out_file)], capsys)
+    assert code == 3 and "HASH DOES NOT MATCH" in out
+
+
+def test_selfcheck_cases_ship_inside_the_package():
+    import planrunner.selfcheck as cases
+    assert Path(cases.__file__).resolve().parent == ROOT / "planrunner"
+    assert all(c.source for c in cases.CASES)
+
+
+def test_a_failing_case_fails(monkeypatch):
+    from planrunner.selfcheck import CASES, Case, run_case
+    wrong = Case("wrong", "a wrong expectation", "test", CASES[0].expected + 1e-6, 1e-12, CASES[0].compute)
+    assert not run_case(wrong)["passed"]
