@@ -410,3 +410,28 @@ def test_a_failing_case_fails(monkeypatch):
     from planrunner.selfcheck import CASES, Case, run_case
     wrong = Case("wrong", "a wrong expectation", "test", CASES[0].expected + 1e-6, 1e-12, CASES[0].compute)
     assert not run_case(wrong)["passed"]
+
+
+def test_lock_of_a_plan_whose_data_path_waits_for_a_parameter(project, capsys):
+    project.write_text(project.read_text(encoding="utf-8").replace('    default: "2026-10"\n', ""), encoding="utf-8")
+    code, out, _ = run(["lock", str(project)], capsys)
+    assert code == 0 and "data/fills-{month}.csv: not present" in out
+    lock = json.loads((project.parent / "plan.lock.json").read_text(encoding="utf-8"))
+    assert lock["data"][0]["present"] is False and lock["data"][0]["sha256"] is None
+    _, record, _ = run_plan(project, capsys, "--param", "month=2026-11")
+    assert record["plan"]["lock"]["deviations"] == []
+
+
+def test_record_carries_the_hash_of_its_own_content(project, capsys):
+    folder, record, _ = run_plan(project, capsys)
+    assert record["record_sha256"] == record_sha256(record)
+    on_disk = json.loads((folder / "record.json").read_text(encoding="utf-8"))
+    assert record_sha256(on_disk) == record["record_sha256"]
+
+
+def test_selfcheck_cases_do_not_depend_on_their_order():
+    # every Monte Carlo case draws from its own stream keyed by the case, never from run order
+    from planrunner.selfcheck import CASES, run_case
+    forward = {c.id: run_case(c)["obtained"] for c in CASES}
+    backward = {c.id: run_case(c)["obtained"] for c in reversed(CASES)}
+    assert forward == backward
