@@ -148,8 +148,10 @@ def parse_assignments(items: list[str] | None) -> dict[str, str]:
     return out
 
 
-def resolve_values(plan: Plan, given: dict[str, str]) -> dict[str, str]:
-    """The value of every declared parameter: from the command line, else its default."""
+def resolve_values(plan: Plan, given: dict[str, str], *, require: bool = True) -> dict[str, str]:
+    """The value of every declared parameter: from the command line, else its default.
+
+    Without ``require`` a parameter with neither is left out (its placeholders stay unfilled)."""
     problems: list[str] = []
     declared = plan.parameters
     for name in given:
@@ -162,6 +164,8 @@ def resolve_values(plan: Plan, given: dict[str, str]) -> dict[str, str]:
     for name, p in declared.items():
         value = given.get(name, p.default)
         if value is None:
+            if not require:
+                continue
             problems.append(f"--param {name}: no value given and the parameter has no default "
                             f"(add --param {name}=VALUE)")
             continue

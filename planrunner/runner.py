@@ -10,8 +10,8 @@ from __future__ import annotations
 import datetime as dt
 import getpass
 import hashlib
-import os
 import json
+import os
 import shutil
 from dataclasses import dataclass, field, replace
 from pathlib import Path
@@ -61,16 +61,18 @@ def load_tables(loaded: LoadedPlan) -> dict[str, Table]:
     return {name: read_table(name, spec, loaded.folder) for name, spec in loaded.plan.datasets.items()}
 
 
-def load_plan(path: str | Path, params: dict[str, str] | None = None) -> tuple[LoadedPlan, dict[str, str]]:
+def load_plan(path: str | Path, params: dict[str, str] | None = None, *,
+              require_values: bool = True) -> tuple[LoadedPlan, dict[str, str]]:
     """Read and check the plan, and fill its parameters (file paths and titles only)."""
     loaded = read_plan(path)
-    values = resolve_values(loaded.plan, params or {})
+    values = resolve_values(loaded.plan, params or {}, require=require_values)
     return replace(loaded, plan=apply_parameters(loaded.plan, values)), values
 
 
 def check_plan(path: str | Path, *, with_data: bool = True, params: dict[str, str] | None = None) -> CheckOutcome:
     """Validate the plan; with data, also read the files and build the jobs (no resampling)."""
-    loaded, values = load_plan(path, params)
+    # the plan alone can be checked before the month's value is known
+    loaded, values = load_plan(path, params, require_values=with_data or bool(params))
     if not with_data:
         return CheckOutcome(loaded, None, None, values)
     tables = load_tables(loaded)
@@ -175,17 +177,11 @@ def lock_plan(path: str | Path, *, operator: str | None = None, note: str | None
               params: dict[str, str] | None = None, clock: Clock = utc_now) -> tuple[Path, dict]:
     """Write PLAN.lock.json beside the plan; an existing lock is never replaced."""
     loaded = read_plan(path)
-    values: dict[str, str] | None
-    if params:
-        values = resolve_values(loaded.plan, params)
-    else:
-        try:
-            values = resolve_values(loaded.plan, {})
-        except PlanError:
-            values = None  # parameters without defaults: the data files are not known yet
+    # a parameter without a value leaves its data files unknown: they are recorded as not present
+    values = resolve_values(loaded.plan, params or {}, require=False)
     data = []
     for name, ds in loaded.plan.datasets.items():
-        file = substitute(ds.file, values) if values is not None else ds.file
+        file = substitute(ds.file, values)
         entry: dict[str, Any] = {"name": name, "file": file, "present": False, "sha256": None, "bytes": None}
         if PLACEHOLDER.search(file) is None:
             target = resolve_data_path(loaded.folder, file)
@@ -195,7 +191,7 @@ def lock_plan(path: str | Path, *, operator: str | None = None, note: str | None
         data.append(entry)
     lock = build_lock(plan_file=loaded.file.name, plan_sha256=loaded.sha256, content=loaded.yaml.data,
                       locked_utc=_stamp(clock()), operator=operator or default_operator(), note=note,
-                      parameters=values or {}, data=data)
+                      parameters=values, data=data)
     target = lock_path_for(loaded.file)
     try:
         with open(target, "x", encoding="utf-8", newline="\n") as handle:

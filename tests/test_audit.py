@@ -435,3 +435,9 @@ def test_selfcheck_cases_do_not_depend_on_their_order():
     forward = {c.id: run_case(c)["obtained"] for c in CASES}
     backward = {c.id: run_case(c)["obtained"] for c in reversed(CASES)}
     assert forward == backward
+
+
+def test_plan_only_check_needs_no_parameter_value(project, capsys):
+    project.write_text(project.read_text(encoding="utf-8").replace('    default: "2026-10"\n', ""), encoding="utf-8")
+    assert run(["check", str(project), "--plan-only"], capsys)[0] == 0
+    assert run(["check", str(project), "--param", "month=2026-11"], capsys)[0] == 0
