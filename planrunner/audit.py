@@ -108,7 +108,12 @@ def _numbers(value: Any) -> int:
     return int(isinstance(value, (int, float)) and not isinstance(value, bool))
 
 
-def _judge(path: str, before: Any, after: Any, recorded: dict) -> FieldDifference:
+def _judge(path: str, before: Any, after: Any, recorded: dict, *, monte_carlo: bool = True) -> FieldDifference:
+    """How far a re-run field is from the recorded one, and whether that is within tolerance.
+
+    ``monte_carlo``: whether the stated Monte Carlo tolerance may apply, i.e. whether the re-run
+    is on another environment (on the same one, the random draws are the same bit for bit).
+    """
     numeric = all(isinstance(v, (int, float)) and not isinstance(v, bool) for v in (before, after))
     if not numeric:
         return FieldDifference(path, before, after, None, None, False, "must be equal")
@@ -119,7 +124,7 @@ def _judge(path: str, before: Any, after: Any, recorded: dict) -> FieldDifferenc
         return FieldDifference(path, before, after, diff, fp, True, "floating point (relative 1e-9)")
     # analyses[3].standard_error -> the stated Monte Carlo s.d. of that analysis
     head, _, leaf = path.rpartition(".")
-    if leaf in MC_FIELDS and head.startswith("analyses[") and head.endswith("]"):
+    if monte_carlo and leaf in MC_FIELDS and head.startswith("analyses[") and head.endswith("]"):
         index = int(head[len("analyses["):-1])
         sd = ((recorded["analyses"][index].get("monte_carlo") or {}).get(MC_FIELDS[leaf])
               if index < len(recorded["analyses"]) else None)
@@ -146,7 +151,8 @@ def verify_record(path: str | Path, *, plan: str | Path | None = None) -> Verify
     plan_changes: list[str] = []
     plan_sha, _ = file_sha256(plan_file)
     if plan_sha != recorded["plan"]["sha256"]:
-        problems.append(("plan.sha256", f"the plan file {plan_file} has changed since the run"))
+        problems.append(("plan.sha256", f"the plan file {plan_file} is not the recorded plan (changed since the "
+                                         "run, or the plan of another record: name the right one with --plan)"))
         try:
             now = load_yaml(plan_file.read_text(encoding="utf-8"), str(plan_file)).data
             then = load_yaml(recorded["plan"]["text"], "recorded plan").data
@@ -189,7 +195,8 @@ def verify_record(path: str | Path, *, plan: str | Path | None = None) -> Verify
     # who, when and on what machine are facts of the original run, not results to reproduce
     rerun["environment"] = recorded.get("environment")
     finish_record(rerun, (recorded.get("plan") or {}).get("lock"), values)
-    found = [_judge(d.path, d.before, d.after, recorded)
+    other_environment = bool(notes)
+    found = [_judge(d.path, d.before, d.after, recorded, monte_carlo=other_environment)
              for d in differences({k: v for k, v in recorded.items() if k != RECORD_HASH_FIELD},
                                   {k: v for k, v in rerun.items() if k != RECORD_HASH_FIELD})]
     found.sort(key=lambda d: HEADLINE.match(d.path) is None)  # the reported numbers first (stable sort)

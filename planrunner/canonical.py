@@ -89,7 +89,9 @@ def _same_leaf(a: Any, b: Any) -> bool:
         return type(a) is type(b) and a == b
     if isinstance(a, float) and isinstance(b, float) and math.isnan(a) and math.isnan(b):
         return True
-    return type(a) is type(b) and a == b if not (_number(a) and _number(b)) else a == b
+    if _number(a) and _number(b):
+        return a == b  # 2 and 2.0 are the same number
+    return type(a) is type(b) and a == b
 
 
 def _number(x: Any) -> bool:

@@ -35,16 +35,20 @@ def _sentence(a: dict[str, Any]) -> str:
     if a["method"] == "bootstrap":
         methods = _list([INTERVAL_WORDS.get(m, m) for m in settings.get("intervals", [])])
         level = settings.get("confidence")
+        intervals = f"{level * 100:g}% {methods} intervals" if level is not None else f"{methods} intervals"
         return (f"{lead} estimated {what} and its uncertainty by the nonparametric bootstrap "
                 f"(scheme: {a['scheme']}) with {a['resamples']} resamples; the standard error is the standard "
-                f"deviation of the replicates, and {level * 100:g}% {methods} intervals were computed.")
+                f"deviation of the replicates, and {intervals} were computed.")
     if a["method"] == "permutation":
-        how = ("by complete enumeration of all {:,} arrangements".format(a["details"]["arrangements"])
-               if a["exact"] else f"from {a['resamples']} random arrangements as (b + 1)/(m + 1)")
+        arrangements = (a.get("details") or {}).get("arrangements")
+        how = (f"by complete enumeration of all {arrangements:,} arrangements" if a["exact"] and arrangements
+               else "by complete enumeration" if a["exact"] else f"from {a['resamples']} random arrangements as (b + 1)/(m + 1)")
         return (f"{lead} tested {what} by a permutation test (scheme: {a['scheme']}); the p-value, obtained "
                 f"{how}, is {ALTERNATIVE_WORDS.get(a['alternative'], a['alternative'])}.")
-    return (f"{lead} estimated the bias and standard error of {what} by the delete-one jackknife "
-            f"(scheme: {a['scheme']}).")
+    if a["method"] == "jackknife":
+        return (f"{lead} estimated the bias and standard error of {what} by the delete-one jackknife "
+                f"(scheme: {a['scheme']}).")
+    return f"{lead} analysed {what} by the method '{a['method']}' (scheme: {a['scheme']})."
 
 
 def methods_text(record: dict[str, Any]) -> str:

@@ -158,8 +158,32 @@ def test_verify_names_the_field_even_when_the_tamperer_rehashes(project, capsys)
     rewrite_record(folder, lambda r: r["analyses"][0].update(standard_error=r["analyses"][0]["standard_error"] * 2),
                    rehash=True)
     code, out, _ = run(["verify", str(folder)], capsys)
-    assert code == 3 and "record_sha256" not in out.split("field")[0]
-    assert "analyses[0].standard_error" in out and "Monte Carlo" in out
+    assert code == 3 and "DIFFERENCE record_sha256" not in out
+    assert "analyses[0].standard_error" in out and "OUTSIDE" in out
+
+
+def test_same_environment_allows_no_monte_carlo_slack(project, capsys):
+    # a p-value nudged by far less than its Monte Carlo s.d. is still a difference on the same build
+    folder, record, _ = run_plan(project, capsys)
+    p = record["analyses"][1]["p_value"]
+    rewrite_record(folder, lambda r: r["analyses"][1].update(p_value=p + 1e-6), rehash=True)
+    code, out, _ = run(["verify", str(folder)], capsys)
+    assert code == 3 and "analyses[1].p_value" in out and "OUTSIDE" in out
+
+
+def test_other_environment_allows_the_stated_monte_carlo_tolerance(project, capsys):
+    from planrunner.methods import methods_text
+    folder, record, _ = run_plan(project, capsys)
+    p, sd = record["analyses"][1]["p_value"], record["analyses"][1]["monte_carlo"]["p_value_sd"]
+
+    def elsewhere(r: dict) -> None:  # as if drawn by another numpy build: p moved by 1 MC s.d.
+        r["environment"]["packages"]["numpy"] = "0.0.1"
+        r["methods_text"] = methods_text(r)
+        r["analyses"][1]["p_value"] = p + sd
+    rewrite_record(folder, elsewhere, rehash=True)
+    code, out, _ = run(["verify", str(folder)], capsys)
+    assert code == 0, out
+    assert "analyses[1].p_value" in out and "within" in out and "Monte Carlo (4 stated s.d.)" in out
 
 
 def test_verify_fails_after_the_seed_changes_in_the_record(project, capsys):
@@ -209,6 +233,7 @@ def test_tolerance_rules():
     # Source: REFERENCES.md, about 4 MC s.d. for Monte Carlo quantities; 1e-9 relative for floating point
     assert _judge("analyses[0].standard_error", 1.0, 1.039, record).within
     assert not _judge("analyses[0].standard_error", 1.0, 1.041, record).within
+    assert not _judge("analyses[0].standard_error", 1.0, 1.039, record, monte_carlo=False).within
     assert _judge("analyses[0].estimate", 1.0, 1.0 + 1e-12, record).within
     assert not _judge("analyses[0].estimate", 1.0, 1.0 + 1e-6, record).within
     assert not _judge("analyses[0].details.count_less_equal", 10, 11, record).within
