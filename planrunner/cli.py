@@ -100,7 +100,7 @@ def _run(args: argparse.Namespace, argv: list[str]) -> int:
                        refuse_deviations=args.refuse_deviations, reason=args.reason)
     if not args.quiet:
         print(summary_table(outcome.record))
-        print(lock_summary(outcome.record))
+        print(audit_summary(outcome))
     print(f"record written to {outcome.folder}")
     return EXIT_OK
 
@@ -122,7 +122,7 @@ def summary_table(record: dict) -> str:
     return f"{record['plan']['title']}\n" + "\n".join(lines)
 
 
-from .cli_audit import AUDIT_VERBS, _add_audit_run_options, _add_audit_verbs, lock_summary  # noqa: E402
+from .cli_audit import AUDIT_VERBS, _add_audit_run_options, _add_audit_verbs, audit_summary  # noqa: E402
 
 
 if __name__ == "__main__":  # pragma: no cover

@@ -67,6 +67,18 @@ def lock_summary(record: dict) -> str:
     return "\n".join(lines)
 
 
+def audit_summary(outcome: Any) -> str:
+    """The lock status and the history entry of a finished run, for the run summary."""
+    lines = [lock_summary(outcome.record)]
+    params = outcome.record.get("parameters") or {}
+    if params:
+        lines.append("parameters: " + ", ".join(f"{k}={v}" for k, v in params.items()))
+    entry = outcome.history_entry
+    if entry is not None:
+        lines.append(f"run history: entry {entry['seq']} appended to {outcome.folder.parent / 'history.jsonl'}")
+    return "\n".join(lines)
+
+
 def _lock(args: argparse.Namespace) -> int:
     from .params import parse_assignments
     from .runner import lock_plan

@@ -31,6 +31,14 @@ def _change(x: Any, y: Any) -> float | None:
     return None
 
 
+def _adjusted(x: dict[str, Any] | None, y: dict[str, Any] | None) -> list[dict[str, Any]]:
+    """Adjusted p-values of both runs, matched by adjustment method."""
+    a = {p["method"]: p["p_value"] for p in (x or {}).get("adjusted_p_values") or []}
+    b = {p["method"]: p["p_value"] for p in (y or {}).get("adjusted_p_values") or []}
+    return [{"method": m, "a": a.get(m), "b": b.get(m), "change": _change(a.get(m), b.get(m))}
+            for m in list(a) + [m for m in b if m not in a]]
+
+
 def _parsed_plan(record: dict[str, Any], label: str) -> Any:
     try:
         return load_yaml(record["plan"]["text"], f"record {label}").data
@@ -78,6 +86,7 @@ def compare_records(a: dict[str, Any], b: dict[str, Any]) -> dict[str, Any]:
             "intervals": [{"method": m, "a": _interval(x, m), "b": _interval(y, m)} for m in methods],
             "p_value": [x and x["p_value"], y and y["p_value"]],
             "p_value_change": _change(x and x["p_value"], y and y["p_value"]),
+            "adjusted": _adjusted(x, y),
             "n": [x and x["n"]["groups"], y and y["n"]["groups"]],
             "settings_changed": bool(x and y and x.get("settings") != y.get("settings")),
         })
@@ -124,6 +133,10 @@ def _sections(c: dict[str, Any]) -> list[tuple[str, list[str], list[list[str]]]]
                      *_pair(x["p_value"], pvalue), _signed(x["p_value_change"], p=True)])
     out.append(("Estimates and p-values", ["analysis", "in", "estimate A", "estimate B", "change",
                                            "p-value A", "p-value B", "change"], rows))
+    rows = [[x["id"], p["method"], *_pair([p["a"], p["b"]], pvalue), _signed(p["change"], p=True)]
+            for x in c["analyses"] for p in x["adjusted"]]
+    if rows:
+        out.append(("Adjusted p-values", ["analysis", "adjustment", "A", "B", "change"], rows))
     rows = [[x["id"], i["method"], i["a"] or "—", i["b"] or "—"] for x in c["analyses"] for i in x["intervals"]]
     if rows:
         out.append(("Intervals", ["analysis", "method", "A", "B"], rows))

@@ -466,3 +466,24 @@ def test_plan_only_check_needs_no_parameter_value(project, capsys):
     project.write_text(project.read_text(encoding="utf-8").replace('    default: "2026-10"\n', ""), encoding="utf-8")
     assert run(["check", str(project), "--plan-only"], capsys)[0] == 0
     assert run(["check", str(project), "--param", "month=2026-11"], capsys)[0] == 0
+
+
+def test_selfcheck_runs_from_the_built_wheel_alone(tmp_path):
+    """The cases ship in the wheel: the self-check runs from the unpacked wheel, far from tests/."""
+    import subprocess
+    import sys
+    import zipfile
+    built = subprocess.run([sys.executable, "-m", "pip", "wheel", "--no-deps", "--no-build-isolation",
+                            "-w", str(tmp_path / "wheel"), str(ROOT)], capture_output=True, text=True)
+    assert built.returncode == 0, built.stderr[-2000:]
+    wheel = next((tmp_path / "wheel").glob("planrunner-*.whl"))
+    site = tmp_path / "site"
+    zipfile.ZipFile(wheel).extractall(site)
+    assert (site / "planrunner" / "selfcheck.py").is_file()
+    work = tmp_path / "elsewhere"
+    work.mkdir()
+    done = subprocess.run([sys.executable, "-m", "planrunner", "selfcheck", "--out", "report.json"], cwd=work,
+                          capture_output=True, text=True, env={"PYTHONPATH": str(site), "PATH": "/usr/bin:/bin"})
+    assert done.returncode == 0, done.stdout + done.stderr
+    report = json.loads((work / "report.json").read_text(encoding="utf-8"))
+    assert report["all_passed"] and report["environment"]["planrunner"]
