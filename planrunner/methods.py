@@ -8,11 +8,13 @@ from __future__ import annotations
 from typing import Any
 
 INTERVAL_WORDS = {"percentile": "percentile", "bca": "bias-corrected and accelerated (BCa)"}
-ALTERNATIVE_WORDS = {
-    "two-sided": "two-sided (twice the smaller one-sided p-value, at most 1)",
-    "greater": "one-sided (the first group larger)",
-    "less": "one-sided (the first group smaller)",
-}
+
+
+def _sidedness(a: dict[str, Any]) -> str:
+    first, second = (a["groups"]["compare"][:2] if a.get("groups") else ("the first group", "the second"))
+    return {"two-sided": "two-sided (twice the smaller one-sided p-value, at most 1)",
+            "greater": f"one-sided (alternative: {first} greater than {second})",
+            "less": f"one-sided (alternative: {first} less than {second})"}.get(a["alternative"], str(a["alternative"]))
 
 
 def _list(words: list[str]) -> str:
@@ -42,9 +44,10 @@ def _sentence(a: dict[str, Any]) -> str:
     if a["method"] == "permutation":
         arrangements = (a.get("details") or {}).get("arrangements")
         how = (f"by complete enumeration of all {arrangements:,} arrangements" if a["exact"] and arrangements
-               else "by complete enumeration" if a["exact"] else f"from {a['resamples']} random arrangements as (b + 1)/(m + 1)")
+               else "by complete enumeration" if a["exact"] else f"from m = {a['resamples']} random arrangements as (b + 1)/(m + 1), with b the number "
+                    "at least as extreme as the observed one")
         return (f"{lead} tested {what} by a permutation test (scheme: {a['scheme']}); the p-value, obtained "
-                f"{how}, is {ALTERNATIVE_WORDS.get(a['alternative'], a['alternative'])}.")
+                f"{how}, is {_sidedness(a)}.")
     if a["method"] == "jackknife":
         return (f"{lead} estimated the bias and standard error of {what} by the delete-one jackknife "
                 f"(scheme: {a['scheme']}).")
