@@ -167,12 +167,17 @@ def verify_record(path: str | Path, *, plan: str | Path | None = None) -> Verify
         notes.append(f"environment.{d.path}: recorded {d.before!r}, now {d.after!r}")
 
     # re-run the plan exactly as recorded, with the data from the plan's folder
-    with tempfile.TemporaryDirectory(prefix="planrunner-verify-") as tmp:
-        copy = Path(tmp) / recorded["plan"]["file"]
-        copy.write_text(recorded["plan"]["text"], encoding="utf-8", newline="")
-        loaded = read_plan(copy)
-    loaded = replace(loaded, file=plan_file.resolve())
-    values = resolve_values(loaded.plan, recorded.get("parameters") or {})
+    try:
+        with tempfile.TemporaryDirectory(prefix="planrunner-verify-") as tmp:
+            copy = Path(tmp) / recorded["plan"]["file"]
+            copy.write_text(recorded["plan"]["text"], encoding="utf-8", newline="")
+            loaded = read_plan(copy)
+        loaded = replace(loaded, file=plan_file.resolve())
+        values = resolve_values(loaded.plan, recorded.get("parameters") or {})
+    except PlanrunnerError as exc:
+        message = str(exc).replace(str(copy), "recorded plan")
+        problems.append(("plan.text", f"this installation cannot re-run the recorded plan: {message}"))
+        return VerifyReport(record_file, plan_file, problems, notes, [], 0, False, plan_changes)
     loaded = replace(loaded, plan=apply_parameters(loaded.plan, values))
     for i, ds in enumerate(recorded["datasets"]):
         try:

@@ -487,3 +487,10 @@ def test_selfcheck_runs_from_the_built_wheel_alone(tmp_path):
     assert done.returncode == 0, done.stdout + done.stderr
     report = json.loads((work / "report.json").read_text(encoding="utf-8"))
     assert report["all_passed"] and report["environment"]["planrunner"]
+
+
+def test_verify_of_a_record_whose_plan_text_was_edited(project, capsys):
+    folder, _, _ = run_plan(project, capsys)
+    rewrite_record(folder, lambda r: r["plan"].update(text=r["plan"]["text"].replace("seed:", "sed:")), rehash=True)
+    code, out, _ = run(["verify", str(folder)], capsys)
+    assert code == 3 and "DIFFERENCE plan.text" in out and "recorded plan" in out and "could not be re-run" in out
