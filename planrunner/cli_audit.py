@@ -81,8 +81,10 @@ def audit_summary(outcome: Any) -> str:
 
 def _lock(args: argparse.Namespace) -> int:
     from .params import parse_assignments
-    from .runner import lock_plan
-    path, lock = lock_plan(args.plan, operator=args.operator, note=args.note, params=parse_assignments(args.param))
+    from .runner import _stamp, default_operator, utc_now
+    from .trail import lock_plan
+    path, lock = lock_plan(args.plan, operator=args.operator or default_operator(), locked_utc=_stamp(utc_now()),
+                           note=args.note, params=parse_assignments(args.param))
     print(f"locked {args.plan}: sha256 {lock['sha256']}, content sha256 {lock['canonical_sha256']}")
     for d in lock["data"]:
         state = f"present, sha256 {d['sha256']}" if d["present"] else "not present"
@@ -132,7 +134,7 @@ def _verify(args: argparse.Namespace) -> int:
 
 
 def _history(args: argparse.Namespace) -> int:
-    from .runner import history_report
+    from .trail import history_report
     report = history_report(args.target)
     rows = [(str(e.get("seq")), str(e.get("finished_utc")), str(e.get("run_id")), str(e.get("operator")),
              str(e.get("reason") or ""), str(e.get("plan_sha256"))[:12], str(e.get("record_sha256"))[:12])
