@@ -69,6 +69,11 @@ class VerifyReport:
         return max(numeric, key=lambda d: d.difference) if numeric else None
 
 
+REQUIRED: dict[str, type | tuple[type, ...]] = {
+    "run_id": str, "started_utc": str, "finished_utc": str, "operator": str, "command": list, "plan": dict,
+    "datasets": list, "analyses": list, "seed": dict, "environment": dict}
+
+
 def read_record(path: str | Path) -> tuple[Path, dict]:
     """A record from record.json or from its run folder; refuse what is not a record."""
     file = Path(path)
@@ -82,6 +87,15 @@ def read_record(path: str | Path) -> tuple[Path, dict]:
         raise PlanError(f"cannot read the record: {exc}", where=str(file)) from None
     if not isinstance(record, dict) or record.get("format") != FORMAT:
         raise PlanError(f"not a planrunner record (format {FORMAT} expected)", where=str(file))
+    missing = [key for key, kind in REQUIRED.items() if not isinstance(record.get(key), kind)]
+    plan = record.get("plan") if isinstance(record.get("plan"), dict) else {}
+    missing += [f"plan.{key}" for key in ("file", "sha256", "text") if not isinstance(plan.get(key), str)]
+    for i, ds in enumerate(record.get("datasets") if isinstance(record.get("datasets"), list) else []):
+        if not (isinstance(ds, dict) and isinstance(ds.get("file"), str) and isinstance(ds.get("sha256"), str)):
+            missing.append(f"datasets[{i}]")
+    if missing:
+        raise PlanError(f"the record is incomplete or damaged: {', '.join(missing)} missing or of the wrong kind",
+                        where=str(file), hint="verify the record.json that the run wrote")
     return file, record
 
 
@@ -190,10 +204,10 @@ def verify_record(path: str | Path, *, plan: str | Path | None = None) -> Verify
     try:
         tables = load_tables(loaded)
         jobs = compile_jobs(loaded.plan, tables)
+        results = execute_all(jobs)
     except PlanrunnerError as exc:
-        problems.append(("datasets", f"the data can no longer be read as the plan declares: {exc}"))
+        problems.append(("datasets", f"the analyses cannot be re-run on the data as they are now: {exc}"))
         return VerifyReport(record_file, plan_file, problems, notes, [], 0, False, plan_changes)
-    results = execute_all(jobs)
     rerun = build_record(loaded, tables, jobs, results, run_id=recorded["run_id"],
                          started_utc=recorded["started_utc"], finished_utc=recorded["finished_utc"],
                          operator=recorded["operator"], command=recorded["command"])

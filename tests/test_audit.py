@@ -494,3 +494,10 @@ def test_verify_of_a_record_whose_plan_text_was_edited(project, capsys):
     rewrite_record(folder, lambda r: r["plan"].update(text=r["plan"]["text"].replace("seed:", "sed:")), rehash=True)
     code, out, _ = run(["verify", str(folder)], capsys)
     assert code == 3 and "DIFFERENCE plan.text" in out and "recorded plan" in out and "could not be re-run" in out
+
+
+def test_verify_of_a_damaged_record_is_exit_2(project, capsys):
+    folder, _, _ = run_plan(project, capsys)
+    rewrite_record(folder, lambda r: r.pop("datasets"))
+    code, _, err = run(["verify", str(folder)], capsys)
+    assert code == 2 and "incomplete or damaged: datasets" in err
