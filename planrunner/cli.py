@@ -89,6 +89,7 @@ def _check(args: argparse.Namespace) -> int:
             print(f"  {t.name}: {t.file}: {t.rows_read} rows read, {t.rows_used} used, {excluded} excluded; sha256 {t.sha256}")
     else:
         print("  data files not read (--plan-only)")
+    print(check_lock_summary(outcome))
     return EXIT_OK
 
 
@@ -122,7 +123,8 @@ def summary_table(record: dict) -> str:
     return f"{record['plan']['title']}\n" + "\n".join(lines)
 
 
-from .cli_audit import AUDIT_VERBS, _add_audit_run_options, _add_audit_verbs, audit_summary  # noqa: E402
+from .cli_audit import (AUDIT_VERBS, _add_audit_run_options, _add_audit_verbs, audit_summary,  # noqa: E402
+                        check_lock_summary)
 
 
 if __name__ == "__main__":  # pragma: no cover

@@ -79,6 +79,13 @@ def audit_summary(outcome: Any) -> str:
     return "\n".join(lines)
 
 
+def check_lock_summary(outcome: Any) -> str:
+    """For `check`: how the plan (and, when read, its data) stands against its lock, before any run."""
+    from .trail import lock_for_run
+    entry = lock_for_run(outcome.loaded, outcome.tables or {}, None, refuse_deviations=False)
+    return lock_summary({"plan": {"lock": entry}})
+
+
 def _lock(args: argparse.Namespace) -> int:
     from .params import parse_assignments
     from .runner import _stamp, default_operator, utc_now

@@ -501,3 +501,13 @@ def test_verify_of_a_damaged_record_is_exit_2(project, capsys):
     rewrite_record(folder, lambda r: r.pop("datasets"))
     code, _, err = run(["verify", str(folder)], capsys)
     assert code == 2 and "incomplete or damaged: datasets" in err
+
+
+def test_check_reports_deviations_from_the_lock_before_any_run(project, capsys):
+    run(["lock", str(project)], capsys)
+    code, out, _ = run(["check", str(project), "--plan-only"], capsys)
+    assert code == 0 and "no deviations" in out
+    project.write_text(project.read_text(encoding="utf-8").replace("resamples: 999", "resamples: 99"), encoding="utf-8")
+    code, out, _ = run(["check", str(project)], capsys)
+    assert code == 0 and "defaults.resamples: locked 999, now 99" in out
+    assert not (project.parent / "runs").exists()
