@@ -2,7 +2,7 @@
 
 One canonical form serves every hash of parsed content (a plan's parsed YAML, a record, a lock, a
 history entry): sorted keys, no insignificant white space, UTF-8, floats as Python's shortest
-round-trip repr, no NaN. Two documents have the same hash exactly when they hold the same content,
+round-trip repr. Two documents have the same hash exactly when they hold the same content,
 whatever the key order or layout of the file they came from.
 """
 
@@ -18,7 +18,9 @@ RECORD_HASH_FIELD = "record_sha256"
 
 
 def canonical_json(value: Any) -> str:
-    return json.dumps(value, sort_keys=True, separators=(",", ":"), ensure_ascii=False, allow_nan=False)
+    # A record never holds NaN (see record.sanitize), but a plan may say `.nan`; its canonical form
+    # is then the token NaN, which is only ever hashed, never parsed by another tool.
+    return json.dumps(value, sort_keys=True, separators=(",", ":"), ensure_ascii=False, allow_nan=True)
 
 
 def content_sha256(value: Any) -> str:
