@@ -133,7 +133,9 @@ def _verify(args: argparse.Namespace) -> int:
     else:
         largest = report.largest
         if largest is not None:
-            print(f"re-run: largest difference {largest.difference:.3g} at {largest.path}")
+            verdict = "within" if largest.within else "OUTSIDE"
+            print(f"re-run: largest difference {largest.difference:.3g} at {largest.path}, {verdict} its "
+                  f"tolerance ({largest.rule}: {largest.tolerance:.3g})")
         outside = sum(not d.within for d in report.differences)
         print(f"re-run: {len(report.differences)} field(s) differ, {outside} outside tolerance")
     print("verify: PASSED" if report.passed else "verify: FAILED")
