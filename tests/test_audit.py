@@ -511,3 +511,42 @@ def test_check_reports_deviations_from_the_lock_before_any_run(project, capsys):
     code, out, _ = run(["check", str(project)], capsys)
     assert code == 0 and "defaults.resamples: locked 999, now 99" in out
     assert not (project.parent / "runs").exists()
+
+
+# --- canonical form (property tests) ----------------------------------------------------------------
+
+from hypothesis import given, settings  # noqa: E402
+from hypothesis import strategies as st  # noqa: E402
+
+from planrunner.canonical import content_sha256, differences  # noqa: E402
+
+JSONISH = st.recursive(
+    st.none() | st.booleans() | st.integers(-10**6, 10**6) | st.floats(allow_nan=False, allow_infinity=False)
+    | st.text(max_size=5),
+    lambda inner: st.lists(inner, max_size=4) | st.dictionaries(st.text(max_size=4), inner, max_size=4),
+    max_leaves=20)
+
+
+def _reordered(value):
+    if isinstance(value, dict):
+        return {k: _reordered(value[k]) for k in reversed(list(value))}
+    if isinstance(value, list):
+        return [_reordered(v) for v in value]
+    return value
+
+
+@settings(max_examples=150, deadline=None)
+@given(JSONISH)
+def test_canonical_hash_ignores_key_order_and_a_document_equals_itself(doc):
+    assert content_sha256(doc) == content_sha256(_reordered(doc))
+    assert differences(doc, _reordered(doc)) == []
+
+
+@settings(max_examples=150, deadline=None)
+@given(st.dictionaries(st.text(min_size=1, max_size=4), st.integers(), min_size=1, max_size=6), st.data())
+def test_one_changed_leaf_is_one_difference_at_its_path(doc, data):
+    key = data.draw(st.sampled_from(sorted(doc)))
+    changed = {**doc, key: doc[key] + 1}
+    (d,) = differences(doc, changed)
+    assert d.path == key and d.before == doc[key] and d.after == doc[key] + 1
+    assert content_sha256(doc) != content_sha256(changed)
