@@ -53,14 +53,22 @@ def lock_plan(path: str | Path, *, operator: str, locked_utc: str, note: str | N
                       locked_utc=locked_utc, operator=operator, note=note,
                       parameters=values, data=data)
     target = lock_path_for(loaded.file)
+    # written in full beside the target, then linked into place: the lock appears complete or not
+    # at all, and the link fails if a lock exists (never replaced, even by a concurrent `lock`)
+    staging = target.with_name(f".{target.name}.{os.getpid()}.tmp")
     try:
-        with open(target, "x", encoding="utf-8", newline="\n") as handle:
+        with open(staging, "x", encoding="utf-8", newline="\n") as handle:
             handle.write(json.dumps(lock, sort_keys=True, indent=2, ensure_ascii=False) + "\n")
             handle.flush()
             os.fsync(handle.fileno())
+        os.link(staging, target)
     except FileExistsError:
         raise PlanError("the plan is already locked; a lock is never replaced", where=str(target),
                         hint="to fix a new version of the plan, save it under a new file name and lock that") from None
+    except OSError as exc:
+        raise PlanError(f"cannot write the lock: {exc.strerror}", where=str(target)) from None
+    finally:
+        staging.unlink(missing_ok=True)
     return target, lock
 
 
