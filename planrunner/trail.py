@@ -57,7 +57,7 @@ def lock_plan(path: str | Path, *, operator: str, locked_utc: str, note: str | N
     # at all, and the link fails if a lock exists (never replaced, even by a concurrent `lock`)
     staging = target.with_name(f".{target.name}.{os.getpid()}.tmp")
     try:
-        with open(staging, "x", encoding="utf-8", newline="\n") as handle:
+        with open(staging, "w", encoding="utf-8", newline="\n") as handle:
             handle.write(json.dumps(lock, sort_keys=True, indent=2, ensure_ascii=False) + "\n")
             handle.flush()
             os.fsync(handle.fileno())
