@@ -27,6 +27,10 @@ class _Parser(argparse.ArgumentParser):
         raise SystemExit(EXIT_INPUT)
 
 
+DATA_ROOT_HELP = ("look up the plan's data files under DIR instead of the plan's folder; "
+                  "they must resolve inside DIR")
+
+
 def build_parser() -> argparse.ArgumentParser:
     parser = _Parser(prog="planrunner", description="Run pre-specified resampling analyses from a YAML plan.")
     parser.add_argument("--version", action="version", version=f"planrunner {__version__}")
@@ -35,12 +39,14 @@ def build_parser() -> argparse.ArgumentParser:
     check = verbs.add_parser("check", help="validate a plan (and its data, when present) without computing")
     check.add_argument("plan", help="path to the plan (YAML)")
     check.add_argument("--plan-only", action="store_true", help="do not read the data files")
+    check.add_argument("--data-root", metavar="DIR", help=DATA_ROOT_HELP)
 
     run = verbs.add_parser("run", help="run every analysis of a plan and write the record and reports")
     run.add_argument("plan", help="path to the plan (YAML)")
     run.add_argument("--out", help="folder under which the run folder is created (default: runs/ beside the plan)")
     run.add_argument("--operator", help="who runs the analysis (default: the login name)")
     run.add_argument("--quiet", action="store_true", help="print only the run folder")
+    run.add_argument("--data-root", metavar="DIR", help=DATA_ROOT_HELP)
     return parser
 
 
@@ -74,7 +80,7 @@ def main(argv: Sequence[str] | None = None) -> int:
 
 def _check(args: argparse.Namespace) -> int:
     from .runner import check_plan
-    outcome = check_plan(args.plan, with_data=not args.plan_only)
+    outcome = check_plan(args.plan, with_data=not args.plan_only, data_root=args.data_root)
     plan = outcome.loaded.plan
     print(f"{args.plan}: plan '{plan.plan}' is valid: {len(plan.datasets)} dataset(s), {len(plan.analyses)} analysis(es)")
     if outcome.tables is not None:
@@ -88,7 +94,8 @@ def _check(args: argparse.Namespace) -> int:
 
 def _run(args: argparse.Namespace, argv: list[str]) -> int:
     from .runner import run_plan
-    outcome = run_plan(args.plan, out=args.out, operator=args.operator, command=["planrunner", *argv])
+    outcome = run_plan(args.plan, out=args.out, operator=args.operator, command=["planrunner", *argv],
+                       data_root=args.data_root)
     if not args.quiet:
         print(summary_table(outcome.record))
     print(f"record written to {outcome.folder}")
