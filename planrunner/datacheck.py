@@ -23,6 +23,7 @@ from .schema import Plan
 # a statistic of two columns (a correlation) is fixed at ±1 by two rows, so it needs three.
 MIN_ROWS = 2
 MIN_ROWS_TWO_COLUMNS = 3
+METHOD_WORDS = {"bootstrap": "the bootstrap", "jackknife": "the jackknife", "permutation": "a permutation test"}
 
 
 def check_tables(plan: Plan, tables: dict[str, Table]) -> None:
@@ -74,9 +75,10 @@ def check_analysis(analysis: Any, table: Table) -> None:
             raise DataError(f"{who}: no rows are left; {_excluded(table)}", where=where,
                             hint="check the keep filter and the missing-value handling")
         if count < minimum:
-            group = f"group '{label}'" if analysis.groups else "the data"
-            raise DataError(f"{who}: {group} has {count} row(s) (line(s) {_lines(table.lines[mask])}); "
-                            f"the {analysis.method} needs at least {minimum}", where=where,
+            group = f"group '{label}' has" if analysis.groups else "it has"
+            raise DataError(f"{who}: {group} {count} row(s) (line(s) {_lines(table.lines[mask])}); "
+                            f"{METHOD_WORDS.get(analysis.method, analysis.method)} needs at least {minimum}"
+                            f"{' per group' if analysis.groups else ''}", where=where,
                             hint="use more data, or relax the keep filter")
     used = np.logical_or.reduce(masks)
     binary = statistic is not None and statistic.outcome == "binary"

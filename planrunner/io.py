@@ -47,9 +47,9 @@ class Table:
     columns: Mapping[str, np.ndarray]
     lines: np.ndarray  # file line of each kept row
     ignored_columns: tuple[str, ...] = ()  # header columns the plan does not declare
-    # distinct values (as compared with groups.compare) of each grouping-type column over the rows
-    # that passed missing-value handling, before the keep filter: tells "absent from the file"
-    # apart from "removed by the filter"
+    # distinct values (as groups.compare names them) of each grouping-type column over every row
+    # read, before missing values and the keep filter: tells "absent from the file" apart from
+    # "removed by the filter"
     values_read: Mapping[str, tuple[str, ...]] = field(default_factory=dict)
 
     @property
@@ -102,6 +102,9 @@ def read_table(name: str, spec: Dataset, plan_folder: Path, *, data_root: Path |
     """Read one dataset: hash it, check its columns and types, handle missing values, filter rows."""
     path = resolve_data_path(plan_folder, spec.file, data_root=data_root)
     shown = spec.file
+    if path.is_dir():
+        raise DataError("this is a folder, not a data file", where=shown,
+                        hint=f"name the CSV or TSV file inside it in datasets.{name}.file")
     if not path.is_file():
         raise DataError("data file not found", where=shown,
                         hint=f"the plan expects it at {path}; check datasets.{name}.file")
@@ -123,6 +126,8 @@ def read_table(name: str, spec: Dataset, plan_folder: Path, *, data_root: Path |
     excluded: list[Exclusion] = []
 
     markers = set(spec.missing_values)
+    values_read = {c: _distinct(raw[c], spec.columns[c].type, markers) for c in spec.columns
+                   if spec.columns[c].type in GROUPING_TYPES}
     for column in spec.columns:
         missing = np.isin(raw[column], list(markers)) & keep if markers else np.zeros(rows_read, bool)
         if missing.any():
@@ -135,8 +140,6 @@ def read_table(name: str, spec: Dataset, plan_folder: Path, *, data_root: Path |
             keep &= ~missing
 
     columns = {c: _convert(raw[c], keep, c, spec.columns[c], shown, line_of) for c in spec.columns}
-    values_read = {c: tuple(sorted({group_value(v) for v in columns[c][keep]})) for c in spec.columns
-                   if spec.columns[c].type in GROUPING_TYPES}
     if spec.keep is not None:
         try:
             kept = parse_expression(spec.keep).evaluate({c: v[keep] for c, v in columns.items()})
@@ -151,6 +154,22 @@ def read_table(name: str, spec: Dataset, plan_folder: Path, *, data_root: Path |
     return Table(name=name, file=shown, path=path, sha256=sha, bytes=size, rows_read=rows_read,
                  excluded=tuple(excluded), columns={c: v[keep] for c, v in columns.items()},
                  lines=line_of[keep], ignored_columns=ignored, values_read=values_read)
+
+
+def _distinct(values: np.ndarray, kind: str, markers: set[str]) -> tuple[str, ...]:
+    """Distinct values of a column as groups.compare names them, over every row read."""
+    out: set[str] = set()
+    for text in set(values.tolist()) - markers:
+        if kind == "boolean" and text.lower() in TRUE_WORDS | FALSE_WORDS:
+            out.add("true" if text.lower() in TRUE_WORDS else "false")
+        elif kind == "integer":
+            try:
+                out.add(str(int(float(text))))
+            except (ValueError, OverflowError):
+                out.add(text)
+        else:
+            out.add(text)
+    return tuple(sorted(out))
 
 
 def group_value(value: object) -> str:
@@ -246,7 +265,9 @@ def _convert(values: np.ndarray, keep: np.ndarray, name: str, spec: Column, show
 
     def refuse(bad: np.ndarray, what: str, hint: str) -> DataError:
         count = int(bad.sum())
-        first = values[np.flatnonzero(bad)[0]]
+        first = str(values[np.flatnonzero(bad)[0]])
+        if not first.isprintable():  # a control character would garble the terminal
+            first = first.encode("unicode_escape").decode("ascii")
         return DataError(f"column '{name}' ({kind}): {count} value(s) {what}, e.g. '{first}' on line(s) "
                          f"{_list(_lines(bad, line_of), count)}", where=shown, hint=hint)
 

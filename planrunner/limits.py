@@ -32,6 +32,13 @@ ENUMERATION_LIMIT = 5_000_000  # engines/permutation.py refuses exact: always be
 MB = 1 << 20
 
 
+def _size(count: int) -> str:
+    for unit, scale in (("GB", 1 << 30), ("MB", MB), ("kB", 1 << 10)):
+        if count >= scale:
+            return f"{count / scale:.0f} {unit}" if count >= 10 * scale else f"{count / scale:.1f} {unit}"
+    return f"{count} bytes"
+
+
 def _limit(available: int | None) -> int | None:
     return None if available is None else int(available * LIMIT_SHARE)
 
@@ -44,8 +51,8 @@ def check_files(sizes: Iterable[tuple[str, int]], *, available: int | None) -> N
     for shown, size in sizes:
         need = READ_FACTOR * size
         if need > limit:
-            raise DataError(f"reading this file ({size / MB:.0f} MB) needs about {need / MB:.0f} MB of memory, "
-                            f"more than the {limit / MB:.0f} MB this run may use", where=shown,
+            raise DataError(f"reading this file ({_size(size)}) needs about {_size(need)} of memory, "
+                            f"more than the {_size(limit)} this run may use", where=shown,
                             hint="run on a machine with more memory, or split the extract and keep only "
                                  "the columns the plan needs")
 
@@ -97,7 +104,7 @@ def check_jobs(jobs: list[Any], *, available: int | None) -> None:
         if job.method == "permutation" and job.options.get("exact") == "always":
             count = arrangements(job)
             if count > ENUMERATION_LIMIT:
-                raise DataError(f"analysis '{job.analysis_id}': exact: always asks for {count:,} arrangements, "
+                raise DataError(f"exact: always asks for {count:,} arrangements, "
                                 f"more than the {ENUMERATION_LIMIT:,} planrunner enumerates",
                                 where=f"analysis '{job.analysis_id}'",
                                 hint="use exact: auto or exact: never (Monte Carlo resamples)")
@@ -107,7 +114,7 @@ def check_jobs(jobs: list[Any], *, available: int | None) -> None:
     need = estimate_run_bytes(jobs)
     if need > limit:
         biggest = max(jobs, key=draws_kept)
-        raise DataError(f"the run needs about {need / MB:.0f} MB of memory, more than the {limit / MB:.0f} MB "
+        raise DataError(f"the run needs about {_size(need)} of memory, more than the {_size(limit)} "
                         f"it may use (the largest part: analysis '{biggest.analysis_id}' keeps "
                         f"{draws_kept(biggest):,} values)", where="resources",
                         hint="lower resamples, split the plan into several runs, or run on a machine with "

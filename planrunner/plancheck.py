@@ -72,7 +72,9 @@ def read_plan(path: str | Path) -> LoadedPlan:
     try:
         text = raw.decode("utf-8")
     except UnicodeDecodeError as exc:
-        raise PlanError(f"the plan is not UTF-8 text (byte {exc.start})", where=shown,
+        line = raw.count(b"\n", 0, exc.start) + 1
+        raise PlanError(f"the plan is not UTF-8 text (byte 0x{raw[exc.start]:02x} at offset {exc.start})",
+                        where=f"{shown}:{line}",
                         hint="save the plan as UTF-8") from None
     loaded = load_yaml(text, shown)
     if not isinstance(loaded.data, dict):

@@ -97,6 +97,12 @@ def load_yaml(text: str, filename: str) -> LoadedYaml:
         where = f"{filename}:{mark.line + 1}:{mark.column + 1}" if mark else filename
         raise PlanError(f"not valid YAML: {exc.problem or exc.context}", where=where,
                         hint="check indentation, colons and quotes near this place") from None
+    except yaml.reader.ReaderError as exc:  # a character YAML does not allow (NUL, other controls)
+        before = text[:exc.position]
+        line, column = before.count("\n") + 1, exc.position - (before.rfind("\n") + 1) + 1
+        code = exc.character if isinstance(exc.character, int) else ord(str(exc.character)[:1] or "\0")
+        raise PlanError(f"not valid YAML: the character U+{code:04X} is not allowed in a plan",
+                        where=f"{filename}:{line}:{column}", hint="remove the control character") from None
     except yaml.YAMLError as exc:
         raise PlanError(f"not valid YAML: {exc}", where=filename) from None
     if root is None:
@@ -147,7 +153,9 @@ def _build(node: yaml.Node, path: Path_, values: dict, keys: dict, filename: str
     # date in a plan is never silently turned into a datetime object.
     if node.tag in _PLAIN_TAGS:
         try:
-            return _SCALAR_LOADER.construct_object(node)
+            value = _SCALAR_LOADER.construct_object(node)
+            _SCALAR_LOADER.constructed_objects.pop(node, None)  # the loader would keep every node alive
+            return value
         except ValueError:  # e.g. an integer of more than 4300 digits (Python's conversion limit)
             raise PlanError(f"{dotted(path)}: the value cannot be read as a number", where=f"{filename}:"
                             f"{start.line}:{start.column}", hint="write a shorter number") from None
