@@ -20,7 +20,7 @@ from .engines.statistics import STATISTICS
 from .errors import ExpressionError, PlanError
 from .expr import parse_expression
 from .schema import METHODS, Plan
-from .yamlsafe import LoadedYaml, Path_, dotted, load_yaml
+from .yamlsafe import MAX_PLAN_BYTES, LoadedYaml, Path_, dotted, load_yaml
 
 NUMERIC_TYPES = ("number", "integer", "boolean")
 # design keys each method can honour; anything else is refused rather than silently ignored
@@ -60,7 +60,8 @@ def read_plan(path: str | Path) -> LoadedPlan:
     file = Path(path)
     shown = str(path)
     try:
-        raw = file.read_bytes()
+        with file.open("rb") as handle:  # read no more than the limit: a plan may be a huge file
+            raw = handle.read(MAX_PLAN_BYTES + 1)
     except FileNotFoundError:
         raise PlanError("plan file not found", where=shown,
                         hint="check the path; plans are YAML files such as plans/liner-trial/plan.yaml") from None
@@ -69,6 +70,9 @@ def read_plan(path: str | Path) -> LoadedPlan:
                         hint="name the YAML file inside it") from None
     except OSError as exc:
         raise PlanError(f"cannot read the plan: {exc.strerror}", where=shown) from None
+    if len(raw) > MAX_PLAN_BYTES:
+        raise PlanError(f"the plan is larger than {MAX_PLAN_BYTES} bytes", where=shown,
+                        hint="a plan holds settings, not data; put data in the files it names")
     try:
         text = raw.decode("utf-8")
     except UnicodeDecodeError as exc:
