@@ -267,6 +267,10 @@ def _check_dataset_file(name: str, file: str) -> list[Problem]:
     if ".." in PurePosixPath(file.replace("\\", "/")).parts:
         return [Problem(at, "data paths may not leave the plan's folder ('..')",
                         "keep data in the plan's folder or below it")]
+    if any(not c.isprintable() or c in "`<>" for c in file):
+        # the path is shown in reports, inside Markdown code spans and HTML: keep it plain
+        return [Problem(at, "data paths may not contain control characters, backticks or angle brackets",
+                        "rename the file")]
     return []
 
 
