@@ -87,6 +87,8 @@ def _check(args: argparse.Namespace) -> int:
         for t in outcome.tables.values():
             excluded = sum(e.rows for e in t.excluded)
             print(f"  {t.name}: {t.file}: {t.rows_read} rows read, {t.rows_used} used, {excluded} excluded; sha256 {t.sha256}")
+            if t.ignored_columns:
+                print(f"    ignored columns: {', '.join(t.ignored_columns)}")
     else:
         print("  data files not read (--plan-only)")
     return EXIT_OK

@@ -117,7 +117,7 @@ def read_table(name: str, spec: Dataset, plan_folder: Path, *, data_root: Path |
     header, rows, line_of = _read_rows(path, fmt, shown)
     index = _column_index(header, spec, name, fmt, shown)
     raw = {c: np.array([row[index[c]].strip() for row in rows], dtype=object) for c in spec.columns}
-    ignored = tuple(h for h in header if h not in spec.columns)
+    ignored = tuple(h or f"(unnamed column {i + 1})" for i, h in enumerate(header) if h not in spec.columns)
     rows_read = len(rows)
     if rows_read == 0:
         raise DataError("the file has a header but no data rows", where=shown,
