@@ -105,16 +105,21 @@ def read_table(name: str, spec: Dataset, plan_folder: Path, *, data_root: Path |
     if path.is_dir():
         raise DataError("this is a folder, not a data file", where=shown,
                         hint=f"name the CSV or TSV file inside it in datasets.{name}.file")
+    if path.exists() and not path.is_file():
+        raise DataError("this is not a regular file (a device or a pipe?)", where=shown,
+                        hint=f"name a CSV or TSV file in datasets.{name}.file")
     if not path.is_file():
         raise DataError("data file not found", where=shown,
                         hint=f"the plan expects it at {path}; check datasets.{name}.file")
-    sha, size = file_sha256(path)
+    # hash the very bytes that are parsed: a file changing between two reads cannot slip past a pin
+    data = path.read_bytes()
+    sha, size = hashlib.sha256(data).hexdigest(), len(data)
     if spec.sha256 is not None and spec.sha256 != sha:
         raise DataError(f"the file has changed: its sha256 is {sha}, the plan pins {spec.sha256}",
                         where=shown, hint="use the file the plan was written for, or update the pin "
                                           "(a deviation to document)")
     fmt = spec.format or ("tsv" if path.suffix.lower() in (".tsv", ".tab") else "csv")
-    header, rows, line_of = _read_rows(path, fmt, shown)
+    header, rows, line_of = _read_rows(data, fmt, shown)
     index = _column_index(header, spec, name, fmt, shown)
     raw = {c: np.array([row[index[c]].strip() for row in rows], dtype=object) for c in spec.columns}
     ignored = tuple(h or f"(unnamed column {i + 1})" for i, h in enumerate(header) if h not in spec.columns)
@@ -177,14 +182,13 @@ def group_value(value: object) -> str:
     return str(value).lower() if isinstance(value, (bool, np.bool_)) else str(value)
 
 
-def _read_rows(path: Path, fmt: str, shown: str) -> tuple[list[str], list[list[str]], np.ndarray]:
+def _read_rows(data: bytes, fmt: str, shown: str) -> tuple[list[str], list[list[str]], np.ndarray]:
     """Header, rows and the file line where each row starts.
 
     Read with the csv module rather than pandas so that every row keeps its true line number
     (blank lines and quoted line breaks would otherwise shift them), and so that a row with too
     few fields is an error instead of being padded with empty values.
     """
-    data = path.read_bytes()
     if not data.strip():
         raise DataError("the file is empty", where=shown, hint="a header line and data rows are expected")
     try:
