@@ -8,6 +8,8 @@ and the hypothesis examples are small.
 
 from __future__ import annotations
 
+import atexit
+import shutil
 import tempfile
 from pathlib import Path
 
@@ -37,6 +39,7 @@ VALID = {
 DATA = "g,y,s\na,1,p\na,2,q\na,4,p\na,3,q\nb,3,p\nb,5,q\nb,9,p\nb,7,q\n"
 FOLDER = Path(tempfile.mkdtemp(prefix="planrunner-fuzz-"))
 (FOLDER / "d.csv").write_text(DATA, encoding="utf-8")
+atexit.register(shutil.rmtree, FOLDER, ignore_errors=True)
 FUZZ = settings(max_examples=150, deadline=None, suppress_health_check=[HealthCheck.too_slow])
 
 
