@@ -128,7 +128,8 @@ def _check_pairs(analysis: Any, table: Table, labels: tuple[str, ...], masks: li
             if count == 1:
                 continue
             if count == 0:
-                problem = f"has no row in group '{label}' (its row(s): line(s) {_lines(table.lines[used & (pairs == pair)])})"
+                elsewhere = table.lines[used & (pairs == pair)]
+                problem = f"has no row in group '{label}' (its row(s): line(s) {_lines(elsewhere)})"
             else:
                 problem = f"has {count} rows in group '{label}' (line(s) {_lines(table.lines[rows])})"
             raise DataError(f"{who}: pair '{pair}' (column '{name}') {problem}", where=table.file,

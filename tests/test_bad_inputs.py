@@ -66,6 +66,7 @@ def read_case(source: Path) -> Case:
 
 
 CASES = [read_case(p) for p in PLANS + FOLDERS]
+IDS = [f"{c.source.parent.name}/{c.source.stem if c.source.is_file() else c.source.name}" for c in CASES]
 
 
 def test_corpus_is_large_enough():
@@ -74,8 +75,7 @@ def test_corpus_is_large_enough():
         assert case.fragments, f"{case.source} names no expected message"
 
 
-@pytest.mark.parametrize("case", CASES, ids=[f"{c.source.parent.name}/{c.source.stem if c.source.is_file() else c.source.name}"
-                                             for c in CASES])
+@pytest.mark.parametrize("case", CASES, ids=IDS)
 def test_bad_input_gives_one_clear_message(case: Case, tmp_path: Path, monkeypatch, capsys):
     copy = tmp_path / "case"
     if case.source.is_file():
