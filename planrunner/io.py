@@ -202,32 +202,34 @@ def _read_rows(data: bytes, fmt: str, shown: str) -> tuple[list[str], list[list[
     text = text.removeprefix("\ufeff")  # a byte-order mark written by some spreadsheet programs
     delimiter = "\t" if fmt == "tsv" else ","
     reader = csv.reader(io.StringIO(text, newline=""), delimiter=delimiter, strict=True)
-    header: list[str] | None = None
-    header_line = 1
-    rows: list[list[str]] = []
-    lines: list[int] = []
-    end = 0
-    try:
-        for record in reader:
-            start, end = end + 1, reader.line_num
-            if not record:
-                continue  # a blank line
-            if header is None:
-                header, header_line = [h.strip() for h in record], start
-                continue
-            if len(record) != len(header):
-                raise DataError(f"line {start} has {len(record)} field(s) but the header (line {header_line}) has "
-                                f"{len(header)}", where=shown,
-                                hint="check the delimiter and the quotes on that line: every row needs one "
-                                     "value per column")
-            rows.append(record)
-            lines.append(start)
-    except csv.Error as exc:
-        raise DataError(f"line {end + 1}: cannot be read as {fmt.upper()}: {exc}", where=shown,
-                        hint="check the quotes on that line (a quote opened and never closed?)") from None
-    if header is None:
+    if '"' not in text:
+        # No quotes, so no record spans lines: record i is line i + 1 and the whole file can be
+        # read in one call (several times faster than asking the reader for each line number).
+        numbered = [(i + 1, r) for i, r in enumerate(reader) if r]
+    else:
+        numbered = []
+        end = 0
+        try:
+            for record in reader:
+                start, end = end + 1, reader.line_num
+                if record:
+                    numbered.append((start, record))
+        except csv.Error as exc:
+            raise DataError(f"line {end + 1}: cannot be read as {fmt.upper()}: {exc}", where=shown,
+                            hint="check the quotes on that line (a quote opened and never closed?)") from None
+    if not numbered:
         raise DataError("the file is empty", where=shown, hint="a header line and data rows are expected")
-    return header, rows, np.array(lines, dtype=np.int64)
+    header_line, first = numbered[0]
+    header = [h.strip() for h in first]
+    rows = [r for _, r in numbered[1:]]
+    width = len(header)
+    for line, record in numbered[1:]:
+        if len(record) != width:
+            raise DataError(f"line {line} has {len(record)} field(s) but the header (line {header_line}) has "
+                            f"{width}", where=shown,
+                            hint="check the delimiter and the quotes on that line: every row needs one "
+                                 "value per column")
+    return header, rows, np.array([line for line, _ in numbered[1:]], dtype=np.int64)
 
 
 _OTHER_DELIMITERS = {";": "semicolons", "\t": "tabs", ",": "commas", "|": "bars"}
