@@ -114,3 +114,19 @@ def test_memory_estimate_follows_the_stated_rule(write_plan, monkeypatch):
 def test_available_memory_is_a_positive_number_here():
     available = runner.available_memory()
     assert available is None or available > 0
+
+
+def test_windows_line_endings_and_trailing_commas_read_as_usual(write_plan, tmp_path):
+    path = plan_of(write_plan, "")
+    (path.parent / "d.csv").write_bytes(b"g,y,unit,\r\na,1,u,\r\na,2,u,\r\n\r\nb,x,u,\r\nb,5,u,\r\n")
+    with pytest.raises(DataError, match=r"e\.g\. 'x' on line\(s\) 5"):  # the blank line 4 is counted
+        runner.check_plan(path)
+    (path.parent / "d.csv").write_bytes(b"g,y,unit,\r\na,1,u,\r\na,2,u,\r\n\r\nb,3,u,\r\nb,5,u,\r\n")
+    table = runner.check_plan(path).tables["d"]
+    assert table.lines.tolist() == [2, 3, 5, 6] and table.ignored_columns == ("(unnamed column 4)",)
+
+
+def test_ragged_row_after_a_quoted_field_names_its_line(write_plan):
+    path = plan_of(write_plan, 'g,y,unit\na,1,"two\nlines"\na,2,u\nb,3\nb,5,u\n')
+    with pytest.raises(DataError, match=r"line 5 has 2 field\(s\) but the header \(line 1\) has 3"):
+        runner.check_plan(path)
