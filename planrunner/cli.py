@@ -89,6 +89,9 @@ def _check(args: argparse.Namespace) -> int:
             print(f"  {t.name}: {t.file}: {t.rows_read} rows read, {t.rows_used} used, {excluded} excluded; sha256 {t.sha256}")
             if t.ignored_columns:
                 print(f"    ignored columns: {', '.join(t.ignored_columns)}")
+        if outcome.jobs is not None:
+            from .limits import estimate_run_bytes, size_text
+            print(f"  memory for the analyses: about {size_text(estimate_run_bytes(outcome.jobs))}")
     else:
         print("  data files not read (--plan-only)")
     return EXIT_OK

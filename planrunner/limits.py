@@ -32,7 +32,8 @@ ENUMERATION_LIMIT = 5_000_000  # engines/permutation.py refuses exact: always be
 MB = 1 << 20
 
 
-def _size(count: int) -> str:
+def size_text(count: int) -> str:
+    """A byte count for people: 1.6 kB, 63 MB."""
     for unit, scale in (("GB", 1 << 30), ("MB", MB), ("kB", 1 << 10)):
         if count >= scale:
             return f"{count / scale:.0f} {unit}" if count >= 10 * scale else f"{count / scale:.1f} {unit}"
@@ -51,8 +52,8 @@ def check_files(sizes: Iterable[tuple[str, int]], *, available: int | None) -> N
     for shown, size in sizes:
         need = READ_FACTOR * size
         if need > limit:
-            raise DataError(f"reading this file ({_size(size)}) needs about {_size(need)} of memory, "
-                            f"more than the {_size(limit)} this run may use", where=shown,
+            raise DataError(f"reading this file ({size_text(size)}) needs about {size_text(need)} of memory, "
+                            f"more than the {size_text(limit)} this run may use", where=shown,
                             hint="run on a machine with more memory, or split the extract and keep only "
                                  "the columns the plan needs")
 
@@ -114,7 +115,7 @@ def check_jobs(jobs: list[Any], *, available: int | None) -> None:
     need = estimate_run_bytes(jobs)
     if need > limit:
         biggest = max(jobs, key=draws_kept)
-        raise DataError(f"the run needs about {_size(need)} of memory, more than the {_size(limit)} "
+        raise DataError(f"the run needs about {size_text(need)} of memory, more than the {size_text(limit)} "
                         f"it may use (the largest part: analysis '{biggest.analysis_id}' keeps "
                         f"{draws_kept(biggest):,} values)", where="resources",
                         hint="lower resamples, split the plan into several runs, or run on a machine with "

@@ -50,7 +50,10 @@ def analysis_and_table(path):
 def test_undeclared_columns_are_ignored_and_recorded(write_plan, tmp_path, capsys):
     path = plan_of(write_plan, "g,y,unit,note,\na,1,u,x,\na,2,u,x,\nb,3,u,x,\nb,5,u,x,\n")
     assert cli.main(["check", str(path)]) == 0
-    assert "ignored columns: note, (unnamed column 5)" in capsys.readouterr().out
+    out = capsys.readouterr().out
+    assert "ignored columns: note, (unnamed column 5)" in out
+    # jackknife of 4 rows: 8 bytes * 4 replicates kept, twice, plus the 32 * 2,000,000 batch allowance
+    assert "memory for the analyses: about 61 MB" in out  # the README rule: 64,000,064 bytes
     folder = runner.run_plan(path, out=tmp_path / "out", operator="t").folder
     record = json.loads((folder / "record.json").read_text(encoding="utf-8"))
     assert record["datasets"][0]["ignored_columns"] == ["note", "(unnamed column 5)"]
