@@ -27,6 +27,10 @@ class _Parser(argparse.ArgumentParser):
         raise SystemExit(EXIT_INPUT)
 
 
+DATA_ROOT_HELP = ("look up the plan's data files under DIR instead of the plan's folder; "
+                  "they must resolve inside DIR")
+
+
 def build_parser() -> argparse.ArgumentParser:
     parser = _Parser(prog="planrunner", description="Run pre-specified resampling analyses from a YAML plan.")
     parser.add_argument("--version", action="version", version=f"planrunner {__version__}")
@@ -36,12 +40,14 @@ def build_parser() -> argparse.ArgumentParser:
     check.add_argument("plan", help="path to the plan (YAML)")
     check.add_argument("--plan-only", action="store_true", help="do not read the data files")
     check.add_argument("--param", action="append", metavar="NAME=VALUE", help="a value for a plan parameter")
+    check.add_argument("--data-root", metavar="DIR", help=DATA_ROOT_HELP)
 
     run = verbs.add_parser("run", help="run every analysis of a plan and write the record and reports")
     run.add_argument("plan", help="path to the plan (YAML)")
     run.add_argument("--out", help="folder under which the run folder is created (default: runs/ beside the plan)")
     run.add_argument("--operator", help="who runs the analysis (default: the login name)")
     run.add_argument("--quiet", action="store_true", help="print only the run folder")
+    run.add_argument("--data-root", metavar="DIR", help=DATA_ROOT_HELP)
     _add_audit_run_options(run)
     _add_audit_verbs(verbs)
     return parser
@@ -80,13 +86,19 @@ def main(argv: Sequence[str] | None = None) -> int:
 def _check(args: argparse.Namespace) -> int:
     from .runner import check_plan
     from .params import parse_assignments
-    outcome = check_plan(args.plan, with_data=not args.plan_only, params=parse_assignments(args.param))
+    outcome = check_plan(args.plan, with_data=not args.plan_only, params=parse_assignments(args.param),
+                         data_root=args.data_root)
     plan = outcome.loaded.plan
     print(f"{args.plan}: plan '{plan.plan}' is valid: {len(plan.datasets)} dataset(s), {len(plan.analyses)} analysis(es)")
     if outcome.tables is not None:
         for t in outcome.tables.values():
             excluded = sum(e.rows for e in t.excluded)
             print(f"  {t.name}: {t.file}: {t.rows_read} rows read, {t.rows_used} used, {excluded} excluded; sha256 {t.sha256}")
+            if t.ignored_columns:
+                print(f"    ignored columns: {', '.join(t.ignored_columns)}")
+        if outcome.jobs is not None:
+            from .limits import estimate_run_bytes, size_text
+            print(f"  memory for the analyses: about {size_text(estimate_run_bytes(outcome.jobs))}")
     else:
         print("  data files not read (--plan-only)")
     print(check_lock_summary(outcome))
@@ -98,7 +110,8 @@ def _run(args: argparse.Namespace, argv: list[str]) -> int:
     from .runner import run_plan
     outcome = run_plan(args.plan, out=args.out, operator=args.operator, command=["planrunner", *argv],
                        params=parse_assignments(args.param), lock=args.lock,
-                       refuse_deviations=args.refuse_deviations, reason=args.reason)
+                       refuse_deviations=args.refuse_deviations, reason=args.reason,
+                       data_root=args.data_root)
     if not args.quiet:
         print(summary_table(outcome.record))
         print(audit_summary(outcome))

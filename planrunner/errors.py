@@ -58,3 +58,10 @@ class ExpressionError(PlanrunnerError):
     def excerpt(self) -> str:
         """The expression with a caret under the offending character."""
         return f"{self.text}\n{' ' * self.position}^"
+
+
+class OutputError(PlanrunnerError):
+    """The run's folder cannot be written (no space, no permission, a file in the way).
+
+    Nothing partial is left where a complete run is expected: the staging folder is removed.
+    """

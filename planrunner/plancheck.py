@@ -21,7 +21,7 @@ from .errors import ExpressionError, PlanError
 from .expr import parse_expression
 from .params import parameter_problems
 from .schema import METHODS, Plan
-from .yamlsafe import LoadedYaml, Path_, dotted, load_yaml
+from .yamlsafe import MAX_PLAN_BYTES, LoadedYaml, Path_, dotted, load_yaml
 
 NUMERIC_TYPES = ("number", "integer", "boolean")
 # design keys each method can honour; anything else is refused rather than silently ignored
@@ -61,7 +61,8 @@ def read_plan(path: str | Path) -> LoadedPlan:
     file = Path(path)
     shown = str(path)
     try:
-        raw = file.read_bytes()
+        with file.open("rb") as handle:  # read no more than the limit: a plan may be a huge file
+            raw = handle.read(MAX_PLAN_BYTES + 1)
     except FileNotFoundError:
         raise PlanError("plan file not found", where=shown,
                         hint="check the path; plans are YAML files such as plans/liner-trial/plan.yaml") from None
@@ -70,10 +71,15 @@ def read_plan(path: str | Path) -> LoadedPlan:
                         hint="name the YAML file inside it") from None
     except OSError as exc:
         raise PlanError(f"cannot read the plan: {exc.strerror}", where=shown) from None
+    if len(raw) > MAX_PLAN_BYTES:
+        raise PlanError(f"the plan is larger than {MAX_PLAN_BYTES} bytes", where=shown,
+                        hint="a plan holds settings, not data; put data in the files it names")
     try:
         text = raw.decode("utf-8")
     except UnicodeDecodeError as exc:
-        raise PlanError(f"the plan is not UTF-8 text (byte {exc.start})", where=shown,
+        line = raw.count(b"\n", 0, exc.start) + 1
+        raise PlanError(f"the plan is not UTF-8 text (byte 0x{raw[exc.start]:02x} at offset {exc.start})",
+                        where=f"{shown}:{line}",
                         hint="save the plan as UTF-8") from None
     loaded = load_yaml(text, shown)
     if not isinstance(loaded.data, dict):
@@ -263,6 +269,10 @@ def _check_dataset_file(name: str, file: str) -> list[Problem]:
     if ".." in PurePosixPath(file.replace("\\", "/")).parts:
         return [Problem(at, "data paths may not leave the plan's folder ('..')",
                         "keep data in the plan's folder or below it")]
+    if any(not c.isprintable() or c in "`<>" for c in file):
+        # the path is shown in reports, inside Markdown code spans and HTML: keep it plain
+        return [Problem(at, "data paths may not contain control characters, backticks or angle brackets",
+                        "rename the file")]
     return []
 
 

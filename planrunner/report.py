@@ -11,6 +11,7 @@ from __future__ import annotations
 import functools
 import importlib.resources
 import math
+import re
 from pathlib import Path
 from typing import Any
 
@@ -120,8 +121,16 @@ def histogram_svg(entry: dict[str, Any], width: int = 560, height: int = 180) ->
     return Markup("".join(parts))
 
 
+def code_fence(text: str) -> str:
+    """A Markdown code fence longer than any run of backticks in `text`, so that a plan holding
+    backticks (a quoted column name in a filter, say) cannot close the block early (CommonMark:
+    a fence closes only on a run at least as long as the one that opened it)."""
+    longest = max((len(run) for run in re.findall(r"`+", text)), default=0)
+    return "`" * max(3, longest + 1)
+
+
 def render(record: dict[str, Any], kind: str) -> str:
     """The report for `kind` ('html' or 'md') as text; a pure function of the record."""
     template = _environment(kind).get_template("report.html.j2" if kind == "html" else "report.md.j2")
     figures = {a["id"]: histogram_svg(a) for a in record["analyses"]} if kind == "html" else {}
-    return template.render(record=record, figures=figures)
+    return template.render(record=record, figures=figures, fence=code_fence(record["plan"]["text"]))

@@ -59,6 +59,9 @@ class Dataset(Strict):
     missing: Literal["refuse", "drop"] = "refuse"
     missing_values: list[str] = Field(default_factory=lambda: ["", "NA"])
     keep: Annotated[str, Field(min_length=1)] | None = None
+    # header columns the plan does not declare: ignored (and listed in the record), or refused by a
+    # plan that wants the file to hold exactly the declared columns
+    undeclared_columns: Literal["ignore", "refuse"] = "ignore"
 
 
 class Groups(Strict):

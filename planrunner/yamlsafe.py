@@ -31,6 +31,11 @@ _PLAIN_TAGS = {
 }
 
 
+_OPENERS = (yaml.BlockMappingStartToken, yaml.BlockSequenceStartToken, yaml.FlowMappingStartToken,
+            yaml.FlowSequenceStartToken)
+_CLOSERS = (yaml.BlockEndToken, yaml.FlowMappingEndToken, yaml.FlowSequenceEndToken)
+
+
 @dataclass(frozen=True)
 class Position:
     line: int  # 1-based
@@ -66,7 +71,19 @@ def load_yaml(text: str, filename: str) -> LoadedYaml:
         raise PlanError(f"the plan is larger than {MAX_PLAN_BYTES} bytes", where=filename,
                         hint="a plan holds settings, not data; put data in the files it names")
     try:
+        depth = 0
         for token in yaml.scan(text, Loader=yaml.SafeLoader):
+            # Count nesting on the tokens, before composing: the composer recurses once per level
+            # and a plan of a million '[' would exhaust Python's stack long before _build could
+            # refuse it.
+            if isinstance(token, _OPENERS):
+                depth += 1
+                if depth > MAX_DEPTH + 1:
+                    p = _pos(token.start_mark)
+                    raise PlanError("the plan is nested too deeply", where=f"{filename}:{p.line}:{p.column}",
+                                    hint=f"a plan needs no more than {MAX_DEPTH} levels")
+            elif isinstance(token, _CLOSERS):
+                depth -= 1
             if isinstance(token, (yaml.TagToken, yaml.AnchorToken, yaml.AliasToken)):
                 kind = {yaml.TagToken: "tags (!...)", yaml.AnchorToken: "anchors (&...)",
                         yaml.AliasToken: "aliases (*...)"}[type(token)]
@@ -80,6 +97,12 @@ def load_yaml(text: str, filename: str) -> LoadedYaml:
         where = f"{filename}:{mark.line + 1}:{mark.column + 1}" if mark else filename
         raise PlanError(f"not valid YAML: {exc.problem or exc.context}", where=where,
                         hint="check indentation, colons and quotes near this place") from None
+    except yaml.reader.ReaderError as exc:  # a character YAML does not allow (NUL, other controls)
+        before = text[:exc.position]
+        line, column = before.count("\n") + 1, exc.position - (before.rfind("\n") + 1) + 1
+        code = exc.character if isinstance(exc.character, int) else ord(str(exc.character)[:1] or "\0")
+        raise PlanError(f"not valid YAML: the character U+{code:04X} is not allowed in a plan",
+                        where=f"{filename}:{line}:{column}", hint="remove the control character") from None
     except yaml.YAMLError as exc:
         raise PlanError(f"not valid YAML: {exc}", where=filename) from None
     if root is None:
@@ -129,5 +152,11 @@ def _build(node: yaml.Node, path: Path_, values: dict, keys: dict, filename: str
     # Scalars: the usual plain types; anything else (timestamps) stays the text as written, so a
     # date in a plan is never silently turned into a datetime object.
     if node.tag in _PLAIN_TAGS:
-        return _SCALAR_LOADER.construct_object(node)
+        try:
+            value = _SCALAR_LOADER.construct_object(node)
+            _SCALAR_LOADER.constructed_objects.pop(node, None)  # the loader would keep every node alive
+            return value
+        except ValueError:  # e.g. an integer of more than 4300 digits (Python's conversion limit)
+            raise PlanError(f"{dotted(path)}: the value cannot be read as a number", where=f"{filename}:"
+                            f"{start.line}:{start.column}", hint="write a shorter number") from None
     return str(node.value)

@@ -1,0 +1,288 @@
+"""Faults while a run computes or writes: a failing write, an interrupt, a killed process.
+
+Whatever happens, no folder with a run's name is left holding a partial record or report, a
+staging folder is removed (or, after SIGKILL, left hidden as `.staging-*` and ignored), and the
+next run works. Paths: data stay inside their root, outputs stay under the output folder, and a
+run folder is never reused.
+"""
+
+from __future__ import annotations
+
+import errno
+import json
+import os
+import signal
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import pytest
+
+from planrunner import cli, runner
+from planrunner.errors import DataError
+
+from conftest import fixed_clock
+
+ROOT = Path(__file__).resolve().parent.parent
+PLAN = """
+plan: fault-check
+title: Fault checks
+seed: 11
+datasets:
+  d:
+    file: data/d.csv
+    columns:
+      g: {type: category, levels: [a, b]}
+      y: {type: number}
+analyses:
+  - id: one
+    data: d
+    outcome: y
+    groups: {by: g, compare: [a, b]}
+    statistic: mean_difference
+    method: bootstrap
+    resamples: 199
+"""
+DATA = "g,y\na,1.5\na,2.5\na,3.0\na,2.0\nb,0.5\nb,4.0\nb,2.0\nb,1.0\n"
+FILES = ["record.json", "report.html", "report.md"]
+
+
+@pytest.fixture
+def plan(write_plan) -> Path:
+    return write_plan(PLAN, {"data/d.csv": DATA})
+
+
+def visible(folder: Path) -> list[Path]:
+    """What a reader of the output folder sees, less the run history log that successful runs append to."""
+    return sorted(p for p in folder.iterdir() if not p.name.startswith(".") and p.name != "history.jsonl"
+                  ) if folder.exists() else []
+
+
+def assert_next_run_works(plan: Path, out: Path, capsys) -> Path:
+    before = set(visible(out))
+    assert cli.main(["run", str(plan), "--out", str(out), "--quiet"]) == 0
+    capsys.readouterr()
+    new = [p for p in visible(out) if p not in before]
+    assert len(new) == 1 and sorted(f.name for f in new[0].iterdir()) == FILES
+    json.loads((new[0] / "record.json").read_text(encoding="utf-8"))  # complete JSON
+    return new[0]
+
+
+# --- a write that fails half-way ------------------------------------------------------------------
+
+class FailingOpen:
+    """`open` for runner.py whose handle fails on the n-th file written."""
+
+    def __init__(self, fail_on: int, error: BaseException):
+        self.calls, self.fail_on, self.error = 0, fail_on, error
+
+    def __call__(self, file, mode="r", *args, **kwargs):
+        handle = open(file, mode, *args, **kwargs)
+        if "w" not in mode:
+            return handle
+        self.calls += 1
+        if self.calls == self.fail_on:
+            error = self.error
+
+            class Broken:
+                def __enter__(self):
+                    return self
+
+                def __exit__(self, *exc):
+                    handle.close()
+                    return False
+
+                def write(self, text):
+                    handle.write(text[: len(text) // 2])  # half of the file reaches the disk
+                    raise error
+
+            return Broken()
+        return handle
+
+
+@pytest.mark.parametrize("fail_on", [1, 2, 3])
+def test_oserror_half_way_through_writing_leaves_nothing(plan, tmp_path, monkeypatch, capsys, fail_on):
+    out = tmp_path / "out"
+    monkeypatch.setattr(runner, "open", FailingOpen(fail_on, OSError(errno.ENOSPC, "No space left on device")),
+                        raising=False)
+    assert cli.main(["run", str(plan), "--out", str(out)]) == 2
+    err = capsys.readouterr().err
+    assert "the run could not be written: No space left on device" in err and "nothing was kept" in err
+    assert "Traceback" not in err and len(err.strip().splitlines()) == 1
+    assert list(out.iterdir()) == []  # neither a run folder nor a staging folder
+    monkeypatch.undo()
+    assert_next_run_works(plan, out, capsys)
+
+
+def test_failing_fsync_and_rename_leave_nothing(plan, tmp_path, monkeypatch, capsys):
+    out = tmp_path / "out"
+    real_rename = os.rename
+
+    def no_rename(src, dst):
+        raise OSError(errno.EACCES, "Permission denied")
+    monkeypatch.setattr(runner.os, "rename", no_rename)
+    assert cli.main(["run", str(plan), "--out", str(out)]) == 2
+    assert "Permission denied" in capsys.readouterr().err and list(out.iterdir()) == []
+    monkeypatch.setattr(runner.os, "rename", real_rename)
+
+    def no_fsync(fd):
+        raise OSError(errno.EIO, "Input/output error")
+    monkeypatch.setattr(runner.os, "fsync", no_fsync)
+    assert cli.main(["run", str(plan), "--out", str(out)]) == 2
+    assert "Input/output error" in capsys.readouterr().err and list(out.iterdir()) == []
+    monkeypatch.undo()
+    assert_next_run_works(plan, out, capsys)
+
+
+# --- interrupts -----------------------------------------------------------------------------------
+
+def test_interrupt_during_the_engines(plan, tmp_path, monkeypatch, capsys):
+    out = tmp_path / "out"
+
+    def interrupted(jobs):
+        raise KeyboardInterrupt
+    monkeypatch.setattr(runner, "execute_all", interrupted)
+    assert cli.main(["run", str(plan), "--out", str(out)]) == 130
+    assert "interrupted; no record was written" in capsys.readouterr().err
+    assert visible(out) == [] and (not out.exists() or list(out.iterdir()) == [])
+    monkeypatch.undo()
+    assert_next_run_works(plan, out, capsys)
+
+
+@pytest.mark.parametrize("fail_on", [1, 3])
+def test_interrupt_during_writing(plan, tmp_path, monkeypatch, capsys, fail_on):
+    out = tmp_path / "out"
+    monkeypatch.setattr(runner, "open", FailingOpen(fail_on, KeyboardInterrupt()), raising=False)
+    assert cli.main(["run", str(plan), "--out", str(out)]) == 130
+    assert "interrupted" in capsys.readouterr().err
+    assert list(out.iterdir()) == []
+    monkeypatch.undo()
+    assert_next_run_works(plan, out, capsys)
+
+
+# --- a process killed half-way (SIGKILL cannot be caught: only the staging design protects) -------
+
+CHILD = r"""
+import sys, time
+from pathlib import Path
+from planrunner import cli, runner
+
+marker, where = Path(sys.argv[1]), sys.argv[2]
+
+def pause(*args, **kwargs):
+    marker.write_text("reached", encoding="utf-8")
+    time.sleep(120)  # the parent kills us here
+
+if where == "engines":
+    runner.execute_all = pause
+else:  # every file is written into the staging folder, the rename has not happened yet
+    runner._place = pause
+sys.exit(cli.main(["run", sys.argv[3], "--out", sys.argv[4], "--quiet"]))
+"""
+
+
+def run_child_until(where: str, plan: Path, out: Path, tmp_path: Path) -> subprocess.Popen:
+    marker = tmp_path / f"reached-{where}"
+    env = {**os.environ, "PYTHONPATH": str(ROOT) + os.pathsep + os.environ.get("PYTHONPATH", "")}
+    child = subprocess.Popen([sys.executable, "-c", CHILD, str(marker), where, str(plan), str(out)],
+                             cwd=ROOT, env=env, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    deadline = time.monotonic() + 120
+    while not marker.exists():
+        if child.poll() is not None:
+            raise AssertionError(f"the child ended early: {child.communicate()}")
+        if time.monotonic() > deadline:
+            child.kill()
+            raise AssertionError("the child never reached the pause")
+        time.sleep(0.05)
+    return child
+
+
+@pytest.mark.parametrize("where", ["engines", "writing"])
+def test_killed_process_leaves_no_run_folder(plan, tmp_path, capsys, where):
+    out = tmp_path / "out"
+    child = run_child_until(where, plan, out, tmp_path)
+    child.send_signal(signal.SIGKILL)
+    child.communicate(timeout=60)
+    assert child.returncode == -signal.SIGKILL
+    assert visible(out) == []  # nothing with a run's name
+    leftovers = list(out.iterdir()) if out.exists() else []
+    assert all(p.name.startswith(runner.STAGING_PREFIX) for p in leftovers)
+    assert len(leftovers) == (1 if where == "writing" else 0)
+    folder = assert_next_run_works(plan, out, capsys)
+    assert not folder.name.startswith(".") and leftovers == [p for p in out.iterdir() if p.name.startswith(".")]
+
+
+def test_sigint_to_a_running_process_exits_130(plan, tmp_path):
+    out = tmp_path / "out"
+    child = run_child_until("engines", plan, out, tmp_path)
+    child.send_signal(signal.SIGINT)
+    _, err = child.communicate(timeout=60)
+    assert child.returncode == 130 and "interrupted; no record was written" in err and "Traceback" not in err
+    assert not out.exists() or list(out.iterdir()) == []
+
+
+# --- paths ----------------------------------------------------------------------------------------
+
+def test_outputs_only_under_the_output_folder(plan, tmp_path, capsys):
+    before = {p for p in tmp_path.rglob("*")}
+    out = tmp_path / "elsewhere" / "out"
+    folder = assert_next_run_works(plan, out, capsys)
+    created = {p for p in tmp_path.rglob("*")} - before
+    assert created and all(p == out.parent or p.is_relative_to(out) for p in created)
+    assert folder.parent == out
+
+
+def test_run_folder_is_never_reused(plan, tmp_path, monkeypatch):
+    out = tmp_path / "out"
+    first = runner.run_plan(plan, out=out, clock=fixed_clock, operator="t")
+    taken = first.folder
+    (taken / "note.txt").write_text("someone's file", encoding="utf-8")
+    second = runner.run_plan(plan, out=out, clock=fixed_clock, operator="t")  # the same name again
+    assert second.folder == out / f"{first.folder.name}-2"
+    assert (taken / "note.txt").read_text(encoding="utf-8") == "someone's file"
+    assert sorted(f.name for f in taken.iterdir()) == sorted(FILES + ["note.txt"])
+    # an empty folder that appears under the chosen name between the check and the rename is skipped
+    real_rename, calls = os.rename, []
+
+    def racing_rename(src, dst):
+        calls.append(dst)
+        if len(calls) == 1:
+            raise OSError(errno.ENOTEMPTY, "Directory not empty")
+        return real_rename(src, dst)
+    monkeypatch.setattr(runner.os, "rename", racing_rename)
+    third = runner.run_plan(plan, out=out, clock=fixed_clock, operator="t")
+    assert third.folder == out / f"{first.folder.name}-4" and len(calls) == 2
+
+
+def test_run_folder_name_must_be_one_plain_name(tmp_path):
+    for name in ("../x", "a/b", ".hidden", "", "a\\b", ".."):
+        with pytest.raises(ValueError):
+            runner.write_run(tmp_path, name, {})
+    assert list(tmp_path.iterdir()) == []
+
+
+def test_data_root_option(write_plan, tmp_path, capsys):
+    plan = write_plan(PLAN)  # no data beside the plan
+    locked = tmp_path / "locked"
+    (locked / "data").mkdir(parents=True)
+    (locked / "data" / "d.csv").write_text(DATA, encoding="utf-8")
+    assert cli.main(["check", str(plan)]) == 2
+    assert "data file not found" in capsys.readouterr().err
+    assert cli.main(["check", str(plan), "--data-root", str(locked)]) == 0
+    capsys.readouterr()
+    out = tmp_path / "out"
+    assert cli.main(["run", str(plan), "--data-root", str(locked), "--out", str(out), "--quiet"]) == 0
+    record = json.loads((visible(out)[0] / "record.json").read_text(encoding="utf-8"))
+    assert "--data-root" in record["command"] and record["datasets"][0]["rows_read"] == 8
+
+
+def test_data_root_still_confines_symlinks(write_plan, tmp_path):
+    plan = write_plan(PLAN.replace("data/d.csv", "d.csv"))
+    locked, secret = tmp_path / "locked", tmp_path / "secret"
+    locked.mkdir()
+    secret.mkdir()
+    (secret / "d.csv").write_text(DATA, encoding="utf-8")
+    os.symlink(secret / "d.csv", locked / "d.csv")
+    with pytest.raises(DataError, match="outside the data root"):
+        runner.check_plan(plan, data_root=locked)
