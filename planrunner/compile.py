@@ -11,7 +11,7 @@ from typing import Any
 
 import numpy as np
 
-from .engines.statistics import Statistic, get_statistic
+from .engines.statistics import Statistic, bind, get_statistic
 from .engines.streams import Stream, stream_for
 from .errors import DataError
 from .io import Table
@@ -59,6 +59,8 @@ def _options(plan: Plan, analysis: Any) -> dict[str, Any]:
 
 def compile_job(plan: Plan, analysis: Any, table: Table) -> Job:
     statistic = get_statistic(analysis.statistic)
+    if statistic.parameter is not None:
+        statistic = bind(statistic, getattr(analysis, statistic.parameter))
     outcome = table.columns[analysis.outcome]
     where = f"analysis '{analysis.id}'"
     values = outcome.astype(float)

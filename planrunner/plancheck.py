@@ -16,7 +16,7 @@ from typing import Any
 import pydantic
 from pydantic import BaseModel
 
-from .engines.statistics import STATISTICS
+from .engines.statistics import PARAMETERS, STATISTICS
 from .errors import ExpressionError, PlanError
 from .expr import parse_expression
 from .schema import METHODS, Plan
@@ -332,11 +332,19 @@ def _check_analysis(at: Path_, a: Any, plan: Plan) -> list[Problem]:
         out.append(Problem(at + ("groups", "compare"), f"'{a.statistic}' compares exactly two groups, "
                            f"but {len(a.groups.compare)} levels are listed", "list two levels: [FIRST, SECOND]"))
     if statistic is not None:
+        for key in PARAMETERS:
+            if key == statistic.parameter and getattr(a, key) is None:
+                out.append(Problem(at + ("statistic",), f"'{a.statistic}' needs its {key}",
+                                   f"add {key}: VALUE" + (" (e.g. quantile: 0.9)" if key == "quantile" else "")))
+            if key != statistic.parameter and getattr(a, key) is not None:
+                out.append(Problem(at + (key,), f"'{a.statistic}' takes no {key}",
+                                   "remove the key, or choose a statistic that uses it"))
         if statistic.samples == 2 and a.groups is None:
             out.append(Problem(at + ("statistic",), f"'{a.statistic}' compares two groups but the analysis has no groups",
                                "add groups: {by: COLUMN, compare: [FIRST, SECOND]}"))
         if statistic.samples == 1 and a.groups is not None:
-            one_to_two = {"mean": "mean_difference", "median": "median_difference"}
+            one_to_two = {"mean": "mean_difference", "median": "median_difference",
+                          "quantile": "quantile_difference", "proportion": "risk_difference"}
             out.append(Problem(at + ("statistic",), f"'{a.statistic}' describes one group but the analysis compares two",
                                f"use {one_to_two.get(a.statistic, 'a two-group statistic')} or remove groups"))
         if statistic.columns == 2 and a.predictor is None:

@@ -97,6 +97,9 @@ class AnalysisBase(Strict):
     order: ColumnName | None = None  # time order of the rows (dependent data)
     covariates: Annotated[list[ColumnName], Field(min_length=1)] | None = None
     statistic: Annotated[str, Field(min_length=1)]
+    # parameters of a statistic (each statistic says which one it takes, if any)
+    quantile: Annotated[float, Field(gt=0.0, lt=1.0)] | None = None  # level of quantile statistics
+    trim: Annotated[float, Field(ge=0.0, lt=0.5)] | None = None  # proportion cut from each end
 
 
 class BootstrapAnalysis(AnalysisBase):

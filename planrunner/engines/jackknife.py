@@ -9,7 +9,8 @@ Conventions (REFERENCES §0.1; E&T ch. 11), for groups g = 1..G with n_g observa
   With two groups and a difference of means, se = sqrt(s₁²/n₁ + s₂²/n₂) (identity 6).
 
 Replicates come in closed form for the mean, proportion and mean difference (O(n)), and for the
-median (the delete-one medians take at most 3 distinct values of the sorted data); any other
+median and any quantile (the delete-one values take at most 3 distinct values of the sorted data,
+O(n log n)); the delete-one-cluster jackknife loops over clusters; any other
 statistic goes through a blocked loop over deletions that keeps memory bounded.
 """
 
@@ -22,22 +23,36 @@ import numpy as np
 
 from planrunner.errors import EngineError
 from planrunner.engines.results import EngineWarning, JackknifeResult, frozen_array
-from planrunner.engines.statistics import Statistic, check_samples, take_observations, to_compute_layout
+from planrunner.engines.statistics import (
+    Statistic,
+    check_samples,
+    check_strata,
+    take_observations,
+    to_compute_layout,
+)
 
-__all__ = ["JackknifeResult", "jackknife", "jackknife_replicates"]
+__all__ = ["JackknifeResult", "cluster_replicates", "jackknife", "jackknife_replicates"]
 
 SMALL_SAMPLE = 10  # common practice: below about 10 observations resampling summaries are rough
 
 
 def jackknife(samples: Sequence[np.ndarray], statistic: Statistic, *,
+              clusters: Sequence[np.ndarray] | None = None,
               batch_elements: int = 2_000_000) -> JackknifeResult:
-    """Delete-one jackknife bias, standard error and pseudo-values of ``statistic``."""
-    data = check_samples(samples, statistic, minimum=2, method="the jackknife")
+    """Delete-one jackknife bias, standard error and pseudo-values of ``statistic``.
+
+    With ``clusters`` (integer codes per group) whole clusters are deleted one at a time, and
+    n_g in the formulas is the number of clusters of group g (replicates in cluster-code order).
+    """
+    data = check_samples(samples, statistic, minimum=1 if clusters is not None else 2, method="the jackknife")
     estimate = float(statistic.compute(*[to_compute_layout(a) for a in data]))
     if not math.isfinite(estimate):
         raise EngineError(f"the statistic {statistic.name!r} is not finite on the data")
-    replicates = _replicates(data, statistic, batch_elements)
-    n = tuple(int(a.shape[0]) for a in data)
+    if clusters is None:
+        replicates = _replicates(data, statistic, batch_elements)
+    else:
+        replicates = cluster_replicates(data, statistic, check_strata(clusters, data))
+    n = tuple(int(r.shape[0]) for r in replicates)
 
     bias = 0.0
     sum_sq = 0.0
@@ -64,6 +79,13 @@ def jackknife(samples: Sequence[np.ndarray], statistic: Statistic, *,
             "the jackknife standard error and bias are rough"))
 
     scheme = "delete-one observation" if len(data) == 1 else "delete-one observation within each group"
+    if clusters is not None:
+        scheme = "delete-one cluster" if len(data) == 1 else "delete-one cluster within each group"
+        small = [f"group {g + 1} ({k} clusters)" for g, k in enumerate(n) if k < SMALL_SAMPLE]
+        if small:
+            warnings.append(EngineWarning(
+                "few-clusters", f"fewer than {SMALL_SAMPLE} clusters in {', '.join(small)}: the delete-one-cluster "
+                "standard error and bias are rough"))
     return JackknifeResult(
         estimate=estimate,
         bias=bias,
@@ -92,13 +114,21 @@ def jackknife_replicates(samples: Sequence[np.ndarray], statistic: Statistic, *,
 def _replicates(data: tuple[np.ndarray, ...], statistic: Statistic,
                 batch_elements: int) -> list[np.ndarray]:
     if statistic.form is not None and statistic.columns == 1 and statistic.samples in (1, 2):
-        deleted = _delete_one_mean if statistic.form == "mean" else _delete_one_median
+        if statistic.form == "mean":
+            deleted, loc = _delete_one_mean, np.mean
+        elif statistic.form == "median":
+            deleted, loc = _delete_one_median, np.median
+        else:
+            q = statistic.value
+            assert q is not None, "a quantile statistic must be bound to its level"
+            deleted = lambda x: _delete_one_quantile(x, q)  # noqa: E731
+            loc = lambda x: np.quantile(x, q)  # noqa: E731
         if statistic.samples == 1:
             reps = [deleted(data[0])]
         else:
             # the form says θ = loc(group 1) − loc(group 2); the location is the one-group statistic
-            loc = [float(np.mean(a)) if statistic.form == "mean" else float(np.median(a)) for a in data]
-            reps = [deleted(data[0]) - loc[1], loc[0] - deleted(data[1])]
+            whole = [float(loc(a)) for a in data]
+            reps = [deleted(data[0]) - whole[1], whole[0] - deleted(data[1])]
     else:
         reps = _generic(data, statistic, batch_elements)
     for g, r in enumerate(reps):
@@ -108,6 +138,30 @@ def _replicates(data: tuple[np.ndarray, ...], statistic: Statistic,
                 f"the statistic {statistic.name!r} is not finite when observation "
                 f"{int(np.flatnonzero(bad)[0]) + 1} of group {g + 1} is deleted",
                 hint="the jackknife cannot be used for these data")
+    return reps
+
+
+def cluster_replicates(data: tuple[np.ndarray, ...], statistic: Statistic,
+                       clusters: tuple[np.ndarray, ...] | None) -> list[np.ndarray]:
+    """Delete-one-cluster replicates: entry g, element k deletes the k-th cluster (ascending code) of group g."""
+    assert clusters is not None
+    whole = [to_compute_layout(a) for a in data]
+    reps = []
+    for g, a in enumerate(data):
+        ids = np.unique(clusters[g])
+        if ids.size < 2:
+            raise EngineError(f"group {g + 1} has a single cluster; the delete-one-cluster jackknife needs two",
+                              hint="use more clusters or another method")
+        out = np.empty(ids.size, dtype=np.float64)
+        for k, code in enumerate(ids):
+            kept = to_compute_layout(a[clusters[g] != code])
+            with np.errstate(invalid="ignore", divide="ignore"):
+                out[k] = float(statistic.compute(*[kept if h == g else w for h, w in enumerate(whole)]))
+        if not np.isfinite(out).all():
+            bad = int(ids[np.flatnonzero(~np.isfinite(out))[0]])
+            raise EngineError(f"the statistic {statistic.name!r} is not finite when cluster {bad} of group "
+                              f"{g + 1} is deleted", hint="the jackknife cannot be used for these data")
+        reps.append(out)
     return reps
 
 
@@ -138,6 +192,30 @@ def _delete_one_median(x: np.ndarray) -> np.ndarray:
     mid = (s[h - 1] + s[h + 1]) / 2
     high = (s[h - 1] + s[h]) / 2
     return np.where(rank < h, low, np.where(rank == h, mid, high)).astype(np.float64)
+
+
+def _delete_one_quantile(x: np.ndarray, q: float) -> np.ndarray:
+    """Linear-interpolation quantile (numpy's default) of x without x_i, from the sorted data.
+
+    The rest has n − 1 values s'[k] = s[k] for k < rank(i), s[k + 1] otherwise; with
+    h = (n − 2)q, j = floor(h), the quantile is s'[j] + (h − j)(s'[j+1] − s'[j]). So each
+    replicate is one of at most three values, found in O(n log n) (the sort) for any n.
+    """
+    n = x.shape[0]
+    order = np.argsort(x, kind="stable")
+    s = x[order]
+    rank = np.empty(n, dtype=np.int64)
+    rank[order] = np.arange(n)
+    # the same rest array for every replicate, evaluated by numpy itself: np.quantile of the n − 1
+    # values at the three possible positions of the deleted rank (before, inside, after j..j+1)
+    h = (n - 2) * q
+    j = int(math.floor(h))
+    out = np.empty(n, dtype=np.float64)
+    # cases by rank r: r <= j (both neighbours shift up), r == j + 1 (only s'[j+1] shifts), r > j + 1
+    for mask, drop in ((rank <= j, min(j, n - 1)), (rank == j + 1, min(j + 1, n - 1)), (rank > j + 1, n - 1)):
+        if mask.any():
+            out[mask] = np.quantile(np.delete(s, drop), q)
+    return out
 
 
 def _generic(data: tuple[np.ndarray, ...], statistic: Statistic, batch_elements: int) -> list[np.ndarray]:
