@@ -17,6 +17,7 @@ import pydantic
 from pydantic import BaseModel
 
 from .engines.statistics import PARAMETERS, STATISTICS
+from .designcheck import check_resampling_design
 from .errors import ExpressionError, PlanError
 from .expr import parse_expression
 from .schema import METHODS, Plan
@@ -24,7 +25,8 @@ from .yamlsafe import LoadedYaml, Path_, dotted, load_yaml
 
 NUMERIC_TYPES = ("number", "integer", "boolean")
 # design keys each method can honour; anything else is refused rather than silently ignored
-SUPPORTED_DESIGNS: dict[str, tuple[str, ...]] = {"bootstrap": (), "permutation": (), "jackknife": ()}
+SUPPORTED_DESIGNS: dict[str, tuple[str, ...]] = {"bootstrap": ("pairs", "clusters", "order"), "permutation": (),
+                                                 "jackknife": ("clusters",)}
 GROUPING_TYPES = ("category", "boolean", "integer", "text")
 
 
@@ -356,6 +358,7 @@ def _check_analysis(at: Path_, a: Any, plan: Plan) -> list[Problem]:
         if statistic.outcome == "binary" and a.outcome in cols and cols[a.outcome].type not in ("boolean", "integer"):
             out.append(Problem(at + ("outcome",), f"'{a.statistic}' needs a 0/1 or true/false outcome",
                                "declare the outcome as boolean, or as integer holding 0 and 1"))
+        out += check_resampling_design(at, a, statistic)
         if a.method == "permutation" and statistic.samples != 2:
             out.append(Problem(at + ("statistic",), "a permutation test compares two groups",
                                "add groups and use a two-group statistic such as mean_difference"))

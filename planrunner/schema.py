@@ -16,7 +16,7 @@ Identifier = Annotated[str, Field(pattern=r"^[A-Za-z0-9][A-Za-z0-9_.-]{0,63}$")]
 ColumnName = Annotated[str, Field(min_length=1, max_length=200)]
 Alternative = Literal["two-sided", "greater", "less"]
 Role = Literal["primary", "secondary", "sensitivity", "supplementary"]
-IntervalMethod = Literal["percentile", "bca"]
+IntervalMethod = Literal["percentile", "basic", "normal", "bca", "studentized"]
 Resamples = Annotated[int, Field(ge=1, le=10_000_000)]
 Confidence = Annotated[float, Field(gt=0.5, lt=1.0)]
 MultiplicityMethod = Literal["bonferroni", "holm", "hochberg", "bh", "by"]
@@ -102,12 +102,25 @@ class AnalysisBase(Strict):
     trim: Annotated[float, Field(ge=0.0, lt=0.5)] | None = None  # proportion cut from each end
 
 
+class Blocks(Strict):
+    """Block resampling of time-ordered rows (with `order`)."""
+
+    scheme: Literal["moving", "circular", "stationary"]
+    length: Annotated[int, Field(ge=1, le=1_000_000)]  # block length; the mean length for stationary
+
+
 class BootstrapAnalysis(AnalysisBase):
     method: Literal["bootstrap"]
     resamples: Resamples | None = None
     confidence: Confidence | None = None
     intervals: Annotated[list[IntervalMethod], Field(min_length=1)] = Field(
         default_factory=lambda: ["percentile", "bca"])
+    studentized_se: Literal["analytic", "jackknife"] | None = None
+    on_degenerate: Literal["fail", "percentile", "estimate-only"] = "estimate-only"
+    blocks: Blocks | None = None
+    parametric: Literal["normal", "exponential", "poisson", "binomial"] | None = None
+    trials: Annotated[int, Field(ge=1)] | None = None
+    exhaustive: bool = False
 
     @model_validator(mode="after")
     def _unique_intervals(self) -> "BootstrapAnalysis":

@@ -403,7 +403,9 @@ def bootstrap(samples: Sequence[np.ndarray], statistic: Statistic, *, resamples:
 def _kurtosis(values: np.ndarray) -> float | None:
     centred = values - values.mean()
     m2 = float(np.mean(centred ** 2))
-    return float(np.mean(centred ** 4) / m2 ** 2) if m2 > 0 else None
+    with np.errstate(all="ignore"):
+        kurtosis = float(np.mean(centred ** 4) / m2 ** 2) if m2 > 0 else math.nan
+    return kurtosis if math.isfinite(kurtosis) else None
 
 
 def _jackknife_se(data: tuple[np.ndarray, ...], statistic: Statistic, batch_elements: int) -> float:
