@@ -244,7 +244,9 @@ def bootstrap(samples: Sequence[np.ndarray], statistic: Statistic, *, resamples:
         fits = [schemes.fit_model(a, parametric, trials, g) for g, a in enumerate(data)]
         details["model"] = parametric
         details["fitted_parameters"] = fits
-        details["fit"] = "maximum likelihood (normal sd with divisor n)"
+        details["fit"] = {"normal": "maximum likelihood: mean, sd with divisor n",
+                          "exponential": "maximum likelihood: mean", "poisson": "maximum likelihood: rate = mean",
+                          "binomial": "maximum likelihood: p = mean / trials"}[parametric]
         distribution, se_star = schemes.draw_parametric(data, work, resamples, stream, batch_elements,
                                                         model=parametric, fits=fits, inner=inner)
         scheme = f"parametric: {parametric} model fitted by maximum likelihood" + (
