@@ -67,6 +67,13 @@ def repeated_id_warnings(table: Table, analysis: Any, dataset: Any, masks: list[
             continue
         ids = _labels(table, name)
         repeats = sum(int(np.sum(np.unique(ids[m], return_counts=True)[1] > 1)) for m in masks)
+        shared = set.intersection(*[set(ids[m]) for m in masks]) if len(masks) > 1 else set()
+        if shared:
+            out.append(EngineWarning(
+                "ids-in-both-groups",
+                f"{len(shared)} value(s) of the identifier column '{name}' occur in more than one group, and no "
+                f"pairs are declared: the groups are probably paired; declare pairs: {name} if each value is "
+                "one unit measured under each group"))
         if repeats:
             out.append(EngineWarning(
                 "repeated-ids",
