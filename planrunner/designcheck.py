@@ -52,9 +52,9 @@ def check_resampling_design(at: tuple, a: Any, statistic: Statistic) -> list:
             if getattr(a, key) is not None:
                 out.append(Problem(at + (key,), f"{key} cannot be combined with parametric",
                                    "remove one of the two keys"))
-        if statistic.columns != 1:
-            out.append(Problem(at + ("parametric",), "the parametric bootstrap models one column per group",
-                               "use a statistic of one column"))
+        if statistic.columns != 1 and a.parametric != "normal":
+            out.append(Problem(at + ("parametric",), f"the {a.parametric} model describes one column",
+                               "use parametric: normal (bivariate) for a statistic of two columns"))
         if a.parametric == "binomial" and a.trials is None:
             out.append(Problem(at + ("parametric",), "the binomial model needs the number of trials",
                                "add trials: N (trials per observation)"))

@@ -357,3 +357,18 @@ def test_percentile_interval_of_the_mean_is_shift_equivariant(data: list[float],
     scale = 1e-9 * (np.max(np.abs(x)) + abs(shift) + 1)
     assert b.intervals[0].lower == pytest.approx(a.intervals[0].lower + shift, abs=scale)
     assert b.intervals[0].upper == pytest.approx(a.intervals[0].upper + shift, abs=scale)
+
+
+def test_clusters_are_resampled_within_strata() -> None:
+    # 4 clusters of 3 rows in stratum 0, 2 clusters of 3 rows in stratum 1; the outcome is the stratum
+    strata = np.repeat([0, 0, 0, 0, 1, 1], 3)
+    codes = np.repeat(np.arange(6), 3)
+    x = strata.astype(float)
+    within = boot([x], "mean", clusters=[codes], strata=[strata], B=200, intervals=("percentile",))
+    # within strata every resample keeps 4 + 2 clusters of 3 rows: the share of stratum 1 never moves
+    assert np.all(within.distribution == within.distribution[0])
+    assert within.distribution[0] == pytest.approx(1 / 3)
+    assert "degenerate-distribution" in [w.code for w in within.warnings]
+    assert within.scheme == "whole clusters resampled within strata"
+    across = boot([x], "mean", clusters=[codes], B=200, intervals=("percentile",))
+    assert np.ptp(across.distribution) > 0

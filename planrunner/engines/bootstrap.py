@@ -68,8 +68,8 @@ __all__ = [
 
 TIE_TOLERANCE = 1e-10  # relative; values this close to θ̂ count as ties (rounding, not data)
 # The tail-count rule: an endpoint with fewer than TAIL_MINIMUM replicates beyond it is mostly
-# noise (common practice; with α/2 = 0.025 it asks B ≥ 400, in line with E&T §19.3's advice of
-# B ≥ 1000 for percentile intervals being comfortably above it).
+# noise (common practice; with α/2 = 0.025 it asks B ≥ 400, below the B ≥ 1000 that Efron &
+# Tibshirani advise for percentile intervals, from memory).
 TAIL_MINIMUM = 10
 DEGENERATE_CHOICES = ("fail", "percentile", "estimate-only")
 
@@ -239,12 +239,13 @@ def bootstrap(samples: Sequence[np.ndarray], statistic: Statistic, *, resamples:
         scheme = "exhaustive enumeration of every distinct resample" + (" of pairs" if paired else "") + (
             " within group × stratum cells" if codes is not None else "")
     elif parametric is not None:
-        if statistic.columns != 1:
-            raise EngineError("the parametric bootstrap models one column per group")
+        if statistic.columns > 2 or (statistic.columns == 2 and parametric != "normal"):
+            raise EngineError("the parametric bootstrap of two columns needs the (bivariate) normal model")
         fits = [schemes.fit_model(a, parametric, trials, g) for g, a in enumerate(data)]
         details["model"] = parametric
         details["fitted_parameters"] = fits
-        details["fit"] = {"normal": "maximum likelihood: mean, sd with divisor n",
+        details["fit"] = {"normal": "maximum likelihood: mean, sd with divisor n" if statistic.columns == 1
+                          else "maximum likelihood: mean vector, covariance with divisor n (bivariate normal)",
                           "exponential": "maximum likelihood: mean", "poisson": "maximum likelihood: rate = mean",
                           "binomial": "maximum likelihood: p = mean / trials"}[parametric]
         distribution, se_star = schemes.draw_parametric(data, work, resamples, stream, batch_elements,

@@ -17,7 +17,9 @@ The draw contract of each scheme (changing it changes every number):
   starts a new block when ``u[i] < 1/L`` (always at i = 0) at ``floor(u[n + i] * n)``, otherwise
   continues the previous block circularly.
 * parametric: ``u = gen.random(N)`` mapped into (0, 1) as ``u (1 − 2⁻⁵³) + 2⁻⁵⁴`` and sent through
-  the inverse CDF of the fitted model of each group.
+  the inverse CDF of the fitted model of each group. Two columns (normal only): 2n uniforms per
+  group, ``z = Φ⁻¹(u)`` read as (2, n) (the first n for the first column), rows ``μ + L z`` with L
+  the lower Cholesky factor of the maximum-likelihood covariance (divisor n).
 * exhaustive: no draws; every distinct resample (multiset) of every cell once, with its
   multinomial probability n!/(∏ c_i! nⁿ), cells combined as a product.
 """
@@ -287,6 +289,15 @@ def fit_model(x: np.ndarray, model: str, trials: int | None, group: int) -> dict
     """Maximum-likelihood fit of one group: normal (mean, sd with divisor n), exponential (mean),
     Poisson (rate), binomial (p = mean / trials, trials known)."""
     where = f"group {group + 1}"
+    if x.ndim == 2:
+        if model != "normal":
+            raise EngineError(f"the {model} model describes one column; two columns need the normal model")
+        covariance = np.cov(x.T, bias=True)  # maximum likelihood: divisor n
+        try:
+            np.linalg.cholesky(covariance)
+        except np.linalg.LinAlgError:
+            raise EngineError(f"{where}: the two columns are collinear, so no bivariate normal can be fitted") from None
+        return {"mean": [float(v) for v in x.mean(axis=0)], "covariance": covariance.tolist()}
     if model == "normal":
         return {"mean": float(np.mean(x)), "sd": float(np.std(x))}
     if model in ("poisson", "binomial") and not np.all(x == np.round(x)):
@@ -319,7 +330,7 @@ def draw_parametric(data: tuple[np.ndarray, ...], statistic: Statistic, resample
                     batch_elements: int, *, model: str, fits: Sequence[dict[str, float]],
                     inner: str | None) -> tuple[np.ndarray, np.ndarray | None]:
     """Run the parametric draw contract: each group drawn from its fitted model."""
-    sizes = [a.shape[0] for a in data]
+    sizes = [a.shape[0] * (1 if a.ndim == 1 else a.shape[1]) for a in data]
     edges = np.concatenate([[0], np.cumsum(sizes)])
     reader = UniformRows(stream, int(edges[-1]))
     out = np.empty(resamples, dtype=np.float64)
@@ -329,8 +340,17 @@ def draw_parametric(data: tuple[np.ndarray, ...], statistic: Statistic, resample
     while done < resamples:
         rows = min(rows_per_batch, resamples - done)
         u = reader.take(rows) * (1.0 - _OPEN) + _OPEN / 2
-        gathered = [np.ascontiguousarray(_inverse_cdf(u[:, edges[g]:edges[g + 1]], model, fits[g]))
-                    for g in range(len(data))]
+        gathered = []
+        for g, a in enumerate(data):
+            block = u[:, edges[g]:edges[g + 1]]
+            if a.ndim == 1:
+                gathered.append(np.ascontiguousarray(_inverse_cdf(block, model, fits[g])))
+            else:
+                # bivariate normal: z = Φ⁻¹(u) read as (columns, n), rows μ + L z (L: Cholesky factor)
+                z = _dist.norm.ppf(block).reshape(rows, a.shape[1], a.shape[0])
+                factor = np.linalg.cholesky(np.array(fits[g]["covariance"]))
+                mean = np.array(fits[g]["mean"])[:, None]
+                gathered.append(np.ascontiguousarray(mean + np.einsum("ij,rjn->rin", factor, z)))
         with np.errstate(invalid="ignore", divide="ignore"):
             theta, s = evaluate(statistic, gathered, inner)
         out[done:done + rows] = theta
