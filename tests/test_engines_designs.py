@@ -10,7 +10,7 @@ import math
 
 import numpy as np
 import pytest
-from hypothesis import given, settings
+from hypothesis import assume, given, settings
 from hypothesis import strategies as st
 from scipy import stats
 from scipy.special import ndtri
@@ -349,11 +349,10 @@ def test_lower_never_above_upper(data: list[float], name: str) -> None:
 @given(st.lists(st.floats(-100, 100, allow_nan=False), min_size=2, max_size=20), st.floats(-1e3, 1e3))
 def test_percentile_interval_of_the_mean_is_shift_equivariant(data: list[float], shift: float) -> None:
     x = np.array(data)
+    # a spread that the shift rounds away is not the same data any more
+    assume(np.ptp(x) > 1e-6 * (abs(shift) + np.max(np.abs(x)) + 1))
     a = boot([x], "mean", B=200)
     b = boot([x + shift], "mean", B=200)
-    if a.intervals[0].lower is None:
-        assert b.intervals[0].lower is None or np.ptp(x) < 1e-9
-        return
     scale = 1e-9 * (np.max(np.abs(x)) + abs(shift) + 1)
     assert b.intervals[0].lower == pytest.approx(a.intervals[0].lower + shift, abs=scale)
     assert b.intervals[0].upper == pytest.approx(a.intervals[0].upper + shift, abs=scale)
