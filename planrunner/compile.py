@@ -60,7 +60,8 @@ def _options(plan: Plan, analysis: Any) -> dict[str, Any]:
                 "intervals": intervals,
                 "studentized_se": analysis.studentized_se, "on_degenerate": analysis.on_degenerate,
                 "blocks": None if analysis.blocks is None else (analysis.blocks.scheme, analysis.blocks.length),
-                "parametric": analysis.parametric, "trials": analysis.trials, "exhaustive": analysis.exhaustive}
+                "parametric": analysis.parametric, "trials": analysis.trials, "exhaustive": analysis.exhaustive,
+                "save_distribution": analysis.save_distribution}
     if analysis.method == "permutation":
         return {"resamples": analysis.resamples or d.resamples,
                 "alternative": analysis.alternative or d.alternative,

@@ -181,6 +181,11 @@ def analysis_entry(loaded: LoadedPlan, analysis: Any, job: Job, result: Any) -> 
                      "conventions": dict(result.conventions), **_jsonable(result.details)},
             distribution=_distribution("bootstrap replicates", result.distribution, bins, result.weights),
         )
+        if job.options.get("save_distribution"):
+            # every replicate in resample order; its SHA-256 (of little-endian doubles) is `sha256`
+            entry["distribution"]["values"] = [float(v) for v in result.distribution]
+            if result.weights is not None:
+                entry["distribution"]["weights"] = [float(v) for v in result.weights]
     elif analysis.method == "permutation":
         m = result.resamples
         p = result.p_value

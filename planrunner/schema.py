@@ -121,6 +121,7 @@ class BootstrapAnalysis(AnalysisBase):
     parametric: Literal["normal", "exponential", "poisson", "binomial"] | None = None
     trials: Annotated[int, Field(ge=1)] | None = None
     exhaustive: bool = False
+    save_distribution: bool = False  # write every replicate (and exhaustive weight) into the record
 
     @model_validator(mode="after")
     def _unique_intervals(self) -> "BootstrapAnalysis":

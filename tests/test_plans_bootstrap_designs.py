@@ -439,3 +439,29 @@ def test_bs_law_parametric_bivariate_normal(write_plan, tmp_path):
     # Source: REFERENCES BS-LAW parametric normal SE 0.119270 (MC, B = 4×10⁵; E&T .124 published, as cited);
     # 4 MC s.d. at B = 2000 with the kurtosis bound κ ≤ 4 of BS-LAW: 4·0.1193·sqrt(3/(4B))
     assert abs(result["standard_error"] - 0.119270) <= 4 * 0.119270 * math.sqrt(3 / (4 * b))
+
+
+def test_saved_distribution_matches_its_hash(write_plan, tmp_path):
+    import hashlib
+    result = run(write_plan, tmp_path, "      days: {type: number}", "days\n" + "\n".join(map(str, TREATMENT)) + "\n", """
+  - id: kept
+    data: d
+    outcome: days
+    statistic: mean
+    method: bootstrap
+    resamples: 300
+    intervals: [percentile]
+    save_distribution: true
+  - id: plain
+    data: d
+    outcome: days
+    statistic: mean
+    method: bootstrap
+    resamples: 300
+    intervals: [percentile]
+""")
+    kept = result["kept"]["distribution"]
+    assert len(kept["values"]) == 300 and "values" not in result["plain"]["distribution"]
+    digest = hashlib.sha256(np.array(kept["values"], dtype="<f8").tobytes()).hexdigest()
+    assert digest == kept["sha256"]
+    assert np.std(kept["values"], ddof=1) == pytest.approx(result["kept"]["standard_error"], rel=1e-12)
