@@ -77,11 +77,13 @@ def check_resampling_design(at: tuple, a: Any, statistic: Statistic) -> list:
             out.append(Problem(at + ("intervals", intervals.index("studentized")),
                                "studentized intervals are not available with clusters",
                                "use percentile, basic, normal or bca"))
-        if statistic.se is None and a.studentized_se != "jackknife":
+        # with pairs only mean-like statistics keep an analytic SE (that of the paired differences)
+        has_se = statistic.se is not None and (a.pairs is None or statistic.form == "mean")
+        if not has_se and a.studentized_se != "jackknife":
             out.append(Problem(at + ("intervals", intervals.index("studentized")),
                                f"'{a.statistic}' has no analytic standard error for the studentized interval",
                                "declare studentized_se: jackknife (B x n extra evaluations)"))
-        if statistic.se is None and a.studentized_se == "analytic":
+        if not has_se and a.studentized_se == "analytic":
             out.append(Problem(at + ("studentized_se",), f"'{a.statistic}' has no analytic standard error",
                                "use studentized_se: jackknife"))
     elif a.studentized_se is not None:

@@ -371,3 +371,15 @@ def test_clusters_are_resampled_within_strata() -> None:
     assert within.scheme == "whole clusters resampled within strata"
     across = boot([x], "mean", clusters=[codes], B=200, intervals=("percentile",))
     assert np.ptp(across.distribution) > 0
+
+
+def test_paired_studentized_uses_the_se_of_the_differences() -> None:
+    x, y = TREATMENT, CONTROL[:7]
+    paired = boot([x, y], "mean_difference", paired=True, intervals=("studentized",))
+    diffs = boot([x - y], "mean", intervals=("studentized",))
+    # Source: identity 2 on the differences: ŝe = sd(d)/√n
+    assert paired.details["se_hat"] == pytest.approx(np.std(x - y, ddof=1) / math.sqrt(7), rel=1e-12)
+    assert (paired.intervals[0].lower, paired.intervals[0].upper) == pytest.approx(
+        (diffs.intervals[0].lower, diffs.intervals[0].upper), rel=1e-9)
+    with pytest.raises(EngineError, match="no analytic standard error"):
+        boot([x, y], "median_difference", paired=True, intervals=("studentized",))

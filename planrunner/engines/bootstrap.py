@@ -135,13 +135,15 @@ def _pair_statistic(statistic: Statistic) -> Statistic:
     def compute(xy: np.ndarray) -> np.ndarray:
         return statistic.compute(xy[..., 0, :], xy[..., 1, :])
 
-    se = None
-    if statistic.se is not None:
-        base_se = statistic.se
-
+    se = formula = None
+    if statistic.form == "mean":
+        # a difference of paired means is the mean of the paired differences: its SE is sd(d)/√n
+        # (the two-group formula would ignore the pairing)
         def se(xy: np.ndarray) -> np.ndarray:
-            return base_se(xy[..., 0, :], xy[..., 1, :])
-    return replace(statistic, samples=1, columns=2, compute=compute, se=se, form=None)
+            d = xy[..., 0, :] - xy[..., 1, :]
+            return np.std(d, axis=-1, ddof=1) / np.sqrt(d.shape[-1])
+        formula = "sd(paired differences) / sqrt(n), divisor n - 1"
+    return replace(statistic, samples=1, columns=2, compute=compute, se=se, se_formula=formula, form=None)
 
 
 def bootstrap(samples: Sequence[np.ndarray], statistic: Statistic, *, resamples: int, confidence: float,
