@@ -383,3 +383,12 @@ def test_paired_studentized_uses_the_se_of_the_differences() -> None:
         (diffs.intervals[0].lower, diffs.intervals[0].upper), rel=1e-9)
     with pytest.raises(EngineError, match="no analytic standard error"):
         boot([x, y], "median_difference", paired=True, intervals=("studentized",))
+
+
+def test_zero_resample_se_gives_infinite_t_not_an_error() -> None:
+    # 7 of the 1716 multisets repeat one observation: se* = 0 and θ* ≠ θ̂, so t* = ±∞ (identity of the pivot)
+    r = boot([TREATMENT], "mean", exhaustive=True, intervals=("studentized",))
+    assert "studentized-infinite-t" in [w.code for w in r.warnings]
+    iv = r.intervals[0]
+    assert iv.lower is not None and math.isfinite(iv.lower) and math.isfinite(iv.upper)
+    assert iv.lower < r.estimate < iv.upper

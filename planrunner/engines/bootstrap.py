@@ -49,7 +49,7 @@ from scipy.special import ndtri
 
 from planrunner.errors import EngineError
 from planrunner.engines import schemes
-from planrunner.engines.intervals import INTERVAL_METHODS, Summary, bca_levels, quantile_rank
+from planrunner.engines.intervals import INTERVAL_METHODS, Summary, bca_levels, quantile_rank, read_quantile
 from planrunner.engines.jackknife import SMALL_SAMPLE, cluster_replicates, jackknife_replicates
 from planrunner.engines.results import BootstrapResult, EngineWarning, Interval, frozen_array
 from planrunner.engines.statistics import Statistic, check_samples, check_strata, to_compute_layout
@@ -373,16 +373,37 @@ def bootstrap(samples: Sequence[np.ndarray], statistic: Statistic, *, resamples:
     if inner is not None:
         assert se_star is not None
         se_hat = float(work.se(*whole)) if inner == "analytic" else _jackknife_se(data, work, batch_elements)
-        bad_se = ~(np.isfinite(se_star) & (se_star > 0))
-        if bad_se.any() or not (math.isfinite(se_hat) and se_hat > 0):
-            t_problem = (f"the standard error is zero or undefined on {int(bad_se.sum())} of {resamples} resamples"
-                         if bad_se.any() else "the standard error of the data is zero or undefined")
-            warnings.append(EngineWarning("studentized-undefined", f"no studentized interval: {t_problem}"))
+        # a resample with se* = 0 but θ* ≠ θ̂ (e.g. all draws of one observation) has t* = ±∞: a
+        # legitimate extreme of the t* distribution; 0/0 or a non-finite se* leaves t* undefined
+        zero = se_star == 0
+        moved = np.abs(distribution - estimate) > TIE_TOLERANCE * max(1.0, abs(estimate))
+        undefined = ~np.isfinite(se_star) | (zero & ~moved)
+        if undefined.any() or not (math.isfinite(se_hat) and se_hat > 0):
+            t_problem = (f"the standard error is undefined (0/0 or not finite) on {int(undefined.sum())} of "
+                         f"{resamples} resamples" if undefined.any()
+                         else "the standard error of the data is zero or undefined")
         else:
-            t = (distribution - estimate) / se_star
+            with np.errstate(divide="ignore", invalid="ignore"):
+                t = np.where(zero, np.sign(distribution - estimate) * np.inf, (distribution - estimate) / se_star)
+            if zero.any():
+                warnings.append(EngineWarning(
+                    "studentized-infinite-t",
+                    f"{int(zero.sum())} of {resamples} resamples have a zero standard error; their t* is "
+                    "taken as plus or minus infinity"))
             t_order = np.argsort(t, kind="stable")
             t_ordered = t[t_order]
             t_cumulative = None if weights is None else np.cumsum(weights[t_order])
+            ends = [t_ordered[0], t_ordered[-1]]
+            if not np.isfinite(ends).all():
+                # infinite t* only matter if an endpoint reads them
+                alpha = 1.0 - confidence
+                reads = [read_quantile(t_ordered, t_cumulative, p) for p in (alpha / 2, 1 - alpha / 2)]
+                if not np.isfinite(reads).all():
+                    t_problem = ("so many resamples have a zero standard error that an endpoint of the "
+                                 "studentized interval is infinite")
+                    t_ordered = t_cumulative = None
+        if t_problem is not None:
+            warnings.append(EngineWarning("studentized-undefined", f"no studentized interval: {t_problem}"))
         details["se_hat"] = se_hat
 
     summary = Summary(estimate, ordered, cumulative, confidence, standard_error, bias,
@@ -401,7 +422,9 @@ def bootstrap(samples: Sequence[np.ndarray], statistic: Statistic, *, resamples:
                                                   "as on_degenerate: percentile declares")
         found.append(interval)
     if not exact:
-        warnings.extend(_tail_warnings(tuple(found), ordered))
+        for w in _tail_warnings(tuple(found), ordered):
+            if w not in warnings:  # a fallback percentile interval repeats the percentile's warning
+                warnings.append(w)
     return finish(standard_error, bias, tuple(found), z0, acceleration, se_sd, bias_sd)
 
 
