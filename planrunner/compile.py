@@ -58,7 +58,8 @@ def _options(plan: Plan, analysis: Any) -> dict[str, Any]:
         return {"resamples": analysis.resamples or d.resamples,
                 "confidence": analysis.confidence or d.confidence,
                 "intervals": intervals,
-                "studentized_se": analysis.studentized_se, "on_degenerate": analysis.on_degenerate,
+                "studentized_se": analysis.studentized_se, "inner_resamples": analysis.inner_resamples or 50,
+                "on_degenerate": analysis.on_degenerate,
                 "blocks": None if analysis.blocks is None else (analysis.blocks.scheme, analysis.blocks.length),
                 "parametric": analysis.parametric, "trials": analysis.trials, "exhaustive": analysis.exhaustive,
                 "save_distribution": analysis.save_distribution}

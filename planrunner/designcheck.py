@@ -79,14 +79,26 @@ def check_resampling_design(at: tuple, a: Any, statistic: Statistic) -> list:
                                "use percentile, basic, normal or bca"))
         # with pairs only mean-like statistics keep an analytic SE (that of the paired differences)
         has_se = statistic.se is not None and (a.pairs is None or statistic.form == "mean")
-        if not has_se and a.studentized_se != "jackknife":
+        if a.studentized_se == "bootstrap":
+            for key in ("clusters", "order", "parametric"):
+                if getattr(a, key) is not None:
+                    out.append(Problem(at + ("studentized_se",), f"the nested bootstrap SE cannot be combined with {key}",
+                                       "use studentized_se: jackknife"))
+            if a.exhaustive:
+                out.append(Problem(at + ("studentized_se",), "the nested bootstrap SE would make exhaustive results random",
+                                   "use studentized_se: jackknife or analytic"))
+        if not has_se and a.studentized_se not in ("jackknife", "bootstrap"):
             out.append(Problem(at + ("intervals", intervals.index("studentized")),
                                f"'{a.statistic}' has no analytic standard error for the studentized interval",
-                               "declare studentized_se: jackknife (B x n extra evaluations)"))
+                               "declare studentized_se: jackknife (B x n extra evaluations) or bootstrap "
+                               "(B x inner_resamples)"))
         if not has_se and a.studentized_se == "analytic":
             out.append(Problem(at + ("studentized_se",), f"'{a.statistic}' has no analytic standard error",
                                "use studentized_se: jackknife"))
-    elif a.studentized_se is not None:
+    if a.inner_resamples is not None and a.studentized_se != "bootstrap":
+        out.append(Problem(at + ("inner_resamples",), "inner_resamples apply only with studentized_se: bootstrap",
+                           "remove the key, or declare studentized_se: bootstrap"))
+    if "studentized" not in intervals and a.studentized_se is not None:
         out.append(Problem(at + ("studentized_se",), "studentized_se applies only with a studentized interval",
                            "add studentized to intervals, or remove the key"))
     return out

@@ -20,6 +20,7 @@ def execute(job: Job) -> Any:
                          clusters=job.clusters, paired=job.paired, blocks=o.get("blocks"),
                          parametric=o.get("parametric"), trials=o.get("trials"),
                          exhaustive=o.get("exhaustive", False), studentized_se=o.get("studentized_se"),
+                         inner_resamples=o.get("inner_resamples", 50),
                          on_degenerate=o.get("on_degenerate", "estimate-only"))
     if job.method == "permutation":
         return permutation_test(job.samples, job.statistic, resamples=o["resamples"],

@@ -115,7 +115,8 @@ class BootstrapAnalysis(AnalysisBase):
     confidence: Confidence | None = None
     intervals: Annotated[list[IntervalMethod], Field(min_length=1)] = Field(
         default_factory=lambda: ["percentile", "bca"])
-    studentized_se: Literal["analytic", "jackknife"] | None = None
+    studentized_se: Literal["analytic", "jackknife", "bootstrap"] | None = None
+    inner_resamples: Annotated[int, Field(ge=10, le=10_000)] | None = None  # nested bootstrap only
     on_degenerate: Literal["fail", "percentile", "estimate-only"] = "estimate-only"
     blocks: Blocks | None = None
     parametric: Literal["normal", "exponential", "poisson", "binomial"] | None = None

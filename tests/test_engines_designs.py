@@ -392,3 +392,34 @@ def test_zero_resample_se_gives_infinite_t_not_an_error() -> None:
     iv = r.intervals[0]
     assert iv.lower is not None and math.isfinite(iv.lower) and math.isfinite(iv.upper)
     assert iv.lower < r.estimate < iv.upper
+
+
+def test_nested_bootstrap_se_by_hand() -> None:
+    from planrunner.engines.streams import UniformRows
+    x = TREATMENT
+    stat = get_statistic("median")
+    lay = schemes.layout((x,), None)
+    stream = stream_for(3, "nested")
+    values, se = schemes.draw_cells(lay, stat, 30, stream, 10 ** 6, "bootstrap", 40)
+    # resample 5 by hand: its outer row, then rows 5·40 … 5·40 + 39 of the inner stream
+    outer = x[(UniformRows(stream, 7).take(6)[5] * 7).astype(int)]
+    inner_rows = UniformRows(stream.child(schemes.INNER_LABEL), 7, start=5 * 40).take(40)
+    inner = np.median(outer[(inner_rows * 7).astype(int)], axis=1)
+    assert values[5] == np.median(outer)
+    assert se[5] == pytest.approx(np.std(inner, ddof=1), rel=1e-15)
+    # batch size never changes a nested number
+    _, small = schemes.draw_cells(lay, stat, 30, stream, 1, "bootstrap", 40)
+    assert np.array_equal(se, small)
+
+
+def test_nested_bootstrap_studentized_interval() -> None:
+    r = boot([TREATMENT], "median", B=300, intervals=("studentized",), studentized_se="bootstrap",
+             inner_resamples=25)
+    info = r.details["studentized_se"]
+    assert info["method"] == "bootstrap" and info["statistic_evaluations"] == 300 * 26
+    assert r.details["se_hat"] == r.standard_error  # the data's ŝe is the outer bootstrap SE
+    paired = boot([TREATMENT, CONTROL[:7]], "median_difference", paired=True, B=200, intervals=("studentized",),
+                  studentized_se="bootstrap", inner_resamples=20)
+    assert paired.details["studentized_se"]["inner_resamples"] == 20
+    with pytest.raises(EngineError, match="nested bootstrap"):
+        boot([TREATMENT], "mean", parametric="normal", intervals=("studentized",), studentized_se="bootstrap")

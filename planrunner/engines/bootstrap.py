@@ -31,8 +31,10 @@ Conventions (also returned in ``BootstrapResult.conventions``):
   U_ji = (n_j − 1)(θ̄_j − θ_(j,i)), a = Σ_j Σ_i U³/n_j³ / (6 [Σ_j Σ_i U²/n_j²]^{3/2}),
   which reduces to eq. 14.15 for one sample. BCa is refused for blocks (the iid jackknife
   ignores the dependence) and for the parametric scheme.
-* studentized: the standard error of each resample is the statistic's analytic one, or the
-  delete-one jackknife of that resample (B·n extra evaluations, stated in ``details``).
+* studentized: the standard error of each resample is the statistic's analytic one, the
+  delete-one jackknife of that resample (B·n extra evaluations), or a nested bootstrap of M inner
+  resamples of it (B·M extra evaluations; the data's ŝe is then the outer bootstrap SE); the cost
+  is stated in ``details``.
 * Monte Carlo error (REFERENCES §3): sd of the SE ≈ SE·√((κ − 1)/(4B)) with κ the kurtosis of the
   replicates, sd of the bias ≈ SE/√B; endpoint ranges from order statistics (see intervals).
 """
@@ -150,7 +152,7 @@ def bootstrap(samples: Sequence[np.ndarray], statistic: Statistic, *, resamples:
               intervals: Sequence[str], stream: Stream, strata: Sequence[np.ndarray] | None = None,
               clusters: Sequence[np.ndarray] | None = None, paired: bool = False,
               blocks: tuple[str, int] | None = None, parametric: str | None = None, trials: int | None = None,
-              exhaustive: bool = False, studentized_se: str | None = None,
+              exhaustive: bool = False, studentized_se: str | None = None, inner_resamples: int = 50,
               on_degenerate: str = "estimate-only", batch_elements: int = 2_000_000) -> BootstrapResult:
     """Bootstrap ``statistic`` over ``resamples`` resamples drawn from ``stream``.
 
@@ -221,6 +223,12 @@ def bootstrap(samples: Sequence[np.ndarray], statistic: Statistic, *, resamples:
                               hint="declare studentized_se: jackknife")
         if inner == "jackknife" and min(n) < 2:
             raise EngineError("the inner jackknife needs at least two observations per group")
+        if inner == "bootstrap":
+            if exhaustive or parametric is not None or blocks is not None or clusters is not None:
+                raise EngineError("the nested bootstrap standard error is available for the row, strata and "
+                                  "pairs schemes only", hint="use studentized_se: jackknife")
+            if inner_resamples < 10:
+                raise EngineError(f"inner_resamples must be at least 10, got {inner_resamples}")
 
     whole = [to_compute_layout(a) for a in data]
     estimate = float(work.compute(*whole))
@@ -278,7 +286,8 @@ def bootstrap(samples: Sequence[np.ndarray], statistic: Statistic, *, resamples:
                 "few-clusters", f"fewer than {SMALL_SAMPLE} clusters in {', '.join(few)}: the cluster bootstrap "
                 "distribution is coarse and its intervals tend to be too narrow"))
     else:
-        distribution, se_star = schemes.draw_cells(lay, work, resamples, stream, batch_elements, inner)
+        distribution, se_star = schemes.draw_cells(lay, work, resamples, stream, batch_elements, inner,
+                                                   inner_resamples)
         if paired:
             scheme = "whole pairs resampled" + (" within strata" if codes is not None else "")
         elif codes is None:
@@ -286,11 +295,17 @@ def bootstrap(samples: Sequence[np.ndarray], statistic: Statistic, *, resamples:
         else:
             scheme = "within group × stratum cells"
     if inner is not None:
-        evaluations = resamples * (1 + (sum(n) if inner == "jackknife" else 0))
+        extra = {"jackknife": sum(n), "bootstrap": inner_resamples}.get(inner, 0)
         details["studentized_se"] = {
             "method": inner,
-            "formula": work.se_formula if inner == "analytic" else "delete-one jackknife of each resample",
-            "statistic_evaluations": int(evaluations)}
+            "formula": {"analytic": work.se_formula, "jackknife": "delete-one jackknife of each resample",
+                        "bootstrap": f"sd (divisor M - 1) of M = {inner_resamples} inner resamples of each "
+                                     "resample; the data's se_hat is the outer bootstrap standard error"}[inner],
+            "statistic_evaluations": int(resamples * (1 + extra))}
+        if inner == "bootstrap":
+            details["studentized_se"]["inner_resamples"] = inner_resamples
+            details["studentized_se"]["inner_stream"] = f"child {schemes.INNER_LABEL} of the analysis stream; " \
+                "inner resample j of resample r is its row r*M + j"
 
     if cl is None:
         warnings = _data_warnings(n, lay, codes is not None, paired) + warnings
@@ -372,7 +387,8 @@ def bootstrap(samples: Sequence[np.ndarray], statistic: Statistic, *, resamples:
     t_ordered = t_cumulative = se_hat = t_problem = None
     if inner is not None:
         assert se_star is not None
-        se_hat = float(work.se(*whole)) if inner == "analytic" else _jackknife_se(data, work, batch_elements)
+        se_hat = (float(work.se(*whole)) if inner == "analytic" else standard_error if inner == "bootstrap"
+                  else _jackknife_se(data, work, batch_elements))
         # a resample with se* = 0 but θ* ≠ θ̂ (e.g. all draws of one observation) has t* = ±∞: a
         # legitimate extreme of the t* distribution; 0/0 or a non-finite se* leaves t* undefined
         zero = se_star == 0

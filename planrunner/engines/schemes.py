@@ -134,13 +134,40 @@ def _rows_per_batch(batch_elements: int, width: int) -> int:
     return max(1, batch_elements // max(1, width))
 
 
+INNER_LABEL = 2 ** 40  # child label of the nested bootstrap's stream (beyond any draw-block index)
+
+
+def _nested_se(lay: Layout, statistic: Statistic, gathered: list[np.ndarray], reader: UniformRows,
+               inner_resamples: int) -> np.ndarray:
+    """Bootstrap SE of each outer resample from ``inner_resamples`` inner resamples of it.
+
+    Inner resample j of outer resample r is row r·M + j of the inner stream; it is drawn from the
+    outer resample's positions by the same cells contract (so strata and pairs are respected).
+    """
+    rows = gathered[0].shape[0]
+    u = reader.take(rows * inner_resamples).reshape(rows, inner_resamples, -1)
+    index = lay.cell_start + (u * lay.cell_size).astype(np.int64)  # (rows, M, N)
+    inner = []
+    for g, (a, (start, stop)) in enumerate(zip(gathered, lay.bounds)):
+        local = index[:, :, start:stop]
+        rows_axis = np.arange(rows)[:, None, None]
+        if a.ndim == 2:
+            inner.append(a[rows_axis, local])  # (rows, M, n)
+        else:
+            inner.append(np.moveaxis(a[rows_axis, :, local], -1, -2))  # (rows, M, k, n)
+    theta = statistic.compute(*inner)  # (rows, M)
+    return np.std(theta, axis=-1, ddof=1)
+
+
 def draw_cells(lay: Layout, statistic: Statistic, resamples: int, stream: Stream, batch_elements: int,
-               inner: str | None) -> tuple[np.ndarray, np.ndarray | None]:
+               inner: str | None, inner_resamples: int = 0) -> tuple[np.ndarray, np.ndarray | None]:
     """Run the cells draw contract; the B replicates (and inner SEs) in resample order."""
     width = int(lay.cell_start.shape[0])
     n_max = max(b - a for a, b in lay.bounds)
-    rows_per_batch = _rows_per_batch(batch_elements, width * statistic.columns * _inner_factor(inner, n_max))
+    factor = inner_resamples if inner == "bootstrap" else _inner_factor(inner, n_max)
+    rows_per_batch = _rows_per_batch(batch_elements, width * statistic.columns * factor)
     reader = UniformRows(stream, width)
+    nested = UniformRows(stream.child(INNER_LABEL), width) if inner == "bootstrap" else None
     out = np.empty(resamples, dtype=np.float64)
     se = np.empty(resamples, dtype=np.float64) if inner else None
     done = 0
@@ -153,7 +180,11 @@ def draw_cells(lay: Layout, statistic: Statistic, resamples: int, stream: Stream
                     for group, (start, stop) in zip(lay.groups, lay.bounds)]
         # undefined values are detected and reported by the caller, not printed by numpy
         with np.errstate(invalid="ignore", divide="ignore"):
-            theta, s = evaluate(statistic, gathered, inner)
+            if nested is not None:
+                theta, s = statistic.compute(*gathered), _nested_se(lay, statistic, gathered, nested,
+                                                                     inner_resamples)
+            else:
+                theta, s = evaluate(statistic, gathered, inner)
         out[done:done + rows] = theta
         if se is not None and s is not None:
             se[done:done + rows] = s
