@@ -93,6 +93,9 @@ CONVENTIONS = {
                    "(about 95%) from the order statistics at ranks B p -/+ 1.96 sqrt(B p (1 - p))",
     "tail_rule": f"warn when fewer than {TAIL_MINIMUM} replicates lie beyond an endpoint",
     "draws": "one uniform row per resample; see the scheme's draw contract",
+    "statistics": "quantiles (quantile, quantile_difference) by linear interpolation between order statistics "
+                  "(numpy default); median by numpy; mad unscaled; odds_ratio the sample odds ratio; spearman with "
+                  "average ranks for ties; sd, variance and cv with divisor n-1",
 }
 
 

@@ -10,14 +10,14 @@ Conventions (REFERENCES §0.1; E&T ch. 11), for groups g = 1..G with n_g observa
 
 Replicates come in closed form for the mean, proportion and mean difference (O(n)), and for the
 median and any quantile (the delete-one values take at most 3 distinct values of the sorted data,
-O(n log n)); the delete-one-cluster jackknife loops over clusters; any other
+O(n), by partition: no sort)); the delete-one-cluster jackknife loops over clusters; any other
 statistic goes through a blocked loop over deletions that keeps memory bounded.
 """
 
 from __future__ import annotations
 
 import math
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 
 import numpy as np
 
@@ -100,6 +100,9 @@ def jackknife(samples: Sequence[np.ndarray], statistic: Statistic, *,
             "standard_error": "sqrt(sum over groups of (n_g-1)/n_g * sum_i (theta_(g,i) - mean_g)^2)",
             "bias": "sum over groups of (n_g-1) * (mean_g - theta_hat)",
             "pseudo_values": "n_g * theta_hat - (n_g-1) * theta_(g,i)",
+            "replicates": "closed forms for the mean (O(n)) and for the median and quantiles (O(n), by "
+                          "partition around the order statistics read); other statistics delete one at a time"
+                          + ("; clusters: n_g is the number of clusters of group g" if clusters is not None else ""),
         },
     )
 
@@ -172,49 +175,36 @@ def _delete_one_mean(x: np.ndarray) -> np.ndarray:
 
 
 def _delete_one_median(x: np.ndarray) -> np.ndarray:
-    """Median of x without x_i, from the sorted data: at most 3 distinct values.
-
-    n even (n − 1 odd, middle index m = n/2 − 1 of the rest): s[m+1] if rank(i) ≤ m else s[m].
-    n odd (h = (n − 1)/2): (s[h]+s[h+1])/2 if rank < h; (s[h−1]+s[h+1])/2 if rank = h;
-    (s[h−1]+s[h])/2 if rank > h. Deleting either of two tied values leaves the same data, so any
-    ranking of ties gives the same replicate.
-    """
-    n = x.shape[0]
-    order = np.argsort(x, kind="stable")
-    s = x[order]
-    rank = np.empty(n, dtype=np.int64)
-    rank[order] = np.arange(n)
-    if n % 2 == 0:
-        m = n // 2 - 1
-        return np.where(rank <= m, s[m + 1], s[m]).astype(np.float64)
-    h = (n - 1) // 2
-    low = (s[h] + s[h + 1]) / 2
-    mid = (s[h - 1] + s[h + 1]) / 2
-    high = (s[h - 1] + s[h]) / 2
-    return np.where(rank < h, low, np.where(rank == h, mid, high)).astype(np.float64)
+    """Median of x without x_i for every i (at most 3 distinct values); see ``_delete_one_order``."""
+    return _delete_one_order(x, 0.5, np.median)
 
 
 def _delete_one_quantile(x: np.ndarray, q: float) -> np.ndarray:
-    """Linear-interpolation quantile (numpy's default) of x without x_i, from the sorted data.
+    """Linear-interpolation quantile (numpy's default) of x without x_i; see ``_delete_one_order``."""
+    return _delete_one_order(x, q, lambda a: np.quantile(a, q))
 
-    The rest has n − 1 values s'[k] = s[k] for k < rank(i), s[k + 1] otherwise; with
-    h = (n − 2)q, j = floor(h), the quantile is s'[j] + (h − j)(s'[j+1] − s'[j]). So each
-    replicate is one of at most three values, found in O(n log n) (the sort) for any n.
+
+def _delete_one_order(x: np.ndarray, q: float, location: Callable[[np.ndarray], float]) -> np.ndarray:
+    """Delete-one values of an order-statistic location (median, quantile) in O(n), no sort.
+
+    With s the sorted data and j = floor((n − 2)q), the location of the n − 1 values left after
+    deleting x_i reads only the order statistics j and j + 1 of the rest, s'[k] = s[k] below the
+    deleted rank and s[k + 1] from it on. So there are three cases, decided by value:
+    x_i < s[j+1] (the rest is s without s[j]); x_i = s[j+1] (without s[j+1]); x_i > s[j+1]
+    (without some s[k], k ≥ j + 2). Deleting either of two tied values leaves the same data, so
+    comparing values is exact. Each case is evaluated once by numpy itself on the data partitioned
+    around j, j + 1, j + 2 (the location depends only on those order statistics), so the values are
+    identical to the plain computation.
     """
     n = x.shape[0]
-    order = np.argsort(x, kind="stable")
-    s = x[order]
-    rank = np.empty(n, dtype=np.int64)
-    rank[order] = np.arange(n)
-    # the same rest array for every replicate, evaluated by numpy itself: np.quantile of the n − 1
-    # values at the three possible positions of the deleted rank (before, inside, after j..j+1)
-    h = (n - 2) * q
-    j = int(math.floor(h))
+    j = int(math.floor((n - 2) * q))
+    kth = sorted({min(k, n - 1) for k in (j, j + 1, j + 2)})
+    p = np.partition(x, kth)
+    pivot = p[j + 1]
     out = np.empty(n, dtype=np.float64)
-    # cases by rank r: r <= j (both neighbours shift up), r == j + 1 (only s'[j+1] shifts), r > j + 1
-    for mask, drop in ((rank <= j, min(j, n - 1)), (rank == j + 1, min(j + 1, n - 1)), (rank > j + 1, n - 1)):
+    for mask, drop in ((x < pivot, j), (x == pivot, j + 1), (x > pivot, min(j + 2, n - 1))):
         if mask.any():
-            out[mask] = np.quantile(np.delete(s, drop), q)
+            out[mask] = location(np.delete(p, drop))
     return out
 
 
