@@ -163,7 +163,8 @@ def bootstrap(samples: Sequence[np.ndarray], statistic: Statistic, *, resamples:
     ``strata`` / ``clusters``: optional integer codes per group. ``paired``: the two groups are
     aligned pairs (row i of each). ``blocks``: (scheme, length) for time-ordered data.
     ``parametric``: a model name (``trials`` for the binomial). ``exhaustive``: enumerate.
-    ``studentized_se``: "analytic" or "jackknife" (default: analytic when the statistic has one).
+    ``studentized_se``: "analytic", "jackknife" or "bootstrap" (nested, ``inner_resamples`` each);
+    default: analytic when the statistic has one.
     ``on_degenerate``: what to do when an interval is undefined (``DEGENERATE_CHOICES``).
     """
     if resamples < 2:
@@ -252,6 +253,10 @@ def bootstrap(samples: Sequence[np.ndarray], statistic: Statistic, *, resamples:
         scheme = "exhaustive enumeration of every distinct resample" + (" of pairs" if paired else "") + (
             " within group × stratum cells" if codes is not None else "")
     elif parametric is not None:
+        if parametric not in schemes.MODELS:
+            raise EngineError(f"unknown model {parametric!r}", hint=f"one of: {', '.join(schemes.MODELS)}")
+        if parametric == "binomial" and (trials is None or trials < 1):
+            raise EngineError("the binomial model needs the number of trials (at least 1)")
         if statistic.columns > 2 or (statistic.columns == 2 and parametric != "normal"):
             raise EngineError("the parametric bootstrap of two columns needs the (bivariate) normal model")
         fits = [schemes.fit_model(a, parametric, trials, g) for g, a in enumerate(data)]
