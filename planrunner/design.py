@@ -56,14 +56,15 @@ def time_order(table: Table, column: str, mask: np.ndarray, where: str) -> np.nd
 
 
 def repeated_id_warnings(table: Table, analysis: Any, dataset: Any, masks: list[np.ndarray]) -> tuple[EngineWarning, ...]:
-    """Rows that repeat the value of a text (identifier) column within a group, with no clusters,
-    pairs or time order declared, are probably not independent: say so next to the numbers."""
+    """Rows that repeat the value of an identifier column (declared `identifier: true`) within a
+    group, or hold one value in both groups, with no clusters, pairs or time order declared, are
+    probably not independent: say so next to the numbers."""
     if analysis.clusters is not None or analysis.pairs is not None or analysis.order is not None:
         return ()
     used = {analysis.outcome, analysis.predictor, analysis.strata, analysis.groups.by if analysis.groups else None}
     out = []
     for name, spec in dataset.columns.items():
-        if spec.type != "text" or name in used or name not in table.columns:
+        if not spec.identifier or name in used or name not in table.columns:
             continue
         ids = _labels(table, name)
         repeats = sum(int(np.sum(np.unique(ids[m], return_counts=True)[1] > 1)) for m in masks)

@@ -34,9 +34,14 @@ class Column(Strict):
     min: float | None = None
     max: float | None = None
     unit: str | None = None
+    # the column identifies the unit a row measures (patient, device, site): rows repeating a value
+    # within a group, or a value in both groups, get a warning unless clusters or pairs are declared
+    identifier: bool = False
 
     @model_validator(mode="after")
     def _rules(self) -> "Column":
+        if self.identifier and self.type not in ("text", "category", "integer"):
+            raise ValueError("identifier applies only to text, category and integer columns")
         if self.levels is not None:
             if self.type != "category":
                 raise ValueError("levels apply only to a column of type category")

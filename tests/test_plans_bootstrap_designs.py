@@ -229,7 +229,7 @@ def test_percentile_basic_bca_agree_with_scipy_for_pairs_of_columns(write_plan, 
 def test_pairs_from_a_plan_give_the_ideal_paired_se(write_plan, tmp_path):
     csv = "patient,visit,score\n" + "".join(f"p{i},first,{a}\np{i},second,{b}\n" for i, (a, b) in
                                              enumerate(zip(HW_X, HW_Y)))
-    cols = "      patient: {type: text}\n      visit: {type: category, levels: [first, second]}\n      score: {type: number}"
+    cols = "      patient: {type: text, identifier: true}\n      visit: {type: category, levels: [first, second]}\n      score: {type: number}"
     result = run(write_plan, tmp_path, cols, csv, """
   - id: paired
     data: d
@@ -264,7 +264,7 @@ def test_pairs_from_a_plan_give_the_ideal_paired_se(write_plan, tmp_path):
 def test_incomplete_pairs_are_refused(write_plan, tmp_path):
     from planrunner.errors import DataError
     csv = "patient,visit,score\np1,first,1\np1,second,2\np2,first,3\n"
-    cols = "      patient: {type: text}\n      visit: {type: category, levels: [first, second]}\n      score: {type: number}"
+    cols = "      patient: {type: text, identifier: true}\n      visit: {type: category, levels: [first, second]}\n      score: {type: number}"
     with pytest.raises(DataError, match="lack a row in one of the groups"):
         run(write_plan, tmp_path, cols, csv, """
   - id: paired
@@ -277,7 +277,7 @@ def test_incomplete_pairs_are_refused(write_plan, tmp_path):
 """)
 
 
-CLINIC_COLS = "      clinic: {type: text}\n      arm: {type: category, levels: [new, usual]}\n      hours: {type: number}"
+CLINIC_COLS = "      clinic: {type: text, identifier: true}\n      arm: {type: category, levels: [new, usual]}\n      hours: {type: number}"
 
 
 def clinic_csv() -> str:
