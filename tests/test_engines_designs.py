@@ -423,3 +423,15 @@ def test_nested_bootstrap_studentized_interval() -> None:
     assert paired.details["studentized_se"]["inner_resamples"] == 20
     with pytest.raises(EngineError, match="nested bootstrap"):
         boot([TREATMENT], "mean", parametric="normal", intervals=("studentized",), studentized_se="bootstrap")
+
+
+@pytest.mark.parametrize("name", ["median", "sd", "correlation"])
+def test_cluster_equal_sizes_vectorised_equals_loop(name: str) -> None:
+    rng = np.random.default_rng(12)
+    stat = get_statistic(name)
+    x = rng.normal(size=(24, 2)) if stat.columns == 2 else rng.normal(size=24)
+    codes = (np.repeat(np.arange(8), 3),)
+    lay = schemes.cluster_layout((x,), codes, (np.repeat(np.arange(8), 3) % 2,))
+    fast = schemes.draw_clusters((x,), lay, stat, 250, stream_for(2, "v"), 500, fast=True)
+    loop = schemes.draw_clusters((x,), lay, stat, 250, stream_for(2, "v"), 500, fast=False)
+    assert np.array_equal(fast, loop)

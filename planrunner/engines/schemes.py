@@ -246,13 +246,25 @@ def draw_clusters(data: tuple[np.ndarray, ...], lay: ClusterLayout, statistic: S
     if use_sums:
         sums = np.array([float(np.sum(data[lay.slot_group[k]][rows])) for k, rows in enumerate(lay.members)])
         sizes = np.array([float(rows.shape[0]) for rows in lay.members])
-    rows_per_batch = _rows_per_batch(batch_elements, width)
+    # equal cluster sizes within every group: each resample has a fixed length, so the gather is
+    # one array operation (rows in the same order as the slot-by-slot loop, hence the same numbers)
+    slots = [np.flatnonzero(lay.slot_group == g) for g in range(len(data))]
+    equal = fast and all(len({lay.members[k].shape[0] for k in group}) == 1 for group in slots)
+    stacked = [np.stack([lay.members[k] for k in group]) for group in slots] if equal else []
+    total_rows = sum(a.shape[0] for a in data)
+    rows_per_batch = _rows_per_batch(batch_elements, max(width, total_rows * statistic.columns))
     done = 0
     while done < resamples:
         rows = min(rows_per_batch, resamples - done)
         chosen = lay.cell_start + (reader.take(rows) * lay.cell_size).astype(np.int64)  # (rows, C)
         with np.errstate(invalid="ignore", divide="ignore"):
-            if use_sums:
+            if equal and not use_sums:
+                gathered = []
+                for g, a in enumerate(data):
+                    local = chosen[:, slots[g]] - slots[g][0]  # cluster numbers within group g
+                    gathered.append(take_observations(a, stacked[g][local].reshape(rows, -1)))
+                out[done:done + rows] = statistic.compute(*gathered)
+            elif use_sums:
                 means = [np.sum(sums[chosen[:, lay.slot_group == g]], axis=1)
                          / np.sum(sizes[chosen[:, lay.slot_group == g]], axis=1) for g in range(len(data))]
                 out[done:done + rows] = means[0] if len(data) == 1 else means[0] - means[1]
