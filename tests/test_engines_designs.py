@@ -435,3 +435,20 @@ def test_cluster_equal_sizes_vectorised_equals_loop(name: str) -> None:
     fast = schemes.draw_clusters((x,), lay, stat, 250, stream_for(2, "v"), 500, fast=True)
     loop = schemes.draw_clusters((x,), lay, stat, 250, stream_for(2, "v"), 500, fast=False)
     assert np.array_equal(fast, loop)
+
+
+@pytest.mark.parametrize("q", [None, 0.01, 0.1, 0.25, 0.5, 0.6, 0.75, 0.9, 0.99])
+@pytest.mark.parametrize("sizes", [(7,), (8,), (1,), (2,), (7, 9), (10, 3)])
+def test_quantile_fast_path_equals_plain(q, sizes) -> None:
+    from planrunner.engines.statistics import bind
+    rng = np.random.default_rng(sum(sizes))
+    groups = tuple(rng.integers(0, 6, n).astype(float) * 1.7 for n in sizes)  # ties on purpose
+    if q is None:
+        stat = get_statistic("median" if len(sizes) == 1 else "median_difference")
+    else:
+        stat = bind(get_statistic("quantile" if len(sizes) == 1 else "quantile_difference"), q)
+    strata = tuple(np.arange(n) % 2 for n in sizes)
+    lay = schemes.layout(groups, strata)
+    fast, _ = schemes.draw_cells(lay, stat, 1500, stream_for(5, "fast"), 4000, None, fast=True)
+    plain, _ = schemes.draw_cells(lay, stat, 1500, stream_for(5, "fast"), 4000, None, fast=False)
+    assert np.array_equal(fast, plain)  # the same resamples give bit-identical replicates
