@@ -452,3 +452,23 @@ def test_quantile_fast_path_equals_plain(q, sizes) -> None:
     fast, _ = schemes.draw_cells(lay, stat, 1500, stream_for(5, "fast"), 4000, None, fast=True)
     plain, _ = schemes.draw_cells(lay, stat, 1500, stream_for(5, "fast"), 4000, None, fast=False)
     assert np.array_equal(fast, plain)  # the same resamples give bit-identical replicates
+
+
+@settings(max_examples=20, deadline=None)
+@given(st.lists(st.floats(-50, 50, allow_nan=False), min_size=6, max_size=16),
+       st.sampled_from(["pairs", "clusters", "moving", "stationary", "parametric", "exhaustive-small"]))
+def test_lower_never_above_upper_in_every_scheme(data: list[float], scheme: str) -> None:
+    x = np.array(data)
+    half = x.size // 2
+    kw = {"pairs": dict(samples=[x[:half], x[half:2 * half]], name="mean_difference", paired=True),
+          "clusters": dict(samples=[x], name="mean", clusters=[np.arange(x.size) // 2]),
+          "moving": dict(samples=[x], name="mean", blocks=("moving", 3)),
+          "stationary": dict(samples=[x], name="median", blocks=("stationary", 3)),
+          "parametric": dict(samples=[x], name="mean", parametric="normal"),
+          "exhaustive-small": dict(samples=[x[:6]], name="median", exhaustive=True)}[scheme]
+    samples, name = kw.pop("samples"), kw.pop("name")
+    intervals = ("percentile", "basic", "normal") + (("bca",) if scheme in ("pairs", "clusters", "exhaustive-small") else ())
+    r = boot(samples, name, B=100, intervals=intervals, **kw)
+    for iv in r.intervals:
+        if iv.lower is not None:
+            assert iv.lower <= iv.upper, (scheme, iv)
