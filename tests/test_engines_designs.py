@@ -198,6 +198,8 @@ def test_studentized_analytic_and_jackknife_inner() -> None:
         (iv.lower, iv.upper), rel=1e-9)
     with pytest.raises(EngineError, match="no analytic standard error"):
         boot([TREATMENT], "median", intervals=("studentized",))
+    rough = boot([TREATMENT], "median", intervals=("studentized",), studentized_se="jackknife", B=100)
+    assert "studentized-non-smooth" in [w.code for w in rough.warnings]
 
 
 def test_monte_carlo_ranges_contain_the_endpoint() -> None:

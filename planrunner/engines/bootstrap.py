@@ -315,6 +315,12 @@ def bootstrap(samples: Sequence[np.ndarray], statistic: Statistic, *, resamples:
             details["studentized_se"]["inner_stream"] = f"child {schemes.INNER_LABEL} of the analysis stream; " \
                 "inner resample j of resample r is its row r*M + j"
 
+    if inner == "jackknife" and not statistic.smooth:
+        warnings.append(EngineWarning(
+            "studentized-non-smooth",
+            f"the studentized interval uses the jackknife standard error of each resample, which is unreliable "
+            f"for the {statistic.label} (not a smooth statistic); prefer studentized_se: bootstrap or the "
+            "percentile interval"))
     if cl is None:
         warnings = _data_warnings(n, lay, codes is not None, paired) + warnings
     exact = weights is not None
