@@ -11,7 +11,8 @@ from typing import Any
 
 import numpy as np
 
-from .engines.statistics import Statistic, get_statistic
+from . import design
+from .engines.statistics import Statistic, bind, get_statistic
 from .engines.streams import Stream, stream_for
 from .errors import DataError
 from .io import Table
@@ -29,6 +30,10 @@ class Job:
     strata_labels: tuple[str, ...] | None
     options: dict[str, Any]
     stream: Stream
+    # the rest of the design (see `planrunner.design`)
+    clusters: tuple[np.ndarray, ...] | None = None
+    paired: bool = False
+    warnings: tuple[Any, ...] = ()
 
     def counts(self) -> dict[str, Any]:
         """Observations per group and, where declared, per stratum within group."""
@@ -47,9 +52,17 @@ def compile_jobs(plan: Plan, tables: dict[str, Table]) -> list[Job]:
 def _options(plan: Plan, analysis: Any) -> dict[str, Any]:
     d = plan.defaults
     if analysis.method == "bootstrap":
+        intervals = tuple(analysis.intervals)
+        if "intervals" not in analysis.model_fields_set and (analysis.order or analysis.parametric):
+            intervals = ("percentile",)  # the default BCa is not valid for dependent or parametric draws
         return {"resamples": analysis.resamples or d.resamples,
                 "confidence": analysis.confidence or d.confidence,
-                "intervals": tuple(analysis.intervals)}
+                "intervals": intervals,
+                "studentized_se": analysis.studentized_se, "inner_resamples": analysis.inner_resamples or 50,
+                "on_degenerate": analysis.on_degenerate,
+                "blocks": None if analysis.blocks is None else (analysis.blocks.scheme, analysis.blocks.length),
+                "parametric": analysis.parametric, "trials": analysis.trials, "exhaustive": analysis.exhaustive,
+                "save_distribution": analysis.save_distribution}
     if analysis.method == "permutation":
         return {"resamples": analysis.resamples or d.resamples,
                 "alternative": analysis.alternative or d.alternative,
@@ -59,6 +72,8 @@ def _options(plan: Plan, analysis: Any) -> dict[str, Any]:
 
 def compile_job(plan: Plan, analysis: Any, table: Table) -> Job:
     statistic = get_statistic(analysis.statistic)
+    if statistic.parameter is not None:
+        statistic = bind(statistic, getattr(analysis, statistic.parameter))
     outcome = table.columns[analysis.outcome]
     where = f"analysis '{analysis.id}'"
     values = outcome.astype(float)
@@ -80,6 +95,15 @@ def compile_job(plan: Plan, analysis: Any, table: Table) -> Job:
             raise DataError(f"{where}: no rows are left in group '{label}'", where=table.file,
                             hint=f"check groups.compare against the values of '{analysis.groups.by}'"
                                  " and the keep filter" if analysis.groups else "check the keep filter")
+    paired = analysis.pairs is not None and analysis.method == "bootstrap"
+    if paired:
+        masks = design.pair_order(table, analysis.pairs, masks, where)  # row i of each group is pair i
+    if analysis.order is not None:
+        masks = [design.time_order(table, analysis.order, m, where) for m in masks]
+    clusters = None
+    if analysis.clusters is not None:
+        clusters, _ = design.cluster_codes(table, analysis.clusters, masks)
+    warnings = design.repeated_id_warnings(table, analysis, plan.datasets[analysis.data], masks)
     if analysis.predictor is not None:
         # two-column statistics take (n, 2) arrays: predictor first, outcome second
         values = np.column_stack([table.columns[analysis.predictor].astype(float), values])
@@ -92,4 +116,5 @@ def compile_job(plan: Plan, analysis: Any, table: Table) -> Job:
         strata = tuple(codes[m].astype(np.int64) for m in masks)
     return Job(analysis_id=analysis.id, method=analysis.method, statistic=statistic, samples=samples,
                strata=strata, group_labels=labels, strata_labels=strata_labels,
-               options=_options(plan, analysis), stream=stream_for(plan.seed, analysis.id))
+               options=_options(plan, analysis), stream=stream_for(plan.seed, analysis.id),
+               clusters=clusters, paired=paired, warnings=warnings)

@@ -16,13 +16,18 @@ def execute(job: Job) -> Any:
     o = job.options
     if job.method == "bootstrap":
         return bootstrap(job.samples, job.statistic, resamples=o["resamples"], confidence=o["confidence"],
-                         intervals=o["intervals"], stream=job.stream, strata=job.strata)
+                         intervals=o["intervals"], stream=job.stream, strata=job.strata,
+                         clusters=job.clusters, paired=job.paired, blocks=o.get("blocks"),
+                         parametric=o.get("parametric"), trials=o.get("trials"),
+                         exhaustive=o.get("exhaustive", False), studentized_se=o.get("studentized_se"),
+                         inner_resamples=o.get("inner_resamples", 50),
+                         on_degenerate=o.get("on_degenerate", "estimate-only"))
     if job.method == "permutation":
         return permutation_test(job.samples, job.statistic, resamples=o["resamples"],
                                 alternative=o["alternative"], stream=job.stream, strata=job.strata,
                                 exact=o["exact"])
     if job.method == "jackknife":
-        return jackknife(job.samples, job.statistic)
+        return jackknife(job.samples, job.statistic, clusters=job.clusters)
     raise ValueError(f"no engine for method {job.method!r}")  # the schema makes this unreachable
 
 

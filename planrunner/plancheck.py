@@ -16,7 +16,8 @@ from typing import Any
 import pydantic
 from pydantic import BaseModel
 
-from .engines.statistics import STATISTICS
+from .engines.statistics import PARAMETERS, STATISTICS
+from .designcheck import check_resampling_design
 from .errors import ExpressionError, PlanError
 from .expr import parse_expression
 from .params import parameter_problems
@@ -25,7 +26,8 @@ from .yamlsafe import MAX_PLAN_BYTES, LoadedYaml, Path_, dotted, load_yaml
 
 NUMERIC_TYPES = ("number", "integer", "boolean")
 # design keys each method can honour; anything else is refused rather than silently ignored
-SUPPORTED_DESIGNS: dict[str, tuple[str, ...]] = {"bootstrap": (), "permutation": (), "jackknife": ()}
+SUPPORTED_DESIGNS: dict[str, tuple[str, ...]] = {"bootstrap": ("pairs", "clusters", "order"), "permutation": (),
+                                                 "jackknife": ("clusters",)}
 GROUPING_TYPES = ("category", "boolean", "integer", "text")
 
 
@@ -344,11 +346,19 @@ def _check_analysis(at: Path_, a: Any, plan: Plan) -> list[Problem]:
         out.append(Problem(at + ("groups", "compare"), f"'{a.statistic}' compares exactly two groups, "
                            f"but {len(a.groups.compare)} levels are listed", "list two levels: [FIRST, SECOND]"))
     if statistic is not None:
+        for key in PARAMETERS:
+            if key == statistic.parameter and getattr(a, key) is None:
+                out.append(Problem(at + ("statistic",), f"'{a.statistic}' needs its {key}",
+                                   f"add {key}: VALUE" + (" (e.g. quantile: 0.9)" if key == "quantile" else "")))
+            if key != statistic.parameter and getattr(a, key) is not None:
+                out.append(Problem(at + (key,), f"'{a.statistic}' takes no {key}",
+                                   "remove the key, or choose a statistic that uses it"))
         if statistic.samples == 2 and a.groups is None:
             out.append(Problem(at + ("statistic",), f"'{a.statistic}' compares two groups but the analysis has no groups",
                                "add groups: {by: COLUMN, compare: [FIRST, SECOND]}"))
         if statistic.samples == 1 and a.groups is not None:
-            one_to_two = {"mean": "mean_difference", "median": "median_difference"}
+            one_to_two = {"mean": "mean_difference", "median": "median_difference",
+                          "quantile": "quantile_difference", "proportion": "risk_difference"}
             out.append(Problem(at + ("statistic",), f"'{a.statistic}' describes one group but the analysis compares two",
                                f"use {one_to_two.get(a.statistic, 'a two-group statistic')} or remove groups"))
         if statistic.columns == 2 and a.predictor is None:
@@ -360,6 +370,7 @@ def _check_analysis(at: Path_, a: Any, plan: Plan) -> list[Problem]:
         if statistic.outcome == "binary" and a.outcome in cols and cols[a.outcome].type not in ("boolean", "integer"):
             out.append(Problem(at + ("outcome",), f"'{a.statistic}' needs a 0/1 or true/false outcome",
                                "declare the outcome as boolean, or as integer holding 0 and 1"))
+        out += check_resampling_design(at, a, statistic)
         if a.method == "permutation" and statistic.samples != 2:
             out.append(Problem(at + ("statistic",), "a permutation test compares two groups",
                                "add groups and use a two-group statistic such as mean_difference"))

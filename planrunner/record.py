@@ -73,8 +73,32 @@ def _histogram(values: np.ndarray, bins: int) -> dict[str, Any]:
     return {"edges": [float(e) for e in edges], "counts": [int(c) for c in counts]}
 
 
-def _distribution(kind: str, values: np.ndarray, bins: int) -> dict[str, Any]:
+def _jsonable(value: Any) -> Any:
+    """Engine details (dicts, lists, tuples, numpy numbers) as plain JSON values."""
+    if isinstance(value, dict):
+        return {str(k): _jsonable(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [_jsonable(v) for v in value]
+    if isinstance(value, (str, type(None))):
+        return value
+    return _f(value)
+
+
+def _distribution(kind: str, values: np.ndarray, bins: int, weights: np.ndarray | None = None) -> dict[str, Any]:
     values = np.asarray(values, dtype=float)
+    if weights is not None:
+        # exhaustive enumeration: every distinct resample once, with its probability
+        mean = float(np.sum(weights * values))
+        out = _distribution(kind, values, bins)
+        counts, edges = np.histogram(values, bins=len(out["histogram"]["counts"]) or 1,
+                                     range=(out["histogram"]["edges"][0], out["histogram"]["edges"][-1]),
+                                     weights=weights)
+        out.update(kind=f"{kind} (every distinct resample, weighted by its probability)", mean=mean,
+                   sd=math.sqrt(float(np.sum(weights * (values - mean) ** 2))),
+                   weights_sha256=hashlib.sha256(np.ascontiguousarray(weights, dtype="<f8").tobytes()).hexdigest(),
+                   histogram={"edges": out["histogram"]["edges"], "probabilities": [float(c) for c in counts],
+                              "counts": [int(round(c * values.size)) for c in counts]})
+        return out
     return {
         "kind": kind,
         "size": int(values.size),
@@ -124,7 +148,10 @@ def analysis_entry(loaded: LoadedPlan, analysis: Any, job: Job, result: Any) -> 
         "stream": job.stream.describe(),
         "n": job.counts(),
         "scheme": result.scheme,
-        "warnings": [{"code": w.code, "message": w.message} for w in result.warnings],
+        "warnings": [{"code": w.code, "message": w.message} for w in (*job.warnings, *result.warnings)],
+        "statistic_parameter": None if job.statistic.parameter is None
+        else {job.statistic.parameter: job.statistic.value},
+        "design": {"pairs": analysis.pairs, "clusters": analysis.clusters, "order": analysis.order},
         # fields that a method does not produce stay null, so every record has the same shape
         "estimate": None, "standard_error": None, "bias": None, "intervals": [], "p_value": None,
         "adjusted_p_values": [], "alternative": None, "exact": None, "resamples": None, "monte_carlo": {}, "details": {},
@@ -137,19 +164,28 @@ def analysis_entry(loaded: LoadedPlan, analysis: Any, job: Job, result: Any) -> 
         entry.update(
             estimate=_f(result.estimate), standard_error=_f(result.standard_error), bias=_f(result.bias),
             intervals=[{"method": i.method, "level": _f(i.level), "lower": _f(i.lower),
-                        "upper": _f(i.upper), "note": i.note} for i in result.intervals],
-            resamples=int(b), exact=False,
+                        "upper": _f(i.upper), "note": i.note,
+                        "quantile_levels": None if i.quantile_levels is None else [_f(v) for v in i.quantile_levels],
+                        # about 95% Monte Carlo ranges of each endpoint (null when exact or undefined)
+                        "monte_carlo": None if i.monte_carlo is None else
+                        {"lower": [_f(v) for v in i.monte_carlo[0]], "upper": [_f(v) for v in i.monte_carlo[1]]}}
+                       for i in result.intervals],
+            resamples=int(b), exact=bool(result.exact),
             monte_carlo={
-                # MC s.d. of a B-replicate SE: SE·sqrt((κ−1)/(4B)) (E&T §19.3); of the bias: SE/√B
-                "standard_error_sd": _f(result.standard_error * math.sqrt(max(kurtosis - 1.0, 0.0) / (4 * b)))
-                if kurtosis is not None else None,
-                "bias_sd": _f(result.standard_error / math.sqrt(b)),
+                # MC s.d. of a B-replicate SE: SE·sqrt((κ−1)/(4B)) (REFERENCES §3); of the bias: SE/√B
+                "standard_error_sd": _f(result.standard_error_sd),
+                "bias_sd": _f(result.bias_sd),
                 "kurtosis": _f(kurtosis),
             },
             details={"z0": _f(result.z0), "acceleration": _f(result.acceleration),
-                     "conventions": dict(result.conventions)},
-            distribution=_distribution("bootstrap replicates", result.distribution, bins),
+                     "conventions": dict(result.conventions), **_jsonable(result.details)},
+            distribution=_distribution("bootstrap replicates", result.distribution, bins, result.weights),
         )
+        if job.options.get("save_distribution"):
+            # every replicate in resample order; its SHA-256 (of little-endian doubles) is `sha256`
+            entry["distribution"]["values"] = [float(v) for v in result.distribution]
+            if result.weights is not None:
+                entry["distribution"]["weights"] = [float(v) for v in result.weights]
     elif analysis.method == "permutation":
         m = result.resamples
         p = result.p_value
@@ -173,7 +209,7 @@ def analysis_entry(loaded: LoadedPlan, analysis: Any, job: Job, result: Any) -> 
     else:
         entry.update(
             estimate=_f(result.estimate), standard_error=_f(result.standard_error), bias=_f(result.bias),
-            details={"corrected_estimate": _f(result.corrected_estimate)},
+            details={"corrected_estimate": _f(result.corrected_estimate), "units": [int(k) for k in result.n]},
             distribution=_distribution("jackknife pseudo-values", np.concatenate(result.pseudo_values), bins),
         )
     return entry

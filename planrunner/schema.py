@@ -16,7 +16,7 @@ Identifier = Annotated[str, Field(pattern=r"^[A-Za-z0-9][A-Za-z0-9_.-]{0,63}$")]
 ColumnName = Annotated[str, Field(min_length=1, max_length=200)]
 Alternative = Literal["two-sided", "greater", "less"]
 Role = Literal["primary", "secondary", "sensitivity", "supplementary"]
-IntervalMethod = Literal["percentile", "bca"]
+IntervalMethod = Literal["percentile", "basic", "normal", "bca", "studentized"]
 Resamples = Annotated[int, Field(ge=1, le=10_000_000)]
 Confidence = Annotated[float, Field(gt=0.5, lt=1.0)]
 MultiplicityMethod = Literal["bonferroni", "holm", "hochberg", "bh", "by"]
@@ -34,9 +34,14 @@ class Column(Strict):
     min: float | None = None
     max: float | None = None
     unit: str | None = None
+    # the column identifies the unit a row measures (patient, device, site): rows repeating a value
+    # within a group, or a value in both groups, get a warning unless clusters or pairs are declared
+    identifier: bool = False
 
     @model_validator(mode="after")
     def _rules(self) -> "Column":
+        if self.identifier and self.type not in ("text", "category", "integer"):
+            raise ValueError("identifier applies only to text, category and integer columns")
         if self.levels is not None:
             if self.type != "category":
                 raise ValueError("levels apply only to a column of type category")
@@ -100,6 +105,16 @@ class AnalysisBase(Strict):
     order: ColumnName | None = None  # time order of the rows (dependent data)
     covariates: Annotated[list[ColumnName], Field(min_length=1)] | None = None
     statistic: Annotated[str, Field(min_length=1)]
+    # parameters of a statistic (each statistic says which one it takes, if any)
+    quantile: Annotated[float, Field(gt=0.0, lt=1.0)] | None = None  # level of quantile statistics
+    trim: Annotated[float, Field(ge=0.0, lt=0.5)] | None = None  # proportion cut from each end
+
+
+class Blocks(Strict):
+    """Block resampling of time-ordered rows (with `order`)."""
+
+    scheme: Literal["moving", "circular", "stationary"]
+    length: Annotated[int, Field(ge=1, le=1_000_000)]  # block length; the mean length for stationary
 
 
 class BootstrapAnalysis(AnalysisBase):
@@ -108,6 +123,14 @@ class BootstrapAnalysis(AnalysisBase):
     confidence: Confidence | None = None
     intervals: Annotated[list[IntervalMethod], Field(min_length=1)] = Field(
         default_factory=lambda: ["percentile", "bca"])
+    studentized_se: Literal["analytic", "jackknife", "bootstrap"] | None = None
+    inner_resamples: Annotated[int, Field(ge=10, le=10_000)] | None = None  # nested bootstrap only
+    on_degenerate: Literal["fail", "percentile", "estimate-only"] = "estimate-only"
+    blocks: Blocks | None = None
+    parametric: Literal["normal", "exponential", "poisson", "binomial"] | None = None
+    trials: Annotated[int, Field(ge=1)] | None = None
+    exhaustive: bool = False
+    save_distribution: bool = False  # write every replicate (and exhaustive weight) into the record
 
     @model_validator(mode="after")
     def _unique_intervals(self) -> "BootstrapAnalysis":

@@ -1,18 +1,16 @@
-"""Nonparametric bootstrap: standard error, bias, percentile and BCa intervals.
+"""Bootstrap: standard error, bias, five kinds of interval, and their Monte Carlo error.
 
-Resampling scheme. Each group is always resampled separately (the group is a stratum); with
-``strata`` every (group, stratum) cell is resampled separately, keeping its size.
+Resampling schemes (``BootstrapResult.scheme`` names the one used; draw contracts in
+:mod:`planrunner.engines.schemes`):
 
-Draw contract (with :mod:`planrunner.engines.streams`; changing it changes every number):
-
-1. Lay all N observations out cell by cell: group-major, then stratum code in increasing order,
-   then the original order within the cell. Position j has ``cell_start[j]`` (the position of its
-   cell's first observation) and ``cell_size[j]``.
-2. Resample r is row r of the stream's uniform rows (row r % DRAW_BLOCK of block r // DRAW_BLOCK):
-   ``u = gen.random(N)``; a batch of consecutive rows is ``gen.random((rows, N))``, identical.
-3. Position j of the resample takes observation ``cell_start[j] + floor(u[j] * cell_size[j])``.
-   (For u < 1 in doubles, ``u * size`` never rounds up to ``size``, so no clipping is needed.)
-4. The statistic is computed on the gathered groups, vectorised over the rows of a batch.
+* nonparametric, independent rows: each group is always resampled separately (the group is a
+  stratum); with ``strata`` every (group, stratum) cell is resampled separately, keeping its size;
+* pairs (``paired=True``): two groups aligned row by row, whole pairs resampled (within strata);
+* clusters: whole clusters resampled within each (group, stratum) cell;
+* blocks: moving, circular or stationary blocks of time-ordered data (each group separately);
+* parametric: each group drawn from a fitted normal, exponential, Poisson or binomial model;
+* exhaustive ("ideal"): every distinct resample once with its multinomial probability (exact;
+  only when the count C(2n − 1, n), multiplied over cells, is at most ``EXHAUSTIVE_LIMIT``).
 
 Memory: a batch holds at most about ``batch_elements`` draws (at least one row); the numbers do
 not depend on the batch size.
@@ -20,42 +18,49 @@ not depend on the batch size.
 Conventions (also returned in ``BootstrapResult.conventions``):
 
 * standard error: sd of the B replicates with divisor B − 1 (E&T eq. 6.6); bias: mean(θ*) − θ̂.
+  Exhaustive: the exact moments of the weighted distribution (no B − 1).
 * quantiles: inverse of the empirical CDF, ``np.quantile(..., method="inverted_cdf")``,
   i.e. the smallest replicate whose empirical CDF reaches the level (level·B within 1e-9 of an
   integer is snapped to it, so float rounding of 1 − confidence cannot shift an endpoint).
 * BCa (E&T ch. 14): z0 = Φ⁻¹((#{θ* < θ̂} + #{θ* ≤ θ̂}) / (2B)) (mid-rank, as scipy), with ties
-  judged to a relative tolerance; adjusted levels Φ(z0 + (z0 + z_α)/(1 − a(z0 + z_α))).
-* acceleration from the delete-one jackknife. One sample: E&T eq. 14.15,
-  a = Σ(θ̄ − θ_(i))³ / (6 [Σ(θ̄ − θ_(i))²]^{3/2}). Several independently resampled samples
-  (groups, or group × stratum cells): E&T eq. 15.36 as in scipy.stats.bootstrap,
+  judged to a relative tolerance (weighted shares when exhaustive); adjusted levels
+  Φ(z0 + (z0 + z_α)/(1 − a(z0 + z_α))).
+* acceleration from the delete-one jackknife (delete-one cluster with clusters). One sample:
+  E&T eq. 14.15, a = Σ(θ̄ − θ_(i))³ / (6 [Σ(θ̄ − θ_(i))²]^{3/2}). Several independently resampled
+  samples (groups, or group × stratum cells): E&T eq. 15.36 as in scipy.stats.bootstrap,
   U_ji = (n_j − 1)(θ̄_j − θ_(j,i)), a = Σ_j Σ_i U³/n_j³ / (6 [Σ_j Σ_i U²/n_j²]^{3/2}),
-  which reduces to eq. 14.15 for one sample.
+  which reduces to eq. 14.15 for one sample. BCa is refused for blocks (the iid jackknife
+  ignores the dependence) and for the parametric scheme.
+* studentized: the standard error of each resample is the statistic's analytic one, the
+  delete-one jackknife of that resample (B·n extra evaluations), or a nested bootstrap of M inner
+  resamples of it (B·M extra evaluations; the data's ŝe is then the outer bootstrap SE); the cost
+  is stated in ``details``.
+* Monte Carlo error (REFERENCES §3): sd of the SE ≈ SE·√((κ − 1)/(4B)) with κ the kurtosis of the
+  replicates, sd of the bias ≈ SE/√B; endpoint ranges from order statistics (see intervals).
 """
 
 from __future__ import annotations
 
 import math
-from collections.abc import Callable, Sequence
-from dataclasses import dataclass
+from collections.abc import Sequence
+from dataclasses import replace
+from typing import Any
 
 import numpy as np
-from scipy.special import ndtr, ndtri
+from scipy.special import ndtri
 
 from planrunner.errors import EngineError
-from planrunner.engines.jackknife import SMALL_SAMPLE, jackknife_replicates
+from planrunner.engines import schemes
+from planrunner.engines.intervals import INTERVAL_METHODS, Summary, bca_levels, quantile_rank, read_quantile
+from planrunner.engines.jackknife import SMALL_SAMPLE, cluster_replicates, jackknife_replicates
 from planrunner.engines.results import BootstrapResult, EngineWarning, Interval, frozen_array
-from planrunner.engines.statistics import (
-    Statistic,
-    check_samples,
-    check_strata,
-    take_observations,
-    to_compute_layout,
-)
-from planrunner.engines.streams import Stream, UniformRows
+from planrunner.engines.statistics import Statistic, check_samples, check_strata, to_compute_layout
 
 __all__ = [
     "BootstrapResult",
+    "DEGENERATE_CHOICES",
     "INTERVAL_METHODS",
+    "TAIL_MINIMUM",
     "bca_acceleration",
     "bca_levels",
     "bootstrap",
@@ -64,45 +69,34 @@ __all__ = [
 ]
 
 TIE_TOLERANCE = 1e-10  # relative; values this close to θ̂ count as ties (rounding, not data)
-TAIL_MINIMUM = 10  # common practice: an endpoint with fewer replicates beyond it is mostly noise
+# The tail-count rule: an endpoint with fewer than TAIL_MINIMUM replicates beyond it is mostly
+# noise (common practice; with α/2 = 0.025 it asks B ≥ 400, below the B ≥ 1000 that Efron &
+# Tibshirani advise for percentile intervals, from memory).
+TAIL_MINIMUM = 10
+DEGENERATE_CHOICES = ("fail", "percentile", "estimate-only")
 
 CONVENTIONS = {
-    "standard_error": "sd of the replicates, divisor B-1",
-    "bias": "mean of the replicates minus the estimate",
+    "standard_error": "sd of the replicates, divisor B-1 (exhaustive: exact weighted sd)",
+    "bias": "mean of the replicates minus the estimate (exhaustive: weighted mean)",
     "quantile": "inverse empirical CDF (numpy method 'inverted_cdf'): smallest replicate whose "
                 "empirical CDF reaches the level; level*B within 1e-9 of an integer is snapped to it",
     "bca_z0": "mid-rank: inverse normal of (#{theta* < theta_hat} + #{theta* <= theta_hat}) / (2B), "
               "ties to relative tolerance 1e-10",
-    "bca_acceleration": "delete-one jackknife, E&T eq. 14.15 for one sample; for several independently "
-                        "resampled samples (groups or group x stratum cells) E&T eq. 15.36 as in "
-                        "scipy.stats.bootstrap",
+    "bca_acceleration": "delete-one jackknife (delete-one cluster with clusters), E&T eq. 14.15 for one "
+                        "sample; for several independently resampled samples (groups or group x stratum "
+                        "cells) E&T eq. 15.36 as in scipy.stats.bootstrap",
     "bca_levels": "Phi(z0 + (z0 + z_alpha) / (1 - a (z0 + z_alpha)))",
-    "draws": "one uniform row per resample; observation cell_start + floor(u * cell_size)",
+    "basic": "(2 theta_hat - q(1 - alpha/2), 2 theta_hat - q(alpha/2))",
+    "normal": "(theta_hat - bias) -/+ z(1 - alpha/2) * standard error",
+    "studentized": "t* = (theta* - theta_hat) / se*; (theta_hat - se_hat t(1 - alpha/2), theta_hat - se_hat t(alpha/2))",
+    "monte_carlo": "sd(SE) = SE sqrt((kurtosis - 1) / (4B)); sd(bias) = SE / sqrt(B); endpoint ranges "
+                   "(about 95%) from the order statistics at ranks B p -/+ 1.96 sqrt(B p (1 - p))",
+    "tail_rule": f"warn when fewer than {TAIL_MINIMUM} replicates lie beyond an endpoint",
+    "draws": "one uniform row per resample; see the scheme's draw contract",
+    "statistics": "quantiles (quantile, quantile_difference) by linear interpolation between order statistics "
+                  "(numpy default); median by numpy; mad unscaled; odds_ratio the sample odds ratio; spearman with "
+                  "average ranks for ties; sd, variance and cv with divisor n-1",
 }
-
-
-@dataclass(frozen=True)
-class _Context:
-    """What an interval method may read."""
-
-    estimate: float
-    distribution: np.ndarray  # sorted replicates
-    confidence: float
-    z0: float | None
-    acceleration: float | None
-    bca_problem: str | None  # why BCa is undefined, if it is
-
-
-IntervalMethod = Callable[[_Context], Interval]
-
-
-def bca_levels(z0: float, acceleration: float, levels: np.ndarray | Sequence[float] | float) -> np.ndarray:
-    """BCa adjusted quantile levels Φ(z0 + (z0 + z_α)/(1 − a(z0 + z_α))), E&T eq. 14.10.
-
-    With z0 = 0 and a = 0 they equal the nominal levels (identity 12).
-    """
-    z = z0 + ndtri(np.asarray(levels, dtype=np.float64))
-    return ndtr(z0 + z / (1.0 - acceleration * z))
 
 
 def bca_acceleration(replicates: Sequence[np.ndarray]) -> float:
@@ -128,87 +122,50 @@ def bca_acceleration(replicates: Sequence[np.ndarray]) -> float:
     return num / scale
 
 
-def percentile_of_score(distribution: np.ndarray, score: float, tolerance: float) -> float:
-    """Mid-rank (#{θ* < score} + #{θ* ≤ score}) / (2B), ties judged within ``tolerance``."""
-    below = np.count_nonzero(distribution < score - tolerance)
-    at_or_below = np.count_nonzero(distribution <= score + tolerance)
-    return (below + at_or_below) / (2.0 * distribution.shape[0])
+def percentile_of_score(distribution: np.ndarray, score: float, tolerance: float,
+                        weights: np.ndarray | None = None) -> float:
+    """Mid-rank (#{θ* < score} + #{θ* ≤ score}) / (2B), ties judged within ``tolerance``.
 
-
-def quantile_rank(level: float, resamples: int) -> int:
-    """1-based rank k of the inverse-CDF quantile: the smallest k with k/B ≥ level.
-
-    Equals ``np.quantile(..., method="inverted_cdf")`` except that level·B within 1e-9 of an
-    integer is snapped to it, so that rounding in 1 − confidence (0.025000000000000022 for 95%)
-    cannot move an endpoint by one replicate.
+    With ``weights`` (exhaustive enumeration) the counts are sums of probabilities.
     """
-    position = level * resamples
-    nearest = round(position)
-    k = nearest if abs(position - nearest) <= 1e-9 * max(1.0, position) else math.ceil(position)
-    return min(max(int(k), 1), resamples)
+    below = distribution < score - tolerance
+    at_or_below = distribution <= score + tolerance
+    if weights is not None:
+        return float(np.sum(weights[below]) + np.sum(weights[at_or_below])) / 2.0
+    return (np.count_nonzero(below) + np.count_nonzero(at_or_below)) / (2.0 * distribution.shape[0])
 
 
-def _read(ordered: np.ndarray, level: float) -> float:
-    return float(ordered[quantile_rank(level, ordered.shape[0]) - 1])
+def _pair_statistic(statistic: Statistic) -> Statistic:
+    """A two-group statistic seen as a one-sample statistic of (first, second) rows."""
+    def compute(xy: np.ndarray) -> np.ndarray:
+        return statistic.compute(xy[..., 0, :], xy[..., 1, :])
 
-
-def _percentile(ctx: _Context) -> Interval:
-    alpha = 1.0 - ctx.confidence
-    levels = (alpha / 2, 1 - alpha / 2)
-    return Interval("percentile", ctx.confidence, _read(ctx.distribution, levels[0]),
-                    _read(ctx.distribution, levels[1]), quantile_levels=levels)
-
-
-def _bca(ctx: _Context) -> Interval:
-    if ctx.bca_problem is not None:
-        return Interval("bca", ctx.confidence, None, None, note=ctx.bca_problem)
-    alpha = 1.0 - ctx.confidence
-    assert ctx.z0 is not None and ctx.acceleration is not None
-    lo, hi = (float(v) for v in bca_levels(ctx.z0, ctx.acceleration, [alpha / 2, 1 - alpha / 2]))
-    return Interval("bca", ctx.confidence, _read(ctx.distribution, lo), _read(ctx.distribution, hi),
-                    quantile_levels=(lo, hi))
-
-
-# basic, normal and studentized intervals slot in here
-INTERVAL_METHODS: dict[str, IntervalMethod] = {"percentile": _percentile, "bca": _bca}
-
-
-@dataclass(frozen=True)
-class _Layout:
-    """Observations laid out cell by cell (see the draw contract)."""
-
-    groups: tuple[np.ndarray, ...]  # each group's observations in cell order (observation axis first)
-    bounds: tuple[tuple[int, int], ...]  # [start, stop) of each group among the N positions
-    cell_start: np.ndarray  # (N,) group-local position of the first observation of j's cell
-    cell_size: np.ndarray  # (N,) float, size of j's cell
-    cells: tuple[tuple[int, np.ndarray], ...]  # (group, original indices) of every cell
-
-
-def _layout(data: tuple[np.ndarray, ...], strata: tuple[np.ndarray, ...] | None) -> _Layout:
-    groups, bounds, starts, sizes, cells = [], [], [], [], []
-    offset = 0
-    for g, a in enumerate(data):
-        n = a.shape[0]
-        codes = np.zeros(n, dtype=np.int64) if strata is None else strata[g]
-        order = np.argsort(codes, kind="stable")
-        _, first, counts = np.unique(codes[order], return_index=True, return_counts=True)
-        groups.append(a[order])
-        bounds.append((offset, offset + n))
-        starts.append(np.repeat(first, counts))
-        sizes.append(np.repeat(counts, counts).astype(np.float64))
-        cells.extend((g, order[f:f + c]) for f, c in zip(first, counts))
-        offset += n
-    return _Layout(tuple(groups), tuple(bounds), np.concatenate(starts).astype(np.int64),
-                   np.concatenate(sizes), tuple(cells))
+    se = formula = None
+    if statistic.form == "mean":
+        # a difference of paired means is the mean of the paired differences: its SE is sd(d)/√n
+        # (the two-group formula would ignore the pairing)
+        def se(xy: np.ndarray) -> np.ndarray:
+            d = xy[..., 0, :] - xy[..., 1, :]
+            return np.std(d, axis=-1, ddof=1) / np.sqrt(d.shape[-1])
+        formula = "sd(paired differences) / sqrt(n), divisor n - 1"
+    return replace(statistic, samples=1, columns=2, compute=compute, se=se, se_formula=formula, form=None)
 
 
 def bootstrap(samples: Sequence[np.ndarray], statistic: Statistic, *, resamples: int, confidence: float,
               intervals: Sequence[str], stream: Stream, strata: Sequence[np.ndarray] | None = None,
-              batch_elements: int = 2_000_000) -> BootstrapResult:
+              clusters: Sequence[np.ndarray] | None = None, paired: bool = False,
+              blocks: tuple[str, int] | None = None, parametric: str | None = None, trials: int | None = None,
+              exhaustive: bool = False, studentized_se: str | None = None, inner_resamples: int = 50,
+              on_degenerate: str = "estimate-only", batch_elements: int = 2_000_000) -> BootstrapResult:
     """Bootstrap ``statistic`` over ``resamples`` resamples drawn from ``stream``.
 
     ``samples``: one array per group, shape (n_g,) or (n_g, columns), observation axis first.
-    ``strata``: optional integer codes per group; resampling is then within (group, stratum) cells.
+    ``strata`` / ``clusters``: optional integer codes per group. ``paired``: the two groups are
+    aligned pairs (row i of each). ``blocks``: (scheme, length) for time-ordered data.
+    ``parametric``: a model name (``trials`` for the binomial). ``exhaustive``: enumerate.
+    ``studentized_se``: "analytic", "jackknife" or "bootstrap" (nested, ``inner_resamples`` each);
+    default: analytic when the statistic has one.
+    ``on_degenerate``: what to do when an interval is undefined (``DEGENERATE_CHOICES``).
     """
     if resamples < 2:
         raise EngineError(f"resamples must be at least 2, got {resamples}", hint="use 999 or more")
@@ -218,31 +175,165 @@ def bootstrap(samples: Sequence[np.ndarray], statistic: Statistic, *, resamples:
     if unknown:
         raise EngineError(f"unknown interval method(s) {', '.join(map(repr, unknown))}",
                           hint=f"known: {', '.join(INTERVAL_METHODS)}")
+    if on_degenerate not in DEGENERATE_CHOICES:
+        raise EngineError(f"on_degenerate must be one of {', '.join(DEGENERATE_CHOICES)}, got {on_degenerate!r}")
     if batch_elements < 1:
         raise ValueError("batch_elements must be >= 1")
+    chosen = [k for k, v in (("strata", strata), ("clusters", clusters), ("pairs", paired or None),
+                             ("blocks", blocks), ("parametric", parametric), ("exhaustive", exhaustive or None))
+              if v is not None]
+    allowed = [{"strata", "clusters"}, {"strata", "pairs"}, {"strata", "exhaustive"},
+               {"pairs", "exhaustive"}, {"strata", "pairs", "exhaustive"}]
+    if len(chosen) > 1 and set(chosen) not in allowed:
+        raise EngineError(f"the bootstrap cannot combine {' and '.join(chosen)}")
+    dependent = blocks is not None or parametric is not None
+    if dependent and "bca" in intervals:
+        why = ("for time-ordered data the iid jackknife acceleration ignores the dependence"
+               if blocks is not None else "the parametric bootstrap has no nonparametric jackknife acceleration")
+        raise EngineError(f"BCa is refused: {why}", hint="use percentile, basic or normal intervals")
+    if blocks is not None and "studentized" in intervals:
+        raise EngineError("studentized intervals are refused for blocks: the per-resample standard error "
+                          "would assume independent rows", hint="use percentile, basic or normal intervals")
+    if clusters is not None and "studentized" in intervals:
+        raise EngineError("studentized intervals are not available with clusters",
+                          hint="use percentile, basic, normal or bca intervals")
+
     data = check_samples(samples, statistic, method="the bootstrap")
     codes = check_strata(strata, data)
-    layout = _layout(data, codes)
+    cluster_codes = check_strata(clusters, data)
+    work = statistic
+    if paired:
+        if statistic.samples != 2 or statistic.columns != 1:
+            raise EngineError(f"pairs need a two-group statistic of one column; {statistic.name!r} is not")
+        if data[0].shape[0] != data[1].shape[0]:
+            raise EngineError(f"pairs need as many rows in each group, got {data[0].shape[0]} and {data[1].shape[0]}")
+        if codes is not None:
+            if not np.array_equal(codes[0], codes[1]):
+                raise EngineError("the two rows of a pair lie in different strata",
+                                  hint="a pair must lie inside one stratum")
+            codes = (codes[0],)
+        data = (np.ascontiguousarray(np.column_stack(data)),)
+        work = _pair_statistic(statistic)
     n = tuple(int(a.shape[0]) for a in data)
 
-    estimate = float(statistic.compute(*[to_compute_layout(a) for a in data]))
+    inner = None
+    if "studentized" in intervals:
+        inner = studentized_se or ("analytic" if work.se is not None else None)
+        if inner is None:
+            raise EngineError(f"the {statistic.label} has no analytic standard error",
+                              hint="declare studentized_se: jackknife (B x n extra evaluations)")
+        if inner == "analytic" and work.se is None:
+            raise EngineError(f"the {statistic.label} has no analytic standard error",
+                              hint="declare studentized_se: jackknife")
+        if inner == "jackknife" and min(n) < 2:
+            raise EngineError("the inner jackknife needs at least two observations per group")
+        if inner == "bootstrap":
+            if exhaustive or parametric is not None or blocks is not None or clusters is not None:
+                raise EngineError("the nested bootstrap standard error is available for the row, strata and "
+                                  "pairs schemes only", hint="use studentized_se: jackknife")
+            if inner_resamples < 10:
+                raise EngineError(f"inner_resamples must be at least 10, got {inner_resamples}")
+
+    whole = [to_compute_layout(a) for a in data]
+    estimate = float(work.compute(*whole))
     if not math.isfinite(estimate):
         raise EngineError(f"the statistic {statistic.name!r} is not finite on the data")
 
-    distribution = _draw(layout, statistic, resamples, stream, batch_elements)
-
-    warnings = _data_warnings(n, layout, codes is not None)
-    if codes is None:
-        scheme = "rows resampled" if len(data) == 1 else "each group resampled separately"
+    details: dict[str, Any] = {}
+    weights = None
+    se_star = None
+    lay = schemes.layout(data, codes)
+    cl = None
+    warnings: list[EngineWarning] = []
+    if exhaustive:
+        distribution, weights, se_star = schemes.enumerate_cells(lay, work, batch_elements, inner)
+        details["distinct_resamples"] = int(distribution.shape[0])
+        details["exhaustive_limit"] = schemes.EXHAUSTIVE_LIMIT
+        resamples = int(distribution.shape[0])
+        scheme = "exhaustive enumeration of every distinct resample" + (" of pairs" if paired else "") + (
+            " within group × stratum cells" if codes is not None else "")
+    elif parametric is not None:
+        if parametric not in schemes.MODELS:
+            raise EngineError(f"unknown model {parametric!r}", hint=f"one of: {', '.join(schemes.MODELS)}")
+        if parametric == "binomial" and (trials is None or trials < 1):
+            raise EngineError("the binomial model needs the number of trials (at least 1)")
+        if statistic.columns > 2 or (statistic.columns == 2 and parametric != "normal"):
+            raise EngineError("the parametric bootstrap of two columns needs the (bivariate) normal model")
+        fits = [schemes.fit_model(a, parametric, trials, g) for g, a in enumerate(data)]
+        details["model"] = parametric
+        details["fitted_parameters"] = fits
+        details["fit"] = {"normal": "maximum likelihood: mean, sd with divisor n" if statistic.columns == 1
+                          else "maximum likelihood: mean vector, covariance with divisor n (bivariate normal)",
+                          "exponential": "maximum likelihood: mean", "poisson": "maximum likelihood: rate = mean",
+                          "binomial": "maximum likelihood: p = mean / trials"}[parametric]
+        distribution, se_star = schemes.draw_parametric(data, work, resamples, stream, batch_elements,
+                                                        model=parametric, fits=fits, inner=inner)
+        scheme = f"parametric: {parametric} model fitted by maximum likelihood" + (
+            ", each group separately" if len(data) > 1 else "")
+    elif blocks is not None:
+        kind, length = blocks
+        if kind not in schemes.BLOCK_SCHEMES:
+            raise EngineError(f"unknown block scheme {kind!r}", hint=f"one of: {', '.join(schemes.BLOCK_SCHEMES)}")
+        if length < 1:
+            raise EngineError(f"the block length must be at least 1, got {length}")
+        distribution = schemes.draw_blocks(data, work, resamples, stream, batch_elements, scheme=kind, length=length)
+        details["blocks"] = {"scheme": kind, ("mean_length" if kind == "stationary" else "length"): length}
+        scheme = (f"stationary bootstrap, mean block length {length}" if kind == "stationary"
+                  else f"{kind}-block bootstrap, block length {length}") + (
+            ", each group separately" if len(data) > 1 else "")
+    elif cluster_codes is not None:
+        cl = schemes.cluster_layout(data, cluster_codes, codes)
+        distribution = schemes.draw_clusters(data, cl, work, resamples, stream, batch_elements)
+        counts = [int(np.sum(cl.slot_group == g)) for g in range(len(data))]
+        details["clusters"] = counts
+        scheme = "whole clusters resampled" + (" within strata" if codes is not None else "") + (
+            ", each group separately" if len(data) > 1 else "")
+        few = [f"group {g + 1} ({k} clusters)" for g, k in enumerate(counts) if k < SMALL_SAMPLE]
+        if few:
+            warnings.append(EngineWarning(
+                "few-clusters", f"fewer than {SMALL_SAMPLE} clusters in {', '.join(few)}: the cluster bootstrap "
+                "distribution is coarse and its intervals tend to be too narrow"))
     else:
-        scheme = "within group × stratum cells"
+        distribution, se_star = schemes.draw_cells(lay, work, resamples, stream, batch_elements, inner,
+                                                   inner_resamples)
+        if paired:
+            scheme = "whole pairs resampled" + (" within strata" if codes is not None else "")
+        elif codes is None:
+            scheme = "rows resampled" if len(data) == 1 else "each group resampled separately"
+        else:
+            scheme = "within group × stratum cells"
+    if inner is not None:
+        extra = {"jackknife": sum(n), "bootstrap": inner_resamples}.get(inner, 0)
+        details["studentized_se"] = {
+            "method": inner,
+            "formula": {"analytic": work.se_formula, "jackknife": "delete-one jackknife of each resample",
+                        "bootstrap": f"sd (divisor M - 1) of M = {inner_resamples} inner resamples of each "
+                                     "resample; the data's se_hat is the outer bootstrap standard error"}[inner],
+            "statistic_evaluations": int(resamples * (1 + extra))}
+        if inner == "bootstrap":
+            details["studentized_se"]["inner_resamples"] = inner_resamples
+            details["studentized_se"]["inner_stream"] = f"child {schemes.INNER_LABEL} of the analysis stream; " \
+                "inner resample j of resample r is its row r*M + j"
+
+    if inner == "jackknife" and not statistic.smooth:
+        warnings.append(EngineWarning(
+            "studentized-non-smooth",
+            f"the studentized interval uses the jackknife standard error of each resample, which is unreliable "
+            f"for the {statistic.label} (not a smooth statistic); prefer studentized_se: bootstrap or the "
+            "percentile interval"))
+    if cl is None:
+        warnings = _data_warnings(n, lay, codes is not None, paired) + warnings
+    exact = weights is not None
 
     def finish(standard_error: float | None, bias: float | None, found: tuple[Interval, ...],
-               z0: float | None = None, acceleration: float | None = None) -> BootstrapResult:
+               z0: float | None = None, acceleration: float | None = None,
+               se_sd: float | None = None, bias_sd: float | None = None) -> BootstrapResult:
         return BootstrapResult(
             estimate=estimate, standard_error=standard_error, bias=bias, intervals=found,
             resamples=resamples, scheme=scheme, n=n, distribution=frozen_array(distribution),
-            z0=z0, acceleration=acceleration, conventions=dict(CONVENTIONS), warnings=tuple(warnings))
+            z0=z0, acceleration=acceleration, conventions=dict(CONVENTIONS), warnings=tuple(warnings),
+            exact=exact, weights=None if weights is None else frozen_array(weights),
+            standard_error_sd=se_sd, bias_sd=bias_sd, details=details)
 
     def no_intervals(note: str) -> tuple[Interval, ...]:
         return tuple(Interval(m, confidence, None, None, note=note) for m in intervals)
@@ -250,31 +341,54 @@ def bootstrap(samples: Sequence[np.ndarray], statistic: Statistic, *, resamples:
     finite = np.isfinite(distribution)
     if not finite.all():
         bad = int((~finite).sum())
-        warnings.append(EngineWarning(
-            "non-finite-replicates",
-            f"the statistic is not finite on {bad} of {resamples} resamples; no standard error, "
-            "bias or interval is reported"))
+        message = (f"the statistic is not finite on {bad} of {resamples} resamples; no standard error, "
+                   "bias or interval is reported")
+        if on_degenerate == "fail":
+            raise EngineError(message, hint="on_degenerate: fail was declared in the plan")
+        warnings.append(EngineWarning("non-finite-replicates", message))
         return finish(None, None, no_intervals(f"{bad} of {resamples} replicates are not finite"))
 
-    standard_error = float(np.std(distribution, ddof=1))
-    bias = float(np.mean(distribution)) - estimate
+    if exact:
+        assert weights is not None
+        mean = float(np.sum(weights * distribution))
+        standard_error = math.sqrt(float(np.sum(weights * (distribution - mean) ** 2)))
+        bias = mean - estimate
+        se_sd = bias_sd = 0.0
+    else:
+        standard_error = float(np.std(distribution, ddof=1))
+        bias = float(np.mean(distribution)) - estimate
+        kurtosis = _kurtosis(distribution)
+        se_sd = standard_error * math.sqrt(max(kurtosis - 1.0, 0.0) / (4 * resamples)) if kurtosis else 0.0
+        bias_sd = standard_error / math.sqrt(resamples)
     lowest, highest = float(distribution.min()), float(distribution.max())
+
+    order = np.argsort(distribution, kind="stable")
+    ordered = distribution[order]
+    cumulative = None if weights is None else np.cumsum(weights[order])
 
     # all replicates equal up to rounding: constant data (or constant cells); no interval
     if highest - lowest <= 1e-12 * max(abs(lowest), abs(highest)):
-        warnings.append(EngineWarning(
-            "degenerate-distribution",
-            f"all {resamples} bootstrap replicates are equal ({lowest!r}): the data do not vary within "
-            "the resampled groups or cells, so no interval can be formed"))
-        return finish(standard_error, bias, no_intervals(f"all {resamples} replicates equal {lowest!r}"))
+        message = (f"all {resamples} bootstrap replicates are equal ({lowest!r}): the data do not vary within "
+                   "the resampled units, so no interval can be formed")
+        if on_degenerate == "fail":
+            raise EngineError(message, hint="on_degenerate: fail was declared in the plan")
+        warnings.append(EngineWarning("degenerate-distribution", message))
+        if on_degenerate == "percentile":
+            found = tuple(Interval(m, confidence, lowest, highest,
+                                   note="degenerate distribution: the percentile interval (a single point) "
+                                        "is reported, as on_degenerate: percentile declares")
+                          for m in intervals)
+            return finish(standard_error, bias, found, se_sd=se_sd, bias_sd=bias_sd)
+        return finish(standard_error, bias, no_intervals(f"all {resamples} replicates equal {lowest!r}"),
+                      se_sd=se_sd, bias_sd=bias_sd)
 
-    ordered = np.sort(distribution)
     z0 = acceleration = problem = None
     if "bca" in intervals:
         # ties judged relative to the data's magnitude: rounding, not data, separates such values
         tolerance = TIE_TOLERANCE * max(abs(estimate), max(float(np.max(np.abs(a))) for a in data))
-        z0, acceleration, problem = _bca_constants(data, statistic, layout, ordered, estimate,
-                                                   tolerance, confidence, batch_elements)
+        z0, acceleration, problem = _bca_constants(data, work, lay, cl, cluster_codes, ordered, estimate,
+                                                   tolerance, confidence, batch_elements,
+                                                   None if weights is None else weights[order])
         if problem is not None:
             warnings.append(EngineWarning("bca-undefined", f"no BCa interval: {problem}"))
         if not statistic.smooth:
@@ -284,21 +398,90 @@ def bootstrap(samples: Sequence[np.ndarray], statistic: Statistic, *, resamples:
                 "its jackknife acceleration and the bias correction from a discrete bootstrap "
                 "distribution are unreliable; compare with the percentile interval"))
 
-    ctx = _Context(estimate, ordered, confidence, z0, acceleration, problem)
-    found = tuple(INTERVAL_METHODS[m](ctx) for m in intervals)
-    warnings.extend(_tail_warnings(found, ordered))
-    return finish(standard_error, bias, found, z0, acceleration)
+    t_ordered = t_cumulative = se_hat = t_problem = None
+    if inner is not None:
+        assert se_star is not None
+        se_hat = (float(work.se(*whole)) if inner == "analytic" else standard_error if inner == "bootstrap"
+                  else _jackknife_se(data, work, batch_elements))
+        # a resample with se* = 0 but θ* ≠ θ̂ (e.g. all draws of one observation) has t* = ±∞: a
+        # legitimate extreme of the t* distribution; 0/0 or a non-finite se* leaves t* undefined
+        zero = se_star == 0
+        moved = np.abs(distribution - estimate) > TIE_TOLERANCE * max(1.0, abs(estimate))
+        undefined = ~np.isfinite(se_star) | (zero & ~moved)
+        if undefined.any() or not (math.isfinite(se_hat) and se_hat > 0):
+            t_problem = (f"the standard error is undefined (0/0 or not finite) on {int(undefined.sum())} of "
+                         f"{resamples} resamples" if undefined.any()
+                         else "the standard error of the data is zero or undefined")
+        else:
+            with np.errstate(divide="ignore", invalid="ignore"):
+                t = np.where(zero, np.sign(distribution - estimate) * np.inf, (distribution - estimate) / se_star)
+            if zero.any():
+                warnings.append(EngineWarning(
+                    "studentized-infinite-t",
+                    f"{int(zero.sum())} of {resamples} resamples have a zero standard error; their t* is "
+                    "taken as plus or minus infinity"))
+            t_order = np.argsort(t, kind="stable")
+            t_ordered = t[t_order]
+            t_cumulative = None if weights is None else np.cumsum(weights[t_order])
+            ends = [t_ordered[0], t_ordered[-1]]
+            if not np.isfinite(ends).all():
+                # infinite t* only matter if an endpoint reads them
+                alpha = 1.0 - confidence
+                reads = [read_quantile(t_ordered, t_cumulative, p) for p in (alpha / 2, 1 - alpha / 2)]
+                if not np.isfinite(reads).all():
+                    t_problem = ("so many resamples have a zero standard error that an endpoint of the "
+                                 "studentized interval is infinite")
+                    t_ordered = t_cumulative = None
+        if t_problem is not None:
+            warnings.append(EngineWarning("studentized-undefined", f"no studentized interval: {t_problem}"))
+        details["se_hat"] = se_hat
+
+    summary = Summary(estimate, ordered, cumulative, confidence, standard_error, bias,
+                      None if exact else se_sd, None if exact else bias_sd, z0, acceleration, problem,
+                      t_ordered, t_cumulative, se_hat, t_problem)
+    found = []
+    for m in intervals:
+        interval = INTERVAL_METHODS[m](summary)
+        if interval.lower is None and m in ("bca", "studentized"):
+            if on_degenerate == "fail":
+                raise EngineError(f"the {m} interval is undefined: {interval.note}",
+                                  hint="on_degenerate: fail was declared in the plan")
+            if on_degenerate == "percentile":
+                fallback = INTERVAL_METHODS["percentile"](summary)
+                interval = replace(fallback, note=f"in place of the undefined {m} interval ({interval.note}), "
+                                                  "as on_degenerate: percentile declares")
+        found.append(interval)
+    if not exact:
+        for w in _tail_warnings(tuple(found), ordered):
+            if w not in warnings:  # a fallback percentile interval repeats the percentile's warning
+                warnings.append(w)
+    return finish(standard_error, bias, tuple(found), z0, acceleration, se_sd, bias_sd)
 
 
-def _data_warnings(n: tuple[int, ...], layout: _Layout, stratified: bool) -> list[EngineWarning]:
+def _kurtosis(values: np.ndarray) -> float | None:
+    centred = values - values.mean()
+    m2 = float(np.mean(centred ** 2))
+    with np.errstate(all="ignore"):
+        kurtosis = float(np.mean(centred ** 4) / m2 ** 2) if m2 > 0 else math.nan
+    return kurtosis if math.isfinite(kurtosis) else None
+
+
+def _jackknife_se(data: tuple[np.ndarray, ...], statistic: Statistic, batch_elements: int) -> float:
+    """Delete-one jackknife SE of the data (the ŝe of a studentized interval with an inner jackknife)."""
+    reps = jackknife_replicates(data, statistic, batch_elements=batch_elements)
+    return math.sqrt(sum((r.shape[0] - 1) / r.shape[0] * float(np.sum((r - r.mean()) ** 2)) for r in reps))
+
+
+def _data_warnings(n: tuple[int, ...], lay: schemes.Layout, stratified: bool, paired: bool) -> list[EngineWarning]:
     warnings = []
-    small = [f"group {g + 1} (n = {k})" for g, k in enumerate(n) if k < SMALL_SAMPLE]
+    unit = "pairs" if paired else "observations"
+    small = [f"group {g + 1} (n = {k})" if not paired else f"{k} pairs" for g, k in enumerate(n) if k < SMALL_SAMPLE]
     if small:
         warnings.append(EngineWarning(  # common practice
             "small-sample",
-            f"fewer than {SMALL_SAMPLE} observations in {', '.join(small)}: the bootstrap distribution "
+            f"fewer than {SMALL_SAMPLE} {unit} in {', '.join(small)}: the bootstrap distribution "
             "is coarse and its intervals tend to be too narrow"))
-    lonely = sum(1 for _, members in layout.cells if members.shape[0] == 1)
+    lonely = sum(1 for _, members in lay.cells if members.shape[0] == 1)
     if stratified and lonely:
         warnings.append(EngineWarning(
             "single-observation-cell",
@@ -308,11 +491,11 @@ def _data_warnings(n: tuple[int, ...], layout: _Layout, stratified: bool) -> lis
 
 
 def _tail_warnings(found: tuple[Interval, ...], ordered: np.ndarray) -> list[EngineWarning]:
-    """Common practice: an endpoint with fewer than TAIL_MINIMUM replicates beyond it is mostly noise."""
+    """The tail-count rule (common practice): fewer than TAIL_MINIMUM replicates beyond an endpoint."""
     warnings = []
     for iv in found:
-        if iv.lower is None or iv.upper is None:
-            continue
+        if iv.lower is None or iv.upper is None or iv.method in ("normal", "studentized", "basic"):
+            continue  # these endpoints are not read from the replicates' own tails
         below = int(np.count_nonzero(ordered < iv.lower))
         above = int(np.count_nonzero(ordered > iv.upper))
         if min(below, above) < TAIL_MINIMUM:
@@ -324,42 +507,28 @@ def _tail_warnings(found: tuple[Interval, ...], ordered: np.ndarray) -> list[Eng
     return warnings
 
 
-def _draw(layout: _Layout, statistic: Statistic, resamples: int, stream: Stream,
-          batch_elements: int) -> np.ndarray:
-    """Run the draw contract; returns the B replicates in resample order."""
-    width = int(layout.cell_start.shape[0])
-    rows_per_batch = max(1, batch_elements // (width * statistic.columns))
-    reader = UniformRows(stream, width)
-    out = np.empty(resamples, dtype=np.float64)
-    done = 0
-    while done < resamples:
-        rows = min(rows_per_batch, resamples - done)
-        u = reader.take(rows)
-        # truncation is floor here because u * size >= 0
-        index = layout.cell_start + (u * layout.cell_size).astype(np.int64)
-        gathered = [take_observations(group, index[:, start:stop])
-                    for group, (start, stop) in zip(layout.groups, layout.bounds)]
-        # undefined values are detected and reported by the caller, not printed by numpy
-        with np.errstate(invalid="ignore", divide="ignore"):
-            out[done:done + rows] = statistic.compute(*gathered)
-        done += rows
-    return out
-
-
-def _bca_constants(data: tuple[np.ndarray, ...], statistic: Statistic, layout: _Layout,
-                   ordered: np.ndarray, estimate: float, tolerance: float, confidence: float,
-                   batch_elements: int) -> tuple[float | None, float | None, str | None]:
+def _bca_constants(data: tuple[np.ndarray, ...], statistic: Statistic, lay: schemes.Layout,
+                   cl: schemes.ClusterLayout | None, cluster_codes: tuple[np.ndarray, ...] | None,
+                   ordered: np.ndarray, estimate: float, tolerance: float, confidence: float, batch_elements: int,
+                   ordered_weights: np.ndarray | None) -> tuple[float | None, float | None, str | None]:
     """z0, acceleration, and the reason BCa is undefined (None when it is defined)."""
-    share = percentile_of_score(ordered, estimate, tolerance)
+    share = percentile_of_score(ordered, estimate, tolerance, ordered_weights)
     z0 = float(ndtri(share))
     if not math.isfinite(z0):
         side = "above" if share == 0.0 else "below"
         return None, None, f"every replicate lies {side} the estimate, so the bias correction z0 is infinite"
-    if any(a.shape[0] < 2 for a in data):
-        return z0, None, "a group has a single observation, so the jackknife acceleration is undefined"
-    replicates = jackknife_replicates(data, statistic, batch_elements=batch_elements)
-    # each independently resampled cell is one sample of E&T eq. 15.36
-    per_cell = [replicates[g][members] for g, members in layout.cells]
+    if cl is not None:
+        replicates = cluster_replicates(data, statistic, cluster_codes)
+        # each (group, stratum) cell of clusters is one independently resampled sample
+        assert cluster_codes is not None
+        per_cell = [replicates[g][np.searchsorted(np.unique(cluster_codes[g]), cl.codes[list(numbers)])]
+                    for g, numbers in cl.cells]
+    else:
+        if any(a.shape[0] < 2 for a in data):
+            return z0, None, "a group has a single observation, so the jackknife acceleration is undefined"
+        replicates = jackknife_replicates(data, statistic, batch_elements=batch_elements)
+        # each independently resampled cell is one sample of E&T eq. 15.36
+        per_cell = [replicates[g][members] for g, members in lay.cells]
     acceleration = bca_acceleration(per_cell)
     if not math.isfinite(acceleration):
         return z0, None, ("the delete-one jackknife values do not vary, so the acceleration is undefined")

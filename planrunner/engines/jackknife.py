@@ -9,35 +9,50 @@ Conventions (REFERENCES §0.1; E&T ch. 11), for groups g = 1..G with n_g observa
   With two groups and a difference of means, se = sqrt(s₁²/n₁ + s₂²/n₂) (identity 6).
 
 Replicates come in closed form for the mean, proportion and mean difference (O(n)), and for the
-median (the delete-one medians take at most 3 distinct values of the sorted data); any other
+median and any quantile (the delete-one values take at most 3 distinct values of the sorted data,
+O(n), by partition: no sort)); the delete-one-cluster jackknife loops over clusters; any other
 statistic goes through a blocked loop over deletions that keeps memory bounded.
 """
 
 from __future__ import annotations
 
 import math
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 
 import numpy as np
 
 from planrunner.errors import EngineError
 from planrunner.engines.results import EngineWarning, JackknifeResult, frozen_array
-from planrunner.engines.statistics import Statistic, check_samples, take_observations, to_compute_layout
+from planrunner.engines.statistics import (
+    Statistic,
+    check_samples,
+    check_strata,
+    take_observations,
+    to_compute_layout,
+)
 
-__all__ = ["JackknifeResult", "jackknife", "jackknife_replicates"]
+__all__ = ["JackknifeResult", "cluster_replicates", "jackknife", "jackknife_replicates"]
 
 SMALL_SAMPLE = 10  # common practice: below about 10 observations resampling summaries are rough
 
 
 def jackknife(samples: Sequence[np.ndarray], statistic: Statistic, *,
+              clusters: Sequence[np.ndarray] | None = None,
               batch_elements: int = 2_000_000) -> JackknifeResult:
-    """Delete-one jackknife bias, standard error and pseudo-values of ``statistic``."""
-    data = check_samples(samples, statistic, minimum=2, method="the jackknife")
+    """Delete-one jackknife bias, standard error and pseudo-values of ``statistic``.
+
+    With ``clusters`` (integer codes per group) whole clusters are deleted one at a time, and
+    n_g in the formulas is the number of clusters of group g (replicates in cluster-code order).
+    """
+    data = check_samples(samples, statistic, minimum=1 if clusters is not None else 2, method="the jackknife")
     estimate = float(statistic.compute(*[to_compute_layout(a) for a in data]))
     if not math.isfinite(estimate):
         raise EngineError(f"the statistic {statistic.name!r} is not finite on the data")
-    replicates = _replicates(data, statistic, batch_elements)
-    n = tuple(int(a.shape[0]) for a in data)
+    if clusters is None:
+        replicates = _replicates(data, statistic, batch_elements)
+    else:
+        replicates = cluster_replicates(data, statistic, check_strata(clusters, data))
+    n = tuple(int(r.shape[0]) for r in replicates)
 
     bias = 0.0
     sum_sq = 0.0
@@ -64,6 +79,13 @@ def jackknife(samples: Sequence[np.ndarray], statistic: Statistic, *,
             "the jackknife standard error and bias are rough"))
 
     scheme = "delete-one observation" if len(data) == 1 else "delete-one observation within each group"
+    if clusters is not None:
+        scheme = "delete-one cluster" if len(data) == 1 else "delete-one cluster within each group"
+        small = [f"group {g + 1} ({k} clusters)" for g, k in enumerate(n) if k < SMALL_SAMPLE]
+        if small:
+            warnings.append(EngineWarning(
+                "few-clusters", f"fewer than {SMALL_SAMPLE} clusters in {', '.join(small)}: the delete-one-cluster "
+                "standard error and bias are rough"))
     return JackknifeResult(
         estimate=estimate,
         bias=bias,
@@ -78,6 +100,9 @@ def jackknife(samples: Sequence[np.ndarray], statistic: Statistic, *,
             "standard_error": "sqrt(sum over groups of (n_g-1)/n_g * sum_i (theta_(g,i) - mean_g)^2)",
             "bias": "sum over groups of (n_g-1) * (mean_g - theta_hat)",
             "pseudo_values": "n_g * theta_hat - (n_g-1) * theta_(g,i)",
+            "replicates": "closed forms for the mean (O(n)) and for the median and quantiles (O(n), by "
+                          "partition around the order statistics read); other statistics delete one at a time"
+                          + ("; clusters: n_g is the number of clusters of group g" if clusters is not None else ""),
         },
     )
 
@@ -92,13 +117,21 @@ def jackknife_replicates(samples: Sequence[np.ndarray], statistic: Statistic, *,
 def _replicates(data: tuple[np.ndarray, ...], statistic: Statistic,
                 batch_elements: int) -> list[np.ndarray]:
     if statistic.form is not None and statistic.columns == 1 and statistic.samples in (1, 2):
-        deleted = _delete_one_mean if statistic.form == "mean" else _delete_one_median
+        if statistic.form == "mean":
+            deleted, loc = _delete_one_mean, np.mean
+        elif statistic.form == "median":
+            deleted, loc = _delete_one_median, np.median
+        else:
+            q = statistic.value
+            assert q is not None, "a quantile statistic must be bound to its level"
+            deleted = lambda x: _delete_one_quantile(x, q)  # noqa: E731
+            loc = lambda x: np.quantile(x, q)  # noqa: E731
         if statistic.samples == 1:
             reps = [deleted(data[0])]
         else:
             # the form says θ = loc(group 1) − loc(group 2); the location is the one-group statistic
-            loc = [float(np.mean(a)) if statistic.form == "mean" else float(np.median(a)) for a in data]
-            reps = [deleted(data[0]) - loc[1], loc[0] - deleted(data[1])]
+            whole = [float(loc(a)) for a in data]
+            reps = [deleted(data[0]) - whole[1], whole[0] - deleted(data[1])]
     else:
         reps = _generic(data, statistic, batch_elements)
     for g, r in enumerate(reps):
@@ -111,6 +144,30 @@ def _replicates(data: tuple[np.ndarray, ...], statistic: Statistic,
     return reps
 
 
+def cluster_replicates(data: tuple[np.ndarray, ...], statistic: Statistic,
+                       clusters: tuple[np.ndarray, ...] | None) -> list[np.ndarray]:
+    """Delete-one-cluster replicates: entry g, element k deletes the k-th cluster (ascending code) of group g."""
+    assert clusters is not None
+    whole = [to_compute_layout(a) for a in data]
+    reps = []
+    for g, a in enumerate(data):
+        ids = np.unique(clusters[g])
+        if ids.size < 2:
+            raise EngineError(f"group {g + 1} has a single cluster; the delete-one-cluster jackknife needs two",
+                              hint="use more clusters or another method")
+        out = np.empty(ids.size, dtype=np.float64)
+        for k, code in enumerate(ids):
+            kept = to_compute_layout(a[clusters[g] != code])
+            with np.errstate(invalid="ignore", divide="ignore"):
+                out[k] = float(statistic.compute(*[kept if h == g else w for h, w in enumerate(whole)]))
+        if not np.isfinite(out).all():
+            bad = int(ids[np.flatnonzero(~np.isfinite(out))[0]])
+            raise EngineError(f"the statistic {statistic.name!r} is not finite when cluster {bad} of group "
+                              f"{g + 1} is deleted", hint="the jackknife cannot be used for these data")
+        reps.append(out)
+    return reps
+
+
 def _delete_one_mean(x: np.ndarray) -> np.ndarray:
     """x̄_(i) = x̄ + (x̄ − x_i)/(n − 1): the deviation form keeps full precision."""
     mean = np.mean(x)
@@ -118,26 +175,37 @@ def _delete_one_mean(x: np.ndarray) -> np.ndarray:
 
 
 def _delete_one_median(x: np.ndarray) -> np.ndarray:
-    """Median of x without x_i, from the sorted data: at most 3 distinct values.
+    """Median of x without x_i for every i (at most 3 distinct values); see ``_delete_one_order``."""
+    return _delete_one_order(x, 0.5, np.median)
 
-    n even (n − 1 odd, middle index m = n/2 − 1 of the rest): s[m+1] if rank(i) ≤ m else s[m].
-    n odd (h = (n − 1)/2): (s[h]+s[h+1])/2 if rank < h; (s[h−1]+s[h+1])/2 if rank = h;
-    (s[h−1]+s[h])/2 if rank > h. Deleting either of two tied values leaves the same data, so any
-    ranking of ties gives the same replicate.
+
+def _delete_one_quantile(x: np.ndarray, q: float) -> np.ndarray:
+    """Linear-interpolation quantile (numpy's default) of x without x_i; see ``_delete_one_order``."""
+    return _delete_one_order(x, q, lambda a: np.quantile(a, q))
+
+
+def _delete_one_order(x: np.ndarray, q: float, location: Callable[[np.ndarray], float]) -> np.ndarray:
+    """Delete-one values of an order-statistic location (median, quantile) in O(n), no sort.
+
+    With s the sorted data and j = floor((n − 2)q), the location of the n − 1 values left after
+    deleting x_i reads only the order statistics j and j + 1 of the rest, s'[k] = s[k] below the
+    deleted rank and s[k + 1] from it on. So there are three cases, decided by value:
+    x_i < s[j+1] (the rest is s without s[j]); x_i = s[j+1] (without s[j+1]); x_i > s[j+1]
+    (without some s[k], k ≥ j + 2). Deleting either of two tied values leaves the same data, so
+    comparing values is exact. Each case is evaluated once by numpy itself on the data partitioned
+    around j, j + 1, j + 2 (the location depends only on those order statistics), so the values are
+    identical to the plain computation.
     """
     n = x.shape[0]
-    order = np.argsort(x, kind="stable")
-    s = x[order]
-    rank = np.empty(n, dtype=np.int64)
-    rank[order] = np.arange(n)
-    if n % 2 == 0:
-        m = n // 2 - 1
-        return np.where(rank <= m, s[m + 1], s[m]).astype(np.float64)
-    h = (n - 1) // 2
-    low = (s[h] + s[h + 1]) / 2
-    mid = (s[h - 1] + s[h + 1]) / 2
-    high = (s[h - 1] + s[h]) / 2
-    return np.where(rank < h, low, np.where(rank == h, mid, high)).astype(np.float64)
+    j = int(math.floor((n - 2) * q))
+    kth = sorted({min(k, n - 1) for k in (j, j + 1, j + 2)})
+    p = np.partition(x, kth)
+    pivot = p[j + 1]
+    out = np.empty(n, dtype=np.float64)
+    for mask, drop in ((x < pivot, j), (x == pivot, j + 1), (x > pivot, min(j + 2, n - 1))):
+        if mask.any():
+            out[mask] = location(np.delete(p, drop))
+    return out
 
 
 def _generic(data: tuple[np.ndarray, ...], statistic: Statistic, batch_elements: int) -> list[np.ndarray]:

@@ -51,6 +51,9 @@ class Interval:
     upper: float | None
     note: str | None = None
     quantile_levels: tuple[float, float] | None = None
+    # about 95% Monte Carlo ranges (low, high) of the lower and of the upper endpoint; None when
+    # exact (exhaustive enumeration) or undefined
+    monte_carlo: tuple[tuple[float, float], tuple[float, float]] | None = None
 
 
 @dataclass(frozen=True, eq=False)
@@ -73,6 +76,15 @@ class BootstrapResult:
     acceleration: float | None
     conventions: dict[str, str] = field(default_factory=dict)
     warnings: tuple[EngineWarning, ...] = ()
+    # exhaustive enumeration: every distinct resample once, with its multinomial probability
+    exact: bool = False
+    weights: np.ndarray | None = None
+    # Monte Carlo s.d. of the standard error, SE·sqrt((κ − 1)/(4B)), and of the bias, SE/√B
+    # (REFERENCES §3); 0 when exact; None when there is no standard error
+    standard_error_sd: float | None = None
+    bias_sd: float | None = None
+    # scheme-specific facts: fitted parameters, block length, inner standard-error method and cost
+    details: dict = field(default_factory=dict)
 
 
 @dataclass(frozen=True, eq=False)

@@ -19,15 +19,20 @@ use only where verified equal to the plain computation.
 from __future__ import annotations
 
 from collections.abc import Callable, Sequence
+import dataclasses
+import math
 from dataclasses import dataclass
 
 import numpy as np
+from scipy.stats import rankdata
 
 from planrunner.errors import EngineError
 
 __all__ = [
+    "PARAMETERS",
     "STATISTICS",
     "Statistic",
+    "bind",
     "check_samples",
     "check_strata",
     "get_statistic",
@@ -49,11 +54,20 @@ class Statistic:
     compute: Callable[..., np.ndarray]
     columns: int = 1
     form: str | None = None
+    # a statistic with a parameter (e.g. the level of a quantile) names its plan key here and is
+    # registered unbound; ``bind`` makes the computable statistic for one value of it
+    parameter: str | None = None
+    value: float | None = None
+    maker: Callable[[float], Callable[..., np.ndarray]] | None = None
+    # analytic standard error (same arguments and shapes as ``compute``), for studentized intervals
+    se: Callable[..., np.ndarray] | None = None
+    se_maker: Callable[[float], Callable[..., np.ndarray]] | None = None
+    se_formula: str | None = None
 
     def __post_init__(self) -> None:
         if self.outcome not in ("numeric", "binary"):
             raise ValueError(f"outcome must be 'numeric' or 'binary', got {self.outcome!r}")
-        if self.form not in (None, "mean", "median"):
+        if self.form not in (None, "mean", "median", "quantile"):
             raise ValueError(f"unknown form {self.form!r}")
         if self.samples < 1 or self.columns < 1:
             raise ValueError("samples and columns must be >= 1")
@@ -79,12 +93,140 @@ def get_statistic(name: str) -> Statistic:
         raise KeyError(f"unknown statistic {name!r}; known statistics: {known}") from None
 
 
+def _unbound(*_: np.ndarray) -> np.ndarray:
+    raise ValueError("this statistic has a parameter; use bind(statistic, value) first")
+
+
+# Parameters a plan may give a statistic: plan key -> (lowest, highest, whether the lowest is allowed);
+# the highest is never allowed (a 1-quantile is the maximum; trimming half leaves nothing)
+PARAMETERS: dict[str, tuple[float, float, bool]] = {"quantile": (0.0, 1.0, False), "trim": (0.0, 0.5, True)}
+
+
+def bind(statistic: Statistic, value: float | None) -> Statistic:
+    """The computable statistic for one value of its parameter (unchanged if it has none)."""
+    if statistic.parameter is None:
+        if value is not None:
+            raise ValueError(f"statistic {statistic.name!r} takes no parameter")
+        return statistic
+    if value is None:
+        raise ValueError(f"statistic {statistic.name!r} needs its {statistic.parameter!r}")
+    low, high, low_allowed = PARAMETERS[statistic.parameter]
+    if not (low <= value if low_allowed else low < value) or not value < high:
+        raise ValueError(f"{statistic.parameter} must lie in {'[' if low_allowed else '('}{low}, {high}), got {value}")
+    assert statistic.maker is not None
+    return dataclasses.replace(
+        statistic, value=float(value), compute=statistic.maker(float(value)),
+        se=statistic.se_maker(float(value)) if statistic.se_maker is not None else statistic.se,
+        label=statistic.label.replace("{value}", f"{value:g}"))
+
+
+# --- one group, one column ------------------------------------------------------------------------
+# Quantiles use numpy's default definition (linear interpolation between order statistics,
+# "type 7"): Q(q) = s[j] + (h − j)(s[j+1] − s[j]) with h = (n − 1)q and j = floor(h).
+
+
 def _mean(x: np.ndarray) -> np.ndarray:
     return np.mean(x, axis=-1)
 
 
+def _mean_se(x: np.ndarray) -> np.ndarray:
+    return np.std(x, axis=-1, ddof=1) / np.sqrt(x.shape[-1])
+
+
 def _median(x: np.ndarray) -> np.ndarray:
     return np.median(x, axis=-1)
+
+
+def _quantile(q: float) -> Callable[[np.ndarray], np.ndarray]:
+    def compute(x: np.ndarray) -> np.ndarray:
+        return np.quantile(x, q, axis=-1)
+    return compute
+
+
+def _trimmed_mean(trim: float) -> Callable[[np.ndarray], np.ndarray]:
+    """Mean after cutting floor(trim·n) observations from each end (as scipy.stats.trim_mean)."""
+    def compute(x: np.ndarray) -> np.ndarray:
+        n = x.shape[-1]
+        k = int(math.floor(trim * n))
+        return np.mean(np.sort(x, axis=-1)[..., k:n - k], axis=-1)
+    return compute
+
+
+def _variance(x: np.ndarray) -> np.ndarray:
+    return np.var(x, axis=-1, ddof=1)
+
+
+def _plugin_variance(x: np.ndarray) -> np.ndarray:
+    return np.var(x, axis=-1)
+
+
+def _moments(x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    centred = x - x.mean(axis=-1, keepdims=True)
+    return np.mean(centred ** 2, axis=-1), np.mean(centred ** 4, axis=-1)
+
+
+def _plugin_variance_se(x: np.ndarray) -> np.ndarray:
+    """Delta-method SE of the plug-in variance, sqrt((m4 − m2²)/n) (REFERENCES BS-SPATIAL)."""
+    m2, m4 = _moments(x)
+    return np.sqrt(np.maximum(m4 - m2 ** 2, 0.0) / x.shape[-1])
+
+
+def _variance_se(x: np.ndarray) -> np.ndarray:
+    n = x.shape[-1]
+    return _plugin_variance_se(x) * n / (n - 1)
+
+
+def _sd(x: np.ndarray) -> np.ndarray:
+    return np.std(x, axis=-1, ddof=1)
+
+
+def _sd_se(x: np.ndarray) -> np.ndarray:
+    """Delta method: se(s) = se(s²) / (2s)."""
+    return _variance_se(x) / (2.0 * _sd(x))
+
+
+def _cv(x: np.ndarray) -> np.ndarray:
+    return np.std(x, axis=-1, ddof=1) / np.mean(x, axis=-1)
+
+
+def _mad(x: np.ndarray) -> np.ndarray:
+    """Median absolute deviation from the median, unscaled (no 1.4826 normal factor)."""
+    return np.median(np.abs(x - np.median(x, axis=-1, keepdims=True)), axis=-1)
+
+
+def _proportion_se(x: np.ndarray) -> np.ndarray:
+    p = np.mean(x, axis=-1)
+    return np.sqrt(p * (1.0 - p) / x.shape[-1])
+
+
+# --- one group, two columns (predictor first, outcome second; shape (..., 2, n)) ----------------
+
+
+def _pearson(xy: np.ndarray) -> np.ndarray:
+    """Pearson correlation of the two columns (predictor, outcome); xy has shape (..., 2, n)."""
+    x = xy[..., 0, :] - xy[..., 0, :].mean(axis=-1, keepdims=True)
+    y = xy[..., 1, :] - xy[..., 1, :].mean(axis=-1, keepdims=True)
+    return (x * y).sum(axis=-1) / np.sqrt((x * x).sum(axis=-1) * (y * y).sum(axis=-1))
+
+
+def _spearman(xy: np.ndarray) -> np.ndarray:
+    """Pearson correlation of the ranks (ties get their average rank), as scipy.stats.spearmanr."""
+    return _pearson(rankdata(xy, axis=-1))
+
+
+def _slope(xy: np.ndarray) -> np.ndarray:
+    """Least-squares slope of the outcome on the predictor, Σ(x − x̄)(y − ȳ) / Σ(x − x̄)²."""
+    x = xy[..., 0, :] - xy[..., 0, :].mean(axis=-1, keepdims=True)
+    y = xy[..., 1, :] - xy[..., 1, :].mean(axis=-1, keepdims=True)
+    return (x * y).sum(axis=-1) / (x * x).sum(axis=-1)
+
+
+def _ratio(xy: np.ndarray) -> np.ndarray:
+    """mean(outcome) / mean(predictor)."""
+    return xy[..., 1, :].mean(axis=-1) / xy[..., 0, :].mean(axis=-1)
+
+
+# --- two groups (first, second) ---------------------------------------------------------------------
 
 
 def _difference(one: Callable[[np.ndarray], np.ndarray]) -> Callable[[np.ndarray, np.ndarray], np.ndarray]:
@@ -97,21 +239,80 @@ def _difference(one: Callable[[np.ndarray], np.ndarray]) -> Callable[[np.ndarray
     return compute
 
 
-def _pearson(xy: np.ndarray) -> np.ndarray:
-    """Pearson correlation of the two columns (predictor, outcome); xy has shape (..., 2, n)."""
-    x = xy[..., 0, :] - xy[..., 0, :].mean(axis=-1, keepdims=True)
-    y = xy[..., 1, :] - xy[..., 1, :].mean(axis=-1, keepdims=True)
-    return (x * y).sum(axis=-1) / np.sqrt((x * x).sum(axis=-1) * (y * y).sum(axis=-1))
+def _mean_difference_se(x: np.ndarray, y: np.ndarray) -> np.ndarray:
+    """sqrt(s1²/n1 + s2²/n2), divisors n − 1 (unpooled)."""
+    return np.sqrt(_mean_se(x) ** 2 + _mean_se(y) ** 2)
 
 
-register(Statistic("mean", "mean", 1, True, "numeric", _mean, form="mean"))
+def _risk_difference_se(x: np.ndarray, y: np.ndarray) -> np.ndarray:
+    """sqrt(p1(1 − p1)/n1 + p2(1 − p2)/n2)."""
+    return np.sqrt(_proportion_se(x) ** 2 + _proportion_se(y) ** 2)
+
+
+def _ratio_of_means(x: np.ndarray, y: np.ndarray) -> np.ndarray:
+    return np.mean(x, axis=-1) / np.mean(y, axis=-1)
+
+
+def _odds_ratio(x: np.ndarray, y: np.ndarray) -> np.ndarray:
+    """Sample odds ratio p1(1 − p2) / (p2(1 − p1)) (not the conditional MLE)."""
+    p1, p2 = np.mean(x, axis=-1), np.mean(y, axis=-1)
+    return p1 * (1.0 - p2) / (p2 * (1.0 - p1))
+
+
+HL_ELEMENTS = 4_000_000  # pairwise differences held at once by the Hodges–Lehmann shift
+
+
+def _hodges_lehmann(x: np.ndarray, y: np.ndarray) -> np.ndarray:
+    """Median of all n1·n2 differences x_i − y_j (Hodges–Lehmann two-sample shift).
+
+    Evaluated in chunks of leading rows so that the n1·n2 differences per row stay bounded.
+    """
+    lead = np.broadcast_shapes(x.shape[:-1], y.shape[:-1])
+    xs = np.broadcast_to(x, lead + x.shape[-1:]).reshape(-1, x.shape[-1])
+    ys = np.broadcast_to(y, lead + y.shape[-1:]).reshape(-1, y.shape[-1])
+    pairs = x.shape[-1] * y.shape[-1]
+    step = max(1, HL_ELEMENTS // pairs)
+    out = np.empty(xs.shape[0], dtype=np.float64)
+    for start in range(0, xs.shape[0], step):
+        d = xs[start:start + step, :, None] - ys[start:start + step, None, :]
+        out[start:start + step] = np.median(d.reshape(d.shape[0], pairs), axis=-1)
+    return out.reshape(lead)
+
+
+register(Statistic("mean", "mean", 1, True, "numeric", _mean, form="mean",
+                   se=_mean_se, se_formula="s / sqrt(n), s with divisor n - 1"))
 register(Statistic("correlation", "Pearson correlation", 1, True, "numeric", _pearson, columns=2))
 register(Statistic("median", "median", 1, False, "numeric", _median, form="median"))
-register(Statistic("proportion", "proportion of 1s", 1, True, "binary", _mean, form="mean"))
+register(Statistic("proportion", "proportion of 1s", 1, True, "binary", _mean, form="mean",
+                   se=_proportion_se, se_formula="sqrt(p (1 - p) / n)"))
 register(Statistic("mean_difference", "difference in means", 2, True, "numeric",
-                   _difference(_mean), form="mean"))
+                   _difference(_mean), form="mean", se=_mean_difference_se,
+                   se_formula="sqrt(s1^2/n1 + s2^2/n2), divisors n - 1"))
 register(Statistic("median_difference", "difference in medians", 2, False, "numeric",
                    _difference(_median), form="median"))
+register(Statistic("quantile", "{value} quantile", 1, False, "numeric", _unbound, form="quantile",
+                   parameter="quantile", maker=_quantile))
+register(Statistic("trimmed_mean", "{value}-trimmed mean", 1, True, "numeric", _unbound,
+                   parameter="trim", maker=_trimmed_mean))
+register(Statistic("sd", "standard deviation", 1, True, "numeric", _sd, se=_sd_se,
+                   se_formula="delta method: se(s^2) / (2 s)"))
+register(Statistic("variance", "variance (divisor n - 1)", 1, True, "numeric", _variance, se=_variance_se,
+                   se_formula="delta method: n/(n-1) sqrt((m4 - m2^2) / n)"))
+register(Statistic("plugin_variance", "plug-in variance (divisor n)", 1, True, "numeric", _plugin_variance,
+                   se=_plugin_variance_se, se_formula="delta method: sqrt((m4 - m2^2) / n)"))
+register(Statistic("cv", "coefficient of variation", 1, True, "numeric", _cv))
+register(Statistic("mad", "median absolute deviation", 1, False, "numeric", _mad))
+register(Statistic("spearman", "Spearman correlation", 1, False, "numeric", _spearman, columns=2))
+register(Statistic("slope", "least-squares slope", 1, True, "numeric", _slope, columns=2))
+register(Statistic("ratio", "ratio of means (outcome / predictor)", 1, True, "numeric", _ratio, columns=2))
+register(Statistic("quantile_difference", "difference in {value} quantiles", 2, False, "numeric", _unbound,
+                   form="quantile", parameter="quantile", maker=lambda q: _difference(_quantile(q))))
+register(Statistic("ratio_of_means", "ratio of means", 2, True, "numeric", _ratio_of_means))
+register(Statistic("risk_difference", "risk difference", 2, True, "binary", _difference(_mean), form="mean",
+                   se=_risk_difference_se, se_formula="sqrt(p1 (1 - p1)/n1 + p2 (1 - p2)/n2)"))
+register(Statistic("risk_ratio", "risk ratio", 2, True, "binary", _ratio_of_means))
+register(Statistic("odds_ratio", "odds ratio", 2, True, "binary", _odds_ratio))
+register(Statistic("hodges_lehmann", "Hodges–Lehmann shift", 2, False, "numeric", _hodges_lehmann))
 
 
 # ---------------------------------------------------------------------------------------------

@@ -1,0 +1,519 @@
+"""Resampling schemes of the bootstrap: how each resample is drawn from the stream.
+
+Every scheme reads uniform rows from :class:`~planrunner.engines.streams.UniformRows` (resample r
+is row r of the stream, whatever the batch), so its numbers never depend on the batch size.
+The draw contract of each scheme (changing it changes every number):
+
+* cells (one group, groups, strata, pairs): N positions laid out group-major, stratum code
+  ascending, original order within a cell; ``u = gen.random(N)``; position j takes observation
+  ``cell_start[j] + floor(u[j] * cell_size[j])``. Pairs are one sample of (first, second) rows.
+* clusters: the C clusters laid out group-major, stratum ascending, cluster code ascending;
+  ``u = gen.random(C)``; slot j takes cluster ``cell_start[j] + floor(u[j] * cell_size[j])`` of its
+  (group, stratum) cell; a resampled group is the rows of its chosen clusters, slot by slot.
+* blocks (data in time order, each group separately, block length L, n observations):
+  moving: ``k = ceil(n/L)`` uniforms, block starts ``floor(u * (n − L + 1))``, blocks of L
+  consecutive observations joined and cut to n; circular: starts ``floor(u * n)``, indices wrap
+  modulo n; stationary (Politis & Romano 1994, mean block length L): 2n uniforms, position i
+  starts a new block when ``u[i] < 1/L`` (always at i = 0) at ``floor(u[n + i] * n)``, otherwise
+  continues the previous block circularly.
+* parametric: ``u = gen.random(N)`` mapped into (0, 1) as ``u (1 − 2⁻⁵³) + 2⁻⁵⁴`` and sent through
+  the inverse CDF of the fitted model of each group. Two columns (normal only): 2n uniforms per
+  group, ``z = Φ⁻¹(u)`` read as (2, n) (the first n for the first column), rows ``μ + L z`` with L
+  the lower Cholesky factor of the maximum-likelihood covariance (divisor n).
+* exhaustive: no draws; every distinct resample (multiset) of every cell once, with its
+  multinomial probability n!/(∏ c_i! nⁿ), cells combined as a product.
+"""
+
+from __future__ import annotations
+
+import itertools
+import math
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass
+
+import numpy as np
+from scipy import stats as _dist
+from scipy.special import gammaln
+
+from planrunner.errors import EngineError
+from planrunner.engines.statistics import Statistic, take_observations
+from planrunner.engines.streams import Stream, UniformRows
+
+__all__ = [
+    "BLOCK_SCHEMES",
+    "EXHAUSTIVE_LIMIT",
+    "MODELS",
+    "Layout",
+    "count_multisets",
+    "draw_blocks",
+    "draw_cells",
+    "draw_clusters",
+    "draw_parametric",
+    "enumerate_cells",
+    "evaluate",
+    "fit_model",
+    "layout",
+]
+
+EXHAUSTIVE_LIMIT = 200_000  # most distinct resamples (product over cells) enumerated exhaustively
+BLOCK_SCHEMES = ("moving", "circular", "stationary")
+MODELS = ("normal", "exponential", "poisson", "binomial")
+_OPEN = 2.0 ** -53  # maps [0, 1) into (0, 1) for inverse CDFs
+
+
+# ------------------------------------------------------------------ evaluation, with an inner SE
+
+
+def _jackknife_se_rows(statistic: Statistic, gathered: Sequence[np.ndarray]) -> np.ndarray:
+    """Delete-one jackknife SE of each resample (rows), within each group (REFERENCES §0.1)."""
+    total = None
+    for g, a in enumerate(gathered):
+        m = a.shape[-1]
+        keep = np.arange(m - 1)
+        idx = keep[None, :] + (keep[None, :] >= np.arange(m)[:, None])  # (m, m-1): row i drops i
+        deleted = a[..., idx]  # (rows, m, m-1) or (rows, k, m, m-1)
+        if a.ndim == 3:
+            deleted = np.moveaxis(deleted, -3, -2)  # (rows, m, k, m-1)
+        args = [deleted if h == g else np.expand_dims(b, 1) for h, b in enumerate(gathered)]
+        reps = statistic.compute(*args)  # (rows, m)
+        part = (m - 1) / m * np.sum((reps - reps.mean(axis=-1, keepdims=True)) ** 2, axis=-1)
+        total = part if total is None else total + part
+    assert total is not None
+    return np.sqrt(total)
+
+
+def evaluate(statistic: Statistic, gathered: Sequence[np.ndarray],
+             inner: str | None) -> tuple[np.ndarray, np.ndarray | None]:
+    """The statistic of each resample and, for studentized intervals, its standard error."""
+    theta = statistic.compute(*gathered)
+    if inner is None:
+        return theta, None
+    if inner == "analytic":
+        assert statistic.se is not None
+        return theta, statistic.se(*gathered)
+    return theta, _jackknife_se_rows(statistic, gathered)
+
+
+def _inner_factor(inner: str | None, n_max: int) -> int:
+    return n_max if inner == "jackknife" else 1
+
+
+# ------------------------------------------------------------------ cells (groups, strata, pairs)
+
+
+@dataclass(frozen=True)
+class Layout:
+    """Observations laid out cell by cell (see the draw contract)."""
+
+    groups: tuple[np.ndarray, ...]  # each group's observations in cell order (observation axis first)
+    bounds: tuple[tuple[int, int], ...]  # [start, stop) of each group among the N positions
+    cell_start: np.ndarray  # (N,) group-local position of the first observation of j's cell
+    cell_size: np.ndarray  # (N,) float, size of j's cell
+    cells: tuple[tuple[int, np.ndarray], ...]  # (group, original indices) of every cell
+
+
+def layout(data: tuple[np.ndarray, ...], strata: tuple[np.ndarray, ...] | None) -> Layout:
+    groups, bounds, starts, sizes, cells = [], [], [], [], []
+    offset = 0
+    for g, a in enumerate(data):
+        n = a.shape[0]
+        codes = np.zeros(n, dtype=np.int64) if strata is None else strata[g]
+        order = np.argsort(codes, kind="stable")
+        _, first, counts = np.unique(codes[order], return_index=True, return_counts=True)
+        groups.append(a[order])
+        bounds.append((offset, offset + n))
+        starts.append(np.repeat(first, counts))
+        sizes.append(np.repeat(counts, counts).astype(np.float64))
+        cells.extend((g, order[f:f + c]) for f, c in zip(first, counts))
+        offset += n
+    return Layout(tuple(groups), tuple(bounds), np.concatenate(starts).astype(np.int64),
+                  np.concatenate(sizes), tuple(cells))
+
+
+def _rows_per_batch(batch_elements: int, width: int) -> int:
+    return max(1, batch_elements // max(1, width))
+
+
+INNER_LABEL = 2 ** 40  # child label of the nested bootstrap's stream (beyond any draw-block index)
+
+
+def _nested_se(lay: Layout, statistic: Statistic, gathered: list[np.ndarray], reader: UniformRows,
+               inner_resamples: int) -> np.ndarray:
+    """Bootstrap SE of each outer resample from ``inner_resamples`` inner resamples of it.
+
+    Inner resample j of outer resample r is row r·M + j of the inner stream; it is drawn from the
+    outer resample's positions by the same cells contract (so strata and pairs are respected).
+    """
+    rows = gathered[0].shape[0]
+    u = reader.take(rows * inner_resamples).reshape(rows, inner_resamples, -1)
+    index = lay.cell_start + (u * lay.cell_size).astype(np.int64)  # (rows, M, N)
+    inner = []
+    for g, (a, (start, stop)) in enumerate(zip(gathered, lay.bounds)):
+        local = index[:, :, start:stop]
+        rows_axis = np.arange(rows)[:, None, None]
+        if a.ndim == 2:
+            inner.append(a[rows_axis, local])  # (rows, M, n)
+        else:
+            inner.append(np.moveaxis(a[rows_axis, :, local], -1, -2))  # (rows, M, k, n)
+    theta = statistic.compute(*inner)  # (rows, M)
+    return np.std(theta, axis=-1, ddof=1)
+
+
+class _OrderFastPath:
+    """Median and quantile statistics over the once-sorted data (DESIGN §7).
+
+    Each group is sorted once; a resample's draws become integer ranks, and the order statistics a
+    location needs are found by partitioning those ranks (no per-resample float gather or sort).
+    The value is then formed with numpy's own formulas (median: mean of the two middle values;
+    linear quantile: numpy's lerp with γ = (n − 1)q − floor((n − 1)q)), so the replicates are
+    identical to the plain computation (tested).
+    """
+
+    def __init__(self, statistic: Statistic, groups: tuple[np.ndarray, ...]):
+        self.statistic = statistic
+        self.sorted = []
+        self.rank = []
+        for a in groups:
+            order = np.argsort(a, kind="stable")
+            rank = np.empty(a.shape[0], dtype=np.int32 if a.shape[0] < 2 ** 31 else np.int64)
+            rank[order] = np.arange(a.shape[0])
+            self.sorted.append(a[order])
+            self.rank.append(rank)
+
+    @staticmethod
+    def applies(statistic: Statistic, inner: str | None) -> bool:
+        return inner is None and statistic.columns == 1 and statistic.form in ("median", "quantile")
+
+    def _location(self, g: int, index: np.ndarray) -> np.ndarray:
+        s = self.sorted[g]
+        n = index.shape[1]
+        ranks = self.rank[g][index]
+        if self.statistic.form == "median":
+            k = n // 2
+            if n % 2:
+                return s[np.partition(ranks, k, axis=1)[:, k]]
+            part = np.partition(ranks, [k - 1, k], axis=1)
+            return (s[part[:, k - 1]] + s[part[:, k]]) / 2.0
+        q = self.statistic.value
+        assert q is not None
+        virtual = (n - 1) * np.float64(q)
+        j = int(np.floor(virtual))
+        gamma = virtual - j
+        if j + 1 >= n:
+            return s[np.partition(ranks, n - 1, axis=1)[:, n - 1]]
+        part = np.partition(ranks, [j, j + 1], axis=1)
+        low, high = s[part[:, j]], s[part[:, j + 1]]
+        # numpy's _lerp: a + (b − a)γ, or b − (b − a)(1 − γ) when γ ≥ 0.5
+        diff = high - low
+        return high - diff * (1 - gamma) if gamma >= 0.5 else low + diff * gamma
+
+    def compute(self, index_by_group: list[np.ndarray]) -> np.ndarray:
+        values = [self._location(g, idx) for g, idx in enumerate(index_by_group)]
+        return values[0] if len(values) == 1 else values[0] - values[1]
+
+
+def draw_cells(lay: Layout, statistic: Statistic, resamples: int, stream: Stream, batch_elements: int,
+               inner: str | None, inner_resamples: int = 0, *, fast: bool = True) -> tuple[np.ndarray, np.ndarray | None]:
+    """Run the cells draw contract; the B replicates (and inner SEs) in resample order.
+
+    ``fast``: medians and quantiles over the once-sorted data (identical numbers; see _OrderFastPath).
+    """
+    order_path = _OrderFastPath(statistic, lay.groups) if fast and _OrderFastPath.applies(statistic, inner) else None
+    width = int(lay.cell_start.shape[0])
+    n_max = max(b - a for a, b in lay.bounds)
+    factor = inner_resamples if inner == "bootstrap" else _inner_factor(inner, n_max)
+    rows_per_batch = _rows_per_batch(batch_elements, width * statistic.columns * factor)
+    reader = UniformRows(stream, width)
+    nested = UniformRows(stream.child(INNER_LABEL), width) if inner == "bootstrap" else None
+    out = np.empty(resamples, dtype=np.float64)
+    se = np.empty(resamples, dtype=np.float64) if inner else None
+    done = 0
+    while done < resamples:
+        rows = min(rows_per_batch, resamples - done)
+        u = reader.take(rows)
+        # truncation is floor here because u * size >= 0
+        index = lay.cell_start + (u * lay.cell_size).astype(np.int64)
+        if order_path is not None:
+            out[done:done + rows] = order_path.compute([index[:, a:b] for a, b in lay.bounds])
+            done += rows
+            continue
+        gathered = [take_observations(group, index[:, start:stop])
+                    for group, (start, stop) in zip(lay.groups, lay.bounds)]
+        # undefined values are detected and reported by the caller, not printed by numpy
+        with np.errstate(invalid="ignore", divide="ignore"):
+            if nested is not None:
+                theta, s = statistic.compute(*gathered), _nested_se(lay, statistic, gathered, nested,
+                                                                     inner_resamples)
+            else:
+                theta, s = evaluate(statistic, gathered, inner)
+        out[done:done + rows] = theta
+        if se is not None and s is not None:
+            se[done:done + rows] = s
+        done += rows
+    return out, se
+
+
+# ------------------------------------------------------------------ clusters
+
+
+@dataclass(frozen=True)
+class ClusterLayout:
+    slot_group: np.ndarray  # (C,) group of each cluster slot
+    cell_start: np.ndarray  # (C,) global index of the first cluster of the slot's cell
+    cell_size: np.ndarray  # (C,) float, clusters in the slot's cell
+    members: tuple[np.ndarray, ...]  # rows (group-local) of each cluster, in cluster order
+    codes: np.ndarray  # (C,) cluster code of each cluster
+    cells: tuple[tuple[int, tuple[int, ...]], ...]  # (group, cluster numbers) of every cell
+
+
+def cluster_layout(data: tuple[np.ndarray, ...], clusters: tuple[np.ndarray, ...],
+                   strata: tuple[np.ndarray, ...] | None) -> ClusterLayout:
+    slot_group, starts, sizes, members, cells, codes = [], [], [], [], [], []
+    for g, a in enumerate(data):
+        c = clusters[g]
+        s = np.zeros(a.shape[0], dtype=np.int64) if strata is None else strata[g]
+        ids = np.unique(c)
+        stratum_of = {}
+        for k in ids:
+            rows = np.flatnonzero(c == k)
+            values = np.unique(s[rows])
+            if values.size != 1:
+                raise EngineError(f"cluster {int(k)} of group {g + 1} spans several strata",
+                                  hint="a cluster must lie inside one stratum; check the strata and clusters columns")
+            stratum_of[int(k)] = int(values[0])
+        for stratum in sorted(set(stratum_of.values())):
+            chosen = [k for k in ids if stratum_of[int(k)] == stratum]
+            first = len(members)
+            numbers = tuple(range(first, first + len(chosen)))
+            for k in chosen:
+                members.append(np.flatnonzero(c == k))
+                codes.append(int(k))
+                slot_group.append(g)
+                starts.append(first)
+                sizes.append(float(len(chosen)))
+            cells.append((g, numbers))
+    return ClusterLayout(np.array(slot_group, dtype=np.int64), np.array(starts, dtype=np.int64),
+                         np.array(sizes, dtype=np.float64), tuple(members), np.array(codes, dtype=np.int64),
+                         tuple(cells))
+
+
+def draw_clusters(data: tuple[np.ndarray, ...], lay: ClusterLayout, statistic: Statistic, resamples: int,
+                  stream: Stream, batch_elements: int, *, fast: bool = True) -> np.ndarray:
+    """Run the clusters draw contract. ``fast``: mean-form statistics from cluster sums and sizes."""
+    width = int(lay.cell_start.shape[0])
+    reader = UniformRows(stream, width)
+    out = np.empty(resamples, dtype=np.float64)
+    use_sums = fast and statistic.form == "mean" and statistic.columns == 1
+    if use_sums:
+        sums = np.array([float(np.sum(data[lay.slot_group[k]][rows])) for k, rows in enumerate(lay.members)])
+        sizes = np.array([float(rows.shape[0]) for rows in lay.members])
+    # equal cluster sizes within every group: each resample has a fixed length, so the gather is
+    # one array operation (rows in the same order as the slot-by-slot loop, hence the same numbers)
+    slots = [np.flatnonzero(lay.slot_group == g) for g in range(len(data))]
+    equal = fast and all(len({lay.members[k].shape[0] for k in group}) == 1 for group in slots)
+    stacked = [np.stack([lay.members[k] for k in group]) for group in slots] if equal else []
+    total_rows = sum(a.shape[0] for a in data)
+    rows_per_batch = _rows_per_batch(batch_elements, max(width, total_rows * statistic.columns))
+    done = 0
+    while done < resamples:
+        rows = min(rows_per_batch, resamples - done)
+        chosen = lay.cell_start + (reader.take(rows) * lay.cell_size).astype(np.int64)  # (rows, C)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            if equal and not use_sums:
+                gathered = []
+                for g, a in enumerate(data):
+                    local = chosen[:, slots[g]] - slots[g][0]  # cluster numbers within group g
+                    gathered.append(take_observations(a, stacked[g][local].reshape(rows, -1)))
+                out[done:done + rows] = statistic.compute(*gathered)
+            elif use_sums:
+                means = [np.sum(sums[chosen[:, lay.slot_group == g]], axis=1)
+                         / np.sum(sizes[chosen[:, lay.slot_group == g]], axis=1) for g in range(len(data))]
+                out[done:done + rows] = means[0] if len(data) == 1 else means[0] - means[1]
+            else:
+                for r in range(rows):
+                    gathered = []
+                    for g, a in enumerate(data):
+                        picked = chosen[r, lay.slot_group == g]
+                        index = np.concatenate([lay.members[k] for k in picked])
+                        gathered.append(take_observations(a, index[None, :]))
+                    out[done + r] = statistic.compute(*gathered)[0]
+        done += rows
+    return out
+
+
+# ------------------------------------------------------------------ blocks (time order)
+
+
+def _block_index(u: np.ndarray, n: int, length: int, scheme: str) -> np.ndarray:
+    rows = u.shape[0]
+    if scheme == "stationary":
+        new = u[:, :n] < 1.0 / length
+        new[:, 0] = True
+        starts = (u[:, n:] * n).astype(np.int64)
+        positions = np.arange(n)
+        last = np.maximum.accumulate(np.where(new, positions, 0), axis=1)
+        return (np.take_along_axis(starts, last, axis=1) + positions - last) % n
+    starts = (u * ((n - length + 1) if scheme == "moving" else n)).astype(np.int64)  # (rows, k)
+    index = (starts[:, :, None] + np.arange(length)).reshape(rows, -1)[:, :n]
+    return index % n if scheme == "circular" else index
+
+
+def block_width(n: int, length: int, scheme: str) -> int:
+    return 2 * n if scheme == "stationary" else math.ceil(n / length)
+
+
+def draw_blocks(data: tuple[np.ndarray, ...], statistic: Statistic, resamples: int, stream: Stream,
+                batch_elements: int, *, scheme: str, length: int) -> np.ndarray:
+    """Run the blocks draw contract (each group separately, in its time order)."""
+    for g, a in enumerate(data):
+        if scheme == "moving" and length > a.shape[0]:
+            raise EngineError(f"the block length {length} exceeds the {a.shape[0]} observations of group {g + 1}",
+                              hint="use a shorter block, or the circular or stationary scheme")
+    widths = [block_width(a.shape[0], length, scheme) for a in data]
+    edges = np.concatenate([[0], np.cumsum(widths)])
+    reader = UniformRows(stream, int(edges[-1]))
+    out = np.empty(resamples, dtype=np.float64)
+    rows_per_batch = _rows_per_batch(batch_elements, sum(a.shape[0] for a in data) * statistic.columns)
+    done = 0
+    while done < resamples:
+        rows = min(rows_per_batch, resamples - done)
+        u = reader.take(rows)
+        gathered = [take_observations(a, _block_index(u[:, edges[g]:edges[g + 1]], a.shape[0], length, scheme))
+                    for g, a in enumerate(data)]
+        with np.errstate(invalid="ignore", divide="ignore"):
+            out[done:done + rows] = statistic.compute(*gathered)
+        done += rows
+    return out
+
+
+# ------------------------------------------------------------------ parametric
+
+
+def fit_model(x: np.ndarray, model: str, trials: int | None, group: int) -> dict[str, float]:
+    """Maximum-likelihood fit of one group: normal (mean, sd with divisor n), exponential (mean),
+    Poisson (rate), binomial (p = mean / trials, trials known)."""
+    where = f"group {group + 1}"
+    if x.ndim == 2:
+        if model != "normal":
+            raise EngineError(f"the {model} model describes one column; two columns need the normal model")
+        covariance = np.cov(x.T, bias=True)  # maximum likelihood: divisor n
+        try:
+            np.linalg.cholesky(covariance)
+        except np.linalg.LinAlgError:
+            raise EngineError(f"{where}: the two columns are collinear, so no bivariate normal can be fitted") from None
+        return {"mean": [float(v) for v in x.mean(axis=0)], "covariance": covariance.tolist()}
+    if model == "normal":
+        return {"mean": float(np.mean(x)), "sd": float(np.std(x))}
+    if model in ("poisson", "binomial") and not np.all(x == np.round(x)):
+        raise EngineError(f"{where} has non-integer values; the {model} model needs counts")
+    if np.any(x < 0):
+        raise EngineError(f"{where} has negative values; the {model} model needs values >= 0")
+    if model == "exponential":
+        if np.mean(x) <= 0:
+            raise EngineError(f"{where} has mean 0; the exponential model cannot be fitted")
+        return {"mean": float(np.mean(x))}
+    if model == "poisson":
+        return {"rate": float(np.mean(x))}
+    assert trials is not None
+    if np.any(x > trials):
+        raise EngineError(f"{where} has counts above trials = {trials}")
+    return {"p": float(np.mean(x)) / trials, "trials": float(trials)}
+
+
+def _inverse_cdf(u: np.ndarray, model: str, fit: dict[str, float]) -> np.ndarray:
+    if model == "normal":
+        return fit["mean"] + fit["sd"] * _dist.norm.ppf(u)
+    if model == "exponential":
+        return -fit["mean"] * np.log1p(-u)
+    if model == "poisson":
+        return _dist.poisson.ppf(u, fit["rate"])
+    return _dist.binom.ppf(u, int(fit["trials"]), fit["p"])
+
+
+def draw_parametric(data: tuple[np.ndarray, ...], statistic: Statistic, resamples: int, stream: Stream,
+                    batch_elements: int, *, model: str, fits: Sequence[dict[str, float]],
+                    inner: str | None) -> tuple[np.ndarray, np.ndarray | None]:
+    """Run the parametric draw contract: each group drawn from its fitted model."""
+    sizes = [a.shape[0] * (1 if a.ndim == 1 else a.shape[1]) for a in data]
+    edges = np.concatenate([[0], np.cumsum(sizes)])
+    reader = UniformRows(stream, int(edges[-1]))
+    out = np.empty(resamples, dtype=np.float64)
+    se = np.empty(resamples, dtype=np.float64) if inner else None
+    rows_per_batch = _rows_per_batch(batch_elements, int(edges[-1]) * _inner_factor(inner, max(sizes)))
+    done = 0
+    while done < resamples:
+        rows = min(rows_per_batch, resamples - done)
+        u = reader.take(rows) * (1.0 - _OPEN) + _OPEN / 2
+        gathered = []
+        for g, a in enumerate(data):
+            block = u[:, edges[g]:edges[g + 1]]
+            if a.ndim == 1:
+                gathered.append(np.ascontiguousarray(_inverse_cdf(block, model, fits[g])))
+            else:
+                # bivariate normal: z = Φ⁻¹(u) read as (columns, n), rows μ + L z (L: Cholesky factor)
+                z = _dist.norm.ppf(block).reshape(rows, a.shape[1], a.shape[0])
+                factor = np.linalg.cholesky(np.array(fits[g]["covariance"]))
+                mean = np.array(fits[g]["mean"])[:, None]
+                gathered.append(np.ascontiguousarray(mean + np.einsum("ij,rjn->rin", factor, z)))
+        with np.errstate(invalid="ignore", divide="ignore"):
+            theta, s = evaluate(statistic, gathered, inner)
+        out[done:done + rows] = theta
+        if se is not None and s is not None:
+            se[done:done + rows] = s
+        done += rows
+    return out, se
+
+
+# ------------------------------------------------------------------ exhaustive
+
+
+def count_multisets(n: int) -> int:
+    """Distinct resamples of n observations: C(2n − 1, n) (REFERENCES §4 identity 10)."""
+    return math.comb(2 * n - 1, n)
+
+
+def _multisets(n: int) -> tuple[np.ndarray, np.ndarray]:
+    """All multisets of size n from n observations (sorted index rows) and their log-probabilities."""
+    index = np.array(list(itertools.combinations_with_replacement(range(n), n)), dtype=np.int64)
+    counts = np.zeros((index.shape[0], n), dtype=np.int64)
+    np.add.at(counts, (np.repeat(np.arange(index.shape[0]), n), index.ravel()), 1)
+    log_p = gammaln(n + 1) - gammaln(counts + 1).sum(axis=1) - n * math.log(n)
+    return index, log_p
+
+
+def enumerate_cells(lay: Layout, statistic: Statistic, batch_elements: int,
+                    inner: str | None) -> tuple[np.ndarray, np.ndarray, np.ndarray | None]:
+    """Every distinct resample once: (replicates, probabilities, inner SEs)."""
+    sizes = [int(members.shape[0]) for _, members in lay.cells]
+    total = math.prod(count_multisets(k) for k in sizes)
+    if total > EXHAUSTIVE_LIMIT:
+        raise EngineError(f"exhaustive enumeration needs {total} distinct resamples, more than the limit "
+                          f"{EXHAUSTIVE_LIMIT}", hint="remove exhaustive: true and draw resamples instead")
+    tables = [_multisets(k) for k in sizes]
+    shape = tuple(t[0].shape[0] for t in tables)
+    width = int(lay.cell_start.shape[0])
+    # positions of each cell among the N laid-out positions (cells are consecutive)
+    starts = np.concatenate([[0], np.cumsum(sizes)])
+    n_max = max(b - a for a, b in lay.bounds)
+    step = _rows_per_batch(batch_elements, width * statistic.columns * _inner_factor(inner, n_max))
+    values = np.empty(total, dtype=np.float64)
+    log_p = np.zeros(total, dtype=np.float64)
+    se = np.empty(total, dtype=np.float64) if inner else None
+    for begin in range(0, total, step):
+        flat = np.arange(begin, min(total, begin + step))
+        which = np.unravel_index(flat, shape)
+        index = np.empty((flat.size, width), dtype=np.int64)
+        for c, (idx, lp) in enumerate(tables):
+            cell_first = lay.cell_start[starts[c]]
+            index[:, starts[c]:starts[c + 1]] = cell_first + idx[which[c]]
+            log_p[flat] += lp[which[c]]
+        gathered = [take_observations(group, index[:, a:b]) for group, (a, b) in zip(lay.groups, lay.bounds)]
+        with np.errstate(invalid="ignore", divide="ignore"):
+            theta, s = evaluate(statistic, gathered, inner)
+        values[flat] = theta
+        if se is not None and s is not None:
+            se[flat] = s
+    return values, np.exp(log_p), se
+
+
+CellDraw = Callable[..., np.ndarray]
