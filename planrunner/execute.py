@@ -8,7 +8,7 @@ from typing import Any
 from .compile import Job
 from .engines.bootstrap import bootstrap
 from .engines.jackknife import jackknife
-from .engines.permutation import permutation_test
+from .permrun import run_permutation
 
 
 def execute(job: Job) -> Any:
@@ -18,9 +18,7 @@ def execute(job: Job) -> Any:
         return bootstrap(job.samples, job.statistic, resamples=o["resamples"], confidence=o["confidence"],
                          intervals=o["intervals"], stream=job.stream, strata=job.strata)
     if job.method == "permutation":
-        return permutation_test(job.samples, job.statistic, resamples=o["resamples"],
-                                alternative=o["alternative"], stream=job.stream, strata=job.strata,
-                                exact=o["exact"])
+        return run_permutation(job)
     if job.method == "jackknife":
         return jackknife(job.samples, job.statistic)
     raise ValueError(f"no engine for method {job.method!r}")  # the schema makes this unreachable
