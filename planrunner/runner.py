@@ -20,6 +20,7 @@ from . import report
 from .compile import Job, compile_jobs
 from .execute import execute_all
 from .io import Table, read_table
+from .multiplicity import max_t_families
 from .plancheck import LoadedPlan, read_plan
 from .record import build_record, to_json
 
@@ -75,11 +76,12 @@ def run_plan(path: str | Path, *, out: str | Path | None = None, operator: str |
     loaded, tables, jobs = checked.loaded, checked.tables, checked.jobs
     assert tables is not None and jobs is not None
     results = execute_all(jobs)
+    max_t = max_t_families(loaded.plan, jobs)
     finished = clock()
     run_id = _run_id(loaded, tables, started)
     record = build_record(loaded, tables, jobs, results, run_id=run_id, started_utc=_stamp(started),
                           finished_utc=_stamp(finished), operator=operator or default_operator(),
-                          command=command or ["planrunner", "run", str(path)])
+                          command=command or ["planrunner", "run", str(path)], max_t=max_t)
     out_root = Path(out) if out is not None else loaded.folder / "runs"
     folder = write_run(out_root, f"{loaded.plan.plan}-{started.strftime('%Y%m%dT%H%M%SZ')}-{run_id[:8]}", record)
     return RunOutcome(folder, record)
