@@ -161,9 +161,9 @@ def _evaluate(statistic: Statistic, x: np.ndarray, y: np.ndarray, d: np.ndarray,
             if statistic.name == "signed_rank":
                 # T+ = Σ r_i over pairs whose swapped difference is positive
                 positive = np.where(swaps, d < 0, d > 0)
-                return positive.astype(np.float64) @ scores
-            signs = np.where(swaps, -1.0, 1.0)
-            return signs @ d / d.size
+                # row-wise sums (not a BLAS product) so a batch of any size gives identical bits
+                return np.where(positive, scores, 0.0).sum(axis=1)
+            return np.where(swaps, -d, d).sum(axis=1) / d.size
         xs = np.where(swaps, y, x)
         ys = np.where(swaps, x, y)
         return statistic.compute(xs, ys)
