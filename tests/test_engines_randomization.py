@@ -307,3 +307,23 @@ def test_exact_always_error_names_the_count_for_sign_flips():
     with pytest.raises(EngineError, match="1,073,741,824 sign patterns"):  # 2^30
         signflip_test(d, np.zeros(30), get_statistic("median_difference"), resamples=99, alternative="greater",
                       stream=stream(), exact="always")
+
+
+def test_stratified_two_by_two_tables_exact_conditional_test():
+    """risk_difference within strata: the DP null of the first group's total count equals enumeration."""
+    x = np.array([1.0, 0, 1, 1, 0, 1, 1, 0])
+    y = np.array([0.0, 0, 1, 0, 0, 1, 0, 1, 0])
+    sx, sy = np.array([0, 0, 0, 1, 1, 2, 2, 2]), np.array([0, 0, 1, 1, 1, 2, 2, 2, 2])
+    kw = dict(alternative="greater", stream=stream(), strata=[sx, sy])
+    dp = permutation_test([x, y], get_statistic("risk_difference"), resamples=10, **kw)
+    listed = permutation_test([x, y], get_statistic("risk_difference"), resamples=10**6, **kw)
+    assert dp.computation == "dynamic programming" and listed.computation == "enumeration"
+    assert dp.p_value == pytest.approx(listed.p_value, rel=1e-12)
+    # the conditional test by definition: P(Σ_h a_h ≥ observed) under independent hypergeometrics
+    dist = np.array([1.0])
+    for h in range(3):
+        n1, n2 = int(np.sum(sx == h)), int(np.sum(sy == h))
+        ones = int(x[sx == h].sum() + y[sy == h].sum())
+        pmf = stats.hypergeom(n1 + n2, ones, n1).pmf(np.arange(n1 + 1))  # scipy reference
+        dist = np.convolve(dist, pmf)
+    assert dp.p_value == pytest.approx(dist[int(x.sum()):].sum(), rel=1e-12)
