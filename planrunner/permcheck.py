@@ -16,6 +16,16 @@ from .engines.teststats import K_GROUP, PAIRED_ONLY
 SHIFT_STATISTICS = ("mean_difference", "median_difference", "rank_sum", "t_pooled", "t_welch")
 
 
+def statistic_checks(at: tuple, a: Any) -> list:
+    """Rules of the test statistics that hold for every method."""
+    from .plancheck import Problem  # plancheck imports this module
+
+    if a.statistic in PAIRED_ONLY and a.pairs is None:
+        return [Problem(at + ("statistic",), f"'{a.statistic}' is a statistic of pairs but the analysis "
+                        "declares no pairs", "add pairs: COLUMN (the column naming each pair)")]
+    return []
+
+
 def permutation_checks(at: tuple, a: Any, statistic: Statistic) -> list:
     from .plancheck import Problem  # plancheck imports this module
 
@@ -25,9 +35,6 @@ def permutation_checks(at: tuple, a: Any, statistic: Statistic) -> list:
                            "compares groups, pairs, or a predictor with the outcome",
                            "use a two-group statistic such as mean_difference (with pairs: for a paired "
                            "design), or a two-column statistic such as correlation"))
-    if a.statistic in PAIRED_ONLY and a.pairs is None:
-        out.append(Problem(at + ("statistic",), f"'{a.statistic}' is a statistic of pairs but the analysis "
-                           "declares no pairs", "add pairs: COLUMN (the column naming each pair)"))
     if a.pairs is not None:
         if a.strata is not None or a.clusters is not None:
             out.append(Problem(at + ("pairs",), "pairs cannot be combined with strata or clusters",

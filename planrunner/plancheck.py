@@ -355,6 +355,7 @@ def _check_analysis(at: Path_, a: Any, plan: Plan) -> list[Problem]:
         if statistic.samples == 0 and a.groups is None:
             out.append(Problem(at + ("statistic",), f"'{a.statistic}' compares two or more groups but the analysis "
                                "has no groups", "add groups: {by: COLUMN, compare: [FIRST, SECOND, ...]}"))
+        out += permcheck.statistic_checks(at, a)
         if a.method == "permutation":
             out += permcheck.permutation_checks(at, a, statistic)
     return out

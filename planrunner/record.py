@@ -21,7 +21,7 @@ from . import __version__
 from .compile import Job
 from .engines.streams import DRAW_BLOCK, GENERATOR
 from .io import Table
-from .multiplicity import METHOD_NAMES, adjust
+from .multiplicity import METHOD_NAMES, adjust, max_t_families
 from .permrecord import family_floor_warnings, permutation_fields
 from .plancheck import LoadedPlan
 
@@ -201,6 +201,8 @@ def build_record(loaded: LoadedPlan, tables: dict[str, Table], jobs: list[Job], 
                  max_t: dict[int, Any] | None = None) -> dict:
     plan = loaded.plan
     analyses = [analysis_entry(loaded, a, j, r) for a, j, r in zip(plan.analyses, jobs, results)]
+    if max_t is None and any(f.method == "max-t" for f in plan.multiplicity):
+        max_t = max_t_families(plan, jobs)
     record = {
         "format": FORMAT,
         "run_id": run_id,

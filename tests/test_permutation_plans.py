@@ -526,3 +526,48 @@ def _u_null(m: int, n: int) -> np.ndarray:
         rest = set(range(m + n)) - set(chosen)
         counts[sum(1 for a in chosen for b in rest if a > b)] += 1
     return counts / counts.sum()
+
+
+# ------------------------------------------------------------------ max-T end to end
+
+TWO_OUTCOMES = "      g: {type: category}\n      y: {type: number}\n      w: {type: number}"
+
+
+def two_outcome_csv() -> str:
+    # y: the mouse survival data (E&T Table 2.1); w: an invented second endpoint on the same animals
+    w = [3.1, 5.2, 0.4, 1.9, 3.3, 4.8, 0.9, 2.0, 3.9, 4.1, 0.3, 1.7, 1.2, 1.6, 0.8, 1.5]
+    rows = [("a", v) for v in TREATMENT] + [("b", v) for v in CONTROL]
+    return "g,y,w\n" + "".join(f"{g},{v},{x}\n" for (g, v), x in zip(rows, w))
+
+
+def endpoint(aid: str, outcome: str, statistic: str, alternative: str) -> str:
+    return f"""
+  - id: {aid}
+    data: d
+    outcome: {outcome}
+    groups: {{by: g, compare: [a, b]}}
+    statistic: {statistic}
+    method: permutation
+    alternative: {alternative}
+    resamples: 20000
+"""
+
+
+def test_max_t_family_end_to_end_and_order_free(write_plan, tmp_path):
+    first = endpoint("days", "y", "mean_difference", "greater") + endpoint("score", "w", "t_welch", "two-sided")
+    second = endpoint("extra", "w", "median_difference", "less") + endpoint("score", "w", "t_welch", "two-sided") \
+        + endpoint("days", "y", "mean_difference", "greater")
+    family = "multiplicity:\n  - family: [days, score]\n    method: max-t\n"
+    a, record_a = run(write_plan, tmp_path / "one", TWO_OUTCOMES, two_outcome_csv(), first, family)
+    b, record_b = run(write_plan, tmp_path / "two", TWO_OUTCOMES, two_outcome_csv(), second, family)
+    fam_a, fam_b = record_a["multiplicity"][0], record_b["multiplicity"][0]
+    assert fam_a["adjusted"] == fam_b["adjusted"]  # the family's stream and arrangements ignore plan order
+    details = fam_a["details"]
+    assert details["exact"] and details["arrangements"] == 11440  # all C(16, 7) splits, shared by both
+    # the endpoint alone on the same (all) arrangements: mean difference greater is PT-MOUSE's 1613/11440
+    assert details["unadjusted_same_permutations"][0] == pytest.approx(1613 / 11440, rel=1e-12)
+    for aid in ("days", "score"):
+        assert fam_a["adjusted"][aid] >= fam_a["unadjusted"][aid] - 1e-12
+        assert a[aid]["adjusted_p_values"] == [{"method": "max-t", "p_value": fam_a["adjusted"][aid]}]
+    report = (next((tmp_path / "one" / "out").iterdir()) / "report.md").read_text(encoding="utf-8")
+    assert "(unadjusted)" in report and "max-t" in report
