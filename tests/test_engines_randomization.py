@@ -174,6 +174,11 @@ def test_association_batch_invariance_and_streams():
     c = association_test(xy, get_statistic("spearman"), stream=stream("other"), **kw)
     assert np.array_equal(a.null, b.null) and not np.array_equal(a.null, c.null)
     assert a.p_value >= 1 / 1201  # identity 13
+    small = xy[:6]
+    listed = [association_test(small, get_statistic("kendall"), stream=stream("a"), resamples=1000,
+                               alternative="greater", batch_elements=b) for b in (13, 10**6)]
+    assert listed[0].exact and listed[0].resamples == 720  # identity 18: 6!
+    assert np.array_equal(listed[0].null, listed[1].null)
 
 
 # ------------------------------------------------------------------ property tests

@@ -571,3 +571,18 @@ def test_max_t_family_end_to_end_and_order_free(write_plan, tmp_path):
         assert a[aid]["adjusted_p_values"] == [{"method": "max-t", "p_value": fam_a["adjusted"][aid]}]
     report = (next((tmp_path / "one" / "out").iterdir()) / "report.md").read_text(encoding="utf-8")
     assert "(unadjusted)" in report and "max-t" in report
+
+
+def test_demo_ward_hygiene_plan_runs(tmp_path):
+    from pathlib import Path
+    plan = Path(__file__).resolve().parent.parent / "plans" / "ward-hygiene" / "plan.yaml"
+    record = run_plan(plan, out=tmp_path / "runs", clock=fixed_clock).record
+    by_id = {a["id"]: a for a in record["analyses"]}
+    assert by_id["primary"]["scheme"].startswith("cluster labels shuffled")
+    assert by_id["primary"]["details"]["arrangements"] == math.comb(12, 6)  # identity 18 over wards
+    assert by_id["within-ward-change"]["details"]["arrangements"] == 2 ** 6
+    assert by_id["staffing"]["scheme"].startswith("Freedman–Lane")
+    assert by_id["wear"]["intervals"][0]["method"] == "shift"
+    assert record["multiplicity"][0]["details"]["exact"]  # 12870 splits ≤ 20000 resamples
+    for a in record["analyses"]:
+        assert 0 < a["p_value"] <= 1

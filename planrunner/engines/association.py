@@ -31,9 +31,9 @@ from planrunner.errors import EngineError
 __all__ = ["association_test"]
 
 
-def _permutations(n: int, start: int, stop: int) -> np.ndarray:
-    rows = itertools.islice(itertools.permutations(range(n)), start, stop)
-    return np.array(list(rows), dtype=np.int64).reshape(stop - start, n)
+def _permutations(listing: itertools.permutations, n: int, rows: int) -> np.ndarray:
+    """The next ``rows`` pairings of the lexicographic listing."""
+    return np.array(list(itertools.islice(listing, rows)), dtype=np.int64).reshape(rows, n)
 
 
 def association_test(xy: np.ndarray, statistic: Statistic, *, resamples: int, alternative: str, stream: Stream,
@@ -88,9 +88,11 @@ def association_test(xy: np.ndarray, statistic: Statistic, *, resamples: int, al
     rows_per_batch = max(1, batch_elements // (2 * n))
     null = np.empty(total)
     reader = UniformRows(stream, n)
+    listing = itertools.permutations(range(n))
     for start in range(0, total, rows_per_batch):
         stop = min(total, start + rows_per_batch)
-        order = _permutations(n, start, stop) if is_exact else np.argsort(reader.take(stop - start), axis=1)
+        order = (_permutations(listing, n, stop - start) if is_exact
+                 else np.argsort(reader.take(stop - start), axis=1))
         with np.errstate(invalid="ignore", divide="ignore"):
             null[start:stop] = evaluate(order)
     if not np.all(np.isfinite(null)):

@@ -330,7 +330,7 @@ def _label_sequences(size: int, sizes: tuple[int, ...]) -> Iterator[np.ndarray]:
 def _enumerate_k(pooled: _Pooled, rows_per_batch: int) -> Iterator[tuple[np.ndarray, ...]]:
     """k groups: label sequences per stratum, combined by ``itertools.product``; positions of each
     group in increasing order (a stable argsort of the labels)."""
-    per_stratum = [np.array(list(_label_sequences(size, sizes))) + 0 for _, size, sizes in pooled.blocks]
+    per_stratum = [np.array(list(_label_sequences(size, sizes))) for _, size, sizes in pooled.blocks]
     totals = np.cumsum([0] + [s.size for s in pooled.slots])
     combos = itertools.product(*[range(p.shape[0]) for p in per_stratum])
     while True:
