@@ -332,3 +332,16 @@ def test_stratified_two_by_two_tables_exact_conditional_test():
         pmf = stats.hypergeom(n1 + n2, ones, n1).pmf(np.arange(n1 + 1))  # scipy reference
         dist = np.convolve(dist, pmf)
     assert dp.p_value == pytest.approx(dist[int(x.sum()):].sum(), rel=1e-12)
+
+
+def test_absolute_rule_centre_is_the_null_mean_with_unbalanced_strata():
+    x = np.array([1.0, 2, 2, 3, 5, 1, 4])
+    y = np.array([2.0, 2, 3, 3, 1, 0, 6, 2])
+    sx, sy = np.array([0, 0, 0, 0, 0, 1, 1]), np.array([0, 1, 1, 1, 1, 1, 1, 0])
+    for name in ("mean_difference", "rank_sum"):
+        result = permutation_test([x, y], get_statistic(name), resamples=10**5, alternative="two-sided",
+                                  two_sided="absolute", stream=stream(), strata=[sx, sy])
+        assert result.computation == "enumeration"
+        assert result.centre == pytest.approx(float(np.mean(result.null)), rel=1e-12, abs=1e-12)  # exact mean
+        far = np.abs(result.null - result.centre) >= abs(result.observed - result.centre) - result.tolerance
+        assert result.p_value == pytest.approx(far.mean(), rel=1e-12)

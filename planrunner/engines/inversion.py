@@ -21,11 +21,11 @@ from collections.abc import Callable
 
 import numpy as np
 
-from planrunner.engines.permutation import ENUMERATION_LIMIT, TIE_TOLERANCE, _enumerate, _evaluate, _pool, _random
+from planrunner.engines.permutation import (ENUMERATION_LIMIT, TIE_TOLERANCE, _enumerate, _evaluate, _pool, _random,
+                                            null_centre)
 from planrunner.engines.results import Interval
 from planrunner.engines.statistics import Statistic, check_samples
 from planrunner.engines.streams import Stream
-from planrunner.engines.teststats import NULL_CENTRES
 from planrunner.errors import EngineError
 
 __all__ = ["shift_interval"]
@@ -61,8 +61,7 @@ def shift_interval(x: np.ndarray, y: np.ndarray, statistic: Statistic, *, confid
     is_x = np.zeros(n1 + n2)
     is_x[pooled.slots[0]] = 1.0  # without strata the first n1 pooled positions hold x
     spread = float(np.ptp(np.concatenate([x, y]))) or 1.0
-    centre_of = NULL_CENTRES.get(statistic.name)
-    centre = centre_of(pooled.values, n1) if centre_of else 0.0
+    centre = null_centre(pooled, statistic)
 
     def observed(delta: float) -> float:
         return float(statistic.compute(x - delta, y))

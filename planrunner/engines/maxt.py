@@ -25,10 +25,10 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from planrunner.engines.permutation import TIE_TOLERANCE, _enumerate, _evaluate, _multinomial, _pool, _random
+from planrunner.engines.permutation import (TIE_TOLERANCE, _enumerate, _evaluate, _multinomial, _pool, _random,
+                                            null_centre)
 from planrunner.engines.statistics import Statistic, check_samples, check_strata, to_compute_layout
 from planrunner.engines.streams import Stream
-from planrunner.engines.teststats import NULL_CENTRES
 from planrunner.errors import EngineError
 
 __all__ = ["MaxTResult", "max_t"]
@@ -63,8 +63,7 @@ def max_t(endpoints: Sequence[tuple[Sequence[np.ndarray], Statistic, str]], *, s
         codes = check_strata(strata, data)
         pooled_all.append(_pool(data, codes))
         observed.append(float(statistic.compute(*[to_compute_layout(a) for a in data])))
-        centres.append(NULL_CENTRES[statistic.name](pooled_all[-1].values, data[0].shape[0])
-                       if statistic.name in NULL_CENTRES else 0.0)
+        centres.append(null_centre(pooled_all[-1], statistic))
     layout = pooled_all[0]
     for other in pooled_all[1:]:
         if other.blocks != layout.blocks:

@@ -57,7 +57,7 @@ from planrunner.engines.statistics import (
     to_compute_layout,
 )
 from planrunner.engines.streams import Stream, UniformRows
-from planrunner.engines.teststats import NULL_CENTRES, SUM_SCORES
+from planrunner.engines.teststats import SUM_SCORES
 
 __all__ = ["ALTERNATIVES", "ENUMERATION_LIMIT", "PermutationResult", "permutation_test"]
 
@@ -171,7 +171,7 @@ def permutation_test(samples: Sequence[np.ndarray], statistic: Statistic, *, res
 
     scale = max(float(np.max(np.abs(a))) for a in data)
     tolerance = TIE_TOLERANCE * max(abs(observed), scale)
-    centre = NULL_CENTRES[statistic.name](pooled.values, n[0]) if statistic.name in NULL_CENTRES else 0.0
+    centre = null_centre(pooled, statistic)
     pv = summarize(null, observed, exact=is_exact, alternative=alternative, two_sided=two_sided,
                    tolerance=tolerance, center=centre, weights=weights, alpha=alpha, arrangements=arrangements)
 
@@ -203,6 +203,23 @@ def permutation_test(samples: Sequence[np.ndarray], statistic: Statistic, *, res
         p_greater=pv.p_greater, p_less=pv.p_less, count_absolute=pv.count_absolute, centre=centre,
         monte_carlo_se=pv.monte_carlo_se, p_interval=pv.p_interval, smallest_p=pv.smallest_p,
         null_weights=None if weights is None else frozen_array(weights), computation=path)
+
+
+def null_centre(pooled: _Pooled, statistic: Statistic) -> float:
+    """Centre c of the null for the two-sided ``absolute`` rule.
+
+    For the sum statistics (differences of means or proportions, the rank sum) it is the exact null
+    mean, from E[S1] = Σ_h n1_h · (mean score of stratum h); for every other statistic it is 0 (a
+    stated convention: differences, t and correlations are centred at 0 without strata).
+    """
+    if statistic.name not in ("mean_difference", "risk_difference", "rank_sum") or len(pooled.slots) != 2:
+        return 0.0
+    scores = SUM_SCORES[statistic.name](pooled.values)
+    expected = sum(sizes[0] * float(scores[start:start + size].mean()) for start, size, sizes in pooled.blocks)
+    if statistic.name == "rank_sum":
+        return expected
+    n1, n2 = int(pooled.slots[0].size), int(pooled.slots[1].size)
+    return expected / n1 - (float(scores.sum()) - expected) / n2
 
 
 def _multinomial(sizes: tuple[int, ...]) -> int:

@@ -7,7 +7,7 @@ Conventions (REFERENCES §0.5, stated in every record):
 * Monte Carlo over m random arrangements: ``p = (b + 1) / (m + 1)``, never below ``1/(m + 1)``;
 * two-sided, rule ``doubled`` (the default, as scipy.stats.permutation_test):
   ``min(1, 2 min(p_greater, p_less))``; rule ``absolute``: ``|T* − c| ≥ |t − c|`` with c the centre of
-  the null (0 for differences and correlations; the null mean for rank sums);
+  the null given by the engine (the exact null mean of sum statistics; 0 for the others);
 * "at least as extreme" allows ``tolerance``, so values equal in exact arithmetic count as equal.
 
 For a Monte Carlo p-value the record also carries its standard error ``sqrt(p (1 − p) / m)`` and a

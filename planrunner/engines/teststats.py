@@ -13,7 +13,6 @@ of each pair; zero differences are dropped before ranking (Wilcoxon's convention
 ``SUM_SCORES`` names the two-group statistics that, for fixed pooled data, are increasing functions
 of the sum of the first group's scores (identity 15): the permutation engine may then count
 arrangements through that sum (the fast path; dynamic programming when the scores are integers).
-``NULL_CENTRES`` gives the centre of the permutation null used by the two-sided ``absolute`` rule.
 """
 
 from __future__ import annotations
@@ -25,7 +24,7 @@ from scipy import stats
 
 from planrunner.engines.statistics import Statistic, register
 
-__all__ = ["K_GROUP", "NULL_CENTRES", "PAIRED_ONLY", "SUM_SCORES", "rank_scores"]
+__all__ = ["K_GROUP", "PAIRED_ONLY", "SUM_SCORES", "rank_scores"]
 
 
 def _var(x: np.ndarray) -> np.ndarray:
@@ -160,9 +159,4 @@ SUM_SCORES: dict[str, Callable[[np.ndarray], np.ndarray]] = {
     "risk_difference": _identity,
     "t_pooled": _identity,
     "rank_sum": rank_scores,
-}
-
-# statistic → centre of its two-group permutation null, from (pooled values, size of group 1)
-NULL_CENTRES: dict[str, Callable[[np.ndarray, int], float]] = {
-    "rank_sum": lambda pooled, n1: n1 * (pooled.shape[0] + 1) / 2.0,
 }
