@@ -27,6 +27,13 @@ def _f(x: Any) -> Any:
     return float(x)
 
 
+def _count(x: Any) -> Any:
+    """A count as an int when it is one exactly (DP counts are floats, exact below 2**53)."""
+    if isinstance(x, float) and x.is_integer() and abs(x) < 2.0**53:
+        return int(x)
+    return _f(x)
+
+
 def weighted_distribution(kind: str, values: np.ndarray, weights: np.ndarray | None, bins: int) -> dict[str, Any]:
     """Size, moments, range, histogram and hash of a null given by values (and exact weights)."""
     values = np.asarray(values, dtype=float)
@@ -62,8 +69,8 @@ def permutation_fields(result: Any, bins: int) -> dict[str, Any]:
                         "p_value_interval": None if interval is None else
                         {"method": "Clopper–Pearson", "level": 0.99, "lower": interval[0], "upper": interval[1]}},
         "details": {
-            "observed": _f(result.observed), "count_greater_equal": _f(result.count_greater),
-            "count_less_equal": _f(result.count_less), "count_absolute": _f(result.count_absolute),
+            "observed": _f(result.observed), "count_greater_equal": _count(result.count_greater),
+            "count_less_equal": _count(result.count_less), "count_absolute": _count(result.count_absolute),
             "p_greater": _f(result.p_greater), "p_less": _f(result.p_less), "centre": _f(result.centre),
             "arrangements": int(result.arrangements), "computation": result.computation,
             "two_sided_rule": result.two_sided_rule, "tolerance": _f(result.tolerance),

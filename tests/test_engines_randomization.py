@@ -345,3 +345,29 @@ def test_absolute_rule_centre_is_the_null_mean_with_unbalanced_strata():
         assert result.centre == pytest.approx(float(np.mean(result.null)), rel=1e-12, abs=1e-12)  # exact mean
         far = np.abs(result.null - result.centre) >= abs(result.observed - result.centre) - result.tolerance
         assert result.p_value == pytest.approx(far.mean(), rel=1e-12)
+
+
+def test_k_groups_within_strata_by_brute_force():
+    a, b, c = np.array([1.0, 4.0, 2.5]), np.array([3.0, 0.5, 6.0]), np.array([2.0, 5.5])
+    ca, cb, cc = np.array([0, 1, 1]), np.array([0, 0, 1]), np.array([1, 0])
+    result = permutation_test([a, b, c], get_statistic("one_way_f"), resamples=10**5, alternative="greater",
+                              stream=stream(), strata=[ca, cb, cc])
+    values = np.concatenate([a, b, c])
+    labels = np.repeat([0, 1, 2], [3, 3, 2])
+    codes = np.concatenate([ca, cb, cc])
+    per_stratum = []
+    for h in (0, 1):  # every distinct relabelling within each stratum (identity 18)
+        members = np.flatnonzero(codes == h)
+        per_stratum.append((members, set(itertools.permutations(labels[members].tolist()))))
+    null = []
+    for choice in itertools.product(*[sorted(s) for _, s in per_stratum]):
+        lab = labels.copy()
+        for (members, _), seq in zip(per_stratum, choice):
+            lab[members] = seq
+        null.append(stats.f_oneway(*[values[lab == g] for g in range(3)]).statistic)  # scipy reference
+    null = np.array(null)
+    assert result.arrangements == null.size == 12 * 12  # identity 18: 4!/(1!2!1!) · 4!/(2!1!1!)
+    np.testing.assert_allclose(np.sort(result.null), np.sort(null), rtol=1e-10)
+    mc = permutation_test([a, b, c], get_statistic("one_way_f"), resamples=500, alternative="greater",
+                          stream=stream(), strata=[ca, cb, cc], exact="never")
+    assert np.all(np.min(np.abs(mc.null[:, None] - null[None, :]), axis=1) <= 1e-9)  # only allowed relabellings
