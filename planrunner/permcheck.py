@@ -64,6 +64,9 @@ def permutation_checks(at: tuple, a: Any, statistic: Statistic) -> list:
     if a.statistic in K_GROUP and a.alternative not in (None, "greater"):
         out.append(Problem(at + ("alternative",), f"'{a.statistic}' is large when groups differ; its test is "
                            "one-sided by construction", "remove alternative, or write alternative: greater"))
+    if a.statistic == "risk_ratio" and a.two_sided == "absolute":
+        out.append(Problem(at + ("two_sided",), "a ratio has no centre for the absolute two-sided rule",
+                           "use two_sided: doubled, or risk_difference"))
     if a.intervals is not None:
         if a.statistic not in SHIFT_STATISTICS or a.pairs is not None or a.clusters is not None or a.strata is not None:
             out.append(Problem(at + ("intervals",), "the shift interval inverts a two-group test of location "

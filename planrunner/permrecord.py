@@ -38,6 +38,8 @@ def weighted_distribution(kind: str, values: np.ndarray, weights: np.ndarray | N
     """Size, moments, range, histogram and hash of a null given by values (and exact weights)."""
     values = np.asarray(values, dtype=float)
     w = np.ones(values.size) if weights is None else np.asarray(weights, dtype=float)
+    infinite = float(w[~np.isfinite(values)].sum())  # e.g. a ratio over an empty denominator
+    w, values = w[np.isfinite(values)], values[np.isfinite(values)]
     total = float(w.sum())
     mean = float(np.sum(w * values) / total)
     var = float(np.sum(w * (values - mean) ** 2) / total)
@@ -48,11 +50,11 @@ def weighted_distribution(kind: str, values: np.ndarray, weights: np.ndarray | N
     digest = hashlib.sha256(np.ascontiguousarray(values, dtype="<f8").tobytes())
     if weights is not None:
         digest.update(np.ascontiguousarray(w, dtype="<f8").tobytes())
-    return {"kind": kind, "size": _f(total) if weights is not None else int(values.size),
+    return {"kind": kind, "size": _count(total + infinite) if weights is not None else int(values.size + infinite),
             "support_points": int(values.size), "mean": mean,
             "sd": math.sqrt(var * total / (total - 1)) if total > 1 else None,
             "min": float(values.min()), "max": float(values.max()), "sha256": digest.hexdigest(),
-            "weighted": weights is not None,
+            "weighted": weights is not None, "infinite": _count(infinite),
             "histogram": {"edges": [float(e) for e in edges],
                           "counts": [float(c) if weights is not None else int(c) for c in counts]}}
 

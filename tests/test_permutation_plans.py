@@ -287,6 +287,22 @@ def test_difference_in_proportions_equals_fisher(write_plan, tmp_path, table, al
         assert entry["details"]["computation"] == "dynamic programming"  # C(30, 12) arrangements
 
 
+@pytest.mark.parametrize("table, alternative", [([[3, 1], [1, 3]], "greater"), ([[2, 10], [15, 3]], "less")])
+def test_ratio_of_proportions_equals_fisher_one_sided(write_plan, tmp_path, table, alternative):
+    """The ratio increases with the first group's count, like the difference: the same exact p."""
+    body = (analysis("rr", "risk_ratio", more=f"    alternative: {alternative}\n    resamples: 50\n")
+            + analysis("rr-mc", "risk_ratio", more=f"    alternative: {alternative}\n    exact: never\n"
+                                                   "    resamples: 400\n"))
+    result, _ = run(write_plan, tmp_path, BINARY, binary_csv(table), body)
+    fisher = stats.fisher_exact(table, alternative=alternative).pvalue  # scipy reference (identity 17)
+    assert result["rr"]["exact"] and result["rr"]["p_value"] == pytest.approx(fisher, rel=1e-10)
+    (yes1, no1), (yes2, no2) = table
+    assert result["rr"]["estimate"] == pytest.approx((yes1 / (yes1 + no1)) / (yes2 / (yes2 + no2)))
+    assert 0 < result["rr-mc"]["p_value"] <= 1
+    if table == [[3, 1], [1, 3]]:  # the split with all four 1s in the first group gives +inf
+        assert result["rr"]["distribution"]["infinite"] == 1 and result["rr"]["distribution"]["size"] == 70
+
+
 def test_fisher_two_sided_convention_differs_and_is_stated(write_plan, tmp_path):
     """REFERENCES §0.7: Fisher's two-sided sums tables no more probable; ours doubles the smaller tail."""
     result, _ = run(write_plan, tmp_path, BINARY, binary_csv([[8, 2], [1, 5]]), analysis("rd", "risk_difference"))

@@ -57,7 +57,7 @@ from planrunner.engines.statistics import (
     to_compute_layout,
 )
 from planrunner.engines.streams import Stream, UniformRows
-from planrunner.engines.teststats import SUM_SCORES
+from planrunner.engines.teststats import INFINITE_ALLOWED, SUM_SCORES
 
 __all__ = ["ALTERNATIVES", "ENUMERATION_LIMIT", "PermutationResult", "permutation_test"]
 
@@ -163,14 +163,14 @@ def permutation_test(samples: Sequence[np.ndarray], statistic: Statistic, *, res
         batches = (_enumerate(pooled, rows_per_batch) if is_exact
                    else _random(pooled, stream, resamples, rows_per_batch))
         null = _evaluate(pooled, statistic, batches, arrangements if is_exact else resamples, fast=fast)
-    bad = ~np.isfinite(null)
+    bad = np.isnan(null) | ((null == np.inf) & (statistic.name not in INFINITE_ALLOWED)) | (null == -np.inf)
     if bad.any():
         raise EngineError(
             f"the statistic {statistic.name!r} is not finite for {int(bad.sum())} arrangement(s)",
             hint="the permutation test cannot be used with this statistic on these data")
 
     scale = max(float(np.max(np.abs(a))) for a in data)
-    tolerance = TIE_TOLERANCE * max(abs(observed), scale)
+    tolerance = TIE_TOLERANCE * max(abs(observed), scale)  # observed is finite (checked above)
     centre = null_centre(pooled, statistic)
     pv = summarize(null, observed, exact=is_exact, alternative=alternative, two_sided=two_sided,
                    tolerance=tolerance, center=centre, weights=weights, alpha=alpha, arrangements=arrangements)
@@ -263,6 +263,9 @@ def _dp_null(pooled: _Pooled, statistic: Statistic, plan: _DpPlan) -> tuple[np.n
     total = float(plan.scores.sum())
     if statistic.name == "rank_sum":
         values = sums
+    elif statistic.name == "risk_ratio":
+        with np.errstate(divide="ignore", invalid="ignore"):
+            values = (sums / n1) / ((total - sums) / n2)
     else:
         diff = sums / n1 - (total - sums) / n2
         if statistic.name == "t_pooled":

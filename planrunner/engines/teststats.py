@@ -57,6 +57,12 @@ def _risk_difference(x: np.ndarray, y: np.ndarray) -> np.ndarray:
     return x.mean(axis=-1) - y.mean(axis=-1)
 
 
+def _risk_ratio(x: np.ndarray, y: np.ndarray) -> np.ndarray:
+    """Ratio of proportions of 1s, first over second (+inf when the second has none)."""
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return x.mean(axis=-1) / y.mean(axis=-1)
+
+
 def _signed_rank(x: np.ndarray, y: np.ndarray) -> np.ndarray:
     """Wilcoxon signed-rank T+ of the pair differences x − y (pairs aligned on the last axis)."""
     return signed_rank_of_differences(x - y)
@@ -135,6 +141,7 @@ register(Statistic("signed_rank", "Wilcoxon signed rank T+ of the pair differenc
                    _signed_rank))
 register(Statistic("risk_difference", "difference in proportions", 2, True, "binary", _risk_difference,
                    form="mean"))
+register(Statistic("risk_ratio", "ratio of proportions", 2, False, "binary", _risk_ratio))
 register(Statistic("one_way_f", "one-way F", 0, True, "numeric", _one_way_f))
 register(Statistic("rank_h", "Kruskal–Wallis H (mid-ranks, no tie correction)", 0, False, "numeric", _rank_h))
 register(Statistic("spearman", "Spearman rank correlation", 1, False, "numeric", _spearman, columns=2))
@@ -142,7 +149,9 @@ register(Statistic("kendall", "Kendall tau-b", 1, False, "numeric", _kendall, co
 register(Statistic("slope", "least-squares slope", 1, True, "numeric", _slope, columns=2))
 
 PAIRED_ONLY = frozenset({"signed_rank"})  # meaningful only on pairs (needs `pairs:`)
-K_GROUP = frozenset({"one_way_f", "rank_h"})  # large values are evidence: tested one-sided ("greater")
+K_GROUP = frozenset({"one_way_f", "rank_h"})
+# may be +inf for some arrangements (a second group without 1s); ordered as the largest value
+INFINITE_ALLOWED = frozenset({"risk_ratio"})  # large values are evidence: tested one-sided ("greater")
 
 
 def rank_scores(pooled: np.ndarray) -> np.ndarray:
@@ -157,6 +166,7 @@ def _identity(pooled: np.ndarray) -> np.ndarray:
 SUM_SCORES: dict[str, Callable[[np.ndarray], np.ndarray]] = {
     "mean_difference": _identity,
     "risk_difference": _identity,
+    "risk_ratio": _identity,
     "t_pooled": _identity,
     "rank_sum": rank_scores,
 }
