@@ -371,3 +371,13 @@ def test_k_groups_within_strata_by_brute_force():
     mc = permutation_test([a, b, c], get_statistic("one_way_f"), resamples=500, alternative="greater",
                           stream=stream(), strata=[ca, cb, cc], exact="never")
     assert np.all(np.min(np.abs(mc.null[:, None] - null[None, :]), axis=1) <= 1e-9)  # only allowed relabellings
+
+
+def test_exact_always_beyond_enumeration_uses_the_dp_null():
+    x, y = np.arange(0.0, 30.0, 2.0), np.arange(1.0, 30.0, 2.0)  # distinct integers, C(30, 15) splits
+    result = permutation_test([x, y], get_statistic("mean_difference"), resamples=99, alternative="less",
+                              stream=stream(), exact="always")
+    assert result.computation == "dynamic programming" and result.arrangements == 155_117_520
+    # Δmean is increasing in the first group's sum, here in its rank sum: the exact Mann–Whitney test
+    ref = stats.mannwhitneyu(x, y, alternative="less", method="exact")  # scipy reference; identity 15
+    assert result.p_value == pytest.approx(ref.pvalue, rel=1e-9)
