@@ -381,3 +381,20 @@ def test_exact_always_beyond_enumeration_uses_the_dp_null():
     # Δmean is increasing in the first group's sum, here in its rank sum: the exact Mann–Whitney test
     ref = stats.mannwhitneyu(x, y, alternative="less", method="exact")  # scipy reference; identity 15
     assert result.p_value == pytest.approx(ref.pvalue, rel=1e-9)
+
+
+def test_kept_or_redrawn_arrangements_give_the_same_numbers(monkeypatch):
+    import planrunner.engines.inversion as inversion
+    import planrunner.engines.maxt as maxt
+    rng = np.random.default_rng(2)
+    x, y = rng.normal(size=20) + 0.5, rng.normal(size=18)
+    stat = get_statistic("mean_difference")
+    args = dict(confidence=0.95, resamples=1500, stream=stream("shift"))
+    endpoints = [([x, y], stat, "greater"), ([x ** 2, y ** 2], get_statistic("rank_sum"), "two-sided")]
+    kept = inversion.shift_interval(x, y, stat, **args), max_t(endpoints, strata=None, resamples=1500,
+                                                               stream=stream("mt"))
+    monkeypatch.setattr(inversion, "CACHE_ELEMENTS", 0)
+    monkeypatch.setattr(maxt, "CACHE_ELEMENTS", 0)
+    redrawn = inversion.shift_interval(x, y, stat, **args), max_t(endpoints, strata=None, resamples=1500,
+                                                                  stream=stream("mt"))
+    assert kept[0] == redrawn[0] and kept[1] == redrawn[1]

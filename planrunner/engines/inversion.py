@@ -17,7 +17,7 @@ difference of means, of medians, or the Hodges–Lehmann median of pairwise diff
 from __future__ import annotations
 
 import math
-from collections.abc import Callable
+from collections.abc import Callable, Iterator
 
 import numpy as np
 
@@ -31,6 +31,7 @@ from planrunner.errors import EngineError
 __all__ = ["shift_interval"]
 
 HALVINGS = 60
+CACHE_ELEMENTS = 5_000_000
 
 
 def _bisect(test: Callable[[float], bool], inside: float, outside: float) -> float:
@@ -56,7 +57,14 @@ def shift_interval(x: np.ndarray, y: np.ndarray, statistic: Statistic, *, confid
     limit = ENUMERATION_LIMIT if exact == "always" else resamples
     enumerate_all = exact != "never" and arrangements <= limit
     rows = max(1, 2_000_000 // (n1 + n2))
-    batches = list(_enumerate(pooled, rows) if enumerate_all else _random(pooled, stream, resamples, rows))
+    total = arrangements if enumerate_all else resamples
+
+    def fresh() -> Iterator[tuple[np.ndarray, ...]]:
+        return _enumerate(pooled, rows) if enumerate_all else _random(pooled, stream, resamples, rows)
+
+    # keep the arrangements in memory when small (tens of MB); otherwise draw them again for each δ,
+    # which gives the same arrangements because every draw comes from the stream's blocks
+    cached = list(fresh()) if total * (n1 + n2) <= CACHE_ELEMENTS else None
     adjust = 0 if enumerate_all else 1
     is_x = np.zeros(n1 + n2)
     is_x[pooled.slots[0]] = 1.0  # without strata the first n1 pooled positions hold x
@@ -69,7 +77,7 @@ def shift_interval(x: np.ndarray, y: np.ndarray, statistic: Statistic, *, confid
     def pvalues(delta: float) -> tuple[float, float]:
         shifted = pooled.values - delta * is_x
         moved = type(pooled)(shifted, pooled.stratum, pooled.slots, pooled.blocks)
-        null = _evaluate(moved, statistic, iter(batches), sum(b[0].shape[0] for b in batches), fast=False)
+        null = _evaluate(moved, statistic, iter(cached) if cached is not None else fresh(), total, fast=False)
         t = observed(delta)
         tol = TIE_TOLERANCE * max(abs(t), float(np.max(np.abs(shifted))))
         m = null.size

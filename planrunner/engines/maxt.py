@@ -33,6 +33,8 @@ from planrunner.errors import EngineError
 
 __all__ = ["MaxTResult", "max_t"]
 
+CACHE_ELEMENTS = 5_000_000
+
 
 @dataclass(frozen=True)
 class MaxTResult:
@@ -71,11 +73,16 @@ def max_t(endpoints: Sequence[tuple[Sequence[np.ndarray], Statistic, str]], *, s
     arrangements = math.prod(_multinomial(sizes) for _, _, sizes in layout.blocks)
     is_exact = exact != "never" and arrangements <= resamples
     rows = max(1, batch_elements // layout.values.shape[0])
-    batches = list(_enumerate(layout, rows) if is_exact else _random(layout, stream, resamples, rows))
-    total = sum(b[0].shape[0] for b in batches)
+    total = arrangements if is_exact else resamples
+    small = total * layout.values.shape[0] <= CACHE_ELEMENTS  # keep the arrangements only when small
+
+    def fresh():
+        return _enumerate(layout, rows) if is_exact else _random(layout, stream, resamples, rows)
+    cached = list(fresh()) if small else None
     z_null, z_obs = [], []
     for pooled, (_, statistic, alternative), t, c in zip(pooled_all, endpoints, observed, centres):
-        null = _evaluate(pooled, statistic, iter(batches), total)
+        # the same arrangements for every endpoint: cached, or drawn again from the same stream blocks
+        null = _evaluate(pooled, statistic, iter(cached) if cached is not None else fresh(), total)
         sd = float(np.sqrt(np.mean((null - c) ** 2)))
         if not np.all(np.isfinite(null)) or sd == 0.0:
             raise EngineError(f"the permutation null of {statistic.name!r} is degenerate; max-t cannot use it")
