@@ -398,3 +398,13 @@ def test_kept_or_redrawn_arrangements_give_the_same_numbers(monkeypatch):
     redrawn = inversion.shift_interval(x, y, stat, **args), max_t(endpoints, strata=None, resamples=1500,
                                                                   stream=stream("mt"))
     assert kept[0] == redrawn[0] and kept[1] == redrawn[1]
+
+
+def test_cluster_batch_size_changes_nothing():
+    x = np.array([5.1, 6.0, 5.5, 7.2, 6.8, 8.0, 6.1])
+    y = np.array([4.2, 5.0, 5.3, 4.8, 6.0, 5.2, 4.4])
+    cx, cy = np.array([0, 0, 1, 1, 2, 3, 4]), np.array([5, 5, 6, 7, 7, 8, 9])
+    for name, exact in (("mean_difference", "never"), ("median_difference", "auto")):
+        a, b = (cluster_test(x, y, cx, cy, get_statistic(name), resamples=1100, alternative="greater",
+                             stream=stream("cb"), exact=exact, batch_elements=e) for e in (7, 10**6))
+        assert np.array_equal(a.null, b.null)

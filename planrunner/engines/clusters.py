@@ -35,7 +35,8 @@ __all__ = ["cluster_test"]
 
 def cluster_test(x: np.ndarray, y: np.ndarray, x_clusters: np.ndarray, y_clusters: np.ndarray,
                  statistic: Statistic, *, resamples: int, alternative: str, stream: Stream, exact: str = "auto",
-                 two_sided: str = "doubled", alpha: float | None = None, fast: bool = True) -> PermutationResult:
+                 two_sided: str = "doubled", alpha: float | None = None, fast: bool = True,
+                 batch_elements: int = 2_000_000) -> PermutationResult:
     """Permutation test of a two-group statistic with the labels assigned to whole clusters."""
     if statistic.samples != 2 or statistic.columns != 1:
         raise EngineError(f"a cluster-level test needs a two-group statistic; {statistic.name!r} is not one")
@@ -65,22 +66,27 @@ def cluster_test(x: np.ndarray, y: np.ndarray, x_clusters: np.ndarray, y_cluster
                           f"(the limit is {ENUMERATION_LIMIT:,})", hint="use exact: never or exact: auto")
     is_exact = exact != "never" and arrangements <= (resamples if exact == "auto" else ENUMERATION_LIMIT)
     total = arrangements if is_exact else resamples
-    if is_exact:
-        chosen = np.zeros((total, g), dtype=bool)
-        for r, combo in enumerate(itertools.combinations(range(g), g1)):
-            chosen[r, list(combo)] = True
-    else:
-        order = np.argsort(UniformRows(stream, g).take(total), axis=1)
-        chosen = np.zeros((total, g), dtype=bool)
-        np.put_along_axis(chosen, order[:, :g1], True, axis=1)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        if fast and statistic.form == "mean":
-            n1 = chosen @ sizes
-            s1 = chosen @ sums
-            null = s1 / n1 - (sums.sum() - s1) / (sizes.sum() - n1)
+    rows_per_batch = max(1, batch_elements // max(g, values.size))
+    combos = itertools.combinations(range(g), g1)
+    reader = UniformRows(stream, g)
+    null = np.empty(total)
+    for start in range(0, total, rows_per_batch):
+        rows = min(rows_per_batch, total - start)
+        chosen = np.zeros((rows, g), dtype=bool)
+        if is_exact:
+            for r, combo in enumerate(itertools.islice(combos, rows)):
+                chosen[r, list(combo)] = True
         else:
-            rows_in = chosen[:, member]
-            null = np.array([float(statistic.compute(values[row], values[~row])) for row in rows_in])
+            np.put_along_axis(chosen, np.argsort(reader.take(rows), axis=1)[:, :g1], True, axis=1)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            if fast and statistic.form == "mean":
+                # row sums, not a BLAS product, so the batch size never changes a bit
+                n1 = np.where(chosen, sizes, 0.0).sum(axis=1)
+                s1 = np.where(chosen, sums, 0.0).sum(axis=1)
+                null[start:start + rows] = s1 / n1 - (sums.sum() - s1) / (sizes.sum() - n1)
+            else:
+                null[start:start + rows] = [float(statistic.compute(values[row], values[~row]))
+                                            for row in chosen[:, member]]
     tolerance = TIE_TOLERANCE * max(abs(observed), float(np.max(np.abs(values))))
     pv = summarize(null, observed, exact=is_exact, alternative=alternative, two_sided=two_sided,
                    tolerance=tolerance, alpha=alpha, arrangements=arrangements)
