@@ -34,7 +34,8 @@ from planrunner.errors import EngineError
 
 __all__ = ["signflip_test", "swap_bits"]
 
-DP_WIDTH_LIMIT = 50_000_000  # largest subset-sum table (doubles) the exact shortcut may build
+DP_WIDTH_LIMIT = 5_000_000  # largest subset-sum table (doubles, 40 MB) the exact shortcut may build
+DP_WORK_LIMIT = 2_000_000_000  # pairs × table width
 
 
 def swap_bits(stream: Stream, pairs: int, start: int, stop: int) -> np.ndarray:
@@ -93,7 +94,8 @@ def signflip_test(x: np.ndarray, y: np.ndarray, statistic: Statistic, *, resampl
     arrangements = 2 ** n
     scores = _scores(statistic, d)
     integer = integer_scores(scores) if scores is not None else None
-    dp_ok = integer is not None and int(integer[0].sum()) + 1 <= DP_WIDTH_LIMIT
+    width = int(integer[0].sum()) + 1 if integer is not None else 0
+    dp_ok = integer is not None and width <= DP_WIDTH_LIMIT and n * width <= DP_WORK_LIMIT
 
     if exact == "always" and arrangements > ENUMERATION_LIMIT and not dp_ok:
         raise EngineError(
