@@ -107,7 +107,7 @@ def shift_interval(x: np.ndarray, y: np.ndarray, statistic: Statistic, *, confid
 
     if not (in_lower(estimate) and in_upper(estimate)):
         raise EngineError("the shift estimate itself is rejected; the test cannot be inverted on these data")
-    note = None
+    note = f"location shift δ of the first group over the second (estimate {estimate:.6g}), by test inversion"
     bounds: list[float | None] = []
     for test, sign in ((in_lower, -1.0), (in_upper, 1.0)):
         step = spread
@@ -119,8 +119,8 @@ def shift_interval(x: np.ndarray, y: np.ndarray, statistic: Statistic, *, confid
             tries += 1
         if test(outside):
             bounds.append(None)
-            note = ("too few arrangements to reject any shift on this side at this confidence; "
-                    "the interval is unbounded there")
+            note += ("; too few arrangements to reject any shift on this side at this confidence, "
+                     "so the interval is unbounded there")
         else:
             bounds.append(_bisect(test, estimate, outside))
     interval = Interval(method="shift", level=confidence, lower=bounds[0], upper=bounds[1], note=note)
