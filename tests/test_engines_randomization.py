@@ -408,3 +408,34 @@ def test_cluster_batch_size_changes_nothing():
         a, b = (cluster_test(x, y, cx, cy, get_statistic(name), resamples=1100, alternative="greater",
                              stream=stream("cb"), exact=exact, batch_elements=e) for e in (7, 10**6))
         assert np.array_equal(a.null, b.null)
+
+
+def test_test_statistics_against_scipy_and_vectorised():
+    rng = np.random.default_rng(31)
+    x, y, z = rng.normal(size=(4, 9)), rng.normal(size=(4, 7)) + 0.3, rng.normal(size=(4, 8))
+    refs = {  # scipy references, row by row
+        "t_pooled": lambda a, b: stats.ttest_ind(a, b).statistic,
+        "t_welch": lambda a, b: stats.ttest_ind(a, b, equal_var=False).statistic,
+        "rank_sum": lambda a, b: stats.mannwhitneyu(a, b).statistic + a.size * (a.size + 1) / 2,
+        "risk_difference": lambda a, b: a.mean() - b.mean(),
+    }
+    for name, ref in refs.items():
+        got = get_statistic(name).compute(x, y)
+        assert got.shape == (4,)
+        assert got == pytest.approx([ref(x[r], y[r]) for r in range(4)], rel=1e-12), name
+    f = get_statistic("one_way_f").compute(x, y, z)
+    h = get_statistic("rank_h").compute(x, y, z)
+    assert f == pytest.approx([stats.f_oneway(x[r], y[r], z[r]).statistic for r in range(4)], rel=1e-12)
+    assert h == pytest.approx([stats.kruskal(x[r], y[r], z[r]).statistic for r in range(4)], rel=1e-12)  # no ties
+    xy = rng.normal(size=(4, 2, 12))
+    for name, ref in (("spearman", lambda a, b: stats.spearmanr(a, b).statistic),
+                      ("kendall", lambda a, b: stats.kendalltau(a, b).statistic),
+                      ("slope", lambda a, b: stats.linregress(a, b).slope)):
+        got = get_statistic(name).compute(xy)
+        assert got == pytest.approx([ref(xy[r, 0], xy[r, 1]) for r in range(4)], rel=1e-12), name
+    d = np.array([1.5, -2.0, 0.0, 3.0, -1.5, 4.0])  # a zero and a tie in |d|
+    t_plus = get_statistic("signed_rank").compute(d, np.zeros(6))
+    # scipy reference: wilcoxon(alternative='greater') reports T+ (zeros dropped: zero_method='wilcox')
+    assert t_plus == pytest.approx(stats.wilcoxon(d, alternative="greater", zero_method="wilcox").statistic)
+    rr = get_statistic("risk_ratio").compute(np.array([1.0, 1, 0, 1]), np.array([1.0, 0, 0, 0]))
+    assert rr == pytest.approx(3.0)  # (3/4) / (1/4)

@@ -121,10 +121,20 @@ def _spearman(xy: np.ndarray) -> np.ndarray:
 def _kendall(xy: np.ndarray) -> np.ndarray:
     """Kendall's tau-b: Σ sign(Δx) sign(Δy) / sqrt(Σ sign(Δx)² Σ sign(Δy)²) over pairs i < j."""
     x, y = _columns(xy)
+    lead = x.shape[:-1]
+    x2, y2 = x.reshape(-1, x.shape[-1]), y.reshape(-1, y.shape[-1])
     i, j = np.triu_indices(x.shape[-1], k=1)
-    sx = np.sign(x[..., i] - x[..., j])
-    sy = np.sign(y[..., i] - y[..., j])
-    return (sx * sy).sum(axis=-1) / np.sqrt((sx * sx).sum(axis=-1) * (sy * sy).sum(axis=-1))
+    out = np.empty(x2.shape[0])
+    step = max(1, KENDALL_CELLS // max(1, i.size))  # O(n²) pairs per row: bound the memory per chunk
+    for start in range(0, x2.shape[0], step):
+        sx = np.sign(x2[start:start + step, i] - x2[start:start + step, j])
+        sy = np.sign(y2[start:start + step, i] - y2[start:start + step, j])
+        with np.errstate(invalid="ignore", divide="ignore"):
+            out[start:start + step] = (sx * sy).sum(axis=-1) / np.sqrt((sx * sx).sum(axis=-1) * (sy * sy).sum(axis=-1))
+    return out.reshape(lead)
+
+
+KENDALL_CELLS = 2_000_000
 
 
 def _slope(xy: np.ndarray) -> np.ndarray:
