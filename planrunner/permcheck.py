@@ -49,6 +49,10 @@ def permutation_checks(at: tuple, a: Any, statistic: Statistic) -> list:
         if statistic.samples != 2 or statistic.columns != 1:
             out.append(Problem(at + ("clusters",), "clusters need a two-group statistic of one column",
                                "use e.g. mean_difference"))
+    if statistic.columns == 2 and a.strata is not None:
+        out.append(Problem(at + ("strata",), "an association test shuffles the outcome over all rows; "
+                           "shuffling within strata is not supported",
+                           "remove strata, or adjust for numeric covariates with Freedman–Lane (statistic: slope)"))
     if a.covariates is not None:
         if a.groups is not None:
             out.append(Problem(at + ("covariates",), "covariates with a group comparison would need a naive shuffle "
