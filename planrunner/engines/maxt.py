@@ -25,7 +25,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from planrunner.engines.permutation import (TIE_TOLERANCE, _enumerate, _evaluate, _multinomial, _pool, _random,
+from planrunner.engines.permutation import (ENUMERATION_LIMIT, TIE_TOLERANCE, _enumerate, _evaluate, _multinomial, _pool, _random,
                                             null_centre)
 from planrunner.engines.statistics import Statistic, check_samples, check_strata, to_compute_layout
 from planrunner.engines.streams import Stream
@@ -71,7 +71,7 @@ def max_t(endpoints: Sequence[tuple[Sequence[np.ndarray], Statistic, str]], *, s
         if other.blocks != layout.blocks:
             raise EngineError("max-t endpoints must share the rows, groups and strata")
     arrangements = math.prod(_multinomial(sizes) for _, _, sizes in layout.blocks)
-    is_exact = exact != "never" and arrangements <= resamples
+    is_exact = exact != "never" and arrangements <= (ENUMERATION_LIMIT if exact == "always" else resamples)
     rows = max(1, batch_elements // layout.values.shape[0])
     total = arrangements if is_exact else resamples
     small = total * layout.values.shape[0] <= CACHE_ELEMENTS  # keep the arrangements only when small
