@@ -71,7 +71,8 @@ def association_test(xy: np.ndarray, statistic: Statistic, *, resamples: int, al
         evaluate = lambda order: residual[order] @ weights_x  # noqa: E731
         scheme = f"Freedman–Lane: residuals of the outcome on {z.shape[1] - 1} covariate(s) permuted"
     else:
-        observed = float(statistic.compute(np.ascontiguousarray(data.T)))
+        with np.errstate(invalid="ignore", divide="ignore"):  # a non-finite value is reported below
+            observed = float(statistic.compute(np.ascontiguousarray(data.T)))
 
         def evaluate(order: np.ndarray) -> np.ndarray:
             stacked = np.stack([np.broadcast_to(x, order.shape), y[order]], axis=-2)

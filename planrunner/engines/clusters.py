@@ -59,7 +59,10 @@ def cluster_test(x: np.ndarray, y: np.ndarray, x_clusters: np.ndarray, y_cluster
     sums = np.bincount(member, weights=values, minlength=g)
     sizes = np.bincount(member, minlength=g).astype(np.float64)
     observed_set = np.isin(levels, cx)
-    observed = float(statistic.compute(x, y))
+    with np.errstate(invalid="ignore", divide="ignore"):  # a non-finite value is reported below
+        observed = float(statistic.compute(x, y))
+    if not math.isfinite(observed):
+        raise EngineError(f"the statistic {statistic.name!r} is not finite on the data")
     arrangements = math.comb(g, g1)
     if exact == "always" and arrangements > ENUMERATION_LIMIT:
         raise EngineError(f"exact enumeration asked for, but there are {arrangements:,} cluster arrangements "
@@ -87,6 +90,8 @@ def cluster_test(x: np.ndarray, y: np.ndarray, x_clusters: np.ndarray, y_cluster
             else:
                 null[start:start + rows] = [float(statistic.compute(values[row], values[~row]))
                                             for row in chosen[:, member]]
+    if np.isnan(null).any():
+        raise EngineError(f"the statistic {statistic.name!r} is not finite for some cluster arrangements")
     tolerance = TIE_TOLERANCE * max(abs(observed), float(np.max(np.abs(values))))
     pv = summarize(null, observed, exact=is_exact, alternative=alternative, two_sided=two_sided,
                    tolerance=tolerance, alpha=alpha, arrangements=arrangements)

@@ -134,7 +134,8 @@ def permutation_test(samples: Sequence[np.ndarray], statistic: Statistic, *, res
     pooled = _pool(data, codes)
     n = tuple(int(a.shape[0]) for a in data)
 
-    observed = float(statistic.compute(*[to_compute_layout(a) for a in data]))
+    with np.errstate(invalid="ignore", divide="ignore"):  # a non-finite value is reported below
+        observed = float(statistic.compute(*[to_compute_layout(a) for a in data]))
     if not math.isfinite(observed):
         raise EngineError(f"the statistic {statistic.name!r} is not finite on the data")
     arrangements = math.prod(_multinomial(sizes) for _, _, sizes in pooled.blocks)

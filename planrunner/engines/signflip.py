@@ -88,7 +88,8 @@ def signflip_test(x: np.ndarray, y: np.ndarray, statistic: Statistic, *, resampl
         raise EngineError(f"pairs must have one value in each group; got {x.size} and {y.size}")
     n = x.size
     d = x - y
-    observed = float(statistic.compute(x, y))
+    with np.errstate(invalid="ignore", divide="ignore"):  # a non-finite value is reported below
+        observed = float(statistic.compute(x, y))
     if not math.isfinite(observed):
         raise EngineError(f"the statistic {statistic.name!r} is not finite on the data")
     arrangements = 2 ** n
