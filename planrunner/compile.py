@@ -6,13 +6,14 @@ process and gives the same numbers there.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
 
 from . import design
 from .engines.statistics import Statistic, bind, get_statistic
+from .engines.teststats import K_GROUP
 from .engines.streams import Stream, stream_for
 from .errors import DataError
 from .io import Table
@@ -34,6 +35,7 @@ class Job:
     clusters: tuple[np.ndarray, ...] | None = None
     paired: bool = False
     warnings: tuple[Any, ...] = ()
+    design: dict[str, Any] = field(default_factory=dict)  # permutation designs (see compile_design)
 
     def counts(self) -> dict[str, Any]:
         """Observations per group and, where declared, per stratum within group."""
@@ -64,9 +66,12 @@ def _options(plan: Plan, analysis: Any) -> dict[str, Any]:
                 "parametric": analysis.parametric, "trials": analysis.trials, "exhaustive": analysis.exhaustive,
                 "save_distribution": analysis.save_distribution}
     if analysis.method == "permutation":
+        k_group = analysis.statistic in K_GROUP  # large F or H is the evidence: one-sided by construction
+        confidence = analysis.confidence or d.confidence
         return {"resamples": analysis.resamples or d.resamples,
-                "alternative": analysis.alternative or d.alternative,
-                "exact": analysis.exact}
+                "alternative": "greater" if k_group else (analysis.alternative or d.alternative),
+                "exact": analysis.exact, "two_sided": analysis.two_sided, "alpha": round(1.0 - confidence, 12),
+                "intervals": tuple(analysis.intervals or ()), "confidence": confidence}
     return {}
 
 
@@ -114,7 +119,45 @@ def compile_job(plan: Plan, analysis: Any, table: Table) -> Job:
         strata_labels_all, codes = np.unique(stratum_column, return_inverse=True)
         strata_labels = tuple(str(s) for s in strata_labels_all)
         strata = tuple(codes[m].astype(np.int64) for m in masks)
+    permutation_design: dict[str, Any] = {}
+    if analysis.method == "permutation":  # the bootstrap's design is the fields above
+        samples, permutation_design = compile_design(analysis, table, masks, samples)
     return Job(analysis_id=analysis.id, method=analysis.method, statistic=statistic, samples=samples,
                strata=strata, group_labels=labels, strata_labels=strata_labels,
                options=_options(plan, analysis), stream=stream_for(plan.seed, analysis.id),
-               clusters=clusters, paired=paired, warnings=warnings)
+               clusters=clusters, paired=paired, warnings=warnings, design=permutation_design)
+
+
+def compile_design(analysis: Any, table: Table, masks: list[np.ndarray],
+                   samples: tuple[np.ndarray, ...]) -> tuple[tuple[np.ndarray, ...], dict[str, Any]]:
+    """Arrays for the declared pairs, clusters and covariates (permutation designs)."""
+    design: dict[str, Any] = {}
+    if getattr(analysis, "pairs", None) is not None:
+        keys = np.array([str(v) for v in table.columns[analysis.pairs]], dtype=object)
+        aligned = []
+        per_group = [dict() for _ in masks]
+        for g, mask in enumerate(masks):
+            for key, line, value in zip(keys[mask], table.lines[mask], samples[g]):
+                if key in per_group[g]:
+                    raise DataError(f"analysis '{analysis.id}': pair '{key}' has two rows in group "
+                                    f"'{analysis.groups.compare[g]}' (line {line})", where=table.file,
+                                    hint="each pair needs exactly one row in each of the two groups")
+                per_group[g][key] = value
+        unmatched = sorted(set(per_group[0]) ^ set(per_group[1]))
+        if unmatched:
+            raise DataError(f"analysis '{analysis.id}': {len(unmatched)} pair(s) lack a row in one group "
+                            f"(first: '{unmatched[0]}')", where=table.file,
+                            hint="each pair needs exactly one row in each group; filter incomplete pairs out")
+        order = sorted(per_group[0])
+        aligned = [np.array([per_group[g][k] for k in order], dtype=float) for g in range(2)]
+        samples = tuple(aligned)
+        design["pairs"] = tuple(order)
+    if getattr(analysis, "clusters", None) is not None:
+        labels_all, codes = np.unique(np.array([str(v) for v in table.columns[analysis.clusters]], dtype=object),
+                                      return_inverse=True)
+        design["clusters"] = tuple(codes[m].astype(np.int64) for m in masks)
+        design["cluster_labels"] = tuple(str(v) for v in labels_all)
+    if getattr(analysis, "covariates", None):
+        design["covariates"] = np.column_stack([table.columns[c].astype(float) for c in analysis.covariates])
+        design["covariate_names"] = tuple(analysis.covariates)
+    return samples, design

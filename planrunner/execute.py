@@ -6,13 +6,22 @@ from __future__ import annotations
 from typing import Any
 
 from .compile import Job
+from .errors import EngineError
 from .engines.bootstrap import bootstrap
 from .engines.jackknife import jackknife
-from .engines.permutation import permutation_test
+from .permrun import run_permutation
 
 
 def execute(job: Job) -> Any:
-    """The engine result for one job (a frozen dataclass of numbers)."""
+    """The engine result for one job (a frozen dataclass of numbers). An engine knows only arrays,
+    so its errors are given the analysis id here, where the reader can find it in the plan."""
+    try:
+        return _run_engine(job)
+    except EngineError as exc:
+        raise EngineError(f"{exc.message}", where=f"analysis '{job.analysis_id}'", hint=exc.hint) from None
+
+
+def _run_engine(job: Job) -> Any:
     o = job.options
     if job.method == "bootstrap":
         return bootstrap(job.samples, job.statistic, resamples=o["resamples"], confidence=o["confidence"],
@@ -23,9 +32,7 @@ def execute(job: Job) -> Any:
                          inner_resamples=o.get("inner_resamples", 50),
                          on_degenerate=o.get("on_degenerate", "estimate-only"))
     if job.method == "permutation":
-        return permutation_test(job.samples, job.statistic, resamples=o["resamples"],
-                                alternative=o["alternative"], stream=job.stream, strata=job.strata,
-                                exact=o["exact"])
+        return run_permutation(job)
     if job.method == "jackknife":
         return jackknife(job.samples, job.statistic, clusters=job.clusters)
     raise ValueError(f"no engine for method {job.method!r}")  # the schema makes this unreachable

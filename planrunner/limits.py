@@ -23,12 +23,12 @@ import math
 from typing import Any, Iterable
 
 from .errors import DataError
+from .engines.permutation import ENUMERATION_LIMIT  # the engine's own limit
 
 READ_FACTOR = 40
 BATCH_ELEMENTS = 2_000_000  # the engines' default batch_elements
 BYTES_PER_DRAW = 32
 LIMIT_SHARE = 0.8
-ENUMERATION_LIMIT = 5_000_000  # engines/permutation.py refuses exact: always beyond this
 MB = 1 << 20
 
 
@@ -58,8 +58,11 @@ def check_files(sizes: Iterable[tuple[str, int]], *, available: int | None) -> N
                                  "the columns the plan needs")
 
 
-def arrangements(job: Any) -> int:
-    """Distinct label arrangements of a two-group permutation test (within strata)."""
+def arrangements(job: Any) -> int | None:
+    """Distinct label arrangements of a plain two-group permutation test (within strata); None for
+    the other schemes (pairs, clusters, association, k groups), whose engines count their own."""
+    if len(job.samples) != 2 or getattr(job, "design", None):
+        return None
     first, second = job.samples[0].shape[0], job.samples[1].shape[0]
     if job.strata is None:
         return math.comb(first + second, first)
@@ -72,17 +75,19 @@ def arrangements(job: Any) -> int:
 
 
 def draws_kept(job: Any) -> int:
-    """How many values the analysis's distribution holds."""
+    """How many values the analysis's distribution holds (at most: an exact null may be shorter)."""
     if job.method == "jackknife":
         return sum(int(s.shape[0]) for s in job.samples)
     resamples = int(job.options["resamples"])
     if job.method == "permutation":
         exact = job.options.get("exact", "auto")
-        if exact == "never":
-            return resamples
         count = arrangements(job)
+        if exact == "never" or count is None:
+            return resamples
         if exact == "always":
-            return count
+            # the engine enumerates at most ENUMERATION_LIMIT arrangements (beyond that it uses an
+            # exact dynamic-programming null where one applies, or refuses with the count)
+            return min(count, ENUMERATION_LIMIT)
         return count if count <= resamples else resamples
     return resamples
 
@@ -100,15 +105,8 @@ def estimate_run_bytes(jobs: Iterable[Any]) -> int:
 
 
 def check_jobs(jobs: list[Any], *, available: int | None) -> None:
-    """Refuse work that would not fit; refuse an exact enumeration beyond the engine's limit."""
-    for job in jobs:
-        if job.method == "permutation" and job.options.get("exact") == "always":
-            count = arrangements(job)
-            if count > ENUMERATION_LIMIT:
-                raise DataError(f"exact: always asks for {count:,} arrangements, "
-                                f"more than the {ENUMERATION_LIMIT:,} planrunner enumerates",
-                                where=f"analysis '{job.analysis_id}'",
-                                hint="use exact: auto or exact: never (Monte Carlo resamples)")
+    """Refuse work that would not fit. (An infeasible `exact: always` is refused by the permutation
+    engine, which alone knows whether an exact dynamic-programming null applies.)"""
     limit = _limit(available)
     if limit is None:
         return

@@ -6,7 +6,12 @@ Formulas as in Holm (1979), Hochberg (1988), Benjamini & Hochberg (1995) and Ben
 
 from __future__ import annotations
 
+from typing import Any
+
 import numpy as np
+
+from .engines.maxt import MaxTResult, max_t
+from .engines.streams import stream_for
 
 METHOD_NAMES = {
     "bonferroni": "Bonferroni",
@@ -14,6 +19,7 @@ METHOD_NAMES = {
     "hochberg": "Hochberg step-up",
     "bh": "Benjamini–Hochberg (false discovery rate)",
     "by": "Benjamini–Yekutieli (false discovery rate, any dependence)",
+    "max-t": "Westfall–Young max-T step-down (same permutations)",
 }
 
 
@@ -38,3 +44,22 @@ def adjust(p_values: list[float], method: str) -> list[float]:
     out = np.empty(m)
     out[order] = adjusted_sorted
     return [float(v) for v in out]
+
+
+def max_t_families(plan: Any, jobs: list[Any]) -> dict[int, MaxTResult]:
+    """Westfall–Young max-T for every ``max-t`` family: one joint run on the same permutations.
+
+    The family's stream is keyed by ``"max-t:" + the member ids joined by ","``, so it never shares
+    draws with any analysis and does not depend on the order of the analyses in the plan.
+    """
+    by_id = {job.analysis_id: job for job in jobs}
+    out: dict[int, MaxTResult] = {}
+    for j, fam in enumerate(plan.multiplicity):
+        if fam.method != "max-t":
+            continue
+        members = [by_id[i] for i in fam.family]
+        first = members[0]
+        out[j] = max_t([(m.samples, m.statistic, m.options["alternative"]) for m in members], strata=first.strata,
+                       resamples=first.options["resamples"], exact=first.options["exact"],
+                       stream=stream_for(plan.seed, "max-t:" + ",".join(fam.family)))
+    return out

@@ -23,10 +23,12 @@ from .expr import parse_expression
 from .params import parameter_problems
 from .schema import METHODS, Plan
 from .yamlsafe import MAX_PLAN_BYTES, LoadedYaml, Path_, dotted, load_yaml
+from . import permcheck
 
 NUMERIC_TYPES = ("number", "integer", "boolean")
 # design keys each method can honour; anything else is refused rather than silently ignored
-SUPPORTED_DESIGNS: dict[str, tuple[str, ...]] = {"bootstrap": ("pairs", "clusters", "order"), "permutation": (),
+SUPPORTED_DESIGNS: dict[str, tuple[str, ...]] = {"bootstrap": ("pairs", "clusters", "order"),
+                                                 "permutation": ("pairs", "clusters", "covariates"),
                                                  "jackknife": ("clusters",)}
 GROUPING_TYPES = ("category", "boolean", "integer", "text")
 
@@ -254,6 +256,8 @@ def cross_check(plan: Plan) -> list[Problem]:
                                         did_you_mean(member, seen)))
         if len(set(fam.family)) != len(fam.family):
             problems.append(Problem(("multiplicity", j, "family"), "the family names an analysis twice"))
+        if fam.method == "max-t" and all(member in seen for member in fam.family):
+            problems += permcheck.max_t_checks(("multiplicity", j), [plan.analyses[seen[m]] for m in fam.family])
         for k, member in enumerate(fam.family):
             if member in seen and plan.analyses[seen[member]].method == "jackknife":
                 problems.append(Problem(("multiplicity", j, "family", k),
@@ -371,7 +375,10 @@ def _check_analysis(at: Path_, a: Any, plan: Plan) -> list[Problem]:
             out.append(Problem(at + ("outcome",), f"'{a.statistic}' needs a 0/1 or true/false outcome",
                                "declare the outcome as boolean, or as integer holding 0 and 1"))
         out += check_resampling_design(at, a, statistic)
-        if a.method == "permutation" and statistic.samples != 2:
-            out.append(Problem(at + ("statistic",), "a permutation test compares two groups",
-                               "add groups and use a two-group statistic such as mean_difference"))
+        if statistic.samples == 0 and a.groups is None:
+            out.append(Problem(at + ("statistic",), f"'{a.statistic}' compares two or more groups but the analysis "
+                               "has no groups", "add groups: {by: COLUMN, compare: [FIRST, SECOND, ...]}"))
+        out += permcheck.statistic_checks(at, a)
+        if a.method == "permutation":
+            out += permcheck.permutation_checks(at, a, statistic)
     return out

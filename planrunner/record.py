@@ -21,7 +21,8 @@ from . import __version__
 from .compile import Job
 from .engines.streams import DRAW_BLOCK, GENERATOR
 from .io import Table
-from .multiplicity import METHOD_NAMES, adjust
+from .multiplicity import METHOD_NAMES, adjust, max_t_families
+from .permrecord import family_floor_warnings, permutation_fields
 from .plancheck import LoadedPlan
 
 FORMAT = "planrunner.record/1"
@@ -117,11 +118,17 @@ def question(analysis: Any, statistic_label: str, unit: str | None) -> str:
     what = f"{statistic_label} of {analysis.outcome}" + (f" ({unit})" if unit else "")
     if analysis.predictor is not None:
         what = f"{statistic_label} of {analysis.predictor} and {analysis.outcome}"
-    if analysis.groups is not None:
+    if analysis.groups is not None and len(analysis.groups.compare) == 2:
         first, second = analysis.groups.compare
         what = f"{first} minus {second} by {analysis.groups.by}: {what}"
+    elif analysis.groups is not None:
+        what = f"{', '.join(analysis.groups.compare)} by {analysis.groups.by}: {what}"
     if analysis.strata is not None:
         what += f", within strata of {analysis.strata}"
+    for key, words in (("pairs", "paired by"), ("clusters", "clusters of"), ("covariates", "adjusted for")):
+        value = getattr(analysis, key, None)
+        if value:
+            what += f", {words} {', '.join(value) if isinstance(value, list) else value}"
     return what
 
 
@@ -187,25 +194,7 @@ def analysis_entry(loaded: LoadedPlan, analysis: Any, job: Job, result: Any) -> 
             if result.weights is not None:
                 entry["distribution"]["weights"] = [float(v) for v in result.weights]
     elif analysis.method == "permutation":
-        m = result.resamples
-        p = result.p_value
-        entry.update(
-            estimate=_f(result.observed), p_value=_f(p), alternative=result.alternative,
-            exact=bool(result.exact), resamples=int(m),
-            monte_carlo={"p_value_sd": 0.0 if result.exact else _f(math.sqrt(p * (1 - p) / m))},
-            details={"observed": _f(result.observed), "count_greater_equal": int(result.count_greater),
-                     "count_less_equal": int(result.count_less), "arrangements": int(result.arrangements),
-                     "two_sided_rule": result.two_sided_rule, "tolerance": _f(result.tolerance),
-                     "p_value_rule": "count / arrangements (exact)" if result.exact
-                     else "(count + 1) / (resamples + 1) (Monte Carlo)"},
-            distribution=_distribution("permutation null", result.null, bins),
-        )
-        alpha = 1.0 - plan.defaults.confidence
-        sd = entry["monte_carlo"]["p_value_sd"] or 0.0
-        if not result.exact and abs(p - alpha) < 2 * sd:
-            entry["warnings"].append({"code": "mc-error-straddles-alpha",
-                                      "message": f"the p-value {p:.4g} is within two Monte Carlo standard errors "
-                                                 f"({sd:.2g}) of alpha = {alpha:g}; more resamples would settle it"})
+        entry.update(permutation_fields(result, bins))
     else:
         entry.update(
             estimate=_f(result.estimate), standard_error=_f(result.standard_error), bias=_f(result.bias),
@@ -222,23 +211,34 @@ def _kurtosis(values: np.ndarray) -> float | None:
     return float(np.mean(centred ** 4) / m2 ** 2) if m2 > 0 else None
 
 
-def multiplicity_entries(plan: Any, analyses: list[dict[str, Any]]) -> list[dict[str, Any]]:
+def multiplicity_entries(plan: Any, analyses: list[dict[str, Any]],
+                         max_t: dict[int, Any] | None = None) -> list[dict[str, Any]]:
     by_id = {a["id"]: a for a in analyses}
     out = []
-    for fam in plan.multiplicity:
+    for j, fam in enumerate(plan.multiplicity):
         raw = [by_id[i]["p_value"] for i in fam.family]
-        adjusted = adjust([1.0 if p is None else p for p in raw], fam.method)
+        if fam.method == "max-t":
+            adjusted = list((max_t or {})[j].adjusted)
+        else:
+            adjusted = adjust([1.0 if p is None else p for p in raw], fam.method)
+        family_floor_warnings(fam, [by_id[i] for i in fam.family], 1.0 - plan.defaults.confidence,
+                              (max_t or {}).get(j))
         out.append({"method": fam.method, "method_label": METHOD_NAMES[fam.method], "family": list(fam.family),
                     "unadjusted": dict(zip(fam.family, raw)), "adjusted": dict(zip(fam.family, adjusted))})
+        if fam.method == "max-t" and max_t:
+            out[-1]["details"] = max_t[j].describe()
         for i, p_adj in zip(fam.family, adjusted):
             by_id[i]["adjusted_p_values"].append({"method": fam.method, "p_value": p_adj})
     return out
 
 
 def build_record(loaded: LoadedPlan, tables: dict[str, Table], jobs: list[Job], results: list[Any], *,
-                 run_id: str, started_utc: str, finished_utc: str, operator: str, command: list[str]) -> dict:
+                 run_id: str, started_utc: str, finished_utc: str, operator: str, command: list[str],
+                 max_t: dict[int, Any] | None = None) -> dict:
     plan = loaded.plan
     analyses = [analysis_entry(loaded, a, j, r) for a, j, r in zip(plan.analyses, jobs, results)]
+    if max_t is None and any(f.method == "max-t" for f in plan.multiplicity):
+        max_t = max_t_families(plan, jobs)
     record = {
         "format": FORMAT,
         "run_id": run_id,
@@ -256,7 +256,7 @@ def build_record(loaded: LoadedPlan, tables: dict[str, Table], jobs: list[Job], 
         "seed": {"root": plan.seed, "generator": GENERATOR, "derivation": SEED_DERIVATION,
                  "draw_block": DRAW_BLOCK},
         "analyses": analyses,
-        "multiplicity": multiplicity_entries(plan, analyses),
+        "multiplicity": multiplicity_entries(plan, analyses, max_t),
         "report": {"note": plan.report.note, "bins": plan.report.bins},
         "caution": CAUTION,
     }

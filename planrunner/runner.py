@@ -28,6 +28,7 @@ from .io import Table, read_table, resolve_data_path
 from .methods import methods_text
 from .params import apply as apply_parameters
 from .params import resolve_values
+from .multiplicity import max_t_families
 from .plancheck import LoadedPlan, read_plan
 from .record import build_record, to_json
 from .trail import append_history, lock_for_run
@@ -131,11 +132,12 @@ def run_plan(path: str | Path, *, out: str | Path | None = None, operator: str |
     assert tables is not None and jobs is not None
     lock_entry = lock_for_run(loaded, tables, lock, refuse_deviations=refuse_deviations)
     results = execute_all(jobs)
+    max_t = max_t_families(loaded.plan, jobs)
     finished = clock()
     run_id = _run_id(loaded, tables, started)
     record = build_record(loaded, tables, jobs, results, run_id=run_id, started_utc=_stamp(started),
                           finished_utc=_stamp(finished), operator=operator or default_operator(),
-                          command=command or ["planrunner", "run", str(path)])
+                          command=command or ["planrunner", "run", str(path)], max_t=max_t)
     finish_record(record, lock_entry, checked.parameters)
     out_root = Path(out) if out is not None else loaded.folder / "runs"
     folder = write_run(out_root, f"{loaded.plan.plan}-{started.strftime('%Y%m%dT%H%M%SZ')}-{run_id[:8]}", record)

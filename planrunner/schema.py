@@ -19,7 +19,7 @@ Role = Literal["primary", "secondary", "sensitivity", "supplementary"]
 IntervalMethod = Literal["percentile", "basic", "normal", "bca", "studentized"]
 Resamples = Annotated[int, Field(ge=1, le=10_000_000)]
 Confidence = Annotated[float, Field(gt=0.5, lt=1.0)]
-MultiplicityMethod = Literal["bonferroni", "holm", "hochberg", "bh", "by"]
+MultiplicityMethod = Literal["bonferroni", "holm", "hochberg", "bh", "by", "max-t"]
 
 
 class Strict(BaseModel):
@@ -144,6 +144,9 @@ class PermutationAnalysis(AnalysisBase):
     resamples: Resamples | None = None
     alternative: Alternative | None = None
     exact: Literal["auto", "always", "never"] = "auto"
+    two_sided: Literal["doubled", "absolute"] = "doubled"  # doubled: 2·min(p_greater, p_less)
+    intervals: Annotated[list[Literal["shift"]], Field(min_length=1, max_length=1)] | None = None
+    confidence: Confidence | None = None
 
 
 class JackknifeAnalysis(AnalysisBase):

@@ -142,12 +142,19 @@ def test_monte_carlo_floor_identity_13() -> None:
 
 
 def test_enumeration_modes() -> None:
-    auto_mc = run([TREATMENT, CONTROL], m=1000)
-    assert not auto_mc.exact and auto_mc.resamples == 1000 and auto_mc.arrangements == 11440
-    forced = run([TREATMENT, CONTROL], m=10, exact="always")
-    assert forced.exact and forced.resamples == 11440
+    auto_mc = run([PERM_X, PERM_Y], m=1000)  # non-integer data: no exact shortcut
+    assert not auto_mc.exact and auto_mc.resamples == 1000 and auto_mc.arrangements == 3003
+    assert auto_mc.computation == "Monte Carlo"
+    forced = run([PERM_X, PERM_Y], m=10, exact="always")
+    assert forced.exact and forced.resamples == 3003 and forced.computation == "enumeration"
+    # integer data: more arrangements than resamples, but the DP null is exact
+    dp = run([TREATMENT, CONTROL], m=1000)
+    assert dp.exact and dp.computation == "dynamic programming" and dp.arrangements == 11440
+    assert dp.count_greater == 1613  # Source: REFERENCES PT-MOUSE, exact 1613/11440
     with pytest.raises(EngineError, match="155,117,520 arrangements"):
-        run([np.arange(15.0), np.arange(15.0) + 1], exact="always")
+        run([np.arange(15.0) + 0.1, np.arange(15.0) + 1.3], exact="always")
+    with pytest.raises(EngineError, match="155,117,520 arrangements"):
+        run([np.arange(15.0), np.arange(15.0) + 1], "median_difference", exact="always")
 
 
 # ------------------------------------------------------------------ strata
@@ -201,7 +208,7 @@ def test_draw_contract_by_hand() -> None:
     stream = stream_for(5, "contract")
     m = DRAW_BLOCK + 2
     result = permutation_test([x, y], MEAN_DIFF, resamples=m, alternative="greater", stream=stream,
-                              strata=[x_codes, y_codes], exact="never")
+                              strata=[x_codes, y_codes], exact="never", fast=False)
     # pooled stratum by stratum, group 1 first: stratum 0 -> [5 | 7, 4], stratum 1 -> [1, 2 | 3, 8]
     pooled = np.array([5.0, 7, 4, 1, 2, 3, 8])
     stratum = np.array([0, 0, 0, 1, 1, 1, 1])
@@ -269,7 +276,7 @@ def test_constant_data_degenerate() -> None:
 
 
 def test_errors() -> None:
-    with pytest.raises(EngineError, match="two-group statistic"):
+    with pytest.raises(EngineError, match="statistic of two or more groups"):
         run([TREATMENT], "mean")
     with pytest.raises(EngineError, match="unknown alternative"):
         run([TREATMENT, CONTROL], alternative="bigger")

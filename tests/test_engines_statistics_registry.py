@@ -87,7 +87,9 @@ def test_vectorised_rows_equal_one_at_a_time(name: str) -> None:
             return (rng.random((5, n)) < 0.5).astype(float) if stat.columns == 1 else rng.random((5, 2, n))
         return rng.normal(10, 2, (5, n)) if stat.columns == 1 else rng.normal(10, 2, (5, 2, n))
 
-    args = [draw(n) for n in (9, 11)[:stat.samples]]
+    groups = stat.samples or 3  # samples == 0: two or more groups (one-way F, rank H)
+    sizes = (9, 9) if name == "signed_rank" else (9, 11, 7)  # signed ranks are of pair differences
+    args = [draw(n) for n in sizes[:groups]]
     if stat.outcome == "binary":  # keep every row away from 0 and 1 proportions
         for a in args:
             a[:, :2] = [1.0, 0.0]

@@ -80,10 +80,11 @@ def test_memory_batch_size_changes_nothing(write_plan, tmp_path, monkeypatch):
     reference = run(write_plan, tmp_path, ["boot", "perm"], "ref")
     # the same jobs through the engines with a tiny memory batch (17 elements per batch)
     import planrunner.execute as execute
+    import planrunner.permrun as permrun
 
-    real_bootstrap, real_permutation = execute.bootstrap, execute.permutation_test
+    real_bootstrap, real_permutation = execute.bootstrap, permrun.permutation_test
     monkeypatch.setattr(execute, "bootstrap", lambda *a, **k: real_bootstrap(*a, batch_elements=17, **k))
-    monkeypatch.setattr(execute, "permutation_test", lambda *a, **k: real_permutation(*a, batch_elements=17, **k))
+    monkeypatch.setattr(permrun, "permutation_test", lambda *a, **k: real_permutation(*a, batch_elements=17, **k))
     small = run(write_plan, tmp_path, ["boot", "perm"], "small")
     for key in ("boot", "perm"):
         assert comparable(reference[key]) == comparable(small[key])

@@ -1,16 +1,25 @@
-"""Two-sample permutation test (group labels shuffled over all rows, or within strata).
+"""Permutation test of two or more groups (labels shuffled over all rows, or within strata).
 
 Null: under exchangeability of the group labels (within each stratum), every assignment of the
-observed group sizes to the rows of a stratum is equally likely. Arrangements = ∏_h C(N_h, n1_h).
+observed group sizes to the rows of a stratum is equally likely. Arrangements =
+∏_h N_h! / ∏_g n_gh! (identity 18; C(N_h, n1_h) for two groups).
 
 Layout: observations are pooled stratum by stratum (stratum codes in increasing order, dense
-index h = 0, 1, ...); within a stratum, group 1's observations, then group 2's, each in original
-order. Slots of a stratum block are labelled: the first n1_h slots are group 1, the rest group 2.
-The observed arrangement puts every observation in its own slot.
+index h = 0, 1, ...); within a stratum, group 1's observations, then group 2's, and so on, each in
+original order. Slots of a stratum block are labelled: the first n1_h slots are group 1, the next
+n2_h group 2, ... The observed arrangement puts every observation in its own slot.
 
-Exact enumeration: the group-1 positions of each stratum run over ``itertools.combinations`` of
-the block in lexicographic order, strata combined by ``itertools.product``; evaluated in bounded
-chunks. The observed arrangement is one of them.
+Exact enumeration: for two groups the group-1 positions of each stratum run over
+``itertools.combinations`` of the block in lexicographic order, strata combined by
+``itertools.product``; for more groups each stratum's distinct label sequences are listed the same
+way (group 1's positions, then group 2's among the rest, ...). Evaluated in bounded chunks. The
+observed arrangement is one of them.
+
+Exact by dynamic programming (:mod:`planrunner.engines.exactdist`): for a two-group statistic that
+increases with the first group's score sum (``teststats.SUM_SCORES``: mean and proportion
+differences, pooled t, rank sum) and integer-valued scores, the exact null of that sum replaces
+enumeration when there are more arrangements than resamples (``exact: auto``) or too many to list
+(``exact: always``).
 
 Monte Carlo draw contract (with :mod:`planrunner.engines.streams`): resample r is row r of the
 stream's uniform rows, ``keys = gen.random(N)``; ``np.argsort(keys + 2 * h, kind="stable")`` (h the
@@ -18,12 +27,15 @@ dense stratum index of each position) lists, block by block, the positions of ea
 order, and slot s receives the observation at that position. Rows are drawn in order; memory
 batches split rows, never change them.
 
-p-values (REFERENCES §0.5): exact ``#{T* ≥ t}/arrangements`` (observed arrangement included);
-Monte Carlo ``(b + 1)/(m + 1)`` over m random arrangements; two-sided ``min(1, 2 min(p_greater,
-p_less))`` as scipy.stats.permutation_test. Comparisons allow ``tolerance = 1e-10 · max(|t|, scale)``
-(scale = the largest absolute data value) so that values equal in exact arithmetic count as equal.
-"""
+Fast path: for a difference of means (or proportions) only the first group's sum S1 is gathered,
+T = S1/n1 − (Σx − S1)/n2 (DESIGN §7); the plain computation is kept (``fast=False``) and tests check
+that both count the same arrangements.
 
+p-values: see :mod:`planrunner.engines.pvalues` (exact count / arrangements; Monte Carlo
+(b + 1)/(m + 1); two-sided ``doubled`` or ``absolute``). Comparisons allow
+``tolerance = 1e-10 · max(|t|, scale)`` (scale = the largest absolute data value) so that values
+equal in exact arithmetic count as equal.
+"""
 from __future__ import annotations
 
 import itertools
@@ -34,6 +46,8 @@ from dataclasses import dataclass
 import numpy as np
 
 from planrunner.errors import EngineError
+from planrunner.engines.exactdist import WORK_LIMIT, dp_work, integer_scores, sum_distribution
+from planrunner.engines.pvalues import TWO_SIDED_RULES, summarize
 from planrunner.engines.results import EngineWarning, PermutationResult, frozen_array
 from planrunner.engines.statistics import (
     Statistic,
@@ -43,6 +57,7 @@ from planrunner.engines.statistics import (
     to_compute_layout,
 )
 from planrunner.engines.streams import Stream, UniformRows
+from planrunner.engines.teststats import INFINITE_ALLOWED, SUM_SCORES
 
 __all__ = ["ALTERNATIVES", "ENUMERATION_LIMIT", "PermutationResult", "permutation_test"]
 
@@ -51,6 +66,10 @@ EXACT_CHOICES = ("auto", "always", "never")
 ENUMERATION_LIMIT = 5_000_000
 TIE_TOLERANCE = 1e-10
 FEW_ARRANGEMENTS = 20  # common practice: below 20 the smallest attainable p exceeds 0.05
+TWO_SIDED_TEXT = {
+    "doubled": "min(1, 2 min(p_greater, p_less))",
+    "absolute": "|T* - c| >= |t - c| - tolerance, c the centre of the null (0 for differences)",
+}
 
 
 @dataclass(frozen=True)
@@ -58,7 +77,7 @@ class _Pooled:
     values: np.ndarray  # (N,) or (N, k), stratum-major then group-major
     stratum: np.ndarray  # (N,) dense stratum index of each position
     slots: tuple[np.ndarray, ...]  # slot positions of each group, increasing
-    blocks: tuple[tuple[int, int, int], ...]  # (start, size, size of group 1) per stratum
+    blocks: tuple[tuple[int, int, tuple[int, ...]], ...]  # (start, size, sizes of the groups) per stratum
 
 
 def _pool(data: tuple[np.ndarray, ...], strata: tuple[np.ndarray, ...] | None) -> _Pooled:
@@ -75,7 +94,7 @@ def _pool(data: tuple[np.ndarray, ...], strata: tuple[np.ndarray, ...] | None) -
             slot_group.append(np.full(part.shape[0], g))
         size = sum(sizes)
         stratum.append(np.full(size, h, dtype=np.int64))
-        blocks.append((start, size, sizes[0]))
+        blocks.append((start, size, tuple(sizes)))
         start += size
     labels = np.concatenate(slot_group)
     values = np.ascontiguousarray(np.concatenate(pieces))
@@ -86,20 +105,26 @@ def _pool(data: tuple[np.ndarray, ...], strata: tuple[np.ndarray, ...] | None) -
 
 def permutation_test(samples: Sequence[np.ndarray], statistic: Statistic, *, resamples: int, alternative: str,
                      stream: Stream, strata: Sequence[np.ndarray] | None = None, exact: str = "auto",
+                     two_sided: str = "doubled", alpha: float | None = None, fast: bool = True,
                      batch_elements: int = 2_000_000) -> PermutationResult:
-    """Permutation test of ``statistic`` (first group minus second) against label exchangeability.
+    """Permutation test of ``statistic`` (two groups: first minus second; or k groups) against
+    label exchangeability.
 
-    ``exact``: "auto" enumerates when arrangements ≤ resamples, "always" enumerates (at most
-    5,000,000 arrangements), "never" draws ``resamples`` random arrangements from ``stream``.
+    ``exact``: "auto" enumerates when arrangements ≤ resamples (else the exact DP null when it
+    applies, else Monte Carlo), "always" enumerates (at most 5,000,000 arrangements) or uses the DP
+    null, "never" draws ``resamples`` random arrangements from ``stream``. ``alpha`` (optional)
+    turns on the warnings about the smallest attainable p-value and the Monte Carlo interval.
     """
-    if statistic.samples != 2:
+    if statistic.samples not in (0, 2):
         raise EngineError(
-            f"the permutation test needs a two-group statistic; {statistic.name!r} takes {statistic.samples}",
-            hint="use a difference statistic such as mean_difference")
+            f"the permutation test of groups needs a statistic of two or more groups; {statistic.name!r} "
+            f"takes {statistic.samples}", hint="use a difference statistic such as mean_difference")
     if alternative not in ALTERNATIVES:
         raise EngineError(f"unknown alternative {alternative!r}", hint=f"use one of {', '.join(ALTERNATIVES)}")
     if exact not in EXACT_CHOICES:
         raise EngineError(f"unknown exact choice {exact!r}", hint=f"use one of {', '.join(EXACT_CHOICES)}")
+    if two_sided not in TWO_SIDED_RULES:
+        raise EngineError(f"unknown two-sided rule {two_sided!r}", hint=f"use one of {', '.join(TWO_SIDED_RULES)}")
     if resamples < 1:
         raise EngineError(f"resamples must be at least 1, got {resamples}", hint="use 9999 or more")
     if batch_elements < 1:
@@ -109,43 +134,49 @@ def permutation_test(samples: Sequence[np.ndarray], statistic: Statistic, *, res
     pooled = _pool(data, codes)
     n = tuple(int(a.shape[0]) for a in data)
 
-    observed = float(statistic.compute(*[to_compute_layout(a) for a in data]))
+    with np.errstate(invalid="ignore", divide="ignore"):  # a non-finite value is reported below
+        observed = float(statistic.compute(*[to_compute_layout(a) for a in data]))
     if not math.isfinite(observed):
         raise EngineError(f"the statistic {statistic.name!r} is not finite on the data")
-    arrangements = math.prod(math.comb(size, first) for _, size, first in pooled.blocks)
+    arrangements = math.prod(_multinomial(sizes) for _, _, sizes in pooled.blocks)
+    dp_plan = _dp_plan(pooled, statistic) if len(data) == 2 else None
 
-    if exact == "always" and arrangements > ENUMERATION_LIMIT:
+    if exact == "always" and arrangements > ENUMERATION_LIMIT and dp_plan is None:
         raise EngineError(
             f"exact enumeration asked for, but there are {arrangements:,} arrangements "
-            f"(the limit is {ENUMERATION_LIMIT:,})",
-            hint="use exact: never (Monte Carlo) or exact: auto")
-    is_exact = exact == "always" or (exact == "auto" and arrangements <= resamples)
+            f"(the limit is {ENUMERATION_LIMIT:,}) and no exact shortcut applies to {statistic.name!r} "
+            "on these data", hint="use exact: never (Monte Carlo) or exact: auto")
+    if exact == "never":
+        path = "Monte Carlo"
+    elif arrangements <= (resamples if exact == "auto" else ENUMERATION_LIMIT):
+        path = "enumeration"
+    else:
+        path = "dynamic programming" if dp_plan is not None else "Monte Carlo"
+    is_exact = path != "Monte Carlo"
 
     per_row = pooled.values.shape[0] * statistic.columns
     rows_per_batch = max(1, batch_elements // per_row)
-    if is_exact:
-        null = _evaluate(pooled, statistic, _enumerate(pooled, rows_per_batch), arrangements)
+    weights = None
+    if path == "dynamic programming":
+        assert dp_plan is not None
+        null, weights = _dp_null(pooled, statistic, dp_plan)
     else:
-        null = _evaluate(pooled, statistic, _random(pooled, stream, resamples, rows_per_batch), resamples)
-    bad = ~np.isfinite(null)
+        batches = (_enumerate(pooled, rows_per_batch) if is_exact
+                   else _random(pooled, stream, resamples, rows_per_batch))
+        null = _evaluate(pooled, statistic, batches, arrangements if is_exact else resamples, fast=fast)
+    bad = np.isnan(null) | ((null == np.inf) & (statistic.name not in INFINITE_ALLOWED)) | (null == -np.inf)
     if bad.any():
         raise EngineError(
             f"the statistic {statistic.name!r} is not finite for {int(bad.sum())} arrangement(s)",
             hint="the permutation test cannot be used with this statistic on these data")
 
     scale = max(float(np.max(np.abs(a))) for a in data)
-    tolerance = TIE_TOLERANCE * max(abs(observed), scale)
-    count_greater = int(np.count_nonzero(null >= observed - tolerance))
-    count_less = int(np.count_nonzero(null <= observed + tolerance))
-    m = null.shape[0]
-    if is_exact:
-        p_greater, p_less = count_greater / m, count_less / m
-    else:
-        p_greater, p_less = (count_greater + 1) / (m + 1), (count_less + 1) / (m + 1)
-    p_value = {"greater": p_greater, "less": p_less,
-               "two-sided": min(1.0, 2.0 * min(p_greater, p_less))}[alternative]
+    tolerance = TIE_TOLERANCE * max(abs(observed), scale)  # observed is finite (checked above)
+    centre = null_centre(pooled, statistic)
+    pv = summarize(null, observed, exact=is_exact, alternative=alternative, two_sided=two_sided,
+                   tolerance=tolerance, center=centre, weights=weights, alpha=alpha, arrangements=arrangements)
 
-    warnings = []
+    warnings = list(pv.warnings)
     if arrangements < FEW_ARRANGEMENTS:
         warnings.append(EngineWarning(
             "few-arrangements",
@@ -159,29 +190,115 @@ def permutation_test(samples: Sequence[np.ndarray], statistic: Statistic, *, res
 
     scheme = "labels shuffled over all rows" if codes is None else "labels shuffled within strata"
     return PermutationResult(
-        observed=observed, p_value=float(p_value), alternative=alternative, two_sided_rule="doubled",
-        exact=is_exact, arrangements=arrangements, resamples=m, count_greater=count_greater,
-        count_less=count_less, null=frozen_array(null), tolerance=tolerance, n=n, scheme=scheme,
-        warnings=tuple(warnings),
+        observed=observed, p_value=pv.p_value, alternative=alternative, two_sided_rule=two_sided,
+        exact=is_exact, arrangements=arrangements, resamples=int(null.shape[0]) if weights is None else arrangements,
+        count_greater=pv.count_greater, count_less=pv.count_less, null=frozen_array(null), tolerance=tolerance,
+        n=n, scheme=scheme, warnings=tuple(warnings),
         conventions={
             "p_value": "exact: count / arrangements (observed arrangement included); "
                        "Monte Carlo: (count + 1) / (resamples + 1)",
-            "two_sided": "min(1, 2 min(p_greater, p_less))",
+            "two_sided": TWO_SIDED_TEXT[two_sided],
             "ties": "T* >= t - tolerance counts as greater or equal; tolerance = 1e-10 max(|t|, max|x|)",
             "draws": "one uniform row of keys per resample; argsort(keys + 2 * stratum) within strata",
-        })
+        },
+        p_greater=pv.p_greater, p_less=pv.p_less, count_absolute=pv.count_absolute, centre=centre,
+        monte_carlo_se=pv.monte_carlo_se, p_interval=pv.p_interval, smallest_p=pv.smallest_p,
+        null_weights=None if weights is None else frozen_array(weights), computation=path)
+
+
+def null_centre(pooled: _Pooled, statistic: Statistic) -> float:
+    """Centre c of the null for the two-sided ``absolute`` rule.
+
+    For the sum statistics (differences of means or proportions, the rank sum) it is the exact null
+    mean, from E[S1] = Σ_h n1_h · (mean score of stratum h); for every other statistic it is 0 (a
+    stated convention: differences, t and correlations are centred at 0 without strata).
+    """
+    if statistic.name not in ("mean_difference", "risk_difference", "rank_sum") or len(pooled.slots) != 2:
+        return 0.0
+    scores = SUM_SCORES[statistic.name](pooled.values)
+    expected = sum(sizes[0] * float(scores[start:start + size].mean()) for start, size, sizes in pooled.blocks)
+    if statistic.name == "rank_sum":
+        return expected
+    n1, n2 = int(pooled.slots[0].size), int(pooled.slots[1].size)
+    return expected / n1 - (float(scores.sum()) - expected) / n2
+
+
+def _multinomial(sizes: tuple[int, ...]) -> int:
+    out, left = 1, sum(sizes)
+    for s in sizes:
+        out *= math.comb(left, s)
+        left -= s
+    return out
+
+
+@dataclass(frozen=True)
+class _DpPlan:
+    strata: tuple[tuple[np.ndarray, int], ...]  # integer scores of each stratum block, group-1 size
+    scale: float  # scores = integers / scale
+    scores: np.ndarray  # pooled scores (values, or mid-ranks), as floats
+
+
+def _dp_plan(pooled: _Pooled, statistic: Statistic) -> _DpPlan | None:
+    """The exact-sum shortcut when it applies: a sum-monotone statistic on integer-valued scores."""
+    if statistic.name not in SUM_SCORES or statistic.columns != 1:
+        return None
+    scores = SUM_SCORES[statistic.name](pooled.values)
+    found = integer_scores(scores)
+    if found is None:
+        return None
+    integers, scale = found
+    strata = tuple((integers[start:start + size], sizes[0]) for start, size, sizes in pooled.blocks)
+    if sum(dp_work(s, k) for s, k in strata) > WORK_LIMIT:
+        return None
+    return _DpPlan(strata, scale, scores)
+
+
+def _dp_null(pooled: _Pooled, statistic: Statistic, plan: _DpPlan) -> tuple[np.ndarray, np.ndarray]:
+    """Support of the exact null (statistic values) and the number of arrangements at each."""
+    offset, counts = sum_distribution(plan.strata)
+    keep = counts > 0
+    sums = (offset + np.flatnonzero(keep)) / plan.scale  # S1 in score units
+    x = pooled.values
+    n1 = int(pooled.slots[0].size)
+    n2 = x.shape[0] - n1
+    total = float(plan.scores.sum())
+    if statistic.name == "rank_sum":
+        values = sums
+    elif statistic.name == "risk_ratio":
+        with np.errstate(divide="ignore", invalid="ignore"):
+            values = (sums / n1) / ((total - sums) / n2)
+    else:
+        diff = sums / n1 - (total - sums) / n2
+        if statistic.name == "t_pooled":
+            # within-group sum of squares from the fixed Σx² and the group sums
+            within = float(np.sum(x * x)) - sums ** 2 / n1 - (total - sums) ** 2 / n2
+            with np.errstate(invalid="ignore", divide="ignore"):
+                values = diff / np.sqrt(np.maximum(within, 0.0) / (n1 + n2 - 2) * (1.0 / n1 + 1.0 / n2))
+        else:
+            values = diff
+    return values, counts[keep]
 
 
 def _evaluate(pooled: _Pooled, statistic: Statistic, batches: Iterator[tuple[np.ndarray, ...]],
-              total: int) -> np.ndarray:
+              total: int, *, fast: bool = True) -> np.ndarray:
     """Statistic over batches of arrangements; a batch gives each group's pooled positions per row."""
     out = np.empty(total, dtype=np.float64)
     done = 0
+    mean_form = fast and statistic.form == "mean" and len(pooled.slots) == 2 and pooled.values.ndim == 1
+    if mean_form:
+        n1, n2 = pooled.slots[0].size, pooled.slots[1].size
+        grand = float(pooled.values.sum())
     for positions in batches:
-        groups = [take_observations(pooled.values, p) for p in positions]
+        rows = positions[0].shape[0]
         with np.errstate(invalid="ignore", divide="ignore"):  # reported by the caller
-            out[done:done + positions[0].shape[0]] = statistic.compute(*groups)
-        done += positions[0].shape[0]
+            if mean_form:
+                # the fast path: only the first group's sum is gathered (DESIGN §7)
+                first = pooled.values[positions[0]].sum(axis=1)
+                out[done:done + rows] = first / n1 - (grand - first) / n2
+            else:
+                groups = [take_observations(pooled.values, p) for p in positions]
+                out[done:done + rows] = statistic.compute(*groups)
+        done += rows
     assert done == total
     return out
 
@@ -200,9 +317,12 @@ def _random(pooled: _Pooled, stream: Stream, resamples: int,
 
 
 def _enumerate(pooled: _Pooled, rows_per_batch: int) -> Iterator[tuple[np.ndarray, ...]]:
-    """Every arrangement, in chunks: group 1 takes the chosen positions, group 2 the rest."""
+    """Every arrangement, in chunks: for two groups group 1 takes the chosen positions, group 2 the rest."""
+    if len(pooled.slots) > 2:
+        yield from _enumerate_k(pooled, rows_per_batch)
+        return
     total = pooled.values.shape[0]
-    blocks = [(start, size, first) for start, size, first in pooled.blocks if first > 0]
+    blocks = [(start, size, sizes[0]) for start, size, sizes in pooled.blocks if sizes[0] > 0]
     width = sum(first for _, _, first in blocks)
     for chosen in _combination_product(blocks, rows_per_batch):
         rows = chosen.shape[0]
@@ -211,6 +331,37 @@ def _enumerate(pooled: _Pooled, rows_per_batch: int) -> Iterator[tuple[np.ndarra
         taken[(chosen + row_offset).ravel()] = True
         rest = np.flatnonzero(~taken).reshape(rows, total - width) - row_offset
         yield chosen, rest
+
+
+def _label_sequences(size: int, sizes: tuple[int, ...]) -> Iterator[np.ndarray]:
+    """Distinct group-label sequences of one stratum block: group 1's positions, then group 2's among
+    the rest, ... each in lexicographic order of ``itertools.combinations``."""
+    def walk(free: tuple[int, ...], g: int, labels: np.ndarray) -> Iterator[np.ndarray]:
+        if g == len(sizes) - 1:
+            labels[list(free)] = g
+            yield labels.copy()
+            return
+        for chosen in itertools.combinations(free, sizes[g]):
+            labels[list(chosen)] = g
+            picked = set(chosen)
+            yield from walk(tuple(i for i in free if i not in picked), g + 1, labels)
+    yield from walk(tuple(range(size)), 0, np.zeros(size, dtype=np.int64))
+
+
+def _enumerate_k(pooled: _Pooled, rows_per_batch: int) -> Iterator[tuple[np.ndarray, ...]]:
+    """k groups: label sequences per stratum, combined by ``itertools.product``; positions of each
+    group in increasing order (a stable argsort of the labels)."""
+    per_stratum = [np.array(list(_label_sequences(size, sizes))) for _, size, sizes in pooled.blocks]
+    totals = np.cumsum([0] + [s.size for s in pooled.slots])
+    combos = itertools.product(*[range(p.shape[0]) for p in per_stratum])
+    while True:
+        chunk = list(itertools.islice(combos, rows_per_batch))
+        if not chunk:
+            return
+        index = np.array(chunk, dtype=np.int64).reshape(len(chunk), len(per_stratum))
+        labels = np.hstack([p[index[:, h]] for h, p in enumerate(per_stratum)])
+        order = np.argsort(labels, axis=1, kind="stable")
+        yield tuple(order[:, totals[g]:totals[g + 1]] for g in range(len(pooled.slots)))
 
 
 def _combination_product(blocks: list[tuple[int, int, int]], rows_per_batch: int) -> Iterator[np.ndarray]:

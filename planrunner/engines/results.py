@@ -130,3 +130,16 @@ class PermutationResult:
     scheme: str
     warnings: tuple[EngineWarning, ...] = ()
     conventions: dict[str, str] = field(default_factory=dict)
+    # added for the complete permutation tests; defaults keep older constructions valid
+    p_greater: float | None = None
+    p_less: float | None = None
+    count_absolute: float | None = None  # |T* − centre| ≥ |t − centre| − tolerance
+    centre: float = 0.0
+    monte_carlo_se: float | None = None  # sqrt(p (1 − p) / m); None when exact
+    p_interval: tuple[float, float] | None = None  # Clopper–Pearson for the full-enumeration p
+    smallest_p: float | None = None  # the smallest p-value these arrangements can give
+    null_weights: np.ndarray | None = None  # arrangements at each null value (exact DP); None: one each
+    computation: str = "enumeration"  # enumeration | dynamic programming | Monte Carlo
+    intervals: tuple[Interval, ...] = ()
+    shift_estimate: float | None = None
+    design: dict[str, object] = field(default_factory=dict)

@@ -69,8 +69,8 @@ class Statistic:
             raise ValueError(f"outcome must be 'numeric' or 'binary', got {self.outcome!r}")
         if self.form not in (None, "mean", "median", "quantile"):
             raise ValueError(f"unknown form {self.form!r}")
-        if self.samples < 1 or self.columns < 1:
-            raise ValueError("samples and columns must be >= 1")
+        if self.samples < 0 or self.columns < 1:
+            raise ValueError("samples must be >= 0 (0: two or more groups) and columns >= 1")
 
 
 STATISTICS: dict[str, Statistic] = {}
@@ -326,9 +326,10 @@ def check_samples(samples: Sequence[np.ndarray], statistic: Statistic, *, minimu
     Raises EngineError for a wrong number of groups, a wrong shape, a group smaller than
     ``minimum``, a non-finite value, or a non-0/1 value for a binary statistic.
     """
-    if len(samples) != statistic.samples:
+    if len(samples) != statistic.samples and not (statistic.samples == 0 and len(samples) >= 2):
+        wanted = "two or more" if statistic.samples == 0 else statistic.samples
         raise EngineError(
-            f"statistic {statistic.name!r} takes {statistic.samples} group(s), got {len(samples)}",
+            f"statistic {statistic.name!r} takes {wanted} group(s), got {len(samples)}",
             hint="check the groups of the analysis")
     out = []
     for g, raw in enumerate(samples):
@@ -394,3 +395,7 @@ def take_observations(a: np.ndarray, index: np.ndarray) -> np.ndarray:
     if a.ndim == 1:
         return a[index]
     return np.stack([a[:, c][index] for c in range(a.shape[1])], axis=-2)
+
+
+# test statistics for permutation tests live in their own module and register themselves here
+from planrunner.engines import teststats as _teststats  # noqa: E402,F401

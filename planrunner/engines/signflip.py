@@ -1,0 +1,173 @@
+"""Paired permutation test: the two labels swapped within each pair (a sign-flip of d = x − y).
+
+Null: within each pair the two measurements are exchangeable, so each of the 2ⁿ patterns of swaps
+is equally likely (Fisher 1935 §21). Every pattern is counted, duplicates included (a zero
+difference gives two equal patterns; REFERENCES PT-SLEEP).
+
+Pattern j (exact enumeration, j = 0 … 2ⁿ − 1) swaps pair i when bit i of j is 1; pattern 0 is the
+observed arrangement. Monte Carlo resample r takes its swaps from random bits: row r of the
+stream's draws is ``ceil(n / 64)`` 64-bit words ``gen.integers(0, 2**64, dtype=uint64)`` and pair i
+is swapped when bit i % 64 of word i // 64 is 1. Block b of rows comes from ``stream.generator(b)``.
+
+Plain computation: the statistic of the two groups after the swaps. Fast paths, for statistics of
+the differences alone (checked equal to the plain computation in tests): a difference of means is
+Σ sᵢdᵢ / n (sᵢ = ±1); the signed rank T+ is Σ rᵢ [sᵢdᵢ > 0] with the ranks rᵢ of |dᵢ| fixed. For those
+two, integer-valued |d| or ranks give the exact null by dynamic programming over subset sums
+(each pair adds its score or not), reaching any n the plan can hold.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Iterator
+
+import numpy as np
+from scipy.stats import rankdata
+
+from planrunner.engines.exactdist import integer_scores
+from planrunner.engines.permutation import ALTERNATIVES, ENUMERATION_LIMIT, EXACT_CHOICES, TIE_TOLERANCE
+from planrunner.engines.pvalues import TWO_SIDED_RULES, summarize
+from planrunner.engines.results import EngineWarning, PermutationResult, frozen_array
+from planrunner.engines.statistics import Statistic, check_samples
+from planrunner.engines.streams import DRAW_BLOCK, Stream
+from planrunner.errors import EngineError
+
+__all__ = ["signflip_test", "swap_bits"]
+
+DP_WIDTH_LIMIT = 5_000_000  # largest subset-sum table (doubles, 40 MB) the exact shortcut may build
+DP_WORK_LIMIT = 2_000_000_000  # pairs × table width
+
+
+def swap_bits(stream: Stream, pairs: int, start: int, stop: int) -> np.ndarray:
+    """Swap indicators of resamples start … stop − 1, shape (stop − start, pairs), from random bits."""
+    words = -(-pairs // 64)
+    out = np.empty((stop - start, pairs), dtype=bool)
+    row = start
+    while row < stop:
+        block, offset = divmod(row, DRAW_BLOCK)
+        count = min(stop - row, DRAW_BLOCK - offset)
+        gen = stream.generator(block)
+        if offset:
+            gen.bit_generator.advance(offset * words)  # one 64-bit output per full-range word
+        drawn = gen.integers(0, 2**64, size=(count, words), dtype=np.uint64, endpoint=False)
+        bits = np.unpackbits(drawn.view(np.uint8).reshape(count, words * 8), axis=1, bitorder="little")
+        out[row - start:row - start + count] = bits[:, :pairs].astype(bool)
+        row += count
+    return out
+
+
+def _patterns(pairs: int, start: int, stop: int) -> np.ndarray:
+    j = np.arange(start, stop, dtype=np.int64)[:, None]
+    return ((j >> np.arange(pairs, dtype=np.int64)[None, :]) & 1).astype(bool)
+
+
+def _scores(statistic: Statistic, d: np.ndarray) -> np.ndarray | None:
+    """Per-pair scores when the statistic is a function of the swapped differences alone."""
+    if statistic.form == "mean":
+        return np.abs(d)
+    if statistic.name == "signed_rank":
+        ranks = np.zeros(d.size)
+        nonzero = d != 0
+        if nonzero.any():
+            ranks[nonzero] = rankdata(np.abs(d[nonzero]))
+        return ranks
+    return None
+
+
+def signflip_test(x: np.ndarray, y: np.ndarray, statistic: Statistic, *, resamples: int, alternative: str,
+                  stream: Stream, exact: str = "auto", two_sided: str = "doubled", alpha: float | None = None,
+                  fast: bool = True, batch_elements: int = 2_000_000) -> PermutationResult:
+    """Sign-flip test of a two-group ``statistic`` on pairs (x[i], y[i])."""
+    if statistic.samples != 2:
+        raise EngineError(f"a paired test needs a two-group statistic; {statistic.name!r} is not one")
+    if alternative not in ALTERNATIVES or exact not in EXACT_CHOICES or two_sided not in TWO_SIDED_RULES:
+        raise EngineError("unknown alternative, exact or two-sided choice",
+                          hint=f"alternative: {ALTERNATIVES}; exact: {EXACT_CHOICES}; two_sided: {TWO_SIDED_RULES}")
+    x, y = check_samples([x, y], statistic, method="the paired test")
+    if x.shape != y.shape:
+        raise EngineError(f"pairs must have one value in each group; got {x.size} and {y.size}")
+    n = x.size
+    d = x - y
+    with np.errstate(invalid="ignore", divide="ignore"):  # a non-finite value is reported below
+        observed = float(statistic.compute(x, y))
+    if not math.isfinite(observed):
+        raise EngineError(f"the statistic {statistic.name!r} is not finite on the data")
+    arrangements = 2 ** n
+    scores = _scores(statistic, d)
+    integer = integer_scores(scores) if scores is not None else None
+    width = int(integer[0].sum()) + 1 if integer is not None else 0
+    dp_ok = integer is not None and width <= DP_WIDTH_LIMIT and n * width <= DP_WORK_LIMIT
+
+    if exact == "always" and arrangements > ENUMERATION_LIMIT and not dp_ok:
+        raise EngineError(
+            f"exact enumeration asked for, but there are {arrangements:,} sign patterns "
+            f"(the limit is {ENUMERATION_LIMIT:,}) and no exact shortcut applies to {statistic.name!r}",
+            hint="use exact: never (Monte Carlo) or exact: auto")
+    if exact == "never":
+        path = "Monte Carlo"
+    elif arrangements <= (resamples if exact == "auto" else ENUMERATION_LIMIT):
+        path = "enumeration"
+    else:
+        path = "dynamic programming" if dp_ok else "Monte Carlo"
+
+    weights = None
+    centre = 0.0
+    if scores is not None and statistic.name == "signed_rank":
+        centre = float(scores.sum()) / 2.0
+    if path == "dynamic programming":
+        assert integer is not None
+        ints, scale = integer
+        counts = np.ones(1)
+        for a in ints:  # each pair adds its score (positive sign) or not: counts over subset sums
+            grown = np.zeros(counts.size + int(a))
+            grown[:counts.size] += counts
+            grown[int(a):] += counts
+            counts = grown
+        keep = counts > 0
+        positive = np.flatnonzero(keep) / scale
+        null = positive if statistic.name == "signed_rank" else (2.0 * positive - np.abs(d).sum()) / n
+        weights = counts[keep]
+    else:
+        total = arrangements if path == "enumeration" else resamples
+        rows_per_batch = max(1, batch_elements // max(1, 2 * n))
+        null = np.empty(total)
+        for start in range(0, total, rows_per_batch):
+            stop = min(total, start + rows_per_batch)
+            swaps = _patterns(n, start, stop) if path == "enumeration" else swap_bits(stream, n, start, stop)
+            null[start:stop] = _evaluate(statistic, x, y, d, scores, swaps, fast)
+    tolerance = TIE_TOLERANCE * max(abs(observed), float(np.max(np.abs(np.concatenate([x, y])))))
+    pv = summarize(null, observed, exact=path != "Monte Carlo", alternative=alternative, two_sided=two_sided,
+                   tolerance=tolerance, center=centre, weights=weights, alpha=alpha, arrangements=arrangements)
+    warnings = list(pv.warnings)
+    if np.all(d == 0):
+        warnings.append(EngineWarning("degenerate-distribution",
+                                      "every pair difference is zero: swaps change nothing and p = 1"))
+    return PermutationResult(
+        observed=observed, p_value=pv.p_value, alternative=alternative, two_sided_rule=two_sided,
+        exact=path != "Monte Carlo", arrangements=arrangements,
+        resamples=int(null.size) if weights is None else arrangements, count_greater=pv.count_greater,
+        count_less=pv.count_less, null=frozen_array(null), tolerance=tolerance, n=(n, n),
+        scheme="sign-flip within pairs (the two labels swapped within each pair)", warnings=tuple(warnings),
+        conventions={"p_value": "exact: count / 2^n sign patterns (duplicates counted); Monte Carlo: "
+                                "(count + 1) / (resamples + 1)",
+                     "draws": "random bits: ceil(n/64) uint64 words per resample, pair i swapped when bit i is 1"},
+        p_greater=pv.p_greater, p_less=pv.p_less, count_absolute=pv.count_absolute, centre=centre,
+        monte_carlo_se=pv.monte_carlo_se, p_interval=pv.p_interval, smallest_p=pv.smallest_p,
+        null_weights=None if weights is None else frozen_array(weights), computation=path,
+        design={"pairs": n})
+
+
+def _evaluate(statistic: Statistic, x: np.ndarray, y: np.ndarray, d: np.ndarray, scores: np.ndarray | None,
+              swaps: np.ndarray, fast: bool) -> np.ndarray:
+    with np.errstate(invalid="ignore", divide="ignore"):
+        if fast and scores is not None:
+            if statistic.name == "signed_rank":
+                # T+ = Σ r_i over pairs whose swapped difference is positive
+                positive = np.where(swaps, d < 0, d > 0)
+                # row-wise sums (not a BLAS product) so a batch of any size gives identical bits
+                return np.where(positive, scores, 0.0).sum(axis=1)
+            return np.where(swaps, -d, d).sum(axis=1) / d.size
+        xs = np.where(swaps, y, x)
+        ys = np.where(swaps, x, y)
+        return statistic.compute(xs, ys)
+
