@@ -99,9 +99,10 @@ def write_run(out_root: Path, name: str, record: dict) -> Path:
     staging = out_root / f".staging-{name}-{os.getpid()}"
     staging.mkdir()
     try:
-        files = {"record.json": to_json(record), "report.html": report.render(record, "html"),
-                 "report.md": report.render(record, "md")}
+        # report.html, report.md and the figures/*.svg files the Markdown report links to
+        files = {"record.json": to_json(record), **report.render_all(record)}
         for filename, text in files.items():
+            (staging / filename).parent.mkdir(parents=True, exist_ok=True)
             with open(staging / filename, "w", encoding="utf-8", newline="\n") as handle:
                 handle.write(text)
                 handle.flush()
