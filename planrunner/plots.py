@@ -51,7 +51,7 @@ class Plot:
     alt: str
 
 
-Formatter = Callable[[Any], str]
+Formatter = Callable[..., str]
 
 
 def axis_label(entry: dict[str, Any], prefix: str = "") -> str:
@@ -198,7 +198,7 @@ def null_plot(entry: dict[str, Any], fmt: Formatter, fmt_p: Formatter) -> Plot |
         relation = "at or above" if side == "greater" else "at or below"
         tail = (f"; shaded: the {details.get(count_key)} values {relation} the observed value"
                 f"{', doubled for the two-sided p-value' if entry.get('alternative') == 'two-sided' else ''}"
-                f" (p = {fmt_p(entry.get('p_value'))})")
+                f" (p = {fmt_p(entry.get('p_value'), (entry.get('monte_carlo') or {}).get('p_value_sd'))})")
     alt = (f"Histogram of the permutation null distribution ({size} {what}) of the {axis_label(entry)}, "
            f"from {fmt(edges[0])} to {fmt(edges[-1])}; the observed value {fmt(observed)} is a solid black "
            f"line{tail}.")
