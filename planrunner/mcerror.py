@@ -5,8 +5,9 @@ replicates fall below the ideal (B = ∞) quantile is Binomial(B, q), so the ran
 quantile occupies varies by s = √(B q (1 − q)) ranks from run to run. The replicates at ranks
 k ± ⌈z s⌉ therefore bracket the endpoint of an infinitely long run with about the coverage of z
 (the distribution-free order-statistic interval for a quantile; David & Nagaraja, *Order
-Statistics*, §7.1, from memory). Half the width of that band divided by z estimates the Monte Carlo
-s.d. of the endpoint, √(q(1−q)/B) / f(x_q) (REFERENCES.md §3), without estimating the density f.
+Statistics*, §7.1, from memory). The spread of the replicates over ranks k ± s estimates the Monte
+Carlo s.d. of the endpoint, √(q(1−q)/B) / f(x_q) (REFERENCES.md §3), without estimating the
+density f.
 
 The levels used are the interval's own `quantile_levels` (for BCa the adjusted levels, taken as
 fixed: the Monte Carlo wobble of z0 is not included). An endpoint that is not the replicate read at
@@ -23,18 +24,32 @@ import numpy as np
 from .engines.bootstrap import quantile_rank
 
 BAND_Z = 1.959963984540054  # Φ⁻¹(0.975): the band brackets the B = ∞ endpoint about 95% of the time
-RULE = ("ranks ceil(qB) ± ceil(z·sqrt(B q (1-q))) of the sorted replicates, z = 1.96 "
-        "(order-statistic band for a quantile); sd = half width / z; q = the interval's quantile levels")
+RULE = ("band: ranks ceil(qB) ± ceil(z·s) of the sorted replicates, s = sqrt(B q (1-q)), z = 1.96 "
+        "(order-statistic band for a quantile); sd = (x_(k+r) - x_(k-r))·s / (2r), r = max(1, round(s)); "
+        "q = the interval's quantile levels")
 
 
 def quantile_band(ordered: np.ndarray, level: float, z: float = BAND_Z) -> tuple[float, float, float]:
-    """(low, high, sd) of the inverse-CDF quantile at `level` of the sorted replicates `ordered`."""
+    """(low, high, sd) of the inverse-CDF quantile at `level` of the sorted replicates `ordered`.
+
+    The band is ranks k ± ⌈z s⌉; the s.d. is read from the narrower ranks k ± r, r = max(1, round(s)),
+    as (x_(k+r) − x_(k−r)) · s / (rank distance): a narrower difference quotient of the quantile
+    function is less biased where the density changes fast (far tails).
+    """
     b = ordered.shape[0]
     k = quantile_rank(level, b)
-    step = math.ceil(z * math.sqrt(b * level * (1.0 - level)))
-    low = float(ordered[max(k - step, 1) - 1])
-    high = float(ordered[min(k + step, b) - 1])
-    return low, high, (high - low) / (2.0 * z)
+    s = math.sqrt(b * level * (1.0 - level))
+
+    def at(rank: int) -> tuple[int, float]:
+        rank = min(max(rank, 1), b)
+        return rank, float(ordered[rank - 1])
+
+    step = math.ceil(z * s)
+    (_, low), (_, high) = at(k - step), at(k + step)
+    r = max(1, round(s))
+    (r_lo, x_lo), (r_hi, x_hi) = at(k - r), at(k + r)
+    sd = (x_hi - x_lo) * s / (r_hi - r_lo) if r_hi > r_lo else 0.0
+    return low, high, sd
 
 
 def interval_bands(distribution: np.ndarray, estimate: float,

@@ -117,7 +117,7 @@ def plain(value: Any) -> str:
 def _analysis_view(index: int, entry: dict[str, Any]) -> dict[str, Any]:
     """What the templates need beyond the record entry: pictures and warnings sorted by concern."""
     figures = []
-    for k, plot in enumerate(plots.plots_for(entry, significant, precision.p_value)):
+    for k, plot in enumerate(_plots(json.dumps(entry, sort_keys=True, ensure_ascii=False))):
         figures.append({"name": plot.name, "file": f"{FIGURES_FOLDER}/{plot.name}.svg", "alt": plot.alt,
                         "svg": plot.svg, "inline": Markup(plots.inline_svg(plot, f"f{index}-{k}-", _escape_text))})
     concerns: dict[str, list[dict[str, Any]]] = {}
@@ -134,6 +134,12 @@ def _analysis_view(index: int, entry: dict[str, Any]) -> dict[str, Any]:
     bands = (entry.get("monte_carlo") or {}).get("intervals") or []
     return {"figures": figures, "warnings": concerns,
             "bands": [bands[i] if i < len(bands) else {} for i in range(len(entry.get("intervals") or []))]}
+
+
+@functools.lru_cache(maxsize=64)
+def _plots(entry_json: str) -> tuple[plots.Plot, ...]:
+    """The pictures of one record entry; drawing is slow and pure, so the same entry is drawn once."""
+    return tuple(plots.plots_for(json.loads(entry_json), significant, precision.p_value))
 
 
 def _adjusted_view(record: dict[str, Any]) -> dict[str, list[dict[str, Any]]]:
