@@ -22,6 +22,9 @@ from typing import Any, Callable
 
 import matplotlib
 from matplotlib.figure import Figure
+from matplotlib.ticker import MaxNLocator
+
+from .engines.statistics import STATISTICS
 
 # Okabe & Ito (2008) colours, each paired with a line style so that greyscale keeps them apart
 BLUE, GREEN, PURPLE, ORANGE, VERMILLION, SKY = "#0072B2", "#009E73", "#CC79A7", "#E69F00", "#D55E00", "#56B4E9"
@@ -54,15 +57,24 @@ class Plot:
 Formatter = Callable[..., str]
 
 
+def in_outcome_units(statistic: str | None) -> bool:
+    """Whether the statistic is measured in the outcome's unit: a mean or a median of a numeric
+    outcome, or a difference of two. A correlation, a proportion or a statistic we know nothing
+    about gets no unit rather than a wrong one."""
+    known = STATISTICS.get(statistic or "")
+    return known is not None and known.outcome == "numeric" and known.form in ("mean", "median") and known.columns == 1
+
+
 def axis_label(entry: dict[str, Any], prefix: str = "") -> str:
     label = f"{prefix}{entry.get('statistic_label') or entry.get('statistic') or 'statistic'}"
-    return f"{label} ({entry['unit']})" if entry.get("unit") else label
+    return f"{label} ({entry['unit']})" if entry.get("unit") and in_outcome_units(entry.get("statistic")) else label
 
 
 def _bars(ax: Any, hist: dict[str, Any]) -> int:
     edges, counts = hist["edges"], hist["counts"]
     ax.stairs(counts, edges, fill=True, color=BAR, label="_bars")
     ax.stairs(counts, edges, color=BAR_EDGE, linewidth=0.6)
+    ax.yaxis.set_major_locator(MaxNLocator(integer=True))  # counts are whole numbers
     return max(counts) if counts else 0
 
 

@@ -310,3 +310,12 @@ def test_ci_installs_chromium_before_the_readme_test_command():
     install = next(i for i, line in enumerate(lines) if "apt-get install" in line and "chromium" in line)
     tests = next(i for i, line in enumerate(lines) if line.startswith("python3 -m venv .venv"))
     assert install < tests
+
+
+def test_unit_only_on_statistics_measured_in_it(demo):
+    by_id = {a["id"]: a for a in demo.record["analyses"]}
+    assert plots.axis_label(by_id["mean-shift-test"]) == "difference in means (minutes)"
+    correlation = dict(by_id["mean-shift-test"], statistic="correlation", statistic_label="Pearson correlation")
+    assert plots.axis_label(correlation) == "Pearson correlation"  # a correlation has no unit
+    proportion = dict(by_id["mean-shift-test"], statistic="proportion", statistic_label="proportion of 1s")
+    assert plots.axis_label(proportion) == "proportion of 1s"
