@@ -319,3 +319,21 @@ def test_unit_only_on_statistics_measured_in_it(demo):
     assert plots.axis_label(correlation) == "Pearson correlation"  # a correlation has no unit
     proportion = dict(by_id["mean-shift-test"], statistic="proportion", statistic_label="proportion of 1s")
     assert plots.axis_label(proportion) == "proportion of 1s"
+
+
+def test_markdown_renders_without_live_html_links_or_images(demo):
+    """Through a CommonMark parser with GFM tables (markdown-it-py), as a code-review page would."""
+    markdown_it = pytest.importorskip("markdown_it")
+    record = hostile_record(demo)
+    html = markdown_it.MarkdownIt("commonmark", {"html": True}).enable("table").render(report.render(record, "md"))
+    assert "<script" not in html and "<b>" not in html  # raw HTML in the source would pass through here
+    assert "&lt;script&gt;alert" in html
+    links = re.findall(r'<a href="([^"]*)"', html)
+    assert links == []
+    images = re.findall(r'<img src="([^"]*)"', html)
+    assert images == [f"figures/{a['id']}-{kind}.svg" for a, kind in zip(
+        record["analyses"], ("resampling", "null", "null", "pseudo-values"))]
+    summary = html[html.index("Results at a glance"):]
+    summary = summary[:summary.index("</table>")]
+    assert summary.count("<tr>") == 1 + len(record["analyses"])
+    assert all(row.count("<td") == 7 for row in summary.split("<tr>")[2:])
