@@ -165,7 +165,8 @@ def _escape_text(text: str) -> str:
 def _context(record: dict[str, Any]) -> dict[str, Any]:
     return {"record": record,
             "views": {a["id"]: _analysis_view(i, a) for i, a in enumerate(record["analyses"])},
-            "adjusted": _adjusted_view(record)}
+            "adjusted": _adjusted_view(record),
+            "p_sd": {a["id"]: (a.get("monte_carlo") or {}).get("p_value_sd") for a in record["analyses"]}}
 
 
 def _render(context: dict[str, Any], kind: str) -> str:
