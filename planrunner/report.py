@@ -20,7 +20,7 @@ from typing import Any
 import jinja2
 from markupsafe import Markup, escape
 
-from . import plots, precision
+from . import precision
 from .precision import significant
 
 
@@ -116,6 +116,8 @@ def plain(value: Any) -> str:
 
 def _analysis_view(index: int, entry: dict[str, Any]) -> dict[str, Any]:
     """What the templates need beyond the record entry: pictures and warnings sorted by concern."""
+    from . import plots
+
     figures = []
     for k, plot in enumerate(_plots(json.dumps(entry, sort_keys=True, ensure_ascii=False))):
         figures.append({"name": plot.name, "file": f"{FIGURES_FOLDER}/{plot.name}.svg", "alt": plot.alt,
@@ -139,6 +141,8 @@ def _analysis_view(index: int, entry: dict[str, Any]) -> dict[str, Any]:
 @functools.lru_cache(maxsize=64)
 def _plots(entry_json: str) -> tuple[plots.Plot, ...]:
     """The pictures of one record entry; drawing is slow and pure, so the same entry is drawn once."""
+    from . import plots  # matplotlib loads only when a report is drawn (not for `check` or `--version`)
+
     return tuple(plots.plots_for(json.loads(entry_json), significant, precision.p_value))
 
 
@@ -182,6 +186,8 @@ def render(record: dict[str, Any], kind: str) -> str:
 def render_all(record: dict[str, Any]) -> dict[str, str]:
     """Every report file of a run, by path relative to the run folder: report.html, report.md and
     the pictures the Markdown report links to (figures/NAME.svg). The pictures are drawn once."""
+    from . import plots
+
     context = _context(record)
     files = {"report.html": _render(context, "html"), "report.md": _render(context, "md")}
     for view in context["views"].values():
