@@ -337,3 +337,31 @@ def test_markdown_renders_without_live_html_links_or_images(demo):
     summary = summary[:summary.index("</table>")]
     assert summary.count("<tr>") == 1 + len(record["analyses"])
     assert all(row.count("<td") == 7 for row in summary.split("<tr>")[2:])
+
+
+def test_bands_and_figures_do_not_depend_on_order_other_analyses_or_batch_size(write_plan, tmp_path, monkeypatch):
+    import test_reproducibility as repro  # the same small plan as the numbers' own invariance tests
+
+    def run(order, name):
+        plan = write_plan(repro.HEADER + "".join(repro.ANALYSES[k] for k in order),
+                          {"mice.csv": repro.csv_of_groups("days", {"treatment": repro.TREATMENT,
+                                                                    "control": repro.CONTROL})},
+                          name=f"{name}.yaml")
+        outcome = run_plan(plan, out=tmp_path / f"out-{name}", clock=fixed_clock)
+        entries = {a["id"]: a for a in outcome.record["analyses"]}
+        figures = {p.name: p.read_bytes() for p in (outcome.folder / "figures").iterdir()}
+        return entries, figures
+
+    a, figures_a = run(["boot", "perm"], "a")
+    b, figures_b = run(["perm", "extra", "boot"], "b")
+    import planrunner.execute as execute
+
+    real_bootstrap, real_permutation = execute.bootstrap, execute.permutation_test
+    monkeypatch.setattr(execute, "bootstrap", lambda *x, **k: real_bootstrap(*x, batch_elements=17, **k))
+    monkeypatch.setattr(execute, "permutation_test", lambda *x, **k: real_permutation(*x, batch_elements=17, **k))
+    c, figures_c = run(["boot", "perm"], "c")
+    assert a["boot"]["monte_carlo"]["intervals"][0]["lower_band"] is not None
+    for other, figures in ((b, figures_b), (c, figures_c)):
+        assert other["boot"]["monte_carlo"] == a["boot"]["monte_carlo"]
+        for name in ("boot-resampling.svg", "perm-null.svg"):
+            assert figures[name] == figures_a[name], name
