@@ -21,12 +21,13 @@ from . import __version__
 from .compile import Job
 from .engines.streams import DRAW_BLOCK, GENERATOR
 from .io import Table
+from .mcerror import RULE as MC_INTERVAL_RULE, interval_bands
 from .multiplicity import METHOD_NAMES, adjust, max_t_families
 from .permrecord import family_floor_warnings, permutation_fields
 from .plancheck import LoadedPlan
 
 FORMAT = "planrunner.record/1"
-PACKAGES = ("numpy", "scipy", "pandas", "pydantic", "pyyaml", "jinja2")
+PACKAGES = ("numpy", "scipy", "pandas", "pydantic", "pyyaml", "jinja2", "matplotlib")
 CAUTION = (
     "These results are computations under the assumptions stated in the plan and in this record "
     "(the resampling scheme, the statistic, the data as read). They are not a decision. Decisions "
@@ -193,6 +194,9 @@ def analysis_entry(loaded: LoadedPlan, analysis: Any, job: Job, result: Any) -> 
             entry["distribution"]["values"] = [float(v) for v in result.distribution]
             if result.weights is not None:
                 entry["distribution"]["weights"] = [float(v) for v in result.weights]
+        # Monte Carlo band and s.d. of each interval endpoint (planrunner/mcerror.py)
+        entry["monte_carlo"]["intervals"] = interval_bands(result.distribution, result.estimate, result.intervals)
+        entry["monte_carlo"]["interval_rule"] = MC_INTERVAL_RULE
     elif analysis.method == "permutation":
         entry.update(permutation_fields(result, bins))
     else:

@@ -176,8 +176,8 @@ def write_run(out_root: Path, name: str, record: dict) -> Path:
     """
     if not _single_name(name):  # plan ids are validated by the schema; this guards the runner itself
         raise ValueError(f"run folder name {name!r} is not a single plain folder name")
-    files = {"record.json": to_json(record), "report.html": report.render(record, "html"),
-             "report.md": report.render(record, "md")}
+    # report.html, report.md and the figures/*.svg files the Markdown report links to
+    files = {"record.json": to_json(record), **report.render_all(record)}
     try:
         out_root.mkdir(parents=True, exist_ok=True)
     except OSError as exc:
@@ -186,6 +186,7 @@ def write_run(out_root: Path, name: str, record: dict) -> Path:
     staging = _new_staging(out_root, name)
     try:
         for filename, text in files.items():
+            (staging / filename).parent.mkdir(parents=True, exist_ok=True)
             with open(staging / filename, "w", encoding="utf-8", newline="\n") as handle:
                 handle.write(text)
                 handle.flush()

@@ -45,7 +45,7 @@ analyses:
     resamples: 199
 """
 DATA = "g,y\na,1.5\na,2.5\na,3.0\na,2.0\nb,0.5\nb,4.0\nb,2.0\nb,1.0\n"
-FILES = ["record.json", "report.html", "report.md"]
+FILES = ["figures", "record.json", "report.html", "report.md"]  # figures/ holds the Markdown report's pictures
 
 
 @pytest.fixture

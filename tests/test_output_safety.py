@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import re
 
-from planrunner.report import code_fence
+from planrunner.report import markdown_fence as code_fence
 from planrunner.runner import run_plan
 
 from conftest import fixed_clock

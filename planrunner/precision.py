@@ -1,0 +1,130 @@
+"""How many digits a report shows: no more than the Monte Carlo error supports.
+
+The record keeps every number at full precision; these rules only decide what is printed.
+
+Rule 1 (a number with a Monte Carlo s.d. s > 0): round it to the decimal place of the leading
+digit of s, i.e. to 10^floor(log10 s). The last digit shown is then uncertain by roughly one to
+nine units, and no digit shown is pure noise (the usual convention of quoting a result to the
+first significant digit of its uncertainty; from common practice). At most 6 significant digits.
+Examples: SE 5.7390 with s = 0.036 → 5.74; p = 0.0486 with s = 0.0022 → 0.049.
+
+Rule 2 (a number without Monte Carlo error: an estimate from the data, a jackknife number, an
+exact p-value, or s = 0): 4 significant digits.
+
+Rule 3 (a Monte Carlo s.d. itself): 2 significant digits.
+
+Rule 4 (a p-value): as rules 1–2, but never printed as 0: a Monte Carlo p-value is at least
+1/(m+1); should rounding reach 0 the value is shown to 1 significant digit.
+
+Rule 5 (an adjusted p-value): every adjusted p-value of a family is a function of the family's
+p-values in which each is multiplied by at most F (F = m, the family size, for Bonferroni, Holm,
+Hochberg and Benjamini–Hochberg; F = m·(1 + 1/2 + … + 1/m) for Benjamini–Yekutieli, and used for
+any other method as a cautious bound), so its Monte Carlo s.d. is taken as F × the largest s.d. in
+the family and rule 4 applies with that bound.
+"""
+
+from __future__ import annotations
+
+import math
+from typing import Any, Iterable
+
+SIGNIFICANT = 4
+MAX_SIGNIFICANT = 6
+
+
+def _real(value: Any) -> bool:
+    return isinstance(value, (int, float)) and not isinstance(value, bool) and math.isfinite(value)
+
+
+def significant(value: Any, digits: int = SIGNIFICANT) -> str:
+    """`digits` significant digits; '—' for a missing number; integers as they are."""
+    if value is None:
+        return "—"
+    if isinstance(value, bool) or not isinstance(value, (int, float)):
+        return str(value)
+    if isinstance(value, int):
+        return str(value)
+    if not math.isfinite(value):
+        return str(value)
+    if value == 0:
+        return "0"
+    return f"{value:.{digits}g}"
+
+
+def decimals_for(sd: Any) -> int | None:
+    """Decimal places that rule 1 keeps for a Monte Carlo s.d. (negative: round to tens, ...)."""
+    if not _real(sd) or sd <= 0:
+        return None
+    return -math.floor(math.log10(sd))
+
+
+def _rounded(value: float, decimals: int) -> str:
+    if decimals >= 0:
+        text = f"{value:.{decimals}f}"
+    else:
+        text = f"{round(value, decimals):.0f}"
+    if text.startswith("-") and not any(c in "123456789" for c in text):
+        text = text[1:]  # -0.0 is 0.0
+    return text
+
+
+def with_mc(value: Any, sd: Any) -> str:
+    """Rule 1 where there is a Monte Carlo s.d., else rule 2."""
+    if not _real(value):
+        return significant(value)
+    decimals = decimals_for(sd)
+    if decimals is None:
+        return significant(value)
+    if value != 0:
+        decimals = min(decimals, MAX_SIGNIFICANT - 1 - math.floor(math.log10(abs(value))))
+    return _rounded(float(value), decimals)
+
+
+def mc_sd(sd: Any) -> str:
+    """Rule 3."""
+    if not _real(sd):
+        return "—"
+    return "0" if sd == 0 else f"{sd:.2g}"
+
+
+def p_value(p: Any, sd: Any = None) -> str:
+    """Rule 4."""
+    if p is None:
+        return "—"
+    if not _real(p):
+        return str(p)
+    if decimals_for(sd) is None:
+        return f"{p:.4g}" if p >= 1e-4 or p == 0 else f"{p:.2e}"
+    text = with_mc(p, sd)
+    if p > 0 and float(text) == 0:
+        return f"{p:.1g}"
+    return text
+
+
+def family_factor(method: str, size: int) -> float:
+    """F of rule 5."""
+    if method in ("bonferroni", "holm", "hochberg", "bh"):
+        return float(size)
+    return size * sum(1.0 / i for i in range(1, size + 1))
+
+
+def adjusted_sd(method: str, sds: Iterable[Any]) -> float | None:
+    """Rule 5's bound on the Monte Carlo s.d. of the family's adjusted p-values (None: no MC error)."""
+    values = list(sds)
+    known = [s for s in values if _real(s)]
+    if not known or max(known) <= 0:
+        return None
+    return family_factor(method, len(values)) * max(known)
+
+
+def count(value: Any) -> str:
+    """A count as people read it: thousands separated up to 10¹⁵, beyond that in powers of ten (an
+    exact dynamic-programming null can count more arrangements than any integer type holds)."""
+    if not _real(value):
+        return "—"
+    if float(value).is_integer() and abs(value) < 1e15:
+        return f"{int(value):,}"
+    if abs(value) >= 1e15:
+        mantissa, exponent = f"{float(value):.4e}".split("e")
+        return f"{float(mantissa):g} × 10^{int(exponent)}"
+    return significant(value)
