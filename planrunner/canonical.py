@@ -14,6 +14,8 @@ import math
 from dataclasses import dataclass
 from typing import Any
 
+import numpy as np
+
 RECORD_HASH_FIELD = "record_sha256"
 
 
@@ -98,3 +100,15 @@ def _same_leaf(a: Any, b: Any) -> bool:
 
 def _number(x: Any) -> bool:
     return isinstance(x, (int, float)) and not isinstance(x, bool)
+
+
+def plain_number(x: Any) -> Any:
+    """A plain Python number for JSON, at full precision (numpy scalars become bool, int or float;
+    non-finite values are handled by `record.sanitize`)."""
+    if x is None:
+        return None
+    if isinstance(x, (bool, np.bool_)):
+        return bool(x)
+    if isinstance(x, (int, np.integer)):
+        return int(x)
+    return float(x)

@@ -15,16 +15,7 @@ from typing import Any
 import numpy as np
 
 from .multiplicity import adjust
-
-
-def _f(x: Any) -> Any:
-    if x is None:
-        return None
-    if isinstance(x, (bool, np.bool_)):
-        return bool(x)
-    if isinstance(x, (int, np.integer)):
-        return int(x)
-    return float(x)
+from .canonical import plain_number as _f
 
 
 def _count(x: Any) -> Any:

@@ -25,6 +25,7 @@ from .mcerror import RULE as MC_INTERVAL_RULE, interval_bands
 from .multiplicity import METHOD_NAMES, adjust, max_t_families
 from .permrecord import family_floor_warnings, permutation_fields
 from .plancheck import LoadedPlan
+from .canonical import plain_number as _f
 
 FORMAT = "planrunner.record/1"
 PACKAGES = ("numpy", "scipy", "pandas", "pydantic", "pyyaml", "jinja2", "matplotlib")
@@ -51,17 +52,6 @@ def environment() -> dict[str, Any]:
     return {"python": sys.version.split()[0], "implementation": platform.python_implementation(),
             "platform": platform.platform(), "machine": platform.machine(),
             "packages": packages, "planrunner": __version__}
-
-
-def _f(x: Any) -> Any:
-    """Plain Python number for JSON (full precision; non-finite handled by `sanitize`)."""
-    if x is None:
-        return None
-    if isinstance(x, (bool, np.bool_)):
-        return bool(x)
-    if isinstance(x, (int, np.integer)):
-        return int(x)
-    return float(x)
 
 
 def _histogram(values: np.ndarray, bins: int) -> dict[str, Any]:

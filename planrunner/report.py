@@ -57,17 +57,8 @@ def _environment(kind: str) -> jinja2.Environment:
     return env
 
 
-def number(value: Any, digits: int = 4) -> str:
-    """A number to `digits` significant digits; '—' for a missing one."""
-    if value is None:
-        return "—"
-    if isinstance(value, bool) or not isinstance(value, (int, float)):
-        return str(value)
-    if isinstance(value, int):
-        return str(value)
-    if value == 0:
-        return "0"
-    return f"{value:.{digits}g}"
+# the reports' and the terminal's plain number: 4 significant digits, '—' for a missing one
+number = precision.significant
 
 
 def pvalue(value: Any) -> str:
