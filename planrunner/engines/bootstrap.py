@@ -34,6 +34,7 @@ Conventions (also returned in ``BootstrapResult.conventions``):
 
 from __future__ import annotations
 
+import functools
 import math
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
@@ -51,6 +52,8 @@ from planrunner.engines.statistics import (
     take_observations,
     to_compute_layout,
 )
+from planrunner.engines.blocks import map_resamples
+from planrunner.engines.fastpaths import batch_rows, median_rows, median_window
 from planrunner.engines.streams import Stream, UniformRows
 
 __all__ = [
@@ -326,7 +329,52 @@ def _tail_warnings(found: tuple[Interval, ...], ordered: np.ndarray) -> list[Eng
 
 def _draw(layout: _Layout, statistic: Statistic, resamples: int, stream: Stream,
           batch_elements: int) -> np.ndarray:
-    """Run the draw contract; returns the B replicates in resample order."""
+    """Run the draw contract; returns the B replicates in resample order.
+
+    The resamples may be split into ranges computed elsewhere (``blocks.map_resamples``); each
+    range runs the fast kernels of ``_draw_range``, equal bit for bit to ``_draw_plain``.
+    """
+    task = functools.partial(_draw_range, layout, statistic, stream, batch_elements)
+    return map_resamples(task, resamples)
+
+
+def _draw_range(layout: _Layout, statistic: Statistic, stream: Stream, batch_elements: int,
+                start: int, stop: int) -> np.ndarray:
+    """Replicates of resamples [start, stop): the draw contract with cache-sized batches, in-place
+    arithmetic, and the median from a window of the sorted data (``fastpaths``)."""
+    width = int(layout.cell_start.shape[0])
+    rows_per_batch = batch_rows(width * statistic.columns, batch_elements)
+    reader = UniformRows(stream, width, start)
+    total = stop - start
+    out = np.empty(total, dtype=np.float64)
+    median = statistic.form == "median" and statistic.columns == 1
+    windows = [median_window(np.sort(group)) for group in layout.groups] if median else []
+    index_buffer = np.empty((min(rows_per_batch, total), width), dtype=np.int64)
+    done = 0
+    while done < total:
+        rows = min(rows_per_batch, total - done)
+        u = reader.take(rows)
+        np.multiply(u, layout.cell_size, out=u)
+        index = index_buffer[:rows]
+        np.copyto(index, u, casting="unsafe")  # truncation, i.e. floor because u * size >= 0
+        index += layout.cell_start
+        gathered = [take_observations(group, index[:, lo:hi])
+                    for group, (lo, hi) in zip(layout.groups, layout.bounds)]
+        with np.errstate(invalid="ignore", divide="ignore"):
+            if median:
+                # form "median": the group's median, or the first group's minus the second's
+                located = [median_rows(g, w) for g, w in zip(gathered, windows)]
+                out[done:done + rows] = located[0] if len(located) == 1 else located[0] - located[1]
+            else:
+                out[done:done + rows] = statistic.compute(*gathered)
+        done += rows
+    return out
+
+
+def _draw_plain(layout: _Layout, statistic: Statistic, resamples: int, stream: Stream,
+                batch_elements: int) -> np.ndarray:
+    """The draw contract as written, without fast kernels: the reference the fast paths are tested
+    against."""
     width = int(layout.cell_start.shape[0])
     rows_per_batch = max(1, batch_elements // (width * statistic.columns))
     reader = UniformRows(stream, width)
