@@ -26,6 +26,7 @@ p_less))`` as scipy.stats.permutation_test. Comparisons allow ``tolerance = 1e-1
 
 from __future__ import annotations
 
+import functools
 import itertools
 import math
 from collections.abc import Iterator, Sequence
@@ -42,6 +43,8 @@ from planrunner.engines.statistics import (
     take_observations,
     to_compute_layout,
 )
+from planrunner.engines.blocks import map_resamples
+from planrunner.engines.fastpaths import CACHE_ELEMENTS, batch_rows, kth_smallest, threshold_window
 from planrunner.engines.streams import Stream, UniformRows
 
 __all__ = ["ALTERNATIVES", "ENUMERATION_LIMIT", "PermutationResult", "permutation_test"]
@@ -126,7 +129,7 @@ def permutation_test(samples: Sequence[np.ndarray], statistic: Statistic, *, res
     if is_exact:
         null = _evaluate(pooled, statistic, _enumerate(pooled, rows_per_batch), arrangements)
     else:
-        null = _evaluate(pooled, statistic, _random(pooled, stream, resamples, rows_per_batch), resamples)
+        null = _random_null(pooled, statistic, stream, resamples, rows_per_batch)
     bad = ~np.isfinite(null)
     if bad.any():
         raise EngineError(
@@ -186,9 +189,68 @@ def _evaluate(pooled: _Pooled, statistic: Statistic, batches: Iterator[tuple[np.
     return out
 
 
+def _random_null(pooled: _Pooled, statistic: Statistic, stream: Stream, resamples: int,
+                 rows_per_batch: int) -> np.ndarray:
+    """The statistic over ``resamples`` random arrangements, possibly split into ranges computed
+    elsewhere (``blocks.map_resamples``); the numbers do not depend on the split."""
+    task = functools.partial(_null_range, pooled, statistic, stream, rows_per_batch)
+    return map_resamples(task, resamples)
+
+
+def _null_range(pooled: _Pooled, statistic: Statistic, stream: Stream, rows_per_batch: int,
+                start: int, stop: int) -> np.ndarray:
+    """The null values of random arrangements [start, stop)."""
+    if statistic.form == "mean" and statistic.columns == 1:
+        return _mean_difference_null(pooled, stream, rows_per_batch, start, stop)
+    return _evaluate(pooled, statistic, _random(pooled, stream, stop - start, rows_per_batch, start), stop - start)
+
+
+def _mean_difference_null(pooled: _Pooled, stream: Stream, rows_per_batch: int, start: int,
+                          stop: int) -> np.ndarray:
+    """Difference of means over random arrangements from the sum of group 1 alone (``fastpaths``).
+
+    Group 1 of an arrangement holds, in stratum h, the n1_h positions with the smallest keys
+    ``u + 2h`` (the first n1_h slots of the stable argsort of the draw contract). They are the keys
+    at or below the n1_h-th smallest; a row with a tie there falls back to the argsort itself.
+    Equal to the plain computation up to the order of summation.
+    """
+    values = pooled.values
+    width = values.shape[0]
+    n1, n2 = pooled.slots[0].shape[0], pooled.slots[1].shape[0]
+    total_sum = float(np.sum(values))
+    rows_per_batch = min(rows_per_batch, batch_rows(width, CACHE_ELEMENTS))
+    reader = UniformRows(stream, width, start)
+    out = np.empty(stop - start, dtype=np.float64)
+    done = 0
+    while done < stop - start:
+        rows = min(rows_per_batch, stop - start - done)
+        keys = reader.take(rows)
+        first_sum = np.zeros(rows, dtype=np.float64)
+        tied = np.zeros(rows, dtype=bool)
+        for h, (begin, size, first) in enumerate(pooled.blocks):
+            part = values[begin:begin + size]
+            if first == 0:
+                continue
+            if first == size:
+                first_sum += float(np.sum(part))
+                continue
+            block = keys[:, begin:begin + size] + 2.0 * h  # the contract's keys, rounded as in the argsort
+            threshold = kth_smallest(block, [first - 1], *threshold_window(size, first, 2.0 * h))
+            chosen = block <= threshold
+            tied |= np.count_nonzero(chosen, axis=1) != first
+            first_sum += chosen @ part
+        out[done:done + rows] = first_sum / n1 - (total_sum - first_sum) / n2
+        if tied.any():
+            order = np.argsort(keys[tied] + 2.0 * pooled.stratum, axis=1, kind="stable")
+            groups = [take_observations(values, order[:, slots]) for slots in pooled.slots]
+            out[done:done + rows][tied] = np.mean(groups[0], axis=-1) - np.mean(groups[1], axis=-1)
+        done += rows
+    return out
+
+
 def _random(pooled: _Pooled, stream: Stream, resamples: int,
-            rows_per_batch: int) -> Iterator[tuple[np.ndarray, ...]]:
-    reader = UniformRows(stream, pooled.values.shape[0])
+            rows_per_batch: int, start: int = 0) -> Iterator[tuple[np.ndarray, ...]]:
+    reader = UniformRows(stream, pooled.values.shape[0], start)
     offset = 2.0 * pooled.stratum
     done = 0
     while done < resamples:
