@@ -200,7 +200,8 @@ def multiplicity_entries(plan: Any, analyses: list[dict[str, Any]]) -> list[dict
 
 
 def build_record(loaded: LoadedPlan, tables: dict[str, Table], jobs: list[Job], results: list[Any], *,
-                 run_id: str, started_utc: str, finished_utc: str, operator: str, command: list[str]) -> dict:
+                 run_id: str, started_utc: str, finished_utc: str, operator: str, command: list[str],
+                 execution: dict[str, Any] | None = None) -> dict:
     plan = loaded.plan
     analyses = [analysis_entry(loaded, a, j, r) for a, j, r in zip(plan.analyses, jobs, results)]
     record = {
@@ -223,6 +224,8 @@ def build_record(loaded: LoadedPlan, tables: dict[str, Table], jobs: list[Job], 
         "multiplicity": multiplicity_entries(plan, analyses),
         "report": {"note": plan.report.note, "bins": plan.report.bins},
         "caution": CAUTION,
+        # how the jobs were run (executor, workers); informational, it never changes a number
+        "execution": execution or {"executor": "serial", "workers": 1, "scheduler": None},
     }
     return sanitize(record)
 

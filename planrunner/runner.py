@@ -18,7 +18,7 @@ from typing import Callable
 
 from . import report
 from .compile import Job, compile_jobs
-from .execute import execute_all
+from .execute import Execution, Progress, execute_all
 from .io import Table, read_table
 from .plancheck import LoadedPlan, read_plan
 from .record import build_record, to_json
@@ -68,18 +68,26 @@ def default_operator() -> str:
 
 
 def run_plan(path: str | Path, *, out: str | Path | None = None, operator: str | None = None,
-             command: list[str] | None = None, clock: Clock = utc_now) -> RunOutcome:
-    """Run every analysis of the plan and write record.json, report.html and report.md."""
+             command: list[str] | None = None, clock: Clock = utc_now, execution: Execution | None = None,
+             progress: Progress | None = None) -> RunOutcome:
+    """Run every analysis of the plan and write record.json, report.html and report.md.
+
+    ``execution`` chooses where the jobs run (serial by default; the numbers are the same);
+    ``progress(done, total)`` hears of finished resamples. An interrupt while computing leaves
+    nothing behind: files are written only after every result is in.
+    """
     started = clock()
     checked = check_plan(path)
     loaded, tables, jobs = checked.loaded, checked.tables, checked.jobs
     assert tables is not None and jobs is not None
-    results = execute_all(jobs)
+    execution = execution or Execution()
+    results = execute_all(jobs, execution=execution, progress=progress)
     finished = clock()
     run_id = _run_id(loaded, tables, started)
     record = build_record(loaded, tables, jobs, results, run_id=run_id, started_utc=_stamp(started),
                           finished_utc=_stamp(finished), operator=operator or default_operator(),
-                          command=command or ["planrunner", "run", str(path)])
+                          command=command or ["planrunner", "run", str(path)],
+                          execution=execution.describe())
     out_root = Path(out) if out is not None else loaded.folder / "runs"
     folder = write_run(out_root, f"{loaded.plan.plan}-{started.strftime('%Y%m%dT%H%M%SZ')}-{run_id[:8]}", record)
     return RunOutcome(folder, record)
