@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import importlib
+import math
 
 import numpy as np
 import pytest
@@ -107,3 +108,16 @@ def test_split_ranges_give_the_same_numbers():
     assert seen == [[(0, 2000), (2000, 4000), (4000, 4321)]]
     assert split.tobytes() == whole.tobytes()
     assert map_resamples(lambda a, b: np.arange(a, b, dtype=float), 0).size == 0
+
+
+@pytest.mark.parametrize("sizes,strata_count", [((10, 10), 1), ((3, 9), 1), ((6, 6), 2), ((1, 5), 1), ((4, 4), 1)])
+def test_exact_mean_difference_equals_plain_enumeration(sizes, strata_count):
+    statistic = get_statistic("mean_difference")
+    data = tuple(RNG.integers(0, 40, size=k).astype(float) for k in sizes)
+    strata = None if strata_count == 1 else tuple(np.arange(k) % strata_count for k in sizes)
+    pooled = perm._pool(data, strata)
+    arrangements = math.prod([math.comb(size, first) for _, size, first in pooled.blocks])
+    fast = perm._exact_null(pooled, statistic, 1000, arrangements)
+    plain = perm._evaluate(pooled, statistic, perm._enumerate(pooled, 1000), arrangements)
+    assert fast.shape == plain.shape == (arrangements,)
+    np.testing.assert_allclose(fast, plain, rtol=0, atol=1e-12 * 40)  # same order, summation rounding only
