@@ -164,11 +164,28 @@ def _call_range(task: RangeTask, start: int, stop: int) -> np.ndarray:
     return task(start, stop)
 
 
+def _execute_caught(job: Job) -> tuple[Any, tuple | None]:
+    """``execute`` in a worker, with a planrunner error sent back whole (pickling an exception
+    keeps only its message, not where it happened or what to do)."""
+    try:
+        return execute(job), None
+    except PlanrunnerError as exc:
+        return None, (type(exc), exc.message, exc.where, exc.hint)
+
+
+def _result_of(outcome: tuple[Any, tuple | None]) -> Any:
+    result, error = outcome
+    if error is not None:
+        kind, message, where, hint = error
+        raise kind(message, where=where, hint=hint)
+    return result
+
+
 def _on_processes(jobs: list[Job], execution: Execution, tally: _Tally) -> list[Any]:
     # spawn: a clean interpreter per worker (forking a process that holds threads is unsafe)
     pool = multiprocessing.get_context("spawn").Pool(execution.workers, initializer=_ignore_interrupts)
     try:
-        pending = {i: pool.apply_async(execute, (job,)) for i, job in enumerate(jobs)
+        pending = {i: pool.apply_async(_execute_caught, (job,)) for i, job in enumerate(jobs)
                    if job.method == "jackknife"}
 
         def mapper(task: RangeTask, total: int) -> list[np.ndarray]:
@@ -180,7 +197,7 @@ def _on_processes(jobs: list[Job], execution: Execution, tally: _Tally) -> list[
                 tally.add(stop - start)
             return parts
 
-        results = _run_jobs(jobs, tally, mapper, {i: r.get for i, r in pending.items()})
+        results = _run_jobs(jobs, tally, mapper, {i: (lambda r=r: _result_of(r.get())) for i, r in pending.items()})
         pool.close()
         pool.join()
         return results
@@ -212,7 +229,7 @@ def _on_dask(jobs: list[Job], execution: Execution, tally: _Tally) -> list[Any]:
                             hint="check the address (e.g. tcp://host:8786) and that the scheduler runs") from None
     futures: list[Any] = []
     try:
-        pending = {i: client.submit(execute, job, pure=False) for i, job in enumerate(jobs)
+        pending = {i: client.submit(_execute_caught, job, pure=False) for i, job in enumerate(jobs)
                    if job.method == "jackknife"}
         futures.extend(pending.values())
 
@@ -226,7 +243,7 @@ def _on_dask(jobs: list[Job], execution: Execution, tally: _Tally) -> list[Any]:
                 tally.add(stop - start)
             return parts
 
-        return _run_jobs(jobs, tally, mapper, {i: f.result for i, f in pending.items()})
+        return _run_jobs(jobs, tally, mapper, {i: (lambda f=f: _result_of(f.result())) for i, f in pending.items()})
     finally:
         client.cancel([f for f in futures if not f.done()])
         client.close()

@@ -140,3 +140,27 @@ def test_memory_of_one_engine_call_stays_bounded_as_resamples_grow(method: str) 
     # B x n draws would be 8000 * 5000 * 8 bytes = 320 MB; the growth allowed is four arrays of B doubles
     assert large - small <= 4 * 8 * (8000 - 1000)
     assert large < 8 * 2 ** 20
+
+
+def test_engine_errors_from_workers_keep_where_and_hint() -> None:
+    from planrunner.compile import Job
+    from planrunner.errors import EngineError
+    from planrunner.execute import _execute_caught, _result_of
+
+    job = Job(analysis_id="one-row", method="jackknife", statistic=get_statistic("mean"),
+              samples=(np.array([1.0]),), strata=None, group_labels=("all rows",), strata_labels=None,
+              options={}, stream=stream_for(1, "one-row"))
+    outcome = _execute_caught(job)  # what a worker sends back
+    with pytest.raises(EngineError) as caught:
+        _result_of(outcome)
+    assert "at least 2" in caught.value.message and caught.value.hint == "use more data or another method"
+
+
+def test_progress_bar_is_silent_off_a_terminal_and_when_quiet(capsys) -> None:
+    for quiet in (False, True):
+        bar = cli.ProgressBar(quiet)
+        for done in (0, 500, 1000):
+            bar(done, 1000)
+        bar.close()
+    captured = capsys.readouterr()
+    assert captured.err == "" and captured.out == ""  # pytest's stderr is not a terminal

@@ -350,14 +350,16 @@ def _draw_range(layout: _Layout, statistic: Statistic, stream: Stream, batch_ele
     median = statistic.form == "median" and statistic.columns == 1
     windows = [median_window(np.sort(group)) for group in layout.groups] if median else []
     index_buffer = np.empty((min(rows_per_batch, total), width), dtype=np.int64)
+    offsets = bool(layout.cell_start.any())  # False when every group is a single cell
     done = 0
     while done < total:
         rows = min(rows_per_batch, total - done)
         u = reader.take(rows)
-        np.multiply(u, layout.cell_size, out=u)
         index = index_buffer[:rows]
-        np.copyto(index, u, casting="unsafe")  # truncation, i.e. floor because u * size >= 0
-        index += layout.cell_start
+        # the double product u * size cast to integers on output, as .astype: truncation, i.e. floor
+        np.multiply(u, layout.cell_size, out=index, casting="unsafe")
+        if offsets:
+            index += layout.cell_start
         gathered = [take_observations(group, index[:, lo:hi])
                     for group, (lo, hi) in zip(layout.groups, layout.bounds)]
         with np.errstate(invalid="ignore", divide="ignore"):

@@ -269,7 +269,9 @@ def _mean_difference_null(pooled: _Pooled, stream: Stream, rows_per_batch: int, 
             if first == size:
                 first_sum += float(np.sum(part))
                 continue
-            block = keys[:, begin:begin + size] + 2.0 * h  # the contract's keys, rounded as in the argsort
+            block = keys[:, begin:begin + size]
+            if h:
+                block = block + 2.0 * h  # the contract's keys, rounded as in the argsort (u + 0 is u)
             threshold = kth_smallest(block, [first - 1], *threshold_window(size, first, 2.0 * h))
             chosen = block <= threshold
             tied |= np.count_nonzero(chosen, axis=1) != first
