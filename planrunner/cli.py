@@ -7,6 +7,7 @@ difference; 1 an unexpected failure (with versions, and a request to report it).
 from __future__ import annotations
 
 import argparse
+import shutil
 import sys
 import traceback
 from typing import Any, Sequence
@@ -113,8 +114,11 @@ class ProgressBar:
         if self._bar is None:
             from tqdm import tqdm
             # disable=None: silent when stderr is not a terminal; delay: short runs show nothing
+            # a terminal that reports no size (0 × 0) would hide the bar
+            size = shutil.get_terminal_size((80, 24))
             self._bar = tqdm(total=total, unit=" resamples", unit_scale=True, file=sys.stderr, delay=1.0,
-                             disable=True if self._quiet else None, leave=False, dynamic_ncols=True)
+                             disable=True if self._quiet else None, leave=False,
+                             ncols=min(size.columns or 80, 100), nrows=size.lines or 24)
         self._bar.update(done - self._bar.n)
 
     def close(self) -> None:
