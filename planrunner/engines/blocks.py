@@ -4,7 +4,7 @@ Resample r depends only on row r of its stream (see :mod:`planrunner.engines.str
 replicates of resamples [start, stop) can be computed in another process or on another machine
 and concatenated in order: the numbers are the same whatever the split.
 
-An engine hands a picklable ``task(start, stop) -> np.ndarray`` and the number of resamples to
+An engine hands a picklable ``task(start, stop) -> np.ndarray`` (see :class:`bind`) and the number of resamples to
 :func:`map_resamples`. By default the task runs once over everything, in the calling thread. An
 executor (``planrunner.execute``) may install a :data:`RangeMapper` with :class:`mapping_ranges` around its
 engine calls; it then decides where the ranges run. The engines never learn which executor
@@ -14,13 +14,14 @@ runs them, and their signatures stay the same.
 from __future__ import annotations
 
 from collections.abc import Callable
+from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
 
 from planrunner.engines.streams import DRAW_BLOCK
 
-__all__ = ["RangeMapper", "RangeTask", "block_ranges", "map_resamples", "mapping_ranges"]
+__all__ = ["RangeMapper", "RangeTask", "bind", "block_ranges", "map_resamples", "mapping_ranges"]
 
 RangeTask = Callable[[int, int], np.ndarray]
 # (task, total) -> the task's results over consecutive ranges covering [0, total), in order
@@ -28,6 +29,22 @@ RangeMapper = Callable[[RangeTask, int], list[np.ndarray]]
 
 # the executor's mapper; engines run in the thread that installed it (executors keep it that way)
 _installed: list[RangeMapper | None] = [None]
+
+
+@dataclass(frozen=True)
+class bind:
+    """``bind(f, *args)(start, stop) == f(*args, start, stop)``; picklable when ``f`` is a module-level
+    function and ``args`` are picklable, so that a worker process can run it."""
+
+    function: Callable[..., np.ndarray]
+    args: tuple[Any, ...]
+
+    def __init__(self, function: Callable[..., np.ndarray], *args: Any):
+        object.__setattr__(self, "function", function)
+        object.__setattr__(self, "args", args)
+
+    def __call__(self, start: int, stop: int) -> np.ndarray:
+        return self.function(*self.args, start, stop)
 
 
 def map_resamples(task: RangeTask, total: int) -> np.ndarray:

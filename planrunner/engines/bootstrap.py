@@ -34,7 +34,6 @@ Conventions (also returned in ``BootstrapResult.conventions``):
 
 from __future__ import annotations
 
-import functools
 import math
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
@@ -52,7 +51,7 @@ from planrunner.engines.statistics import (
     take_observations,
     to_compute_layout,
 )
-from planrunner.engines.blocks import map_resamples
+from planrunner.engines.blocks import bind, map_resamples
 from planrunner.engines.fastpaths import batch_rows, median_rows, median_window
 from planrunner.engines.streams import Stream, UniformRows
 
@@ -334,7 +333,7 @@ def _draw(layout: _Layout, statistic: Statistic, resamples: int, stream: Stream,
     The resamples may be split into ranges computed elsewhere (``blocks.map_resamples``); each
     range runs the fast kernels of ``_draw_range``, equal bit for bit to ``_draw_plain``.
     """
-    task = functools.partial(_draw_range, layout, statistic, stream, batch_elements)
+    task = bind(_draw_range, layout, statistic, stream, batch_elements)
     return map_resamples(task, resamples)
 
 

@@ -26,7 +26,6 @@ p_less))`` as scipy.stats.permutation_test. Comparisons allow ``tolerance = 1e-1
 
 from __future__ import annotations
 
-import functools
 import itertools
 import math
 from collections.abc import Iterator, Sequence
@@ -43,7 +42,7 @@ from planrunner.engines.statistics import (
     take_observations,
     to_compute_layout,
 )
-from planrunner.engines.blocks import map_resamples
+from planrunner.engines.blocks import bind, map_resamples
 from planrunner.engines.fastpaths import CACHE_ELEMENTS, batch_rows, kth_smallest, threshold_window
 from planrunner.engines.streams import Stream, UniformRows
 
@@ -228,7 +227,7 @@ def _random_null(pooled: _Pooled, statistic: Statistic, stream: Stream, resample
                  rows_per_batch: int) -> np.ndarray:
     """The statistic over ``resamples`` random arrangements, possibly split into ranges computed
     elsewhere (``blocks.map_resamples``); the numbers do not depend on the split."""
-    task = functools.partial(_null_range, pooled, statistic, stream, rows_per_batch)
+    task = bind(_null_range, pooled, statistic, stream, rows_per_batch)
     return map_resamples(task, resamples)
 
 
