@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import dataclasses
 import shutil
 import sys
 import tracemalloc
@@ -164,3 +165,21 @@ def test_progress_bar_is_silent_off_a_terminal_and_when_quiet(capsys) -> None:
         bar.close()
     captured = capsys.readouterr()
     assert captured.err == "" and captured.out == ""  # pytest's stderr is not a terminal
+
+
+def test_dask_scheduler_address_is_used(demo: Path) -> None:
+    distributed = pytest.importorskip("distributed")
+    jobs = check_plan(demo).jobs
+    assert jobs is not None
+    serial = execute_all(jobs)
+    # a scheduler listening on loopback TCP, as a remote one would (its workers are threads here)
+    with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=False, protocol="tcp://",
+                                  host="127.0.0.1", dashboard_address=None) as cluster:
+        remote = execute_all(jobs, execution=Execution("dask", 2, cluster.scheduler_address))
+    for a, b in zip(serial, remote):
+        for field in dataclasses.fields(a):
+            x, y = getattr(a, field.name), getattr(b, field.name)
+            if isinstance(x, np.ndarray) or (isinstance(x, tuple) and x and isinstance(x[0], np.ndarray)):
+                assert np.asarray(x).tobytes() == np.asarray(y).tobytes(), field.name
+            else:
+                assert x == y, field.name
