@@ -10,11 +10,14 @@ import argparse
 import shutil
 import sys
 import traceback
-from typing import Any, Sequence
+from typing import TYPE_CHECKING, Any, Sequence
 
 from . import __version__
 from .errors import PlanrunnerError
 from .report import number, pvalue
+
+if TYPE_CHECKING:
+    from .execute import Execution
 
 EXIT_OK, EXIT_FAILURE, EXIT_INPUT, EXIT_DIFFERS = 0, 1, 2, 3
 
@@ -94,7 +97,7 @@ def _check(args: argparse.Namespace) -> int:
     return EXIT_OK
 
 
-def execution_of(args: argparse.Namespace):  # -> execute.Execution
+def execution_of(args: argparse.Namespace) -> Execution:
     """The executor the options ask for: serial unless --workers N > 1 or --executor says otherwise."""
     from .execute import Execution
     executor = args.executor or ("dask" if args.scheduler else
@@ -113,9 +116,9 @@ class ProgressBar:
     def __call__(self, done: int, total: int) -> None:
         if self._bar is None:
             from tqdm import tqdm
-            # disable=None: silent when stderr is not a terminal; delay: short runs show nothing
             # a terminal that reports no size (0 × 0) would hide the bar
             size = shutil.get_terminal_size((80, 24))
+            # disable=None: silent when stderr is not a terminal; delay: short runs show nothing
             self._bar = tqdm(total=total, unit=" resamples", unit_scale=True, file=sys.stderr, delay=1.0,
                              disable=True if self._quiet else None, leave=False,
                              ncols=min(size.columns or 80, 100), nrows=size.lines or 24)
