@@ -205,6 +205,10 @@ def main(argv: list[str] | None = None) -> int:
     pool = None
     if args.workers > 1:
         pool = multiprocessing.get_context("spawn").Pool(args.workers)
+        # warm up: the workers import planrunner on their first task, which no workload should pay
+        warm = np.arange(50.0)
+        _on_pool(lambda: bootstrap([warm], get_statistic("mean"), resamples=4000 * args.workers, confidence=0.95,
+                                   intervals=["percentile"], stream=stream_for(1, "warm-up")), pool, args.workers)()
     chosen = None if args.only is None else set(args.only.upper().split(","))
 
     print(f"planrunner {__version__}, numpy {np.__version__}, scipy {scipy.__version__}, "

@@ -9,7 +9,7 @@ import numpy as np
 import pytest
 
 from planrunner.engines.blocks import block_ranges, map_resamples, mapping_ranges
-from planrunner.engines.fastpaths import kth_smallest, median_rows, median_window
+from planrunner.engines.fastpaths import kth_smallest, median_of_draws, median_window, window_codes
 from planrunner.engines.statistics import get_statistic
 from planrunner.engines.streams import UniformRows, stream_for
 
@@ -41,14 +41,14 @@ def test_bootstrap_kernels_equal_plain_bit_for_bit(name, n, stratified):
     assert fast.tobytes() == plain.tobytes()  # identity: same draws, same arithmetic
 
 
-def test_median_rows_is_np_median_bit_for_bit():
+def test_median_of_draws_is_np_median_bit_for_bit():
     for n in (256, 257, 1000, 1001):
         values = np.round(RNG.normal(size=n), 2)
         values[:5] = -0.0  # signed zeros must come out as np.median gives them
         index = RNG.integers(0, n, size=(40, n))
-        gathered = values[index]
-        got = median_rows(gathered, median_window(np.sort(values)))
-        assert got.tobytes() == np.median(gathered, axis=-1).tobytes()
+        index[0] = 0  # a resample of one value: its middle leaves the window (np.median's own row)
+        got = median_of_draws(values, index, window_codes(values, median_window(np.sort(values))))
+        assert got.tobytes() == np.median(values[index], axis=-1).tobytes()
 
 
 @pytest.mark.parametrize("lo,hi", [(0.45, 0.55), (0.9, 0.95), (2.0, 3.0), (-1.0, -0.5), (0.5, 0.5)])

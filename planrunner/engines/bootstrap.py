@@ -52,7 +52,7 @@ from planrunner.engines.statistics import (
     to_compute_layout,
 )
 from planrunner.engines.blocks import bind, map_resamples
-from planrunner.engines.fastpaths import batch_rows, median_rows, median_window
+from planrunner.engines.fastpaths import batch_rows, median_of_draws, median_window, window_codes
 from planrunner.engines.streams import Stream, UniformRows
 
 __all__ = [
@@ -347,7 +347,7 @@ def _draw_range(layout: _Layout, statistic: Statistic, stream: Stream, batch_ele
     total = stop - start
     out = np.empty(total, dtype=np.float64)
     median = statistic.form == "median" and statistic.columns == 1
-    windows = [median_window(np.sort(group)) for group in layout.groups] if median else []
+    codes = [window_codes(group, median_window(np.sort(group))) for group in layout.groups] if median else []
     index_buffer = np.empty((min(rows_per_batch, total), width), dtype=np.int64)
     offsets = bool(layout.cell_start.any())  # False when every group is a single cell
     done = 0
@@ -362,14 +362,15 @@ def _draw_range(layout: _Layout, statistic: Statistic, stream: Stream, batch_ele
         else:  # one cell per group: its size is one number (the same product, less memory traffic)
             for lo, hi in layout.bounds:
                 np.multiply(u[:, lo:hi], float(hi - lo), out=index[:, lo:hi], casting="unsafe")
-        gathered = [take_observations(group, index[:, lo:hi])
-                    for group, (lo, hi) in zip(layout.groups, layout.bounds)]
-        with np.errstate(invalid="ignore", divide="ignore"):
-            if median:
-                # form "median": the group's median, or the first group's minus the second's
-                located = [median_rows(g, w) for g, w in zip(gathered, windows)]
-                out[done:done + rows] = located[0] if len(located) == 1 else located[0] - located[1]
-            else:
+        if median:
+            # form "median": the group's median, or the first group's minus the second's
+            located = [median_of_draws(group, index[:, lo:hi], c)
+                       for group, (lo, hi), c in zip(layout.groups, layout.bounds, codes)]
+            out[done:done + rows] = located[0] if len(located) == 1 else located[0] - located[1]
+        else:
+            gathered = [take_observations(group, index[:, lo:hi])
+                        for group, (lo, hi) in zip(layout.groups, layout.bounds)]
+            with np.errstate(invalid="ignore", divide="ignore"):
                 out[done:done + rows] = statistic.compute(*gathered)
         done += rows
     return out

@@ -7,11 +7,11 @@ either exactly the same bits or the same number up to floating-point rounding of
 * :func:`bootstrap_replicates` draws resample rows in cache-sized batches with in-place arithmetic
   and reused buffers (the plain loop allocates several batch-sized temporaries). Means and any
   other statistic are computed by the statistic itself on the same gathered values: identical bits.
-* medians (``form == "median"``): the k-th order statistics of each gathered row are found among
-  the few values that fall in a window of the once-sorted data around the sample median, instead
-  of a full selection per row. The chosen values are data values, combined exactly as
-  ``np.median`` combines them: identical bits. Rows whose order statistic leaves the window fall
-  back to ``np.partition``.
+* medians (``form == "median"``): the middle order statistics of each resample are found among
+  the few drawn values that fall in a window of the once-sorted data around the sample median
+  (only a one-byte code saying below / inside / above is gathered for every draw), instead of a
+  full selection per row. The chosen values are data values, combined exactly as ``np.median``
+  combines them: identical bits. Rows whose middle leaves the window use ``np.median``.
 * difference of means under label permutation (``form == "mean"``, two groups): group 1 of an
   arrangement is, in every stratum, the n1_h positions with the smallest keys; they are found by
   a threshold (the n1_h-th smallest key) instead of an argsort, and only the sum of group 1 is
@@ -30,8 +30,8 @@ from collections.abc import Sequence
 
 import numpy as np
 
-__all__ = ["CACHE_ELEMENTS", "batch_rows", "kth_smallest", "median_rows", "median_window",
-           "threshold_window"]
+__all__ = ["CACHE_ELEMENTS", "batch_rows", "kth_smallest", "median_of_draws", "median_window",
+           "threshold_window", "window_codes"]
 
 # Draws per batch on the fast paths: about 1 MB of doubles, so that the batch's uniforms, indices and
 # gathered values stay in a core's L2 cache; larger batches are slower, never different.
@@ -84,18 +84,46 @@ def median_window(ordered: np.ndarray) -> tuple[float, float]:
     return float(ordered[max(0, (n - 1) // 2 - half)]), float(ordered[min(n - 1, n // 2 + half)])
 
 
-def median_rows(gathered: np.ndarray, window: tuple[float, float]) -> np.ndarray:
-    """``np.median(gathered, axis=-1)`` for a (rows, n) array, bit for bit, via :func:`kth_smallest`.
+def window_codes(values: np.ndarray, window: tuple[float, float]) -> np.ndarray:
+    """Per observation: 0 below the window, 1 inside it (ends included), 2 above it (int8)."""
+    lo, hi = window
+    return (values >= lo).astype(np.int8) + (values > hi).astype(np.int8)
 
-    np.median takes the mean of the middle one or two values of the partitioned row; the same
-    ``np.mean`` over the same values gives the same bits.
+
+def median_of_draws(values: np.ndarray, index: np.ndarray, codes: np.ndarray) -> np.ndarray:
+    """``np.median(values[index], axis=-1)`` bit for bit, for a (rows, n) array of drawn indices.
+
+    Only one-byte window codes are gathered for every draw (``codes = window_codes(values, ...)``);
+    the values themselves only for the few draws inside the window, among which each row's middle
+    order statistics are selected. np.median takes the mean of the middle one or two values of the
+    partitioned row; the same ``np.mean`` of the same values gives the same bits. Rows whose middle
+    leaves the window are computed by np.median itself.
     """
-    n = gathered.shape[1]
-    if n < MEDIAN_FAST_MINIMUM:
-        return np.median(gathered, axis=-1)
-    ks = [n // 2] if n % 2 else [n // 2 - 1, n // 2]
-    middle = kth_smallest(gathered, ks, *window)
-    return np.mean(middle, axis=-1)
+    rows, n = index.shape
+    if n < MEDIAN_FAST_MINIMUM or rows == 0:
+        return np.median(values[index], axis=-1)
+    ks = np.array([n // 2] if n % 2 else [n // 2 - 1, n // 2], dtype=np.int64)
+    drawn = codes[index]
+    below = np.count_nonzero(drawn == 0, axis=1)
+    flat = np.flatnonzero(drawn == 1)
+    row = flat // n
+    # row by row, since the flat index is row-major (one group: the index rows are contiguous)
+    picked = values[index.ravel()[flat] if index.flags.c_contiguous else index[row, flat - row * n]]
+    counts = np.bincount(row, minlength=rows)
+    ends = np.cumsum(counts)
+    local = ks[None, :] - below[:, None]
+    ok = (local >= 0).all(axis=1) & (local < counts[:, None]).all(axis=1)
+    middle = np.empty((rows, ks.size), dtype=np.float64)
+    for r in np.flatnonzero(ok).tolist():
+        # a few hundred values per row: a partition of them is cheaper than any batched sort
+        kk = local[r]
+        middle[r] = np.partition(picked[ends[r] - counts[r]:ends[r]], kk)[kk]
+    out = np.empty(rows, dtype=np.float64)
+    out[ok] = np.mean(middle[ok], axis=-1)
+    bad = ~ok
+    if bad.any():
+        out[bad] = np.median(values[index[bad]], axis=-1)
+    return out
 
 
 def threshold_window(size: int, first: int, offset: float) -> tuple[float, float]:
