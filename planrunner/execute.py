@@ -33,6 +33,7 @@ EXECUTORS = ("serial", "processes", "dask")
 Progress = Callable[[int, int], None]
 RANGES_PER_WORKER = 4  # a few ranges per worker keep them busy while one finishes early
 SERIAL_RANGE = 5  # draw blocks per progress step in a serial run
+SCHEDULER_TIMEOUT = 30.0  # seconds to reach a dask scheduler before giving up
 
 
 class ExecutorError(PlanrunnerError):
@@ -221,7 +222,7 @@ def _on_dask(jobs: list[Job], execution: Execution, tally: _Tally) -> list[Any]:
                                    processes=execution.local_processes, dashboard_address=None, **network)
             client = Client(cluster)
         else:
-            client = Client(execution.scheduler, timeout=30)
+            client = Client(execution.scheduler, timeout=SCHEDULER_TIMEOUT)
     except (OSError, TimeoutError) as exc:
         if cluster is not None:
             cluster.close()

@@ -183,3 +183,15 @@ def test_dask_scheduler_address_is_used(demo: Path) -> None:
                 assert np.asarray(x).tobytes() == np.asarray(y).tobytes(), field.name
             else:
                 assert x == y, field.name
+
+
+def test_unreachable_scheduler_is_a_clear_error(demo: Path, monkeypatch) -> None:
+    pytest.importorskip("distributed")
+    import planrunner.execute as execute
+
+    monkeypatch.setattr(execute, "SCHEDULER_TIMEOUT", 1.0)
+    jobs = check_plan(demo).jobs
+    assert jobs is not None
+    with pytest.raises(ExecutorError, match="cannot reach the dask scheduler tcp://127.0.0.1:1") as caught:
+        execute_all(jobs, execution=Execution("dask", 2, "tcp://127.0.0.1:1"))  # port 1: nothing listens
+    assert "check the address" in str(caught.value)
