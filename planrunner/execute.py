@@ -26,6 +26,7 @@ from .engines.bootstrap import bootstrap
 from .engines.jackknife import jackknife
 from .engines.permutation import permutation_test
 from .engines.statistics import STATISTICS, Statistic, get_statistic
+from .engines.streams import DRAW_BLOCK
 from .errors import PlanrunnerError
 
 EXECUTORS = ("serial", "processes", "dask")
@@ -109,7 +110,9 @@ class _Tally:
     def add(self, count: int) -> None:
         self.done += count
         if self.progress is not None:
-            self.progress(self.done, self.total)
+            # an engine that draws more than its job's resamples (e.g. nested resampling) never
+            # shows more than the total
+            self.progress(min(self.done, self.total), self.total)
 
 
 def execute_all(jobs: list[Job], *, execution: Execution | None = None,
@@ -136,7 +139,7 @@ def _run_jobs(jobs: list[Job], tally: _Tally, mapper: Callable[[RangeTask, int],
         before = tally.done
         with mapping_ranges(mapper):
             results[i] = execute(job)
-        tally.add(job_resamples(job) - (tally.done - before))
+        tally.add(max(0, job_resamples(job) - (tally.done - before)))
     for i, get in whole.items():
         results[i] = get()
     return results
@@ -148,7 +151,7 @@ def _serial(jobs: list[Job], tally: _Tally) -> list[Any]:
 
     def mapper(task: RangeTask, total: int) -> list[np.ndarray]:
         parts = []
-        for start, stop in block_ranges(total, math.ceil(total / (SERIAL_RANGE * 1000))):
+        for start, stop in block_ranges(total, math.ceil(total / (SERIAL_RANGE * DRAW_BLOCK))):
             parts.append(task(start, stop))
             tally.add(stop - start)
         return parts
