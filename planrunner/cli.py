@@ -7,13 +7,17 @@ difference; 1 an unexpected failure (with versions, and a request to report it).
 from __future__ import annotations
 
 import argparse
+import shutil
 import sys
 import traceback
-from typing import Sequence
+from typing import TYPE_CHECKING, Any, Sequence
 
 from . import __version__
 from .errors import PlanrunnerError
 from .report import number, pvalue
+
+if TYPE_CHECKING:
+    from .execute import Execution
 
 EXIT_OK, EXIT_FAILURE, EXIT_INPUT, EXIT_DIFFERS = 0, 1, 2, 3
 
@@ -46,7 +50,14 @@ def build_parser() -> argparse.ArgumentParser:
     run.add_argument("plan", help="path to the plan (YAML)")
     run.add_argument("--out", help="folder under which the run folder is created (default: runs/ beside the plan)")
     run.add_argument("--operator", help="who runs the analysis (default: the login name)")
-    run.add_argument("--quiet", action="store_true", help="print only the run folder")
+    run.add_argument("--quiet", action="store_true", help="print only the run folder (and no progress bar)")
+    run.add_argument("--workers", type=int, metavar="N",
+                     help="worker processes (default 1: serial; more than 1 runs local processes)")
+    run.add_argument("--executor", choices=("serial", "processes", "dask"),
+                     help="where the jobs run (default: serial, or processes with --workers N > 1); "
+                          "the numbers are the same")
+    run.add_argument("--scheduler", metavar="ADDRESS",
+                     help="dask: address of a running scheduler (default: a local cluster on loopback)")
     run.add_argument("--data-root", metavar="DIR", help=DATA_ROOT_HELP)
     _add_audit_run_options(run)
     _add_audit_verbs(verbs)
@@ -70,7 +81,7 @@ def main(argv: Sequence[str] | None = None) -> int:
         print(f"planrunner: {exc}", file=sys.stderr)
         return EXIT_INPUT
     except KeyboardInterrupt:
-        print("planrunner: interrupted; no record was written", file=sys.stderr)
+        print("planrunner: interrupted; no record was written (any workers were stopped)", file=sys.stderr)
         return 130
     except Exception:  # an unexpected failure: show enough to report it
         from .record import environment
@@ -105,18 +116,60 @@ def _check(args: argparse.Namespace) -> int:
     return EXIT_OK
 
 
+def execution_of(args: argparse.Namespace) -> Execution:
+    """The executor the options ask for: serial unless --workers N > 1 or --executor says otherwise."""
+    from .execute import Execution
+    executor = args.executor or ("dask" if args.scheduler else
+                                 "processes" if args.workers is not None and args.workers > 1 else "serial")
+    workers = args.workers if args.workers is not None else 1 if executor == "serial" else 2
+    return Execution(executor, workers, args.scheduler)
+
+
+class ProgressBar:
+    """Resamples done / total and the time left, on stderr; only for a terminal and long runs."""
+
+    def __init__(self, quiet: bool):
+        self._quiet = quiet
+        self._bar: Any = None
+
+    def __call__(self, done: int, total: int) -> None:
+        if self._bar is None:
+            from tqdm import tqdm
+            # a terminal that reports no size (0 × 0) would hide the bar
+            size = shutil.get_terminal_size((80, 24))
+            # disable=None: silent when stderr is not a terminal; delay: short runs show nothing
+            self._bar = tqdm(total=total, unit=" resamples", unit_scale=True, file=sys.stderr, delay=1.0,
+                             disable=True if self._quiet else None, leave=False,
+                             ncols=min(size.columns or 80, 100), nrows=size.lines or 24)
+        self._bar.update(done - self._bar.n)
+
+    def close(self) -> None:
+        if self._bar is not None:
+            self._bar.close()
+
+
 def _run(args: argparse.Namespace, argv: list[str]) -> int:
     from .params import parse_assignments
     from .runner import run_plan
-    outcome = run_plan(args.plan, out=args.out, operator=args.operator, command=["planrunner", *argv],
-                       params=parse_assignments(args.param), lock=args.lock,
-                       refuse_deviations=args.refuse_deviations, reason=args.reason,
-                       data_root=args.data_root)
+    execution = execution_of(args)
+    bar = progress_bar(args.quiet)
+    try:
+        outcome = run_plan(args.plan, out=args.out, operator=args.operator, command=["planrunner", *argv],
+                           params=parse_assignments(args.param), lock=args.lock,
+                           refuse_deviations=args.refuse_deviations, reason=args.reason,
+                           data_root=args.data_root, execution=execution, progress=bar)
+    finally:
+        bar.close()  # before any message, so that it does not land on the bar's line
     if not args.quiet:
         print(summary_table(outcome.record))
         print(audit_summary(outcome))
     print(f"record written to {outcome.folder}")
     return EXIT_OK
+
+
+def progress_bar(quiet: bool) -> ProgressBar:
+    """The progress hook of a run (tests replace it to inject an interrupt)."""
+    return ProgressBar(quiet)
 
 
 def summary_table(record: dict) -> str:

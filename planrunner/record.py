@@ -228,7 +228,7 @@ def multiplicity_entries(plan: Any, analyses: list[dict[str, Any]],
 
 def build_record(loaded: LoadedPlan, tables: dict[str, Table], jobs: list[Job], results: list[Any], *,
                  run_id: str, started_utc: str, finished_utc: str, operator: str, command: list[str],
-                 max_t: dict[int, Any] | None = None) -> dict:
+                 max_t: dict[int, Any] | None = None, execution: dict[str, Any] | None = None) -> dict:
     plan = loaded.plan
     analyses = [analysis_entry(loaded, a, j, r) for a, j, r in zip(plan.analyses, jobs, results)]
     if max_t is None and any(f.method == "max-t" for f in plan.multiplicity):
@@ -253,6 +253,8 @@ def build_record(loaded: LoadedPlan, tables: dict[str, Table], jobs: list[Job], 
         "multiplicity": multiplicity_entries(plan, analyses, max_t),
         "report": {"note": plan.report.note, "bins": plan.report.bins},
         "caution": CAUTION,
+        # how the jobs were run (executor, workers); informational, it never changes a number
+        "execution": execution or {"executor": "serial", "workers": 1, "scheduler": None},
     }
     return sanitize(record)
 

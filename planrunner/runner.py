@@ -22,7 +22,7 @@ from . import limits, report
 from .canonical import RECORD_HASH_FIELD, record_sha256
 from .compile import Job, compile_jobs
 from .datacheck import check_tables
-from .execute import execute_all
+from .execute import Execution, Progress, execute_all
 from .errors import OutputError
 from .io import Table, read_table, resolve_data_path
 from .methods import methods_text
@@ -119,25 +119,31 @@ def default_operator() -> str:
 def run_plan(path: str | Path, *, out: str | Path | None = None, operator: str | None = None,
              command: list[str] | None = None, clock: Clock = utc_now, params: dict[str, str] | None = None,
              lock: str | Path | None = None, refuse_deviations: bool = False, reason: str | None = None,
-             history: bool = True, data_root: str | Path | None = None) -> RunOutcome:
+             history: bool = True, data_root: str | Path | None = None, execution: Execution | None = None,
+             progress: Progress | None = None) -> RunOutcome:
     """Run every analysis of the plan and write record.json, report.html and report.md.
 
     The plan is compared with its lock (``lock``, or PLAN.lock.json beside it when that exists);
     with ``refuse_deviations`` any deviation, or a missing lock, stops the run before computing.
     The run is appended to the history log beside the run folders (unless ``history`` is False).
+    ``execution`` chooses where the jobs run (serial by default; the numbers are the same);
+    ``progress(done, total)`` hears of finished resamples. An interrupt while computing leaves
+    nothing behind: files are written only after every result is in.
     """
     started = clock()
     checked = check_plan(path, params=params, data_root=data_root)
     loaded, tables, jobs = checked.loaded, checked.tables, checked.jobs
     assert tables is not None and jobs is not None
     lock_entry = lock_for_run(loaded, tables, lock, refuse_deviations=refuse_deviations)
-    results = execute_all(jobs)
+    execution = execution or Execution()
+    results = execute_all(jobs, execution=execution, progress=progress)
     max_t = max_t_families(loaded.plan, jobs)
     finished = clock()
     run_id = _run_id(loaded, tables, started)
     record = build_record(loaded, tables, jobs, results, run_id=run_id, started_utc=_stamp(started),
                           finished_utc=_stamp(finished), operator=operator or default_operator(),
-                          command=command or ["planrunner", "run", str(path)], max_t=max_t)
+                          command=command or ["planrunner", "run", str(path)], max_t=max_t,
+                          execution=execution.describe())
     finish_record(record, lock_entry, checked.parameters)
     out_root = Path(out) if out is not None else loaded.folder / "runs"
     folder = write_run(out_root, f"{loaded.plan.plan}-{started.strftime('%Y%m%dT%H%M%SZ')}-{run_id[:8]}", record)

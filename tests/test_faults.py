@@ -140,7 +140,7 @@ def test_failing_fsync_and_rename_leave_nothing(plan, tmp_path, monkeypatch, cap
 def test_interrupt_during_the_engines(plan, tmp_path, monkeypatch, capsys):
     out = tmp_path / "out"
 
-    def interrupted(jobs):
+    def interrupted(jobs, **options):
         raise KeyboardInterrupt
     monkeypatch.setattr(runner, "execute_all", interrupted)
     assert cli.main(["run", str(plan), "--out", str(out)]) == 130

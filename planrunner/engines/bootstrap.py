@@ -51,10 +51,13 @@ from scipy.special import ndtri
 
 from planrunner.errors import EngineError
 from planrunner.engines import schemes
+from planrunner.engines.blocks import bind as range_task
+from planrunner.engines.blocks import map_resamples
 from planrunner.engines.intervals import INTERVAL_METHODS, Summary, bca_levels, quantile_rank, read_quantile
 from planrunner.engines.jackknife import SMALL_SAMPLE, cluster_replicates, jackknife_replicates
 from planrunner.engines.results import BootstrapResult, EngineWarning, Interval, frozen_array
 from planrunner.engines.statistics import Statistic, check_samples, check_strata, to_compute_layout
+from planrunner.engines.streams import Stream
 
 __all__ = [
     "BootstrapResult",
@@ -294,8 +297,13 @@ def bootstrap(samples: Sequence[np.ndarray], statistic: Statistic, *, resamples:
                 "few-clusters", f"fewer than {SMALL_SAMPLE} clusters in {', '.join(few)}: the cluster bootstrap "
                 "distribution is coarse and its intervals tend to be too narrow"))
     else:
-        distribution, se_star = schemes.draw_cells(lay, work, resamples, stream, batch_elements, inner,
-                                                   inner_resamples)
+        if inner is None:
+            # ranges of resamples may run on other workers (engines.blocks); the same numbers
+            distribution = map_resamples(range_task(_cells_range, lay, work, stream, batch_elements), resamples)
+            se_star = None
+        else:
+            distribution, se_star = schemes.draw_cells(lay, work, resamples, stream, batch_elements, inner,
+                                                       inner_resamples)
         if paired:
             scheme = "whole pairs resampled" + (" within strata" if codes is not None else "")
         elif codes is None:
@@ -538,3 +546,9 @@ def _bca_constants(data: tuple[np.ndarray, ...], statistic: Statistic, lay: sche
         return z0, acceleration, (f"the acceleration {acceleration:.4g} is so large that the level "
                                   "adjustment is not monotone")
     return z0, acceleration, None
+
+
+def _cells_range(lay: schemes.Layout, statistic: Statistic, stream: Stream, batch_elements: int,
+                 start: int, stop: int) -> np.ndarray:
+    """Replicates of resamples [start, stop) of the cells scheme (a picklable range task)."""
+    return schemes.draw_cells(lay, statistic, stop - start, stream, batch_elements, None, start=start)[0]

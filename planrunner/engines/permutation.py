@@ -46,6 +46,8 @@ from dataclasses import dataclass
 import numpy as np
 
 from planrunner.errors import EngineError
+from planrunner.engines.blocks import bind as range_task
+from planrunner.engines.blocks import map_resamples
 from planrunner.engines.exactdist import WORK_LIMIT, dp_work, integer_scores, sum_distribution
 from planrunner.engines.pvalues import TWO_SIDED_RULES, summarize
 from planrunner.engines.results import EngineWarning, PermutationResult, frozen_array
@@ -160,10 +162,11 @@ def permutation_test(samples: Sequence[np.ndarray], statistic: Statistic, *, res
     if path == "dynamic programming":
         assert dp_plan is not None
         null, weights = _dp_null(pooled, statistic, dp_plan)
+    elif is_exact:
+        null = _evaluate(pooled, statistic, _enumerate(pooled, rows_per_batch), arrangements, fast=fast)
     else:
-        batches = (_enumerate(pooled, rows_per_batch) if is_exact
-                   else _random(pooled, stream, resamples, rows_per_batch))
-        null = _evaluate(pooled, statistic, batches, arrangements if is_exact else resamples, fast=fast)
+        # ranges of resamples may run on other workers (engines.blocks); the same numbers
+        null = map_resamples(range_task(_random_range, pooled, statistic, stream, rows_per_batch, fast), resamples)
     bad = np.isnan(null) | ((null == np.inf) & (statistic.name not in INFINITE_ALLOWED)) | (null == -np.inf)
     if bad.any():
         raise EngineError(
@@ -303,9 +306,16 @@ def _evaluate(pooled: _Pooled, statistic: Statistic, batches: Iterator[tuple[np.
     return out
 
 
+def _random_range(pooled: _Pooled, statistic: Statistic, stream: Stream, rows_per_batch: int, fast: bool,
+                  start: int, stop: int) -> np.ndarray:
+    """The null statistic of resamples [start, stop) (a picklable range task)."""
+    return _evaluate(pooled, statistic, _random(pooled, stream, stop - start, rows_per_batch, start=start),
+                     stop - start, fast=fast)
+
+
 def _random(pooled: _Pooled, stream: Stream, resamples: int,
-            rows_per_batch: int) -> Iterator[tuple[np.ndarray, ...]]:
-    reader = UniformRows(stream, pooled.values.shape[0])
+            rows_per_batch: int, *, start: int = 0) -> Iterator[tuple[np.ndarray, ...]]:
+    reader = UniformRows(stream, pooled.values.shape[0], start)
     offset = 2.0 * pooled.stratum
     done = 0
     while done < resamples:

@@ -85,7 +85,8 @@ def summarize(null: np.ndarray, observed: float, *, exact: bool, alternative: st
         smallest = {"greater": top, "less": bottom}.get(
             alternative, min(1.0, 2.0 * min(top, bottom)) if two_sided == "doubled" else edge)
     else:
-        floor = max(1.0 / (total + 1), 1.0 / arrangements if arrangements else 0.0)
+        # 1/arrangements underflows to 0 for large groups (and int → float overflows past 1e308)
+        floor = max(1.0 / (total + 1), 1.0 / arrangements if 0 < arrangements < 10 ** 300 else 0.0)
         smallest = min(1.0, 2.0 * floor) if alternative == "two-sided" and two_sided == "doubled" else floor
 
     se = interval = None

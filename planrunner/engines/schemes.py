@@ -213,17 +213,20 @@ class _OrderFastPath:
 
 
 def draw_cells(lay: Layout, statistic: Statistic, resamples: int, stream: Stream, batch_elements: int,
-               inner: str | None, inner_resamples: int = 0, *, fast: bool = True) -> tuple[np.ndarray, np.ndarray | None]:
+               inner: str | None, inner_resamples: int = 0, *, fast: bool = True,
+               start: int = 0) -> tuple[np.ndarray, np.ndarray | None]:
     """Run the cells draw contract; the B replicates (and inner SEs) in resample order.
 
     ``fast``: medians and quantiles over the once-sorted data (identical numbers; see _OrderFastPath).
+    ``start``: the first resample drawn (resamples [start, start + resamples)), so that ranges of
+    resamples can be computed apart and joined (see ``engines.blocks``).
     """
     order_path = _OrderFastPath(statistic, lay.groups) if fast and _OrderFastPath.applies(statistic, inner) else None
     width = int(lay.cell_start.shape[0])
     n_max = max(b - a for a, b in lay.bounds)
     factor = inner_resamples if inner == "bootstrap" else _inner_factor(inner, n_max)
     rows_per_batch = _rows_per_batch(batch_elements, width * statistic.columns * factor)
-    reader = UniformRows(stream, width)
+    reader = UniformRows(stream, width, start)
     nested = UniformRows(stream.child(INNER_LABEL), width) if inner == "bootstrap" else None
     out = np.empty(resamples, dtype=np.float64)
     se = np.empty(resamples, dtype=np.float64) if inner else None

@@ -1,0 +1,201 @@
+"""Executors give the same numbers; interrupts leave nothing behind; memory stays bounded."""
+
+from __future__ import annotations
+
+import dataclasses
+import shutil
+import sys
+import tracemalloc
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from planrunner import cli
+from planrunner.engines.bootstrap import bootstrap
+from planrunner.engines.permutation import permutation_test
+from planrunner.engines.statistics import get_statistic
+from planrunner.engines.streams import stream_for
+from planrunner.execute import Execution, ExecutorError, execute_all
+from planrunner.runner import check_plan, run_plan
+
+from conftest import fixed_clock
+
+DEMO = Path(__file__).resolve().parents[1] / "plans" / "liner-trial"
+# informational fields: when, who, how it ran; everything else must agree bit for bit
+NOT_COMPARED = {"started_utc", "finished_utc", "execution", "record_sha256"}  # the hash covers `execution`
+
+
+@pytest.fixture
+def demo(tmp_path: Path) -> Path:
+    target = tmp_path / "liner-trial"
+    shutil.copytree(DEMO, target, ignore=shutil.ignore_patterns("runs"))
+    return target / "plan.yaml"
+
+
+def _compare(reference: dict, other: dict, path: str = "") -> None:
+    assert reference.keys() == other.keys(), path
+    for key in reference:
+        if path == "" and key in NOT_COMPARED:
+            continue
+        a, b = reference[key], other[key]
+        if isinstance(a, dict):
+            _compare(a, b, f"{path}.{key}")
+        else:
+            assert a == b, f"{path}.{key}: {a!r} != {b!r}"
+
+
+def test_demo_plan_identical_serial_processes_and_dask(demo: Path, tmp_path: Path) -> None:
+    pytest.importorskip("distributed")
+    executions = [Execution(), Execution("processes", 2), Execution("dask", 2, local_processes=False)]
+    records = [run_plan(demo, out=tmp_path / f"out-{e.executor}", clock=fixed_clock, execution=e).record
+               for e in executions]
+    for record, execution in zip(records, executions):
+        assert record["execution"] == {"executor": execution.executor, "workers": execution.workers,
+                                       "scheduler": None}
+    # two Monte Carlo analyses of 9999 resamples; the excursion test is exact (its DP null), the
+    # jackknife draws none
+    assert [a["resamples"] for a in records[0]["analyses"]][:2] == [9999, 9999]
+    assert records[0]["analyses"][2]["exact"] is True and records[0]["analyses"][3]["resamples"] is None
+    for other in records[1:]:
+        _compare(records[0], other)
+        for a, b in zip(records[0]["analyses"], other["analyses"]):  # lists of dicts: field by field
+            _compare(a, b)
+
+
+def test_progress_counts_every_resample_once(demo: Path) -> None:
+    jobs = check_plan(demo).jobs
+    assert jobs is not None
+    seen: list[tuple[int, int]] = []
+    execute_all(jobs, progress=lambda done, total: seen.append((done, total)))
+    totals = {total for _, total in seen}
+    assert totals == {3 * 9999}  # one bootstrap and two permutation tests of 9999; the jackknife draws none
+    dones = [done for done, _ in seen]
+    assert dones == sorted(dones) and dones[0] == 0 and dones[-1] == 3 * 9999
+
+
+def _interrupting_bar(after: int):
+    class Bar:
+        calls = 0
+
+        def __call__(self, done: int, total: int) -> None:
+            Bar.calls += 1
+            if Bar.calls > after:
+                raise KeyboardInterrupt
+
+        def close(self) -> None:
+            pass
+
+    return Bar()
+
+
+@pytest.mark.parametrize("options", [[], ["--workers", "2"]])
+def test_interrupt_stops_cleanly_without_a_record(demo: Path, tmp_path: Path, monkeypatch, capsys,
+                                                  options: list[str]) -> None:
+    monkeypatch.setattr(cli, "progress_bar", lambda quiet: _interrupting_bar(after=2))
+    out = tmp_path / "runs"
+    code = cli.main(["run", str(demo), "--out", str(out), *options])
+    assert code == 130
+    err = capsys.readouterr().err
+    assert "interrupted" in err and "no record was written" in err and "Traceback" not in err
+    assert not out.exists() or list(out.iterdir()) == []
+
+
+def test_executor_choices_are_checked(demo: Path, capsys) -> None:
+    assert cli.main(["run", str(demo), "--executor", "serial", "--workers", "3"]) == 2
+    assert "serial executor runs one worker" in capsys.readouterr().err
+    assert cli.main(["run", str(demo), "--workers", "0"]) == 2
+    assert "at least 1" in capsys.readouterr().err
+    assert cli.main(["run", str(demo), "--executor", "processes", "--scheduler", "tcp://127.0.0.1:1"]) == 2
+    assert "only used by the dask executor" in capsys.readouterr().err
+
+
+def test_dask_missing_is_a_clear_error(demo: Path, monkeypatch) -> None:
+    jobs = check_plan(demo).jobs
+    assert jobs is not None
+    monkeypatch.setitem(sys.modules, "distributed", None)  # import fails as if not installed
+    with pytest.raises(ExecutorError, match=r"planrunner\[dask\]"):
+        execute_all(jobs, execution=Execution("dask", 2))
+
+
+def _peak_bytes(call) -> int:
+    tracemalloc.start()
+    try:
+        call()
+        return tracemalloc.get_traced_memory()[1]
+    finally:
+        tracemalloc.stop()
+
+
+@pytest.mark.parametrize("method", ["bootstrap", "permutation"])
+def test_memory_of_one_engine_call_stays_bounded_as_resamples_grow(method: str) -> None:
+    rng = np.random.default_rng(1)
+    data = [rng.normal(size=3000), rng.normal(size=2000)]
+    stat = get_statistic("median_difference" if method == "bootstrap" else "mean_difference")
+
+    def call(resamples: int):
+        if method == "bootstrap":
+            return lambda: bootstrap(data, stat, resamples=resamples, confidence=0.95, intervals=["percentile"],
+                                     stream=stream_for(1, "memory"))
+        return lambda: permutation_test(data, stat, resamples=resamples, alternative="two-sided",
+                                        stream=stream_for(1, "memory"), exact="never")
+
+    small, large = _peak_bytes(call(1000)), _peak_bytes(call(8000))
+    # B x n draws would be 8000 * 5000 * 8 bytes = 320 MB; the growth allowed is four arrays of B doubles
+    assert large - small <= 4 * 8 * (8000 - 1000)
+    # and the peak itself is the memory batch (2e6 elements by default, a few arrays of it), not B x n
+    assert large < 100 * 2 ** 20
+
+
+def test_engine_errors_from_workers_keep_where_and_hint() -> None:
+    from planrunner.compile import Job
+    from planrunner.errors import EngineError
+    from planrunner.execute import _execute_caught, _result_of
+
+    job = Job(analysis_id="one-row", method="jackknife", statistic=get_statistic("mean"),
+              samples=(np.array([1.0]),), strata=None, group_labels=("all rows",), strata_labels=None,
+              options={}, stream=stream_for(1, "one-row"))
+    outcome = _execute_caught(job)  # what a worker sends back
+    with pytest.raises(EngineError) as caught:
+        _result_of(outcome)
+    assert "at least 2" in caught.value.message and caught.value.hint == "use more data or another method"
+
+
+def test_progress_bar_is_silent_off_a_terminal_and_when_quiet(capsys) -> None:
+    for quiet in (False, True):
+        bar = cli.ProgressBar(quiet)
+        for done in (0, 500, 1000):
+            bar(done, 1000)
+        bar.close()
+    captured = capsys.readouterr()
+    assert captured.err == "" and captured.out == ""  # pytest's stderr is not a terminal
+
+
+def test_dask_scheduler_address_is_used(demo: Path) -> None:
+    distributed = pytest.importorskip("distributed")
+    jobs = check_plan(demo).jobs
+    assert jobs is not None
+    serial = execute_all(jobs)
+    # a scheduler listening on loopback TCP, as a remote one would (its workers are threads here)
+    with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=False, protocol="tcp://",
+                                  host="127.0.0.1", dashboard_address=None) as cluster:
+        remote = execute_all(jobs, execution=Execution("dask", 2, cluster.scheduler_address))
+    for a, b in zip(serial, remote):
+        for field in dataclasses.fields(a):
+            x, y = getattr(a, field.name), getattr(b, field.name)
+            if isinstance(x, np.ndarray) or (isinstance(x, tuple) and x and isinstance(x[0], np.ndarray)):
+                assert np.asarray(x).tobytes() == np.asarray(y).tobytes(), field.name
+            else:
+                assert x == y, field.name
+
+
+def test_unreachable_scheduler_is_a_clear_error(demo: Path, monkeypatch) -> None:
+    pytest.importorskip("distributed")
+    import planrunner.execute as execute
+
+    monkeypatch.setattr(execute, "SCHEDULER_TIMEOUT", 1.0)
+    jobs = check_plan(demo).jobs
+    assert jobs is not None
+    with pytest.raises(ExecutorError, match="cannot reach the dask scheduler tcp://127.0.0.1:1") as caught:
+        execute_all(jobs, execution=Execution("dask", 2, "tcp://127.0.0.1:1"))  # port 1: nothing listens
+    assert "check the address" in str(caught.value)

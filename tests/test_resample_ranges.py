@@ -1,0 +1,61 @@
+"""Resamples split into ranges (as an executor spreads them over workers) give identical numbers."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from planrunner.engines.blocks import block_ranges, map_resamples, mapping_ranges
+from planrunner.engines.bootstrap import bootstrap
+from planrunner.engines.permutation import permutation_test
+from planrunner.engines.statistics import get_statistic
+from planrunner.engines.streams import DRAW_BLOCK, stream_for
+
+RNG = np.random.default_rng(20261201)
+
+
+def out_of_order(seen: list):
+    """A mapper that cuts into three ranges and computes them last-first, on purpose."""
+    def mapper(task, total):
+        ranges = block_ranges(total, 3)
+        seen.append(ranges)
+        return [task(a, b) for a, b in reversed(ranges)][::-1]
+    return mapper
+
+
+def test_block_ranges_cover_whole_draw_blocks():
+    assert block_ranges(4321, 3) == [(0, 2000), (2000, 4000), (4000, 4321)]
+    for total, pieces in [(1, 4), (999, 2), (10_000, 7), (12_345, 1)]:
+        ranges = block_ranges(total, pieces)
+        assert ranges[0][0] == 0 and ranges[-1][1] == total
+        assert all(b == c for (_, b), (c, _) in zip(ranges, ranges[1:]))
+        assert all(a % DRAW_BLOCK == 0 for a, _ in ranges)  # no generator started twice for one block
+    assert map_resamples(lambda a, b: np.arange(a, b, dtype=float), 0).size == 0
+
+
+@pytest.mark.parametrize("name, strata", [("mean", False), ("median", False), ("median_difference", True),
+                                          ("mean_difference", False)])
+def test_bootstrap_split_ranges_are_bit_identical(name, strata):
+    statistic = get_statistic(name)
+    groups = (RNG.normal(size=300),) if statistic.samples == 1 else (RNG.normal(size=200), RNG.normal(size=150))
+    codes = tuple(RNG.integers(0, 3, size=g.size) for g in groups) if strata else None
+    kwargs = dict(resamples=4321, confidence=0.95, intervals=("percentile",), stream=stream_for(5, name),
+                  strata=codes)
+    whole = bootstrap(groups, statistic, **kwargs)
+    seen: list = []
+    with mapping_ranges(out_of_order(seen)):
+        split = bootstrap(groups, statistic, **kwargs)
+    assert seen == [[(0, 2000), (2000, 4000), (4000, 4321)]]
+    assert split.distribution.tobytes() == whole.distribution.tobytes()
+
+
+def test_monte_carlo_permutation_split_ranges_are_bit_identical():
+    statistic = get_statistic("mean_difference")
+    groups = (RNG.normal(size=40), RNG.normal(0.3, size=35))
+    kwargs = dict(resamples=4321, alternative="two-sided", stream=stream_for(6, "perm"), exact="never")
+    whole = permutation_test(groups, statistic, **kwargs)
+    seen: list = []
+    with mapping_ranges(out_of_order(seen)):
+        split = permutation_test(groups, statistic, **kwargs)
+    assert seen == [[(0, 2000), (2000, 4000), (4000, 4321)]]
+    assert split.null.tobytes() == whole.null.tobytes() and split.p_value == whole.p_value
