@@ -24,7 +24,7 @@ from .compile import Job
 from .engines.blocks import RangeTask, block_ranges, mapping_ranges
 from .engines.bootstrap import bootstrap
 from .engines.jackknife import jackknife
-from .engines.statistics import STATISTICS, Statistic, get_statistic
+from .engines.statistics import STATISTICS, Statistic, bind, get_statistic
 from .engines.streams import DRAW_BLOCK
 from .errors import EngineError, PlanrunnerError
 from .permrun import run_permutation
@@ -66,10 +66,18 @@ class Execution:
         return {"executor": self.executor, "workers": self.workers, "scheduler": self.scheduler}
 
 
+def _bound_statistic(name: str, value: float) -> Statistic:
+    return bind(get_statistic(name), value)
+
+
 def _reduce_statistic(statistic: Statistic) -> tuple:
-    """Registered statistics travel to workers by name (their functions may be closures)."""
-    if STATISTICS.get(statistic.name) is statistic:
+    """Registered statistics travel to workers by name, and those with a parameter (a quantile's
+    level) by name and value: their functions are closures, which cannot be pickled."""
+    registered = STATISTICS.get(statistic.name)
+    if registered is statistic:
         return get_statistic, (statistic.name,)
+    if registered is not None and registered.parameter is not None and statistic.value is not None:
+        return _bound_statistic, (statistic.name, statistic.value)
     return object.__reduce_ex__(statistic, 4)  # by value, whatever fields it has
 
 

@@ -199,3 +199,16 @@ def test_unreachable_scheduler_is_a_clear_error(demo: Path, monkeypatch) -> None
     with pytest.raises(ExecutorError, match="cannot reach the dask scheduler tcp://127.0.0.1:1") as caught:
         execute_all(jobs, execution=Execution("dask", 2, "tcp://127.0.0.1:1"))  # port 1: nothing listens
     assert "check the address" in str(caught.value)
+
+
+def test_statistics_with_a_parameter_travel_to_workers() -> None:
+    """A bound quantile's function is a closure; it must reach a worker by name and level."""
+    import pickle
+
+    from planrunner.engines.statistics import bind
+
+    q90 = bind(get_statistic("quantile"), 0.9)
+    again = pickle.loads(pickle.dumps(q90))
+    x = np.arange(11.0)
+    assert again.name == "quantile" and again.value == 0.9
+    assert float(again.compute(x)) == float(np.quantile(x, 0.9))  # numpy reference (type 7)
