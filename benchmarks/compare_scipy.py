@@ -49,6 +49,7 @@ from planrunner.engines.blocks import block_ranges, mapping_ranges  # noqa: E402
 from planrunner.engines.bootstrap import bootstrap  # noqa: E402
 from planrunner.engines.jackknife import jackknife  # noqa: E402
 from planrunner.engines.permutation import permutation_test  # noqa: E402
+from planrunner.engines.signflip import signflip_test  # noqa: E402
 from planrunner.engines.statistics import get_statistic  # noqa: E402
 from planrunner.engines.streams import stream_for  # noqa: E402
 
@@ -137,10 +138,14 @@ def workloads(seed: int) -> list[Workload]:
                  lambda: st.permutation_test((a, b), _mean_difference, permutation_type="independent",
                                              vectorized=True, n_resamples=B, rng=np.random.default_rng(seed)),
                  _same_p, 10, 200),
-        Workload("W5", "paired sign-flip test, 1e4 pairs, 1e4 resamples", None,
+        Workload("W5", "paired sign-flip test, 1e4 pairs, 1e4 resamples",
+                 # the differences d against pairs of zeros: the mean difference is the mean of d
+                 lambda: signflip_test(pairs, np.zeros_like(pairs), mean_difference, resamples=B,
+                                       alternative="two-sided", stream=stream_for(seed, "benchmark"),
+                                       exact="never"),
                  lambda: st.permutation_test((pairs,), _mean, permutation_type="samples", vectorized=True,
                                              n_resamples=B, rng=np.random.default_rng(seed)),
-                 _same_p, 50, 200, missing="no paired (sign-flip) scheme in the engines yet"),
+                 _same_p, 50, 200),
         Workload("W6", "exact two-group test, 10 + 10 integers (184,756 splits)",
                  lambda: permutation_test([small_a, small_b], mean_difference, resamples=B,
                                           alternative="two-sided", stream=stream_for(seed, "benchmark"),
