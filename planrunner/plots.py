@@ -28,7 +28,7 @@ from . import precision
 from .engines.statistics import STATISTICS
 
 # Okabe & Ito (2008) colours, each paired with a line style so that greyscale keeps them apart
-BLUE, GREEN, PURPLE, ORANGE, VERMILLION, SKY = "#0072B2", "#009E73", "#CC79A7", "#E69F00", "#D55E00", "#56B4E9"
+BLUE, GREEN, PURPLE, ORANGE, VERMILLION = "#0072B2", "#009E73", "#CC79A7", "#E69F00", "#D55E00"
 INTERVAL_STYLES = [(BLUE, "--"), (GREEN, ":"), (PURPLE, "-."), (ORANGE, (0, (5, 1, 1, 1)))]
 BAR, BAR_EDGE = "#d4d4d4", "#7a7a7a"
 

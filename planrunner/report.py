@@ -15,13 +15,16 @@ import importlib.resources
 import json
 import re
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import jinja2
 from markupsafe import Markup, escape
 
 from . import precision
 from .precision import significant
+
+if TYPE_CHECKING:  # matplotlib is imported only when a report is drawn
+    from . import plots
 
 
 def templates_folder() -> Path:

@@ -21,7 +21,6 @@ cells visited; beyond it the engine falls back to Monte Carlo (or, with ``exact:
 
 from __future__ import annotations
 
-import math
 from collections.abc import Sequence
 
 import numpy as np
@@ -90,7 +89,3 @@ def sum_distribution(strata: Sequence[tuple[np.ndarray, int]]) -> tuple[int, np.
         offset += o
         counts = np.convolve(counts, c)
     return offset, counts
-
-
-def arrangements_of(strata: Sequence[tuple[np.ndarray, int]]) -> int:
-    return math.prod(math.comb(s.size, k) for s, k in strata)

@@ -28,7 +28,7 @@ from __future__ import annotations
 
 import itertools
 import math
-from collections.abc import Callable, Sequence
+from collections.abc import Sequence
 from dataclasses import dataclass
 
 import numpy as np
@@ -517,6 +517,3 @@ def enumerate_cells(lay: Layout, statistic: Statistic, batch_elements: int,
         if se is not None and s is not None:
             se[flat] = s
     return values, np.exp(log_p), se
-
-
-CellDraw = Callable[..., np.ndarray]

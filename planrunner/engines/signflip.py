@@ -19,7 +19,6 @@ two, integer-valued |d| or ranks give the exact null by dynamic programming over
 from __future__ import annotations
 
 import math
-from collections.abc import Iterator
 
 import numpy as np
 from scipy.stats import rankdata
