@@ -474,3 +474,29 @@ def test_lower_never_above_upper_in_every_scheme(data: list[float], scheme: str)
     for iv in r.intervals:
         if iv.lower is not None:
             assert iv.lower <= iv.upper, (scheme, iv)
+
+
+@pytest.mark.parametrize("ks", [[0], [1499], [1499, 1500], [2999], [2250, 2251], [29, 30]])
+def test_order_positions_equal_partition(ks) -> None:
+    # the counting window gives exactly numpy's partition, including rows far outside the window
+    rng = np.random.default_rng(len(ks) + ks[0])
+    n = 3000
+    ranks = rng.integers(0, n, size=(40, n)).astype(np.int32)
+    ranks[3] = 0  # every draw the smallest observation: the order statistic lies below any window
+    ranks[7] = n - 1  # and above it
+    ranks[11, : n // 2 + 400] = 5  # a lopsided row
+    expected = np.partition(ranks, ks, axis=1)[:, ks]
+    assert np.array_equal(schemes._order_positions(ranks.copy(), ks, n), expected)
+
+
+@pytest.mark.parametrize("name,q", [("median", None), ("quantile", 0.1), ("quantile", 0.975),
+                                    ("median_difference", None)])
+def test_order_fast_path_equals_plain_on_large_groups(name, q) -> None:
+    from planrunner.engines.statistics import bind
+    rng = np.random.default_rng(31)
+    groups = (np.round(rng.gamma(2.0, 10.0, 2001), 1), rng.normal(size=1500))[: 2 if "difference" in name else 1]
+    stat = get_statistic(name) if q is None else bind(get_statistic(name), q)
+    lay = schemes.layout(groups, None)
+    fast, _ = schemes.draw_cells(lay, stat, 700, stream_for(8, "big"), 50_000, None, fast=True)
+    plain, _ = schemes.draw_cells(lay, stat, 700, stream_for(8, "big"), 50_000, None, fast=False)
+    assert np.array_equal(fast, plain)

@@ -55,6 +55,9 @@ __all__ = [
     "layout",
 ]
 
+# draws per batch when nothing else bounds it: about 1 MB of doubles, so that a batch's uniforms,
+# indices and gathered values stay in the processor's cache between the steps that use them
+CACHE_ELEMENTS = 131_072
 EXHAUSTIVE_LIMIT = 200_000  # most distinct resamples (product over cells) enumerated exhaustively
 BLOCK_SCHEMES = ("moving", "circular", "stationary")
 MODELS = ("normal", "exponential", "poisson", "binomial")
@@ -159,14 +162,49 @@ def _nested_se(lay: Layout, statistic: Statistic, gathered: list[np.ndarray], re
     return np.std(theta, axis=-1, ddof=1)
 
 
+WINDOW_SDS = 6.0  # half-width of the counting window of _order_positions, in binomial sds
+
+
+def _order_positions(ranks: np.ndarray, ks: Sequence[int], n: int) -> np.ndarray:
+    """``np.partition(ranks, ks, axis=1)[:, ks]`` for rows of n ranks in [0, n), by counting.
+
+    The k-th smallest of a resample's ranks lies, but with a chance of about 1e-9 per row, within
+    WINDOW_SDS binomial standard deviations of k (the number of draws below a rank p is
+    Binomial(n, p/n)). So each row counts the draws below that window and the draws at each rank
+    inside it (a few per cent of the draws), and reads the order statistics off the cumulative
+    counts. Rows whose order statistics fall outside the window are partitioned in full. The
+    positions are integers, so the result is exactly the partition's.
+    """
+    rows = ranks.shape[0]
+    centre = (ks[0] + ks[-1]) / 2.0
+    q = min(max((centre + 0.5) / n, 0.0), 1.0)
+    half = WINDOW_SDS * math.sqrt(n * q * (1.0 - q)) + 2.0
+    lo, hi = max(0, int(ks[0] - half)), min(n, int(ks[-1] + half) + 1)
+    window = hi - lo
+    shifted = ranks - ranks.dtype.type(lo)
+    below = np.count_nonzero(shifted < 0, axis=1)
+    inside = shifted.view(np.dtype(f"u{shifted.itemsize}")) < window  # negatives wrap to large
+    shifted += (np.arange(rows, dtype=shifted.dtype) * window)[:, None]  # one counting row per resample
+    counts = np.bincount(shifted[inside], minlength=rows * window).reshape(rows, window)
+    cumulative = np.cumsum(counts, axis=1)
+    cumulative += below[:, None]
+    out = np.empty((rows, len(ks)), dtype=np.int64)
+    for j, k in enumerate(ks):
+        out[:, j] = lo + np.count_nonzero(cumulative <= k, axis=1)  # first rank whose count passes k
+    missed = np.flatnonzero((below > ks[0]) | (cumulative[:, -1] <= ks[-1]))
+    if missed.size:
+        out[missed] = np.partition(ranks[missed], list(ks), axis=1)[:, list(ks)]
+    return out
+
+
 class _OrderFastPath:
     """Median and quantile statistics over the once-sorted data (DESIGN §7).
 
     Each group is sorted once; a resample's draws become integer ranks, and the order statistics a
-    location needs are found by partitioning those ranks (no per-resample float gather or sort).
-    The value is then formed with numpy's own formulas (median: mean of the two middle values;
-    linear quantile: numpy's lerp with γ = (n − 1)q − floor((n − 1)q)), so the replicates are
-    identical to the plain computation (tested).
+    location needs are found by counting those ranks (:func:`_order_positions`; no per-resample
+    float gather or sort). The value is then formed with numpy's own formulas (median: mean of the
+    two middle values; linear quantile: numpy's lerp with γ = (n − 1)q − floor((n − 1)q)), so the
+    replicates are identical to the plain computation (tested).
     """
 
     def __init__(self, statistic: Statistic, groups: tuple[np.ndarray, ...]):
@@ -191,18 +229,18 @@ class _OrderFastPath:
         if self.statistic.form == "median":
             k = n // 2
             if n % 2:
-                return s[np.partition(ranks, k, axis=1)[:, k]]
-            part = np.partition(ranks, [k - 1, k], axis=1)
-            return (s[part[:, k - 1]] + s[part[:, k]]) / 2.0
+                return s[_order_positions(ranks, [k], n)[:, 0]]
+            part = _order_positions(ranks, [k - 1, k], n)
+            return (s[part[:, 0]] + s[part[:, 1]]) / 2.0
         q = self.statistic.value
         assert q is not None
         virtual = (n - 1) * np.float64(q)
         j = int(np.floor(virtual))
         gamma = virtual - j
         if j + 1 >= n:
-            return s[np.partition(ranks, n - 1, axis=1)[:, n - 1]]
-        part = np.partition(ranks, [j, j + 1], axis=1)
-        low, high = s[part[:, j]], s[part[:, j + 1]]
+            return s[_order_positions(ranks, [n - 1], n)[:, 0]]
+        part = _order_positions(ranks, [j, j + 1], n)
+        low, high = s[part[:, 0]], s[part[:, 1]]
         # numpy's _lerp: a + (b − a)γ, or b − (b − a)(1 − γ) when γ ≥ 0.5
         diff = high - low
         return high - diff * (1 - gamma) if gamma >= 0.5 else low + diff * gamma
@@ -226,16 +264,26 @@ def draw_cells(lay: Layout, statistic: Statistic, resamples: int, stream: Stream
     n_max = max(b - a for a, b in lay.bounds)
     factor = inner_resamples if inner == "bootstrap" else _inner_factor(inner, n_max)
     rows_per_batch = _rows_per_batch(batch_elements, width * statistic.columns * factor)
+    if inner is None:
+        # the numbers do not depend on the batch size, so a batch may stay inside the cache
+        rows_per_batch = min(rows_per_batch, _rows_per_batch(CACHE_ELEMENTS, width * statistic.columns))
     reader = UniformRows(stream, width, start)
     nested = UniformRows(stream.child(INNER_LABEL), width) if inner == "bootstrap" else None
     out = np.empty(resamples, dtype=np.float64)
     se = np.empty(resamples, dtype=np.float64) if inner else None
+    # buffers reused by every batch: allocating them afresh costs more than the arithmetic
+    u_buffer = np.empty((min(rows_per_batch, resamples), width), dtype=np.float64)
+    index_buffer = np.empty(u_buffer.shape, dtype=np.intp)
+    offsets = lay.cell_start if np.any(lay.cell_start) else None
     done = 0
     while done < resamples:
         rows = min(rows_per_batch, resamples - done)
-        u = reader.take(rows)
-        # truncation is floor here because u * size >= 0
-        index = lay.cell_start + (u * lay.cell_size).astype(np.int64)
+        u = reader.take(rows, out=u_buffer[:rows])
+        np.multiply(u, lay.cell_size, out=u)
+        index = index_buffer[:rows]
+        np.copyto(index, u, casting="unsafe")  # truncation is floor here because u * size >= 0
+        if offsets is not None:
+            np.add(index, offsets, out=index)
         if order_path is not None:
             out[done:done + rows] = order_path.compute([index[:, a:b] for a, b in lay.bounds])
             done += rows

@@ -98,8 +98,12 @@ class UniformRows:
         """Index of the resample the next ``take`` begins with."""
         return self._next_row
 
-    def take(self, rows: int) -> np.ndarray:
-        out = np.empty((rows, self._width), dtype=np.float64)
+    def take(self, rows: int, out: np.ndarray | None = None) -> np.ndarray:
+        """The next ``rows`` rows, written into ``out`` (shape (rows, width), float64) when given."""
+        if out is None:
+            out = np.empty((rows, self._width), dtype=np.float64)
+        elif out.shape != (rows, self._width) or out.dtype != np.float64:
+            raise ValueError(f"out must be a float64 array of shape {(rows, self._width)}")
         filled = 0
         while filled < rows:
             block, offset = divmod(self._next_row, DRAW_BLOCK)
