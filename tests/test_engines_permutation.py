@@ -309,3 +309,45 @@ def test_enumeration_order_and_chunks(rows_per_batch: int) -> None:
     want = np.array([sum(choice, ()) for choice in itertools.product(
         *[itertools.combinations(range(start, start + size), first) for start, size, first in blocks])])
     assert np.array_equal(got, want)
+
+
+def _sums_by_argsort(keys, values, stratum, slots):
+    # the draw contract written out: stable argsort of keys + 2 * stratum, group 1 the first slots
+    order = np.argsort(keys + 2.0 * stratum, axis=1, kind="stable")
+    return np.array([values[row[slots]].sum() for row in order])
+
+
+@pytest.mark.parametrize("sizes", [[(5000, 5000)], [(3, 900), (400, 2), (0, 7), (6, 0), (1, 1)],
+                                   [(2000, 3000), (10, 40)], [(1, 0)]])
+def test_key_window_sums_equal_the_sorted_contract(sizes) -> None:
+    from planrunner.engines.permutation import _first_group_sums, _pool
+    rng = np.random.default_rng(len(sizes))
+    data = [np.concatenate([rng.normal(size=a) for a, _ in sizes]), np.concatenate([rng.normal(size=b) for _, b in sizes])]
+    codes = [np.repeat(np.arange(len(sizes)), [a for a, _ in sizes]), np.repeat(np.arange(len(sizes)), [b for _, b in sizes])]
+    pooled = _pool(tuple(data), tuple(codes))
+    width = pooled.values.shape[0]
+    keys = rng.random((30, width))
+    keys[2] = 0.25  # every key tied: ties go to the lower position
+    keys[4, ::2] = keys[4, -1]  # many ties inside the window
+    keys[6] = np.linspace(0.999, 0.0, width)  # keys in reverse order of position
+    keys[8, : width // 2] = 0.999  # the n1-th key far above its usual window
+    keys[9, : width // 2] = 0.0001  # and far below it
+    got = _first_group_sums(keys, pooled.values, pooled.blocks)
+    want = _sums_by_argsort(keys, pooled.values, pooled.stratum, pooled.slots[0])
+    np.testing.assert_allclose(got, want, rtol=0, atol=1e-9)
+
+
+def test_key_window_path_is_range_invariant_and_equals_plain() -> None:
+    rng = np.random.default_rng(4)
+    x, y = rng.gamma(2.0, 3.0, 1500), rng.gamma(2.0, 3.5, 1300)
+    kw = dict(resamples=2 * DRAW_BLOCK + 37, alternative="two-sided", stream=stream_for(9, "window"), exact="never")
+    fast = permutation_test([x, y], MEAN_DIFF, fast=True, **kw)
+    plain = permutation_test([x, y], MEAN_DIFF, fast=False, **kw)
+    np.testing.assert_allclose(fast.null, plain.null, rtol=0, atol=1e-12)
+    assert (fast.count_greater, fast.count_less) == (plain.count_greater, plain.count_less)
+    from planrunner.engines.permutation import _mean_difference_range, _pool
+    pooled = _pool((x, y), None)
+    whole = _mean_difference_range(pooled, kw["stream"], 0, kw["resamples"])
+    split = np.concatenate([_mean_difference_range(pooled, kw["stream"], a, b)
+                            for a, b in [(0, 999), (999, 1001), (1001, kw["resamples"])]])
+    assert np.array_equal(whole, split) and np.array_equal(whole, fast.null)

@@ -28,8 +28,10 @@ order, and slot s receives the observation at that position. Rows are drawn in o
 batches split rows, never change them.
 
 Fast path: for a difference of means (or proportions) only the first group's sum S1 is gathered,
-T = S1/n1 − (Σx − S1)/n2 (DESIGN §7); the plain computation is kept (``fast=False``) and tests check
-that both count the same arrangements.
+T = S1/n1 − (Σx − S1)/n2 (DESIGN §7). Monte Carlo draws then find group 1's positions without
+sorting the keys (a window around the n1-th smallest key, :func:`_first_group_sums`): the same
+arrangements as the argsort, summed in another order. The plain computation is kept
+(``fast=False``) and tests check that both count the same arrangements.
 
 p-values: see :mod:`planrunner.engines.pvalues` (exact count / arrangements; Monte Carlo
 (b + 1)/(m + 1); two-sided ``doubled`` or ``absolute``). Comparisons allow
@@ -309,8 +311,96 @@ def _evaluate(pooled: _Pooled, statistic: Statistic, batches: Iterator[tuple[np.
 def _random_range(pooled: _Pooled, statistic: Statistic, stream: Stream, rows_per_batch: int, fast: bool,
                   start: int, stop: int) -> np.ndarray:
     """The null statistic of resamples [start, stop) (a picklable range task)."""
+    if fast and _sums_suffice(pooled, statistic):
+        return _mean_difference_range(pooled, stream, start, stop)
     return _evaluate(pooled, statistic, _random(pooled, stream, stop - start, rows_per_batch, start=start),
                      stop - start, fast=fast)
+
+
+def _sums_suffice(pooled: _Pooled, statistic: Statistic) -> bool:
+    """A difference of two means (or proportions) needs only the first group's sum (DESIGN §7)."""
+    return statistic.form == "mean" and len(pooled.slots) == 2 and pooled.values.ndim == 1
+
+
+KEY_WINDOW_SDS = 5.0  # half-width of the key window of _first_group_sums, in binomial sds
+KEY_BUCKETS = 64  # the window is cut into this many buckets; only one bucket per row is sorted
+KEY_ROWS = 512  # rows per batch of the key-window path (row numbers and keys share one int64)
+KEY_CACHE_ELEMENTS = 131_072  # keys per batch: about 1 MB, kept in cache
+
+
+def _mean_difference_range(pooled: _Pooled, stream: Stream, start: int, stop: int) -> np.ndarray:
+    """T = S1/n1 − (Σx − S1)/n2 for resamples [start, stop), S1 from the keys without sorting them."""
+    width = pooled.values.shape[0]
+    n1, n2 = int(pooled.slots[0].size), int(pooled.slots[1].size)
+    grand = float(pooled.values.sum())
+    reader = UniformRows(stream, width, start)
+    rows_per_batch = max(1, min(KEY_ROWS, KEY_CACHE_ELEMENTS // width))
+    buffer = np.empty((min(rows_per_batch, stop - start), width))
+    out = np.empty(stop - start)
+    done = 0
+    while done < stop - start:
+        rows = min(rows_per_batch, stop - start - done)
+        keys = reader.take(rows, out=buffer[:rows])
+        first = _first_group_sums(keys, pooled.values, pooled.blocks)
+        out[done:done + rows] = first / n1 - (grand - first) / n2
+        done += rows
+    return out
+
+
+def _first_group_sums(keys: np.ndarray, values: np.ndarray,
+                      blocks: tuple[tuple[int, int, tuple[int, ...]], ...]) -> np.ndarray:
+    """Sum of the values in group 1's slots of each row of keys, as the draw contract assigns them.
+
+    Group 1 takes, in every stratum block, the n1 positions with the smallest keys (ties to the
+    lower position: the stable argsort). The n1-th smallest of ``size`` uniform keys lies, but with
+    a chance of about 1e-6 per row, within KEY_WINDOW_SDS binomial sds of n1/size. So the keys below
+    that window are certainly in group 1; the few inside it (a few per cent) are counted in
+    KEY_BUCKETS buckets (bucket order is key order), the buckets before the one holding the n1-th
+    key are taken whole, and only that bucket is sorted. A key is an integer multiple of 2⁻⁵³
+    (numpy's doubles), so row number and key pack exactly into one int64 and one stable sort orders
+    those keys of every row at once, ties to the lower position. Rows whose n1-th key falls outside
+    the window are sorted in full.
+    """
+    rows = keys.shape[0]
+    total = np.zeros(rows)
+    for start, size, sizes in blocks:
+        need_all = sizes[0]
+        if need_all == 0:
+            continue
+        block = keys[:, start:start + size]
+        x = values[start:start + size]
+        q = need_all / size
+        half = KEY_WINDOW_SDS * math.sqrt(q * (1.0 - q) / size) + 2.0 / size
+        low, high = q - half, q + half
+        below = block < low
+        part = np.multiply(below, x).sum(axis=1)  # faster than np.where, the same sums
+        need = need_all - np.count_nonzero(below, axis=1)  # window keys still to take, per row
+        inside = np.flatnonzero((block < high) ^ below)  # row-major: row, then position
+        row, column = np.divmod(inside, size)
+        key = block.ravel()[inside]
+        # floor of an increasing function of the key: a bucket never holds a smaller key than the one before
+        bucket = np.clip(((key - low) * (KEY_BUCKETS / (high - low))).astype(np.int64), 0, KEY_BUCKETS - 1)
+        cell = row * KEY_BUCKETS + bucket
+        filled = np.cumsum(np.bincount(cell, minlength=rows * KEY_BUCKETS).reshape(rows, KEY_BUCKETS), axis=1)
+        target = np.count_nonzero(filled < need[:, None], axis=1)  # bucket holding the need-th window key
+        missed = (need < 0) | (target == KEY_BUCKETS)  # the n1-th key lies outside the window
+        target = np.minimum(target, KEY_BUCKETS - 1)
+        before = np.where(target > 0, filled[np.arange(rows), target - 1], 0)
+        whole = (bucket < target[row]) & ~missed[row]
+        part += np.bincount(row[whole], weights=x[column[whole]], minlength=rows)
+        # the bucket holding the need-th key: sort its keys, take what is still needed
+        split = np.flatnonzero((bucket == target[row]) & ~missed[row])
+        packed = (row[split] << 53) + (key[split] * 2.0 ** 53).astype(np.int64)
+        split = split[np.argsort(packed, kind="stable")]  # by row, then key, then position
+        first = np.searchsorted(row[split], np.arange(rows))
+        taken = split[np.arange(split.size) - first[row[split]] < (need - before)[row[split]]]
+        part += np.bincount(row[taken], weights=x[column[taken]], minlength=rows)
+        for r in np.flatnonzero(missed):
+            chosen = np.zeros(size, dtype=bool)
+            chosen[np.argsort(block[r], kind="stable")[:need_all]] = True
+            part[r] = np.multiply(chosen, x).sum()
+        total += part
+    return total
 
 
 def _random(pooled: _Pooled, stream: Stream, resamples: int,
