@@ -439,3 +439,30 @@ def test_test_statistics_against_scipy_and_vectorised():
     assert t_plus == pytest.approx(stats.wilcoxon(d, alternative="greater", zero_method="wilcox").statistic)
     rr = get_statistic("risk_ratio").compute(np.array([1.0, 1, 0, 1]), np.array([1.0, 0, 0, 0]))
     assert rr == pytest.approx(3.0)  # (3/4) / (1/4)
+
+
+@pytest.mark.parametrize("pairs", [1, 8, 70, 1003])
+@pytest.mark.parametrize("name", ["mean_difference", "signed_rank"])
+def test_sign_flip_byte_tables_equal_plain(pairs, name):
+    rng = np.random.default_rng(pairs)
+    x = np.round(rng.normal(0.2, 1.0, pairs), 1)  # rounding makes zero differences and tied ranks
+    y = np.round(rng.normal(0.0, 1.0, pairs), 1)
+    kw = dict(resamples=DRAW_BLOCK + 300, alternative="two-sided", stream=stream("bytes"), exact="never")
+    fast = signflip_test(x, y, get_statistic(name), fast=True, **kw)
+    plain = signflip_test(x, y, get_statistic(name), fast=False, **kw)
+    if name == "signed_rank":
+        assert np.array_equal(fast.null, plain.null)  # sums of half-integers are exact
+    else:
+        np.testing.assert_allclose(fast.null, plain.null, rtol=0, atol=1e-12)
+    assert (fast.count_greater, fast.count_less) == (plain.count_greater, plain.count_less)
+
+
+def test_swap_bytes_are_the_swap_bits():
+    from planrunner.engines.signflip import byte_tables, swap_bytes, swapped_sums
+    s = stream("bytes")
+    packed = swap_bytes(s, 21, 5, DRAW_BLOCK + 9)
+    bits = swap_bits(s, 21, 5, DRAW_BLOCK + 9)
+    assert np.array_equal(np.unpackbits(packed, axis=1, bitorder="little")[:, :21].astype(bool), bits)
+    assert not np.any(packed[:, -1] >> 5)  # bits past the last pair are zero
+    weights = np.arange(1.0, 22.0)
+    assert np.array_equal(swapped_sums(byte_tables(weights), packed), np.where(bits, weights, 0.0).sum(axis=1))

@@ -11,9 +11,11 @@ is swapped when bit i % 64 of word i // 64 is 1. Block b of rows comes from ``st
 
 Plain computation: the statistic of the two groups after the swaps. Fast paths, for statistics of
 the differences alone (checked equal to the plain computation in tests): a difference of means is
-Σ sᵢdᵢ / n (sᵢ = ±1); the signed rank T+ is Σ rᵢ [sᵢdᵢ > 0] with the ranks rᵢ of |dᵢ| fixed. For those
-two, integer-valued |d| or ranks give the exact null by dynamic programming over subset sums
-(each pair adds its score or not), reaching any n the plan can hold.
+Σ sᵢdᵢ / n (sᵢ = ±1); the signed rank T+ is Σ rᵢ [sᵢdᵢ > 0] with the ranks rᵢ of |dᵢ| fixed. Both are a
+fixed part plus a sum over the swapped pairs, which Monte Carlo resamples read byte by byte from
+lookup tables of the 256 patterns of each 8 pairs (one lookup per 8 pairs; no bit is unpacked).
+For those two, integer-valued |d| or ranks give the exact null by dynamic programming over subset
+sums (each pair adds its score or not), reaching any n the plan can hold.
 """
 
 from __future__ import annotations
@@ -31,16 +33,20 @@ from planrunner.engines.statistics import Statistic, check_samples
 from planrunner.engines.streams import DRAW_BLOCK, Stream
 from planrunner.errors import EngineError
 
-__all__ = ["signflip_test", "swap_bits"]
+__all__ = ["byte_tables", "signflip_test", "swap_bits", "swap_bytes", "swapped_sums"]
 
 DP_WIDTH_LIMIT = 5_000_000  # largest subset-sum table (doubles, 40 MB) the exact shortcut may build
 DP_WORK_LIMIT = 2_000_000_000  # pairs × table width
+# most pairs for the byte lookup tables (32 doubles a pair: 32 MB at the limit); more use the plain sums
+TABLE_PAIRS_LIMIT = 131_072
 
 
-def swap_bits(stream: Stream, pairs: int, start: int, stop: int) -> np.ndarray:
-    """Swap indicators of resamples start … stop − 1, shape (stop − start, pairs), from random bits."""
+def swap_bytes(stream: Stream, pairs: int, start: int, stop: int) -> np.ndarray:
+    """The random bits of resamples start … stop − 1 as bytes, shape (stop − start, ceil(pairs / 8)):
+    bit k (least significant first) of byte c swaps pair 8c + k; bits past the last pair are zero."""
     words = -(-pairs // 64)
-    out = np.empty((stop - start, pairs), dtype=bool)
+    width = -(-pairs // 8)
+    out = np.empty((stop - start, width), dtype=np.uint8)
     row = start
     while row < stop:
         block, offset = divmod(row, DRAW_BLOCK)
@@ -49,10 +55,41 @@ def swap_bits(stream: Stream, pairs: int, start: int, stop: int) -> np.ndarray:
         if offset:
             gen.bit_generator.advance(offset * words)  # one 64-bit output per full-range word
         drawn = gen.integers(0, 2**64, size=(count, words), dtype=np.uint64, endpoint=False)
-        bits = np.unpackbits(drawn.view(np.uint8).reshape(count, words * 8), axis=1, bitorder="little")
-        out[row - start:row - start + count] = bits[:, :pairs].astype(bool)
+        # little-endian bytes: byte c of a row holds pairs 8c … 8c + 7 on every machine
+        out[row - start:row - start + count] = drawn.astype("<u8", copy=False).view(np.uint8)[:, :width]
         row += count
+    if pairs % 8:
+        out[:, -1] &= np.uint8((1 << (pairs % 8)) - 1)
     return out
+
+
+def swap_bits(stream: Stream, pairs: int, start: int, stop: int) -> np.ndarray:
+    """Swap indicators of resamples start … stop − 1, shape (stop − start, pairs), from random bits."""
+    bits = np.unpackbits(swap_bytes(stream, pairs, start, stop), axis=1, bitorder="little")
+    return bits[:, :pairs].astype(bool)
+
+
+def byte_tables(weights: np.ndarray) -> np.ndarray:
+    """``tables[c, v]`` = Σ of weights[8c + k] over the bits k set in byte value v (flattened).
+
+    A row of swap bytes then adds up its swapped weights with one lookup per 8 pairs.
+    """
+    width = -(-weights.size // 8)
+    padded = np.zeros(width * 8)
+    padded[:weights.size] = weights
+    bits = ((np.arange(256)[:, None] >> np.arange(8)[None, :]) & 1).astype(np.float64)  # (256, 8)
+    # the sum over each byte's (at most 8) set bits, in bit order
+    tables = np.zeros((width, 256))
+    for k in range(8):
+        tables += padded.reshape(width, 8)[:, k:k + 1] * bits[None, :, k]
+    return tables.ravel()
+
+
+def swapped_sums(tables: np.ndarray, swaps: np.ndarray) -> np.ndarray:
+    """Σ of the swapped pairs' weights in each row of swap bytes (see :func:`byte_tables`)."""
+    lookup = swaps.astype(np.intp)
+    lookup += (np.arange(swaps.shape[1], dtype=np.intp) * 256)[None, :]
+    return tables[lookup].sum(axis=1)
 
 
 def _patterns(pairs: int, start: int, stop: int) -> np.ndarray:
@@ -129,9 +166,15 @@ def signflip_test(x: np.ndarray, y: np.ndarray, statistic: Statistic, *, resampl
     else:
         total = arrangements if path == "enumeration" else resamples
         rows_per_batch = max(1, batch_elements // max(1, 2 * n))
+        lookup = (_lookup(statistic, d, scores)
+                  if fast and scores is not None and path == "Monte Carlo" and n <= TABLE_PAIRS_LIMIT else None)
         null = np.empty(total)
         for start in range(0, total, rows_per_batch):
             stop = min(total, start + rows_per_batch)
+            if lookup is not None:
+                base, factor, divisor, tables = lookup
+                null[start:stop] = (base + factor * swapped_sums(tables, swap_bytes(stream, n, start, stop))) / divisor
+                continue
             swaps = _patterns(n, start, stop) if path == "enumeration" else swap_bits(stream, n, start, stop)
             null[start:stop] = _evaluate(statistic, x, y, d, scores, swaps, fast)
     tolerance = TIE_TOLERANCE * max(abs(observed), float(np.max(np.abs(np.concatenate([x, y])))))
@@ -154,6 +197,19 @@ def signflip_test(x: np.ndarray, y: np.ndarray, statistic: Statistic, *, resampl
         monte_carlo_se=pv.monte_carlo_se, p_interval=pv.p_interval, smallest_p=pv.smallest_p,
         null_weights=None if weights is None else frozen_array(weights), computation=path,
         design={"pairs": n})
+
+
+def _lookup(statistic: Statistic, d: np.ndarray, scores: np.ndarray) -> tuple[float, float, float, np.ndarray]:
+    """(base, factor, divisor, tables) with statistic = (base + factor · Σ swapped weights) / divisor.
+
+    Difference of means: Σ sᵢdᵢ / n = (Σd − 2 Σ_swapped d) / n. Signed rank: T+ = Σ_{d>0} r
+    + Σ_swapped r·([d < 0] − [d > 0]) (a swap moves a pair's rank into or out of T+); ranks are
+    multiples of ½, so these sums are exact.
+    """
+    if statistic.name == "signed_rank":
+        weights = np.where(d < 0, scores, 0.0) - np.where(d > 0, scores, 0.0)
+        return float(np.sum(np.where(d > 0, scores, 0.0))), 1.0, 1.0, byte_tables(weights)
+    return float(np.sum(d)), -2.0, float(d.size), byte_tables(d)
 
 
 def _evaluate(statistic: Statistic, x: np.ndarray, y: np.ndarray, d: np.ndarray, scores: np.ndarray | None,
