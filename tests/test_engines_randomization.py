@@ -79,9 +79,10 @@ def test_dp_with_ties_and_strata_equals_enumeration():
             kw = dict(alternative=alternative, stream=stream(), strata=[sx, sy])
             dp = permutation_test([x, y], get_statistic(name), resamples=10, **kw)
             full = permutation_test([x, y], get_statistic(name), resamples=10, exact="always", **kw)
-            listed = permutation_test([x, y], get_statistic(name), resamples=10**6, **kw)
+            listed = permutation_test([x, y], get_statistic(name), resamples=10, exact="always", fast=False, **kw)
             assert dp.computation == "dynamic programming" and listed.computation == "enumeration"
-            assert full.computation == "enumeration"  # always: enumeration wins when feasible
+            assert full.computation == "dynamic programming"  # always: the DP costs less than listing
+            assert full.p_value == dp.p_value
             assert dp.p_value == pytest.approx(listed.p_value, rel=1e-12), (name, alternative)
             assert dp.smallest_p == pytest.approx(listed.smallest_p, rel=1e-12)
 
@@ -321,7 +322,7 @@ def test_stratified_two_by_two_tables_exact_conditional_test():
     sx, sy = np.array([0, 0, 0, 1, 1, 2, 2, 2]), np.array([0, 0, 1, 1, 1, 2, 2, 2, 2])
     kw = dict(alternative="greater", stream=stream(), strata=[sx, sy])
     dp = permutation_test([x, y], get_statistic("risk_difference"), resamples=10, **kw)
-    listed = permutation_test([x, y], get_statistic("risk_difference"), resamples=10**6, **kw)
+    listed = permutation_test([x, y], get_statistic("risk_difference"), resamples=10**6, fast=False, **kw)
     assert dp.computation == "dynamic programming" and listed.computation == "enumeration"
     assert dp.p_value == pytest.approx(listed.p_value, rel=1e-12)
     # the conditional test by definition: P(Σ_h a_h ≥ observed) under independent hypergeometrics
@@ -340,7 +341,7 @@ def test_absolute_rule_centre_is_the_null_mean_with_unbalanced_strata():
     sx, sy = np.array([0, 0, 0, 0, 0, 1, 1]), np.array([0, 1, 1, 1, 1, 1, 1, 0])
     for name in ("mean_difference", "rank_sum"):
         result = permutation_test([x, y], get_statistic(name), resamples=10**5, alternative="two-sided",
-                                  two_sided="absolute", stream=stream(), strata=[sx, sy])
+                                  two_sided="absolute", stream=stream(), strata=[sx, sy], fast=False)
         assert result.computation == "enumeration"
         assert result.centre == pytest.approx(float(np.mean(result.null)), rel=1e-12, abs=1e-12)  # exact mean
         far = np.abs(result.null - result.centre) >= abs(result.observed - result.centre) - result.tolerance

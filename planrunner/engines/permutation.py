@@ -18,8 +18,9 @@ observed arrangement is one of them.
 Exact by dynamic programming (:mod:`planrunner.engines.exactdist`): for a two-group statistic that
 increases with the first group's score sum (``teststats.SUM_SCORES``: mean and proportion
 differences, pooled t, rank sum) and integer-valued scores, the exact null of that sum replaces
-enumeration when there are more arrangements than resamples (``exact: auto``) or too many to list
-(``exact: always``).
+enumeration whenever the programme visits fewer cells than enumeration would visit values
+(arrangements × N), and when there are too many arrangements to list. ``fast=False`` keeps
+enumeration wherever it is feasible (the tests compare the two).
 
 Monte Carlo draw contract (with :mod:`planrunner.engines.streams`): resample r is row r of the
 stream's uniform rows, ``keys = gen.random(N)``; ``np.argsort(keys + 2 * h, kind="stable")`` (h the
@@ -114,9 +115,10 @@ def permutation_test(samples: Sequence[np.ndarray], statistic: Statistic, *, res
     """Permutation test of ``statistic`` (two groups: first minus second; or k groups) against
     label exchangeability.
 
-    ``exact``: "auto" enumerates when arrangements ≤ resamples (else the exact DP null when it
-    applies, else Monte Carlo), "always" enumerates (at most 5,000,000 arrangements) or uses the DP
-    null, "never" draws ``resamples`` random arrangements from ``stream``. ``alpha`` (optional)
+    ``exact``: "auto" is exact when arrangements ≤ resamples or the exact DP null applies (else
+    Monte Carlo), "always" is exact (enumerating at most 5,000,000 arrangements, or the DP null),
+    "never" draws ``resamples`` random arrangements from ``stream``. Exact nulls come from the DP
+    when it applies and costs less than enumeration (see the module notes). ``alpha`` (optional)
     turns on the warnings about the smallest attainable p-value and the Monte Carlo interval.
     """
     if statistic.samples not in (0, 2):
@@ -152,6 +154,8 @@ def permutation_test(samples: Sequence[np.ndarray], statistic: Statistic, *, res
             "on these data", hint="use exact: never (Monte Carlo) or exact: auto")
     if exact == "never":
         path = "Monte Carlo"
+    elif fast and dp_plan is not None and dp_plan.work <= arrangements * pooled.values.shape[0]:
+        path = "dynamic programming"  # the exact null that enumeration would list, for less work
     elif arrangements <= (resamples if exact == "auto" else ENUMERATION_LIMIT):
         path = "enumeration"
     else:
@@ -241,6 +245,7 @@ class _DpPlan:
     strata: tuple[tuple[np.ndarray, int], ...]  # integer scores of each stratum block, group-1 size
     scale: float  # scores = integers / scale
     scores: np.ndarray  # pooled scores (values, or mid-ranks), as floats
+    work: int  # cells the programme visits (enumeration visits arrangements × N values)
 
 
 def _dp_plan(pooled: _Pooled, statistic: Statistic) -> _DpPlan | None:
@@ -253,9 +258,10 @@ def _dp_plan(pooled: _Pooled, statistic: Statistic) -> _DpPlan | None:
         return None
     integers, scale = found
     strata = tuple((integers[start:start + size], sizes[0]) for start, size, sizes in pooled.blocks)
-    if sum(dp_work(s, k) for s, k in strata) > WORK_LIMIT:
+    work = sum(dp_work(s, k) for s, k in strata)
+    if work > WORK_LIMIT:
         return None
-    return _DpPlan(strata, scale, scores)
+    return _DpPlan(strata, scale, scores, work)
 
 
 def _dp_null(pooled: _Pooled, statistic: Statistic, plan: _DpPlan) -> tuple[np.ndarray, np.ndarray]:
