@@ -6,6 +6,7 @@ Run from the repository root (not part of the test suite; it takes a few minutes
     python benchmarks/compare_scipy.py --repeats 3 --only W1,W4
     python benchmarks/compare_scipy.py --skip-large    # without L1 (n = 1e6)
     python benchmarks/compare_scipy.py --workers 2     # our resample ranges on 2 worker processes
+    python benchmarks/compare_scipy.py --workers 2 --threads   # ... or on 2 threads
 
 For each workload the two computations are timed alternately (ours, scipy, ours, scipy, ...) so
 that a busy machine slows both alike; the table shows the median time of each, their ratio
@@ -24,6 +25,7 @@ array, then the vectorised statistic).
 from __future__ import annotations
 
 import argparse
+import concurrent.futures
 import dataclasses
 import gc
 import math
@@ -45,7 +47,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parents[1]))  # run from a check
 
 from planrunner import __version__  # noqa: E402
 from planrunner import execute  # noqa: E402,F401  (registered statistics then pickle by name)
-from planrunner.engines.blocks import block_ranges, mapping_ranges  # noqa: E402
+from planrunner.engines.blocks import resample_ranges, mapping_ranges  # noqa: E402
 from planrunner.engines.bootstrap import bootstrap  # noqa: E402
 from planrunner.engines.jackknife import jackknife  # noqa: E402
 from planrunner.engines.permutation import permutation_test  # noqa: E402
@@ -183,9 +185,12 @@ def _peak_extra_mb(call: Callable[[], Any]) -> float:
 
 
 def _on_pool(call: Callable[[], Any], pool: Any, workers: int) -> Callable[[], Any]:
-    """``call`` with its resample ranges computed on ``pool`` (the processes executor's split)."""
+    """``call`` with its resample ranges computed on ``pool`` (the executors' split): a process
+    pool (``apply_async``) or a thread pool (``submit``)."""
     def mapper(task, total):
-        ranges = block_ranges(total, execute.RANGES_PER_WORKER * workers)
+        ranges = resample_ranges(total, execute.RANGES_PER_WORKER * workers)
+        if hasattr(pool, "submit"):
+            return [f.result() for f in [pool.submit(task, *r) for r in ranges]]
         return [r.get() for r in [pool.apply_async(task, r) for r in ranges]]
 
     def run() -> Any:
@@ -205,10 +210,14 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--only", help="comma-separated workload names, e.g. W1,W4")
     parser.add_argument("--skip-large", action="store_true", help="leave out L1 (about a minute)")
     parser.add_argument("--seed", type=int, default=20261201)
-    parser.add_argument("--workers", type=int, default=1, help="worker processes for planrunner's side")
+    parser.add_argument("--workers", type=int, default=1, help="workers for planrunner's side")
+    parser.add_argument("--threads", action="store_true",
+                        help="the workers are threads of this process (planrunner run --executor threads)")
     args = parser.parse_args(argv)
     pool = None
-    if args.workers > 1:
+    if args.workers > 1 and args.threads:
+        pool = concurrent.futures.ThreadPoolExecutor(args.workers)
+    elif args.workers > 1:
         pool = multiprocessing.get_context("spawn").Pool(args.workers)
         # warm up: the workers import planrunner on their first task, which no workload should pay
         warm = np.arange(50.0)
@@ -217,7 +226,8 @@ def main(argv: list[str] | None = None) -> int:
     chosen = None if args.only is None else set(args.only.upper().split(","))
 
     print(f"planrunner {__version__}, numpy {np.__version__}, scipy {scipy.__version__}, "
-          f"Python {sys.version.split()[0]}, repeats {args.repeats}, planrunner workers {args.workers}")
+          f"Python {sys.version.split()[0]}, repeats {args.repeats}, planrunner workers {args.workers}"
+          f"{' (threads)' if args.threads and args.workers > 1 else ' (processes)' if args.workers > 1 else ''}")
     header = ("work", "ours s", "scipy s", "ratio", "target", "ours MB", "scipy MB", "check", "")
     print("  ".join(f"{h:>8}" if i and i < 7 else h for i, h in enumerate(header)))
     for w in workloads(args.seed):
@@ -254,7 +264,9 @@ def main(argv: list[str] | None = None) -> int:
               f"{target:>8}  {_cell(ours_mb, '8.1f')}  {_cell(ref_mb, '8.1f')}  {check}  [{'; '.join(verdict)}]"
               f"  {w.words}")
         sys.stdout.flush()
-    if pool is not None:
+    if isinstance(pool, concurrent.futures.ThreadPoolExecutor):
+        pool.shutdown()
+    elif pool is not None:
         pool.close()
         pool.join()
     return 0

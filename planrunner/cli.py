@@ -53,9 +53,9 @@ def build_parser() -> argparse.ArgumentParser:
     run.add_argument("--quiet", action="store_true", help="print only the run folder (and no progress bar)")
     run.add_argument("--workers", type=int, metavar="N",
                      help="worker processes (default 1: serial; more than 1 runs local processes)")
-    run.add_argument("--executor", choices=("serial", "processes", "dask"),
-                     help="where the jobs run (default: serial, or processes with --workers N > 1); "
-                          "the numbers are the same")
+    run.add_argument("--executor", choices=("serial", "threads", "processes", "dask"),
+                     help="where the jobs run (default: serial, or processes with --workers N > 1; threads "
+                          "share one process, the lightest on a few cores); the numbers are the same")
     run.add_argument("--scheduler", metavar="ADDRESS",
                      help="dask: address of a running scheduler (default: a local cluster on loopback)")
     run.add_argument("--data-root", metavar="DIR", help=DATA_ROOT_HELP)

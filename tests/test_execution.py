@@ -45,9 +45,10 @@ def _compare(reference: dict, other: dict, path: str = "") -> None:
             assert a == b, f"{path}.{key}: {a!r} != {b!r}"
 
 
-def test_demo_plan_identical_serial_processes_and_dask(demo: Path, tmp_path: Path) -> None:
+def test_demo_plan_identical_serial_threads_processes_and_dask(demo: Path, tmp_path: Path) -> None:
     pytest.importorskip("distributed")
-    executions = [Execution(), Execution("processes", 2), Execution("dask", 2, local_processes=False)]
+    # the dask local cluster runs two worker processes that talk over TCP on loopback
+    executions = [Execution(), Execution("threads", 2), Execution("processes", 2), Execution("dask", 2)]
     records = [run_plan(demo, out=tmp_path / f"out-{e.executor}", clock=fixed_clock, execution=e).record
                for e in executions]
     for record, execution in zip(records, executions):
@@ -89,7 +90,7 @@ def _interrupting_bar(after: int):
     return Bar()
 
 
-@pytest.mark.parametrize("options", [[], ["--workers", "2"]])
+@pytest.mark.parametrize("options", [[], ["--workers", "2"], ["--executor", "threads", "--workers", "2"]])
 def test_interrupt_stops_cleanly_without_a_record(demo: Path, tmp_path: Path, monkeypatch, capsys,
                                                   options: list[str]) -> None:
     monkeypatch.setattr(cli, "progress_bar", lambda quiet: _interrupting_bar(after=2))

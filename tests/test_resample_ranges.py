@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from planrunner.engines.blocks import block_ranges, map_resamples, mapping_ranges
+from planrunner.engines.blocks import resample_ranges, map_resamples, mapping_ranges
 from planrunner.engines.bootstrap import bootstrap
 from planrunner.engines.permutation import permutation_test
 from planrunner.engines.statistics import get_statistic
@@ -17,19 +17,20 @@ RNG = np.random.default_rng(20261201)
 def out_of_order(seen: list):
     """A mapper that cuts into three ranges and computes them last-first, on purpose."""
     def mapper(task, total):
-        ranges = block_ranges(total, 3)
+        ranges = resample_ranges(total, 3)
         seen.append(ranges)
         return [task(a, b) for a, b in reversed(ranges)][::-1]
     return mapper
 
 
-def test_block_ranges_cover_whole_draw_blocks():
-    assert block_ranges(4321, 3) == [(0, 2000), (2000, 4000), (4000, 4321)]
+def test_resample_ranges_are_equal_shares():
+    assert resample_ranges(4321, 3) == [(0, 1440), (1440, 2880), (2880, 4321)]
     for total, pieces in [(1, 4), (999, 2), (10_000, 7), (12_345, 1)]:
-        ranges = block_ranges(total, pieces)
+        ranges = resample_ranges(total, pieces)
         assert ranges[0][0] == 0 and ranges[-1][1] == total
         assert all(b == c for (_, b), (c, _) in zip(ranges, ranges[1:]))
-        assert all(a % DRAW_BLOCK == 0 for a, _ in ranges)  # no generator started twice for one block
+        sizes = [b - a for a, b in ranges]
+        assert len(ranges) == min(pieces, total) and max(sizes) - min(sizes) <= 1  # every worker equally busy
     assert map_resamples(lambda a, b: np.arange(a, b, dtype=float), 0).size == 0
 
 
@@ -45,7 +46,7 @@ def test_bootstrap_split_ranges_are_bit_identical(name, strata):
     seen: list = []
     with mapping_ranges(out_of_order(seen)):
         split = bootstrap(groups, statistic, **kwargs)
-    assert seen == [[(0, 2000), (2000, 4000), (4000, 4321)]]
+    assert seen == [[(0, 1440), (1440, 2880), (2880, 4321)]]  # two ranges start inside a draw block
     assert split.distribution.tobytes() == whole.distribution.tobytes()
 
 
@@ -57,5 +58,5 @@ def test_monte_carlo_permutation_split_ranges_are_bit_identical():
     seen: list = []
     with mapping_ranges(out_of_order(seen)):
         split = permutation_test(groups, statistic, **kwargs)
-    assert seen == [[(0, 2000), (2000, 4000), (4000, 4321)]]
+    assert seen == [[(0, 1440), (1440, 2880), (2880, 4321)]]  # two ranges start inside a draw block
     assert split.null.tobytes() == whole.null.tobytes() and split.p_value == whole.p_value

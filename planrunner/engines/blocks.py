@@ -19,9 +19,7 @@ from typing import Any
 
 import numpy as np
 
-from planrunner.engines.streams import DRAW_BLOCK
-
-__all__ = ["RangeMapper", "RangeTask", "bind", "block_ranges", "map_resamples", "mapping_ranges"]
+__all__ = ["RangeMapper", "RangeTask", "bind", "map_resamples", "mapping_ranges", "resample_ranges"]
 
 RangeTask = Callable[[int, int], np.ndarray]
 # (task, total) -> the task's results over consecutive ranges covering [0, total), in order
@@ -69,10 +67,9 @@ class mapping_ranges:
         _installed.pop()
 
 
-def block_ranges(total: int, pieces: int) -> list[tuple[int, int]]:
-    """About ``pieces`` consecutive ranges covering [0, total), each a whole number of draw blocks
-    (except the last), so that no generator is started twice for one block."""
-    blocks = -(-total // DRAW_BLOCK)
-    per = max(1, -(-blocks // max(1, pieces)))
-    step = per * DRAW_BLOCK
-    return [(start, min(total, start + step)) for start in range(0, total, step)]
+def resample_ranges(total: int, pieces: int) -> list[tuple[int, int]]:
+    """``pieces`` consecutive ranges of nearly equal size covering [0, total) (fewer when total is
+    smaller). A range may start inside a draw block: its generator is then advanced to the row
+    (see :mod:`planrunner.engines.streams`), so equal shares keep every worker equally busy."""
+    pieces = max(1, min(pieces, total))
+    return [(total * i // pieces, total * (i + 1) // pieces) for i in range(pieces)]
