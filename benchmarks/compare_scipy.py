@@ -47,13 +47,13 @@ sys.path.insert(0, str(Path(__file__).resolve().parents[1]))  # run from a check
 
 from planrunner import __version__  # noqa: E402
 from planrunner import execute  # noqa: E402,F401  (registered statistics then pickle by name)
-from planrunner.engines.blocks import resample_ranges, mapping_ranges  # noqa: E402
+from planrunner.engines.blocks import mapping_ranges, resample_ranges  # noqa: E402
 from planrunner.engines.bootstrap import bootstrap  # noqa: E402
 from planrunner.engines.jackknife import jackknife  # noqa: E402
 from planrunner.engines.permutation import permutation_test  # noqa: E402
 from planrunner.engines.signflip import signflip_test  # noqa: E402
 from planrunner.engines.statistics import get_statistic  # noqa: E402
-from planrunner.engines.streams import stream_for  # noqa: E402
+from planrunner.engines.streams import UniformRows, stream_for  # noqa: E402
 
 MB = 2 ** 20
 
@@ -90,6 +90,19 @@ def _delete_one(x: np.ndarray, statistic: Callable[..., np.ndarray]) -> float:
     index = np.broadcast_to(np.arange(n), (n, n))[keep].reshape(n, n - 1)
     theta = statistic(x[index], axis=-1)
     return float(math.sqrt((n - 1) / n * np.sum((theta - theta.mean()) ** 2)))
+
+
+def _draws_only(seed: int, resamples: int, width: int) -> Callable[[], Any]:
+    """Reading W1's uniform rows from its stream, in cache-sized takes: the floor that any engine
+    under the draw contract pays before it computes anything."""
+    def draw() -> None:
+        reader = UniformRows(stream_for(seed, "benchmark"), width)
+        rows = max(1, 131_072 // width)
+        buffer = np.empty((rows, width))
+        for start in range(0, resamples, rows):
+            take = min(rows, resamples - start)
+            reader.take(take, out=buffer[:take])
+    return draw
 
 
 def _same_se(ours: Any, ref: Any) -> str:
@@ -159,6 +172,8 @@ def workloads(seed: int) -> list[Workload]:
                  lambda: _SE(_delete_one(x, _mean)), _same_se, 100, 200),
         Workload("J2", "jackknife SE of the median, n = 1e4", ours_jack(median),
                  lambda: _SE(_delete_one(x, _median)), _same_se, 100, 200),
+        Workload("F1", "the 1e8 uniforms of W1 drawn and nothing else, one core (ratio: W1's ceiling)",
+                 _draws_only(seed, B, x.size), sboot((x,), _mean, "percentile"), lambda o, r: "", None, 200),
         Workload("L1", "bootstrap mean, n = 1e6, B = 1e4 (planrunner only)",
                  lambda: bootstrap([big], mean, resamples=B, confidence=0.95, intervals=["percentile"],
                                    stream=stream_for(seed, "benchmark")),
