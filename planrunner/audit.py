@@ -18,7 +18,7 @@ from typing import Any
 from .canonical import RECORD_HASH_FIELD, differences, record_sha256
 from .compile import compile_jobs
 from .errors import PlanError, PlanrunnerError
-from .execute import execute_all
+from .execute import Execution, execute_all
 from .io import file_sha256, resolve_data_path
 from .params import apply as apply_parameters
 from .params import resolve_values
@@ -150,8 +150,10 @@ def _judge(path: str, before: Any, after: Any, recorded: dict, *, monte_carlo: b
     return FieldDifference(path, before, after, diff, fp, False, "floating point (relative 1e-9)")
 
 
-def verify_record(path: str | Path, *, plan: str | Path | None = None) -> VerifyReport:
-    """Re-hash the data, re-run every analysis from the recorded plan, and compare every field."""
+def verify_record(path: str | Path, *, plan: str | Path | None = None,
+                  execution: Execution | None = None) -> VerifyReport:
+    """Re-hash the data, re-run every analysis from the recorded plan (on ``execution``, serial by
+    default), and compare every field."""
     record_file, recorded = read_record(path)
     problems: list[tuple[str, str]] = []
     notes: list[str] = []
@@ -204,15 +206,18 @@ def verify_record(path: str | Path, *, plan: str | Path | None = None) -> Verify
     try:
         tables = load_tables(loaded)
         jobs = compile_jobs(loaded.plan, tables)
-        results = execute_all(jobs)
+        results = execute_all(jobs, execution=execution)
     except PlanrunnerError as exc:
         problems.append(("datasets", f"the analyses cannot be re-run on the data as they are now: {exc}"))
         return VerifyReport(record_file, plan_file, problems, notes, [], 0, False, plan_changes)
     rerun = build_record(loaded, tables, jobs, results, run_id=recorded["run_id"],
                          started_utc=recorded["started_utc"], finished_utc=recorded["finished_utc"],
                          operator=recorded["operator"], command=recorded["command"])
-    # who, when and on what machine are facts of the original run, not results to reproduce
+    # who, when, on what machine and on which executor are facts of the original run, not results
+    # to reproduce (the executor never changes a number: the re-run checks that too)
     rerun["environment"] = recorded.get("environment")
+    if "execution" in recorded:
+        rerun["execution"] = recorded["execution"]
     finish_record(rerun, (recorded.get("plan") or {}).get("lock"), values)
     other_environment = bool(notes)
     found = [_judge(d.path, d.before, d.after, recorded, monte_carlo=other_environment)

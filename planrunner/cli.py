@@ -51,13 +51,7 @@ def build_parser() -> argparse.ArgumentParser:
     run.add_argument("--out", help="folder under which the run folder is created (default: runs/ beside the plan)")
     run.add_argument("--operator", help="who runs the analysis (default: the login name)")
     run.add_argument("--quiet", action="store_true", help="print only the run folder (and no progress bar)")
-    run.add_argument("--workers", type=int, metavar="N",
-                     help="worker processes (default 1: serial; more than 1 runs local processes)")
-    run.add_argument("--executor", choices=("serial", "threads", "processes", "dask"),
-                     help="where the jobs run (default: serial, or processes with --workers N > 1; threads "
-                          "share one process, the lightest on a few cores); the numbers are the same")
-    run.add_argument("--scheduler", metavar="ADDRESS",
-                     help="dask: address of a running scheduler (default: a local cluster on loopback)")
+    add_execution_options(run)
     run.add_argument("--data-root", metavar="DIR", help=DATA_ROOT_HELP)
     _add_audit_run_options(run)
     _add_audit_verbs(verbs)
@@ -114,6 +108,17 @@ def _check(args: argparse.Namespace) -> int:
         print("  data files not read (--plan-only)")
     print(check_lock_summary(outcome))
     return EXIT_OK
+
+
+def add_execution_options(verb: argparse.ArgumentParser) -> None:
+    """--workers, --executor and --scheduler (run and verify): where the work runs, never what it gives."""
+    verb.add_argument("--workers", type=int, metavar="N",
+                      help="workers (default 1: serial; more than 1 runs local processes)")
+    verb.add_argument("--executor", choices=("serial", "threads", "processes", "dask"),
+                      help="where the jobs run (default: serial, or processes with --workers N > 1; threads "
+                           "share one process, the lightest on a few cores); the numbers are the same")
+    verb.add_argument("--scheduler", metavar="ADDRESS",
+                      help="dask: address of a running scheduler (default: a local cluster on loopback)")
 
 
 def execution_of(args: argparse.Namespace) -> Execution:

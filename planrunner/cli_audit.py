@@ -35,6 +35,8 @@ def _add_audit_verbs(verbs: Any) -> None:
     verify = verbs.add_parser("verify", help="re-run a record and compare every number")
     verify.add_argument("record", help="record.json or its run folder")
     verify.add_argument("--plan", help="the plan file whose folder holds the data (default: found above the run folder)")
+    from .cli import add_execution_options  # cli imports this module; by now it is loaded
+    add_execution_options(verify)
 
     history = verbs.add_parser("history", help="list the run history and check its hash chain")
     history.add_argument("target", help="a plan, its runs folder, or a history.jsonl file")
@@ -110,7 +112,8 @@ def _table(header: tuple[str, ...], rows: list[tuple[str, ...]]) -> str:
 
 def _verify(args: argparse.Namespace) -> int:
     from .audit import describe, verify_record
-    report = verify_record(args.record, plan=args.plan)
+    from .cli import execution_of
+    report = verify_record(args.record, plan=args.plan, execution=execution_of(args))
     print(f"verifying {report.record_file} against the plan folder {report.plan_file.parent}")
     for note in report.notes:
         print(f"  note (stated, not a failure): {note}")

@@ -132,6 +132,19 @@ def test_verify_untouched_run_is_identical(project, capsys):
     assert "identical" in out and "verify: PASSED" in out
 
 
+def test_verify_of_a_run_on_workers_passes_on_any_executor(project, capsys):
+    # where a run ran is informational: a threads run verifies serially, and a re-run on threads
+    # must give the same numbers as the serial record
+    folder, record, _ = run_plan(project, capsys, "--executor", "threads", "--workers", "2")
+    assert record["execution"] == {"executor": "threads", "workers": 2, "scheduler": None}
+    for options in ([], ["--executor", "threads"]):
+        code, out, _ = run(["verify", str(folder), *options], capsys)
+        assert code == 0, out
+        assert "identical" in out and "verify: PASSED" in out
+    code, _, err = run(["verify", str(folder), "--executor", "serial", "--workers", "3"], capsys)
+    assert code == 2 and "serial executor runs one worker" in err
+
+
 def test_verify_fails_after_one_data_byte_changes(project, capsys):
     folder, record, _ = run_plan(project, capsys)
     data = project.parent / "data" / "fills-2026-10.csv"
