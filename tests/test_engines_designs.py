@@ -500,3 +500,14 @@ def test_order_fast_path_equals_plain_on_large_groups(name, q) -> None:
     fast, _ = schemes.draw_cells(lay, stat, 700, stream_for(8, "big"), 50_000, None, fast=True)
     plain, _ = schemes.draw_cells(lay, stat, 700, stream_for(8, "big"), 50_000, None, fast=False)
     assert np.array_equal(fast, plain)
+
+
+@settings(max_examples=60, deadline=None)
+@given(st.integers(1, 400), st.integers(1, 30), st.integers(0, 2 ** 32 - 1), st.floats(0.0, 1.0))
+def test_order_positions_equal_partition_for_any_size(n, rows, seed, q) -> None:
+    rng = np.random.default_rng(seed)
+    ranks = rng.integers(0, n, size=(rows, n)).astype(np.int32)
+    k = min(n - 1, int(q * n))
+    ks = [k] if k + 1 >= n else [k, k + 1]
+    expected = np.partition(ranks, ks, axis=1)[:, ks]
+    assert np.array_equal(schemes._order_positions(ranks.copy(), ks, n), expected)

@@ -356,3 +356,23 @@ def test_key_window_path_is_range_invariant_and_equals_plain() -> None:
     split = np.concatenate([_mean_difference_range(pooled, kw["stream"], a, b)
                             for a, b in [(0, 999), (999, 1001), (1001, kw["resamples"])]])
     assert np.array_equal(whole, split) and np.array_equal(whole, fast.null)
+
+
+@settings(max_examples=60, deadline=None)
+@given(st.lists(st.tuples(st.integers(0, 40), st.integers(0, 40)), min_size=1, max_size=4),
+       st.integers(0, 2 ** 32 - 1), st.sampled_from([1.0, 64.0, 2.0 ** 53]))
+def test_key_window_sums_equal_the_sorted_contract_on_any_layout(sizes, seed, grain) -> None:
+    # grain rounds the keys onto a coarse grid (1/64): many ties, which must go to the lower position
+    from planrunner.engines.permutation import _first_group_sums, _pool
+    if sum(a + b for a, b in sizes) == 0 or sum(a for a, _ in sizes) == 0 or sum(b for _, b in sizes) == 0:
+        return
+    rng = np.random.default_rng(seed)
+    data = [np.concatenate([rng.integers(-5, 6, a) for a, _ in sizes]).astype(float),
+            np.concatenate([rng.integers(-5, 6, b) for _, b in sizes]).astype(float)]
+    codes = [np.repeat(np.arange(len(sizes)), [a for a, _ in sizes]),
+             np.repeat(np.arange(len(sizes)), [b for _, b in sizes])]
+    pooled = _pool(tuple(data), tuple(codes))
+    keys = np.floor(rng.random((9, pooled.values.shape[0])) * grain) / grain
+    got = _first_group_sums(keys, pooled.values, pooled.blocks)
+    want = _sums_by_argsort(keys, pooled.values, pooled.stratum, pooled.slots[0])
+    assert np.array_equal(got, want)  # integer values: every order of summation is exact
