@@ -352,9 +352,9 @@ def test_key_window_path_is_range_invariant_and_equals_plain() -> None:
     assert (fast.count_greater, fast.count_less) == (plain.count_greater, plain.count_less)
     from planrunner.engines.permutation import _mean_difference_range, _pool
     pooled = _pool((x, y), None)
-    whole = _mean_difference_range(pooled, kw["stream"], 0, kw["resamples"])
-    split = np.concatenate([_mean_difference_range(pooled, kw["stream"], a, b)
-                            for a, b in [(0, 999), (999, 1001), (1001, kw["resamples"])]])
+    whole = _mean_difference_range(pooled, kw["stream"], 10 ** 6, 0, kw["resamples"])
+    split = np.concatenate([_mean_difference_range(pooled, kw["stream"], rows, a, b)  # batches of any size
+                            for rows, (a, b) in zip((1, 7, 10 ** 6), [(0, 999), (999, 1001), (1001, kw["resamples"])])])
     assert np.array_equal(whole, split) and np.array_equal(whole, fast.null)
 
 

@@ -318,7 +318,7 @@ def _random_range(pooled: _Pooled, statistic: Statistic, stream: Stream, rows_pe
                   start: int, stop: int) -> np.ndarray:
     """The null statistic of resamples [start, stop) (a picklable range task)."""
     if fast and _sums_suffice(pooled, statistic):
-        return _mean_difference_range(pooled, stream, start, stop)
+        return _mean_difference_range(pooled, stream, rows_per_batch, start, stop)
     return _evaluate(pooled, statistic, _random(pooled, stream, stop - start, rows_per_batch, start=start),
                      stop - start, fast=fast)
 
@@ -334,13 +334,17 @@ KEY_ROWS = 512  # rows per batch of the key-window path (row numbers and keys sh
 KEY_CACHE_ELEMENTS = 131_072  # keys per batch: about 1 MB, kept in cache
 
 
-def _mean_difference_range(pooled: _Pooled, stream: Stream, start: int, stop: int) -> np.ndarray:
-    """T = S1/n1 − (Σx − S1)/n2 for resamples [start, stop), S1 from the keys without sorting them."""
+def _mean_difference_range(pooled: _Pooled, stream: Stream, rows_per_batch: int, start: int,
+                           stop: int) -> np.ndarray:
+    """T = S1/n1 − (Σx − S1)/n2 for resamples [start, stop), S1 from the keys without sorting them.
+
+    Batches are at most ``rows_per_batch`` rows (the caller's memory bound), and smaller still when
+    that keeps them in cache."""
     width = pooled.values.shape[0]
     n1, n2 = int(pooled.slots[0].size), int(pooled.slots[1].size)
     grand = float(pooled.values.sum())
     reader = UniformRows(stream, width, start)
-    rows_per_batch = max(1, min(KEY_ROWS, KEY_CACHE_ELEMENTS // width))
+    rows_per_batch = max(1, min(rows_per_batch, KEY_ROWS, KEY_CACHE_ELEMENTS // width))
     buffer = np.empty((min(rows_per_batch, stop - start), width))
     out = np.empty(stop - start)
     done = 0
