@@ -21,7 +21,7 @@ from typing import Any
 import numpy as np
 
 from .compile import Job
-from .engines.blocks import RangeTask, resample_ranges, mapping_ranges
+from .engines.blocks import RangeTask, mapping_ranges, resample_ranges
 from .engines.bootstrap import bootstrap
 from .engines.jackknife import jackknife
 from .engines.statistics import STATISTICS, Statistic, bind, get_statistic
@@ -206,6 +206,22 @@ def _result_of(outcome: tuple[Any, tuple | None]) -> Any:
     return result
 
 
+def _spreading(submit: Callable[[RangeTask, int, int], Any], result: Callable[[Any], np.ndarray], workers: int,
+               tally: _Tally) -> Callable[[RangeTask, int], list[np.ndarray]]:
+    """A range mapper that hands a few equal ranges per worker to ``submit`` at once, then collects
+    them in order with ``result``, counting each finished range for the progress bar."""
+    def mapper(task: RangeTask, total: int) -> list[np.ndarray]:
+        ranges = resample_ranges(total, RANGES_PER_WORKER * workers)
+        waiting = [submit(task, start, stop) for start, stop in ranges]
+        parts = []
+        for (start, stop), pending in zip(ranges, waiting):
+            parts.append(result(pending))
+            tally.add(stop - start)
+        return parts
+
+    return mapper
+
+
 def _on_threads(jobs: list[Job], execution: Execution, tally: _Tally) -> list[Any]:
     """Resample ranges on threads of this process: numpy releases the interpreter lock while it
     draws, gathers and reduces, so on a few cores this costs neither start-up nor copying."""
@@ -213,15 +229,8 @@ def _on_threads(jobs: list[Job], execution: Execution, tally: _Tally) -> list[An
 
     pool = ThreadPoolExecutor(max_workers=execution.workers, thread_name_prefix="planrunner")
     try:
-        def mapper(task: RangeTask, total: int) -> list[np.ndarray]:
-            ranges = resample_ranges(total, RANGES_PER_WORKER * execution.workers)
-            waiting = [pool.submit(task, start, stop) for start, stop in ranges]
-            parts = []
-            for (start, stop), future in zip(ranges, waiting):
-                parts.append(future.result())
-                tally.add(stop - start)
-            return parts
-
+        mapper = _spreading(lambda task, start, stop: pool.submit(task, start, stop), lambda f: f.result(),
+                            execution.workers, tally)
         return _run_jobs(jobs, tally, mapper, {})
     finally:
         # after an error or an interrupt: queued ranges are dropped, running ones end with their range
@@ -235,14 +244,8 @@ def _on_processes(jobs: list[Job], execution: Execution, tally: _Tally) -> list[
         pending = {i: pool.apply_async(_execute_caught, (job,)) for i, job in enumerate(jobs)
                    if job.method == "jackknife"}
 
-        def mapper(task: RangeTask, total: int) -> list[np.ndarray]:
-            ranges = resample_ranges(total, RANGES_PER_WORKER * execution.workers)
-            waiting = [pool.apply_async(_call_range, (task, start, stop)) for start, stop in ranges]
-            parts = []
-            for (start, stop), result in zip(ranges, waiting):
-                parts.append(result.get())
-                tally.add(stop - start)
-            return parts
+        mapper = _spreading(lambda task, start, stop: pool.apply_async(_call_range, (task, start, stop)),
+                            lambda r: r.get(), execution.workers, tally)
 
         results = _run_jobs(jobs, tally, mapper, {i: (lambda r=r: _result_of(r.get())) for i, r in pending.items()})
         pool.close()
@@ -280,15 +283,11 @@ def _on_dask(jobs: list[Job], execution: Execution, tally: _Tally) -> list[Any]:
                    if job.method == "jackknife"}
         futures.extend(pending.values())
 
-        def mapper(task: RangeTask, total: int) -> list[np.ndarray]:
-            ranges = resample_ranges(total, RANGES_PER_WORKER * execution.workers)
-            waiting = [client.submit(_call_range, task, start, stop, pure=False) for start, stop in ranges]
-            futures.extend(waiting)
-            parts = []
-            for (start, stop), future in zip(ranges, waiting):
-                parts.append(future.result())
-                tally.add(stop - start)
-            return parts
+        def submit(task: RangeTask, start: int, stop: int) -> Any:
+            futures.append(client.submit(_call_range, task, start, stop, pure=False))
+            return futures[-1]
+
+        mapper = _spreading(submit, lambda f: f.result(), execution.workers, tally)
 
         return _run_jobs(jobs, tally, mapper, {i: (lambda f=f: _result_of(f.result())) for i, f in pending.items()})
     finally:

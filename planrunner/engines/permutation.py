@@ -295,7 +295,7 @@ def _evaluate(pooled: _Pooled, statistic: Statistic, batches: Iterator[tuple[np.
     """Statistic over batches of arrangements; a batch gives each group's pooled positions per row."""
     out = np.empty(total, dtype=np.float64)
     done = 0
-    mean_form = fast and statistic.form == "mean" and len(pooled.slots) == 2 and pooled.values.ndim == 1
+    mean_form = fast and _sums_suffice(pooled, statistic)
     if mean_form:
         n1, n2 = pooled.slots[0].size, pooled.slots[1].size
         grand = float(pooled.values.sum())
