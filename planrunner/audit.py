@@ -150,10 +150,10 @@ def _judge(path: str, before: Any, after: Any, recorded: dict, *, monte_carlo: b
     return FieldDifference(path, before, after, diff, fp, False, "floating point (relative 1e-9)")
 
 
-def verify_record(path: str | Path, *, plan: str | Path | None = None,
-                  execution: Execution | None = None) -> VerifyReport:
+def verify_record(path: str | Path, *, plan: str | Path | None = None, execution: Execution | None = None,
+                  data_root: str | Path | None = None) -> VerifyReport:
     """Re-hash the data, re-run every analysis from the recorded plan (on ``execution``, serial by
-    default), and compare every field."""
+    default; the data under ``data_root`` when given, as ``run --data-root``), and compare every field."""
     record_file, recorded = read_record(path)
     problems: list[tuple[str, str]] = []
     notes: list[str] = []
@@ -197,14 +197,15 @@ def verify_record(path: str | Path, *, plan: str | Path | None = None,
     loaded = replace(loaded, plan=apply_parameters(loaded.plan, values))
     for i, ds in enumerate(recorded["datasets"]):
         try:
-            sha, _ = file_sha256(resolve_data_path(loaded.folder, ds["file"]))
+            sha, _ = file_sha256(resolve_data_path(loaded.folder, ds["file"],
+                                                   data_root=None if data_root is None else Path(data_root)))
         except (OSError, PlanrunnerError) as exc:
             problems.append((f"datasets[{i}].sha256", f"data file {ds['file']} cannot be read: {exc}"))
             continue
         if sha != ds["sha256"]:
             problems.append((f"datasets[{i}].sha256", f"data file {ds['file']} has changed: recorded {ds['sha256']}, now {sha}"))
     try:
-        tables = load_tables(loaded)
+        tables = load_tables(loaded, data_root)
         jobs = compile_jobs(loaded.plan, tables)
         results = execute_all(jobs, execution=execution)
     except PlanrunnerError as exc:

@@ -35,8 +35,9 @@ def _add_audit_verbs(verbs: Any) -> None:
     verify = verbs.add_parser("verify", help="re-run a record and compare every number")
     verify.add_argument("record", help="record.json or its run folder")
     verify.add_argument("--plan", help="the plan file whose folder holds the data (default: found above the run folder)")
-    from .cli import add_execution_options  # cli imports this module; by now it is loaded
+    from .cli import DATA_ROOT_HELP, add_execution_options  # cli imports this module; by now it is loaded
     add_execution_options(verify)
+    verify.add_argument("--data-root", metavar="DIR", help=DATA_ROOT_HELP)
 
     history = verbs.add_parser("history", help="list the run history and check its hash chain")
     history.add_argument("target", help="a plan, its runs folder, or a history.jsonl file")
@@ -113,7 +114,7 @@ def _table(header: tuple[str, ...], rows: list[tuple[str, ...]]) -> str:
 def _verify(args: argparse.Namespace) -> int:
     from .audit import describe, verify_record
     from .cli import execution_of
-    report = verify_record(args.record, plan=args.plan, execution=execution_of(args))
+    report = verify_record(args.record, plan=args.plan, execution=execution_of(args), data_root=args.data_root)
     print(f"verifying {report.record_file} against the plan folder {report.plan_file.parent}")
     for note in report.notes:
         print(f"  note (stated, not a failure): {note}")

@@ -275,6 +275,12 @@ def test_data_root_option(write_plan, tmp_path, capsys):
     assert cli.main(["run", str(plan), "--data-root", str(locked), "--out", str(out), "--quiet"]) == 0
     record = json.loads((visible(out)[0] / "record.json").read_text(encoding="utf-8"))
     assert "--data-root" in record["command"] and record["datasets"][0]["rows_read"] == 8
+    capsys.readouterr()
+    folder = str(visible(out)[0])
+    assert cli.main(["verify", folder, "--plan", str(plan)]) == 3  # the data are not beside the plan
+    assert "cannot be read" in capsys.readouterr().out
+    assert cli.main(["verify", folder, "--plan", str(plan), "--data-root", str(locked)]) == 0
+    assert "verify: PASSED" in capsys.readouterr().out
 
 
 def test_data_root_still_confines_symlinks(write_plan, tmp_path):
