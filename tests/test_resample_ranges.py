@@ -9,7 +9,7 @@ from planrunner.engines.blocks import resample_ranges, map_resamples, mapping_ra
 from planrunner.engines.bootstrap import bootstrap
 from planrunner.engines.permutation import permutation_test
 from planrunner.engines.statistics import get_statistic
-from planrunner.engines.streams import DRAW_BLOCK, stream_for
+from planrunner.engines.streams import stream_for
 
 RNG = np.random.default_rng(20261201)
 
