@@ -46,7 +46,7 @@ import scipy.stats as st
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))  # run from a checkout without installing
 
 from planrunner import __version__  # noqa: E402
-from planrunner import execute  # noqa: E402,F401  (registered statistics then pickle by name)
+from planrunner.execute import executors as execute  # noqa: E402,F401  (registered statistics then pickle by name)
 from planrunner.engines.blocks import mapping_ranges, resample_ranges  # noqa: E402
 from planrunner.engines.bootstrap import bootstrap  # noqa: E402
 from planrunner.engines.jackknife import jackknife  # noqa: E402

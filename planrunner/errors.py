@@ -2,7 +2,7 @@
 
 Every error a user can cause is one of these. Each carries *where* (file, line, column, or a row
 or analysis id), *what* is wrong, and *what to do*, so that the command line can print one clear
-line and map the kind to an exit code (see `planrunner.cli`).
+line and map the kind to an exit code (see `planrunner.cli.main`).
 """
 
 from __future__ import annotations

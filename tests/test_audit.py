@@ -10,11 +10,11 @@ from pathlib import Path
 import jsonschema
 import pytest
 
-from planrunner import cli
-from planrunner.audit import FieldDifference, _judge
-from planrunner.canonical import record_sha256
-from planrunner.schemas import plan_schema, record_schema
-from planrunner.yamlsafe import load_yaml
+from planrunner.cli import main as cli
+from planrunner.audit.verbs import FieldDifference, _judge
+from planrunner.record.canonical import record_sha256
+from planrunner.record.schemas import plan_schema, record_schema
+from planrunner.plan.yamlsafe import load_yaml
 
 ROOT = Path(__file__).resolve().parent.parent
 MONTHLY = ROOT / "plans" / "monthly-fill"
@@ -185,7 +185,7 @@ def test_same_environment_allows_no_monte_carlo_slack(project, capsys):
 
 
 def test_other_environment_allows_the_stated_monte_carlo_tolerance(project, capsys):
-    from planrunner.methods import methods_text
+    from planrunner.record.methods import methods_text
     folder, record, _ = run_plan(project, capsys)
     p, sd = record["analyses"][1]["p_value"], record["analyses"][1]["monte_carlo"]["p_value_sd"]
 
@@ -216,7 +216,7 @@ def test_verify_fails_after_the_seed_changes_in_the_plan(project, capsys):
 
 def test_verify_states_other_package_versions_without_failing(project, capsys):
     folder, _, _ = run_plan(project, capsys)
-    from planrunner.methods import methods_text
+    from planrunner.record.methods import methods_text
 
     def elsewhere(r: dict) -> None:  # the record as another installation would have written it
         r["environment"]["packages"]["numpy"] = "0.0.1"
@@ -345,7 +345,7 @@ def test_compare_shows_a_changed_estimate(project, capsys, tmp_path):
     assert code == 0
     est_a, est_b = rec_a["analyses"][0]["estimate"], rec_b["analyses"][0]["estimate"]
     assert est_a != est_b
-    from planrunner.report import number
+    from planrunner.report.render import number
     line = next(line for line in out.splitlines() if line.startswith("head-difference  both"))
     assert number(est_a) in line and number(est_b) in line and number(est_b - est_a).lstrip("-") in line
     assert "month=2026-10" in out and "month=2026-11" in out and "changed" in out
@@ -417,7 +417,7 @@ def test_methods_text_names_what_ran(project, capsys):
     demo = json.loads(json.dumps(record))
     demo["multiplicity"] = [{"family": ["head-difference", "head-test"], "method": "holm",
                              "method_label": "Holm step-down"}]
-    from planrunner.methods import methods_text
+    from planrunner.record.methods import methods_text
     assert "adjusted together by the Holm step-down method" in methods_text(demo)
 
 
@@ -439,13 +439,13 @@ def test_selfcheck_passes_and_its_report_is_hashed(tmp_path, capsys):
 
 
 def test_selfcheck_cases_ship_inside_the_package():
-    import planrunner.selfcheck as cases
-    assert Path(cases.__file__).resolve().parent == ROOT / "planrunner"
+    import planrunner.audit.selfcheck as cases
+    assert Path(cases.__file__).resolve().parent == ROOT / "planrunner" / "audit"
     assert all(c.source for c in cases.CASES)
 
 
 def test_a_failing_case_fails(monkeypatch):
-    from planrunner.selfcheck import CASES, Case, run_case
+    from planrunner.audit.selfcheck import CASES, Case, run_case
     wrong = Case("wrong", "a wrong expectation", "test", CASES[0].expected + 1e-6, 1e-12, CASES[0].compute)
     assert not run_case(wrong)["passed"]
 
@@ -469,7 +469,7 @@ def test_record_carries_the_hash_of_its_own_content(project, capsys):
 
 def test_selfcheck_cases_do_not_depend_on_their_order():
     # every Monte Carlo case draws from its own stream keyed by the case, never from run order
-    from planrunner.selfcheck import CASES, run_case
+    from planrunner.audit.selfcheck import CASES, run_case
     forward = {c.id: run_case(c)["obtained"] for c in CASES}
     backward = {c.id: run_case(c)["obtained"] for c in reversed(CASES)}
     assert forward == backward
@@ -492,7 +492,7 @@ def test_selfcheck_runs_from_the_built_wheel_alone(tmp_path):
     wheel = next((tmp_path / "wheel").glob("planrunner-*.whl"))
     site = tmp_path / "site"
     zipfile.ZipFile(wheel).extractall(site)
-    assert (site / "planrunner" / "selfcheck.py").is_file()
+    assert (site / "planrunner" / "audit" / "selfcheck.py").is_file()
     work = tmp_path / "elsewhere"
     work.mkdir()
     done = subprocess.run([sys.executable, "-m", "planrunner", "selfcheck", "--out", "report.json"], cwd=work,
@@ -531,7 +531,7 @@ def test_check_reports_deviations_from_the_lock_before_any_run(project, capsys):
 from hypothesis import given, settings  # noqa: E402
 from hypothesis import strategies as st  # noqa: E402
 
-from planrunner.canonical import content_sha256, differences  # noqa: E402
+from planrunner.record.canonical import content_sha256, differences  # noqa: E402
 
 JSONISH = st.recursive(
     st.none() | st.booleans() | st.integers(-10**6, 10**6) | st.floats(allow_nan=False, allow_infinity=False)

@@ -24,7 +24,11 @@ from pathlib import Path
 
 import pytest
 
-from planrunner import cli, plancheck, runner
+from planrunner.cli import main as cli
+
+from planrunner.plan import load as plancheck
+
+from planrunner.pipeline import run as runner
 
 HERE = Path(__file__).resolve().parent
 PLANS = sorted((HERE / "invalid_plans").glob("*.yaml"))

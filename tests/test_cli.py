@@ -10,7 +10,7 @@ from pathlib import Path
 
 import pytest
 
-from planrunner import cli
+from planrunner.cli import main as cli
 
 ROOT = Path(__file__).resolve().parent.parent
 DEMO = ROOT / "plans" / "liner-trial" / "plan.yaml"
@@ -93,7 +93,7 @@ def test_changed_data_file_under_pin_exit_2(tmp_path, capsys):
 
 
 def test_unexpected_failure_exit_1_with_versions(monkeypatch, capsys):
-    import planrunner.runner as runner
+    import planrunner.pipeline.run as runner
 
     def boom(*args, **kwargs):
         raise RuntimeError("simulated bug")

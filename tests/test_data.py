@@ -8,7 +8,7 @@ import numpy as np
 import pytest
 
 from planrunner.errors import DataError
-from planrunner.runner import check_plan
+from planrunner.pipeline.run import check_plan
 
 PLAN = """
 plan: data-check

@@ -24,7 +24,7 @@ from planrunner.engines.signflip import signflip_test, swap_bits
 from planrunner.engines.statistics import get_statistic
 from planrunner.engines.streams import DRAW_BLOCK, stream_for
 from planrunner.errors import EngineError
-from planrunner.multiplicity import adjust
+from planrunner.engines.multiplicity import adjust
 
 # Source: REFERENCES PT-HWDEP (H&W 1973 p. 29f)
 HW_X = np.array([1.83, 0.50, 1.62, 2.48, 1.68, 1.88, 1.55, 3.06, 1.30])

@@ -11,13 +11,13 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from planrunner import cli
+from planrunner.cli import main as cli
 from planrunner.engines.bootstrap import bootstrap
 from planrunner.engines.permutation import permutation_test
 from planrunner.engines.statistics import get_statistic
 from planrunner.engines.streams import stream_for
-from planrunner.execute import Execution, ExecutorError, execute_all
-from planrunner.runner import check_plan, run_plan
+from planrunner.execute.executors import Execution, ExecutorError, execute_all
+from planrunner.pipeline.run import check_plan, run_plan
 
 from conftest import fixed_clock
 
@@ -149,9 +149,9 @@ def test_memory_of_one_engine_call_stays_bounded_as_resamples_grow(method: str) 
 
 
 def test_engine_errors_from_workers_keep_where_and_hint() -> None:
-    from planrunner.compile import Job
+    from planrunner.compile.jobs import Job
     from planrunner.errors import EngineError
-    from planrunner.execute import _execute_caught, _result_of
+    from planrunner.execute.executors import _execute_caught, _result_of
 
     job = Job(analysis_id="one-row", method="jackknife", statistic=get_statistic("mean"),
               samples=(np.array([1.0]),), strata=None, group_labels=("all rows",), strata_labels=None,
@@ -192,7 +192,7 @@ def test_dask_scheduler_address_is_used(demo: Path) -> None:
 
 def test_unreachable_scheduler_is_a_clear_error(demo: Path, monkeypatch) -> None:
     pytest.importorskip("distributed")
-    import planrunner.execute as execute
+    import planrunner.execute.executors as execute
 
     monkeypatch.setattr(execute, "SCHEDULER_TIMEOUT", 1.0)
     jobs = check_plan(demo).jobs

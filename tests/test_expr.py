@@ -1,4 +1,4 @@
-"""Tests for the row filter language (planrunner.expr).
+"""Tests for the row filter language (planrunner.plan.expr).
 
 Hand-written cases pin the grammar, the type rules and every error with its position; the
 hypothesis tests at the end throw random text and random expression trees at the parser, and
@@ -22,9 +22,9 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from planrunner import expr
+from planrunner.plan import expr
 from planrunner.errors import ExpressionError
-from planrunner.expr import MAX_DEPTH, MAX_LENGTH, Expression, parse_expression
+from planrunner.plan.expr import MAX_DEPTH, MAX_LENGTH, Expression, parse_expression
 
 NAN = float("nan")
 INF = float("inf")

@@ -19,7 +19,9 @@ from pathlib import Path
 
 import pytest
 
-from planrunner import cli, runner
+from planrunner.cli import main as cli
+
+from planrunner.pipeline import run as runner
 from planrunner.errors import DataError
 
 from conftest import fixed_clock
@@ -166,7 +168,8 @@ def test_interrupt_during_writing(plan, tmp_path, monkeypatch, capsys, fail_on):
 CHILD = r"""
 import sys, time
 from pathlib import Path
-from planrunner import cli, runner
+from planrunner.cli import main as cli
+from planrunner.pipeline import run as runner
 
 marker, where = Path(sys.argv[1]), sys.argv[2]
 

@@ -7,11 +7,15 @@ import math
 
 import pytest
 
-from planrunner import cli, limits, runner
+from planrunner.cli import main as cli
+
+from planrunner.compile import limits
+
+from planrunner.pipeline import run as runner
 from planrunner.errors import DataError
-from planrunner.io import read_table
-from planrunner.datacheck import check_analysis
-from planrunner.schema import Plan
+from planrunner.data.tables import read_table
+from planrunner.data.checks import check_analysis
+from planrunner.plan.schema import Plan
 
 PLAN = """
 plan: hardening

@@ -39,9 +39,9 @@ def test_wheel_contains_templates(tmp_path):
     assert "planrunner/engines/bootstrap.py" in names
     entry_points = [n for n in names if n.endswith("entry_points.txt")]
     text = zipfile.ZipFile(wheel).read(entry_points[0]).decode()
-    assert "planrunner = planrunner.cli:main" in text
+    assert "planrunner = planrunner.cli.main:main" in text
 
 
 def test_templates_found_from_the_source_tree():
-    from planrunner.report import templates_folder
+    from planrunner.report.render import templates_folder
     assert (templates_folder() / "report.html.j2").is_file()

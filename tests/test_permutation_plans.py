@@ -12,7 +12,7 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from planrunner.runner import run_plan
+from planrunner.pipeline.run import run_plan
 
 from conftest import fixed_clock
 

@@ -7,7 +7,7 @@ from pathlib import Path
 import pytest
 
 from planrunner.errors import PlanError
-from planrunner.plancheck import read_plan
+from planrunner.plan.load import read_plan
 
 CORPUS = Path(__file__).resolve().parent / "invalid_plans"
 CASES = sorted(CORPUS.glob("*.yaml"))

@@ -10,7 +10,7 @@ import pytest
 from scipy import stats
 
 from planrunner.errors import EngineError
-from planrunner.runner import run_plan
+from planrunner.pipeline.run import run_plan
 
 from conftest import fixed_clock
 

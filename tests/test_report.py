@@ -18,9 +18,11 @@ import pytest
 from scipy import stats
 
 from conftest import fixed_clock
-from planrunner import plots, precision, report
-from planrunner.mcerror import interval_bands, quantile_band
-from planrunner.runner import run_plan
+from planrunner.report import plots
+from planrunner.report import digits as precision
+from planrunner.report import render as report
+from planrunner.record.bands import interval_bands, quantile_band
+from planrunner.pipeline.run import run_plan
 
 ROOT = Path(__file__).resolve().parent.parent
 DEMO = ROOT / "plans" / "liner-trial" / "plan.yaml"
@@ -62,7 +64,7 @@ def test_reports_are_byte_stable_for_the_same_record(demo, files, tmp_path):
     assert report.render_all(copy.deepcopy(demo.record)) == files
     # and in a fresh interpreter (matplotlib state, hash salts and ids all new)
     (tmp_path / "record.json").write_text(json.dumps(demo.record), encoding="utf-8")
-    script = ("import hashlib, json, sys; from planrunner import report; "
+    script = ("import hashlib, json, sys; from planrunner.report import render as report; "
               "r = json.load(open(sys.argv[1], encoding='utf-8')); "
               "print(json.dumps({k: hashlib.sha256(v.encode()).hexdigest() for k, v in report.render_all(r).items()}))")
     done = subprocess.run([sys.executable, "-c", script, str(tmp_path / "record.json")], capture_output=True,
@@ -360,8 +362,8 @@ def test_bands_and_figures_do_not_depend_on_order_other_analyses_or_batch_size(w
 
     a, figures_a = run(["boot", "perm"], "a")
     b, figures_b = run(["perm", "extra", "boot"], "b")
-    import planrunner.execute as execute
-    import planrunner.permrun as permrun
+    import planrunner.execute.executors as execute
+    import planrunner.execute.permutation as permrun
 
     real_bootstrap, real_permutation = execute.bootstrap, permrun.permutation_test
     monkeypatch.setattr(execute, "bootstrap", lambda *x, **k: real_bootstrap(*x, batch_elements=17, **k))

@@ -15,8 +15,8 @@ import pytest
 
 from chromium_cdp import Browser, find_chromium
 from conftest import fixed_clock
-from planrunner import report
-from planrunner.runner import run_plan
+from planrunner.report import render as report
+from planrunner.pipeline.run import run_plan
 
 ROOT = Path(__file__).resolve().parent.parent
 DEMO = ROOT / "plans" / "liner-trial" / "plan.yaml"

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from planrunner.runner import run_plan
+from planrunner.pipeline.run import run_plan
 
 from conftest import csv_of_groups, fixed_clock
 
@@ -79,8 +79,8 @@ def test_order_and_added_analyses_change_nothing(write_plan, tmp_path):
 def test_memory_batch_size_changes_nothing(write_plan, tmp_path, monkeypatch):
     reference = run(write_plan, tmp_path, ["boot", "perm"], "ref")
     # the same jobs through the engines with a tiny memory batch (17 elements per batch)
-    import planrunner.execute as execute
-    import planrunner.permrun as permrun
+    import planrunner.execute.executors as execute
+    import planrunner.execute.permutation as permrun
 
     real_bootstrap, real_permutation = execute.bootstrap, permrun.permutation_test
     monkeypatch.setattr(execute, "bootstrap", lambda *a, **k: real_bootstrap(*a, batch_elements=17, **k))

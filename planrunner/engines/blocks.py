@@ -6,7 +6,7 @@ and concatenated in order: the numbers are the same whatever the split.
 
 An engine hands a picklable ``task(start, stop) -> np.ndarray`` (see :class:`bind`) and the number of resamples to
 :func:`map_resamples`. By default the task runs once over everything, in the calling thread. An
-executor (``planrunner.execute``) may install a :data:`RangeMapper` with :class:`mapping_ranges` around its
+executor (``planrunner.execute.executors``) may install a :data:`RangeMapper` with :class:`mapping_ranges` around its
 engine calls; it then decides where the ranges run. The engines never learn which executor
 runs them, and their signatures stay the same.
 """

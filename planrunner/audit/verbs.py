@@ -1,0 +1,365 @@
+"""Orchestration of the audit commands that read records: verify, compare, self-check.
+
+Like `runner`, this module touches files (it reads records, plans and data, and writes the
+comparison and self-check reports); the logic it relies on is pure and lives in `canonical`,
+`compare` and `selfcheck`.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import re
+import tempfile
+from dataclasses import dataclass, field, replace
+from pathlib import Path
+from typing import Any
+
+from planrunner.record.canonical import RECORD_HASH_FIELD, differences, record_sha256
+from planrunner.compile.jobs import compile_jobs
+from planrunner.errors import PlanError, PlanrunnerError
+from planrunner.execute.executors import Execution, execute_all
+from planrunner.data.tables import file_sha256, resolve_data_path
+from planrunner.plan.params import apply as apply_parameters
+from planrunner.plan.params import resolve_values
+from planrunner.plan.load import read_plan
+from planrunner.record.build import FORMAT, build_record, environment
+from planrunner.pipeline.run import finish_record, load_tables
+from planrunner.plan.yamlsafe import load_yaml
+
+# Differences no larger than this (relative to the larger magnitude) are floating-point noise:
+# another machine may add the same numbers in another order. Same build, same machine: 0.
+FLOAT_RELATIVE_TOLERANCE = 1e-9
+# A Monte Carlo quantity whose record states its Monte Carlo s.d. may differ by this many s.d.
+# when the random streams differ (REFERENCES.md: about 4 MC s.d.).
+MC_SDS = 4.0
+HEADLINE = re.compile(r"^(analyses\[\d+\]\.(estimate|standard_error|bias|p_value|intervals|adjusted_p_values)|datasets)")
+MC_FIELDS = {"standard_error": "standard_error_sd", "bias": "bias_sd", "p_value": "p_value_sd"}
+
+
+@dataclass(frozen=True)
+class FieldDifference:
+    path: str
+    recorded: Any
+    rerun: Any
+    difference: float | None  # |recorded - rerun| for numbers
+    tolerance: float | None
+    within: bool
+    rule: str  # which tolerance applied
+
+
+@dataclass(frozen=True)
+class VerifyReport:
+    record_file: Path
+    plan_file: Path
+    problems: list[tuple[str, str]]  # (field, what): each is a failure
+    notes: list[str]  # stated, not failures (package versions)
+    differences: list[FieldDifference]
+    compared: int  # numbers compared
+    rerun: bool  # False when the data could not be re-read
+    plan_changes: list[str] = field(default_factory=list)
+
+    @property
+    def passed(self) -> bool:
+        return not self.problems and all(d.within for d in self.differences)
+
+    @property
+    def largest(self) -> FieldDifference | None:
+        numeric = [d for d in self.differences if d.difference is not None]
+        return max(numeric, key=lambda d: d.difference) if numeric else None
+
+
+REQUIRED: dict[str, type | tuple[type, ...]] = {
+    "run_id": str, "started_utc": str, "finished_utc": str, "operator": str, "command": list, "plan": dict,
+    "datasets": list, "analyses": list, "seed": dict, "environment": dict}
+
+
+def read_record(path: str | Path) -> tuple[Path, dict]:
+    """A record from record.json or from its run folder; refuse what is not a record."""
+    file = Path(path)
+    if file.is_dir():
+        file = file / "record.json"
+    try:
+        record = json.loads(file.read_text(encoding="utf-8"))
+    except FileNotFoundError:
+        raise PlanError("record not found", where=str(file), hint="name a record.json or its run folder") from None
+    except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
+        raise PlanError(f"cannot read the record: {exc}", where=str(file)) from None
+    if not isinstance(record, dict) or record.get("format") != FORMAT:
+        raise PlanError(f"not a planrunner record (format {FORMAT} expected)", where=str(file))
+    missing = [key for key, kind in REQUIRED.items() if not isinstance(record.get(key), kind)]
+    plan = record.get("plan") if isinstance(record.get("plan"), dict) else {}
+    missing += [f"plan.{key}" for key in ("file", "sha256", "text") if not isinstance(plan.get(key), str)]
+    for i, ds in enumerate(record.get("datasets") if isinstance(record.get("datasets"), list) else []):
+        if not (isinstance(ds, dict) and isinstance(ds.get("file"), str) and isinstance(ds.get("sha256"), str)):
+            missing.append(f"datasets[{i}]")
+    if missing:
+        raise PlanError(f"the record is incomplete or damaged: {', '.join(missing)} missing or of the wrong kind",
+                        where=str(file), hint="verify the record.json that the run wrote")
+    return file, record
+
+
+def find_plan(record_file: Path, record: dict, plan: str | Path | None) -> Path:
+    """The plan file beside which the data live: given, or found above the run folder."""
+    if plan is not None:
+        found = Path(plan)
+        if not found.is_file():
+            raise PlanError("plan file not found", where=str(found))
+        return found
+    name = record["plan"]["file"]
+    for folder in list(record_file.resolve().parents)[:4]:
+        if (folder / name).is_file():
+            return folder / name
+    raise PlanError(f"cannot find the plan '{name}' above {record_file.parent}",
+                    hint="name it with --plan PATH (its folder holds the data files)")
+
+
+def _numbers(value: Any) -> int:
+    if isinstance(value, dict):
+        return sum(_numbers(v) for v in value.values())
+    if isinstance(value, list):
+        return sum(_numbers(v) for v in value)
+    return int(isinstance(value, (int, float)) and not isinstance(value, bool))
+
+
+def _judge(path: str, before: Any, after: Any, recorded: dict, *, monte_carlo: bool = True) -> FieldDifference:
+    """How far a re-run field is from the recorded one, and whether that is within tolerance.
+
+    ``monte_carlo``: whether the stated Monte Carlo tolerance may apply, i.e. whether the re-run
+    is on another environment (on the same one, the random draws are the same bit for bit).
+    """
+    numeric = all(isinstance(v, (int, float)) and not isinstance(v, bool) for v in (before, after))
+    if not numeric:
+        return FieldDifference(path, before, after, None, None, False, "must be equal")
+    diff = abs(float(before) - float(after))
+    scale = max(abs(float(before)), abs(float(after)))
+    fp = FLOAT_RELATIVE_TOLERANCE * scale
+    if diff <= fp and not isinstance(before, int):
+        return FieldDifference(path, before, after, diff, fp, True, "floating point (relative 1e-9)")
+    # analyses[3].standard_error -> the stated Monte Carlo s.d. of that analysis
+    head, _, leaf = path.rpartition(".")
+    if monte_carlo and leaf in MC_FIELDS and head.startswith("analyses[") and head.endswith("]"):
+        index = int(head[len("analyses["):-1])
+        sd = ((recorded["analyses"][index].get("monte_carlo") or {}).get(MC_FIELDS[leaf])
+              if index < len(recorded["analyses"]) else None)
+        if isinstance(sd, (int, float)) and sd > 0:
+            return FieldDifference(path, before, after, diff, MC_SDS * sd, diff <= MC_SDS * sd,
+                                   f"Monte Carlo ({MC_SDS:g} stated s.d.)")
+    if isinstance(before, int) and isinstance(after, int):
+        return FieldDifference(path, before, after, diff, 0.0, False, "counts must be equal")
+    return FieldDifference(path, before, after, diff, fp, False, "floating point (relative 1e-9)")
+
+
+def verify_record(path: str | Path, *, plan: str | Path | None = None, execution: Execution | None = None,
+                  data_root: str | Path | None = None) -> VerifyReport:
+    """Re-hash the data, re-run every analysis from the recorded plan (on ``execution``, serial by
+    default; the data under ``data_root`` when given, as ``run --data-root``), and compare every field."""
+    record_file, recorded = read_record(path)
+    problems: list[tuple[str, str]] = []
+    notes: list[str] = []
+    stored = recorded.get(RECORD_HASH_FIELD)
+    if stored is None:
+        problems.append((RECORD_HASH_FIELD, "the record carries no hash of its own content"))
+    elif stored != record_sha256(recorded):
+        problems.append((RECORD_HASH_FIELD, "the record was changed after it was written "
+                                            "(its content no longer matches its own hash)"))
+    plan_file = find_plan(record_file, recorded, plan)
+    plan_changes: list[str] = []
+    plan_sha, _ = file_sha256(plan_file)
+    if plan_sha != recorded["plan"]["sha256"]:
+        problems.append(("plan.sha256", f"the plan file {plan_file} is not the recorded plan (changed since the "
+                                         "run, or the plan of another record: name the right one with --plan)"))
+        try:
+            now = load_yaml(plan_file.read_text(encoding="utf-8"), str(plan_file)).data
+            then = load_yaml(recorded["plan"]["text"], "recorded plan").data
+            plan_changes = [f"{d.path}: recorded {d.before!r}, now {d.after!r}" for d in differences(then, now)]
+        except (PlanrunnerError, UnicodeDecodeError):
+            plan_changes = ["the plan file can no longer be read as YAML"]
+        if not plan_changes:
+            plan_changes = ["only comments or layout changed (the parsed content is the same)"]
+
+    env_now = environment()
+    for d in differences(recorded.get("environment", {}), env_now):
+        notes.append(f"environment.{d.path}: recorded {d.before!r}, now {d.after!r}")
+
+    # re-run the plan exactly as recorded, with the data from the plan's folder
+    try:
+        with tempfile.TemporaryDirectory(prefix="planrunner-verify-") as tmp:
+            copy = Path(tmp) / recorded["plan"]["file"]
+            copy.write_text(recorded["plan"]["text"], encoding="utf-8", newline="")
+            loaded = read_plan(copy)
+        loaded = replace(loaded, file=plan_file.resolve())
+        values = resolve_values(loaded.plan, recorded.get("parameters") or {})
+    except PlanrunnerError as exc:
+        message = str(exc).replace(str(copy), "recorded plan")
+        problems.append(("plan.text", f"this installation cannot re-run the recorded plan: {message}"))
+        return VerifyReport(record_file, plan_file, problems, notes, [], 0, False, plan_changes)
+    loaded = replace(loaded, plan=apply_parameters(loaded.plan, values))
+    for i, ds in enumerate(recorded["datasets"]):
+        try:
+            sha, _ = file_sha256(resolve_data_path(loaded.folder, ds["file"],
+                                                   data_root=None if data_root is None else Path(data_root)))
+        except (OSError, PlanrunnerError) as exc:
+            problems.append((f"datasets[{i}].sha256", f"data file {ds['file']} cannot be read: {exc}"))
+            continue
+        if sha != ds["sha256"]:
+            problems.append((f"datasets[{i}].sha256", f"data file {ds['file']} has changed: recorded {ds['sha256']}, now {sha}"))
+    try:
+        tables = load_tables(loaded, data_root)
+        jobs = compile_jobs(loaded.plan, tables)
+        results = execute_all(jobs, execution=execution)
+    except PlanrunnerError as exc:
+        problems.append(("datasets", f"the analyses cannot be re-run on the data as they are now: {exc}"))
+        return VerifyReport(record_file, plan_file, problems, notes, [], 0, False, plan_changes)
+    rerun = build_record(loaded, tables, jobs, results, run_id=recorded["run_id"],
+                         started_utc=recorded["started_utc"], finished_utc=recorded["finished_utc"],
+                         operator=recorded["operator"], command=recorded["command"])
+    # who, when, on what machine and on which executor are facts of the original run, not results
+    # to reproduce (the executor never changes a number: the re-run checks that too)
+    rerun["environment"] = recorded.get("environment")
+    if "execution" in recorded:
+        rerun["execution"] = recorded["execution"]
+    finish_record(rerun, (recorded.get("plan") or {}).get("lock"), values)
+    other_environment = bool(notes)
+    found = [_judge(d.path, d.before, d.after, recorded, monte_carlo=other_environment)
+             for d in differences({k: v for k, v in recorded.items() if k != RECORD_HASH_FIELD},
+                                  {k: v for k, v in rerun.items() if k != RECORD_HASH_FIELD})]
+    found.sort(key=lambda d: HEADLINE.match(d.path) is None)  # the reported numbers first (stable sort)
+    return VerifyReport(record_file, plan_file, problems, notes, found, _numbers(recorded), True, plan_changes)
+
+
+def describe(value: Any, width: int = 36) -> str:
+    if isinstance(value, float):
+        text = repr(value)
+    elif isinstance(value, (dict, list)):
+        text = json.dumps(value, sort_keys=True)
+    else:
+        text = str(value)
+    return text if len(text) <= width else text[: width - 1] + "…"
+
+
+def finite(x: Any) -> bool:
+    return isinstance(x, (int, float)) and not isinstance(x, bool) and math.isfinite(x)
+
+
+# --- compare ---------------------------------------------------------------------------------------
+
+def compare_files(a: str | Path, b: str | Path) -> dict:
+    from planrunner.report.compare import compare_records
+    _, record_a = read_record(a)
+    _, record_b = read_record(b)
+    return compare_records(record_a, record_b)
+
+
+def write_new_file(path: str | Path, text: str) -> Path:
+    """Write a report the user named; an existing file is never overwritten."""
+    target = Path(path)
+    try:
+        with open(target, "x", encoding="utf-8", newline="\n") as handle:
+            handle.write(text)
+    except FileExistsError:
+        raise PlanError("the file exists already; planrunner never overwrites a report", where=str(target),
+                        hint="choose a new file name") from None
+    except OSError as exc:
+        raise PlanError(f"cannot write the file: {exc.strerror}", where=str(target)) from None
+    return target
+
+
+# --- self-check ------------------------------------------------------------------------------------
+
+SELFCHECK_FORMAT = "planrunner.selfcheck/1"
+SELFCHECK_HASH_FIELD = "report_sha256"
+
+# A whole plan, run and verified through the installed package (data: E&T Table 2.1, mouse survival)
+_E2E_PLAN = """\
+plan: selfcheck-mouse
+title: Self-check, mouse survival (E&T Table 2.1)
+seed: 20261201
+datasets:
+  mouse:
+    file: mouse.csv
+    columns:
+      group: {type: category, levels: [treatment, control]}
+      days: {type: number}
+analyses:
+  - id: exact-permutation
+    data: mouse
+    outcome: days
+    groups: {by: group, compare: [treatment, control]}
+    statistic: mean_difference
+    method: permutation
+    alternative: greater
+    resamples: 20000
+  - id: jackknife-difference
+    data: mouse
+    outcome: days
+    groups: {by: group, compare: [treatment, control]}
+    statistic: mean_difference
+    method: jackknife
+"""
+
+
+def _end_to_end_cases(clock: Any) -> list[dict]:
+    from planrunner.pipeline.run import run_plan
+    from planrunner.audit.selfcheck import MOUSE_CONTROL, MOUSE_TREATMENT
+    rows = ["group,days"] + [f"treatment,{v}" for v in MOUSE_TREATMENT] + [f"control,{v}" for v in MOUSE_CONTROL]
+    cases = []
+    with tempfile.TemporaryDirectory(prefix="planrunner-selfcheck-") as tmp:
+        folder = Path(tmp)
+        (folder / "mouse.csv").write_text("\n".join(rows) + "\n", encoding="utf-8")
+        (folder / "plan.yaml").write_text(_E2E_PLAN, encoding="utf-8")
+        try:
+            outcome = run_plan(folder / "plan.yaml", operator="selfcheck", clock=clock, history=False)
+            by_id = {a["id"]: a for a in outcome.record["analyses"]}
+            obtained = [by_id["exact-permutation"]["p_value"], by_id["jackknife-difference"]["standard_error"]]
+            report = verify_record(outcome.folder / "record.json")
+            verified = 0.0 if report.passed else 1.0
+            error = None
+        except Exception as exc:  # a failing case is reported, never hidden
+            obtained, verified, error = [None, None], None, f"{type(exc).__name__}: {exc}"
+    specs = [("E2E permutation", "plan → run → record: exact permutation p (mean difference, greater)",
+              "REFERENCES.md PT-MOUSE, exact 1613/11440", 1613 / 11440, 1e-12, obtained[0]),
+             ("E2E jackknife", "plan → run → record: two-sample jackknife SE of the mean difference",
+              "identity 6; REFERENCES.md PT-MOUSE", 28.936067137, 1e-8, obtained[1]),
+             ("E2E verify", "verify re-runs the record: number of fields outside tolerance",
+              "exact (a re-run on the same installation must be identical)", 0.0, 0.0, verified)]
+    for cid, quantity, source, expected, tol, got in specs:
+        ok = error is None and isinstance(got, (int, float)) and abs(got - expected) <= tol
+        cases.append({"id": cid, "quantity": quantity, "source": source, "expected": expected, "obtained": got,
+                      "tolerance": tol, "difference": abs(got - expected) if isinstance(got, (int, float)) else None,
+                      "passed": bool(ok), "error": error})
+    return cases
+
+
+def run_selfcheck(clock: Any = None) -> dict:
+    """Every self-check case, with the versions and platform, hashed for integrity."""
+    import platform
+    from planrunner.record.canonical import self_hash
+    from planrunner.pipeline.run import _stamp, utc_now
+    from planrunner.audit.selfcheck import CASES, run_case
+    clock = clock or utc_now
+    started = clock()
+    cases = [run_case(c) for c in CASES] + _end_to_end_cases(clock)
+    report = {
+        "format": SELFCHECK_FORMAT,
+        "created_utc": _stamp(started),
+        "environment": {**environment(), "processor": platform.processor()},
+        "cases": cases,
+        "passed": sum(c["passed"] for c in cases),
+        "failed": sum(not c["passed"] for c in cases),
+        "all_passed": all(c["passed"] for c in cases),
+    }
+    report[SELFCHECK_HASH_FIELD] = self_hash(report, SELFCHECK_HASH_FIELD)
+    return report
+
+
+def check_selfcheck_report(path: str | Path) -> tuple[dict, bool]:
+    """A self-check report and whether its content still matches its own hash."""
+    from planrunner.record.canonical import self_hash
+    try:
+        report = json.loads(Path(path).read_text(encoding="utf-8"))
+    except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
+        raise PlanError(f"cannot read the self-check report: {exc}", where=str(path)) from None
+    if not isinstance(report, dict) or report.get("format") != SELFCHECK_FORMAT:
+        raise PlanError(f"not a self-check report (format {SELFCHECK_FORMAT} expected)", where=str(path))
+    return report, report.get(SELFCHECK_HASH_FIELD) == self_hash(report, SELFCHECK_HASH_FIELD)

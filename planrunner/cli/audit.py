@@ -1,0 +1,209 @@
+"""Command line of the audit verbs: lock, verify, history, compare, schema, selfcheck.
+
+Part of the command-line layer (with `cli`): it parses, prints and chooses exit codes, and leaves
+every computation to `runner` and `audit`.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+from typing import Any, Callable
+
+# the exit codes of planrunner.cli.main (DESIGN.md §5), repeated so that this module imports on its own
+EXIT_OK, EXIT_INPUT, EXIT_DIFFERS = 0, 2, 3
+MAX_ROWS = 40  # differing fields listed in full before "... and N more"
+
+
+def _add_audit_run_options(run: argparse.ArgumentParser) -> None:
+    run.add_argument("--param", action="append", metavar="NAME=VALUE",
+                     help="a value for a plan parameter (repeat for several)")
+    run.add_argument("--lock", metavar="FILE", help="the lock to compare with (default: PLAN.lock.json beside the plan)")
+    run.add_argument("--refuse-deviations", action="store_true",
+                     help="stop (exit 2) if the plan or its locked data deviate from the lock, or if there is no lock")
+    run.add_argument("--reason", metavar="TEXT", help="why this run is made; written to the run history")
+
+
+def _add_audit_verbs(verbs: Any) -> None:
+    lock = verbs.add_parser("lock", help="freeze a plan: write PLAN.lock.json beside it")
+    lock.add_argument("plan", help="path to the plan (YAML)")
+    lock.add_argument("--note", help="a note kept in the lock (e.g. the protocol version)")
+    lock.add_argument("--operator", help="who locks the plan (default: the login name)")
+    lock.add_argument("--param", action="append", metavar="NAME=VALUE",
+                      help="parameter values naming the data files whose presence is recorded")
+
+    verify = verbs.add_parser("verify", help="re-run a record and compare every number")
+    verify.add_argument("record", help="record.json or its run folder")
+    verify.add_argument("--plan", help="the plan file whose folder holds the data (default: found above the run folder)")
+    from planrunner.cli.main import DATA_ROOT_HELP, add_execution_options  # cli imports this module; by now it is loaded
+    add_execution_options(verify)
+    verify.add_argument("--data-root", metavar="DIR", help=DATA_ROOT_HELP)
+
+    history = verbs.add_parser("history", help="list the run history and check its hash chain")
+    history.add_argument("target", help="a plan, its runs folder, or a history.jsonl file")
+
+    compare = verbs.add_parser("compare", help="put two records side by side")
+    compare.add_argument("record_a", help="the earlier record (record.json or run folder)")
+    compare.add_argument("record_b", help="the later record")
+    compare.add_argument("--markdown", metavar="FILE", help="also write the comparison as Markdown")
+    compare.add_argument("--html", metavar="FILE", help="also write the comparison as a self-contained HTML page")
+
+    schema = verbs.add_parser("schema", help="print the JSON Schema of the plan or of the record")
+    schema.add_argument("which", choices=["plan", "record"])
+
+    selfcheck = verbs.add_parser("selfcheck", help="run the built-in check cases and write a hashed report")
+    selfcheck.add_argument("--out", metavar="FILE",
+                           help="where to write the report (default: planrunner-selfcheck-TIME.json here)")
+    selfcheck.add_argument("--check", metavar="REPORT", help="check an existing report's hash instead of running")
+
+
+def lock_summary(record: dict) -> str:
+    lock = record["plan"].get("lock")
+    if lock is None:
+        return "plan lock: none (the plan was not locked)"
+    head = f"plan lock: {lock['file']} (locked {lock['locked_utc']} by {lock['operator']})"
+    if not lock["deviations"]:
+        extra = "" if lock.get("plan_bytes_identical", True) else "; only comments or layout changed"
+        return f"{head}: no deviations{extra}"
+    lines = [f"{head}: {len(lock['deviations'])} DEVIATION(S) from the locked plan"]
+    lines += [f"  {d['path']}: locked {d['locked']!r}, now {d['now']!r}" for d in lock["deviations"]]
+    return "\n".join(lines)
+
+
+def audit_summary(outcome: Any) -> str:
+    """The lock status and the history entry of a finished run, for the run summary."""
+    lines = [lock_summary(outcome.record)]
+    params = outcome.record.get("parameters") or {}
+    if params:
+        lines.append("parameters: " + ", ".join(f"{k}={v}" for k, v in params.items()))
+    entry = outcome.history_entry
+    if entry is not None:
+        lines.append(f"run history: entry {entry['seq']} appended to {outcome.folder.parent / 'history.jsonl'}")
+    return "\n".join(lines)
+
+
+def check_lock_summary(outcome: Any) -> str:
+    """For `check`: how the plan (and, when read, its data) stands against its lock, before any run."""
+    from planrunner.trail.files import lock_for_run
+    entry = lock_for_run(outcome.loaded, outcome.tables or {}, None, refuse_deviations=False)
+    return lock_summary({"plan": {"lock": entry}})
+
+
+def _lock(args: argparse.Namespace) -> int:
+    from planrunner.plan.params import parse_assignments
+    from planrunner.pipeline.run import _stamp, default_operator, utc_now
+    from planrunner.trail.files import lock_plan
+    path, lock = lock_plan(args.plan, operator=args.operator or default_operator(), locked_utc=_stamp(utc_now()),
+                           note=args.note, params=parse_assignments(args.param))
+    print(f"locked {args.plan}: sha256 {lock['sha256']}, content sha256 {lock['canonical_sha256']}")
+    for d in lock["data"]:
+        state = f"present, sha256 {d['sha256']}" if d["present"] else "not present"
+        print(f"  data {d['name']}: {d['file']}: {state}")
+    print(f"lock written to {path}")
+    return EXIT_OK
+
+
+def _table(header: tuple[str, ...], rows: list[tuple[str, ...]]) -> str:
+    rows = [header] + rows
+    widths = [max(len(r[i]) for r in rows) for i in range(len(header))]
+    lines = ["  ".join(cell.ljust(w) for cell, w in zip(r, widths)).rstrip() for r in rows]
+    lines.insert(1, "  ".join("-" * w for w in widths))
+    return "\n".join(lines)
+
+
+def _verify(args: argparse.Namespace) -> int:
+    from planrunner.audit.verbs import describe, verify_record
+    from planrunner.cli.main import execution_of
+    report = verify_record(args.record, plan=args.plan, execution=execution_of(args), data_root=args.data_root)
+    print(f"verifying {report.record_file} against the plan folder {report.plan_file.parent}")
+    for note in report.notes:
+        print(f"  note (stated, not a failure): {note}")
+    for where, what in report.problems:
+        print(f"  DIFFERENCE {where}: {what}")
+    for change in report.plan_changes:
+        print(f"    plan change: {change}")
+    if report.differences:
+        rows = [(d.path, describe(d.recorded), describe(d.rerun),
+                 "" if d.difference is None else f"{d.difference:.3g}",
+                 "" if d.tolerance is None else f"{d.tolerance:.3g}",
+                 "within" if d.within else "OUTSIDE", d.rule) for d in report.differences[:MAX_ROWS]]
+        print(_table(("field", "recorded", "re-run", "|difference|", "tolerance", "verdict", "rule"), rows))
+        if len(report.differences) > MAX_ROWS:
+            print(f"... and {len(report.differences) - MAX_ROWS} more differing fields")
+    if not report.rerun:
+        print("the analyses could not be re-run")
+    elif not report.differences:
+        print(f"re-run of the recorded plan: identical ({report.compared} numbers compared, every one equal bit for bit)")
+    else:
+        largest = report.largest
+        if largest is not None:
+            verdict = "within" if largest.within else "OUTSIDE"
+            print(f"re-run: largest difference {largest.difference:.3g} at {largest.path}, {verdict} its "
+                  f"tolerance ({largest.rule}: {largest.tolerance:.3g})")
+        outside = sum(not d.within for d in report.differences)
+        print(f"re-run: {len(report.differences)} field(s) differ, {outside} outside tolerance")
+    print("verify: PASSED" if report.passed else "verify: FAILED")
+    return EXIT_OK if report.passed else EXIT_DIFFERS
+
+
+def _history(args: argparse.Namespace) -> int:
+    from planrunner.trail.files import history_report
+    report = history_report(args.target)
+    rows = [(str(e.get("seq")), str(e.get("finished_utc")), str(e.get("run_id")), str(e.get("operator")),
+             str(e.get("reason") or ""), str(e.get("plan_sha256"))[:12], str(e.get("record_sha256"))[:12])
+            for e in report.entries]
+    print(f"run history {report.log}: {len(rows)} run(s)")
+    if rows:
+        print(_table(("#", "finished (UTC)", "run id", "operator", "reason", "plan", "record"), rows))
+    for p in report.problems:
+        print(f"  BROKEN {'line ' + str(p.line) if p.line else 'log'}: {p.message}")
+    print("history chain: intact" if not report.problems else f"history chain: BROKEN ({len(report.problems)} problem(s))")
+    return EXIT_OK if not report.problems else EXIT_DIFFERS
+
+
+def _compare(args: argparse.Namespace) -> int:
+    from planrunner.audit.verbs import compare_files, write_new_file
+    from planrunner.report.compare import render_html, render_markdown, render_text
+    comparison = compare_files(args.record_a, args.record_b)
+    print(render_text(comparison), end="")
+    if args.markdown:
+        print(f"Markdown written to {write_new_file(args.markdown, render_markdown(comparison))}")
+    if args.html:
+        print(f"HTML written to {write_new_file(args.html, render_html(comparison))}")
+    return EXIT_OK
+
+
+def _schema(args: argparse.Namespace) -> int:
+    from planrunner.record.schemas import plan_schema, record_schema
+    print(json.dumps(plan_schema() if args.which == "plan" else record_schema(), indent=2, ensure_ascii=False))
+    return EXIT_OK
+
+
+def _selfcheck(args: argparse.Namespace) -> int:
+    from planrunner.audit.verbs import check_selfcheck_report, run_selfcheck, write_new_file
+    if args.check:
+        report, intact = check_selfcheck_report(args.check)
+        print(f"{args.check}: {'hash matches' if intact else 'HASH DOES NOT MATCH: the report was changed'}; "
+              f"{report.get('passed')} passed, {report.get('failed')} failed")
+        return EXIT_OK if intact and report.get("all_passed") else EXIT_DIFFERS
+    report = run_selfcheck()
+    rows = [(c["id"], "pass" if c["passed"] else "FAIL", f"{c['expected']:.12g}",
+             "—" if c["obtained"] is None else f"{c['obtained']:.12g}", f"{c['tolerance']:.3g}", c["source"])
+            for c in report["cases"]]
+    env = report["environment"]
+    print(f"planrunner {env['planrunner']} self-check on Python {env['python']}, {env['platform']}")
+    print(_table(("case", "result", "expected", "obtained", "tolerance", "source"), rows))
+    for c in report["cases"]:
+        if c["error"]:
+            print(f"  {c['id']}: {c['error']}")
+    out = args.out or f"planrunner-selfcheck-{report['created_utc'].replace(':', '').replace('-', '')[:15]}Z.json"
+    written = write_new_file(out, json.dumps(report, sort_keys=True, indent=2, ensure_ascii=False) + "\n")
+    print(f"{report['passed']} passed, {report['failed']} failed; report written to {written} "
+          f"(report_sha256 {report['report_sha256']})")
+    return EXIT_OK if report["all_passed"] else EXIT_DIFFERS
+
+
+AUDIT_VERBS: dict[str, Callable[[argparse.Namespace], int]] = {
+    "lock": _lock, "verify": _verify, "history": _history, "compare": _compare, "schema": _schema,
+    "selfcheck": _selfcheck,
+}

@@ -1,0 +1,202 @@
+"""Command line: the only layer that prints and chooses exit codes.
+
+Exit codes (DESIGN.md §5): 0 success; 2 the plan, data or arguments are wrong; 3 verify found a
+difference; 1 an unexpected failure (with versions, and a request to report it).
+"""
+
+from __future__ import annotations
+
+import argparse
+import shutil
+import sys
+import traceback
+from typing import TYPE_CHECKING, Any, Sequence
+
+from planrunner import __version__
+from planrunner.errors import PlanrunnerError
+from planrunner.report.render import number, pvalue
+
+if TYPE_CHECKING:
+    from planrunner.execute.executors import Execution
+
+EXIT_OK, EXIT_FAILURE, EXIT_INPUT, EXIT_DIFFERS = 0, 1, 2, 3
+
+
+class _Parser(argparse.ArgumentParser):
+    def error(self, message: str) -> None:  # argparse would exit 2 with usage; keep that, but say what to do
+        self.print_usage(sys.stderr)
+        print(f"planrunner: error: {message} (see 'planrunner {self.prog.split()[-1]} --help')"
+              if " " in self.prog else f"planrunner: error: {message} (see 'planrunner --help')",
+              file=sys.stderr)
+        raise SystemExit(EXIT_INPUT)
+
+
+DATA_ROOT_HELP = ("look up the plan's data files under DIR instead of the plan's folder; "
+                  "they must resolve inside DIR")
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = _Parser(prog="planrunner", description="Run pre-specified resampling analyses from a YAML plan.")
+    parser.add_argument("--version", action="version", version=f"planrunner {__version__}")
+    verbs = parser.add_subparsers(dest="verb", required=True, metavar="COMMAND", parser_class=_Parser)
+
+    check = verbs.add_parser("check", help="validate a plan (and its data, when present) without computing")
+    check.add_argument("plan", help="path to the plan (YAML)")
+    check.add_argument("--plan-only", action="store_true", help="do not read the data files")
+    check.add_argument("--param", action="append", metavar="NAME=VALUE", help="a value for a plan parameter")
+    check.add_argument("--data-root", metavar="DIR", help=DATA_ROOT_HELP)
+
+    run = verbs.add_parser("run", help="run every analysis of a plan and write the record and reports")
+    run.add_argument("plan", help="path to the plan (YAML)")
+    run.add_argument("--out", help="folder under which the run folder is created (default: runs/ beside the plan)")
+    run.add_argument("--operator", help="who runs the analysis (default: the login name)")
+    run.add_argument("--quiet", action="store_true", help="print only the run folder (and no progress bar)")
+    add_execution_options(run)
+    run.add_argument("--data-root", metavar="DIR", help=DATA_ROOT_HELP)
+    _add_audit_run_options(run)
+    _add_audit_verbs(verbs)
+    return parser
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    args_list = list(sys.argv[1:] if argv is None else argv)
+    try:
+        args = build_parser().parse_args(args_list)
+    except SystemExit as exc:
+        return int(exc.code or 0)
+    try:
+        if args.verb == "check":
+            return _check(args)
+        if args.verb == "run":
+            return _run(args, args_list)
+        if args.verb in AUDIT_VERBS:
+            return AUDIT_VERBS[args.verb](args)
+    except PlanrunnerError as exc:
+        print(f"planrunner: {exc}", file=sys.stderr)
+        return EXIT_INPUT
+    except KeyboardInterrupt:
+        print("planrunner: interrupted; no record was written (any workers were stopped)", file=sys.stderr)
+        return 130
+    except Exception:  # an unexpected failure: show enough to report it
+        from planrunner.record.build import environment
+        env = environment()
+        print("planrunner: unexpected failure; please report it with the lines below.", file=sys.stderr)
+        print(f"planrunner {env['planrunner']}, Python {env['python']}, {env['platform']}, "
+              + ", ".join(f"{k} {v}" for k, v in env["packages"].items()), file=sys.stderr)
+        traceback.print_exc(file=sys.stderr)
+        return EXIT_FAILURE
+    return EXIT_INPUT
+
+
+def _check(args: argparse.Namespace) -> int:
+    from planrunner.pipeline.run import check_plan
+    from planrunner.plan.params import parse_assignments
+    outcome = check_plan(args.plan, with_data=not args.plan_only, params=parse_assignments(args.param),
+                         data_root=args.data_root)
+    plan = outcome.loaded.plan
+    print(f"{args.plan}: plan '{plan.plan}' is valid: {len(plan.datasets)} dataset(s), {len(plan.analyses)} analysis(es)")
+    if outcome.tables is not None:
+        for t in outcome.tables.values():
+            excluded = sum(e.rows for e in t.excluded)
+            print(f"  {t.name}: {t.file}: {t.rows_read} rows read, {t.rows_used} used, {excluded} excluded; sha256 {t.sha256}")
+            if t.ignored_columns:
+                print(f"    ignored columns: {', '.join(t.ignored_columns)}")
+        if outcome.jobs is not None:
+            from planrunner.compile.limits import estimate_run_bytes, size_text
+            print(f"  memory for the analyses: about {size_text(estimate_run_bytes(outcome.jobs))}")
+    else:
+        print("  data files not read (--plan-only)")
+    print(check_lock_summary(outcome))
+    return EXIT_OK
+
+
+def add_execution_options(verb: argparse.ArgumentParser) -> None:
+    """--workers, --executor and --scheduler (run and verify): where the work runs, never what it gives."""
+    verb.add_argument("--workers", type=int, metavar="N",
+                      help="workers (default 1: serial; more than 1 runs local processes)")
+    verb.add_argument("--executor", choices=("serial", "threads", "processes", "dask"),
+                      help="where the jobs run (default: serial, or processes with --workers N > 1; threads "
+                           "share one process, the lightest on a few cores); the numbers are the same")
+    verb.add_argument("--scheduler", metavar="ADDRESS",
+                      help="dask: address of a running scheduler (default: a local cluster on loopback)")
+
+
+def execution_of(args: argparse.Namespace) -> Execution:
+    """The executor the options ask for: serial unless --workers N > 1 or --executor says otherwise."""
+    from planrunner.execute.executors import Execution
+    executor = args.executor or ("dask" if args.scheduler else
+                                 "processes" if args.workers is not None and args.workers > 1 else "serial")
+    workers = args.workers if args.workers is not None else 1 if executor == "serial" else 2
+    return Execution(executor, workers, args.scheduler)
+
+
+class ProgressBar:
+    """Resamples done / total and the time left, on stderr; only for a terminal and long runs."""
+
+    def __init__(self, quiet: bool):
+        self._quiet = quiet
+        self._bar: Any = None
+
+    def __call__(self, done: int, total: int) -> None:
+        if self._bar is None:
+            from tqdm import tqdm
+            # a terminal that reports no size (0 × 0) would hide the bar
+            size = shutil.get_terminal_size((80, 24))
+            # disable=None: silent when stderr is not a terminal; delay: short runs show nothing
+            self._bar = tqdm(total=total, unit=" resamples", unit_scale=True, file=sys.stderr, delay=1.0,
+                             disable=True if self._quiet else None, leave=False,
+                             ncols=min(size.columns or 80, 100), nrows=size.lines or 24)
+        self._bar.update(done - self._bar.n)
+
+    def close(self) -> None:
+        if self._bar is not None:
+            self._bar.close()
+
+
+def _run(args: argparse.Namespace, argv: list[str]) -> int:
+    from planrunner.plan.params import parse_assignments
+    from planrunner.pipeline.run import run_plan
+    execution = execution_of(args)
+    bar = progress_bar(args.quiet)
+    try:
+        outcome = run_plan(args.plan, out=args.out, operator=args.operator, command=["planrunner", *argv],
+                           params=parse_assignments(args.param), lock=args.lock,
+                           refuse_deviations=args.refuse_deviations, reason=args.reason,
+                           data_root=args.data_root, execution=execution, progress=bar)
+    finally:
+        bar.close()  # before any message, so that it does not land on the bar's line
+    if not args.quiet:
+        print(summary_table(outcome.record))
+        print(audit_summary(outcome))
+    print(f"record written to {outcome.folder}")
+    return EXIT_OK
+
+
+def progress_bar(quiet: bool) -> ProgressBar:
+    """The progress hook of a run (tests replace it to inject an interrupt)."""
+    return ProgressBar(quiet)
+
+
+def summary_table(record: dict) -> str:
+    """A compact terminal table: one row per analysis."""
+    header = ("analysis", "method", "estimate", "interval", "p-value", "n", "warnings")
+    rows = [header]
+    for a in record["analyses"]:
+        first = a["intervals"][0] if a["intervals"] else None
+        interval = (f"{first['method']} {first['level'] * 100:g}%: {number(first['lower'])} to {number(first['upper'])}"
+                    if first else "")
+        n = ", ".join(f"{g} {k}" for g, k in a["n"]["groups"].items())
+        rows.append((a["id"], a["method"], number(a["estimate"]), interval,
+                     pvalue(a["p_value"]) if a["p_value"] is not None else "", n, str(len(a["warnings"]))))
+    widths = [max(len(r[i]) for r in rows) for i in range(len(header))]
+    lines = ["  ".join(cell.ljust(w) for cell, w in zip(r, widths)).rstrip() for r in rows]
+    lines.insert(1, "  ".join("-" * w for w in widths))
+    return f"{record['plan']['title']}\n" + "\n".join(lines)
+
+
+from planrunner.cli.audit import (AUDIT_VERBS, _add_audit_run_options, _add_audit_verbs, audit_summary,  # noqa: E402
+                        check_lock_summary)
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())

@@ -1,0 +1,163 @@
+"""Turn a checked plan and the tables it read into jobs: pure arrays plus everything an engine needs.
+
+After this step nothing refers to the plan or to pandas any more; a job can be sent to another
+process and gives the same numbers there.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+
+from planrunner.compile import design
+from planrunner.engines.statistics import Statistic, bind, get_statistic
+from planrunner.engines.teststats import K_GROUP
+from planrunner.engines.streams import Stream, stream_for
+from planrunner.errors import DataError
+from planrunner.data.tables import Table
+from planrunner.plan.schema import Plan
+
+
+@dataclass(frozen=True)
+class Job:
+    analysis_id: str
+    method: str
+    statistic: Statistic
+    samples: tuple[np.ndarray, ...]
+    strata: tuple[np.ndarray, ...] | None
+    group_labels: tuple[str, ...]
+    strata_labels: tuple[str, ...] | None
+    options: dict[str, Any]
+    stream: Stream
+    # the rest of the design (see `planrunner.compile.design`)
+    clusters: tuple[np.ndarray, ...] | None = None
+    paired: bool = False
+    warnings: tuple[Any, ...] = ()
+    design: dict[str, Any] = field(default_factory=dict)  # permutation designs (see compile_design)
+
+    def counts(self) -> dict[str, Any]:
+        """Observations per group and, where declared, per stratum within group."""
+        n: dict[str, Any] = {label: int(s.shape[0]) for label, s in zip(self.group_labels, self.samples)}
+        if self.strata is None or self.strata_labels is None:
+            return {"groups": n}
+        cells = {label: {self.strata_labels[k]: int(np.sum(codes == k)) for k in np.unique(codes)}
+                 for label, codes in zip(self.group_labels, self.strata)}
+        return {"groups": n, "strata": cells}
+
+
+def compile_jobs(plan: Plan, tables: dict[str, Table]) -> list[Job]:
+    return [compile_job(plan, analysis, tables[analysis.data]) for analysis in plan.analyses]
+
+
+def _options(plan: Plan, analysis: Any) -> dict[str, Any]:
+    d = plan.defaults
+    if analysis.method == "bootstrap":
+        intervals = tuple(analysis.intervals)
+        if "intervals" not in analysis.model_fields_set and (analysis.order or analysis.parametric):
+            intervals = ("percentile",)  # the default BCa is not valid for dependent or parametric draws
+        return {"resamples": analysis.resamples or d.resamples,
+                "confidence": analysis.confidence or d.confidence,
+                "intervals": intervals,
+                "studentized_se": analysis.studentized_se, "inner_resamples": analysis.inner_resamples or 50,
+                "on_degenerate": analysis.on_degenerate,
+                "blocks": None if analysis.blocks is None else (analysis.blocks.scheme, analysis.blocks.length),
+                "parametric": analysis.parametric, "trials": analysis.trials, "exhaustive": analysis.exhaustive,
+                "save_distribution": analysis.save_distribution}
+    if analysis.method == "permutation":
+        k_group = analysis.statistic in K_GROUP  # large F or H is the evidence: one-sided by construction
+        confidence = analysis.confidence or d.confidence
+        return {"resamples": analysis.resamples or d.resamples,
+                "alternative": "greater" if k_group else (analysis.alternative or d.alternative),
+                "exact": analysis.exact, "two_sided": analysis.two_sided, "alpha": round(1.0 - confidence, 12),
+                "intervals": tuple(analysis.intervals or ()), "confidence": confidence}
+    return {}
+
+
+def compile_job(plan: Plan, analysis: Any, table: Table) -> Job:
+    statistic = get_statistic(analysis.statistic)
+    if statistic.parameter is not None:
+        statistic = bind(statistic, getattr(analysis, statistic.parameter))
+    outcome = table.columns[analysis.outcome]
+    where = f"analysis '{analysis.id}'"
+    values = outcome.astype(float)
+    if statistic.outcome == "binary" and not np.isin(values, (0.0, 1.0)).all():
+        bad = table.lines[~np.isin(values, (0.0, 1.0))][:5]
+        raise DataError(f"'{analysis.statistic}' needs 0/1 outcomes but '{analysis.outcome}' has other values "
+                        f"(lines {', '.join(map(str, bad))})", where=f"{table.file}",
+                        hint="declare a boolean outcome or recode it as 0 and 1")
+    if analysis.groups is None:
+        masks = [np.ones(values.size, dtype=bool)]
+        labels: tuple[str, ...] = ("all rows",)
+    else:
+        group_column = np.array([str(v).lower() if isinstance(v, (bool, np.bool_)) else str(v)
+                                 for v in table.columns[analysis.groups.by]], dtype=object)
+        labels = tuple(analysis.groups.compare)
+        masks = [group_column == level for level in labels]
+    for label, mask in zip(labels, masks):
+        if not mask.any():
+            raise DataError(f"{where}: no rows are left in group '{label}'", where=table.file,
+                            hint=f"check groups.compare against the values of '{analysis.groups.by}'"
+                                 " and the keep filter" if analysis.groups else "check the keep filter")
+    paired = analysis.pairs is not None and analysis.method == "bootstrap"
+    if paired:
+        masks = design.pair_order(table, analysis.pairs, masks, where)  # row i of each group is pair i
+    if analysis.order is not None:
+        masks = [design.time_order(table, analysis.order, m, where) for m in masks]
+    clusters = None
+    if analysis.clusters is not None:
+        clusters, _ = design.cluster_codes(table, analysis.clusters, masks)
+    warnings = design.repeated_id_warnings(table, analysis, plan.datasets[analysis.data], masks)
+    if analysis.predictor is not None:
+        # two-column statistics take (n, 2) arrays: predictor first, outcome second
+        values = np.column_stack([table.columns[analysis.predictor].astype(float), values])
+    samples = tuple(values[m] for m in masks)
+    strata = strata_labels = None
+    if analysis.strata is not None:
+        stratum_column = np.array([str(v) for v in table.columns[analysis.strata]], dtype=object)
+        strata_labels_all, codes = np.unique(stratum_column, return_inverse=True)
+        strata_labels = tuple(str(s) for s in strata_labels_all)
+        strata = tuple(codes[m].astype(np.int64) for m in masks)
+    permutation_design: dict[str, Any] = {}
+    if analysis.method == "permutation":  # the bootstrap's design is the fields above
+        samples, permutation_design = compile_design(analysis, table, masks, samples)
+    return Job(analysis_id=analysis.id, method=analysis.method, statistic=statistic, samples=samples,
+               strata=strata, group_labels=labels, strata_labels=strata_labels,
+               options=_options(plan, analysis), stream=stream_for(plan.seed, analysis.id),
+               clusters=clusters, paired=paired, warnings=warnings, design=permutation_design)
+
+
+def compile_design(analysis: Any, table: Table, masks: list[np.ndarray],
+                   samples: tuple[np.ndarray, ...]) -> tuple[tuple[np.ndarray, ...], dict[str, Any]]:
+    """Arrays for the declared pairs, clusters and covariates (permutation designs)."""
+    design: dict[str, Any] = {}
+    if getattr(analysis, "pairs", None) is not None:
+        keys = np.array([str(v) for v in table.columns[analysis.pairs]], dtype=object)
+        aligned = []
+        per_group = [dict() for _ in masks]
+        for g, mask in enumerate(masks):
+            for key, line, value in zip(keys[mask], table.lines[mask], samples[g]):
+                if key in per_group[g]:
+                    raise DataError(f"analysis '{analysis.id}': pair '{key}' has two rows in group "
+                                    f"'{analysis.groups.compare[g]}' (line {line})", where=table.file,
+                                    hint="each pair needs exactly one row in each of the two groups")
+                per_group[g][key] = value
+        unmatched = sorted(set(per_group[0]) ^ set(per_group[1]))
+        if unmatched:
+            raise DataError(f"analysis '{analysis.id}': {len(unmatched)} pair(s) lack a row in one group "
+                            f"(first: '{unmatched[0]}')", where=table.file,
+                            hint="each pair needs exactly one row in each group; filter incomplete pairs out")
+        order = sorted(per_group[0])
+        aligned = [np.array([per_group[g][k] for k in order], dtype=float) for g in range(2)]
+        samples = tuple(aligned)
+        design["pairs"] = tuple(order)
+    if getattr(analysis, "clusters", None) is not None:
+        labels_all, codes = np.unique(np.array([str(v) for v in table.columns[analysis.clusters]], dtype=object),
+                                      return_inverse=True)
+        design["clusters"] = tuple(codes[m].astype(np.int64) for m in masks)
+        design["cluster_labels"] = tuple(str(v) for v in labels_all)
+    if getattr(analysis, "covariates", None):
+        design["covariates"] = np.column_stack([table.columns[c].astype(float) for c in analysis.covariates])
+        design["covariate_names"] = tuple(analysis.covariates)
+    return samples, design

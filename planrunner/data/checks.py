@@ -1,0 +1,156 @@
+"""What only the data reveal, checked for every analysis before any resampling.
+
+The schema and `plancheck` check the plan; `io` checks each file against its declared columns.
+This module checks the rows each analysis will use: every compared group is present and not
+emptied by the filter, each group has enough rows for the method, the outcome varies, every
+stratum holds rows of both groups, pairs are complete and clusters stay within one group. Each
+problem is one `DataError` naming the analysis, the file, the column, the lines and what to do,
+so that `planrunner check` finds it before a long run does.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+import numpy as np
+
+from planrunner.engines.statistics import STATISTICS
+from planrunner.errors import DataError
+from planrunner.data.tables import SHOW_LINES, Table, group_value
+from planrunner.plan.schema import Plan
+
+# The fewest rows per group each method is given. One row cannot vary under any resampling;
+# a statistic of two columns (a correlation) is fixed at ±1 by two rows, so it needs three.
+MIN_ROWS = 2
+MIN_ROWS_TWO_COLUMNS = 3
+METHOD_WORDS = {"bootstrap": "the bootstrap", "jackknife": "the jackknife", "permutation": "a permutation test"}
+
+
+def check_tables(plan: Plan, tables: dict[str, Table]) -> None:
+    """Raise the first data problem of any analysis (analyses in plan order)."""
+    for analysis in plan.analyses:
+        check_analysis(analysis, tables[analysis.data])
+
+
+def _lines(lines: np.ndarray) -> str:
+    shown = ", ".join(str(int(n)) for n in lines[:SHOW_LINES])
+    return shown + (f" and {lines.size - SHOW_LINES} more" if lines.size > SHOW_LINES else "")
+
+
+def _excluded(table: Table) -> str:
+    if not table.excluded:
+        return "no rows were excluded"
+    return "excluded: " + "; ".join(f"{e.rows} row(s) for {e.reason}" for e in table.excluded)
+
+
+def check_analysis(analysis: Any, table: Table) -> None:
+    where = table.file
+    who = f"analysis '{analysis.id}'"
+    statistic = STATISTICS.get(analysis.statistic)
+    two_columns = statistic is not None and statistic.columns == 2
+    if analysis.groups is None:
+        labels: tuple[str, ...] = ("all rows",)
+        masks = [np.ones(table.rows_used, dtype=bool)]
+    else:
+        by = analysis.groups.by
+        column = np.array([group_value(v) for v in table.columns[by]], dtype=object)
+        labels = tuple(analysis.groups.compare)
+        masks = [column == level for level in labels]
+        for level, mask in zip(labels, masks):
+            if mask.any():
+                continue
+            present = table.values_read.get(by, ())
+            if level not in present:
+                listed = ", ".join(present[:10]) + (" ..." if len(present) > 10 else "")
+                raise DataError(f"{who}: group '{level}' does not occur in column '{by}' "
+                                f"(values in the file: {listed})", where=where,
+                                hint=f"check groups.compare against the file (spelling, case), or use the "
+                                     f"extract that holds group '{level}'")
+            raise DataError(f"{who}: no rows of group '{level}' (column '{by}') are left; {_excluded(table)}",
+                            where=where, hint="check the keep filter and the missing-value handling")
+    minimum = MIN_ROWS_TWO_COLUMNS if two_columns else MIN_ROWS
+    for label, mask in zip(labels, masks):
+        count = int(mask.sum())
+        if count == 0:
+            raise DataError(f"{who}: no rows are left; {_excluded(table)}", where=where,
+                            hint="check the keep filter and the missing-value handling")
+        if count < minimum:
+            group = f"group '{label}' has" if analysis.groups else "it has"
+            raise DataError(f"{who}: {group} {count} row(s) (line(s) {_lines(table.lines[mask])}); "
+                            f"{METHOD_WORDS.get(analysis.method, analysis.method)} needs at least {minimum}"
+                            f"{' per group' if analysis.groups else ''}", where=where,
+                            hint="use more data, or relax the keep filter")
+    used = np.logical_or.reduce(masks)
+    binary = statistic is not None and statistic.outcome == "binary"
+    for role, name in (("outcome", analysis.outcome), ("predictor", analysis.predictor)):
+        # a 0/1 outcome that is all 0 is a finding (no events), not a broken extract
+        if name is None or (binary and role == "outcome"):
+            continue
+        values = np.asarray(table.columns[name][used], dtype=float)
+        if values.size and np.all(values == values[0]):
+            raise DataError(f"{who}: every one of the {values.size} values of the {role} '{name}' it uses is "
+                            f"{values[0]:g} (lines {_lines(table.lines[used])}); resampling cannot vary a "
+                            "constant", where=where,
+                            hint=f"check that the file is the right extract and '{name}' the right column")
+    if analysis.groups is not None and analysis.strata is not None:
+        _check_strata(analysis, table, labels, masks, who)
+    if analysis.groups is not None and getattr(analysis, "pairs", None) is not None:
+        _check_pairs(analysis, table, labels, masks, who)
+    if analysis.groups is not None and getattr(analysis, "clusters", None) is not None:
+        _check_clusters(analysis, table, labels, masks, who)
+
+
+def _check_strata(analysis: Any, table: Table, labels: tuple[str, ...], masks: list[np.ndarray], who: str) -> None:
+    """Every stratum used must hold rows of every compared group: a stratum seen in one group only
+    cannot be compared within (permutation) and distorts a stratified bootstrap comparison."""
+    name = analysis.strata
+    strata = np.array([group_value(v) for v in table.columns[name]], dtype=object)
+    used = np.logical_or.reduce(masks)
+    for stratum in sorted(set(strata[used])):
+        for label, mask in zip(labels, masks):
+            if not np.any(mask & (strata == stratum)):
+                others = used & (strata == stratum)
+                raise DataError(f"{who}: stratum '{stratum}' (column '{name}') has no rows in group '{label}'; "
+                                f"its rows are on line(s) {_lines(table.lines[others])}", where=table.file,
+                                hint="exclude that stratum with the keep filter, merge it with another, "
+                                     "or check the file")
+
+
+def _check_pairs(analysis: Any, table: Table, labels: tuple[str, ...], masks: list[np.ndarray], who: str) -> None:
+    """A pair is one unit measured once under each of the two groups."""
+    name = analysis.pairs
+    pairs = np.array([group_value(v) for v in table.columns[name]], dtype=object)
+    used = np.logical_or.reduce(masks)
+    for pair in sorted(set(pairs[used])):
+        for label, mask in zip(labels, masks):
+            rows = mask & (pairs == pair)
+            count = int(rows.sum())
+            if count == 1:
+                continue
+            if count == 0:
+                elsewhere = table.lines[used & (pairs == pair)]
+                problem = f"has no row in group '{label}' (its row(s): line(s) {_lines(elsewhere)})"
+            else:
+                problem = f"has {count} rows in group '{label}' (line(s) {_lines(table.lines[rows])})"
+            raise DataError(f"{who}: pair '{pair}' (column '{name}') {problem}", where=table.file,
+                            hint="every pair needs exactly one row in each group: fix the file, or exclude "
+                                 "incomplete pairs with the keep filter (a deviation to document)")
+
+
+def _check_clusters(analysis: Any, table: Table, labels: tuple[str, ...], masks: list[np.ndarray],
+                    who: str) -> None:
+    """A cluster is one randomised or sampled unit, so all its rows belong to one group."""
+    name = analysis.clusters
+    clusters = np.array([group_value(v) for v in table.columns[name]], dtype=object)
+    seen: dict[str, str] = {}
+    for label, mask in zip(labels, masks):
+        for cluster in sorted(set(clusters[mask])):
+            if cluster in seen:
+                first = masks[labels.index(seen[cluster])] & (clusters == cluster)
+                here = mask & (clusters == cluster)
+                raise DataError(f"{who}: cluster '{cluster}' (column '{name}') has rows in group '{seen[cluster]}' "
+                                f"(line(s) {_lines(table.lines[first])}) and in group '{label}' "
+                                f"(line(s) {_lines(table.lines[here])})", where=table.file,
+                                hint="a cluster must lie within one group: fix the group or the cluster "
+                                     "labels in the file")
+            seen[cluster] = label

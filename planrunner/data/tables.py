@@ -1,0 +1,317 @@
+"""Reading data files into typed columns, exactly as the plan declares them.
+
+Everything here names the file and the line of a problem: a reader of the message should be able
+to open the file at that line. Line numbers count the header as line 1 (the first data row is line 2).
+"""
+
+from __future__ import annotations
+
+import csv
+import hashlib
+import io
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Mapping
+
+import numpy as np
+import pandas as pd
+
+from planrunner.errors import DataError, ExpressionError
+from planrunner.plan.expr import parse_expression
+from planrunner.plan.schema import Column, Dataset
+
+TRUE_WORDS = {"true", "yes", "1"}
+FALSE_WORDS = {"false", "no", "0"}
+SHOW_LINES = 5  # how many offending lines a message lists
+GROUPING_TYPES = ("category", "boolean", "integer", "text")
+
+
+@dataclass(frozen=True)
+class Exclusion:
+    reason: str
+    rows: int
+    lines: tuple[int, ...]  # file lines of the first few excluded rows
+
+
+@dataclass(frozen=True)
+class Table:
+    """A dataset as read: typed columns of the rows kept, and how we got there."""
+
+    name: str
+    file: str  # as written in the plan
+    path: Path  # resolved
+    sha256: str
+    bytes: int
+    rows_read: int
+    excluded: tuple[Exclusion, ...]
+    columns: Mapping[str, np.ndarray]
+    lines: np.ndarray  # file line of each kept row
+    ignored_columns: tuple[str, ...] = ()  # header columns the plan does not declare
+    # distinct values (as groups.compare names them) of each grouping-type column over every row
+    # read, before missing values and the keep filter: tells "absent from the file" apart from
+    # "removed by the filter"
+    values_read: Mapping[str, tuple[str, ...]] = field(default_factory=dict)
+
+    @property
+    def rows_used(self) -> int:
+        return int(self.lines.size)
+
+
+def resolve_data_path(plan_folder: Path, file: str, *, data_root: Path | None = None) -> Path:
+    """The data file's real path, refused when it leaves its root (symlinks resolved).
+
+    The root is the plan's folder, or `data_root` when the command line names one
+    (`--data-root DIR`): then the plan's relative paths are looked up under DIR instead, so a plan
+    written beside its data runs unchanged against a locked data folder elsewhere.
+    """
+    base = plan_folder if data_root is None else Path(data_root)
+    if data_root is not None and not base.is_dir():
+        raise DataError("the data root is not a folder", where=str(data_root),
+                        hint="name an existing folder with --data-root")
+    root = base.resolve()
+    path = (base / file).resolve()
+    if not path.is_relative_to(root):
+        allowed = "the plan's folder" if data_root is None else "the data root"
+        raise DataError(f"data file '{file}' resolves to {path}, outside {allowed} {root}",
+                        where=file, hint="keep data inside the plan's folder, or name the folder that holds "
+                                         "it with --data-root DIR" if data_root is None else
+                                         "keep data inside the data root")
+    return path
+
+
+def file_sha256(path: Path) -> tuple[str, int]:
+    digest = hashlib.sha256()
+    size = 0
+    with path.open("rb") as handle:
+        for chunk in iter(lambda: handle.read(1 << 20), b""):
+            digest.update(chunk)
+            size += len(chunk)
+    return digest.hexdigest(), size
+
+
+def _lines(mask: np.ndarray, line_of: np.ndarray) -> list[int]:
+    return [int(n) for n in line_of[np.flatnonzero(mask)[:SHOW_LINES]]]
+
+
+def _list(lines: list[int], total: int) -> str:
+    text = ", ".join(str(n) for n in lines)
+    return text + (f" and {total - len(lines)} more" if total > len(lines) else "")
+
+
+def read_table(name: str, spec: Dataset, plan_folder: Path, *, data_root: Path | None = None) -> Table:
+    """Read one dataset: hash it, check its columns and types, handle missing values, filter rows."""
+    path = resolve_data_path(plan_folder, spec.file, data_root=data_root)
+    shown = spec.file
+    if path.is_dir():
+        raise DataError("this is a folder, not a data file", where=shown,
+                        hint=f"name the CSV or TSV file inside it in datasets.{name}.file")
+    if path.exists() and not path.is_file():
+        raise DataError("this is not a regular file (a device or a pipe?)", where=shown,
+                        hint=f"name a CSV or TSV file in datasets.{name}.file")
+    if not path.is_file():
+        raise DataError("data file not found", where=shown,
+                        hint=f"the plan expects it at {path}; check datasets.{name}.file")
+    # hash the very bytes that are parsed: a file changing between two reads cannot slip past a pin
+    data = path.read_bytes()
+    sha, size = hashlib.sha256(data).hexdigest(), len(data)
+    if spec.sha256 is not None and spec.sha256 != sha:
+        raise DataError(f"the file has changed: its sha256 is {sha}, the plan pins {spec.sha256}",
+                        where=shown, hint="use the file the plan was written for, or update the pin "
+                                          "(a deviation to document)")
+    fmt = spec.format or ("tsv" if path.suffix.lower() in (".tsv", ".tab") else "csv")
+    header, rows, line_of = _read_rows(data, fmt, shown)
+    index = _column_index(header, spec, name, fmt, shown)
+    raw = {c: np.array([row[index[c]].strip() for row in rows], dtype=object) for c in spec.columns}
+    ignored = tuple(h or f"(unnamed column {i + 1})" for i, h in enumerate(header) if h not in spec.columns)
+    rows_read = len(rows)
+    if rows_read == 0:
+        raise DataError("the file has a header but no data rows", where=shown,
+                        hint="check that the extract is complete")
+    keep = np.ones(rows_read, dtype=bool)
+    excluded: list[Exclusion] = []
+
+    markers = set(spec.missing_values)
+    values_read = {c: _distinct(raw[c], spec.columns[c].type, markers) for c in spec.columns
+                   if spec.columns[c].type in GROUPING_TYPES}
+    for column in spec.columns:
+        missing = np.isin(raw[column], list(markers)) & keep if markers else np.zeros(rows_read, bool)
+        if missing.any():
+            count = int(missing.sum())
+            if spec.missing == "refuse":
+                raise DataError(f"column '{column}' has {count} missing value(s) on line(s) "
+                                f"{_list(_lines(missing, line_of), count)}", where=shown,
+                                hint=f"fill them in, or set datasets.{name}.missing: drop to exclude those rows")
+            excluded.append(Exclusion(f"missing value in '{column}'", count, tuple(_lines(missing, line_of))))
+            keep &= ~missing
+
+    columns = {c: _convert(raw[c], keep, c, spec.columns[c], shown, line_of) for c in spec.columns}
+    if spec.keep is not None:
+        try:
+            kept = parse_expression(spec.keep).evaluate({c: v[keep] for c, v in columns.items()})
+        except ExpressionError as exc:
+            raise DataError(f"the keep filter cannot be applied: {exc.message}", where=f"datasets.{name}.keep",
+                            hint=exc.hint) from None
+        dropped = np.zeros(rows_read, dtype=bool)
+        dropped[np.flatnonzero(keep)[~kept]] = True
+        if dropped.any():
+            excluded.append(Exclusion(f"keep: {spec.keep}", int(dropped.sum()), tuple(_lines(dropped, line_of))))
+        keep &= ~dropped
+    return Table(name=name, file=shown, path=path, sha256=sha, bytes=size, rows_read=rows_read,
+                 excluded=tuple(excluded), columns={c: v[keep] for c, v in columns.items()},
+                 lines=line_of[keep], ignored_columns=ignored, values_read=values_read)
+
+
+def _distinct(values: np.ndarray, kind: str, markers: set[str]) -> tuple[str, ...]:
+    """Distinct values of a column as groups.compare names them, over every row read."""
+    out: set[str] = set()
+    for text in set(values.tolist()) - markers:
+        if kind == "boolean" and text.lower() in TRUE_WORDS | FALSE_WORDS:
+            out.add("true" if text.lower() in TRUE_WORDS else "false")
+        elif kind == "integer":
+            try:
+                out.add(str(int(float(text))))
+            except (ValueError, OverflowError):
+                out.add(text)
+        else:
+            out.add(text)
+    return tuple(sorted(out))
+
+
+def group_value(value: object) -> str:
+    """A column value as groups.compare and strata name it (booleans as true/false)."""
+    return str(value).lower() if isinstance(value, (bool, np.bool_)) else str(value)
+
+
+def _read_rows(data: bytes, fmt: str, shown: str) -> tuple[list[str], list[list[str]], np.ndarray]:
+    """Header, rows and the file line where each row starts.
+
+    Read with the csv module rather than pandas so that every row keeps its true line number
+    (blank lines and quoted line breaks would otherwise shift them), and so that a row with too
+    few fields is an error instead of being padded with empty values.
+    """
+    if not data.strip():
+        raise DataError("the file is empty", where=shown, hint="a header line and data rows are expected")
+    try:
+        text = data.decode("utf-8")
+    except UnicodeDecodeError as exc:
+        line = data.count(b"\n", 0, exc.start) + 1
+        utf16 = data[:2] in (b"\xff\xfe", b"\xfe\xff")
+        raise DataError(f"line {line}: the file is not UTF-8 text (byte 0x{data[exc.start]:02x} at offset "
+                        f"{exc.start}{'; it looks like UTF-16' if utf16 else ''})", where=shown,
+                        hint="save the file as UTF-8 ('CSV UTF-8' in most spreadsheet programs)") from None
+    text = text.removeprefix("\ufeff")  # a byte-order mark written by some spreadsheet programs
+    delimiter = "\t" if fmt == "tsv" else ","
+    reader = csv.reader(io.StringIO(text, newline=""), delimiter=delimiter, strict=True)
+    if '"' not in text:
+        # No quotes, so no record spans lines: record i is line i + 1 and the whole file can be
+        # read in one call (several times faster than asking the reader for each line number).
+        numbered = [(i + 1, r) for i, r in enumerate(reader) if r]
+    else:
+        numbered = []
+        end = 0
+        try:
+            for record in reader:
+                start, end = end + 1, reader.line_num
+                if record:
+                    numbered.append((start, record))
+        except csv.Error as exc:
+            raise DataError(f"line {end + 1}: cannot be read as {fmt.upper()}: {exc}", where=shown,
+                            hint="check the quotes on that line (a quote opened and never closed?)") from None
+    if not numbered:
+        raise DataError("the file is empty", where=shown, hint="a header line and data rows are expected")
+    header_line, first = numbered[0]
+    header = [h.strip() for h in first]
+    rows = [r for _, r in numbered[1:]]
+    width = len(header)
+    for line, record in numbered[1:]:
+        if len(record) != width:
+            raise DataError(f"line {line} has {len(record)} field(s) but the header (line {header_line}) has "
+                            f"{width}", where=shown,
+                            hint="check the delimiter and the quotes on that line: every row needs one "
+                                 "value per column")
+    return header, rows, np.array([line for line, _ in numbered[1:]], dtype=np.int64)
+
+
+_OTHER_DELIMITERS = {";": "semicolons", "\t": "tabs", ",": "commas", "|": "bars"}
+
+
+def _column_index(header: list[str], spec: Dataset, name: str, fmt: str, shown: str) -> dict[str, int]:
+    """Where each declared column is in the header; refuses missing, repeated or (if asked) extra columns."""
+    absent = [c for c in spec.columns if c not in header]
+    if absent:
+        used = "\t" if fmt == "tsv" else ","
+        seen = [d for d in _OTHER_DELIMITERS if d != used and any(d in h for h in header)]
+        if seen and len(header) < len(spec.columns):
+            raise DataError(f"the header has {len(header)} column(s) and seems to be separated by "
+                            f"{_OTHER_DELIMITERS[seen[0]]}, but the plan reads this file as {fmt.upper()} "
+                            f"(separated by {_OTHER_DELIMITERS[used]})", where=f"{shown}:1",
+                            hint="save the file with the plan's delimiter, or set "
+                                 f"datasets.{name}.format (csv: commas, tsv: tabs)")
+        raise DataError(f"declared column(s) missing from the header: {', '.join(absent)}",
+                        where=f"{shown}:1", hint=f"the header has: {', '.join(header)}; "
+                                                 f"check the spelling in datasets.{name}.columns")
+    for c in spec.columns:
+        places = [i + 1 for i, h in enumerate(header) if h == c]
+        if len(places) > 1:
+            raise DataError(f"column '{c}' appears {len(places)} times in the header (columns "
+                            f"{', '.join(map(str, places))})", where=f"{shown}:1",
+                            hint="rename or remove the repeated columns so that the plan names one of them")
+    extra = [h or f"(unnamed column {i + 1})" for i, h in enumerate(header) if h not in spec.columns]
+    if extra and spec.undeclared_columns == "refuse":
+        raise DataError(f"column(s) not declared in the plan: {', '.join(extra)}", where=f"{shown}:1",
+                        hint=f"declare them in datasets.{name}.columns, remove them from the file, or set "
+                             f"datasets.{name}.undeclared_columns: ignore")
+    return {c: header.index(c) for c in spec.columns}
+
+
+def _convert(values: np.ndarray, keep: np.ndarray, name: str, spec: Column, shown: str,
+             line_of: np.ndarray) -> np.ndarray:
+    """Typed array for one column; rows not kept get a neutral filler and are never used."""
+    kind = spec.type
+
+    def refuse(bad: np.ndarray, what: str, hint: str) -> DataError:
+        count = int(bad.sum())
+        first = str(values[np.flatnonzero(bad)[0]])
+        if not first.isprintable():  # a control character would garble the terminal
+            first = first.encode("unicode_escape").decode("ascii")
+        return DataError(f"column '{name}' ({kind}): {count} value(s) {what}, e.g. '{first}' on line(s) "
+                         f"{_list(_lines(bad, line_of), count)}", where=shown, hint=hint)
+
+    if kind in ("number", "integer"):
+        text = np.where(keep, values, "0")
+        numbers = pd.to_numeric(pd.Series(text), errors="coerce").to_numpy(dtype=float)
+        bad = ~np.isfinite(numbers) & keep
+        if bad.any():
+            raise refuse(bad, "are not finite numbers", "fix the values, declare the missing-value "
+                         "markers (missing_values), or declare the column as text")
+        if kind == "integer":
+            bad = (numbers != np.round(numbers)) & keep
+            if bad.any():
+                raise refuse(bad, "are not whole numbers", "declare the column as number")
+        for bound, outside in (("min", numbers < (spec.min if spec.min is not None else -np.inf)),
+                               ("max", numbers > (spec.max if spec.max is not None else np.inf))):
+            if (outside & keep).any():
+                raise refuse(outside & keep, f"are outside the declared {bound} "
+                             f"{getattr(spec, bound):g}", "check the file, or the declared range")
+        return numbers.astype(np.int64) if kind == "integer" else numbers
+    if kind == "boolean":
+        lowered = np.array([str(v).lower() for v in values], dtype=object)
+        truth = np.isin(lowered, list(TRUE_WORDS))
+        bad = ~(truth | np.isin(lowered, list(FALSE_WORDS))) & keep
+        if bad.any():
+            raise refuse(bad, "are not true/false", "use true/false, yes/no or 1/0")
+        return truth
+    if kind == "date":
+        text = np.where(keep, values, "1970-01-01")
+        dates = pd.to_datetime(pd.Series(text), format="%Y-%m-%d", errors="coerce")
+        bad = dates.isna().to_numpy() & keep
+        if bad.any():
+            raise refuse(bad, "are not dates of the form YYYY-MM-DD", "write dates as 2026-11-30")
+        return dates.to_numpy().astype("datetime64[D]")
+    # category and text
+    if spec.levels is not None:
+        bad = ~np.isin(values, spec.levels) & keep
+        if bad.any():
+            raise refuse(bad, "are not among the declared levels " + ", ".join(spec.levels),
+                         "add the level to the plan, or fix the file")
+    return values

@@ -1,0 +1,297 @@
+"""Run jobs through the engines: serially, on local processes, or on a dask.distributed cluster.
+
+The numbers never depend on how jobs are run, because every random draw comes from the job's own
+stream (see `engines.streams`) and resample r depends only on row r of it. Work is split two ways:
+jobs without resamples (the jackknife) go whole to a worker, and the resamples of a bootstrap or a
+Monte Carlo permutation test are cut into ranges of equal size (`engines.blocks`) that the
+workers compute and the calling process concatenates in order. The engine's own summary (sorting,
+intervals, counts) runs in the calling process.
+"""
+
+from __future__ import annotations
+
+import copyreg
+import math
+import multiprocessing
+import signal
+from collections.abc import Callable
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+
+from planrunner.compile.jobs import Job
+from planrunner.engines.blocks import RangeTask, mapping_ranges, resample_ranges
+from planrunner.engines.bootstrap import bootstrap
+from planrunner.engines.jackknife import jackknife
+from planrunner.engines.statistics import STATISTICS, Statistic, bind, get_statistic
+from planrunner.engines.streams import DRAW_BLOCK
+from planrunner.errors import EngineError, PlanrunnerError
+from planrunner.execute.permutation import run_permutation
+
+EXECUTORS = ("serial", "threads", "processes", "dask")
+# (resamples done, resamples in total) after every finished range and job
+Progress = Callable[[int, int], None]
+RANGES_PER_WORKER = 4  # a few ranges per worker keep them busy while one finishes early
+SERIAL_RANGE = 5  # draw blocks per progress step in a serial run
+SCHEDULER_TIMEOUT = 30.0  # seconds to reach a dask scheduler before giving up
+
+
+class ExecutorError(PlanrunnerError):
+    """The chosen executor cannot run (a missing optional package, an unreachable scheduler)."""
+
+
+@dataclass(frozen=True)
+class Execution:
+    """How jobs are run. Informational in the record: it never changes a number."""
+
+    executor: str = "serial"
+    workers: int = 1
+    scheduler: str | None = None  # dask: address of a running scheduler; None starts a local cluster
+    local_processes: bool = True  # dask local cluster: worker processes (False: threads, for tests)
+
+    def __post_init__(self) -> None:
+        if self.executor not in EXECUTORS:
+            raise ExecutorError(f"unknown executor {self.executor!r}", hint=f"use one of {', '.join(EXECUTORS)}")
+        if self.workers < 1:
+            raise ExecutorError(f"the number of workers must be at least 1, got {self.workers}")
+        if self.executor == "serial" and self.workers != 1:
+            raise ExecutorError("the serial executor runs one worker",
+                                hint="use --executor threads, processes or dask with --workers")
+        if self.scheduler is not None and self.executor != "dask":
+            raise ExecutorError("a scheduler address is only used by the dask executor",
+                                hint="add --executor dask")
+
+    def describe(self) -> dict[str, Any]:
+        return {"executor": self.executor, "workers": self.workers, "scheduler": self.scheduler}
+
+
+def _bound_statistic(name: str, value: float) -> Statistic:
+    return bind(get_statistic(name), value)
+
+
+def _reduce_statistic(statistic: Statistic) -> tuple:
+    """Registered statistics travel to workers by name, and those with a parameter (a quantile's
+    level) by name and value: their functions are closures, which cannot be pickled."""
+    registered = STATISTICS.get(statistic.name)
+    if registered is statistic:
+        return get_statistic, (statistic.name,)
+    if registered is not None and registered.parameter is not None and statistic.value is not None:
+        return _bound_statistic, (statistic.name, statistic.value)
+    return object.__reduce_ex__(statistic, 4)  # by value, whatever fields it has
+
+
+copyreg.pickle(Statistic, _reduce_statistic)
+
+
+def execute(job: Job) -> Any:
+    """The engine result for one job (a frozen dataclass of numbers). An engine knows only arrays,
+    so its errors are given the analysis id here, where the reader can find it in the plan."""
+    try:
+        return _run_engine(job)
+    except EngineError as exc:
+        raise EngineError(f"{exc.message}", where=f"analysis '{job.analysis_id}'", hint=exc.hint) from None
+
+
+def _run_engine(job: Job) -> Any:
+    o = job.options
+    if job.method == "bootstrap":
+        return bootstrap(job.samples, job.statistic, resamples=o["resamples"], confidence=o["confidence"],
+                         intervals=o["intervals"], stream=job.stream, strata=job.strata,
+                         clusters=job.clusters, paired=job.paired, blocks=o.get("blocks"),
+                         parametric=o.get("parametric"), trials=o.get("trials"),
+                         exhaustive=o.get("exhaustive", False), studentized_se=o.get("studentized_se"),
+                         inner_resamples=o.get("inner_resamples", 50),
+                         on_degenerate=o.get("on_degenerate", "estimate-only"))
+    if job.method == "permutation":
+        return run_permutation(job)
+    if job.method == "jackknife":
+        return jackknife(job.samples, job.statistic, clusters=job.clusters)
+    raise ValueError(f"no engine for method {job.method!r}")  # the schema makes this unreachable
+
+
+def job_resamples(job: Job) -> int:
+    """The resamples a job draws (its share of the progress total); the jackknife draws none."""
+    return int(job.options.get("resamples", 0)) if job.method in ("bootstrap", "permutation") else 0
+
+
+class _Tally:
+    """Counts finished resamples and reports them; a job's unreported rest is added when it ends
+    (an exact permutation test enumerates instead of drawing its ranges)."""
+
+    def __init__(self, jobs: list[Job], progress: Progress | None):
+        self.total = sum(job_resamples(job) for job in jobs)
+        self.done = 0
+        self.progress = progress
+        if progress is not None:
+            progress(0, self.total)
+
+    def add(self, count: int) -> None:
+        self.done += count
+        if self.progress is not None:
+            # an engine that draws more than its job's resamples (e.g. nested resampling) never
+            # shows more than the total
+            self.progress(min(self.done, self.total), self.total)
+
+
+def execute_all(jobs: list[Job], *, execution: Execution | None = None,
+                progress: Progress | None = None) -> list[Any]:
+    """The results of every job, in job order. ``progress`` is called as ranges and jobs finish;
+    an exception it raises (KeyboardInterrupt included) stops the run and the workers."""
+    execution = execution or Execution()
+    tally = _Tally(jobs, progress)
+    if execution.executor == "serial":
+        return _serial(jobs, tally)
+    if execution.executor == "threads":
+        return _on_threads(jobs, execution, tally)
+    if execution.executor == "processes":
+        return _on_processes(jobs, execution, tally)
+    return _on_dask(jobs, execution, tally)
+
+
+def _run_jobs(jobs: list[Job], tally: _Tally, mapper: Callable[[RangeTask, int], list[np.ndarray]] | None,
+              whole: dict[int, Callable[[], Any]]) -> list[Any]:
+    """Run the jobs not in ``whole`` here with ``mapper`` spreading their ranges; then collect
+    ``whole`` (jobs already sent to workers) through their getters."""
+    results: list[Any] = [None] * len(jobs)
+    for i, job in enumerate(jobs):
+        if i in whole:
+            continue
+        before = tally.done
+        with mapping_ranges(mapper):
+            results[i] = execute(job)
+        tally.add(max(0, job_resamples(job) - (tally.done - before)))
+    for i, get in whole.items():
+        results[i] = get()
+    return results
+
+
+def _serial(jobs: list[Job], tally: _Tally) -> list[Any]:
+    if tally.progress is None:
+        return _run_jobs(jobs, tally, None, {})
+
+    def mapper(task: RangeTask, total: int) -> list[np.ndarray]:
+        parts = []
+        for start, stop in resample_ranges(total, math.ceil(total / (SERIAL_RANGE * DRAW_BLOCK))):
+            parts.append(task(start, stop))
+            tally.add(stop - start)
+        return parts
+
+    return _run_jobs(jobs, tally, mapper, {})
+
+
+def _ignore_interrupts() -> None:
+    # Ctrl-C reaches the whole process group; the parent alone handles it and stops the workers
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+
+
+def _call_range(task: RangeTask, start: int, stop: int) -> np.ndarray:
+    return task(start, stop)
+
+
+def _execute_caught(job: Job) -> tuple[Any, tuple | None]:
+    """``execute`` in a worker, with a planrunner error sent back whole (pickling an exception
+    keeps only its message, not where it happened or what to do)."""
+    try:
+        return execute(job), None
+    except PlanrunnerError as exc:
+        return None, (type(exc), exc.message, exc.where, exc.hint)
+
+
+def _result_of(outcome: tuple[Any, tuple | None]) -> Any:
+    result, error = outcome
+    if error is not None:
+        kind, message, where, hint = error
+        raise kind(message, where=where, hint=hint)
+    return result
+
+
+def _spreading(submit: Callable[[RangeTask, int, int], Any], result: Callable[[Any], np.ndarray], workers: int,
+               tally: _Tally) -> Callable[[RangeTask, int], list[np.ndarray]]:
+    """A range mapper that hands a few equal ranges per worker to ``submit`` at once, then collects
+    them in order with ``result``, counting each finished range for the progress bar."""
+    def mapper(task: RangeTask, total: int) -> list[np.ndarray]:
+        ranges = resample_ranges(total, RANGES_PER_WORKER * workers)
+        waiting = [submit(task, start, stop) for start, stop in ranges]
+        parts = []
+        for (start, stop), pending in zip(ranges, waiting):
+            parts.append(result(pending))
+            tally.add(stop - start)
+        return parts
+
+    return mapper
+
+
+def _on_threads(jobs: list[Job], execution: Execution, tally: _Tally) -> list[Any]:
+    """Resample ranges on threads of this process: numpy releases the interpreter lock while it
+    draws, gathers and reduces, so on a few cores this costs neither start-up nor copying."""
+    from concurrent.futures import ThreadPoolExecutor
+
+    pool = ThreadPoolExecutor(max_workers=execution.workers, thread_name_prefix="planrunner")
+    try:
+        mapper = _spreading(lambda task, start, stop: pool.submit(task, start, stop), lambda f: f.result(),
+                            execution.workers, tally)
+        return _run_jobs(jobs, tally, mapper, {})
+    finally:
+        # after an error or an interrupt: queued ranges are dropped, running ones end with their range
+        pool.shutdown(wait=True, cancel_futures=True)
+
+
+def _on_processes(jobs: list[Job], execution: Execution, tally: _Tally) -> list[Any]:
+    # spawn: a clean interpreter per worker (forking a process that holds threads is unsafe)
+    pool = multiprocessing.get_context("spawn").Pool(execution.workers, initializer=_ignore_interrupts)
+    try:
+        pending = {i: pool.apply_async(_execute_caught, (job,)) for i, job in enumerate(jobs)
+                   if job.method == "jackknife"}
+
+        mapper = _spreading(lambda task, start, stop: pool.apply_async(_call_range, (task, start, stop)),
+                            lambda r: r.get(), execution.workers, tally)
+
+        results = _run_jobs(jobs, tally, mapper, {i: (lambda r=r: _result_of(r.get())) for i, r in pending.items()})
+        pool.close()
+        pool.join()
+        return results
+    finally:
+        pool.terminate()  # after an error or an interrupt: no worker outlives the run
+
+
+def _on_dask(jobs: list[Job], execution: Execution, tally: _Tally) -> list[Any]:
+    try:
+        from distributed import Client, LocalCluster
+    except ImportError:
+        raise ExecutorError("the dask executor needs the optional packages dask and distributed",
+                            hint="install them with: pip install 'planrunner[dask]'") from None
+    cluster = None
+    try:
+        if execution.scheduler is None:
+            # worker processes listen on loopback only, threads talk in-process; no dashboard:
+            # a local cluster opens nothing to the network
+            network = {"host": "127.0.0.1"} if execution.local_processes else {}
+            cluster = LocalCluster(n_workers=execution.workers, threads_per_worker=1,
+                                   processes=execution.local_processes, dashboard_address=None, **network)
+            client = Client(cluster)
+        else:
+            client = Client(execution.scheduler, timeout=SCHEDULER_TIMEOUT)
+    except (OSError, TimeoutError) as exc:
+        if cluster is not None:
+            cluster.close()
+        raise ExecutorError(f"cannot reach the dask scheduler {execution.scheduler or 'local cluster'}: {exc}",
+                            hint="check the address (e.g. tcp://host:8786) and that the scheduler runs") from None
+    futures: list[Any] = []
+    try:
+        pending = {i: client.submit(_execute_caught, job, pure=False) for i, job in enumerate(jobs)
+                   if job.method == "jackknife"}
+        futures.extend(pending.values())
+
+        def submit(task: RangeTask, start: int, stop: int) -> Any:
+            futures.append(client.submit(_call_range, task, start, stop, pure=False))
+            return futures[-1]
+
+        mapper = _spreading(submit, lambda f: f.result(), execution.workers, tally)
+
+        return _run_jobs(jobs, tally, mapper, {i: (lambda f=f: _result_of(f.result())) for i, f in pending.items()})
+    finally:
+        client.cancel([f for f in futures if not f.done()])
+        client.close()
+        if cluster is not None:
+            cluster.close()

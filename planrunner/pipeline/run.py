@@ -1,0 +1,266 @@
+"""The one place that orchestrates a run: plan → tables → jobs → results → record → files.
+
+Data flow goes one way. Files are touched only here and in `io` (reading data). A run writes into
+a staging folder and renames it into place when every file is complete, so a folder with the run's
+name always holds a complete record and both reports; an existing folder is never reused.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import errno
+import getpass
+import hashlib
+import os
+import secrets
+import shutil
+from dataclasses import dataclass, field, replace
+from pathlib import Path
+from typing import Callable
+
+from planrunner.compile import limits
+
+from planrunner.report import render as report
+from planrunner.record.canonical import RECORD_HASH_FIELD, record_sha256
+from planrunner.compile.jobs import Job, compile_jobs
+from planrunner.data.checks import check_tables
+from planrunner.execute.executors import Execution, Progress, execute_all
+from planrunner.errors import OutputError
+from planrunner.data.tables import Table, read_table, resolve_data_path
+from planrunner.record.methods import methods_text
+from planrunner.plan.params import apply as apply_parameters
+from planrunner.plan.params import resolve_values
+from planrunner.execute.families import max_t_families
+from planrunner.plan.load import LoadedPlan, read_plan
+from planrunner.record.build import build_record, to_json
+from planrunner.trail.files import append_history, lock_for_run
+
+Clock = Callable[[], dt.datetime]
+
+
+def utc_now() -> dt.datetime:
+    return dt.datetime.now(dt.timezone.utc)
+
+
+def _stamp(moment: dt.datetime) -> str:
+    return moment.astimezone(dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%S.%fZ")
+
+
+@dataclass(frozen=True)
+class CheckOutcome:
+    loaded: LoadedPlan
+    tables: dict[str, Table] | None  # None when data were not checked
+    jobs: list[Job] | None
+    parameters: dict[str, str] = field(default_factory=dict)
+
+
+@dataclass(frozen=True)
+class RunOutcome:
+    folder: Path
+    record: dict
+    history_entry: dict | None = None
+
+
+def available_memory() -> int | None:
+    """Bytes of memory available now (Linux: MemAvailable; else physical memory), None if unknown."""
+    try:
+        with open("/proc/meminfo", encoding="ascii") as handle:
+            for line in handle:
+                if line.startswith("MemAvailable:"):
+                    return int(line.split()[1]) * 1024
+    except (OSError, ValueError, IndexError):
+        pass
+    try:
+        return int(os.sysconf("SC_PAGE_SIZE")) * int(os.sysconf("SC_PHYS_PAGES"))
+    except (AttributeError, ValueError, OSError):
+        return None
+
+
+def load_tables(loaded: LoadedPlan, data_root: str | Path | None = None) -> dict[str, Table]:
+    root = Path(data_root) if data_root is not None else None
+    sizes = []
+    for spec in loaded.plan.datasets.values():
+        path = resolve_data_path(loaded.folder, spec.file, data_root=root)
+        if path.is_file():  # a missing file is reported by read_table with its own message
+            sizes.append((spec.file, path.stat().st_size))
+    limits.check_files(sizes, available=available_memory())
+    return {name: read_table(name, spec, loaded.folder, data_root=root)
+            for name, spec in loaded.plan.datasets.items()}
+
+
+def load_plan(path: str | Path, params: dict[str, str] | None = None, *,
+              require_values: bool = True) -> tuple[LoadedPlan, dict[str, str]]:
+    """Read and check the plan, and fill its parameters (file paths and titles only)."""
+    loaded = read_plan(path)
+    values = resolve_values(loaded.plan, params or {}, require=require_values)
+    return replace(loaded, plan=apply_parameters(loaded.plan, values)), values
+
+
+def check_plan(path: str | Path, *, with_data: bool = True, params: dict[str, str] | None = None,
+               data_root: str | Path | None = None) -> CheckOutcome:
+    """Validate the plan; with data, also read the files, check what each analysis will use and
+    that the run fits in memory, and build the jobs (no resampling)."""
+    # the plan alone can be checked before the month's value is known
+    loaded, values = load_plan(path, params, require_values=with_data or bool(params))
+    if not with_data:
+        return CheckOutcome(loaded, None, None, values)
+    tables = load_tables(loaded, data_root)
+    check_tables(loaded.plan, tables)
+    jobs = compile_jobs(loaded.plan, tables)
+    limits.check_jobs(jobs, available=available_memory())
+    return CheckOutcome(loaded, tables, jobs, values)
+
+
+def default_operator() -> str:
+    try:
+        return getpass.getuser()
+    except (KeyError, OSError):
+        return "unknown"
+
+
+def run_plan(path: str | Path, *, out: str | Path | None = None, operator: str | None = None,
+             command: list[str] | None = None, clock: Clock = utc_now, params: dict[str, str] | None = None,
+             lock: str | Path | None = None, refuse_deviations: bool = False, reason: str | None = None,
+             history: bool = True, data_root: str | Path | None = None, execution: Execution | None = None,
+             progress: Progress | None = None) -> RunOutcome:
+    """Run every analysis of the plan and write record.json, report.html and report.md.
+
+    The plan is compared with its lock (``lock``, or PLAN.lock.json beside it when that exists);
+    with ``refuse_deviations`` any deviation, or a missing lock, stops the run before computing.
+    The run is appended to the history log beside the run folders (unless ``history`` is False).
+    ``execution`` chooses where the jobs run (serial by default; the numbers are the same);
+    ``progress(done, total)`` hears of finished resamples. An interrupt while computing leaves
+    nothing behind: files are written only after every result is in.
+    """
+    started = clock()
+    checked = check_plan(path, params=params, data_root=data_root)
+    loaded, tables, jobs = checked.loaded, checked.tables, checked.jobs
+    assert tables is not None and jobs is not None
+    lock_entry = lock_for_run(loaded, tables, lock, refuse_deviations=refuse_deviations)
+    execution = execution or Execution()
+    results = execute_all(jobs, execution=execution, progress=progress)
+    max_t = max_t_families(loaded.plan, jobs)
+    finished = clock()
+    run_id = _run_id(loaded, tables, started)
+    record = build_record(loaded, tables, jobs, results, run_id=run_id, started_utc=_stamp(started),
+                          finished_utc=_stamp(finished), operator=operator or default_operator(),
+                          command=command or ["planrunner", "run", str(path)], max_t=max_t,
+                          execution=execution.describe())
+    finish_record(record, lock_entry, checked.parameters)
+    out_root = Path(out) if out is not None else loaded.folder / "runs"
+    folder = write_run(out_root, f"{loaded.plan.plan}-{started.strftime('%Y%m%dT%H%M%SZ')}-{run_id[:8]}", record)
+    entry = append_history(out_root, record, folder.name, reason) if history else None
+    return RunOutcome(folder, record, entry)
+
+
+def finish_record(record: dict, lock_entry: dict | None, parameters: dict[str, str]) -> dict:
+    """The audit fields: the lock and its deviations, parameters, methods text, and the record's own hash."""
+    record["plan"]["lock"] = lock_entry
+    record["parameters"] = dict(parameters)
+    record["methods_text"] = methods_text(record)
+    record.pop(RECORD_HASH_FIELD, None)
+    record[RECORD_HASH_FIELD] = record_sha256(record)
+    return record
+
+
+def _run_id(loaded: LoadedPlan, tables: dict[str, Table], started: dt.datetime) -> str:
+    """An id from what the run is (plan, data, start time), so an injected clock makes it stable."""
+    digest = hashlib.sha256()
+    for part in [loaded.sha256, _stamp(started), *(t.sha256 for t in tables.values())]:
+        digest.update(part.encode())
+    return digest.hexdigest()[:16]
+
+
+STAGING_PREFIX = ".staging-"  # folders being written; a killed run may leave one, never a run folder
+
+
+def write_run(out_root: Path, name: str, record: dict) -> Path:
+    """Write the three files into a staging folder, then move it into place under a fresh name.
+
+    The reports are rendered before anything is created, every file is flushed to disk before the
+    rename, and any failure (an OSError half-way, an interrupt) removes the staging folder, so a
+    folder with a run's name always holds a complete record and both reports. A process killed
+    half-way can leave only a hidden `.staging-*` folder, which no later run reads or reuses.
+    """
+    if not _single_name(name):  # plan ids are validated by the schema; this guards the runner itself
+        raise ValueError(f"run folder name {name!r} is not a single plain folder name")
+    # report.html, report.md and the figures/*.svg files the Markdown report links to
+    files = {"record.json": to_json(record), **report.render_all(record)}
+    try:
+        out_root.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise OutputError(f"cannot create the output folder: {exc.strerror or exc}", where=str(out_root),
+                          hint="choose another folder with --out") from None
+    staging = _new_staging(out_root, name)
+    try:
+        for filename, text in files.items():
+            (staging / filename).parent.mkdir(parents=True, exist_ok=True)
+            with open(staging / filename, "w", encoding="utf-8", newline="\n") as handle:
+                handle.write(text)
+                handle.flush()
+                os.fsync(handle.fileno())
+        final = _place(staging, out_root, name)
+        _sync_folder(out_root)
+        return final
+    except OSError as exc:
+        shutil.rmtree(staging, ignore_errors=True)
+        raise OutputError(f"the run could not be written: {exc.strerror or exc}", where=str(out_root),
+                          hint="nothing was kept; free space or choose another folder with --out, "
+                               "then run again") from None
+    except BaseException:
+        shutil.rmtree(staging, ignore_errors=True)
+        raise
+
+
+def _single_name(name: str) -> bool:
+    return (bool(name) and not name.startswith(".") and "/" not in name and "\\" not in name
+            and "\0" not in name and Path(name).name == name)
+
+
+def _new_staging(out_root: Path, name: str) -> Path:
+    """A staging folder of our own; the random part keeps a reused process id from colliding
+    with a folder that a killed run left behind."""
+    for _ in range(100):
+        staging = out_root / f"{STAGING_PREFIX}{name}-{secrets.token_hex(4)}"
+        try:
+            staging.mkdir()
+            return staging
+        except FileExistsError:
+            continue
+        except OSError as exc:
+            raise OutputError(f"cannot write into the output folder: {exc.strerror or exc}",
+                              where=str(out_root), hint="choose another folder with --out") from None
+    raise OutputError("cannot create a staging folder", where=str(out_root), hint="choose another folder with --out")
+
+
+def _place(staging: Path, out_root: Path, name: str) -> Path:
+    """Rename the staging folder to a run-folder name not yet taken; a run never reuses a folder.
+    Another run may take the same name between the check and the rename: the rename then fails
+    (the folder is not empty) and the next name is tried."""
+    k = 1
+    while True:
+        candidate = out_root / (name if k == 1 else f"{name}-{k}")
+        k += 1
+        if candidate.exists() or candidate.is_symlink():
+            continue
+        try:
+            os.rename(staging, candidate)
+            return candidate
+        except OSError as exc:
+            if exc.errno in (errno.EEXIST, errno.ENOTEMPTY) and k < 10_000:
+                continue
+            raise
+
+
+def _sync_folder(folder: Path) -> None:
+    """Make the rename itself durable (POSIX); harmless where folders cannot be opened."""
+    try:
+        fd = os.open(folder, os.O_RDONLY)
+    except OSError:
+        return
+    try:
+        os.fsync(fd)
+    except OSError:
+        pass
+    finally:
+        os.close(fd)

@@ -1,0 +1,109 @@
+"""Plan rules for permutation analyses and max-T families (called from `plancheck.cross_check`).
+
+The design decides the scheme: groups → labels shuffled (within strata); pairs → sign-flip within
+pairs; clusters → cluster labels shuffled; predictor without groups → outcome shuffled against the
+predictor; covariates → Freedman–Lane. A combination without a valid scheme is refused here, before
+any data are read.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+from planrunner.engines.statistics import Statistic
+from planrunner.engines.teststats import K_GROUP, PAIRED_ONLY
+
+SHIFT_STATISTICS = ("mean_difference", "median_difference", "rank_sum", "t_pooled", "t_welch")
+
+
+def statistic_checks(at: tuple, a: Any) -> list:
+    """Rules of the test statistics that hold for every method."""
+    from planrunner.plan.load import Problem  # plancheck imports this module
+
+    if a.statistic in PAIRED_ONLY and a.pairs is None:
+        return [Problem(at + ("statistic",), f"'{a.statistic}' is a statistic of pairs but the analysis "
+                        "declares no pairs", "add pairs: COLUMN (the column naming each pair)")]
+    return []
+
+
+def permutation_checks(at: tuple, a: Any, statistic: Statistic) -> list:
+    from planrunner.plan.load import Problem  # plancheck imports this module
+
+    out: list = []
+    if statistic.samples == 1 and statistic.columns == 1:
+        out.append(Problem(at + ("statistic",), f"'{a.statistic}' describes one sample; a permutation test "
+                           "compares groups, pairs, or a predictor with the outcome",
+                           "use a two-group statistic such as mean_difference (with pairs: for a paired "
+                           "design), or a two-column statistic such as correlation"))
+    if a.pairs is not None:
+        if a.strata is not None or a.clusters is not None:
+            out.append(Problem(at + ("pairs",), "pairs cannot be combined with strata or clusters",
+                               "each pair is its own stratum; remove strata/clusters"))
+        if statistic.samples != 2:
+            out.append(Problem(at + ("pairs",), "pairs need a two-group statistic (first minus second)",
+                               "use mean_difference or signed_rank"))
+    if a.clusters is not None:
+        if a.strata is not None:
+            out.append(Problem(at + ("clusters",), "clusters within strata are not supported by the permutation test",
+                               "remove strata, or analyse each stratum separately"))
+        if statistic.samples != 2 or statistic.columns != 1:
+            out.append(Problem(at + ("clusters",), "clusters need a two-group statistic of one column",
+                               "use e.g. mean_difference"))
+    if statistic.columns == 2 and a.strata is not None:
+        out.append(Problem(at + ("strata",), "an association test shuffles the outcome over all rows; "
+                           "shuffling within strata is not supported",
+                           "remove strata, or adjust for numeric covariates with Freedman–Lane (statistic: slope)"))
+    if a.covariates is not None:
+        if a.groups is not None:
+            out.append(Problem(at + ("covariates",), "covariates with a group comparison would need a naive shuffle "
+                               "of the labels that ignores them, which is not a valid test; it is refused",
+                               "code the group as a 0/1 predictor column and use statistic: slope "
+                               "(Freedman–Lane residual permutation)"))
+        elif a.statistic != "slope":
+            out.append(Problem(at + ("covariates",), f"with covariates the test is Freedman–Lane on the partial "
+                               f"slope; '{a.statistic}' cannot be adjusted by shuffling",
+                               "use statistic: slope"))
+        if a.strata is not None or a.pairs is not None or a.clusters is not None:
+            out.append(Problem(at + ("covariates",), "covariates cannot be combined with strata, pairs or clusters"))
+    if a.statistic in K_GROUP and a.alternative not in (None, "greater"):
+        out.append(Problem(at + ("alternative",), f"'{a.statistic}' is large when groups differ; its test is "
+                           "one-sided by construction", "remove alternative, or write alternative: greater"))
+    if a.statistic == "risk_ratio" and a.two_sided == "absolute":
+        out.append(Problem(at + ("two_sided",), "a ratio has no centre for the absolute two-sided rule",
+                           "use two_sided: doubled, or risk_difference"))
+    if a.intervals is not None:
+        if a.statistic not in SHIFT_STATISTICS or a.pairs is not None or a.clusters is not None or a.strata is not None:
+            out.append(Problem(at + ("intervals",), "the shift interval inverts a two-group test of location "
+                               "without strata, pairs or clusters",
+                               f"use one of {', '.join(SHIFT_STATISTICS)} on two plain groups"))
+    return out
+
+
+def max_t_checks(at: tuple, members: list) -> list:
+    """Westfall–Young max-T needs the same permutations for every endpoint: one dataset, one design."""
+    from planrunner.plan.load import Problem
+
+    first = members[0]
+    out: list = []
+
+    def design(a: Any) -> tuple:
+        groups = None if a.groups is None else (a.groups.by, tuple(a.groups.compare))
+        return (a.data, groups, a.strata, a.pairs, a.clusters, a.predictor, tuple(a.covariates or ()))
+
+    for a in members:
+        if a.method != "permutation":
+            out.append(Problem(at + ("method",), f"max-t adjusts permutation tests; '{a.id}' is a {a.method}",
+                               "use another method for this family, or make every member a permutation test"))
+            return out
+    for a in members[1:]:
+        if design(a) != design(first):
+            out.append(Problem(at + ("family",), f"max-t needs one dataset and one design; '{a.id}' differs from "
+                               f"'{first.id}' in data, groups, strata, pairs, clusters or predictor",
+                               "only the outcome and the statistic may differ between members"))
+        if (a.resamples, a.exact) != (first.resamples, first.exact):
+            out.append(Problem(at + ("family",), f"max-t uses one set of permutations; '{a.id}' asks for other "
+                               f"resamples or exact settings than '{first.id}'", "give every member the same"))
+    if first.pairs is not None or first.clusters is not None or first.covariates is not None or first.groups is None:
+        out.append(Problem(at + ("family",), "max-t is computed for label shuffles of groups (within strata)",
+                           "use holm or another method for paired, cluster or association tests"))
+    return out

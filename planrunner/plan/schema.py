@@ -1,0 +1,198 @@
+"""The plan schema: pydantic models only (no numpy, no files).
+
+Every model is frozen and rejects unknown keys, so the plan that runs is exactly the plan that was
+written. Shape and single-field rules live here; rules that relate one part of the plan to another
+(an analysis naming a dataset, a level that must be declared) are checked in `planrunner.plan.load`,
+where every problem can be reported at once with its position.
+"""
+
+from __future__ import annotations
+
+from typing import Annotated, Literal, Union
+
+from pydantic import BaseModel, ConfigDict, Field, model_validator
+
+Identifier = Annotated[str, Field(pattern=r"^[A-Za-z0-9][A-Za-z0-9_.-]{0,63}$")]
+ColumnName = Annotated[str, Field(min_length=1, max_length=200)]
+Alternative = Literal["two-sided", "greater", "less"]
+Role = Literal["primary", "secondary", "sensitivity", "supplementary"]
+IntervalMethod = Literal["percentile", "basic", "normal", "bca", "studentized"]
+Resamples = Annotated[int, Field(ge=1, le=10_000_000)]
+Confidence = Annotated[float, Field(gt=0.5, lt=1.0)]
+MultiplicityMethod = Literal["bonferroni", "holm", "hochberg", "bh", "by", "max-t"]
+
+
+class Strict(BaseModel):
+    model_config = ConfigDict(extra="forbid", frozen=True, strict=True)
+
+
+class Column(Strict):
+    """One declared data column: its type and what values it may hold."""
+
+    type: Literal["number", "integer", "category", "text", "boolean", "date"]
+    levels: list[str] | None = None
+    min: float | None = None
+    max: float | None = None
+    unit: str | None = None
+    # the column identifies the unit a row measures (patient, device, site): rows repeating a value
+    # within a group, or a value in both groups, get a warning unless clusters or pairs are declared
+    identifier: bool = False
+
+    @model_validator(mode="after")
+    def _rules(self) -> "Column":
+        if self.identifier and self.type not in ("text", "category", "integer"):
+            raise ValueError("identifier applies only to text, category and integer columns")
+        if self.levels is not None:
+            if self.type != "category":
+                raise ValueError("levels apply only to a column of type category")
+            if len(set(self.levels)) != len(self.levels) or not self.levels:
+                raise ValueError("levels must be a non-empty list without repeats")
+        if (self.min is not None or self.max is not None) and self.type not in ("number", "integer"):
+            raise ValueError("min and max apply only to number and integer columns")
+        if self.min is not None and self.max is not None and self.min > self.max:
+            raise ValueError("min is larger than max")
+        return self
+
+
+class Dataset(Strict):
+    """A data file, the columns it must hold, and which rows are kept."""
+
+    file: Annotated[str, Field(min_length=1)]
+    format: Literal["csv", "tsv"] | None = None
+    sha256: Annotated[str, Field(pattern=r"^[0-9a-f]{64}$")] | None = None
+    columns: Annotated[dict[ColumnName, Column], Field(min_length=1)]
+    missing: Literal["refuse", "drop"] = "refuse"
+    missing_values: list[str] = Field(default_factory=lambda: ["", "NA"])
+    keep: Annotated[str, Field(min_length=1)] | None = None
+    # header columns the plan does not declare: ignored (and listed in the record), or refused by a
+    # plan that wants the file to hold exactly the declared columns
+    undeclared_columns: Literal["ignore", "refuse"] = "ignore"
+
+
+class Groups(Strict):
+    """Which column defines the groups and which levels are compared (two: first minus second)."""
+
+    by: ColumnName
+    compare: Annotated[list[str], Field(min_length=2, max_length=50)]
+
+    @model_validator(mode="after")
+    def _distinct(self) -> "Groups":
+        if len(set(self.compare)) != len(self.compare):
+            raise ValueError("compare names the same level twice")
+        return self
+
+
+class Defaults(Strict):
+    """Settings that every analysis inherits unless it says otherwise."""
+
+    resamples: Resamples = 9999
+    confidence: Confidence = 0.95
+    alternative: Alternative = "two-sided"
+
+
+class AnalysisBase(Strict):
+    id: Identifier
+    title: str | None = None
+    role: Role = "primary"
+    data: Identifier
+    outcome: ColumnName
+    predictor: ColumnName | None = None
+    groups: Groups | None = None
+    strata: ColumnName | None = None
+    # the design, declared once; each method derives its resampling scheme from it
+    pairs: ColumnName | None = None  # rows sharing a value are one unit measured under each group
+    clusters: ColumnName | None = None  # rows sharing a value are one randomised/sampled unit
+    order: ColumnName | None = None  # time order of the rows (dependent data)
+    covariates: Annotated[list[ColumnName], Field(min_length=1)] | None = None
+    statistic: Annotated[str, Field(min_length=1)]
+    # parameters of a statistic (each statistic says which one it takes, if any)
+    quantile: Annotated[float, Field(gt=0.0, lt=1.0)] | None = None  # level of quantile statistics
+    trim: Annotated[float, Field(ge=0.0, lt=0.5)] | None = None  # proportion cut from each end
+
+
+class Blocks(Strict):
+    """Block resampling of time-ordered rows (with `order`)."""
+
+    scheme: Literal["moving", "circular", "stationary"]
+    length: Annotated[int, Field(ge=1, le=1_000_000)]  # block length; the mean length for stationary
+
+
+class BootstrapAnalysis(AnalysisBase):
+    method: Literal["bootstrap"]
+    resamples: Resamples | None = None
+    confidence: Confidence | None = None
+    intervals: Annotated[list[IntervalMethod], Field(min_length=1)] = Field(
+        default_factory=lambda: ["percentile", "bca"])
+    studentized_se: Literal["analytic", "jackknife", "bootstrap"] | None = None
+    inner_resamples: Annotated[int, Field(ge=10, le=10_000)] | None = None  # nested bootstrap only
+    on_degenerate: Literal["fail", "percentile", "estimate-only"] = "estimate-only"
+    blocks: Blocks | None = None
+    parametric: Literal["normal", "exponential", "poisson", "binomial"] | None = None
+    trials: Annotated[int, Field(ge=1)] | None = None
+    exhaustive: bool = False
+    save_distribution: bool = False  # write every replicate (and exhaustive weight) into the record
+
+    @model_validator(mode="after")
+    def _unique_intervals(self) -> "BootstrapAnalysis":
+        if len(set(self.intervals)) != len(self.intervals):
+            raise ValueError("intervals names a method twice")
+        return self
+
+
+class PermutationAnalysis(AnalysisBase):
+    method: Literal["permutation"]
+    resamples: Resamples | None = None
+    alternative: Alternative | None = None
+    exact: Literal["auto", "always", "never"] = "auto"
+    two_sided: Literal["doubled", "absolute"] = "doubled"  # doubled: 2·min(p_greater, p_less)
+    intervals: Annotated[list[Literal["shift"]], Field(min_length=1, max_length=1)] | None = None
+    confidence: Confidence | None = None
+
+
+class JackknifeAnalysis(AnalysisBase):
+    method: Literal["jackknife"]
+
+
+Analysis = Annotated[
+    Union[BootstrapAnalysis, PermutationAnalysis, JackknifeAnalysis],
+    Field(discriminator="method"),
+]
+METHODS = ("bootstrap", "permutation", "jackknife")
+
+
+class MultiplicityFamily(Strict):
+    """Analyses whose p-values are adjusted together."""
+
+    family: Annotated[list[Identifier], Field(min_length=2)]
+    method: MultiplicityMethod
+
+
+class Parameter(Strict):
+    """A named value given on the command line and used only in data file paths and titles."""
+
+    type: Literal["text", "integer", "date", "month"] = "text"
+    pattern: Annotated[str, Field(min_length=1)] | None = None  # the whole value must match
+    values: Annotated[list[str], Field(min_length=1)] | None = None  # the allowed values
+    default: str | None = None
+    description: str | None = None
+
+
+class ReportOptions(Strict):
+    bins: Annotated[int, Field(ge=5, le=200)] = 40
+    note: str | None = None
+
+
+class Plan(Strict):
+    """A whole analysis plan, as written."""
+
+    plan: Identifier
+    title: Annotated[str, Field(min_length=1, max_length=300)]
+    seed: Annotated[int, Field(ge=0, lt=2**63)]
+    description: str | None = None
+    defaults: Defaults = Field(default_factory=Defaults)
+    datasets: Annotated[dict[Identifier, Dataset], Field(min_length=1)]
+    analyses: Annotated[list[Analysis], Field(min_length=1, max_length=500)]
+    multiplicity: list[MultiplicityFamily] = Field(default_factory=list)
+    report: ReportOptions = Field(default_factory=ReportOptions)
+    parameters: dict[Annotated[str, Field(pattern=r"^[A-Za-z_][A-Za-z0-9_]{0,63}$")], Parameter] = Field(
+        default_factory=dict)

@@ -1,0 +1,98 @@
+"""Record fields of permutation-type results and the family-level warnings (called by `record`).
+
+Every p-value keeps the counts behind it: ``count_greater_equal`` and ``count_less_equal`` (and
+``count_absolute`` for the absolute two-sided rule) out of ``arrangements`` (exact) or
+``resamples`` (Monte Carlo). For an exact null from dynamic programming the counts are numbers of
+arrangements held in floating point (they can exceed 2⁶³).
+"""
+
+from __future__ import annotations
+
+import hashlib
+import math
+from typing import Any
+
+import numpy as np
+
+from planrunner.engines.multiplicity import adjust
+from planrunner.record.canonical import plain_number as _f
+
+
+def _count(x: Any) -> Any:
+    """A count as an int when it is one exactly (DP counts are floats, exact below 2**53)."""
+    if isinstance(x, float) and x.is_integer() and abs(x) < 2.0**53:
+        return int(x)
+    return _f(x)
+
+
+def weighted_distribution(kind: str, values: np.ndarray, weights: np.ndarray | None, bins: int) -> dict[str, Any]:
+    """Size, moments, range, histogram and hash of a null given by values (and exact weights)."""
+    values = np.asarray(values, dtype=float)
+    w = np.ones(values.size) if weights is None else np.asarray(weights, dtype=float)
+    infinite = float(w[~np.isfinite(values)].sum())  # e.g. a ratio over an empty denominator
+    w, values = w[np.isfinite(values)], values[np.isfinite(values)]
+    total = float(w.sum())
+    mean = float(np.sum(w * values) / total)
+    var = float(np.sum(w * (values - mean) ** 2) / total)
+    lo, hi = float(values.min()), float(values.max())
+    if lo == hi:
+        lo, hi = lo - 0.5, hi + 0.5
+    counts, edges = np.histogram(values, bins=bins, range=(lo, hi), weights=w)
+    digest = hashlib.sha256(np.ascontiguousarray(values, dtype="<f8").tobytes())
+    if weights is not None:
+        digest.update(np.ascontiguousarray(w, dtype="<f8").tobytes())
+    return {"kind": kind, "size": _count(total + infinite) if weights is not None else int(values.size + infinite),
+            "support_points": int(values.size), "mean": mean,
+            "sd": math.sqrt(var * total / (total - 1)) if total > 1 else None,
+            "min": float(values.min()), "max": float(values.max()), "sha256": digest.hexdigest(),
+            "weighted": weights is not None, "infinite": _count(infinite),
+            "histogram": {"edges": [float(e) for e in edges],
+                          "counts": [float(c) if weights is not None else int(c) for c in counts]}}
+
+
+def permutation_fields(result: Any, bins: int) -> dict[str, Any]:
+    """The analysis-entry fields of a PermutationResult (DESIGN §4 names)."""
+    exact = bool(result.exact)
+    weights = result.null_weights
+    interval = result.p_interval
+    fields: dict[str, Any] = {
+        "estimate": _f(result.observed), "p_value": _f(result.p_value), "alternative": result.alternative,
+        "exact": exact, "resamples": int(result.resamples),
+        "monte_carlo": {"p_value_sd": 0.0 if exact else _f(result.monte_carlo_se),
+                        "p_value_interval": None if interval is None else
+                        {"method": "Clopper–Pearson", "level": 0.99, "lower": interval[0], "upper": interval[1]}},
+        "details": {
+            "observed": _f(result.observed), "count_greater_equal": _count(result.count_greater),
+            "count_less_equal": _count(result.count_less), "count_absolute": _count(result.count_absolute),
+            "p_greater": _f(result.p_greater), "p_less": _f(result.p_less), "centre": _f(result.centre),
+            "arrangements": int(result.arrangements), "computation": result.computation,
+            "two_sided_rule": result.two_sided_rule, "tolerance": _f(result.tolerance),
+            "smallest_p": _f(result.smallest_p),
+            "p_value_rule": "count / arrangements (exact)" if exact
+            else "(count + 1) / (resamples + 1) (Monte Carlo)",
+            "design": {k: _f(v) for k, v in result.design.items()},
+            "conventions": dict(result.conventions),
+        },
+        "distribution": weighted_distribution("permutation null", result.null, weights, bins),
+    }
+    if result.intervals:
+        fields["intervals"] = [{"method": i.method, "level": _f(i.level), "lower": _f(i.lower), "upper": _f(i.upper),
+                                "note": i.note} for i in result.intervals]
+        fields["details"]["shift_estimate"] = _f(result.shift_estimate)
+    return fields
+
+
+def family_floor_warnings(fam: Any, members: list[dict[str, Any]], alpha: float, max_t: Any = None) -> None:
+    """Warn each member whose smallest attainable p-value, adjusted with the family, exceeds alpha."""
+    floors = [m["details"].get("smallest_p") if m["method"] == "permutation" else None for m in members]
+    if all(f is None for f in floors):
+        return
+    filled = [0.0 if f is None else float(f) for f in floors]
+    adjusted = list(max_t.smallest_adjusted) if max_t is not None else adjust(filled, fam.method)
+    for member, floor, floor_adj in zip(members, floors, adjusted):
+        if floor is not None and floor_adj > alpha:
+            member["warnings"].append({
+                "code": "adjusted-p-floor-above-alpha",
+                "message": f"after {fam.method} adjustment over {len(members)} analyses the smallest attainable "
+                           f"p-value is {floor_adj:.4g} (unadjusted {floor:.4g}), above alpha = {alpha:g}: "
+                           "this analysis cannot reach significance in its family"})

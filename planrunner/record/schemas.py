@@ -1,0 +1,106 @@
+"""JSON Schemas of the plan and of the record, for editors and for tools outside planrunner.
+
+The plan's schema is generated from the pydantic models, so it cannot drift from what `check`
+accepts (cross-references such as "this level is declared" are beyond JSON Schema and are left to
+`planrunner check`). The record's schema is written out here and versioned with the record's
+`format`; tests validate real records against it.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+from planrunner.record.build import FORMAT
+from planrunner.plan.schema import Plan
+
+DRAFT = "https://json-schema.org/draft/2020-12/schema"
+PLAN_SCHEMA_ID = "urn:planrunner:schema:plan:1"
+RECORD_SCHEMA_ID = "urn:planrunner:schema:record:1"
+
+
+def plan_schema() -> dict[str, Any]:
+    schema = Plan.model_json_schema(mode="validation")
+    return {"$schema": DRAFT, "$id": PLAN_SCHEMA_ID,
+            "description": "A planrunner analysis plan (YAML). Cross-references are checked by 'planrunner check'.",
+            **schema}
+
+
+_num = {"type": ["number", "null"]}
+_str = {"type": ["string", "null"]}
+_sha = {"type": "string", "pattern": "^[0-9a-f]{64}$"}
+_int0 = {"type": "integer", "minimum": 0}
+
+
+def _obj(properties: dict[str, Any], required: list[str] | None = None, extra: bool = True) -> dict[str, Any]:
+    out: dict[str, Any] = {"type": "object", "properties": properties,
+                           "required": sorted(properties) if required is None else required}
+    if not extra:
+        out["additionalProperties"] = False
+    return out
+
+
+_warning = _obj({"code": {"type": "string"}, "message": {"type": "string"}})
+_interval = _obj({"method": {"type": "string"}, "level": {"type": "number", "exclusiveMinimum": 0, "exclusiveMaximum": 1},
+                  "lower": _num, "upper": _num, "note": _str}, required=["method", "level", "lower", "upper"])
+_analysis = _obj({
+    "id": {"type": "string"}, "title": _str, "role": {"type": "string"}, "question": {"type": "string"},
+    "data": {"type": "string"}, "outcome": {"type": "string"}, "unit": _str,
+    "groups": {"type": ["object", "null"]}, "strata": _str,
+    "method": {"enum": ["bootstrap", "permutation", "jackknife"]}, "scheme": {"type": "string"},
+    "statistic": {"type": "string"}, "statistic_label": {"type": "string"},
+    "settings": {"type": "object"}, "stream": {"type": "object"},
+    "n": _obj({"groups": {"type": "object", "additionalProperties": _int0}}, required=["groups"]),
+    "estimate": _num, "standard_error": _num, "bias": _num,
+    "intervals": {"type": "array", "items": _interval},
+    "p_value": {"type": ["number", "null"], "exclusiveMinimum": 0, "maximum": 1},
+    "adjusted_p_values": {"type": "array", "items": _obj({"method": {"type": "string"},
+                                                          "p_value": {"type": "number", "minimum": 0, "maximum": 1}})},
+    "alternative": _str, "exact": {"type": ["boolean", "null"]},
+    "resamples": {"type": ["integer", "null"], "minimum": 1},
+    "monte_carlo": {"type": "object"}, "details": {"type": "object"},
+    "distribution": {"type": ["object", "null"]},
+    "warnings": {"type": "array", "items": _warning},
+}, required=["id", "method", "scheme", "statistic", "estimate", "standard_error", "bias", "intervals",
+             "p_value", "alternative", "exact", "resamples", "n", "warnings", "settings", "stream"])
+_lock = {"oneOf": [{"type": "null"}, _obj({
+    "file": {"type": "string"}, "sha256": _sha, "canonical_sha256": _sha, "locked_utc": {"type": "string"},
+    "operator": {"type": "string"}, "note": _str,
+    "deviations": {"type": "array", "items": _obj({"path": {"type": "string"}, "locked": {}, "now": {}})},
+}, required=["file", "sha256", "canonical_sha256", "locked_utc", "operator", "note", "deviations"])]}
+
+
+def record_schema() -> dict[str, Any]:
+    return {
+        "$schema": DRAFT, "$id": RECORD_SCHEMA_ID, "title": f"planrunner record ({FORMAT})",
+        "description": "record.json as written by 'planrunner run'; the schema's version follows the record's format.",
+        **_obj({
+            "format": {"const": FORMAT},
+            "run_id": {"type": "string"}, "started_utc": {"type": "string"}, "finished_utc": {"type": "string"},
+            "operator": {"type": "string"}, "command": {"type": "array", "items": {"type": "string"}},
+            "plan": _obj({"id": {"type": "string"}, "title": {"type": "string"}, "description": _str,
+                          "file": {"type": "string"}, "sha256": _sha, "text": {"type": "string"}, "lock": _lock}),
+            "parameters": {"type": "object", "additionalProperties": {"type": "string"}},
+            "datasets": {"type": "array", "items": _obj({
+                "name": {"type": "string"}, "file": {"type": "string"}, "sha256": _sha, "bytes": _int0,
+                "rows_read": _int0, "rows_used": _int0,
+                "excluded": {"type": "array", "items": _obj({"reason": {"type": "string"}, "rows": _int0},
+                                                            required=["reason", "rows"])}})},
+            "environment": _obj({"python": {"type": "string"}, "platform": {"type": "string"},
+                                 "packages": {"type": "object", "additionalProperties": _str},
+                                 "planrunner": {"type": "string"}}),
+            "seed": _obj({"root": _int0, "generator": {"type": "string"}, "derivation": {"type": "string"},
+                          "draw_block": {"type": "integer", "minimum": 1}}),
+            "analyses": {"type": "array", "items": _analysis, "minItems": 1},
+            "multiplicity": {"type": "array", "items": _obj({"method": {"type": "string"},
+                                                             "family": {"type": "array", "items": {"type": "string"}},
+                                                             "unadjusted": {"type": "object"},
+                                                             "adjusted": {"type": "object"}},
+                                                            required=["method", "family", "unadjusted", "adjusted"])},
+            "methods_text": {"type": "string"},
+            "caution": {"type": "string"},
+            "nonfinite": {"type": "array", "items": {"type": "string"}},
+            "record_sha256": _sha,
+        }, required=["format", "run_id", "started_utc", "finished_utc", "operator", "command", "plan",
+                     "parameters", "datasets", "environment", "seed", "analyses", "multiplicity",
+                     "methods_text", "caution", "nonfinite", "record_sha256"]),
+    }

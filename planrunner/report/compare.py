@@ -1,0 +1,204 @@
+"""Two records side by side: what changed between runs (e.g. last month's extract and this month's).
+
+Pure functions of two record dicts: `compare_records` gathers the differences, and three renderers
+show them as a terminal table, Markdown and a self-contained HTML page. Numbers are only formatted
+here, never recomputed.
+"""
+
+from __future__ import annotations
+
+import html
+from typing import Any
+
+from planrunner.record.canonical import differences
+from planrunner.errors import PlanError
+from planrunner.report.render import number, pvalue
+from planrunner.plan.yamlsafe import load_yaml
+
+
+def _interval(a: dict[str, Any] | None, method: str) -> str:
+    if a is None:
+        return ""
+    for i in a.get("intervals") or []:
+        if i["method"] == method:
+            return f"{number(i['lower'])} to {number(i['upper'])}"
+    return ""
+
+
+def _change(x: Any, y: Any) -> float | None:
+    if isinstance(x, (int, float)) and isinstance(y, (int, float)) and not isinstance(x, bool) and not isinstance(y, bool):
+        return float(y) - float(x)
+    return None
+
+
+def _adjusted(x: dict[str, Any] | None, y: dict[str, Any] | None) -> list[dict[str, Any]]:
+    """Adjusted p-values of both runs, matched by adjustment method."""
+    a = {p["method"]: p["p_value"] for p in (x or {}).get("adjusted_p_values") or []}
+    b = {p["method"]: p["p_value"] for p in (y or {}).get("adjusted_p_values") or []}
+    return [{"method": m, "a": a.get(m), "b": b.get(m), "change": _change(a.get(m), b.get(m))}
+            for m in list(a) + [m for m in b if m not in a]]
+
+
+def _parsed_plan(record: dict[str, Any], label: str) -> Any:
+    try:
+        return load_yaml(record["plan"]["text"], f"record {label}").data
+    except PlanError:
+        return None
+
+
+def compare_records(a: dict[str, Any], b: dict[str, Any]) -> dict[str, Any]:
+    """Everything that differs between records A and B, and the numbers of every analysis."""
+    plan_a, plan_b = _parsed_plan(a, "A"), _parsed_plan(b, "B")
+    plan_changes = [{"path": d.path, "a": d.before, "b": d.after} for d in differences(plan_a, plan_b)]
+    env_changes = [{"path": d.path, "a": d.before, "b": d.after}
+                   for d in differences(a.get("environment", {}), b.get("environment", {}))]
+    param_changes = [{"path": d.path, "a": d.before, "b": d.after}
+                     for d in differences(a.get("parameters") or {}, b.get("parameters") or {})]
+    ds_a = {d["name"]: d for d in a["datasets"]}
+    ds_b = {d["name"]: d for d in b["datasets"]}
+    datasets = []
+    for name in list(ds_a) + [n for n in ds_b if n not in ds_a]:
+        x, y = ds_a.get(name), ds_b.get(name)
+        datasets.append({
+            "name": name,
+            "file": [x and x["file"], y and y["file"]],
+            "sha256": [x and x["sha256"], y and y["sha256"]],
+            "same_bytes": bool(x and y and x["sha256"] == y["sha256"]),
+            "rows_read": [x and x["rows_read"], y and y["rows_read"]],
+            "rows_used": [x and x["rows_used"], y and y["rows_used"]],
+        })
+    an_a = {r["id"]: r for r in a["analyses"]}
+    an_b = {r["id"]: r for r in b["analyses"]}
+    analyses = []
+    for aid in list(an_a) + [i for i in an_b if i not in an_a]:
+        x, y = an_a.get(aid), an_b.get(aid)
+        methods = []
+        for side in (x, y):
+            for i in (side or {}).get("intervals") or []:
+                if i["method"] not in methods:
+                    methods.append(i["method"])
+        analyses.append({
+            "id": aid,
+            "in": "both" if x and y else ("A only" if x else "B only"),
+            "method": (x or y)["method"],
+            "estimate": [x and x["estimate"], y and y["estimate"]],
+            "estimate_change": _change(x and x["estimate"], y and y["estimate"]),
+            "intervals": [{"method": m, "a": _interval(x, m), "b": _interval(y, m)} for m in methods],
+            "p_value": [x and x["p_value"], y and y["p_value"]],
+            "p_value_change": _change(x and x["p_value"], y and y["p_value"]),
+            "adjusted": _adjusted(x, y),
+            "n": [x and x["n"]["groups"], y and y["n"]["groups"]],
+            "settings_changed": bool(x and y and x.get("settings") != y.get("settings")),
+        })
+    return {
+        "runs": [{"run_id": r["run_id"], "finished_utc": r["finished_utc"], "operator": r["operator"],
+                  "plan_id": r["plan"]["id"], "plan_sha256": r["plan"]["sha256"],
+                  "parameters": r.get("parameters") or {}} for r in (a, b)],
+        "plan_same_bytes": a["plan"]["sha256"] == b["plan"]["sha256"],
+        "plan_changes": plan_changes,
+        "parameter_changes": param_changes,
+        "environment_changes": env_changes,
+        "datasets": datasets,
+        "analyses": analyses,
+    }
+
+
+def _signed(x: float | None, p: bool = False) -> str:
+    if x is None:
+        return ""
+    if x == 0:
+        return "0"
+    return ("+" if x > 0 else "") + (f"{x:.4g}" if p else number(x))
+
+
+def _pair(values: list[Any], fmt=number) -> list[str]:
+    return [fmt(v) if v is not None else "—" for v in values]
+
+
+def _sections(c: dict[str, Any]) -> list[tuple[str, list[str], list[list[str]]]]:
+    """(heading, header, rows) for every table; shared by the three renderers."""
+    ra, rb = c["runs"]
+    out = [("Runs", ["", "A", "B"], [
+        ["run id", ra["run_id"], rb["run_id"]],
+        ["finished (UTC)", ra["finished_utc"], rb["finished_utc"]],
+        ["operator", ra["operator"], rb["operator"]],
+        ["plan", ra["plan_id"], rb["plan_id"]],
+        ["plan SHA-256", ra["plan_sha256"][:16], rb["plan_sha256"][:16]],
+        ["parameters", ", ".join(f"{k}={v}" for k, v in ra["parameters"].items()) or "—",
+         ", ".join(f"{k}={v}" for k, v in rb["parameters"].items()) or "—"],
+    ])]
+    rows = []
+    for x in c["analyses"]:
+        rows.append([x["id"], x["in"], *_pair(x["estimate"]), _signed(x["estimate_change"]),
+                     *_pair(x["p_value"], pvalue), _signed(x["p_value_change"], p=True)])
+    out.append(("Estimates and p-values", ["analysis", "in", "estimate A", "estimate B", "change",
+                                           "p-value A", "p-value B", "change"], rows))
+    rows = [[x["id"], p["method"], *_pair([p["a"], p["b"]], pvalue), _signed(p["change"], p=True)]
+            for x in c["analyses"] for p in x["adjusted"]]
+    if rows:
+        out.append(("Adjusted p-values", ["analysis", "adjustment", "A", "B", "change"], rows))
+    rows = [[x["id"], i["method"], i["a"] or "—", i["b"] or "—"] for x in c["analyses"] for i in x["intervals"]]
+    if rows:
+        out.append(("Intervals", ["analysis", "method", "A", "B"], rows))
+    rows = []
+    for d in c["datasets"]:
+        rows.append([d["name"], " / ".join(str(f) for f in d["file"]), "same" if d["same_bytes"] else "changed",
+                     *[str(v) if v is not None else "—" for v in d["rows_read"]],
+                     *[str(v) if v is not None else "—" for v in d["rows_used"]],
+                     (d["sha256"][0] or "—")[:12], (d["sha256"][1] or "—")[:12]])
+    out.append(("Data", ["dataset", "file (A / B)", "contents", "rows read A", "rows read B", "rows used A",
+                         "rows used B", "SHA-256 A", "SHA-256 B"], rows))
+    plan_rows = [[p["path"], _short(p["a"]), _short(p["b"])] for p in c["plan_changes"]]
+    if not plan_rows:
+        plan_rows = [["(none)", "same bytes" if c["plan_same_bytes"] else "same content, other layout", ""]]
+    out.append(("Plan differences", ["path", "A", "B"], plan_rows))
+    env_rows = [[p["path"], _short(p["a"]), _short(p["b"])] for p in c["environment_changes"]] or [["(none)", "", ""]]
+    out.append(("Environment differences", ["field", "A", "B"], env_rows))
+    return out
+
+
+def _short(value: Any, width: int = 48) -> str:
+    text = "—" if value is None else str(value)
+    return text if len(text) <= width else text[: width - 1] + "…"
+
+
+def render_text(c: dict[str, Any]) -> str:
+    blocks = []
+    for heading, header, rows in _sections(c):
+        table = [header] + rows
+        widths = [max(len(r[i]) for r in table) for i in range(len(header))]
+        lines = ["  ".join(cell.ljust(w) for cell, w in zip(r, widths)).rstrip() for r in table]
+        lines.insert(1, "  ".join("-" * w for w in widths))
+        blocks.append(f"{heading}\n" + "\n".join(lines))
+    return "\n\n".join(blocks) + "\n"
+
+
+def _md(cell: str) -> str:
+    return cell.replace("|", "\\|").replace("\n", " ")
+
+
+def render_markdown(c: dict[str, Any]) -> str:
+    ra, rb = c["runs"]
+    parts = [f"# Comparison of two runs\n\nA: `{ra['run_id']}` ({ra['finished_utc']}); "
+             f"B: `{rb['run_id']}` ({rb['finished_utc']}). Changes are B minus A.\n"]
+    for heading, header, rows in _sections(c):
+        lines = ["| " + " | ".join(_md(h) for h in header) + " |", "|" + "---|" * len(header)]
+        lines += ["| " + " | ".join(_md(cell) for cell in r) + " |" for r in rows]
+        parts.append(f"## {heading}\n\n" + "\n".join(lines) + "\n")
+    return "\n".join(parts)
+
+
+def render_html(c: dict[str, Any]) -> str:
+    ra, rb = c["runs"]
+    e = html.escape
+    body = [f"<h1>Comparison of two runs</h1><p>A: <code>{e(ra['run_id'])}</code> ({e(ra['finished_utc'])}); "
+            f"B: <code>{e(rb['run_id'])}</code> ({e(rb['finished_utc'])}). Changes are B minus A.</p>"]
+    for heading, header, rows in _sections(c):
+        head = "".join(f"<th>{e(h)}</th>" for h in header)
+        cells = "".join("<tr>" + "".join(f"<td>{e(cell)}</td>" for cell in r) + "</tr>" for r in rows)
+        body.append(f"<h2>{e(heading)}</h2><table><thead><tr>{head}</tr></thead><tbody>{cells}</tbody></table>")
+    style = ("body{font-family:system-ui,sans-serif;margin:2em;color:#222}table{border-collapse:collapse;"
+             "margin-bottom:1.5em}th,td{border:1px solid #bbb;padding:.25em .6em;text-align:left}"
+             "th{background:#eee}code{font-size:.95em}")
+    return ("<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\"><title>Comparison of two runs</title>"
+            f"<style>{style}</style></head><body>\n" + "\n".join(body) + "\n</body></html>\n")

@@ -1,0 +1,202 @@
+"""HTML and Markdown views of a record.
+
+Templates live in the top-level `templates/` folder (shipped inside the wheel as
+`planrunner/templates`). They only format: every number they show is already in the record, printed
+to the precision its Monte Carlo error supports (planrunner/precision.py). The pictures are drawn by
+planrunner/plots.py from the record alone; the HTML report embeds them as inline SVG, so it is one
+self-contained file that opens offline and from an e-mail attachment, and the Markdown report links
+to them as SVG files in figures/ beside it.
+"""
+
+from __future__ import annotations
+
+import functools
+import importlib.resources
+import json
+import re
+from pathlib import Path
+from typing import TYPE_CHECKING, Any
+
+import jinja2
+from markupsafe import Markup, escape
+
+from planrunner.report import digits as precision
+from planrunner.report.digits import significant
+
+if TYPE_CHECKING:  # matplotlib is imported only when a report is drawn
+    from planrunner.report import plots
+
+
+def templates_folder() -> Path:
+    """The templates inside an installed wheel, else the repository's top-level folder."""
+    packaged = importlib.resources.files("planrunner") / "templates"
+    if packaged.is_dir():
+        return Path(str(packaged))
+    return Path(__file__).resolve().parents[2] / "templates"
+
+
+@functools.lru_cache(maxsize=None)
+def _environment(kind: str) -> jinja2.Environment:
+    env = jinja2.Environment(
+        loader=jinja2.FileSystemLoader(str(templates_folder())),
+        autoescape=(kind == "html"),
+        undefined=jinja2.StrictUndefined,
+        trim_blocks=True,
+        lstrip_blocks=True,
+        keep_trailing_newline=True,
+    )
+    env.filters["num"] = number
+    env.filters["pvalue"] = pvalue
+    env.filters["md"] = markdown_text
+    env.filters["code"] = markdown_code
+    env.filters["cellcode"] = lambda value: markdown_code(value).replace("|", "\\|")  # GFM table cells
+    env.filters["mc"] = precision.with_mc
+    env.filters["sd"] = precision.mc_sd
+    env.filters["p"] = precision.p_value
+    env.filters["plain"] = plain
+    env.filters["count"] = precision.count
+    env.filters["exactness"] = exactness
+    env.globals["fence"] = markdown_fence
+    return env
+
+
+# the reports' and the terminal's plain number: 4 significant digits, '—' for a missing one
+number = precision.significant
+
+
+def pvalue(value: Any) -> str:
+    if value is None:
+        return "—"
+    return f"{value:.4g}" if value >= 1e-4 else f"{value:.2e}"
+
+
+FIGURES_FOLDER = "figures"
+
+# which number a warning concerns, so the report shows it beside that number; others go above the table
+CONCERNS = {
+    "bca-non-smooth": "interval:bca", "bca-undefined": "interval:bca", "few-resamples-in-tail": "intervals",
+    "mc-error-straddles-alpha": "p_value", "few-arrangements": "p_value",
+    "jackknife-non-smooth": "standard_error", "non-finite-replicates": "standard_error",
+    "degenerate-distribution": "standard_error", "small-sample": "n", "single-observation-cell": "n",
+}
+
+
+def markdown_text(value: Any) -> str:
+    """Text from the plan or data, inert in Markdown: no HTML, links, images, emphasis or code."""
+    text = str(value).replace("\r", " ").replace("\n", " ")
+    text = "".join("\\" + c if c in "\\`*_[]|~" else c for c in text)
+    return text.replace("&", "&amp;").replace("<", "&lt;").replace(">", "&gt;")
+
+
+def markdown_code(value: Any) -> str:
+    """An inline code span that no backtick inside `value` can close early."""
+    text = str(value).replace("\r", " ").replace("\n", " ")
+    run = max((len(m) for m in re.findall(r"`+", text)), default=0)
+    ticks = "`" * (run + 1)
+    pad = " " if text.startswith("`") or text.endswith("`") else ""
+    return f"{ticks}{pad}{text}{pad}{ticks}"
+
+
+def exactness(entry: dict[str, Any]) -> str:
+    """How an exact result was obtained, in words."""
+    if (entry.get("details") or {}).get("computation") == "dynamic programming":
+        return "exact null distribution by dynamic programming: no Monte Carlo error"
+    if entry.get("method") == "bootstrap":
+        return "every distinct resample enumerated with its probability: no Monte Carlo error"
+    return "every arrangement enumerated: no Monte Carlo error"
+
+
+def markdown_fence(text: str) -> str:
+    """A code-fence marker longer than any backtick run in `text` (CommonMark closes on ≥ length)."""
+    run = max((len(m) for m in re.findall(r"`+", text)), default=0)
+    return "`" * max(3, run + 1)
+
+
+def plain(value: Any) -> str:
+    """A JSON value as compact text (for lock entries and deviations, whose shape varies)."""
+    if isinstance(value, (dict, list)):
+        return json.dumps(value, sort_keys=True, ensure_ascii=False)
+    return "—" if value is None else str(value)
+
+
+def _analysis_view(index: int, entry: dict[str, Any]) -> dict[str, Any]:
+    """What the templates need beyond the record entry: pictures and warnings sorted by concern."""
+    from planrunner.report import plots
+
+    figures = []
+    for k, plot in enumerate(_plots(json.dumps(entry, sort_keys=True, ensure_ascii=False))):
+        figures.append({"name": plot.name, "file": f"{FIGURES_FOLDER}/{plot.name}.svg", "alt": plot.alt,
+                        "svg": plot.svg, "inline": Markup(plots.inline_svg(plot, f"f{index}-{k}-", _escape_text))})
+    concerns: dict[str, list[dict[str, Any]]] = {}
+    interval_methods = {i.get("method") for i in entry.get("intervals") or []}
+    for warning in entry.get("warnings") or []:
+        where = CONCERNS.get(warning.get("code"), "general")
+        if where.startswith("interval:") and where.split(":", 1)[1] not in interval_methods:
+            where = "intervals"
+        if where == "intervals" and not interval_methods:
+            where = "general"
+        if where == "p_value" and entry.get("p_value") is None:
+            where = "general"
+        concerns.setdefault(where, []).append(warning)
+    bands = (entry.get("monte_carlo") or {}).get("intervals") or []
+    return {"figures": figures, "warnings": concerns,
+            "bands": [bands[i] if i < len(bands) else {} for i in range(len(entry.get("intervals") or []))]}
+
+
+@functools.lru_cache(maxsize=64)
+def _plots(entry_json: str) -> tuple[plots.Plot, ...]:
+    """The pictures of one record entry; drawing is slow and pure, so the same entry is drawn once."""
+    from planrunner.report import plots  # matplotlib loads only when a report is drawn (not for `check` or `--version`)
+
+    return tuple(plots.plots_for(json.loads(entry_json), significant, precision.p_value))
+
+
+def _adjusted_view(record: dict[str, Any]) -> dict[str, list[dict[str, Any]]]:
+    """Adjusted p-values per analysis, each printed to the precision of rule 5 (precision.py)."""
+    by_id = {a["id"]: a for a in record["analyses"]}
+    out: dict[str, list[dict[str, Any]]] = {a["id"]: [] for a in record["analyses"]}
+    for family in record.get("multiplicity") or []:
+        sds = [((by_id.get(i) or {}).get("monte_carlo") or {}).get("p_value_sd") for i in family["family"]]
+        bound = precision.adjusted_sd(family["method"], sds)
+        for i in family["family"]:
+            out.setdefault(i, []).append({"method": family["method"],
+                                          "label": family.get("method_label", family["method"]),
+                                          "p_value": family["adjusted"].get(i),
+                                          "text": precision.p_value(family["adjusted"].get(i), bound),
+                                          "sd_bound": bound})
+    return out
+
+
+def _escape_text(text: str) -> str:
+    return str(escape(text))
+
+
+def _context(record: dict[str, Any]) -> dict[str, Any]:
+    return {"record": record,
+            "views": {a["id"]: _analysis_view(i, a) for i, a in enumerate(record["analyses"])},
+            "adjusted": _adjusted_view(record),
+            "p_sd": {a["id"]: (a.get("monte_carlo") or {}).get("p_value_sd") for a in record["analyses"]}}
+
+
+def _render(context: dict[str, Any], kind: str) -> str:
+    template = _environment(kind).get_template("report.html.j2" if kind == "html" else "report.md.j2")
+    return template.render(**context)
+
+
+def render(record: dict[str, Any], kind: str) -> str:
+    """The report for `kind` ('html' or 'md') as text; a pure function of the record."""
+    return _render(_context(record), kind)
+
+
+def render_all(record: dict[str, Any]) -> dict[str, str]:
+    """Every report file of a run, by path relative to the run folder: report.html, report.md and
+    the pictures the Markdown report links to (figures/NAME.svg). The pictures are drawn once."""
+    from planrunner.report import plots
+
+    context = _context(record)
+    files = {"report.html": _render(context, "html"), "report.md": _render(context, "md")}
+    for view in context["views"].values():
+        for figure in view["figures"]:
+            files[figure["file"]] = plots.file_svg(plots.Plot(figure["name"], figure["svg"], figure["alt"]),
+                                                   _escape_text)
+    return files
