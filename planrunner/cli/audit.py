@@ -10,6 +10,8 @@ import argparse
 import json
 from typing import Any, Callable
 
+from planrunner.cli.options import DATA_ROOT_HELP, add_execution_options, execution_of
+
 # the exit codes of planrunner.cli.main (DESIGN.md §5), repeated so that this module imports on its own
 EXIT_OK, EXIT_INPUT, EXIT_DIFFERS = 0, 2, 3
 MAX_ROWS = 40  # differing fields listed in full before "... and N more"
@@ -35,7 +37,6 @@ def _add_audit_verbs(verbs: Any) -> None:
     verify = verbs.add_parser("verify", help="re-run a record and compare every number")
     verify.add_argument("record", help="record.json or its run folder")
     verify.add_argument("--plan", help="the plan file whose folder holds the data (default: found above the run folder)")
-    from planrunner.cli.main import DATA_ROOT_HELP, add_execution_options  # cli imports this module; by now it is loaded
     add_execution_options(verify)
     verify.add_argument("--data-root", metavar="DIR", help=DATA_ROOT_HELP)
 
@@ -113,7 +114,6 @@ def _table(header: tuple[str, ...], rows: list[tuple[str, ...]]) -> str:
 
 def _verify(args: argparse.Namespace) -> int:
     from planrunner.audit.verbs import describe, verify_record
-    from planrunner.cli.main import execution_of
     report = verify_record(args.record, plan=args.plan, execution=execution_of(args), data_root=args.data_root)
     print(f"verifying {report.record_file} against the plan folder {report.plan_file.parent}")
     for note in report.notes:

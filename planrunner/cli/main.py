@@ -15,6 +15,9 @@ from typing import TYPE_CHECKING, Any, Sequence
 from planrunner import __version__
 from planrunner.errors import PlanrunnerError
 from planrunner.report.render import number, pvalue
+from planrunner.cli.audit import (AUDIT_VERBS, _add_audit_run_options, _add_audit_verbs, audit_summary,
+                        check_lock_summary)
+from planrunner.cli.options import DATA_ROOT_HELP, add_execution_options, execution_of
 
 if TYPE_CHECKING:
     from planrunner.execute.executors import Execution
@@ -29,10 +32,6 @@ class _Parser(argparse.ArgumentParser):
               if " " in self.prog else f"planrunner: error: {message} (see 'planrunner --help')",
               file=sys.stderr)
         raise SystemExit(EXIT_INPUT)
-
-
-DATA_ROOT_HELP = ("look up the plan's data files under DIR instead of the plan's folder; "
-                  "they must resolve inside DIR")
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -110,26 +109,6 @@ def _check(args: argparse.Namespace) -> int:
     return EXIT_OK
 
 
-def add_execution_options(verb: argparse.ArgumentParser) -> None:
-    """--workers, --executor and --scheduler (run and verify): where the work runs, never what it gives."""
-    verb.add_argument("--workers", type=int, metavar="N",
-                      help="workers (default 1: serial; more than 1 runs local processes)")
-    verb.add_argument("--executor", choices=("serial", "threads", "processes", "dask"),
-                      help="where the jobs run (default: serial, or processes with --workers N > 1; threads "
-                           "share one process, the lightest on a few cores); the numbers are the same")
-    verb.add_argument("--scheduler", metavar="ADDRESS",
-                      help="dask: address of a running scheduler (default: a local cluster on loopback)")
-
-
-def execution_of(args: argparse.Namespace) -> Execution:
-    """The executor the options ask for: serial unless --workers N > 1 or --executor says otherwise."""
-    from planrunner.execute.executors import Execution
-    executor = args.executor or ("dask" if args.scheduler else
-                                 "processes" if args.workers is not None and args.workers > 1 else "serial")
-    workers = args.workers if args.workers is not None else 1 if executor == "serial" else 2
-    return Execution(executor, workers, args.scheduler)
-
-
 class ProgressBar:
     """Resamples done / total and the time left, on stderr; only for a terminal and long runs."""
 
@@ -192,10 +171,6 @@ def summary_table(record: dict) -> str:
     lines = ["  ".join(cell.ljust(w) for cell, w in zip(r, widths)).rstrip() for r in rows]
     lines.insert(1, "  ".join("-" * w for w in widths))
     return f"{record['plan']['title']}\n" + "\n".join(lines)
-
-
-from planrunner.cli.audit import (AUDIT_VERBS, _add_audit_run_options, _add_audit_verbs, audit_summary,  # noqa: E402
-                        check_lock_summary)
 
 
 if __name__ == "__main__":  # pragma: no cover

@@ -396,6 +396,3 @@ def take_observations(a: np.ndarray, index: np.ndarray) -> np.ndarray:
         return a[index]
     return np.stack([a[:, c][index] for c in range(a.shape[1])], axis=-2)
 
-
-# test statistics for permutation tests live in their own module and register themselves here
-from planrunner.engines import teststats as _teststats  # noqa: E402,F401

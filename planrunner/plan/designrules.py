@@ -1,5 +1,5 @@
 """Plan rules of the resampling design (bootstrap and jackknife): which schemes, statistics and
-intervals go together. Called from `plancheck.cross_check` for every analysis; returns problems
+intervals go together. Called from `planrunner.plan.load.cross_check` for every analysis; returns problems
 with the plan path so that they are reported as FILE:LINE:COL like every other plan error."""
 
 from __future__ import annotations
@@ -7,11 +7,10 @@ from __future__ import annotations
 from typing import Any
 
 from planrunner.engines.statistics import Statistic
+from planrunner.plan.problems import Problem
 
 
-def check_resampling_design(at: tuple, a: Any, statistic: Statistic) -> list:
-    from planrunner.plan.load import Problem  # plancheck imports this module; Problem is defined there
-
+def check_resampling_design(at: tuple, a: Any, statistic: Statistic) -> list[Problem]:
     out: list[Problem] = []
     if a.pairs is not None and a.method == "bootstrap":
         if statistic.samples != 2 or statistic.columns != 1:

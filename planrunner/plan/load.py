@@ -6,7 +6,6 @@ so a plan author can fix them all in one pass.
 
 from __future__ import annotations
 
-import difflib
 import hashlib
 import typing
 from dataclasses import dataclass
@@ -21,6 +20,7 @@ from planrunner.plan.designrules import check_resampling_design
 from planrunner.errors import ExpressionError, PlanError
 from planrunner.plan.expr import parse_expression
 from planrunner.plan.params import parameter_problems
+from planrunner.plan.problems import Problem, did_you_mean
 from planrunner.plan.schema import METHODS, Plan
 from planrunner.plan.yamlsafe import MAX_PLAN_BYTES, LoadedYaml, Path_, dotted, load_yaml
 from planrunner.plan import permrules as permcheck
@@ -34,15 +34,6 @@ GROUPING_TYPES = ("category", "boolean", "integer", "text")
 
 
 @dataclass(frozen=True)
-class Problem:
-    path: Path_
-    message: str
-    hint: str | None = None
-    at_key: bool = False  # point at the key (unknown keys) rather than at its value
-    offset: int = 0  # extra columns into the value (a position inside an expression)
-
-
-@dataclass(frozen=True)
 class LoadedPlan:
     plan: Plan
     file: Path  # resolved path of the plan file
@@ -53,11 +44,6 @@ class LoadedPlan:
     @property
     def folder(self) -> Path:
         return self.file.parent
-
-
-def did_you_mean(word: str, choices: typing.Iterable[str]) -> str | None:
-    match = difflib.get_close_matches(str(word), list(choices), n=1, cutoff=0.6)
-    return f"did you mean '{match[0]}'?" if match else None
 
 
 def read_plan(path: str | Path) -> LoadedPlan:

@@ -14,6 +14,7 @@ import re
 from typing import Any, Iterator
 
 from planrunner.errors import PlanError
+from planrunner.plan.problems import did_you_mean
 from planrunner.plan.schema import Parameter, Plan
 
 PLACEHOLDER = re.compile(r"\{([A-Za-z_][A-Za-z0-9_]*)\}")
@@ -82,7 +83,6 @@ def parameter_problems(plan: Plan) -> list[ProblemTuple]:
         templated.add(path)
         for m in PLACEHOLDER.finditer(text):
             if m.group(1) not in declared:
-                from planrunner.plan.load import did_you_mean  # late import: plancheck imports this module
                 out.append((path, f"placeholder '{{{m.group(1)}}}' names no declared parameter",
                             did_you_mean(m.group(1), declared) or "declare it under parameters:"))
     used = {m.group(1) for _, text in _templated_fields(plan) for m in PLACEHOLDER.finditer(text)}
@@ -156,7 +156,6 @@ def resolve_values(plan: Plan, given: dict[str, str], *, require: bool = True) -
     declared = plan.parameters
     for name in given:
         if name not in declared:
-            from planrunner.plan.load import did_you_mean
             hint = did_you_mean(name, declared) or (
                 f"declared: {', '.join(declared)}" if declared else "the plan declares no parameters")
             problems.append(f"--param {name}: the plan declares no parameter '{name}' ({hint})")

@@ -1,4 +1,4 @@
-"""Plan rules for permutation analyses and max-T families (called from `plancheck.cross_check`).
+"""Plan rules for permutation analyses and max-T families (called from `planrunner.plan.load.cross_check`).
 
 The design decides the scheme: groups → labels shuffled (within strata); pairs → sign-flip within
 pairs; clusters → cluster labels shuffled; predictor without groups → outcome shuffled against the
@@ -12,13 +12,13 @@ from typing import Any
 
 from planrunner.engines.statistics import Statistic
 from planrunner.engines.teststats import K_GROUP, PAIRED_ONLY
+from planrunner.plan.problems import Problem
 
 SHIFT_STATISTICS = ("mean_difference", "median_difference", "rank_sum", "t_pooled", "t_welch")
 
 
-def statistic_checks(at: tuple, a: Any) -> list:
+def statistic_checks(at: tuple, a: Any) -> list[Problem]:
     """Rules of the test statistics that hold for every method."""
-    from planrunner.plan.load import Problem  # plancheck imports this module
 
     if a.statistic in PAIRED_ONLY and a.pairs is None:
         return [Problem(at + ("statistic",), f"'{a.statistic}' is a statistic of pairs but the analysis "
@@ -26,9 +26,7 @@ def statistic_checks(at: tuple, a: Any) -> list:
     return []
 
 
-def permutation_checks(at: tuple, a: Any, statistic: Statistic) -> list:
-    from planrunner.plan.load import Problem  # plancheck imports this module
-
+def permutation_checks(at: tuple, a: Any, statistic: Statistic) -> list[Problem]:
     out: list = []
     if statistic.samples == 1 and statistic.columns == 1:
         out.append(Problem(at + ("statistic",), f"'{a.statistic}' describes one sample; a permutation test "
@@ -79,9 +77,8 @@ def permutation_checks(at: tuple, a: Any, statistic: Statistic) -> list:
     return out
 
 
-def max_t_checks(at: tuple, members: list) -> list:
+def max_t_checks(at: tuple, members: list) -> list[Problem]:
     """Westfall–Young max-T needs the same permutations for every endpoint: one dataset, one design."""
-    from planrunner.plan.load import Problem
 
     first = members[0]
     out: list = []
