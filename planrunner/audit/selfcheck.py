@@ -79,6 +79,23 @@ def _boot_se(samples: Sequence[np.ndarray], statistic: str, case: str) -> float:
     return float(result.standard_error)
 
 
+def doubled_p_sd_ratio(seeds: int = 400, resamples: int = 2000) -> float:
+    """Spread of the doubled two-sided Monte Carlo p over independent streams, divided by the stated s.d.
+
+    Mouse data, mean difference; exact p₁ = 1613/11440 (E&T Table 2.1 data), so the stated s.d. of the
+    doubled p is 2·sqrt(p₁(1 − p₁)/m). The ratio is 1 up to the sampling error of an s.d. from
+    ``seeds`` values (relative s.d. about 1/sqrt(2·seeds) = 3.5% at 400).
+    """
+    p_values, stated = [], []
+    for seed in range(seeds):
+        result = permutation_test(_mouse(), get_statistic("mean_difference"), resamples=resamples,
+                                  alternative="two-sided", exact="never",
+                                  stream=stream_for(SELFCHECK_SEED, f"selfcheck-doubled-sd-{seed}"))
+        p_values.append(result.p_value)
+        stated.append(result.monte_carlo_se)
+    return float(np.std(p_values, ddof=1) / np.mean(stated))
+
+
 def _max_abs(a: Sequence[float], b: Sequence[float]) -> float:
     return float(np.max(np.abs(np.asarray(a, float) - np.asarray(b, float))))
 
@@ -124,6 +141,9 @@ CASES: tuple[Case, ...] = (
     Case("BS-STRAT se", "two-sample bootstrap SE of the mean difference, B = 2000 (ideal 26.908)",
          "E&T §8.3 (26.85 at B = 1400); REFERENCES.md BS-STRAT, ±4 MC s.d.", 26.908107910089, 1.7,
          lambda: _boot_se(_mouse(), "mean_difference", "selfcheck-mouse-difference")),
+    Case("MC-DOUBLED sd", "s.d. of the doubled two-sided Monte Carlo p over 400 streams ÷ stated s.d., m = 2000",
+         "identity: Var(2·p₁) = 4·p₁(1 − p₁)/m (binomial); ±10% (about 3 s.d. of an s.d. from 400 values)", 1.0, 0.1,
+         doubled_p_sd_ratio),
     Case("BS-LAW se", "bootstrap SE of r, B = 2000", "E&T ch. 6 (.132); REFERENCES.md BS-LAW, ±4 MC s.d.",
          0.1338, 0.0103, lambda: _boot_se(_law(), "correlation", "selfcheck-law")),
 )

@@ -135,7 +135,7 @@ class PermutationResult:
     p_less: float | None = None
     count_absolute: float | None = None  # |T* − centre| ≥ |t − centre| − tolerance
     centre: float = 0.0
-    monte_carlo_se: float | None = None  # sqrt(p (1 − p) / m); None when exact
+    monte_carlo_se: float | None = None  # pvalues.monte_carlo_sd; None when exact
     p_interval: tuple[float, float] | None = None  # Clopper–Pearson for the full-enumeration p
     smallest_p: float | None = None  # the smallest p-value these arrangements can give
     null_weights: np.ndarray | None = None  # arrangements at each null value (exact DP); None: one each
