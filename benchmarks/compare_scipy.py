@@ -48,7 +48,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parents[1]))  # run from a check
 from planrunner import __version__  # noqa: E402
 from planrunner.execute import executors as execute  # noqa: E402,F401  (registered statistics then pickle by name)
 from planrunner.engines.blocks import mapping_ranges, resample_ranges  # noqa: E402
-from planrunner.engines.bootstrap import bootstrap  # noqa: E402
+from planrunner.engines.bootstrap import BootstrapOptions, bootstrap  # noqa: E402
 from planrunner.engines.jackknife import jackknife  # noqa: E402
 from planrunner.engines.permutation import permutation_test  # noqa: E402
 from planrunner.engines.signflip import signflip_test  # noqa: E402
@@ -126,7 +126,7 @@ def workloads(seed: int) -> list[Workload]:
     B = 10_000
 
     def boot(data, statistic, intervals):
-        return lambda: bootstrap(data, statistic, resamples=B, confidence=0.95, intervals=intervals,
+        return lambda: bootstrap(data, statistic, BootstrapOptions(B, 0.95, tuple(intervals)),
                                  stream=stream_for(seed, "benchmark"))
 
     def sboot(data, statistic, method):
@@ -175,7 +175,7 @@ def workloads(seed: int) -> list[Workload]:
         Workload("F1", "the 1e8 uniforms of W1 drawn and nothing else, one core (ratio: W1's ceiling)",
                  _draws_only(seed, B, x.size), sboot((x,), _mean, "percentile"), lambda o, r: "", None, 200),
         Workload("L1", "bootstrap mean, n = 1e6, B = 1e4 (planrunner only)",
-                 lambda: bootstrap([big], mean, resamples=B, confidence=0.95, intervals=["percentile"],
+                 lambda: bootstrap([big], mean, BootstrapOptions(B, 0.95, ("percentile",)),
                                    stream=stream_for(seed, "benchmark")),
                  None, lambda o, r: f"SE {o.standard_error:.4g}", None, 1024),
     ]
@@ -236,8 +236,8 @@ def main(argv: list[str] | None = None) -> int:
         pool = multiprocessing.get_context("spawn").Pool(args.workers)
         # warm up: the workers import planrunner on their first task, which no workload should pay
         warm = np.arange(50.0)
-        _on_pool(lambda: bootstrap([warm], get_statistic("mean"), resamples=4000 * args.workers, confidence=0.95,
-                                   intervals=["percentile"], stream=stream_for(1, "warm-up")), pool, args.workers)()
+        _on_pool(lambda: bootstrap([warm], get_statistic("mean"), BootstrapOptions(4000 * args.workers, 0.95,
+                                   ("percentile",)), stream=stream_for(1, "warm-up")), pool, args.workers)()
     chosen = None if args.only is None else set(args.only.upper().split(","))
 
     print(f"planrunner {__version__}, numpy {np.__version__}, scipy {scipy.__version__}, "

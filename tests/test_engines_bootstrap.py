@@ -13,6 +13,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from planrunner.engines.bootstrap import (
+    BootstrapOptions,
     bca_acceleration,
     bca_levels,
     bootstrap,
@@ -48,8 +49,9 @@ PEARSON = Statistic("pearson", "correlation", 1, True, "numeric", _pearson, colu
 def run(samples, name_or_stat, *, B=2000, confidence=0.95, intervals=("percentile",), seed=2026,
         analysis="test", **kw):
     stat = get_statistic(name_or_stat) if isinstance(name_or_stat, str) else name_or_stat
-    return bootstrap(samples, stat, resamples=B, confidence=confidence, intervals=list(intervals),
-                     stream=stream_for(seed, analysis), **kw)
+    design = {k: kw.pop(k) for k in ("strata", "clusters", "paired", "batch_elements") if k in kw}
+    options = BootstrapOptions(resamples=B, confidence=confidence, intervals=tuple(intervals), **kw)
+    return bootstrap(samples, stat, options, stream=stream_for(seed, analysis), **design)
 
 
 def codes(result) -> list[str]:
@@ -131,8 +133,8 @@ def test_strata_keep_cells_and_give_stratified_variance() -> None:
 
 def test_draw_contract_by_hand_one_group() -> None:
     stream = stream_for(31, "contract")
-    result = bootstrap([TREATMENT], get_statistic("mean"), resamples=DRAW_BLOCK + 3, confidence=0.9,
-                       intervals=[], stream=stream)
+    result = bootstrap([TREATMENT], get_statistic("mean"), BootstrapOptions(DRAW_BLOCK + 3, 0.9, ()),
+                       stream=stream)
     # documented contract, spelled out: row r of block r // 1000; index floor(u * n)
     for r in (0, 1, 2, DRAW_BLOCK, DRAW_BLOCK + 2):
         gen = stream.generator(r // DRAW_BLOCK)
@@ -146,8 +148,8 @@ def test_draw_contract_by_hand_strata_and_groups() -> None:
     y = np.array([10.0, 30, 20])
     y_codes = np.array([1, 1, 0])
     stream = stream_for(8, "cells")
-    result = bootstrap([x, y], get_statistic("mean_difference"), resamples=5, confidence=0.9,
-                       intervals=[], stream=stream, strata=[x_codes, y_codes])
+    result = bootstrap([x, y], get_statistic("mean_difference"), BootstrapOptions(5, 0.9, ()),
+                       stream=stream, strata=[x_codes, y_codes])
     # cells group-major then code order: x codes 0 -> [1, 2], 1 -> [4], 2 -> [5, 7, 9]; y: 0 -> [20], 1 -> [10, 30]
     laid = np.array([1.0, 2, 4, 5, 7, 9, 20, 10, 30])
     start = np.array([0, 0, 2, 3, 3, 3, 6, 7, 7])
@@ -170,7 +172,7 @@ def test_batch_size_never_changes_the_numbers(case: str) -> None:
         strata = [np.array([0, 1, 0, 1, 0, 1, 1]), np.array([1, 1, 0, 0, 1, 0, 1, 0, 2])]
     else:
         samples, stat, strata = [SPATIAL_A], get_statistic(case), None
-    results = [bootstrap(samples, stat, resamples=2345, confidence=0.9, intervals=["percentile", "bca"],
+    results = [bootstrap(samples, stat, BootstrapOptions(2345, 0.9, ("percentile", "bca")),
                          stream=stream_for(1, "batch"), strata=strata, batch_elements=b)
                for b in (1, 700, 10 ** 9)]
     for other in results[1:]:

@@ -16,7 +16,7 @@ from scipy import stats
 from scipy.special import ndtri
 
 from planrunner.engines import schemes
-from planrunner.engines.bootstrap import bootstrap
+from planrunner.engines.bootstrap import BootstrapOptions, bootstrap
 from planrunner.engines.intervals import bca_levels, read_quantile
 from planrunner.engines.jackknife import jackknife
 from planrunner.engines.statistics import get_statistic
@@ -34,8 +34,10 @@ PATCH = np.column_stack([OLD - PLACEBO, NEW - OLD])  # (predictor z, outcome y):
 
 
 def boot(samples, name, *, B=2000, intervals=("percentile",), confidence=0.9, seed=2026, **kw):
-    return bootstrap(samples, get_statistic(name) if isinstance(name, str) else name, resamples=B,
-                     confidence=confidence, intervals=list(intervals), stream=stream_for(seed, "designs"), **kw)
+    design = {k: kw.pop(k) for k in ("strata", "clusters", "paired", "batch_elements") if k in kw}
+    options = BootstrapOptions(resamples=B, confidence=confidence, intervals=tuple(intervals), **kw)
+    return bootstrap(samples, get_statistic(name) if isinstance(name, str) else name, options,
+                     stream=stream_for(seed, "designs"), **design)
 
 
 def by_method(result):

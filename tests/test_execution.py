@@ -12,7 +12,7 @@ import numpy as np
 import pytest
 
 from planrunner.cli import main as cli
-from planrunner.engines.bootstrap import bootstrap
+from planrunner.engines.bootstrap import BootstrapOptions, bootstrap
 from planrunner.engines.permutation import permutation_test
 from planrunner.engines.statistics import get_statistic
 from planrunner.engines.streams import stream_for
@@ -136,7 +136,7 @@ def test_memory_of_one_engine_call_stays_bounded_as_resamples_grow(method: str) 
 
     def call(resamples: int):
         if method == "bootstrap":
-            return lambda: bootstrap(data, stat, resamples=resamples, confidence=0.95, intervals=["percentile"],
+            return lambda: bootstrap(data, stat, BootstrapOptions(resamples, 0.95, ("percentile",)),
                                      stream=stream_for(1, "memory"))
         return lambda: permutation_test(data, stat, resamples=resamples, alternative="two-sided",
                                         stream=stream_for(1, "memory"), exact="never")
@@ -150,12 +150,13 @@ def test_memory_of_one_engine_call_stays_bounded_as_resamples_grow(method: str) 
 
 def test_engine_errors_from_workers_keep_where_and_hint() -> None:
     from planrunner.compile.jobs import Job
+    from planrunner.engines.jackknife import JackknifeOptions
     from planrunner.errors import EngineError
     from planrunner.execute.executors import _execute_caught, _result_of
 
     job = Job(analysis_id="one-row", method="jackknife", statistic=get_statistic("mean"),
               samples=(np.array([1.0]),), strata=None, group_labels=("all rows",), strata_labels=None,
-              options={}, stream=stream_for(1, "one-row"))
+              options=JackknifeOptions(), stream=stream_for(1, "one-row"))
     outcome = _execute_caught(job)  # what a worker sends back
     with pytest.raises(EngineError) as caught:
         _result_of(outcome)

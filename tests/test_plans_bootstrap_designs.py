@@ -371,11 +371,12 @@ def test_blocks_and_parametric_from_a_plan(write_plan, tmp_path):
     assert [i["method"] for i in result["moving"]["intervals"]] == ["percentile"]  # BCa not defaulted in
     assert result["moving"]["details"]["blocks"] == {"scheme": "moving", "length": 6}
     # the record's numbers are those of the engine on the series in time order (same stream)
-    from planrunner.engines.bootstrap import bootstrap
+    from planrunner.engines.bootstrap import BootstrapOptions, bootstrap
     from planrunner.engines.statistics import get_statistic
     from planrunner.engines.streams import stream_for
-    direct = bootstrap([np.round(level, 3)], get_statistic("mean"), resamples=500, confidence=0.95,
-                       intervals=["percentile"], stream=stream_for(4242, "moving"), blocks=("moving", 6))
+    direct = bootstrap([np.round(level, 3)], get_statistic("mean"),
+                       BootstrapOptions(500, 0.95, ("percentile",), blocks=("moving", 6)),
+                       stream=stream_for(4242, "moving"))
     assert result["moving"]["standard_error"] == direct.standard_error
     assert result["stationary"]["details"]["blocks"] == {"scheme": "stationary", "mean_length": 6}
     expo = result["expo"]

@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 
 from planrunner.engines.blocks import resample_ranges, map_resamples, mapping_ranges
-from planrunner.engines.bootstrap import bootstrap
+from planrunner.engines.bootstrap import BootstrapOptions, bootstrap
 from planrunner.engines.permutation import permutation_test
 from planrunner.engines.statistics import get_statistic
 from planrunner.engines.streams import stream_for
@@ -40,12 +40,12 @@ def test_bootstrap_split_ranges_are_bit_identical(name, strata):
     statistic = get_statistic(name)
     groups = (RNG.normal(size=300),) if statistic.samples == 1 else (RNG.normal(size=200), RNG.normal(size=150))
     codes = tuple(RNG.integers(0, 3, size=g.size) for g in groups) if strata else None
-    kwargs = dict(resamples=4321, confidence=0.95, intervals=("percentile",), stream=stream_for(5, name),
-                  strata=codes)
-    whole = bootstrap(groups, statistic, **kwargs)
+    kwargs = dict(stream=stream_for(5, name), strata=codes)
+    options = BootstrapOptions(4321, 0.95, ("percentile",))
+    whole = bootstrap(groups, statistic, options, **kwargs)
     seen: list = []
     with mapping_ranges(out_of_order(seen)):
-        split = bootstrap(groups, statistic, **kwargs)
+        split = bootstrap(groups, statistic, options, **kwargs)
     assert seen == [[(0, 1440), (1440, 2880), (2880, 4321)]]  # two ranges start inside a draw block
     assert split.distribution.tobytes() == whole.distribution.tobytes()
 

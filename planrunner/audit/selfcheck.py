@@ -15,7 +15,7 @@ from typing import Callable, Sequence
 
 import numpy as np
 
-from planrunner.engines.bootstrap import bootstrap
+from planrunner.engines.bootstrap import BootstrapOptions, bootstrap
 from planrunner.engines.jackknife import jackknife
 from planrunner.engines.permutation import permutation_test
 from planrunner.engines.statistics import get_statistic
@@ -74,7 +74,7 @@ def _null_variance(result) -> float:
 
 
 def _boot_se(samples: Sequence[np.ndarray], statistic: str, case: str) -> float:
-    result = bootstrap(samples, get_statistic(statistic), resamples=2000, confidence=0.9, intervals=("percentile",),
+    result = bootstrap(samples, get_statistic(statistic), BootstrapOptions(2000, 0.9, ("percentile",)),
                        stream=stream_for(SELFCHECK_SEED, case))
     return float(result.standard_error)
 

@@ -12,12 +12,17 @@ from typing import Any
 import numpy as np
 
 from planrunner.compile import design
+from planrunner.engines.bootstrap import BootstrapOptions
+from planrunner.engines.jackknife import JackknifeOptions
 from planrunner.engines.statistics import Statistic, bind, get_statistic
 from planrunner.engines.teststats import K_GROUP
 from planrunner.engines.streams import Stream, stream_for
 from planrunner.errors import DataError
 from planrunner.data.tables import Table
-from planrunner.plan.schema import Plan
+from planrunner.plan.schema import Analysis, BootstrapAnalysis, Defaults, Plan
+
+# the permutation options are still a plain dict (keys as in `_options`)
+Options = BootstrapOptions | JackknifeOptions | dict[str, Any]
 
 
 @dataclass(frozen=True)
@@ -29,13 +34,19 @@ class Job:
     strata: tuple[np.ndarray, ...] | None
     group_labels: tuple[str, ...]
     strata_labels: tuple[str, ...] | None
-    options: dict[str, Any]
+    options: Options  # the method's options, built once by `compile_job`
     stream: Stream
     # the rest of the design (see `planrunner.compile.design`)
     clusters: tuple[np.ndarray, ...] | None = None
     paired: bool = False
     warnings: tuple[Any, ...] = ()
     design: dict[str, Any] = field(default_factory=dict)  # permutation designs (see compile_design)
+
+    def settings(self) -> dict[str, Any]:
+        """The options as the record states them (JSON values)."""
+        if isinstance(self.options, dict):
+            return {k: (list(v) if isinstance(v, tuple) else v) for k, v in self.options.items()}
+        return self.options.settings()
 
     def counts(self) -> dict[str, Any]:
         """Observations per group and, where declared, per stratum within group."""
@@ -51,20 +62,27 @@ def compile_jobs(plan: Plan, tables: dict[str, Table]) -> list[Job]:
     return [compile_job(plan, analysis, tables[analysis.data]) for analysis in plan.analyses]
 
 
-def _options(plan: Plan, analysis: Any) -> dict[str, Any]:
+def bootstrap_options(analysis: BootstrapAnalysis, defaults: Defaults) -> BootstrapOptions:
+    """The bootstrap's options: what the analysis declares, else the plan's defaults, else the
+    engine's own (a key the plan leaves as None is omitted, so `BootstrapOptions` supplies it)."""
+    intervals = tuple(analysis.intervals)
+    if "intervals" not in analysis.model_fields_set and (analysis.order or analysis.parametric):
+        intervals = ("percentile",)  # the default BCa is not valid for dependent or parametric draws
+    declared: dict[str, Any] = {
+        "resamples": analysis.resamples or defaults.resamples,
+        "confidence": analysis.confidence or defaults.confidence,
+        "intervals": intervals, "studentized_se": analysis.studentized_se,
+        "inner_resamples": analysis.inner_resamples, "on_degenerate": analysis.on_degenerate,
+        "blocks": None if analysis.blocks is None else (analysis.blocks.scheme, analysis.blocks.length),
+        "parametric": analysis.parametric, "trials": analysis.trials, "exhaustive": analysis.exhaustive,
+        "save_distribution": analysis.save_distribution}
+    return BootstrapOptions(**{key: value for key, value in declared.items() if value is not None})
+
+
+def _options(plan: Plan, analysis: Analysis) -> Options:
     d = plan.defaults
     if analysis.method == "bootstrap":
-        intervals = tuple(analysis.intervals)
-        if "intervals" not in analysis.model_fields_set and (analysis.order or analysis.parametric):
-            intervals = ("percentile",)  # the default BCa is not valid for dependent or parametric draws
-        return {"resamples": analysis.resamples or d.resamples,
-                "confidence": analysis.confidence or d.confidence,
-                "intervals": intervals,
-                "studentized_se": analysis.studentized_se, "inner_resamples": analysis.inner_resamples or 50,
-                "on_degenerate": analysis.on_degenerate,
-                "blocks": None if analysis.blocks is None else (analysis.blocks.scheme, analysis.blocks.length),
-                "parametric": analysis.parametric, "trials": analysis.trials, "exhaustive": analysis.exhaustive,
-                "save_distribution": analysis.save_distribution}
+        return bootstrap_options(analysis, d)
     if analysis.method == "permutation":
         k_group = analysis.statistic in K_GROUP  # large F or H is the evidence: one-sided by construction
         confidence = analysis.confidence or d.confidence
@@ -72,10 +90,10 @@ def _options(plan: Plan, analysis: Any) -> dict[str, Any]:
                 "alternative": "greater" if k_group else (analysis.alternative or d.alternative),
                 "exact": analysis.exact, "two_sided": analysis.two_sided, "alpha": round(1.0 - confidence, 12),
                 "intervals": tuple(analysis.intervals or ()), "confidence": confidence}
-    return {}
+    return JackknifeOptions()
 
 
-def compile_job(plan: Plan, analysis: Any, table: Table) -> Job:
+def compile_job(plan: Plan, analysis: Analysis, table: Table) -> Job:
     statistic = get_statistic(analysis.statistic)
     if statistic.parameter is not None:
         statistic = bind(statistic, getattr(analysis, statistic.parameter))

@@ -24,6 +24,7 @@ from typing import Any, Iterable
 
 from planrunner.errors import DataError
 from planrunner.engines.permutation import ENUMERATION_LIMIT  # the engine's own limit
+from planrunner.engines.bootstrap import BootstrapOptions
 
 READ_FACTOR = 40
 BATCH_ELEMENTS = 2_000_000  # the engines' default batch_elements
@@ -78,6 +79,8 @@ def draws_kept(job: Any) -> int:
     """How many values the analysis's distribution holds (at most: an exact null may be shorter)."""
     if job.method == "jackknife":
         return sum(int(s.shape[0]) for s in job.samples)
+    if isinstance(job.options, BootstrapOptions):
+        return job.options.resamples
     resamples = int(job.options["resamples"])
     if job.method == "permutation":
         exact = job.options.get("exact", "auto")

@@ -43,7 +43,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Sequence
-from dataclasses import replace
+from dataclasses import dataclass, fields, replace
 from typing import Any
 
 import numpy as np
@@ -60,6 +60,7 @@ from planrunner.engines.statistics import Statistic, check_samples, check_strata
 from planrunner.engines.streams import Stream
 
 __all__ = [
+    "BootstrapOptions",
     "BootstrapResult",
     "DEGENERATE_CHOICES",
     "INTERVAL_METHODS",
@@ -154,22 +155,49 @@ def _pair_statistic(statistic: Statistic) -> Statistic:
     return replace(statistic, samples=1, columns=2, compute=compute, se=se, se_formula=formula, form=None)
 
 
-def bootstrap(samples: Sequence[np.ndarray], statistic: Statistic, *, resamples: int, confidence: float,
-              intervals: Sequence[str], stream: Stream, strata: Sequence[np.ndarray] | None = None,
+@dataclass(frozen=True)
+class BootstrapOptions:
+    """What a plan may set for a bootstrap, resolved (compile builds it once per analysis).
+
+    Every engine default is defined here and nowhere else; the plan schema leaves a key it does not
+    set as None and compile omits it, so the default below applies. The field order is the order of
+    the record's ``settings``.
+    """
+
+    resamples: int
+    confidence: float
+    intervals: tuple[str, ...]
+    # how each resample's standard error is found for a studentized interval: "analytic",
+    # "jackknife" or "bootstrap" (nested); None: analytic when the statistic has one
+    studentized_se: str | None = None
+    inner_resamples: int = 50  # M, the inner resamples of the nested bootstrap standard error
+    on_degenerate: str = "estimate-only"  # what to do when an interval is undefined (DEGENERATE_CHOICES)
+    blocks: tuple[str, int] | None = None  # (scheme, length) for time-ordered data
+    parametric: str | None = None  # the model of the parametric bootstrap
+    trials: int | None = None  # the binomial model's number of trials
+    exhaustive: bool = False  # enumerate every distinct resample instead of drawing
+    save_distribution: bool = False  # the record keeps every replicate (not used by the engine)
+
+    def settings(self) -> dict[str, Any]:
+        """The record's ``settings`` (JSON values: tuples become lists)."""
+        values = ((f.name, getattr(self, f.name)) for f in fields(self))
+        return {name: list(v) if isinstance(v, tuple) else v for name, v in values}
+
+
+def bootstrap(samples: Sequence[np.ndarray], statistic: Statistic, options: BootstrapOptions, *,
+              stream: Stream, strata: Sequence[np.ndarray] | None = None,
               clusters: Sequence[np.ndarray] | None = None, paired: bool = False,
-              blocks: tuple[str, int] | None = None, parametric: str | None = None, trials: int | None = None,
-              exhaustive: bool = False, studentized_se: str | None = None, inner_resamples: int = 50,
-              on_degenerate: str = "estimate-only", batch_elements: int = 2_000_000) -> BootstrapResult:
-    """Bootstrap ``statistic`` over ``resamples`` resamples drawn from ``stream``.
+              batch_elements: int = 2_000_000) -> BootstrapResult:
+    """Bootstrap ``statistic`` with ``options`` over resamples drawn from ``stream``.
 
     ``samples``: one array per group, shape (n_g,) or (n_g, columns), observation axis first.
     ``strata`` / ``clusters``: optional integer codes per group. ``paired``: the two groups are
-    aligned pairs (row i of each). ``blocks``: (scheme, length) for time-ordered data.
-    ``parametric``: a model name (``trials`` for the binomial). ``exhaustive``: enumerate.
-    ``studentized_se``: "analytic", "jackknife" or "bootstrap" (nested, ``inner_resamples`` each);
-    default: analytic when the statistic has one.
-    ``on_degenerate``: what to do when an interval is undefined (``DEGENERATE_CHOICES``).
+    aligned pairs (row i of each). ``batch_elements``: about the most draws held at once.
     """
+    resamples, confidence, intervals = options.resamples, options.confidence, options.intervals
+    studentized_se, inner_resamples = options.studentized_se, options.inner_resamples
+    on_degenerate, blocks, parametric = options.on_degenerate, options.blocks, options.parametric
+    trials, exhaustive = options.trials, options.exhaustive
     if resamples < 2:
         raise EngineError(f"resamples must be at least 2, got {resamples}", hint="use 999 or more")
     if not 0.0 < confidence < 1.0:

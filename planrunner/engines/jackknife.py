@@ -18,6 +18,8 @@ from __future__ import annotations
 
 import math
 from collections.abc import Callable, Sequence
+from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 
@@ -31,13 +33,26 @@ from planrunner.engines.statistics import (
     to_compute_layout,
 )
 
-__all__ = ["JackknifeResult", "cluster_replicates", "jackknife", "jackknife_replicates"]
+__all__ = ["JackknifeOptions", "JackknifeResult", "cluster_replicates", "jackknife", "jackknife_replicates"]
 
 SMALL_SAMPLE = 10  # common practice: below about 10 observations resampling summaries are rough
 
 
-def jackknife(samples: Sequence[np.ndarray], statistic: Statistic, *,
-              clusters: Sequence[np.ndarray] | None = None,
+@dataclass(frozen=True)
+class JackknifeOptions:
+    """What a plan may set for a jackknife (compile builds it once per analysis).
+
+    The delete-one jackknife has no choice to make today: the design (clusters) is data, not an
+    option. A key the plan gains goes here, with its one default, and into ``settings``.
+    """
+
+    def settings(self) -> dict[str, Any]:
+        """The record's ``settings``."""
+        return {}
+
+
+def jackknife(samples: Sequence[np.ndarray], statistic: Statistic, options: JackknifeOptions = JackknifeOptions(),
+              *, clusters: Sequence[np.ndarray] | None = None,
               batch_elements: int = 2_000_000) -> JackknifeResult:
     """Delete-one jackknife bias, standard error and pseudo-values of ``statistic``.
 

@@ -22,8 +22,8 @@ import numpy as np
 
 from planrunner.compile.jobs import Job
 from planrunner.engines.blocks import RangeTask, mapping_ranges, resample_ranges
-from planrunner.engines.bootstrap import bootstrap
-from planrunner.engines.jackknife import jackknife
+from planrunner.engines.bootstrap import BootstrapOptions, bootstrap
+from planrunner.engines.jackknife import JackknifeOptions, jackknife
 from planrunner.engines.statistics import STATISTICS, Statistic, bind, get_statistic
 from planrunner.engines.streams import DRAW_BLOCK
 from planrunner.errors import EngineError, PlanrunnerError
@@ -94,25 +94,21 @@ def execute(job: Job) -> Any:
 
 
 def _run_engine(job: Job) -> Any:
-    o = job.options
-    if job.method == "bootstrap":
-        return bootstrap(job.samples, job.statistic, resamples=o["resamples"], confidence=o["confidence"],
-                         intervals=o["intervals"], stream=job.stream, strata=job.strata,
-                         clusters=job.clusters, paired=job.paired, blocks=o.get("blocks"),
-                         parametric=o.get("parametric"), trials=o.get("trials"),
-                         exhaustive=o.get("exhaustive", False), studentized_se=o.get("studentized_se"),
-                         inner_resamples=o.get("inner_resamples", 50),
-                         on_degenerate=o.get("on_degenerate", "estimate-only"))
+    if isinstance(job.options, BootstrapOptions):
+        return bootstrap(job.samples, job.statistic, job.options, stream=job.stream, strata=job.strata,
+                         clusters=job.clusters, paired=job.paired)
     if job.method == "permutation":
         return run_permutation(job)
-    if job.method == "jackknife":
-        return jackknife(job.samples, job.statistic, clusters=job.clusters)
+    if isinstance(job.options, JackknifeOptions):
+        return jackknife(job.samples, job.statistic, job.options, clusters=job.clusters)
     raise ValueError(f"no engine for method {job.method!r}")  # the schema makes this unreachable
 
 
 def job_resamples(job: Job) -> int:
     """The resamples a job draws (its share of the progress total); the jackknife draws none."""
-    return int(job.options.get("resamples", 0)) if job.method in ("bootstrap", "permutation") else 0
+    if isinstance(job.options, BootstrapOptions):
+        return job.options.resamples
+    return int(job.options.get("resamples", 0)) if isinstance(job.options, dict) else 0
 
 
 class _Tally:

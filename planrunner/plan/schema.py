@@ -124,8 +124,9 @@ class BootstrapAnalysis(AnalysisBase):
     intervals: Annotated[list[IntervalMethod], Field(min_length=1)] = Field(
         default_factory=lambda: ["percentile", "bca"])
     studentized_se: Literal["analytic", "jackknife", "bootstrap"] | None = None
+    # None: the engine's default (`engines.bootstrap.BootstrapOptions`)
     inner_resamples: Annotated[int, Field(ge=10, le=10_000)] | None = None  # nested bootstrap only
-    on_degenerate: Literal["fail", "percentile", "estimate-only"] = "estimate-only"
+    on_degenerate: Literal["fail", "percentile", "estimate-only"] | None = None
     blocks: Blocks | None = None
     parametric: Literal["normal", "exponential", "poisson", "binomial"] | None = None
     trials: Annotated[int, Field(ge=1)] | None = None

@@ -19,6 +19,7 @@ import numpy as np
 
 from planrunner import __version__
 from planrunner.compile.jobs import Job
+from planrunner.engines.bootstrap import BootstrapOptions
 from planrunner.engines.streams import DRAW_BLOCK, GENERATOR
 from planrunner.data.tables import Table
 from planrunner.record.bands import RULE as MC_INTERVAL_RULE, interval_bands
@@ -143,7 +144,7 @@ def analysis_entry(loaded: LoadedPlan, analysis: Any, job: Job, result: Any) -> 
         "method": analysis.method,
         "statistic": job.statistic.name,
         "statistic_label": job.statistic.label,
-        "settings": {k: (list(v) if isinstance(v, tuple) else v) for k, v in job.options.items()},
+        "settings": job.settings(),
         "stream": job.stream.describe(),
         "n": job.counts(),
         "scheme": result.scheme,
@@ -180,7 +181,7 @@ def analysis_entry(loaded: LoadedPlan, analysis: Any, job: Job, result: Any) -> 
                      "conventions": dict(result.conventions), **_jsonable(result.details)},
             distribution=_distribution("bootstrap replicates", result.distribution, bins, result.weights),
         )
-        if job.options.get("save_distribution"):
+        if isinstance(job.options, BootstrapOptions) and job.options.save_distribution:
             # every replicate in resample order; its SHA-256 (of little-endian doubles) is `sha256`
             entry["distribution"]["values"] = [float(v) for v in result.distribution]
             if result.weights is not None:
