@@ -61,7 +61,16 @@ class ExpressionError(PlanrunnerError):
 
 
 class OutputError(PlanrunnerError):
-    """The run's folder cannot be written (no space, no permission, a file in the way).
+    """A new file or folder cannot be written: no space, no permission, or its name is taken
+    (planrunner never replaces a file).
 
-    Nothing partial is left where a complete run is expected: the staging folder is removed.
+    Nothing partial is left where a complete file or run is expected: the staging copy is removed.
+    """
+
+
+class RecordError(PlanrunnerError):
+    """A file that planrunner wrote and now reads back is missing, unreadable or damaged: a record,
+    a lock, a run history or a self-check report (not JSON, another format, fields missing).
+
+    The plan is not at fault; the message names the file (with line and column for broken JSON).
     """

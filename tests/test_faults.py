@@ -22,6 +22,7 @@ import pytest
 from planrunner.cli import main as cli
 
 from planrunner.pipeline import run as runner
+from planrunner.trail import store
 from planrunner.errors import DataError
 
 from conftest import fixed_clock
@@ -74,7 +75,7 @@ def assert_next_run_works(plan: Path, out: Path, capsys) -> Path:
 # --- a write that fails half-way ------------------------------------------------------------------
 
 class FailingOpen:
-    """`open` for runner.py whose handle fails on the n-th file written."""
+    """`open` for trail/store.py (the one writer) whose handle fails on the n-th file written."""
 
     def __init__(self, fail_on: int, error: BaseException):
         self.calls, self.fail_on, self.error = 0, fail_on, error
@@ -106,7 +107,7 @@ class FailingOpen:
 @pytest.mark.parametrize("fail_on", [1, 2, 3])
 def test_oserror_half_way_through_writing_leaves_nothing(plan, tmp_path, monkeypatch, capsys, fail_on):
     out = tmp_path / "out"
-    monkeypatch.setattr(runner, "open", FailingOpen(fail_on, OSError(errno.ENOSPC, "No space left on device")),
+    monkeypatch.setattr(store, "open", FailingOpen(fail_on, OSError(errno.ENOSPC, "No space left on device")),
                         raising=False)
     assert cli.main(["run", str(plan), "--out", str(out)]) == 2
     err = capsys.readouterr().err
@@ -155,7 +156,7 @@ def test_interrupt_during_the_engines(plan, tmp_path, monkeypatch, capsys):
 @pytest.mark.parametrize("fail_on", [1, 3])
 def test_interrupt_during_writing(plan, tmp_path, monkeypatch, capsys, fail_on):
     out = tmp_path / "out"
-    monkeypatch.setattr(runner, "open", FailingOpen(fail_on, KeyboardInterrupt()), raising=False)
+    monkeypatch.setattr(store, "open", FailingOpen(fail_on, KeyboardInterrupt()), raising=False)
     assert cli.main(["run", str(plan), "--out", str(out)]) == 130
     assert "interrupted" in capsys.readouterr().err
     assert list(out.iterdir()) == []
@@ -170,6 +171,7 @@ import sys, time
 from pathlib import Path
 from planrunner.cli import main as cli
 from planrunner.pipeline import run as runner
+from planrunner.trail import store
 
 marker, where = Path(sys.argv[1]), sys.argv[2]
 
@@ -180,7 +182,7 @@ def pause(*args, **kwargs):
 if where == "engines":
     runner.execute_all = pause
 else:  # every file is written into the staging folder, the rename has not happened yet
-    runner._place = pause
+    store._place = pause
 sys.exit(cli.main(["run", sys.argv[3], "--out", sys.argv[4], "--quiet"]))
 """
 

@@ -1,8 +1,8 @@
 """Orchestration of the audit commands that read records: verify, compare, self-check.
 
-Like `runner`, this module touches files (it reads records, plans and data, and writes the
-comparison and self-check reports); the logic it relies on is pure and lives in `canonical`,
-`compare` and `selfcheck`.
+It reads records and self-check reports with `trail.store.read_json` and writes the comparison and
+self-check reports with `trail.store.write_new_file` (never over an existing file); the logic it
+relies on is pure and lives in `record.canonical`, `report.compare` and `audit.selfcheck`.
 """
 
 from __future__ import annotations
@@ -17,7 +17,7 @@ from typing import Any
 
 from planrunner.record.canonical import RECORD_HASH_FIELD, differences, record_sha256
 from planrunner.compile.jobs import compile_jobs
-from planrunner.errors import PlanError, PlanrunnerError
+from planrunner.errors import PlanError, PlanrunnerError, RecordError
 from planrunner.execute.executors import Execution, execute_all
 from planrunner.data.tables import file_sha256, resolve_data_path
 from planrunner.plan.params import apply as apply_parameters
@@ -26,6 +26,7 @@ from planrunner.plan.load import read_plan
 from planrunner.record.build import FORMAT, build_record, environment
 from planrunner.pipeline.run import finish_record, load_tables
 from planrunner.plan.yamlsafe import load_yaml
+from planrunner.trail.store import read_json, write_new_file
 
 # Differences no larger than this (relative to the larger magnitude) are floating-point noise:
 # another machine may add the same numbers in another order. Same build, same machine: 0.
@@ -79,14 +80,9 @@ def read_record(path: str | Path) -> tuple[Path, dict]:
     file = Path(path)
     if file.is_dir():
         file = file / "record.json"
-    try:
-        record = json.loads(file.read_text(encoding="utf-8"))
-    except FileNotFoundError:
-        raise PlanError("record not found", where=str(file), hint="name a record.json or its run folder") from None
-    except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
-        raise PlanError(f"cannot read the record: {exc}", where=str(file)) from None
+    record = read_json(file, "record", hint="name a record.json or its run folder")
     if not isinstance(record, dict) or record.get("format") != FORMAT:
-        raise PlanError(f"not a planrunner record (format {FORMAT} expected)", where=str(file))
+        raise RecordError(f"not a planrunner record (format {FORMAT} expected)", where=str(file))
     missing = [key for key, kind in REQUIRED.items() if not isinstance(record.get(key), kind)]
     plan = record.get("plan") if isinstance(record.get("plan"), dict) else {}
     missing += [f"plan.{key}" for key in ("file", "sha256", "text") if not isinstance(plan.get(key), str)]
@@ -94,8 +90,8 @@ def read_record(path: str | Path) -> tuple[Path, dict]:
         if not (isinstance(ds, dict) and isinstance(ds.get("file"), str) and isinstance(ds.get("sha256"), str)):
             missing.append(f"datasets[{i}]")
     if missing:
-        raise PlanError(f"the record is incomplete or damaged: {', '.join(missing)} missing or of the wrong kind",
-                        where=str(file), hint="verify the record.json that the run wrote")
+        raise RecordError(f"the record is incomplete or damaged: {', '.join(missing)} missing or of the wrong kind",
+                          where=str(file), hint="verify the record.json that the run wrote")
     return file, record
 
 
@@ -251,18 +247,9 @@ def compare_files(a: str | Path, b: str | Path) -> dict:
     return compare_records(record_a, record_b)
 
 
-def write_new_file(path: str | Path, text: str) -> Path:
+def write_report(path: str | Path, text: str) -> Path:
     """Write a report the user named; an existing file is never overwritten."""
-    target = Path(path)
-    try:
-        with open(target, "x", encoding="utf-8", newline="\n") as handle:
-            handle.write(text)
-    except FileExistsError:
-        raise PlanError("the file exists already; planrunner never overwrites a report", where=str(target),
-                        hint="choose a new file name") from None
-    except OSError as exc:
-        raise PlanError(f"cannot write the file: {exc.strerror}", where=str(target)) from None
-    return target
+    return write_new_file(path, text, what="report", hint="choose a new file name")
 
 
 # --- self-check ------------------------------------------------------------------------------------
@@ -356,10 +343,7 @@ def run_selfcheck(clock: Any = None) -> dict:
 def check_selfcheck_report(path: str | Path) -> tuple[dict, bool]:
     """A self-check report and whether its content still matches its own hash."""
     from planrunner.record.canonical import self_hash
-    try:
-        report = json.loads(Path(path).read_text(encoding="utf-8"))
-    except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
-        raise PlanError(f"cannot read the self-check report: {exc}", where=str(path)) from None
+    report = read_json(path, "self-check report", hint="name a report written by 'planrunner selfcheck'")
     if not isinstance(report, dict) or report.get("format") != SELFCHECK_FORMAT:
-        raise PlanError(f"not a self-check report (format {SELFCHECK_FORMAT} expected)", where=str(path))
+        raise RecordError(f"not a self-check report (format {SELFCHECK_FORMAT} expected)", where=str(path))
     return report, report.get(SELFCHECK_HASH_FIELD) == self_hash(report, SELFCHECK_HASH_FIELD)

@@ -162,14 +162,14 @@ def _history(args: argparse.Namespace) -> int:
 
 
 def _compare(args: argparse.Namespace) -> int:
-    from planrunner.audit.verbs import compare_files, write_new_file
+    from planrunner.audit.verbs import compare_files, write_report
     from planrunner.report.compare import render_html, render_markdown, render_text
     comparison = compare_files(args.record_a, args.record_b)
     print(render_text(comparison), end="")
     if args.markdown:
-        print(f"Markdown written to {write_new_file(args.markdown, render_markdown(comparison))}")
+        print(f"Markdown written to {write_report(args.markdown, render_markdown(comparison))}")
     if args.html:
-        print(f"HTML written to {write_new_file(args.html, render_html(comparison))}")
+        print(f"HTML written to {write_report(args.html, render_html(comparison))}")
     return EXIT_OK
 
 
@@ -180,7 +180,7 @@ def _schema(args: argparse.Namespace) -> int:
 
 
 def _selfcheck(args: argparse.Namespace) -> int:
-    from planrunner.audit.verbs import check_selfcheck_report, run_selfcheck, write_new_file
+    from planrunner.audit.verbs import check_selfcheck_report, run_selfcheck, write_report
     if args.check:
         report, intact = check_selfcheck_report(args.check)
         print(f"{args.check}: {'hash matches' if intact else 'HASH DOES NOT MATCH: the report was changed'}; "
@@ -197,7 +197,7 @@ def _selfcheck(args: argparse.Namespace) -> int:
         if c["error"]:
             print(f"  {c['id']}: {c['error']}")
     out = args.out or f"planrunner-selfcheck-{report['created_utc'].replace(':', '').replace('-', '')[:15]}Z.json"
-    written = write_new_file(out, json.dumps(report, sort_keys=True, indent=2, ensure_ascii=False) + "\n")
+    written = write_report(out, json.dumps(report, sort_keys=True, indent=2, ensure_ascii=False) + "\n")
     print(f"{report['passed']} passed, {report['failed']} failed; report written to {written} "
           f"(report_sha256 {report['report_sha256']})")
     return EXIT_OK if report["all_passed"] else EXIT_DIFFERS

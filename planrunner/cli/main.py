@@ -1,7 +1,8 @@
 """Command line: the only layer that prints and chooses exit codes.
 
-Exit codes (DESIGN.md §5): 0 success; 2 the plan, data or arguments are wrong; 3 verify found a
-difference; 1 an unexpected failure (with versions, and a request to report it).
+Exit codes: 0 success; 2 the plan, data, arguments or a file read back are wrong, or an output
+cannot be written (EXIT_FOR_ERROR); 3 verify, history or selfcheck found a difference; 1 an
+unexpected failure (with versions, and a request to report it); 130 interrupted.
 """
 
 from __future__ import annotations
@@ -13,7 +14,8 @@ import traceback
 from typing import TYPE_CHECKING, Any, Sequence
 
 from planrunner import __version__
-from planrunner.errors import PlanrunnerError
+from planrunner.errors import (DataError, EngineError, ExpressionError, OutputError, PlanError, PlanrunnerError,
+                               RecordError)
 from planrunner.report.render import number, pvalue
 from planrunner.cli.audit import (AUDIT_VERBS, _add_audit_run_options, _add_audit_verbs, audit_summary,
                         check_lock_summary)
@@ -23,6 +25,23 @@ if TYPE_CHECKING:
     from planrunner.execute.executors import Execution
 
 EXIT_OK, EXIT_FAILURE, EXIT_INPUT, EXIT_DIFFERS = 0, 1, 2, 3
+
+# The exit code of each kind of error (README, "Exit codes"). Every one of them is for the user to
+# fix, so each gives 2; a difference that verify, history or selfcheck finds is not an error (3).
+EXIT_FOR_ERROR: dict[type[PlanrunnerError], int] = {
+    PlanError: EXIT_INPUT,  # the plan: syntax, schema, cross references, a deviation refused
+    DataError: EXIT_INPUT,  # a data file: missing, changed, or not what the plan declares
+    EngineError: EXIT_INPUT,  # the data cannot carry the method (too few rows, ...)
+    ExpressionError: EXIT_INPUT,  # a row filter
+    RecordError: EXIT_INPUT,  # a record, lock, history or self-check report read back: missing or damaged
+    OutputError: EXIT_INPUT,  # a new file or folder cannot be written (space, permission, name taken)
+    PlanrunnerError: EXIT_INPUT,  # any other refusal (e.g. an executor that cannot be used)
+}
+
+
+def exit_code_for(error: PlanrunnerError) -> int:
+    """The exit code of the most specific error class listed in EXIT_FOR_ERROR."""
+    return next(EXIT_FOR_ERROR[kind] for kind in type(error).__mro__ if kind in EXIT_FOR_ERROR)
 
 
 class _Parser(argparse.ArgumentParser):
@@ -72,7 +91,7 @@ def main(argv: Sequence[str] | None = None) -> int:
             return AUDIT_VERBS[args.verb](args)
     except PlanrunnerError as exc:
         print(f"planrunner: {exc}", file=sys.stderr)
-        return EXIT_INPUT
+        return exit_code_for(exc)
     except KeyboardInterrupt:
         print("planrunner: interrupted; no record was written (any workers were stopped)", file=sys.stderr)
         return 130

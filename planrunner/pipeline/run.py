@@ -1,19 +1,17 @@
 """The one place that orchestrates a run: plan → tables → jobs → results → record → files.
 
-Data flow goes one way. Files are touched only here and in `io` (reading data). A run writes into
-a staging folder and renames it into place when every file is complete, so a folder with the run's
-name always holds a complete record and both reports; an existing folder is never reused.
+Data flow goes one way. Data files are read by `data.tables`; every file is written by
+`trail.store`, which writes a run into a staging folder and renames it into place when every file
+is complete, so a folder with the run's name always holds a complete record and both reports; an
+existing folder is never reused.
 """
 
 from __future__ import annotations
 
 import datetime as dt
-import errno
 import getpass
 import hashlib
 import os
-import secrets
-import shutil
 from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Callable
@@ -25,7 +23,6 @@ from planrunner.record.canonical import RECORD_HASH_FIELD, record_sha256
 from planrunner.compile.jobs import Job, compile_jobs
 from planrunner.data.checks import check_tables
 from planrunner.execute.executors import Execution, Progress, execute_all
-from planrunner.errors import OutputError
 from planrunner.data.tables import Table, read_table, resolve_data_path
 from planrunner.record.methods import methods_text
 from planrunner.plan.params import apply as apply_parameters
@@ -34,6 +31,7 @@ from planrunner.execute.families import max_t_families
 from planrunner.plan.load import LoadedPlan, read_plan
 from planrunner.record.build import build_record, to_json
 from planrunner.trail.files import append_history, lock_for_run
+from planrunner.trail.store import STAGING_PREFIX, require_plain_name, write_new_folder  # noqa: F401 (STAGING_PREFIX for callers)
 
 Clock = Callable[[], dt.datetime]
 
@@ -171,96 +169,14 @@ def _run_id(loaded: LoadedPlan, tables: dict[str, Table], started: dt.datetime) 
     return digest.hexdigest()[:16]
 
 
-STAGING_PREFIX = ".staging-"  # folders being written; a killed run may leave one, never a run folder
-
-
 def write_run(out_root: Path, name: str, record: dict) -> Path:
-    """Write the three files into a staging folder, then move it into place under a fresh name.
+    """Render the reports, then write the record, both reports and their figures as a new run folder.
 
-    The reports are rendered before anything is created, every file is flushed to disk before the
-    rename, and any failure (an OSError half-way, an interrupt) removes the staging folder, so a
-    folder with a run's name always holds a complete record and both reports. A process killed
-    half-way can leave only a hidden `.staging-*` folder, which no later run reads or reuses.
+    The reports are rendered before anything is created; `store.write_new_folder` writes every file
+    into a staging folder and renames it into place, so a folder with a run's name always holds a
+    complete record and both reports, and an existing folder is never reused.
     """
-    if not _single_name(name):  # plan ids are validated by the schema; this guards the runner itself
-        raise ValueError(f"run folder name {name!r} is not a single plain folder name")
+    require_plain_name(name)  # before rendering, so that a bad name never costs a render
     # report.html, report.md and the figures/*.svg files the Markdown report links to
     files = {"record.json": to_json(record), **report.render_all(record)}
-    try:
-        out_root.mkdir(parents=True, exist_ok=True)
-    except OSError as exc:
-        raise OutputError(f"cannot create the output folder: {exc.strerror or exc}", where=str(out_root),
-                          hint="choose another folder with --out") from None
-    staging = _new_staging(out_root, name)
-    try:
-        for filename, text in files.items():
-            (staging / filename).parent.mkdir(parents=True, exist_ok=True)
-            with open(staging / filename, "w", encoding="utf-8", newline="\n") as handle:
-                handle.write(text)
-                handle.flush()
-                os.fsync(handle.fileno())
-        final = _place(staging, out_root, name)
-        _sync_folder(out_root)
-        return final
-    except OSError as exc:
-        shutil.rmtree(staging, ignore_errors=True)
-        raise OutputError(f"the run could not be written: {exc.strerror or exc}", where=str(out_root),
-                          hint="nothing was kept; free space or choose another folder with --out, "
-                               "then run again") from None
-    except BaseException:
-        shutil.rmtree(staging, ignore_errors=True)
-        raise
-
-
-def _single_name(name: str) -> bool:
-    return (bool(name) and not name.startswith(".") and "/" not in name and "\\" not in name
-            and "\0" not in name and Path(name).name == name)
-
-
-def _new_staging(out_root: Path, name: str) -> Path:
-    """A staging folder of our own; the random part keeps a reused process id from colliding
-    with a folder that a killed run left behind."""
-    for _ in range(100):
-        staging = out_root / f"{STAGING_PREFIX}{name}-{secrets.token_hex(4)}"
-        try:
-            staging.mkdir()
-            return staging
-        except FileExistsError:
-            continue
-        except OSError as exc:
-            raise OutputError(f"cannot write into the output folder: {exc.strerror or exc}",
-                              where=str(out_root), hint="choose another folder with --out") from None
-    raise OutputError("cannot create a staging folder", where=str(out_root), hint="choose another folder with --out")
-
-
-def _place(staging: Path, out_root: Path, name: str) -> Path:
-    """Rename the staging folder to a run-folder name not yet taken; a run never reuses a folder.
-    Another run may take the same name between the check and the rename: the rename then fails
-    (the folder is not empty) and the next name is tried."""
-    k = 1
-    while True:
-        candidate = out_root / (name if k == 1 else f"{name}-{k}")
-        k += 1
-        if candidate.exists() or candidate.is_symlink():
-            continue
-        try:
-            os.rename(staging, candidate)
-            return candidate
-        except OSError as exc:
-            if exc.errno in (errno.EEXIST, errno.ENOTEMPTY) and k < 10_000:
-                continue
-            raise
-
-
-def _sync_folder(folder: Path) -> None:
-    """Make the rename itself durable (POSIX); harmless where folders cannot be opened."""
-    try:
-        fd = os.open(folder, os.O_RDONLY)
-    except OSError:
-        return
-    try:
-        os.fsync(fd)
-    except OSError:
-        pass
-    finally:
-        os.close(fd)
+    return write_new_folder(out_root, name, files)

@@ -1,8 +1,7 @@
 """The audit trail's files: plan locks (PLAN.lock.json) and the run history (history.jsonl).
 
-With `runner` and `io`, one of the few modules that touch files; the logic is pure and lives in
-`lock` and `history`. Both files are written so that nothing is ever replaced: a lock is created
-exclusively, the history is only appended to.
+The logic is pure and lives in `lock` and `history`. Nothing is ever replaced: a lock is created
+new by `store.write_new_file` and read back by `store.read_json`; the history is only appended to.
 """
 
 from __future__ import annotations
@@ -14,24 +13,16 @@ from pathlib import Path
 from typing import Any
 
 from planrunner.record.canonical import RECORD_HASH_FIELD, canonical_json, record_sha256
-from planrunner.errors import DataError, PlanError
+from planrunner.errors import PlanError, RecordError
 from planrunner.trail.history import HISTORY_FILE, HistoryProblem, check_chain, new_entry, parse_lines
 from planrunner.data.tables import Table, file_sha256, resolve_data_path
 from planrunner.trail.lock import build_lock, check_lock, compare_with_lock, deviation_lines, lock_path_for
 from planrunner.plan.params import PLACEHOLDER, resolve_values, substitute
 from planrunner.plan.load import LoadedPlan, read_plan
+from planrunner.trail.store import read_json, write_new_file
 
 
 # --- locks -----------------------------------------------------------------------------------------
-
-def _read_json(path: Path, what: str) -> Any:
-    try:
-        return json.loads(path.read_text(encoding="utf-8"))
-    except FileNotFoundError:
-        raise PlanError(f"{what} not found", where=str(path)) from None
-    except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
-        raise PlanError(f"cannot read the {what}: {exc}", where=str(path)) from None
-
 
 def lock_plan(path: str | Path, *, operator: str, locked_utc: str, note: str | None = None,
               params: dict[str, str] | None = None) -> tuple[Path, dict]:
@@ -53,22 +44,10 @@ def lock_plan(path: str | Path, *, operator: str, locked_utc: str, note: str | N
                       locked_utc=locked_utc, operator=operator, note=note,
                       parameters=values, data=data)
     target = lock_path_for(loaded.file)
-    # written in full beside the target, then linked into place: the lock appears complete or not
-    # at all, and the link fails if a lock exists (never replaced, even by a concurrent `lock`)
-    staging = target.with_name(f".{target.name}.{os.getpid()}.tmp")
-    try:
-        with open(staging, "w", encoding="utf-8", newline="\n") as handle:
-            handle.write(json.dumps(lock, sort_keys=True, indent=2, ensure_ascii=False) + "\n")
-            handle.flush()
-            os.fsync(handle.fileno())
-        os.link(staging, target)
-    except FileExistsError:
-        raise PlanError("the plan is already locked; a lock is never replaced", where=str(target),
-                        hint="to fix a new version of the plan, save it under a new file name and lock that") from None
-    except OSError as exc:
-        raise PlanError(f"cannot write the lock: {exc.strerror}", where=str(target)) from None
-    finally:
-        staging.unlink(missing_ok=True)
+    # the lock appears complete or not at all, and is never replaced, even by a concurrent `lock`
+    write_new_file(target, json.dumps(lock, sort_keys=True, indent=2, ensure_ascii=False) + "\n", what="lock",
+                   taken="the plan is already locked; a lock is never replaced",
+                   hint="to fix a new version of the plan, save it under a new file name and lock that")
     return target, lock
 
 
@@ -81,7 +60,8 @@ def lock_for_run(loaded: LoadedPlan, tables: dict[str, Table], lock: str | Path 
             raise PlanError("no lock file for this plan", where=str(lock_file),
                             hint="lock the plan first with 'planrunner lock PLAN'")
         return None
-    document = check_lock(_read_json(lock_file, "lock file"), str(lock_file))
+    document = check_lock(read_json(lock_file, "lock file", hint="create one with 'planrunner lock PLAN'"),
+                          str(lock_file))
     entry = compare_with_lock(document, lock_file=lock_file.name, plan_sha256=loaded.sha256,
                               content=loaded.yaml.data,
                               data_now={t.name: {"file": t.file, "sha256": t.sha256} for t in tables.values()})
@@ -141,10 +121,10 @@ def history_report(target: str | Path) -> HistoryReport:
     try:
         text = log.read_text(encoding="utf-8")
     except FileNotFoundError:
-        raise PlanError("no run history here", where=str(log),
-                        hint="name a plan, its runs folder, or a history.jsonl file") from None
+        raise RecordError("no run history here", where=str(log),
+                          hint="name a plan, its runs folder, or a history.jsonl file") from None
     except (OSError, UnicodeDecodeError) as exc:
-        raise DataError(f"cannot read the history: {exc}", where=str(log)) from None
+        raise RecordError(f"cannot read the history: {exc}", where=str(log)) from None
     entries, problems = parse_lines(text)
     problems += check_chain(entries)
     listed = set()
@@ -155,9 +135,12 @@ def history_report(target: str | Path) -> HistoryReport:
             problems.append(HistoryProblem(e["_line"], f"run folder {e.get('folder')} is missing"))
             continue
         try:
-            record = json.loads(record_file.read_text(encoding="utf-8"))
-        except (OSError, UnicodeDecodeError, json.JSONDecodeError):
-            problems.append(HistoryProblem(e["_line"], f"{record_file} cannot be read"))
+            record = read_json(record_file, "record")
+        except RecordError as exc:
+            problems.append(HistoryProblem(e["_line"], f"the record cannot be read: {exc}"))
+            continue
+        if not isinstance(record, dict):
+            problems.append(HistoryProblem(e["_line"], f"{record_file} is not a record"))
             continue
         if record.get(RECORD_HASH_FIELD) != e.get("record_sha256") or record_sha256(record) != e.get("record_sha256"):
             problems.append(HistoryProblem(e["_line"], f"the record in {e.get('folder')} is not the one logged "

@@ -15,7 +15,7 @@ from pathlib import Path
 from typing import Any
 
 from planrunner.record.canonical import content_sha256, differences, self_hash
-from planrunner.errors import PlanError
+from planrunner.errors import RecordError
 
 LOCK_FORMAT = "planrunner.lock/1"
 LOCK_HASH_FIELD = "lock_sha256"
@@ -48,11 +48,11 @@ def build_lock(*, plan_file: str, plan_sha256: str, content: Any, locked_utc: st
 def check_lock(lock: Any, shown: str) -> dict[str, Any]:
     """Refuse a document that is not a lock, or a lock whose content was edited after it was written."""
     if not isinstance(lock, dict) or lock.get("format") != LOCK_FORMAT:
-        raise PlanError(f"not a planrunner lock file (format {LOCK_FORMAT} expected)", where=shown,
-                        hint="create one with 'planrunner lock PLAN'")
+        raise RecordError(f"not a planrunner lock file (format {LOCK_FORMAT} expected)", where=shown,
+                          hint="create one with 'planrunner lock PLAN'")
     if lock.get(LOCK_HASH_FIELD) != self_hash(lock, LOCK_HASH_FIELD):
-        raise PlanError("the lock file was changed after it was written (its own hash does not match)",
-                        where=shown, hint="restore the lock from your records; a lock is never edited")
+        raise RecordError("the lock file was changed after it was written (its own hash does not match)",
+                          where=shown, hint="restore the lock from your records; a lock is never edited")
     return lock
 
 
