@@ -243,7 +243,7 @@ def test_verify_not_a_record_is_exit_2(tmp_path, capsys):
 
 def test_tolerance_rules():
     record = {"analyses": [{"monte_carlo": {"standard_error_sd": 0.01}}]}
-    # Source: REFERENCES.md, about 4 MC s.d. for Monte Carlo quantities; 1e-9 relative for floating point
+    # Source: V-TOL, about 4 MC s.d. for Monte Carlo quantities; 1e-9 relative for floating point
     assert _judge("analyses[0].standard_error", 1.0, 1.039, record).within
     assert not _judge("analyses[0].standard_error", 1.0, 1.041, record).within
     assert not _judge("analyses[0].standard_error", 1.0, 1.039, record, monte_carlo=False).within

@@ -1,4 +1,4 @@
-"""Bootstrap engine: REFERENCES BS-MOUSE, BS-STRAT, BS-SPATIAL, identity 12, scipy agreement,
+"""Bootstrap engine: V-MOUSE-BOOT, V-MOUSE-STRATA, V-SPATIAL, identity 12, scipy agreement,
 the draw contract, batch invariance, degenerate data and error messages; the statistic registry."""
 
 from __future__ import annotations
@@ -25,11 +25,11 @@ from planrunner.engines.statistics import STATISTICS, Statistic, get_statistic
 from planrunner.engines.streams import DRAW_BLOCK, stream_for
 from planrunner.errors import EngineError
 
-# Source: E&T Table 2.1 (REFERENCES BS-MOUSE, published, confirmed)
+# Source: E&T Table 2.1 (V-MOUSE-BOOT, published, confirmed)
 TREATMENT = np.array([94, 197, 16, 38, 99, 141, 23], dtype=float)
 CONTROL = np.array([52, 104, 146, 10, 51, 30, 40, 27, 46], dtype=float)
 
-# Source: E&T Table 14.1 (REFERENCES BS-SPATIAL, published, confirmed): test A, 26 children
+# Source: E&T Table 14.1 (V-SPATIAL, published, confirmed): test A, 26 children
 SPATIAL_A = np.array([48, 36, 20, 29, 42, 42, 20, 42, 22, 41, 45, 14, 6, 0, 33, 28, 34, 4, 32, 24, 47,
                       41, 24, 26, 30, 41], dtype=float)
 
@@ -78,12 +78,12 @@ def test_unknown_statistic_lists_known_names() -> None:
         get_statistic("trimmed_mean_typo")
 
 
-# ------------------------------------------------------------------ BS-MOUSE, BS-STRAT
+# ------------------------------------------------------------------ V-MOUSE-BOOT, V-MOUSE-STRATA
 
 def test_mouse_standard_errors_b2000() -> None:
     mean = run([TREATMENT], "mean", analysis="mouse-mean")
     median = run([TREATMENT], "median", analysis="mouse-median")
-    # Source: REFERENCES BS-MOUSE, exact ideal values; tolerance 4 s.d. at B=2000 (REFERENCES)
+    # Source: V-MOUSE-BOOT, exact ideal values; tolerance 4 s.d. at B=2000 (V-TOL)
     assert abs(mean.standard_error - 23.3635234373) <= 1.42
     assert abs(median.standard_error - 37.8346743939) <= 2.12
     assert mean.estimate == pytest.approx(608 / 7, rel=1e-15)
@@ -92,14 +92,14 @@ def test_mouse_standard_errors_b2000() -> None:
 
 def test_two_group_standard_error_b2000() -> None:
     result = run([TREATMENT, CONTROL], "mean_difference", analysis="mouse-diff")
-    # Source: REFERENCES BS-STRAT, exact 26.908107910089; tolerance ±1.7 (4 s.d. at B=2000)
+    # Source: V-MOUSE-STRATA, exact 26.908107910089; tolerance ±1.7 (4 s.d. at B=2000)
     assert abs(result.standard_error - 26.908107910089) <= 1.7
     assert result.scheme == "each group resampled separately"
     assert result.n == (7, 9)
 
 
 def test_mean_bias_within_monte_carlo_error() -> None:
-    # identity 7: E*[mean*] = mean, so the bias is 0 up to MC error (s.d. = SE/sqrt(B), REFERENCES §3)
+    # identity 7: E*[mean*] = mean, so the bias is 0 up to MC error (s.d. = SE/sqrt(B), V-TOL)
     result = run([TREATMENT], "mean", B=4000)
     assert abs(result.bias) <= 4 * 23.3635234373 / math.sqrt(4000)
 
@@ -125,7 +125,7 @@ def test_strata_keep_cells_and_give_stratified_variance() -> None:
     ideal_var = sum((v.size / 14) ** 2 * np.var(v) / v.size for v in (low, high))
     ideal_se = math.sqrt(ideal_var)
     kurt = scipy.stats.kurtosis(result.distribution, fisher=False)
-    # MC s.d. of a B-replicate SE = SE sqrt((kappa-1)/(4B)) (REFERENCES §3), 4 s.d.
+    # MC s.d. of a B-replicate SE = SE sqrt((kappa-1)/(4B)) (V-TOL), 4 s.d.
     assert abs(result.standard_error - ideal_se) <= 4 * ideal_se * math.sqrt((kurt - 1) / (4 * 4000))
 
 
@@ -208,7 +208,7 @@ def test_bca_zero_constants_equal_percentile_interval() -> None:
 
 def test_spatial_level_mapping() -> None:
     # Source: E&T Table 14.2 (published, as cited): a = .061, z0 = .146 -> .110 / .985;
-    # recomputed 0.109856 / 0.984477 (REFERENCES BS-SPATIAL, exact)
+    # recomputed 0.109856 / 0.984477 (V-SPATIAL, exact)
     lo, hi = bca_levels(0.146, 0.061, [0.05, 0.95])
     assert lo == pytest.approx(0.109856, abs=1e-6)
     assert hi == pytest.approx(0.984477, abs=1e-6)
@@ -216,22 +216,22 @@ def test_spatial_level_mapping() -> None:
 
 def test_spatial_acceleration() -> None:
     reps = jackknife_replicates([SPATIAL_A], PLUGIN_VARIANCE)
-    # Source: REFERENCES BS-SPATIAL a = 0.0612401198123 (exact); E&T Table 14.2 a = .061
+    # Source: V-SPATIAL a = 0.0612401198123 (exact); E&T Table 14.2 a = .061
     assert bca_acceleration(reps) == pytest.approx(0.0612401198123, abs=1e-10)
     result = run([SPATIAL_A], PLUGIN_VARIANCE, confidence=0.9, intervals=["percentile", "bca"])
     assert result.acceleration == pytest.approx(0.0612401198123, abs=1e-10)
-    assert result.estimate == pytest.approx(171.534023668639, rel=1e-12)  # Source: REFERENCES BS-SPATIAL
+    assert result.estimate == pytest.approx(171.534023668639, rel=1e-12)  # Source: V-SPATIAL
 
 
 def test_spatial_intervals_b2000() -> None:
     result = run([SPATIAL_A], PLUGIN_VARIANCE, confidence=0.9, intervals=["percentile", "bca"],
                  analysis="spatial")
     percentile, bca = result.intervals
-    # Source: REFERENCES BS-SPATIAL MC (B = 2e6): percentile (97.870, 235.688), MC s.d. 1.72 / 2.09
+    # Source: V-SPATIAL MC (B = 2e6): percentile (97.870, 235.688), MC s.d. 1.72 / 2.09
     # at B=2000, so 4 s.d. = 6.88 / 8.36
     assert abs(percentile.lower - 97.870) <= 6.88
     assert abs(percentile.upper - 235.688) <= 8.36
-    # Source: REFERENCES BS-SPATIAL suggested test: BCa within ±4 / ±8 of (115.8, 261.7)
+    # Source: V-SPATIAL suggested test: BCa within ±4 / ±8 of (115.8, 261.7)
     assert abs(bca.lower - 115.8) <= 4
     assert abs(bca.upper - 261.7) <= 8
     assert bca.quantile_levels is not None and bca.quantile_levels[0] > 0.05
@@ -285,7 +285,7 @@ def test_percentile_and_bca_agree_with_scipy() -> None:
     ref = {m: scipy.stats.bootstrap((TREATMENT,), np.mean, n_resamples=B, confidence_level=0.95,
                                     method=m, rng=np.random.default_rng(20260)).confidence_interval
            for m in ("percentile", "BCa")}
-    # MC s.d. of each endpoint estimated from 60 independent runs at B=2000 (REFERENCES §3),
+    # MC s.d. of each endpoint estimated from 60 independent runs at B=2000 (V-TOL),
     # scaled to B=20000 by sqrt(2000/20000); the two runs are independent, so the difference has
     # s.d. sqrt(2) times that; tolerance 4 s.d.
     runs = np.array([[v for iv in run([TREATMENT], "mean", intervals=["percentile", "bca"],
@@ -417,4 +417,4 @@ def test_proportion_bootstrap() -> None:
     data = np.array([1.0] * 30 + [0.0] * 20)
     result = run([data], "proportion", intervals=["percentile"])
     ideal = math.sqrt(0.6 * 0.4 / 50)  # identity 7: Var*(mean*) = m2/n
-    assert abs(result.standard_error - ideal) <= 4 * ideal / math.sqrt(2 * 2000)  # REFERENCES §3, kappa ~ 3
+    assert abs(result.standard_error - ideal) <= 4 * ideal / math.sqrt(2 * 2000)  # V-TOL, kappa ~ 3

@@ -1,5 +1,5 @@
-"""Bootstrap designs and intervals at the engine level: exhaustive enumeration (REFERENCES §4
-identities 7–10, BS-MOUSE, JK-PATCH), pairs, clusters, blocks, parametric (identity 11), basic /
+"""Bootstrap designs and intervals at the engine level: exhaustive enumeration
+(identities 7–10, V-MOUSE-BOOT, V-PATCH), pairs, clusters, blocks, parametric (identity 11), basic /
 normal / studentized intervals (identity 12), Monte Carlo endpoint ranges, on_degenerate, batch
 invariance of every scheme, and the fast paths against the plain computation."""
 
@@ -23,10 +23,10 @@ from planrunner.engines.statistics import get_statistic
 from planrunner.engines.streams import stream_for
 from planrunner.errors import EngineError
 
-# Source: E&T Table 2.1 (REFERENCES BS-MOUSE, published, confirmed)
+# Source: E&T Table 2.1 (V-MOUSE-BOOT, published, confirmed)
 TREATMENT = np.array([94, 197, 16, 38, 99, 141, 23], dtype=float)
 CONTROL = np.array([52, 104, 146, 10, 51, 30, 40, 27, 46], dtype=float)
-# Source: E&T Table 10.1 (REFERENCES JK-PATCH, published, confirmed)
+# Source: E&T Table 10.1 (V-PATCH, published, confirmed)
 PLACEBO = np.array([9243, 9671, 11792, 13357, 9055, 6290, 12412, 18806], dtype=float)
 OLD = np.array([17649, 12013, 19979, 21816, 13850, 9806, 17208, 29044], dtype=float)
 NEW = np.array([16449, 14614, 17274, 23798, 12560, 10157, 16570, 26325], dtype=float)
@@ -50,11 +50,11 @@ def test_exhaustive_mouse_ideal_values() -> None:
     mean = boot([TREATMENT], "mean", exhaustive=True)
     median = boot([TREATMENT], "median", exhaustive=True)
     assert mean.exact and mean.resamples == 1716  # identity 10: C(13, 7)
-    # Source: REFERENCES BS-MOUSE (exact; E&T Table 2.2 ∞ column 23.36 / 37.83 from memory)
+    # Source: V-MOUSE-BOOT (exact; E&T Table 2.2 ∞ column 23.36 / 37.83 from memory)
     assert mean.standard_error == pytest.approx(23.3635234373, rel=1e-10)
     assert median.standard_error == pytest.approx(37.8346743939, rel=1e-10)
-    assert median.bias == pytest.approx(-14.27116, abs=1e-5)  # Source: REFERENCES BS-MOUSE, exact
-    # Source: REFERENCES BS-MOUSE: ideal 90% percentile interval of the mean (49.4286, 126.7143), exact
+    assert median.bias == pytest.approx(-14.27116, abs=1e-5)  # Source: V-MOUSE-BOOT, exact
+    # Source: V-MOUSE-BOOT: ideal 90% percentile interval of the mean (49.4286, 126.7143), exact
     iv = by_method(mean)["percentile"]
     assert (iv.lower, iv.upper) == pytest.approx((346 / 7, 887 / 7), rel=1e-12)
     assert iv.monte_carlo is None and mean.standard_error_sd == 0.0
@@ -108,8 +108,8 @@ def test_identity_9_stratified_ideal_variance() -> None:
 
 def test_exhaustive_patch_ratio() -> None:
     r = boot([PATCH], "ratio", exhaustive=True, intervals=("percentile", "bca"))
-    assert r.resamples == 6435  # Source: REFERENCES JK-PATCH, C(15, 8)
-    # Source: REFERENCES JK-PATCH, full enumeration (exact)
+    assert r.resamples == 6435  # Source: V-PATCH, C(15, 8)
+    # Source: V-PATCH, full enumeration (exact)
     assert r.estimate == pytest.approx(-0.0713060959025602, rel=1e-12)
     assert r.bias == pytest.approx(0.00776050566338, rel=1e-10)
     assert r.standard_error == pytest.approx(0.10231380623193, rel=1e-10)
@@ -117,16 +117,16 @@ def test_exhaustive_patch_ratio() -> None:
     assert below == pytest.approx(0.5094394, abs=1e-7)
     iv = by_method(r)["percentile"]
     assert (iv.lower, iv.upper) == pytest.approx((-0.211455, 0.120958), abs=1e-6)
-    assert r.acceleration == pytest.approx(0.0240502, abs=1e-7)  # Source: REFERENCES JK-PATCH a
+    assert r.acceleration == pytest.approx(0.0240502, abs=1e-7)  # Source: V-PATCH a
     # our z0 is the mid-rank: the original multiset (weight 8!/8⁸, exact) ties with θ̂
     tie = math.factorial(8) / 8 ** 8
     assert r.z0 == pytest.approx(float(ndtri(below + tie / 2)), rel=1e-9)
-    # with E&T's z0 = Φ⁻¹(P*(θ* < θ̂)) = 0.023663 the same machinery gives REFERENCES' ideal BCa
+    # with E&T's z0 = Φ⁻¹(P*(θ* < θ̂)) = 0.023663 the same machinery gives V-PATCH's ideal BCa
     order = np.argsort(r.distribution)
     levels = bca_levels(0.023663, r.acceleration, [0.05, 0.95])
     cumulative = np.cumsum(r.weights[order])
     ends = [read_quantile(r.distribution[order], cumulative, float(p)) for p in levels]
-    assert ends == pytest.approx([-0.204392, 0.136319], abs=2e-6)  # Source: REFERENCES JK-PATCH ideal BCa
+    assert ends == pytest.approx([-0.204392, 0.136319], abs=2e-6)  # Source: V-PATCH ideal BCa
 
 
 def test_exhaustive_limit_is_stated() -> None:
@@ -152,7 +152,7 @@ def test_basic_agrees_with_scipy() -> None:
     ours = by_method(boot([TREATMENT], "mean", B=b, intervals=("basic",)))["basic"]
     theirs = stats.bootstrap((TREATMENT,), np.mean, n_resamples=b, confidence_level=0.9, method="basic",
                              rng=np.random.default_rng(11)).confidence_interval  # scipy reference
-    se = 23.3635234373  # Source: REFERENCES BS-MOUSE ideal SE
+    se = 23.3635234373  # Source: V-MOUSE-BOOT ideal SE
     sd = math.sqrt(0.05 * 0.95 / b) / (stats.norm.pdf(stats.norm.ppf(0.05)) / se) * math.sqrt(2)
     assert abs(ours.lower - theirs.low) <= 4 * sd and abs(ours.upper - theirs.high) <= 4 * sd
 
@@ -166,7 +166,7 @@ def test_identity_11_exponential_parametric() -> None:
     for level, end in zip((0.05, 0.95), (by_method(r)["percentile"].lower, by_method(r)["percentile"].upper)):
         q = stats.gamma.ppf(level, n, scale=mean / n)  # scipy reference
         sd = math.sqrt(level * (1 - level) / b) / stats.gamma.pdf(q, n, scale=mean / n)
-        assert abs(end - q) <= 4 * sd  # REFERENCES §3 quantile endpoint s.d.
+        assert abs(end - q) <= 4 * sd  # V-TOL quantile endpoint s.d.
     # the ideal SE of the mean under the fit is ȳ/√n; MC s.d. SE/√(2B) × sqrt((κ−1)/2), κ = 3 + 6/n
     ideal = mean / math.sqrt(n)
     assert abs(r.standard_error - ideal) <= 4 * ideal * math.sqrt((2 + 6 / n) / (4 * b))
@@ -190,7 +190,7 @@ def test_parametric_models_fit_by_maximum_likelihood() -> None:
 def test_studentized_analytic_and_jackknife_inner() -> None:
     r = boot([TREATMENT], "mean", intervals=("studentized", "percentile"))
     assert r.details["studentized_se"]["method"] == "analytic"
-    assert r.details["se_hat"] == pytest.approx(25.235489533, rel=1e-10)  # Source: REFERENCES BS-MOUSE s/√n
+    assert r.details["se_hat"] == pytest.approx(25.235489533, rel=1e-10)  # Source: V-MOUSE-BOOT s/√n
     iv = by_method(r)["studentized"]
     assert iv.lower < r.estimate < iv.upper
     # for the mean the jackknife SE equals s/√n (identity 2), so the inner jackknife gives the same interval
@@ -210,7 +210,7 @@ def test_monte_carlo_ranges_contain_the_endpoint() -> None:
         assert iv.monte_carlo is not None, iv.method
         (a, b), (c, d) = iv.monte_carlo
         assert a <= iv.lower <= b and c <= iv.upper <= d, iv
-    # REFERENCES §3: the SE's MC s.d. is SE·sqrt((κ − 1)/(4B)); the bias's SE/√B
+    # V-TOL: the SE's MC s.d. is SE·sqrt((κ − 1)/(4B)); the bias's SE/√B
     assert r.bias_sd == pytest.approx(r.standard_error / math.sqrt(2000))
     assert 0 < r.standard_error_sd < r.standard_error / math.sqrt(2000)
 

@@ -1,4 +1,4 @@
-"""Delete-one jackknife: REFERENCES §4 identities 1–6, JK-LAW, JK-PATCH, mouse cases."""
+"""Delete-one jackknife: identities 1–6, V-LAW-JACK, V-PATCH, mouse cases."""
 
 from __future__ import annotations
 
@@ -14,22 +14,22 @@ from planrunner.engines.jackknife import jackknife, jackknife_replicates
 from planrunner.engines.statistics import Statistic, get_statistic
 from planrunner.errors import EngineError
 
-# Source: E&T Table 2.1 (REFERENCES BS-MOUSE, published, confirmed)
+# Source: E&T Table 2.1 (V-MOUSE-BOOT, published, confirmed)
 TREATMENT = np.array([94, 197, 16, 38, 99, 141, 23], dtype=float)
 CONTROL = np.array([52, 104, 146, 10, 51, 30, 40, 27, 46], dtype=float)
 
-# Source: E&T Table 3.1 (REFERENCES JK-LAW, published, confirmed): (LSAT, GPA)
+# Source: E&T Table 3.1 (V-LAW-JACK, published, confirmed): (LSAT, GPA)
 LAW = np.array([
     [576, 3.39], [635, 3.30], [558, 2.81], [578, 3.03], [666, 3.44], [580, 3.07], [555, 3.00],
     [661, 3.43], [651, 3.36], [605, 3.13], [653, 3.12], [575, 2.74], [545, 2.76], [572, 2.88],
     [594, 2.96]])
 
-# Source: E&T Table 10.1 (REFERENCES JK-PATCH, published, confirmed)
+# Source: E&T Table 10.1 (V-PATCH, published, confirmed)
 PLACEBO = np.array([9243, 9671, 11792, 13357, 9055, 6290, 12412, 18806], dtype=float)
 OLD = np.array([17649, 12013, 19979, 21816, 13850, 9806, 17208, 29044], dtype=float)
 NEW = np.array([16449, 14614, 17274, 23798, 12560, 10157, 16570, 26325], dtype=float)
 
-REL = 1e-12  # REFERENCES §4: identities at 1e-12
+REL = 1e-12  # docs/VALIDATION.md: identities at 1e-12
 
 
 def _pearson(xy: np.ndarray) -> np.ndarray:
@@ -55,7 +55,7 @@ def generic(statistic: Statistic) -> Statistic:
     return dataclasses.replace(statistic, form=None)
 
 
-# ------------------------------------------------------------------ identities (REFERENCES §4)
+# ------------------------------------------------------------------ identities (docs/VALIDATION.md)
 
 @pytest.mark.parametrize("data", [TREATMENT, CONTROL, np.random.default_rng(1).normal(5, 2, 31)])
 def test_mean_identities_1_2_3(data: np.ndarray) -> None:
@@ -69,7 +69,7 @@ def test_mean_identities_1_2_3(data: np.ndarray) -> None:
 
 def test_mouse_treatment_mean_se() -> None:
     result = jackknife([TREATMENT], get_statistic("mean"))
-    assert result.standard_error == pytest.approx(25.235489533, rel=1e-10)  # Source: REFERENCES BS-MOUSE s/sqrt(n), exact
+    assert result.standard_error == pytest.approx(25.235489533, rel=1e-10)  # Source: V-MOUSE-BOOT s/sqrt(n), exact
 
 
 @pytest.mark.parametrize("data", [TREATMENT, np.random.default_rng(2).exponential(3, 20)])
@@ -93,7 +93,7 @@ def test_median_even_n_identity_5(data: np.ndarray) -> None:
 
 
 def test_median_mouse_treatment_odd_n() -> None:
-    # Source: REFERENCES §4 identity 5 (mouse treatment, recomputed, printed to 2 decimals)
+    # Source: identity 5 (mouse treatment, recomputed, printed to 2 decimals)
     result = jackknife([TREATMENT], get_statistic("median"))
     assert result.bias == pytest.approx(-87.43, abs=5e-3)
     assert result.standard_error == pytest.approx(36.27, abs=5e-3)
@@ -105,9 +105,9 @@ def test_two_sample_difference_identity_6() -> None:
     result = jackknife([TREATMENT, CONTROL], get_statistic("mean_difference"))
     formula = math.sqrt(np.var(TREATMENT, ddof=1) / 7 + np.var(CONTROL, ddof=1) / 9)
     assert result.standard_error == pytest.approx(formula, rel=REL)  # identity 6
-    assert result.standard_error == pytest.approx(28.936067137, rel=1e-10)  # Source: REFERENCES PT-MOUSE, exact
+    assert result.standard_error == pytest.approx(28.936067137, rel=1e-10)  # Source: V-MOUSE-PERM, exact
     assert abs(result.bias) <= REL * 200
-    assert result.estimate == pytest.approx(30.6349206, abs=1e-7)  # Source: REFERENCES PT-MOUSE, exact
+    assert result.estimate == pytest.approx(30.6349206, abs=1e-7)  # Source: V-MOUSE-PERM, exact
     assert result.n == (7, 9)
     assert result.scheme == "delete-one observation within each group"
     assert len(result.replicates) == 2 and result.replicates[1].shape == (9,)
@@ -136,13 +136,13 @@ def test_two_sample_formula_by_hand() -> None:
 
 def test_law_school_correlation() -> None:
     result = jackknife([LAW], PEARSON)
-    assert result.estimate == pytest.approx(0.776374491289407, rel=REL)  # Source: REFERENCES JK-LAW, exact
-    assert result.standard_error == pytest.approx(0.14251861860227, rel=REL)  # Source: REFERENCES JK-LAW, exact
-    assert result.bias == pytest.approx(-0.00647362304592, rel=1e-10)  # Source: REFERENCES JK-LAW, exact
+    assert result.estimate == pytest.approx(0.776374491289407, rel=REL)  # Source: V-LAW-JACK, exact
+    assert result.standard_error == pytest.approx(0.14251861860227, rel=REL)  # Source: V-LAW-JACK, exact
+    assert result.bias == pytest.approx(-0.00647362304592, rel=1e-10)  # Source: V-LAW-JACK, exact
     # E&T §11.2's ".142" (from memory) is not asserted: the exact 0.1425186 lies 5.2e-4 from it,
-    # just outside REFERENCES' ±5e-4 (the remembered value looks truncated, not rounded), and a
+    # just outside the ±5e-4 of V-LAW-JACK (the remembered value looks truncated, not rounded), and a
     # remembered value is never the only oracle; the exact recomputation above is the check.
-    # Source: REFERENCES JK-LAW leave-one-out replicates (rounded to 10 decimals)
+    # Source: V-LAW-JACK leave-one-out replicates (rounded to 10 decimals)
     published = [0.8929471457, 0.7637068434, 0.7549983675, 0.7760967667, 0.7313196657, 0.7799686665,
                  0.7845359757, 0.7361618252, 0.7517390795, 0.7761230993, 0.8181007081, 0.7857184432,
                  0.7403508946, 0.7670413408, 0.7798725229]
@@ -152,10 +152,10 @@ def test_law_school_correlation() -> None:
 def test_patch_ratio() -> None:
     yz = np.column_stack([NEW - OLD, OLD - PLACEBO])
     result = jackknife([yz], RATIO)
-    assert result.estimate == pytest.approx(-0.0713060959025602, rel=REL)  # Source: REFERENCES JK-PATCH, exact
-    assert result.bias == pytest.approx(0.0080024883581075, rel=1e-10)  # Source: REFERENCES JK-PATCH, exact
-    assert result.standard_error == pytest.approx(0.1055277853799895, rel=REL)  # Source: REFERENCES JK-PATCH, exact
-    assert result.corrected_estimate == pytest.approx(-0.0793085842606676, rel=1e-11)  # Source: REFERENCES JK-PATCH
+    assert result.estimate == pytest.approx(-0.0713060959025602, rel=REL)  # Source: V-PATCH, exact
+    assert result.bias == pytest.approx(0.0080024883581075, rel=1e-10)  # Source: V-PATCH, exact
+    assert result.standard_error == pytest.approx(0.1055277853799895, rel=REL)  # Source: V-PATCH, exact
+    assert result.corrected_estimate == pytest.approx(-0.0793085842606676, rel=1e-11)  # Source: V-PATCH
     assert result.bias == pytest.approx(0.0080, abs=5e-5)  # Source: E&T §10.5 (published, as cited)
 
 

@@ -1,4 +1,4 @@
-"""Permutation test engine: REFERENCES PT-MOUSE, PT-HWPERM, FX-TEA, identities 13, 16, 17, 18;
+"""Permutation test engine: V-MOUSE-PERM, V-PERMEABILITY, V-TEA, identities 13, 16, 17, 18;
 scipy agreement; strata by brute force; the draw contract; batch invariance; errors."""
 
 from __future__ import annotations
@@ -18,11 +18,11 @@ from planrunner.engines.statistics import get_statistic
 from planrunner.engines.streams import DRAW_BLOCK, stream_for
 from planrunner.errors import EngineError
 
-# Source: E&T Table 2.1 (REFERENCES BS-MOUSE, published, confirmed)
+# Source: E&T Table 2.1 (V-MOUSE-BOOT, published, confirmed)
 TREATMENT = np.array([94, 197, 16, 38, 99, 141, 23], dtype=float)
 CONTROL = np.array([52, 104, 146, 10, 51, 30, 40, 27, 46], dtype=float)
 
-# Source: H&W (1973) p. 69 (REFERENCES PT-HWPERM, published, confirmed)
+# Source: H&W (1973) p. 69 (V-PERMEABILITY, published, confirmed)
 PERM_X = np.array([0.80, 0.83, 1.89, 1.04, 1.45, 1.38, 1.91, 1.64, 0.73, 1.46])
 PERM_Y = np.array([1.15, 0.88, 0.90, 0.74, 1.21])
 
@@ -49,14 +49,14 @@ def median_diff_axis(x, y, axis=-1):
     return np.median(x, axis=axis) - np.median(y, axis=axis)
 
 
-# ------------------------------------------------------------------ PT-MOUSE
+# ------------------------------------------------------------------ V-MOUSE-PERM
 
 def test_mouse_exact() -> None:
     result = run([TREATMENT, CONTROL])
     assert result.exact and result.arrangements == 11440 and result.resamples == 11440  # identity 18: C(16, 7)
-    assert result.count_greater == 1613  # Source: REFERENCES PT-MOUSE, exact (1613/11440)
+    assert result.count_greater == 1613  # Source: V-MOUSE-PERM, exact (1613/11440)
     assert result.p_value == 1613 / 11440
-    assert result.observed == pytest.approx(30.6349206, abs=1e-7)  # Source: REFERENCES PT-MOUSE, exact
+    assert result.observed == pytest.approx(30.6349206, abs=1e-7)  # Source: V-MOUSE-PERM, exact
     assert result.scheme == "labels shuffled over all rows"
     assert result.two_sided_rule == "doubled" and result.n == (7, 9)
     assert result.warnings == ()
@@ -66,7 +66,7 @@ def test_mouse_two_sided_matches_scipy() -> None:
     result = run([TREATMENT, CONTROL], alternative="two-sided")
     ref = scipy_exact(TREATMENT, CONTROL, mean_diff_axis, "two-sided")
     assert result.p_value == pytest.approx(ref.pvalue, rel=1e-12)  # scipy reference
-    assert result.p_value == pytest.approx(0.281993007, abs=5e-10)  # Source: REFERENCES PT-MOUSE, exact (9 digits)
+    assert result.p_value == pytest.approx(0.281993007, abs=5e-10)  # Source: V-MOUSE-PERM, exact (9 digits)
     assert result.p_value == pytest.approx(2 * min(result.count_greater, result.count_less) / 11440, rel=1e-15)
 
 
@@ -81,15 +81,15 @@ def test_mouse_null_moments_identity_16(fast: bool) -> None:
     variance = np.var(pooled, ddof=1) * (1 / 7 + 1 / 9)  # identity 16
     assert abs(mean) <= 1e-12 * 200
     assert var == pytest.approx(variance, rel=1e-12)
-    assert var == pytest.approx(759.8010582, abs=1e-7)  # Source: REFERENCES PT-MOUSE, exact
+    assert var == pytest.approx(759.8010582, abs=1e-7)  # Source: V-MOUSE-PERM, exact
 
 
 def test_mouse_monte_carlo_within_four_sd() -> None:
     m = 20000
     result = run([TREATMENT, CONTROL], m=m, exact="never", analysis="mouse-mc")
-    p = 1613 / 11440  # Source: REFERENCES PT-MOUSE, exact
+    p = 1613 / 11440  # Source: V-MOUSE-PERM, exact
     assert not result.exact and result.resamples == m and result.null.shape == (m,)
-    assert abs(result.p_value - p) <= 4 * math.sqrt(p * (1 - p) / m)  # REFERENCES §3
+    assert abs(result.p_value - p) <= 4 * math.sqrt(p * (1 - p) / m)  # V-TOL
     assert result.p_value == (result.count_greater + 1) / (m + 1)
 
 
@@ -98,7 +98,7 @@ def test_mouse_monte_carlo_within_four_sd() -> None:
 def test_permeability_exact() -> None:
     greater = run([PERM_X, PERM_Y])
     assert greater.arrangements == 3003  # identity 18: C(15, 5)
-    assert greater.count_greater == 191  # Source: REFERENCES PT-HWPERM, exact 191/3003
+    assert greater.count_greater == 191  # Source: V-PERMEABILITY, exact 191/3003
     two_sided = run([PERM_X, PERM_Y], alternative="two-sided")
     assert two_sided.p_value == pytest.approx(scipy_exact(PERM_X, PERM_Y, mean_diff_axis, "two-sided").pvalue,
                                               rel=1e-12)  # scipy reference
@@ -118,11 +118,11 @@ def test_agreement_with_scipy_exact(alternative: str, name: str, ref_stat) -> No
 
 
 def test_tea_tasting_identity_17() -> None:
-    # FX-TEA [[3, 1], [1, 3]]: cups with milk first, 1 = judged milk first
+    # V-TEA [[3, 1], [1, 3]]: cups with milk first, 1 = judged milk first
     milk_first = np.array([1.0, 1, 1, 0])
     tea_first = np.array([1.0, 0, 0, 0])
     result = run([milk_first, tea_first])
-    assert result.arrangements == 70 and result.count_greater == 17  # Source: REFERENCES FX-TEA, exact 17/70
+    assert result.arrangements == 70 and result.count_greater == 17  # Source: V-TEA, exact 17/70
     fisher = scipy.stats.fisher_exact([[3, 1], [1, 3]], alternative="greater")
     assert result.p_value == pytest.approx(fisher.pvalue, rel=1e-12)  # identity 17; scipy reference
 
@@ -134,11 +134,11 @@ def test_exact_equals_monte_carlo_within_tolerance() -> None:
     p = exact.p_value
     # two-sided = 2 min(...): s.d. of the doubled one-sided estimate is 2 sqrt(q(1-q)/m), q = p/2
     q = p / 2
-    assert abs(mc.p_value - p) <= 4 * 2 * math.sqrt(q * (1 - q) / m)  # REFERENCES §3
+    assert abs(mc.p_value - p) <= 4 * 2 * math.sqrt(q * (1 - q) / m)  # V-TOL
 
 
 def test_monte_carlo_floor_identity_13() -> None:
-    # identity 13 (cf. REFERENCES MC-FLOOR): no random arrangement reaches the observed split,
+    # identity 13 (cf. V-FLOOR): no random arrangement reaches the observed split,
     # so b = 0 and p = 1/(m+1) exactly, never 0
     low, high = np.arange(20.0), np.arange(20.0) + 1000
     result = run([high, low], m=999, exact="never")
@@ -155,7 +155,7 @@ def test_enumeration_modes() -> None:
     # integer data: more arrangements than resamples, but the DP null is exact
     dp = run([TREATMENT, CONTROL], m=1000)
     assert dp.exact and dp.computation == "dynamic programming" and dp.arrangements == 11440
-    assert dp.count_greater == 1613  # Source: REFERENCES PT-MOUSE, exact 1613/11440
+    assert dp.count_greater == 1613  # Source: V-MOUSE-PERM, exact 1613/11440
     with pytest.raises(EngineError, match="155,117,520 arrangements"):
         run([np.arange(15.0) + 0.1, np.arange(15.0) + 1.3], exact="always")
     with pytest.raises(EngineError, match="155,117,520 arrangements"):

@@ -1,5 +1,5 @@
 """Engines of the complete permutation tests: exact DP nulls, fast paths against the plain
-computation, sign-flip / cluster / association draw contracts, max-T, multiplicity (MT-BH95),
+computation, sign-flip / cluster / association draw contracts, max-T, multiplicity (V-BH95),
 and property tests (0 < p ≤ 1, Monte Carlo p ≥ 1/(m+1), a symmetric sign-flip null)."""
 
 from __future__ import annotations
@@ -26,12 +26,12 @@ from planrunner.engines.streams import DRAW_BLOCK, stream_for
 from planrunner.errors import EngineError
 from planrunner.engines.multiplicity import adjust
 
-# Source: REFERENCES PT-HWDEP (H&W 1973 p. 29f)
+# Source: V-DEPRESSION (H&W 1973 p. 29f)
 HW_X = np.array([1.83, 0.50, 1.62, 2.48, 1.68, 1.88, 1.55, 3.06, 1.30])
 HW_Y = np.array([0.878, 0.647, 0.598, 2.05, 1.06, 1.29, 1.06, 3.14, 1.29])
-# Source: REFERENCES PT-DARWIN
+# Source: V-DARWIN
 DARWIN = np.array([49, -67, 8, 16, 6, 23, 28, 41, 14, 29, 56, 24, 75, 60, -48], dtype=float)
-# Source: REFERENCES MT-BH95 (Benjamini & Hochberg 1995 §4)
+# Source: V-BH95 (Benjamini & Hochberg 1995 §4)
 BH95 = [0.0001, 0.0004, 0.0019, 0.0095, 0.0201, 0.0278, 0.0298, 0.0344, 0.0459, 0.3240, 0.4262, 0.5719,
         0.6528, 0.7590, 1.000]
 
@@ -299,13 +299,13 @@ def test_max_t_step_down_by_definition():
 @pytest.mark.parametrize("ours, theirs", [("bonferroni", "bonferroni"), ("holm", "holm"),
                                           ("hochberg", "simes-hochberg"), ("bh", "fdr_bh"), ("by", "fdr_by")])
 def test_adjustments_match_statsmodels_bh95(ours, theirs):
-    reference = multipletests(BH95, method=theirs)[1]  # statsmodels reference (REFERENCES MT-BH95)
+    reference = multipletests(BH95, method=theirs)[1]  # statsmodels reference (V-BH95)
     assert adjust(BH95, ours) == pytest.approx(list(reference), rel=1e-12, abs=1e-15)
     if ours == "bh":
-        assert adjust(BH95, "bh")[3] == pytest.approx(0.035625, rel=1e-12)  # Source: REFERENCES MT-BH95
-        assert sum(p <= 0.05 for p in adjust(BH95, "bh")) == 4  # Source: REFERENCES MT-BH95: BH rejects 4
+        assert adjust(BH95, "bh")[3] == pytest.approx(0.035625, rel=1e-12)  # Source: V-BH95
+        assert sum(p <= 0.05 for p in adjust(BH95, "bh")) == 4  # Source: V-BH95: BH rejects 4
     if ours == "bonferroni":
-        assert sum(p <= 0.05 for p in adjust(BH95, ours)) == 3  # Source: REFERENCES MT-BH95
+        assert sum(p <= 0.05 for p in adjust(BH95, ours)) == 3  # Source: V-BH95
 
 
 def test_exact_always_error_names_the_count_for_sign_flips():

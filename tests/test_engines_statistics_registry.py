@@ -14,14 +14,14 @@ from planrunner.engines import statistics as S
 from planrunner.engines.jackknife import jackknife, jackknife_replicates
 from planrunner.engines.statistics import STATISTICS, bind, get_statistic
 
-# Source: E&T Table 2.1 (REFERENCES BS-MOUSE, published, confirmed)
+# Source: E&T Table 2.1 (V-MOUSE-BOOT, published, confirmed)
 TREATMENT = np.array([94, 197, 16, 38, 99, 141, 23], dtype=float)
 CONTROL = np.array([52, 104, 146, 10, 51, 30, 40, 27, 46], dtype=float)
-# Source: E&T Table 3.1 (REFERENCES JK-LAW, published, confirmed): (LSAT, GPA)
+# Source: E&T Table 3.1 (V-LAW-JACK, published, confirmed): (LSAT, GPA)
 LAW = np.array([[576, 3.39], [635, 3.30], [558, 2.81], [578, 3.03], [666, 3.44], [580, 3.07], [555, 3.00],
                 [661, 3.43], [651, 3.36], [605, 3.13], [653, 3.12], [575, 2.74], [545, 2.76], [572, 2.88],
                 [594, 2.96]])
-# Source: REFERENCES FX-TEA (Fisher 1935), table [[3, 1], [1, 3]] as two groups of 0/1 outcomes
+# Source: V-TEA (Fisher 1935), table [[3, 1], [1, 3]] as two groups of 0/1 outcomes
 TEA_MILK_FIRST = np.array([1, 1, 1, 0], dtype=float)
 TEA_TEA_FIRST = np.array([1, 0, 0, 0], dtype=float)
 
@@ -47,7 +47,7 @@ def test_one_group_statistics_against_references() -> None:
     assert one("variance", x) == pytest.approx(np.var(x, ddof=1), rel=1e-15)
     assert one("cv", x) == pytest.approx(stats.variation(x, ddof=1), rel=1e-14)  # scipy reference
     assert one("mad", x) == pytest.approx(stats.median_abs_deviation(x), rel=1e-15)  # scipy reference
-    # Source: REFERENCES BS-SPATIAL: θ̂ = plug-in variance of test A = 171.534023668639
+    # Source: V-SPATIAL: θ̂ = plug-in variance of test A = 171.534023668639
     a = np.array([48, 36, 20, 29, 42, 42, 20, 42, 22, 41, 45, 14, 6, 0, 33, 28, 34, 4, 32, 24, 47, 41, 24,
                   26, 30, 41], dtype=float)
     assert one("plugin_variance", a) == pytest.approx(171.534023668639, rel=1e-12)
@@ -58,7 +58,7 @@ def test_two_column_statistics_against_references() -> None:
     fit = stats.linregress(LAW[:, 0], LAW[:, 1])  # scipy reference: GPA on LSAT
     assert one("slope", LAW) == pytest.approx(fit.slope, rel=1e-12)
     assert one("ratio", LAW) == pytest.approx(LAW[:, 1].mean() / LAW[:, 0].mean(), rel=1e-15)
-    # Source: REFERENCES JK-LAW r = 0.776374491289 (exact)
+    # Source: V-LAW-JACK r = 0.776374491289 (exact)
     assert one("correlation", LAW) == pytest.approx(0.776374491289407, rel=1e-12)
 
 
@@ -68,7 +68,7 @@ def test_two_group_statistics_against_references() -> None:
     assert one("ratio_of_means", x, y) == pytest.approx(x.mean() / y.mean(), rel=1e-15)
     hl = np.median(np.subtract.outer(x, y))  # definition: median of the 63 pairwise differences
     assert one("hodges_lehmann", x, y) == pytest.approx(hl, rel=1e-15)
-    # Source: REFERENCES FX-TEA: sample odds ratio 9 (exact); risks 3/4 and 1/4
+    # Source: V-TEA: sample odds ratio 9 (exact); risks 3/4 and 1/4
     assert one("odds_ratio", TEA_MILK_FIRST, TEA_TEA_FIRST) == pytest.approx(9.0, rel=1e-15)
     assert one("risk_ratio", TEA_MILK_FIRST, TEA_TEA_FIRST) == pytest.approx(3.0, rel=1e-15)
     assert one("risk_difference", TEA_MILK_FIRST, TEA_TEA_FIRST) == pytest.approx(0.5, rel=1e-15)
@@ -124,12 +124,12 @@ def test_parameters_are_required_and_checked() -> None:
 def test_analytic_standard_errors() -> None:
     x = TREATMENT
     n = x.size
-    assert float(get_statistic("mean").se(x)) == pytest.approx(25.235489533, rel=1e-10)  # Source: REFERENCES BS-MOUSE
-    # Source: REFERENCES PT-MOUSE / identity 6: sqrt(s1²/n1 + s2²/n2) = 28.936067137
+    assert float(get_statistic("mean").se(x)) == pytest.approx(25.235489533, rel=1e-10)  # Source: V-MOUSE-BOOT
+    # Source: V-MOUSE-PERM / identity 6: sqrt(s1²/n1 + s2²/n2) = 28.936067137
     assert float(get_statistic("mean_difference").se(x, CONTROL)) == pytest.approx(28.936067137, rel=1e-9)
     a = np.array([48, 36, 20, 29, 42, 42, 20, 42, 22, 41, 45, 14, 6, 0, 33, 28, 34, 4, 32, 24, 47, 41, 24,
                   26, 30, 41], dtype=float)
-    # Source: REFERENCES BS-SPATIAL: delta SE sqrt((m4 − m2²)/n) = 42.4529
+    # Source: V-SPATIAL: delta SE sqrt((m4 − m2²)/n) = 42.4529
     assert float(get_statistic("plugin_variance").se(a)) == pytest.approx(42.4529, abs=1e-4)
     assert float(get_statistic("variance").se(x)) == pytest.approx(float(get_statistic("plugin_variance").se(x)) * n / (n - 1))
 

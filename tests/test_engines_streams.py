@@ -1,4 +1,5 @@
-"""Reproducible streams (DESIGN §6) and the purity of the engines package (DESIGN §2)."""
+"""Reproducible streams and the purity of the engines package (DEVELOPERS.md: Reproducibility rules,
+Layout)."""
 
 from __future__ import annotations
 
@@ -24,7 +25,7 @@ ENGINES = Path(__file__).resolve().parents[1] / "planrunner" / "engines"
 
 
 def manual_generator(root: int, key: tuple[int, ...], block: int) -> np.random.Generator:
-    # the documented construction, spelled out (DESIGN §6)
+    # the documented construction, spelled out (DEVELOPERS.md: Reproducibility rules)
     return np.random.Generator(np.random.PCG64(np.random.SeedSequence(entropy=root, spawn_key=key + (block,))))
 
 
@@ -116,7 +117,7 @@ ALLOWED_IMPORTS = {"numpy", "scipy", "math", "dataclasses", "hashlib", "itertool
 
 @pytest.mark.parametrize("path", sorted(ENGINES.glob("*.py")), ids=lambda p: p.name)
 def test_engines_are_pure(path: Path) -> None:
-    # DESIGN §2: engines import numpy/scipy/stdlib maths only; no files, clock, printing
+    # engines import numpy/scipy/stdlib maths only; no files, clock, printing (DEVELOPERS.md: Layout)
     tree = ast.parse(path.read_text(encoding="utf-8"))
     for node in ast.walk(tree):
         if isinstance(node, ast.Import):

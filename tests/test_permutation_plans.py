@@ -1,7 +1,7 @@
 """Permutation and randomization tests end to end: plan file → CSV → record, against outside values.
 
-Check values from ../shared/REFERENCES.md (the case is named beside each value), exact identities
-(REFERENCES §4) and scipy/statsmodels reference functions.
+Check values from docs/VALIDATION.md (the case id is named beside each value), exact identities
+(docs/VALIDATION.md) and scipy/statsmodels reference functions.
 """
 
 from __future__ import annotations
@@ -16,30 +16,30 @@ from planrunner.pipeline.run import run_plan
 
 from conftest import fixed_clock
 
-# Source: E&T Table 2.1 (REFERENCES BS-MOUSE / PT-MOUSE, published, confirmed)
+# Source: E&T Table 2.1 (V-MOUSE-BOOT / V-MOUSE-PERM, published, confirmed)
 TREATMENT = [94, 197, 16, 38, 99, 141, 23]
 CONTROL = [52, 104, 146, 10, 51, 30, 40, 27, 46]
-# Source: REFERENCES PT-DARWIN (Fisher 1935 §21; cross − self, eighths of an inch)
+# Source: V-DARWIN (Fisher 1935 §21; cross − self, eighths of an inch)
 DARWIN = [49, -67, 8, 16, 6, 23, 28, 41, 14, 29, 56, 24, 75, 60, -48]
-# Source: REFERENCES PT-HWDEP (H&W 1973 p. 29f)
+# Source: V-DEPRESSION (H&W 1973 p. 29f)
 HW_X = [1.83, 0.50, 1.62, 2.48, 1.68, 1.88, 1.55, 3.06, 1.30]
 HW_Y = [0.878, 0.647, 0.598, 2.05, 1.06, 1.29, 1.06, 3.14, 1.29]
-# Source: REFERENCES PT-SLEEP (Student 1908)
+# Source: V-SLEEP (Student 1908)
 DRUG1 = [0.7, -1.6, -0.2, -1.2, -0.1, 3.4, 3.7, 0.8, 0.0, 2.0]
 DRUG2 = [1.9, 0.8, 1.1, 0.1, -0.1, 4.4, 5.5, 1.6, 4.6, 3.4]
-# Source: REFERENCES PT-HWPERM (H&W 1973 p. 69f)
+# Source: V-PERMEABILITY (H&W 1973 p. 69f)
 PERM_X = [0.80, 0.83, 1.89, 1.04, 1.45, 1.38, 1.91, 1.64, 0.73, 1.46]
 PERM_Y = [1.15, 0.88, 0.90, 0.74, 1.21]
-# Source: REFERENCES PT-MWU (scipy mannwhitneyu docstring)
+# Source: V-MWU (scipy mannwhitneyu docstring)
 MALES = [19, 22, 16, 29, 24]
 FEMALES = [20, 11, 17, 12]
-# Source: REFERENCES PT-PLANT (Dobson 1983, published, confirmed)
+# Source: V-PLANT (Dobson 1983, published, confirmed)
 PLANT = {
     "ctrl": [4.17, 5.58, 5.18, 6.11, 4.50, 4.61, 5.17, 4.53, 5.33, 5.14],
     "trt1": [4.81, 4.17, 4.41, 3.59, 5.87, 3.83, 6.03, 4.89, 4.32, 4.69],
     "trt2": [6.31, 5.12, 5.54, 5.50, 5.37, 5.29, 4.92, 6.15, 5.80, 5.26],
 }
-# Source: REFERENCES JK-LAW (E&T Table 3.1, the first 7 schools: LSAT, GPA)
+# Source: V-LAW-JACK (E&T Table 3.1, the first 7 schools: LSAT, GPA)
 LAW7 = [(576, 3.39), (635, 3.30), (558, 2.81), (578, 3.03), (666, 3.44), (580, 3.07), (555, 3.00)]
 
 HEADER = """
@@ -100,7 +100,7 @@ def paired(aid: str, statistic: str, more: str = "") -> str:
 {more}"""
 
 
-# ------------------------------------------------------------------ identity 15, PT-MOUSE
+# ------------------------------------------------------------------ identity 15, V-MOUSE-PERM
 
 def test_equivalent_statistics_give_identical_exact_p_values(write_plan, tmp_path):
     """Identity 15: Δmean and the pooled t give the same exact p; Welch's t need not."""
@@ -109,9 +109,9 @@ def test_equivalent_statistics_give_identical_exact_p_values(write_plan, tmp_pat
     result, _ = run(write_plan, tmp_path, TWO_GROUPS, groups_csv({"a": TREATMENT, "b": CONTROL}), body)
     for alt in ("greater", "two-sided"):
         assert result[f"mean_difference-{alt}"]["p_value"] == result[f"t_pooled-{alt}"]["p_value"]  # identity 15
-    assert result["mean_difference-greater"]["details"]["count_greater_equal"] == 1613  # Source: PT-MOUSE, exact
-    assert result["t_pooled-greater"]["p_value"] == 1613 / 11440  # Source: REFERENCES PT-MOUSE, exact
-    # Source: REFERENCES PT-MOUSE: Student pooled t = 1.1208454, Welch t = 1.0587
+    assert result["mean_difference-greater"]["details"]["count_greater_equal"] == 1613  # Source: V-MOUSE-PERM, exact
+    assert result["t_pooled-greater"]["p_value"] == 1613 / 11440  # Source: V-MOUSE-PERM, exact
+    # Source: V-MOUSE-PERM: Student pooled t = 1.1208454, Welch t = 1.0587
     assert result["t_pooled-greater"]["estimate"] == pytest.approx(1.1208454, abs=1e-7)
     assert result["t_welch-greater"]["estimate"] == pytest.approx(1.0587, abs=1e-4)
     # Welch's t is not a monotone function of Δmean over the arrangements: its exact p is its own
@@ -128,14 +128,14 @@ def test_pooled_t_exact_by_dynamic_programming_equals_enumeration(write_plan, tm
             + analysis("dp2", "mean_difference", more="    resamples: 1000\n    two_sided: absolute\n"))
     result, _ = run(write_plan, tmp_path, TWO_GROUPS, groups_csv({"a": TREATMENT, "b": CONTROL}), body)
     assert result["dp"]["details"]["computation"] == "dynamic programming" and result["dp"]["exact"]
-    assert result["dp"]["p_value"] == pytest.approx(1613 / 11440, rel=1e-13)  # Source: PT-MOUSE, exact
-    # Source: REFERENCES PT-MOUSE: |Δ| rule 3184/11440
+    assert result["dp"]["p_value"] == pytest.approx(1613 / 11440, rel=1e-13)  # Source: V-MOUSE-PERM, exact
+    # Source: V-MOUSE-PERM: |Δ| rule 3184/11440
     assert result["dp2"]["p_value"] == pytest.approx(3184 / 11440, rel=1e-13)
     assert result["dp2"]["details"]["two_sided_rule"] == "absolute"
     assert result["dp"]["distribution"]["weighted"] and result["dp"]["distribution"]["size"] == 11440
 
 
-# ------------------------------------------------------------------ paired: PT-DARWIN, PT-HWDEP, PT-SLEEP
+# ------------------------------------------------------------------ paired: V-DARWIN, V-DEPRESSION, V-SLEEP
 
 def test_darwin_sign_flip_and_signed_rank(write_plan, tmp_path):
     # only the differences are published: each pair is written as (difference, 0)
@@ -148,13 +148,13 @@ def test_darwin_sign_flip_and_signed_rank(write_plan, tmp_path):
     result, _ = run(write_plan, tmp_path, PAIRED, csv, body)
     assert result["flip2"]["scheme"].startswith("sign-flip within pairs")
     assert result["flip2"]["details"]["arrangements"] == 2 ** 15  # identity 18
-    assert result["flip2"]["p_value"] == 1726 / 32768  # Source: REFERENCES PT-DARWIN, exact (Fisher 1935)
-    assert result["flip1"]["p_value"] == 863 / 32768  # Source: REFERENCES PT-DARWIN, exact
+    assert result["flip2"]["p_value"] == 1726 / 32768  # Source: V-DARWIN, exact (Fisher 1935)
+    assert result["flip1"]["p_value"] == 863 / 32768  # Source: V-DARWIN, exact
     assert result["flipabs"]["p_value"] == 1726 / 32768  # identity 14: symmetric null, the rules coincide
-    # Source: REFERENCES PT-DARWIN (scipy wilcoxon docstring): T = 24, p = 0.041259765625
+    # Source: V-DARWIN (scipy wilcoxon docstring): T = 24, p = 0.041259765625
     assert result["rank"]["p_value"] == 0.041259765625
     assert result["rank"]["p_value"] == pytest.approx(stats.wilcoxon(DARWIN, method="exact").pvalue, rel=1e-12)
-    assert result["rank-dp"]["estimate"] == 96  # Source: REFERENCES §0.6, T+ = 96
+    assert result["rank-dp"]["estimate"] == 96  # Source: V-CONV-WILCOXON, T+ = 96
     assert result["rank-dp"]["details"]["computation"] == "dynamic programming"
     assert result["rank-dp"]["p_value"] == pytest.approx(0.0206298828125, rel=1e-13)  # Source: scipy docstring
 
@@ -165,11 +165,11 @@ def test_hw_depression_signed_rank_and_sign_flip(write_plan, tmp_path):
             + paired("mean-greater", "mean_difference", "    alternative: greater\n")
             + paired("mean-two", "mean_difference"))
     result, _ = run(write_plan, tmp_path, PAIRED, pairs_csv(HW_X, HW_Y), body)
-    assert result["v-greater"]["estimate"] == 40  # Source: REFERENCES PT-HWDEP (published, confirmed): V = 40
-    assert result["v-greater"]["p_value"] == 10 / 512  # Source: REFERENCES PT-HWDEP, exact (.01953)
-    assert result["v-two"]["p_value"] == 20 / 512  # Source: REFERENCES PT-HWDEP, exact (.03906)
-    assert result["mean-greater"]["p_value"] == 7 / 512  # Source: REFERENCES PT-HWDEP, exact
-    assert result["mean-two"]["p_value"] == 14 / 512  # Source: REFERENCES PT-HWDEP, exact
+    assert result["v-greater"]["estimate"] == 40  # Source: V-DEPRESSION (published, confirmed): V = 40
+    assert result["v-greater"]["p_value"] == 10 / 512  # Source: V-DEPRESSION, exact (.01953)
+    assert result["v-two"]["p_value"] == 20 / 512  # Source: V-DEPRESSION, exact (.03906)
+    assert result["mean-greater"]["p_value"] == 7 / 512  # Source: V-DEPRESSION, exact
+    assert result["mean-two"]["p_value"] == 14 / 512  # Source: V-DEPRESSION, exact
     ref = stats.wilcoxon(HW_X, HW_Y, alternative="greater", method="exact")  # scipy reference
     assert result["v-greater"]["p_value"] == pytest.approx(ref.pvalue, rel=1e-12)
 
@@ -177,7 +177,7 @@ def test_hw_depression_signed_rank_and_sign_flip(write_plan, tmp_path):
 def test_sleep_exact_sign_flip_counts_duplicates(write_plan, tmp_path):
     result, _ = run(write_plan, tmp_path, PAIRED, pairs_csv(DRUG1, DRUG2), paired("sleep", "mean_difference"))
     assert result["sleep"]["details"]["arrangements"] == 1024  # all 2^10 patterns, the zero included
-    assert result["sleep"]["p_value"] == 4 / 1024  # Source: REFERENCES PT-SLEEP, exact
+    assert result["sleep"]["p_value"] == 4 / 1024  # Source: V-SLEEP, exact
     ref = stats.permutation_test((DRUG1, DRUG2), lambda x, y, axis=-1: np.mean(x - y, axis=axis),
                                  permutation_type="samples", n_resamples=np.inf)  # scipy reference
     assert result["sleep"]["p_value"] == pytest.approx(ref.pvalue, rel=1e-12)
@@ -190,30 +190,30 @@ def test_incomplete_pair_is_refused(write_plan, tmp_path):
         run(write_plan, tmp_path, PAIRED, csv, paired("x", "mean_difference"))
 
 
-# ------------------------------------------------------------------ rank sums: PT-HWPERM, PT-MWU
+# ------------------------------------------------------------------ rank sums: V-PERMEABILITY, V-MWU
 
 def test_permeability_rank_sum_and_two_sided_rules(write_plan, tmp_path):
     body = (analysis("w", "rank_sum", more="    alternative: greater\n")
             + analysis("dmean", "mean_difference", more="    alternative: greater\n")
             + analysis("dmean-abs", "mean_difference", more="    two_sided: absolute\n"))
     result, _ = run(write_plan, tmp_path, TWO_GROUPS, groups_csv({"a": PERM_X, "b": PERM_Y}), body)
-    assert result["w"]["p_value"] == 382 / 3003  # Source: REFERENCES PT-HWPERM, exact (.1272, published)
+    assert result["w"]["p_value"] == 382 / 3003  # Source: V-PERMEABILITY, exact (.1272, published)
     mwu = stats.mannwhitneyu(PERM_X, PERM_Y, alternative="greater", method="exact")  # scipy reference
     assert result["w"]["p_value"] == pytest.approx(mwu.pvalue, rel=1e-12)  # identity 15
     assert result["w"]["estimate"] == pytest.approx(mwu.statistic + 10 * 11 / 2)  # W = U + n1(n1+1)/2
-    assert result["dmean"]["p_value"] == 191 / 3003  # Source: REFERENCES PT-HWPERM, exact
-    assert result["dmean-abs"]["p_value"] == 396 / 3003  # Source: REFERENCES PT-HWPERM, exact (|Δ|)
+    assert result["dmean"]["p_value"] == 191 / 3003  # Source: V-PERMEABILITY, exact
+    assert result["dmean-abs"]["p_value"] == 396 / 3003  # Source: V-PERMEABILITY, exact (|Δ|)
     assert result["dmean-abs"]["details"]["count_absolute"] == 396
 
 
 def test_mwu_docstring_example(write_plan, tmp_path):
     result, _ = run(write_plan, tmp_path, TWO_GROUPS, groups_csv({"a": MALES, "b": FEMALES}),
                     analysis("u", "rank_sum"))
-    assert result["u"]["p_value"] == pytest.approx(1 / 9, rel=1e-12)  # Source: REFERENCES PT-MWU, exact 1/9
-    assert result["u"]["estimate"] - 15 == 17  # Source: REFERENCES PT-MWU: U = 17 (W − n1(n1+1)/2)
+    assert result["u"]["p_value"] == pytest.approx(1 / 9, rel=1e-12)  # Source: V-MWU, exact 1/9
+    assert result["u"]["estimate"] - 15 == 17  # Source: V-MWU: U = 17 (W − n1(n1+1)/2)
 
 
-# ------------------------------------------------------------------ k groups: PT-PLANT, MC-FLOOR
+# ------------------------------------------------------------------ k groups: V-PLANT, V-FLOOR
 
 def test_plant_growth_f_and_h_monte_carlo(write_plan, tmp_path):
     m = 4000
@@ -221,14 +221,14 @@ def test_plant_growth_f_and_h_monte_carlo(write_plan, tmp_path):
             + analysis("h", "rank_h", groups="[ctrl, trt1, trt2]", more=f"    resamples: {m}\n"))
     result, _ = run(write_plan, tmp_path, TWO_GROUPS, groups_csv(PLANT), body)
     f, h = result["f"], result["h"]
-    assert f["estimate"] == pytest.approx(4.8460879, abs=1e-6)  # Source: REFERENCES PT-PLANT (scipy 4.8460879)
+    assert f["estimate"] == pytest.approx(4.8460879, abs=1e-6)  # Source: V-PLANT (scipy 4.8460879)
     # no tie correction (the tie handling stated): equals scipy's H times its tie-correction factor
     pooled = np.concatenate(list(PLANT.values()))
     correction = stats.tiecorrect(stats.rankdata(pooled))
-    assert h["estimate"] == pytest.approx(7.9882287 * correction, rel=1e-7)  # Source: REFERENCES PT-PLANT
+    assert h["estimate"] == pytest.approx(7.9882287 * correction, rel=1e-7)  # Source: V-PLANT
     assert f["alternative"] == "greater" and not f["exact"]
-    for entry, p in ((f, 0.016630), (h, 0.014305)):  # Source: REFERENCES PT-PLANT (MC, m = 2e5)
-        assert abs(entry["p_value"] - p) <= 4 * math.sqrt(p * (1 - p) / m)  # REFERENCES §3 tolerance
+    for entry, p in ((f, 0.016630), (h, 0.014305)):  # Source: V-PLANT (MC, m = 2e5)
+        assert abs(entry["p_value"] - p) <= 4 * math.sqrt(p * (1 - p) / m)  # V-TOL tolerance
         assert entry["p_value"] >= 1 / (m + 1)
     assert "ctrl, trt1, trt2 by g" in f["question"]
 
@@ -251,12 +251,12 @@ def test_iris_monte_carlo_floor(write_plan, tmp_path):
     result, _ = run(write_plan, tmp_path, TWO_GROUPS, csv,
                     analysis("iris", "one_way_f", groups="[setosa, versicolor, virginica]",
                              more="    resamples: 999\n"))
-    assert result["iris"]["estimate"] == pytest.approx(119.2645, abs=1e-4)  # Source: REFERENCES MC-FLOOR
+    assert result["iris"]["estimate"] == pytest.approx(119.2645, abs=1e-4)  # Source: V-FLOOR
     assert result["iris"]["details"]["count_greater_equal"] == 0
-    assert result["iris"]["p_value"] == 1 / 1000  # Source: REFERENCES MC-FLOOR, exact: (0 + 1)/(999 + 1)
+    assert result["iris"]["p_value"] == 1 / 1000  # Source: V-FLOOR, exact: (0 + 1)/(999 + 1)
 
 
-# ------------------------------------------------------------------ binary: FX-TEA, FX-CONVICT, FX-SCIPY
+# ------------------------------------------------------------------ binary: V-TEA, V-TWINS, V-FISHER-DOC
 
 def binary_csv(table: list[list[int]]) -> str:
     """Rows of a 2×2 table as groups a and b; column 1 is outcome true."""
@@ -270,9 +270,9 @@ BINARY = "      g: {type: category}\n      y: {type: boolean}"
 
 
 @pytest.mark.parametrize("table, alternative, expected", [
-    ([[3, 1], [1, 3]], "greater", 17 / 70),  # Source: REFERENCES FX-TEA, exact 17/70
-    ([[2, 10], [15, 3]], "less", 0.000465180943),  # Source: REFERENCES FX-CONVICT, exact
-    ([[8, 2], [1, 5]], "greater", None),  # FX-SCIPY table; scipy reference only
+    ([[3, 1], [1, 3]], "greater", 17 / 70),  # Source: V-TEA, exact 17/70
+    ([[2, 10], [15, 3]], "less", 0.000465180943),  # Source: V-TWINS, exact
+    ([[8, 2], [1, 5]], "greater", None),  # V-FISHER-DOC table; scipy reference only
 ])
 def test_difference_in_proportions_equals_fisher(write_plan, tmp_path, table, alternative, expected):
     result, _ = run(write_plan, tmp_path, BINARY, binary_csv(table),
@@ -304,11 +304,11 @@ def test_ratio_of_proportions_equals_fisher_one_sided(write_plan, tmp_path, tabl
 
 
 def test_fisher_two_sided_convention_differs_and_is_stated(write_plan, tmp_path):
-    """REFERENCES §0.7: Fisher's two-sided sums tables no more probable; ours doubles the smaller tail."""
+    """V-CONV-FISHER: Fisher's two-sided sums tables no more probable; ours doubles the smaller tail."""
     result, _ = run(write_plan, tmp_path, BINARY, binary_csv([[8, 2], [1, 5]]), analysis("rd", "risk_difference"))
     greater = stats.fisher_exact([[8, 2], [1, 5]], alternative="greater").pvalue  # scipy reference
     assert result["rd"]["p_value"] == pytest.approx(2 * greater, rel=1e-12)
-    # Source: REFERENCES FX-SCIPY: Fisher two-sided 0.034965034965 (a different convention)
+    # Source: V-FISHER-DOC: Fisher two-sided 0.034965034965 (a different convention)
     assert result["rd"]["p_value"] != pytest.approx(0.034965034965, rel=1e-6)
     assert result["rd"]["details"]["two_sided_rule"] == "doubled"
 
@@ -478,7 +478,7 @@ def test_exact_always_infeasible_names_the_count(write_plan, tmp_path):
 
 
 def test_monte_carlo_interval_and_alpha_warning(write_plan, tmp_path):
-    # PT-HWPERM Δmean, greater: exact p = 191/3003 = 0.0636, close to alpha = 0.05
+    # V-PERMEABILITY Δmean, greater: exact p = 191/3003 = 0.0636, close to alpha = 0.05
     body = "".join(analysis(f"mc{m}", "mean_difference", more=f"    alternative: greater\n    exact: never\n"
                                                              f"    resamples: {m}\n") for m in (100, 500))
     result, _ = run(write_plan, tmp_path, TWO_GROUPS, groups_csv({"a": PERM_X, "b": PERM_Y}), body)
@@ -581,7 +581,7 @@ def test_max_t_family_end_to_end_and_order_free(write_plan, tmp_path):
     assert fam_a["adjusted"] == fam_b["adjusted"]  # the family's stream and arrangements ignore plan order
     details = fam_a["details"]
     assert details["exact"] and details["arrangements"] == 11440  # all C(16, 7) splits, shared by both
-    # the endpoint alone on the same (all) arrangements: mean difference greater is PT-MOUSE's 1613/11440
+    # the endpoint alone on the same (all) arrangements: mean difference greater is V-MOUSE-PERM's 1613/11440
     assert details["unadjusted_same_permutations"][0] == pytest.approx(1613 / 11440, rel=1e-12)
     for aid in ("days", "score"):
         assert fam_a["adjusted"][aid] >= fam_a["unadjusted"][aid] - 1e-12

@@ -1,5 +1,5 @@
 """Bootstrap and jackknife designs end to end: plan file and CSV → record, checked against
-REFERENCES.md values (source beside each), exact identities and scipy.stats.bootstrap."""
+docs/VALIDATION.md values (source beside each), exact identities and scipy.stats.bootstrap."""
 
 from __future__ import annotations
 
@@ -27,18 +27,18 @@ analyses:
 {analyses}
 """
 
-# Source: E&T Table 2.1 (REFERENCES BS-MOUSE, published, confirmed)
+# Source: E&T Table 2.1 (V-MOUSE-BOOT, published, confirmed)
 TREATMENT = [94, 197, 16, 38, 99, 141, 23]
-# Source: E&T Table 3.1 (REFERENCES JK-LAW / BS-LAW, published, confirmed; 2.76 for school 13)
+# Source: E&T Table 3.1 (V-LAW-JACK / V-LAW-BOOT, published, confirmed; 2.76 for school 13)
 LAW = [(576, 3.39), (635, 3.30), (558, 2.81), (578, 3.03), (666, 3.44), (580, 3.07), (555, 3.00), (661, 3.43),
        (651, 3.36), (605, 3.13), (653, 3.12), (575, 2.74), (545, 2.76), (572, 2.88), (594, 2.96)]
-# Source: E&T Table 14.1 (REFERENCES BS-SPATIAL, published, confirmed): test A, 26 children
+# Source: E&T Table 14.1 (V-SPATIAL, published, confirmed): test A, 26 children
 SPATIAL_A = [48, 36, 20, 29, 42, 42, 20, 42, 22, 41, 45, 14, 6, 0, 33, 28, 34, 4, 32, 24, 47, 41, 24, 26, 30, 41]
-# Source: E&T Table 10.1 (REFERENCES JK-PATCH, published, confirmed)
+# Source: E&T Table 10.1 (V-PATCH, published, confirmed)
 PLACEBO = [9243, 9671, 11792, 13357, 9055, 6290, 12412, 18806]
 OLD = [17649, 12013, 19979, 21816, 13850, 9806, 17208, 29044]
 NEW = [16449, 14614, 17274, 23798, 12560, 10157, 16570, 26325]
-# Source: REFERENCES PT-HWDEP (H&W 1973 p. 29f, published, confirmed): x first visit, y second visit
+# Source: V-DEPRESSION (H&W 1973 p. 29f, published, confirmed): x first visit, y second visit
 HW_X = [1.83, 0.50, 1.62, 2.48, 1.68, 1.88, 1.55, 3.06, 1.30]
 HW_Y = [0.878, 0.647, 0.598, 2.05, 1.06, 1.29, 1.06, 3.14, 1.29]
 
@@ -81,10 +81,10 @@ def test_bs_mouse_exhaustive_from_a_plan(write_plan, tmp_path):
     mean, median = result["mean"], result["median"]
     assert mean["exact"] is True and mean["resamples"] == 1716  # identity 10
     assert mean["details"]["distinct_resamples"] == 1716 and mean["scheme"].startswith("exhaustive")
-    # Source: REFERENCES BS-MOUSE ideal SEs (exact); E&T Table 2.2 ∞ column 23.36 / 37.83 (from memory)
+    # Source: V-MOUSE-BOOT ideal SEs (exact); E&T Table 2.2 ∞ column 23.36 / 37.83 (from memory)
     assert mean["standard_error"] == pytest.approx(23.3635234373, rel=1e-10)
     assert median["standard_error"] == pytest.approx(37.8346743939, rel=1e-10)
-    # Source: REFERENCES BS-MOUSE ideal 90% percentile interval (49.4286, 126.7143), exact
+    # Source: V-MOUSE-BOOT ideal 90% percentile interval (49.4286, 126.7143), exact
     assert (ivs(mean)["percentile"]["lower"], ivs(mean)["percentile"]["upper"]) == pytest.approx(
         (346 / 7, 887 / 7), rel=1e-12)
     assert mean["monte_carlo"]["standard_error_sd"] == 0.0 and ivs(mean)["percentile"]["monte_carlo"] is None
@@ -111,12 +111,12 @@ def test_jk_patch_and_ideal_bootstrap_from_a_plan(write_plan, tmp_path):
     intervals: [percentile, bca]
 """)
     jack, ideal = result["jack"], result["ideal"]
-    # Source: REFERENCES JK-PATCH (exact); θ̂ = −.0713, bias .0080 published, as cited
+    # Source: V-PATCH (exact); θ̂ = −.0713, bias .0080 published, as cited
     assert jack["estimate"] == pytest.approx(-0.0713060959025602, rel=1e-12)
     assert jack["bias"] == pytest.approx(0.0080024883581075, rel=1e-12)
     assert jack["standard_error"] == pytest.approx(0.1055277853799895, rel=1e-12)
     assert jack["details"]["corrected_estimate"] == pytest.approx(-0.0793085842606676, rel=1e-12)
-    # Source: REFERENCES JK-PATCH full enumeration of 6435 resamples (exact)
+    # Source: V-PATCH full enumeration of 6435 resamples (exact)
     assert ideal["resamples"] == 6435
     assert ideal["bias"] == pytest.approx(0.00776050566338, rel=1e-10)
     assert ideal["standard_error"] == pytest.approx(0.10231380623193, rel=1e-10)
@@ -153,13 +153,13 @@ def test_bs_law_intervals_spearman_and_slope(write_plan, tmp_path):
     studentized_se: jackknife
 """, seed=12345)
     r = result["r"]
-    # Source: REFERENCES BS-LAW (MC, B = 10⁶): percentile 90% (0.5227, 0.9476), BCa (0.4299, 0.9272);
-    # tolerance 4 MC s.d. of the endpoint at B = 2000 (order-statistic estimate, REFERENCES §3)
+    # Source: V-LAW-BOOT (MC, B = 10⁶): percentile 90% (0.5227, 0.9476), BCa (0.4299, 0.9272);
+    # tolerance 4 MC s.d. of the endpoint at B = 2000 (order-statistic estimate, V-TOL)
     for method, (lo, hi) in {"percentile": (0.5227, 0.9476), "bca": (0.4299, 0.9272)}.items():
         iv = ivs(r)[method]
         assert abs(iv["lower"] - lo) <= 4 * mc_sd(iv, "lower"), (method, iv)
         assert abs(iv["upper"] - hi) <= 4 * mc_sd(iv, "upper"), (method, iv)
-    assert abs(r["standard_error"] - 0.1338) <= 0.0103  # Source: REFERENCES BS-LAW, ±4 s.d. at B = 2000
+    assert abs(r["standard_error"] - 0.1338) <= 0.0103  # Source: V-LAW-BOOT, ±4 s.d. at B = 2000
     x, y = np.array(LAW).T
     assert result["rho"]["estimate"] == pytest.approx(stats.spearmanr(x, y).statistic, rel=1e-12)  # scipy reference
     assert result["slope"]["estimate"] == pytest.approx(stats.linregress(x, y).slope, rel=1e-12)  # scipy reference
@@ -179,23 +179,23 @@ def test_bs_spatial_five_intervals_from_a_plan(write_plan, tmp_path):
     confidence: 0.9
     intervals: [percentile, basic, normal, bca, studentized]
 """, seed=777)["var"]
-    # Source: REFERENCES BS-SPATIAL: θ̂ = 171.534023668639, a = 0.0612401198123 (exact; E&T .061)
+    # Source: V-SPATIAL: θ̂ = 171.534023668639, a = 0.0612401198123 (exact; E&T .061)
     assert result["estimate"] == pytest.approx(171.534023668639, rel=1e-12)
     assert result["details"]["acceleration"] == pytest.approx(0.0612401198123, rel=1e-10)
     iv = ivs(result)
-    # Source: REFERENCES BS-SPATIAL BCa 90% (115.8, 261.7); suggested tolerance at B = 2000 ±4 / ±8
+    # Source: V-SPATIAL BCa 90% (115.8, 261.7); suggested tolerance at B = 2000 ±4 / ±8
     assert abs(iv["bca"]["lower"] - 115.765) <= 4 and abs(iv["bca"]["upper"] - 261.675) <= 8
-    # Source: REFERENCES BS-SPATIAL MC (B = 2×10⁶): percentile (97.870, 235.688), basic (107.380, 245.198);
-    # percentile endpoint MC s.d. at B = 2000: 1.72 / 2.09 (REFERENCES), 4 s.d.
+    # Source: V-SPATIAL MC (B = 2×10⁶): percentile (97.870, 235.688), basic (107.380, 245.198);
+    # percentile endpoint MC s.d. at B = 2000: 1.72 / 2.09 (V-SPATIAL), 4 s.d.
     assert abs(iv["percentile"]["lower"] - 97.870) <= 4 * 1.72
     assert abs(iv["percentile"]["upper"] - 235.688) <= 4 * 2.09
     assert abs(iv["basic"]["lower"] - 107.380) <= 4 * 2.09 and abs(iv["basic"]["upper"] - 245.198) <= 4 * 1.72
-    # normal, bias-corrected, against the ideal values: SE 41.8328169, bias −6.59746 (REFERENCES, exact)
+    # normal, bias-corrected, against the ideal values: SE 41.8328169, bias −6.59746 (V-SPATIAL, exact)
     z = stats.norm.ppf(0.95)
     centre = 171.534023668639 + 6.59746
     for end, ideal in (("lower", centre - z * 41.8328169), ("upper", centre + z * 41.8328169)):
         assert abs(iv["normal"][end] - ideal) <= 4 * mc_sd(iv["normal"], end)
-    # Source: REFERENCES BS-SPATIAL bootstrap-t with the delta SE (111.21, 292.38); ±25 at B = 2000;
+    # Source: V-SPATIAL bootstrap-t with the delta SE (111.21, 292.38); ±25 at B = 2000;
     # and it reaches further right than BCa (E&T Table 14.2)
     assert result["details"]["studentized_se"]["method"] == "analytic"
     assert abs(iv["studentized"]["upper"] - 292.38) <= 25 and abs(iv["studentized"]["lower"] - 111.21) <= 25
@@ -439,8 +439,8 @@ def test_bs_law_parametric_bivariate_normal(write_plan, tmp_path):
     x, y = np.array(LAW).T
     assert fit["mean"] == pytest.approx([x.mean(), y.mean()], rel=1e-12)
     assert fit["covariance"][0][1] == pytest.approx(np.cov(x, y, bias=True)[0, 1], rel=1e-12)
-    # Source: REFERENCES BS-LAW parametric normal SE 0.119270 (MC, B = 4×10⁵; E&T .124 published, as cited);
-    # 4 MC s.d. at B = 2000 with the kurtosis bound κ ≤ 4 of BS-LAW: 4·0.1193·sqrt(3/(4B))
+    # Source: V-LAW-BOOT parametric normal SE 0.119270 (MC, B = 4×10⁵; E&T .124 published, as cited);
+    # 4 MC s.d. at B = 2000 with the kurtosis bound κ ≤ 4 of V-LAW-BOOT: 4·0.1193·sqrt(3/(4B))
     assert abs(result["standard_error"] - 0.119270) <= 4 * 0.119270 * math.sqrt(3 / (4 * b))
 
 

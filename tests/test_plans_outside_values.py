@@ -1,6 +1,6 @@
 """Outside check values reproduced end to end: from a plan file and a CSV to the record.
 
-Values and tolerances from ../shared/REFERENCES.md; the source is named beside each one.
+Values and tolerances from docs/VALIDATION.md; the source is named beside each one.
 """
 
 from __future__ import annotations
@@ -61,17 +61,17 @@ def test_pt_mouse_exact_permutation_from_a_plan(write_plan, tmp_path):
 """)
     greater = result["greater"]
     assert greater["exact"] is True
-    # Source: REFERENCES.md PT-MOUSE, exact: 1613 of C(16,7) = 11440 splits
+    # Source: V-MOUSE-PERM, exact: 1613 of C(16,7) = 11440 splits
     assert greater["details"]["arrangements"] == 11440
     assert greater["details"]["count_greater_equal"] == 1613
     assert greater["p_value"] == 1613 / 11440
-    # Source: REFERENCES.md PT-MOUSE (published, as cited): difference of means 30.63
+    # Source: V-MOUSE-PERM (published, as cited): difference of means 30.63
     assert greater["estimate"] == pytest.approx(30.6349206349, rel=1e-10)
-    # scipy reference: permutation_test two-sided = 2·min, 0.281993007 (REFERENCES.md PT-MOUSE)
+    # scipy reference: permutation_test two-sided = 2·min, 0.281993007 (V-MOUSE-PERM)
     expected = stats.permutation_test((TREATMENT, CONTROL), lambda x, y: np.mean(x) - np.mean(y),
                                       permutation_type="independent", n_resamples=np.inf).pvalue
     assert result["both"]["p_value"] == pytest.approx(expected, rel=1e-12)
-    assert result["both"]["p_value"] == pytest.approx(0.2819930070, rel=1e-9)  # Source: REFERENCES.md PT-MOUSE
+    assert result["both"]["p_value"] == pytest.approx(0.2819930070, rel=1e-9)  # Source: V-MOUSE-PERM
 
 
 def test_pt_mouse_monte_carlo_within_tolerance(write_plan, tmp_path):
@@ -87,9 +87,9 @@ def test_pt_mouse_monte_carlo_within_tolerance(write_plan, tmp_path):
     exact: never
     resamples: {m}
 """)["mc"]
-    p = 1613 / 11440  # Source: REFERENCES.md PT-MOUSE, exact
+    p = 1613 / 11440  # Source: V-MOUSE-PERM, exact
     assert result["exact"] is False and result["resamples"] == m
-    assert abs(result["p_value"] - p) <= 4 * math.sqrt(p * (1 - p) / m)  # tolerance: REFERENCES.md §3
+    assert abs(result["p_value"] - p) <= 4 * math.sqrt(p * (1 - p) / m)  # tolerance: V-TOL
     assert result["p_value"] >= 1 / (m + 1)
 
 
@@ -104,7 +104,7 @@ def test_bs_mouse_standard_errors_from_a_plan(write_plan, tmp_path):
     method: bootstrap
     resamples: {b}
 """)
-    # Source: REFERENCES.md BS-STRAT / BS-MOUSE: ideal two-sample SE 26.908107910089 (exact),
+    # Source: V-MOUSE-STRATA / V-MOUSE-BOOT: ideal two-sample SE 26.908107910089 (exact),
     # E&T §8.3 B = 1400: 26.85 (published, as cited); tolerance ±1.7 at B = 2000 (4 s.d.)
     assert abs(result["mean-se"]["standard_error"] - 26.908107910089) <= 1.7
     assert result["mean-se"]["resamples"] == b
@@ -136,7 +136,7 @@ analyses:
 """, {"treated.csv": "days\n" + "\n".join(map(str, TREATMENT)) + "\n"})
     record = {a["id"]: a for a in run_plan(plan, out=plan.parent / "out", clock=fixed_clock).record["analyses"]}
     # Source: E&T Table 2.2, B = ∞ column (from memory 23.36 / 37.83), confirmed exactly in
-    # REFERENCES.md BS-MOUSE: 23.3635234373 / 37.8346743939; MC tolerance at B = 2000: ±1.42 / ±2.12
+    # V-MOUSE-BOOT: 23.3635234373 / 37.8346743939; MC tolerance at B = 2000: ±1.42 / ±2.12
     assert abs(record["mean"]["standard_error"] - 23.3635234373) <= 1.42
     assert abs(record["median"]["standard_error"] - 37.8346743939) <= 2.12
 
@@ -150,7 +150,7 @@ def test_jackknife_two_sample_se_from_a_plan(write_plan, tmp_path):
     statistic: mean_difference
     method: jackknife
 """)["jack"]
-    # Source: REFERENCES.md §4 identity 6 (mouse): sqrt(s1²/n1 + s2²/n2) = 28.936067137
+    # Source: identity 6 (mouse): sqrt(s1²/n1 + s2²/n2) = 28.936067137
     assert result["standard_error"] == pytest.approx(28.936067137, rel=1e-9)
     assert result["bias"] == pytest.approx(0.0, abs=1e-9)  # identity 3: jackknife bias of a mean is 0
 
@@ -190,7 +190,7 @@ analyses:
         assert abs(interval["upper"] - theirs.high) <= 4 * sd, (method, interval, theirs)
 
 
-# Source: E&T Table 3.1 (law school LSAT, GPA; published, confirmed; REFERENCES.md JK-LAW uses 2.76 for school 13)
+# Source: E&T Table 3.1 (law school LSAT, GPA; published, confirmed; V-LAW-JACK uses 2.76 for school 13)
 LAW = [(576, 3.39), (635, 3.30), (558, 2.81), (578, 3.03), (666, 3.44), (580, 3.07), (555, 3.00), (661, 3.43),
        (651, 3.36), (605, 3.13), (653, 3.12), (575, 2.74), (545, 2.76), (572, 2.88), (594, 2.96)]
 LAW_PLAN = """
@@ -225,11 +225,11 @@ def test_jk_law_and_bs_law_from_a_plan(write_plan, tmp_path):
     plan = write_plan(LAW_PLAN, {"law.csv": csv})
     result = {a["id"]: a for a in run_plan(plan, out=tmp_path / "out", clock=fixed_clock).record["analyses"]}
     jack = result["jack"]
-    # Source: REFERENCES.md JK-LAW, exact: r = 0.776374491289, se_jack = 0.142518618602, bias = −0.006473623046
+    # Source: V-LAW-JACK, exact: r = 0.776374491289, se_jack = 0.142518618602, bias = −0.006473623046
     # (E&T p. 19 prints r = .776, published, confirmed)
     assert jack["estimate"] == pytest.approx(0.776374491289407, rel=1e-12)
     assert jack["standard_error"] == pytest.approx(0.14251861860227, rel=1e-12)
     assert jack["bias"] == pytest.approx(-0.00647362304592, rel=1e-10)
-    # Source: REFERENCES.md BS-LAW: SE 0.13378 (B = 10⁶, MC); tolerance ±0.0103 at B = 2000 (4 s.d.)
+    # Source: V-LAW-BOOT: SE 0.13378 (B = 10⁶, MC); tolerance ±0.0103 at B = 2000 (4 s.d.)
     assert abs(result["boot"]["standard_error"] - 0.1338) <= 0.0103
     assert "Pearson correlation of lsat and gpa" in result["boot"]["question"]

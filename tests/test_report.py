@@ -216,17 +216,17 @@ def test_numbers_are_rounded_by_their_monte_carlo_error(value, sd, shown):
 
 
 def test_p_values_follow_their_monte_carlo_error_and_are_never_zero():
-    # Source: precision.py rule 4; s = sqrt(p(1-p)/m) from REFERENCES.md §3
+    # Source: precision.py rule 4; s = sqrt(p(1-p)/m) from V-TOL
     assert precision.p_value(0.0486, math.sqrt(0.0486 * 0.9514 / 9999)) == "0.049"
     assert precision.p_value(0.0065, math.sqrt(0.0065 * 0.9935 / 9999)) == "0.0065"
     assert precision.p_value(1 / 10000, math.sqrt(1e-4 * (1 - 1e-4) / 9999)) == "0.0001"
     assert precision.p_value(0.004, 0.03) == "0.004"  # rounding would give 0: one significant digit
-    assert precision.p_value(3184 / 11440, 0.0) == "0.2783"  # exact: 4 significant digits (REFERENCES §0.5)
+    assert precision.p_value(3184 / 11440, 0.0) == "0.2783"  # exact: 4 significant digits (V-CONV-P)
     assert precision.mc_sd(0.0021504107576560028) == "0.0022"
 
 
 def test_adjusted_p_value_bound():
-    # Source: precision.py rule 5 with REFERENCES.md identity 19 (BY = BH·Σ1/i)
+    # Source: precision.py rule 5 with identity 19 (BY = BH·Σ1/i)
     assert precision.adjusted_sd("holm", [0.001, 0.002]) == pytest.approx(0.004)
     assert precision.adjusted_sd("by", [0.001, 0.002, None]) == pytest.approx(3 * (1 + 1 / 2 + 1 / 3) * 0.002)
     assert precision.adjusted_sd("holm", [0.0, 0.0]) is None
@@ -235,7 +235,7 @@ def test_adjusted_p_value_bound():
 # --- Monte Carlo bands of interval ends (planrunner/mcerror.py) ---------------------------------
 
 def test_quantile_band_sd_and_coverage_match_the_normal_reference():
-    """Against REFERENCES.md §3: s.d. of a quantile endpoint = sqrt(q(1-q)/B) / f(x_q), with f, x_q
+    """Against V-TOL: s.d. of a quantile endpoint = sqrt(q(1-q)/B) / f(x_q), with f, x_q
     the standard normal density and quantile (scipy reference); 400 independent runs."""
     q, b, runs = 0.025, 2000, 400
     ideal = stats.norm.ppf(q)  # scipy reference

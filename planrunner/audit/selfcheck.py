@@ -1,8 +1,8 @@
 """The self-check cases: published examples and exact identities, each with its source.
 
 These cases ship inside the package so that `planrunner selfcheck` can show, on the installation
-at hand, that the engines reproduce values from outside planrunner. Sources are named as in the
-project's reference list (E&T = Efron & Tibshirani 1993, An Introduction to the Bootstrap;
+at hand, that the engines reproduce values from outside planrunner. Case ids and sources are those of
+docs/VALIDATION.md (E&T = Efron & Tibshirani 1993, An Introduction to the Bootstrap;
 H&W = Hollander & Wolfe 1973; B&H = Benjamini & Hochberg 1995). Each case is a pure computation;
 planrunner.audit.verbs runs them, adds one case that goes through a whole plan, and writes the report.
 """
@@ -36,7 +36,7 @@ PERM_Y = [1.15, 0.88, 0.90, 0.74, 1.21]
 # Source: B&H (1995) §4, 15 p-values; published, confirmed
 BH95 = [0.0001, 0.0004, 0.0019, 0.0095, 0.0201, 0.0278, 0.0298, 0.0344, 0.0459, 0.3240, 0.4262, 0.5719,
         0.6528, 0.7590, 1.000]
-# Source: statsmodels multipletests on BH95 (REFERENCES.md MT-BH95, rounded to 10 decimals)
+# Source: statsmodels multipletests on BH95 (V-BH95, rounded to 10 decimals)
 BH95_HOLM = [.0015, .0056, .0247, .114, .2211, .278, .278, .278, .3213, 1, 1, 1, 1, 1, 1]
 BH95_BH = [.0015, .003, .0095, .035625, .0603, .0638571429, .0638571429, .0645, .0765, .486, .5811818182,
            .714875, .7532307692, .8132142857, 1]
@@ -101,50 +101,50 @@ def _max_abs(a: Sequence[float], b: Sequence[float]) -> float:
 
 
 CASES: tuple[Case, ...] = (
-    Case("JK-LAW r", "Pearson r of LSAT and GPA", "E&T Table 3.1; REFERENCES.md JK-LAW, exact",
+    Case("V-LAW-JACK r", "Pearson r of LSAT and GPA", "E&T Table 3.1; V-LAW-JACK, exact",
          0.776374491289407, 1e-12, lambda: jackknife(_law(), get_statistic("correlation")).estimate),
-    Case("JK-LAW se", "jackknife SE of r", "REFERENCES.md JK-LAW, exact (E&T §11.2 gives .142)",
+    Case("V-LAW-JACK se", "jackknife SE of r", "V-LAW-JACK, exact (E&T §11.2 gives .142)",
          0.14251861860227, 1e-12, lambda: jackknife(_law(), get_statistic("correlation")).standard_error),
-    Case("JK-LAW bias", "jackknife bias of r", "REFERENCES.md JK-LAW, exact",
+    Case("V-LAW-JACK bias", "jackknife bias of r", "V-LAW-JACK, exact",
          -0.00647362304592, 1e-12, lambda: jackknife(_law(), get_statistic("correlation")).bias),
-    Case("JK-ID mean se", "jackknife SE of the mean = s/sqrt(n), mouse treatment", "identity 2; REFERENCES.md BS-MOUSE",
+    Case("V-IDENTITY mean se", "jackknife SE of the mean = s/sqrt(n), mouse treatment", "identity 2; V-MOUSE-BOOT",
          25.235489533, 1e-8, lambda: jackknife(_mouse()[:1], get_statistic("mean")).standard_error),
-    Case("JK-ID mean bias", "jackknife bias of the mean = 0, mouse treatment", "identity 3, exact",
+    Case("V-IDENTITY mean bias", "jackknife bias of the mean = 0, mouse treatment", "identity 3, exact",
          0.0, 1e-10, lambda: jackknife(_mouse()[:1], get_statistic("mean")).bias),
-    Case("JK-ID two-sample se", "two-sample jackknife SE of the mean difference = sqrt(s1²/n1 + s2²/n2)",
-         "identity 6; REFERENCES.md PT-MOUSE", 28.936067137, 1e-8,
+    Case("V-IDENTITY two-sample se", "two-sample jackknife SE of the mean difference = sqrt(s1²/n1 + s2²/n2)",
+         "identity 6; V-MOUSE-PERM", 28.936067137, 1e-8,
          lambda: jackknife(_mouse(), get_statistic("mean_difference")).standard_error),
-    Case("PT-MOUSE greater", "exact permutation p, mean difference, treatment greater",
-         "REFERENCES.md PT-MOUSE, exact 1613/11440", 1613 / 11440, 1e-12, lambda: _perm(_mouse(), "greater").p_value),
-    Case("PT-MOUSE two-sided", "exact permutation p, two-sided as 2·min(p_greater, p_less)",
-         "REFERENCES.md PT-MOUSE, exact (scipy two-sided 0.2819930070)", 3226 / 11440, 1e-12,
+    Case("V-MOUSE-PERM greater", "exact permutation p, mean difference, treatment greater",
+         "V-MOUSE-PERM, exact 1613/11440", 1613 / 11440, 1e-12, lambda: _perm(_mouse(), "greater").p_value),
+    Case("V-MOUSE-PERM two-sided", "exact permutation p, two-sided as 2·min(p_greater, p_less)",
+         "V-MOUSE-PERM, exact (scipy two-sided 0.2819930070)", 3226 / 11440, 1e-12,
          lambda: _perm(_mouse(), "two-sided").p_value),
-    Case("PT-MOUSE arrangements", "number of arrangements C(16, 7)", "identity 18, exact",
+    Case("V-MOUSE-PERM arrangements", "number of arrangements C(16, 7)", "identity 18, exact",
          11440, 0.0, lambda: _perm(_mouse(), "greater").arrangements),
-    Case("PT-MOUSE null variance", "variance of the exact null = S²(1/7 + 1/9)", "identity 16; REFERENCES.md PT-MOUSE",
+    Case("V-MOUSE-PERM null variance", "variance of the exact null = S²(1/7 + 1/9)", "identity 16; V-MOUSE-PERM",
          759.8010582, 1e-6, lambda: _null_variance(_perm(_mouse(), "greater"))),
-    Case("PT-HWPERM greater", "exact permutation p, mean difference, x greater",
-         "H&W p. 69f data; REFERENCES.md PT-HWPERM, exact 191/3003", 191 / 3003, 1e-12,
+    Case("V-PERMEABILITY greater", "exact permutation p, mean difference, x greater",
+         "H&W p. 69f data; V-PERMEABILITY, exact 191/3003", 191 / 3003, 1e-12,
          lambda: _perm((np.asarray(PERM_X), np.asarray(PERM_Y)), "greater").p_value),
-    Case("MC-FLOOR", "Monte Carlo p with no arrangement as extreme = 1/(m+1), m = 999", "identity 13, exact",
+    Case("V-FLOOR", "Monte Carlo p with no arrangement as extreme = 1/(m+1), m = 999", "identity 13, exact",
          1 / 1000, 1e-15, lambda: _perm((np.arange(30.0) + 100, np.arange(30.0)), "greater", "never", 999).p_value),
-    Case("MT-BH95 holm", "largest |Holm adjusted p − reference| over 15 p-values",
-         "B&H 1995 p-values; statsmodels multipletests (REFERENCES.md MT-BH95)", 0.0, 1e-10,
+    Case("V-BH95 holm", "largest |Holm adjusted p − reference| over 15 p-values",
+         "B&H 1995 p-values; statsmodels multipletests (V-BH95)", 0.0, 1e-10,
          lambda: _max_abs(adjust(BH95, "holm"), BH95_HOLM)),
-    Case("MT-BH95 bh", "largest |BH adjusted p − reference| over 15 p-values (published p(4) = .035625, p(5) = .0603)",
-         "B&H 1995; statsmodels multipletests (REFERENCES.md MT-BH95)", 0.0, 1e-10,
+    Case("V-BH95 bh", "largest |BH adjusted p − reference| over 15 p-values (published p(4) = .035625, p(5) = .0603)",
+         "B&H 1995; statsmodels multipletests (V-BH95)", 0.0, 1e-10,
          lambda: _max_abs(adjust(BH95, "bh"), BH95_BH)),
-    # Monte Carlo cases: the tolerance is 4 Monte Carlo s.d. at B = 2000 (REFERENCES.md)
-    Case("BS-MOUSE median se", "bootstrap SE of the median, treatment, B = 2000 (ideal 37.83)",
-         "E&T Table 2.2; REFERENCES.md BS-MOUSE, ±4 MC s.d.", 37.8346743939, 2.12,
+    # Monte Carlo cases: the tolerance is 4 Monte Carlo s.d. at B = 2000 (V-TOL)
+    Case("V-MOUSE-BOOT median se", "bootstrap SE of the median, treatment, B = 2000 (ideal 37.83)",
+         "E&T Table 2.2; V-MOUSE-BOOT, ±4 MC s.d.", 37.8346743939, 2.12,
          lambda: _boot_se(_mouse()[:1], "median", "selfcheck-mouse-median")),
-    Case("BS-STRAT se", "two-sample bootstrap SE of the mean difference, B = 2000 (ideal 26.908)",
-         "E&T §8.3 (26.85 at B = 1400); REFERENCES.md BS-STRAT, ±4 MC s.d.", 26.908107910089, 1.7,
+    Case("V-MOUSE-STRATA se", "two-sample bootstrap SE of the mean difference, B = 2000 (ideal 26.908)",
+         "E&T §8.3 (26.85 at B = 1400); V-MOUSE-STRATA, ±4 MC s.d.", 26.908107910089, 1.7,
          lambda: _boot_se(_mouse(), "mean_difference", "selfcheck-mouse-difference")),
     Case("MC-DOUBLED sd", "s.d. of the doubled two-sided Monte Carlo p over 400 streams ÷ stated s.d., m = 2000",
          "identity: Var(2·p₁) = 4·p₁(1 − p₁)/m (binomial); ±10% (about 3 s.d. of an s.d. from 400 values)", 1.0, 0.1,
          doubled_p_sd_ratio),
-    Case("BS-LAW se", "bootstrap SE of r, B = 2000", "E&T ch. 6 (.132); REFERENCES.md BS-LAW, ±4 MC s.d.",
+    Case("V-LAW-BOOT se", "bootstrap SE of r, B = 2000", "E&T ch. 6 (.132); V-LAW-BOOT, ±4 MC s.d.",
          0.1338, 0.0103, lambda: _boot_se(_law(), "correlation", "selfcheck-law")),
 )
 

@@ -32,7 +32,7 @@ from planrunner.trail.store import read_json, write_new_file
 # another machine may add the same numbers in another order. Same build, same machine: 0.
 FLOAT_RELATIVE_TOLERANCE = 1e-9
 # A Monte Carlo quantity whose record states its Monte Carlo s.d. may differ by this many s.d.
-# when the random streams differ (REFERENCES.md: about 4 MC s.d.).
+# when the random streams differ (V-TOL in docs/VALIDATION.md: about 4 MC s.d.).
 MC_SDS = 4.0
 HEADLINE = re.compile(r"^(analyses\[\d+\]\.(estimate|standard_error|bias|p_value|intervals|adjusted_p_values)|datasets)")
 MC_FIELDS = {"standard_error": "standard_error_sd", "bias": "bias_sd", "p_value": "p_value_sd"}
@@ -305,9 +305,9 @@ def _end_to_end_cases(clock: Any) -> list[dict]:
         except Exception as exc:  # a failing case is reported, never hidden
             obtained, verified, error = [None, None], None, f"{type(exc).__name__}: {exc}"
     specs = [("E2E permutation", "plan → run → record: exact permutation p (mean difference, greater)",
-              "REFERENCES.md PT-MOUSE, exact 1613/11440", 1613 / 11440, 1e-12, obtained[0]),
+              "V-MOUSE-PERM, exact 1613/11440", 1613 / 11440, 1e-12, obtained[0]),
              ("E2E jackknife", "plan → run → record: two-sample jackknife SE of the mean difference",
-              "identity 6; REFERENCES.md PT-MOUSE", 28.936067137, 1e-8, obtained[1]),
+              "identity 6; V-MOUSE-PERM", 28.936067137, 1e-8, obtained[1]),
              ("E2E verify", "verify re-runs the record: number of fields outside tolerance",
               "exact (a re-run on the same installation must be identical)", 0.0, 0.0, verified)]
     for cid, quantity, source, expected, tol, got in specs:

@@ -12,7 +12,7 @@ from typing import Any, Callable
 
 from planrunner.cli.options import DATA_ROOT_HELP, add_execution_options, execution_of
 
-# the exit codes of planrunner.cli.main (DESIGN.md §5), repeated so that this module imports on its own
+# the exit codes of planrunner.cli.main (README: Commands), repeated so that this module imports on its own
 EXIT_OK, EXIT_INPUT, EXIT_DIFFERS = 0, 2, 3
 MAX_ROWS = 40  # differing fields listed in full before "... and N more"
 

@@ -1,7 +1,7 @@
 """Association tests: the outcome shuffled against the predictor; Freedman–Lane with covariates.
 
 Without covariates the null is that predictor and outcome are independent: every one of the n!
-pairings of the outcomes with the predictors is equally likely (REFERENCES identity 18). Exact
+pairings of the outcomes with the predictors is equally likely (identity 18). Exact
 enumeration lists ``itertools.permutations(range(n))`` in lexicographic order (the identity first,
 the observed pairing). Monte Carlo resample r pairs predictor i with outcome
 ``argsort(keys)[i]``, ``keys`` row r of the stream's uniform rows (see ``engines.streams``).

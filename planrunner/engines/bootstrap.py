@@ -35,7 +35,7 @@ Conventions (also returned in ``BootstrapResult.conventions``):
   delete-one jackknife of that resample (B·n extra evaluations), or a nested bootstrap of M inner
   resamples of it (B·M extra evaluations; the data's ŝe is then the outer bootstrap SE); the cost
   is stated in ``details``.
-* Monte Carlo error (REFERENCES §3): sd of the SE ≈ SE·√((κ − 1)/(4B)) with κ the kurtosis of the
+* Monte Carlo error (V-TOL): sd of the SE ≈ SE·√((κ − 1)/(4B)) with κ the kurtosis of the
   replicates, sd of the bias ≈ SE/√B; endpoint ranges from order statistics (see intervals).
 """
 

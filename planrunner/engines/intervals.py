@@ -87,7 +87,7 @@ def quantile_rank(level: float, resamples: int) -> int:
 
 
 def read_quantile(ordered: np.ndarray, cumulative: np.ndarray | None, level: float) -> float:
-    """Smallest value whose (weighted) empirical CDF reaches ``level`` (REFERENCES §0.4)."""
+    """Smallest value whose (weighted) empirical CDF reaches ``level`` (V-CONV-QUANTILE)."""
     if cumulative is None:
         return float(ordered[quantile_rank(level, ordered.shape[0]) - 1])
     k = int(np.searchsorted(cumulative, level - 1e-12, side="left"))

@@ -1,6 +1,6 @@
 """Delete-one jackknife, within each group.
 
-Conventions (REFERENCES §0.1; E&T ch. 11), for groups g = 1..G with n_g observations:
+Conventions (V-CONV-JACK; E&T ch. 11), for groups g = 1..G with n_g observations:
 
 * θ_(g,i) is the statistic with observation i of group g deleted, other groups whole;
   θ̄_g is the mean of the n_g replicates of group g.

@@ -29,7 +29,7 @@ order, and slot s receives the observation at that position. Rows are drawn in o
 batches split rows, never change them.
 
 Fast path: for a difference of means (or proportions) only the first group's sum S1 is gathered,
-T = S1/n1 − (Σx − S1)/n2 (DESIGN §7). Monte Carlo draws then find group 1's positions without
+T = S1/n1 − (Σx − S1)/n2 (DEVELOPERS.md: fast paths). Monte Carlo draws then find group 1's positions without
 sorting the keys (a window around the n1-th smallest key, :func:`_first_group_sums`): the same
 arrangements as the argsort, summed in another order. The plain computation is kept
 (``fast=False``) and tests check that both count the same arrangements.
@@ -303,7 +303,7 @@ def _evaluate(pooled: _Pooled, statistic: Statistic, batches: Iterator[tuple[np.
         rows = positions[0].shape[0]
         with np.errstate(invalid="ignore", divide="ignore"):  # reported by the caller
             if mean_form:
-                # the fast path: only the first group's sum is gathered (DESIGN §7)
+                # the fast path: only the first group's sum is gathered (DEVELOPERS.md: fast paths)
                 first = pooled.values[positions[0]].sum(axis=1)
                 out[done:done + rows] = first / n1 - (grand - first) / n2
             else:
@@ -324,7 +324,7 @@ def _random_range(pooled: _Pooled, statistic: Statistic, stream: Stream, rows_pe
 
 
 def _sums_suffice(pooled: _Pooled, statistic: Statistic) -> bool:
-    """A difference of two means (or proportions) needs only the first group's sum (DESIGN §7)."""
+    """A difference of two means (or proportions) needs only the first group's sum (DEVELOPERS.md: fast paths)."""
     return statistic.form == "mean" and len(pooled.slots) == 2 and pooled.values.ndim == 1
 
 

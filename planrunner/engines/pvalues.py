@@ -1,6 +1,6 @@
 """From a null distribution to p-values: the rules every permutation-type engine shares.
 
-Conventions (REFERENCES §0.5, stated in every record):
+Conventions (V-CONV-P, stated in every record):
 
 * exact (enumeration or dynamic programming): ``p = #{T* at least as extreme as t} / arrangements``,
   the observed arrangement included, so ``p ≥ 1 / arrangements``;

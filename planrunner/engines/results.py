@@ -80,7 +80,7 @@ class BootstrapResult:
     exact: bool = False
     weights: np.ndarray | None = None
     # Monte Carlo s.d. of the standard error, SE·sqrt((κ − 1)/(4B)), and of the bias, SE/√B
-    # (REFERENCES §3); 0 when exact; None when there is no standard error
+    # (V-TOL); 0 when exact; None when there is no standard error
     standard_error_sd: float | None = None
     bias_sd: float | None = None
     # scheme-specific facts: fitted parameters, block length, inner standard-error method and cost
@@ -89,7 +89,7 @@ class BootstrapResult:
 
 @dataclass(frozen=True, eq=False)
 class JackknifeResult:
-    """Delete-one jackknife of one statistic (REFERENCES §0.1 conventions).
+    """Delete-one jackknife of one statistic (V-CONV-JACK conventions).
 
     ``replicates[g][i]`` is the statistic with observation i of group g deleted;
     ``pseudo_values[g][i] = n_g θ̂ − (n_g−1) replicates[g][i]``.

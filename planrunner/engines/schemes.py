@@ -68,7 +68,7 @@ _OPEN = 2.0 ** -53  # maps [0, 1) into (0, 1) for inverse CDFs
 
 
 def _jackknife_se_rows(statistic: Statistic, gathered: Sequence[np.ndarray]) -> np.ndarray:
-    """Delete-one jackknife SE of each resample (rows), within each group (REFERENCES §0.1)."""
+    """Delete-one jackknife SE of each resample (rows), within each group (V-CONV-JACK)."""
     total = None
     for g, a in enumerate(gathered):
         m = a.shape[-1]
@@ -198,7 +198,7 @@ def _order_positions(ranks: np.ndarray, ks: Sequence[int], n: int) -> np.ndarray
 
 
 class _OrderFastPath:
-    """Median and quantile statistics over the once-sorted data (DESIGN §7).
+    """Median and quantile statistics over the once-sorted data (DEVELOPERS.md: fast paths).
 
     Each group is sorted once; a resample's draws become integer ranks, and the order statistics a
     location needs are found by counting those ranks (:func:`_order_positions`; no per-resample
@@ -519,7 +519,7 @@ def draw_parametric(data: tuple[np.ndarray, ...], statistic: Statistic, resample
 
 
 def count_multisets(n: int) -> int:
-    """Distinct resamples of n observations: C(2n − 1, n) (REFERENCES §4 identity 10)."""
+    """Distinct resamples of n observations: C(2n − 1, n) (identity 10)."""
     return math.comb(2 * n - 1, n)
 
 

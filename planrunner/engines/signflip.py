@@ -2,7 +2,7 @@
 
 Null: within each pair the two measurements are exchangeable, so each of the 2ⁿ patterns of swaps
 is equally likely (Fisher 1935 §21). Every pattern is counted, duplicates included (a zero
-difference gives two equal patterns; REFERENCES PT-SLEEP).
+difference gives two equal patterns; V-SLEEP).
 
 Pattern j (exact enumeration, j = 0 … 2ⁿ − 1) swaps pair i when bit i of j is 1; pattern 0 is the
 observed arrangement. Monte Carlo resample r takes its swaps from random bits: row r of the

@@ -166,7 +166,7 @@ def _moments(x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
 
 
 def _plugin_variance_se(x: np.ndarray) -> np.ndarray:
-    """Delta-method SE of the plug-in variance, sqrt((m4 − m2²)/n) (REFERENCES BS-SPATIAL)."""
+    """Delta-method SE of the plug-in variance, sqrt((m4 − m2²)/n) (V-SPATIAL)."""
     m2, m4 = _moments(x)
     return np.sqrt(np.maximum(m4 - m2 ** 2, 0.0) / x.shape[-1])
 

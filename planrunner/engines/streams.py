@@ -1,4 +1,4 @@
-"""Reproducible random streams for the resampling engines (DESIGN §6).
+"""Reproducible random streams for the resampling engines (DEVELOPERS.md: Reproducibility rules).
 
 Contract (part of what a record promises; changing any of it changes every number):
 

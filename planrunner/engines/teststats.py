@@ -5,7 +5,7 @@ leading batch axes. ``samples=0`` marks a statistic of two or more groups (one-w
 
 Ties: rank statistics use mid-ranks (the average of the tied positions). ``rank_h`` is the
 Kruskal–Wallis H WITHOUT the tie correction: under permutation of fixed pooled data the correction
-is a constant factor, so the permutation p-value is the same either way (REFERENCES §0.8); the
+is a constant factor, so the permutation p-value is the same either way (V-CONV-KW); the
 estimate is therefore comparable with scipy.stats.kruskal only on data without ties.
 ``signed_rank`` is T+, the sum of the ranks of |d| over the positive differences d = first − second
 of each pair; zero differences are dropped before ranking (Wilcoxon's convention).

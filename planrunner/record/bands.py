@@ -6,7 +6,7 @@ quantile occupies varies by s = √(B q (1 − q)) ranks from run to run. The re
 k ± ⌈z s⌉ therefore bracket the endpoint of an infinitely long run with about the coverage of z
 (the distribution-free order-statistic interval for a quantile; David & Nagaraja, *Order
 Statistics*, §7.1, from memory). The spread of the replicates over ranks k ± s estimates the Monte
-Carlo s.d. of the endpoint, √(q(1−q)/B) / f(x_q) (REFERENCES.md §3), without estimating the
+Carlo s.d. of the endpoint, √(q(1−q)/B) / f(x_q) (V-TOL), without estimating the
 density f.
 
 The levels used are the interval's own `quantile_levels` (for BCa the adjusted levels, taken as

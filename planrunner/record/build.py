@@ -1,7 +1,7 @@
 """The record: one JSON document that holds every number of a run and how to reproduce it.
 
 The record is the single source of truth; the HTML and Markdown reports are views of it. Field
-names follow the contract in DESIGN.md §4. Non-finite numbers never reach the JSON: they become
+names follow the contract in the README (The record). Non-finite numbers never reach the JSON: they become
 null and their path is listed under `nonfinite`.
 """
 
@@ -172,7 +172,7 @@ def analysis_entry(loaded: LoadedPlan, analysis: Any, job: Job, result: Any) -> 
                        for i in result.intervals],
             resamples=int(b), exact=bool(result.exact),
             monte_carlo={
-                # MC s.d. of a B-replicate SE: SE·sqrt((κ−1)/(4B)) (REFERENCES §3); of the bias: SE/√B
+                # MC s.d. of a B-replicate SE: SE·sqrt((κ−1)/(4B)) (V-TOL); of the bias: SE/√B
                 "standard_error_sd": _f(result.standard_error_sd),
                 "bias_sd": _f(result.bias_sd),
                 "kurtosis": _f(kurtosis),

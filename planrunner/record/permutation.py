@@ -51,7 +51,7 @@ def weighted_distribution(kind: str, values: np.ndarray, weights: np.ndarray | N
 
 
 def permutation_fields(result: Any, bins: int) -> dict[str, Any]:
-    """The analysis-entry fields of a PermutationResult (DESIGN §4 names)."""
+    """The analysis-entry fields of a PermutationResult (field names: README, The record)."""
     exact = bool(result.exact)
     weights = result.null_weights
     interval = result.p_interval
