@@ -50,6 +50,7 @@ from planrunner.execute import executors as execute  # noqa: E402,F401  (registe
 from planrunner.engines.blocks import mapping_ranges, resample_ranges  # noqa: E402
 from planrunner.engines.bootstrap import BootstrapOptions, bootstrap  # noqa: E402
 from planrunner.engines.jackknife import jackknife  # noqa: E402
+from planrunner.engines.permcore import PermutationOptions  # noqa: E402
 from planrunner.engines.permutation import permutation_test  # noqa: E402
 from planrunner.engines.signflip import signflip_test  # noqa: E402
 from planrunner.engines.statistics import get_statistic  # noqa: E402
@@ -148,23 +149,24 @@ def workloads(seed: int) -> list[Workload]:
         Workload("W3", "bootstrap median, n = 1e4, B = 1e4, BCa", boot([x], median, ["bca"]),
                  sboot((x,), _median, "BCa"), _same_se, 10, 200),
         Workload("W4", "permutation, mean difference, 5000 + 5000, 1e4 permutations",
-                 lambda: permutation_test([a, b], mean_difference, resamples=B, alternative="two-sided",
-                                          stream=stream_for(seed, "benchmark"), exact="never"),
+                 lambda: permutation_test([a, b], mean_difference,
+                                          PermutationOptions(resamples=B, alternative="two-sided", exact="never"),
+                                          stream=stream_for(seed, "benchmark")),
                  lambda: st.permutation_test((a, b), _mean_difference, permutation_type="independent",
                                              vectorized=True, n_resamples=B, rng=np.random.default_rng(seed)),
                  _same_p, 10, 200),
         Workload("W5", "paired sign-flip test, 1e4 pairs, 1e4 resamples",
                  # the differences d against pairs of zeros: the mean difference is the mean of d
-                 lambda: signflip_test(pairs, np.zeros_like(pairs), mean_difference, resamples=B,
-                                       alternative="two-sided", stream=stream_for(seed, "benchmark"),
-                                       exact="never"),
+                 lambda: signflip_test(pairs, np.zeros_like(pairs), mean_difference,
+                                       PermutationOptions(resamples=B, alternative="two-sided", exact="never"),
+                                       stream=stream_for(seed, "benchmark")),
                  lambda: st.permutation_test((pairs,), _mean, permutation_type="samples", vectorized=True,
                                              n_resamples=B, rng=np.random.default_rng(seed)),
                  _same_p, 50, 200),
         Workload("W6", "exact two-group test, 10 + 10 integers (184,756 splits)",
-                 lambda: permutation_test([small_a, small_b], mean_difference, resamples=B,
-                                          alternative="two-sided", stream=stream_for(seed, "benchmark"),
-                                          exact="always"),
+                 lambda: permutation_test([small_a, small_b], mean_difference,
+                                          PermutationOptions(resamples=B, alternative="two-sided", exact="always"),
+                                          stream=stream_for(seed, "benchmark")),
                  lambda: st.permutation_test((small_a, small_b), _mean_difference, permutation_type="independent",
                                              vectorized=True, n_resamples=np.inf),
                  _same_p, 100, 200),

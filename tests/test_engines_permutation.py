@@ -13,6 +13,7 @@ import scipy.stats
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
+from planrunner.engines.permcore import PermutationOptions
 from planrunner.engines.permutation import permutation_test
 from planrunner.engines.statistics import get_statistic
 from planrunner.engines.streams import DRAW_BLOCK, stream_for
@@ -31,8 +32,9 @@ MEAN_DIFF = get_statistic("mean_difference")
 
 def run(samples, name="mean_difference", *, m=20000, alternative="greater", exact="auto", analysis="perm",
         seed=77, **kw):
-    return permutation_test(samples, get_statistic(name), resamples=m, alternative=alternative,
-                            stream=stream_for(seed, analysis), exact=exact, **kw)
+    return permutation_test(samples, get_statistic(name),
+                            PermutationOptions(resamples=m, alternative=alternative, exact=exact),
+                            stream=stream_for(seed, analysis), **kw)
 
 
 def scipy_exact(x, y, statistic, alternative):
@@ -212,8 +214,8 @@ def test_draw_contract_by_hand() -> None:
     y_codes = np.array([0, 1, 0, 1])
     stream = stream_for(5, "contract")
     m = DRAW_BLOCK + 2
-    result = permutation_test([x, y], MEAN_DIFF, resamples=m, alternative="greater", stream=stream,
-                              strata=[x_codes, y_codes], exact="never", fast=False)
+    result = permutation_test([x, y], MEAN_DIFF, PermutationOptions(resamples=m, alternative="greater", exact="never"),
+                              stream=stream, strata=[x_codes, y_codes], fast=False)
     # pooled stratum by stratum, group 1 first: stratum 0 -> [5 | 7, 4], stratum 1 -> [1, 2 | 3, 8]
     pooled = np.array([5.0, 7, 4, 1, 2, 3, 8])
     stratum = np.array([0, 0, 0, 1, 1, 1, 1])
@@ -345,16 +347,18 @@ def test_key_window_sums_equal_the_sorted_contract(sizes) -> None:
 def test_key_window_path_is_range_invariant_and_equals_plain() -> None:
     rng = np.random.default_rng(4)
     x, y = rng.gamma(2.0, 3.0, 1500), rng.gamma(2.0, 3.5, 1300)
-    kw = dict(resamples=2 * DRAW_BLOCK + 37, alternative="two-sided", stream=stream_for(9, "window"), exact="never")
+    kw = dict(options=PermutationOptions(resamples=2 * DRAW_BLOCK + 37, alternative="two-sided", exact="never"),
+              stream=stream_for(9, "window"))
     fast = permutation_test([x, y], MEAN_DIFF, fast=True, **kw)
     plain = permutation_test([x, y], MEAN_DIFF, fast=False, **kw)
     np.testing.assert_allclose(fast.null, plain.null, rtol=0, atol=1e-12)
     assert (fast.count_greater, fast.count_less) == (plain.count_greater, plain.count_less)
     from planrunner.engines.permutation import _mean_difference_range, _pool
     pooled = _pool((x, y), None)
-    whole = _mean_difference_range(pooled, kw["stream"], 10 ** 6, 0, kw["resamples"])
+    total = kw["options"].resamples
+    whole = _mean_difference_range(pooled, kw["stream"], 10 ** 6, 0, total)
     split = np.concatenate([_mean_difference_range(pooled, kw["stream"], rows, a, b)  # batches of any size
-                            for rows, (a, b) in zip((1, 7, 10 ** 6), [(0, 999), (999, 1001), (1001, kw["resamples"])])])
+                            for rows, (a, b) in zip((1, 7, 10 ** 6), [(0, 999), (999, 1001), (1001, total)])])
     assert np.array_equal(whole, split) and np.array_equal(whole, fast.null)
 
 

@@ -18,6 +18,7 @@ from planrunner.engines.association import association_test
 from planrunner.engines.clusters import cluster_test
 from planrunner.engines.exactdist import subset_sum_distribution, sum_distribution
 from planrunner.engines.maxt import max_t
+from planrunner.engines.permcore import PermutationOptions
 from planrunner.engines.permutation import permutation_test
 from planrunner.engines.pvalues import clopper_pearson
 from planrunner.engines.signflip import signflip_test, swap_bits
@@ -59,12 +60,14 @@ def test_subset_sums_equal_enumeration_with_ties():
 def test_dp_rank_sum_equals_exact_mann_whitney_at_larger_sizes():
     rng = np.random.default_rng(3)
     x, y = rng.normal(0.4, 1, 40), rng.normal(0, 1, 35)  # invented, continuous: no ties
-    result = permutation_test([x, y], get_statistic("rank_sum"), resamples=9999, alternative="greater",
+    result = permutation_test([x, y], get_statistic("rank_sum"),
+                              PermutationOptions(resamples=9999, alternative="greater"),
                               stream=stream())
     assert result.computation == "dynamic programming" and result.arrangements == math.comb(75, 40)
     ref = stats.mannwhitneyu(x, y, alternative="greater", method="exact")  # scipy reference
     assert result.p_value == pytest.approx(ref.pvalue, rel=1e-9)
-    both = permutation_test([x, y], get_statistic("rank_sum"), resamples=9999, alternative="two-sided",
+    both = permutation_test([x, y], get_statistic("rank_sum"),
+                            PermutationOptions(resamples=9999, alternative="two-sided"),
                             stream=stream())
     ref2 = stats.mannwhitneyu(x, y, method="exact")  # scipy reference
     assert both.p_value == pytest.approx(ref2.pvalue, rel=1e-9)
@@ -76,10 +79,11 @@ def test_dp_with_ties_and_strata_equals_enumeration():
     sx, sy = np.array([0, 0, 1, 1, 1, 0, 1]), np.array([0, 1, 1, 0, 0, 1, 1, 0])
     for name in ("mean_difference", "rank_sum", "t_pooled"):
         for alternative in ("greater", "less", "two-sided"):
-            kw = dict(alternative=alternative, stream=stream(), strata=[sx, sy])
-            dp = permutation_test([x, y], get_statistic(name), resamples=10, **kw)
-            full = permutation_test([x, y], get_statistic(name), resamples=10, exact="always", **kw)
-            listed = permutation_test([x, y], get_statistic(name), resamples=10, exact="always", fast=False, **kw)
+            kw = dict(stream=stream(), strata=[sx, sy])
+            dp = permutation_test([x, y], get_statistic(name), PermutationOptions(10, alternative), **kw)
+            always = PermutationOptions(10, alternative, exact="always")
+            full = permutation_test([x, y], get_statistic(name), always, **kw)
+            listed = permutation_test([x, y], get_statistic(name), always, fast=False, **kw)
             assert dp.computation == "dynamic programming" and listed.computation == "enumeration"
             assert full.computation == "dynamic programming"  # always: the DP costs less than listing
             assert full.p_value == dp.p_value
@@ -91,7 +95,8 @@ def test_dp_reaches_two_hundred_per_group_with_binary_outcomes():
     # 200 + 200 binary outcomes: the hypergeometric, one-sided equal to Fisher's exact test (identity 17)
     x = np.r_[np.ones(120), np.zeros(80)]
     y = np.r_[np.ones(100), np.zeros(100)]
-    result = permutation_test([x, y], get_statistic("risk_difference"), resamples=999, alternative="greater",
+    result = permutation_test([x, y], get_statistic("risk_difference"),
+                              PermutationOptions(resamples=999, alternative="greater"),
                               stream=stream())
     assert result.computation == "dynamic programming"
     ref = stats.fisher_exact([[120, 80], [100, 100]], alternative="greater").pvalue  # scipy reference
@@ -104,7 +109,8 @@ def test_mean_fast_path_counts_equal_plain():
     rng = np.random.default_rng(5)
     x, y = rng.normal(size=12), rng.normal(size=9)
     for exact in ("never", "always"):
-        kw = dict(resamples=3000, alternative="two-sided", stream=stream("fast"), exact=exact)
+        kw = dict(options=PermutationOptions(resamples=3000, alternative="two-sided", exact=exact),
+                  stream=stream("fast"))
         if exact == "always":
             x, y = x[:7], y[:6]
         fast = permutation_test([x, y], get_statistic("mean_difference"), fast=True, **kw)
@@ -116,7 +122,7 @@ def test_mean_fast_path_counts_equal_plain():
 @pytest.mark.parametrize("name", ["mean_difference", "signed_rank"])
 @pytest.mark.parametrize("exact", ["never", "auto"])
 def test_sign_flip_fast_path_equals_plain(name, exact):
-    kw = dict(resamples=1500, alternative="two-sided", stream=stream("flip"), exact=exact)
+    kw = dict(options=PermutationOptions(resamples=1500, alternative="two-sided", exact=exact), stream=stream("flip"))
     fast = signflip_test(HW_X, HW_Y, get_statistic(name), fast=True, **kw)
     plain = signflip_test(HW_X, HW_Y, get_statistic(name), fast=False, **kw)
     np.testing.assert_allclose(fast.null, plain.null, rtol=0, atol=1e-12)
@@ -125,9 +131,11 @@ def test_sign_flip_fast_path_equals_plain(name, exact):
 
 def test_sign_flip_dp_equals_enumeration():
     for name in ("mean_difference", "signed_rank"):
-        listed = signflip_test(DARWIN, np.zeros(15), get_statistic(name), resamples=10**5, alternative="greater",
+        listed = signflip_test(DARWIN, np.zeros(15), get_statistic(name),
+                               PermutationOptions(resamples=10**5, alternative="greater"),
                                stream=stream())
-        dp = signflip_test(DARWIN, np.zeros(15), get_statistic(name), resamples=10, alternative="greater",
+        dp = signflip_test(DARWIN, np.zeros(15), get_statistic(name),
+                           PermutationOptions(resamples=10, alternative="greater"),
                            stream=stream())
         assert listed.computation == "enumeration" and dp.computation == "dynamic programming"
         assert dp.p_value == pytest.approx(listed.p_value, rel=1e-12)
@@ -139,12 +147,13 @@ def test_cluster_fast_path_equals_plain():
     y = np.array([4.2, 5.0, 5.3, 4.8, 6.0, 5.2, 4.4])
     cx, cy = np.array([0, 0, 1, 1, 2, 3, 4]), np.array([5, 5, 6, 7, 7, 8, 9])
     for exact in ("auto", "never"):
-        kw = dict(resamples=150, alternative="greater", stream=stream("cl"), exact=exact)
+        kw = dict(options=PermutationOptions(resamples=150, alternative="greater", exact=exact), stream=stream("cl"))
         fast = cluster_test(x, y, cx, cy, get_statistic("mean_difference"), fast=True, **kw)
         plain = cluster_test(x, y, cx, cy, get_statistic("mean_difference"), fast=False, **kw)
         np.testing.assert_allclose(fast.null, plain.null, rtol=0, atol=1e-12)
         assert fast.count_greater == plain.count_greater
-    assert cluster_test(x, y, cx, cy, get_statistic("mean_difference"), resamples=9999, alternative="greater",
+    assert cluster_test(x, y, cx, cy, get_statistic("mean_difference"),
+                        PermutationOptions(resamples=9999, alternative="greater"),
                         stream=stream()).arrangements == math.comb(10, 5)  # identity 18 over clusters
 
 
@@ -159,25 +168,28 @@ def test_swap_bits_contract_and_batch_invariance():
     words = gen.integers(0, 2**64, size=(2, 2), dtype=np.uint64)[1]  # resample 1001: row 1 of block 1
     expected = [(int(words[i // 64]) >> (i % 64)) & 1 == 1 for i in range(70)]
     assert whole[DRAW_BLOCK + 1].tolist() == expected
-    a = signflip_test(HW_X, HW_Y, get_statistic("mean_difference"), resamples=2100, alternative="greater",
-                      stream=s, exact="never", batch_elements=7)
-    b = signflip_test(HW_X, HW_Y, get_statistic("mean_difference"), resamples=2100, alternative="greater",
-                      stream=s, exact="never")
+    a = signflip_test(HW_X, HW_Y, get_statistic("mean_difference"),
+                      PermutationOptions(resamples=2100, alternative="greater", exact="never"),
+                      stream=s, batch_elements=7)
+    b = signflip_test(HW_X, HW_Y, get_statistic("mean_difference"),
+                      PermutationOptions(resamples=2100, alternative="greater", exact="never"),
+                      stream=s)
     assert np.array_equal(a.null, b.null)
 
 
 def test_association_batch_invariance_and_streams():
     rng = np.random.default_rng(8)
     xy = rng.normal(size=(20, 2))
-    kw = dict(resamples=1200, alternative="two-sided", exact="never")
+    kw = dict(options=PermutationOptions(resamples=1200, alternative="two-sided", exact="never"))
     a = association_test(xy, get_statistic("spearman"), stream=stream("a"), batch_elements=50, **kw)
     b = association_test(xy, get_statistic("spearman"), stream=stream("a"), **kw)
     c = association_test(xy, get_statistic("spearman"), stream=stream("other"), **kw)
     assert np.array_equal(a.null, b.null) and not np.array_equal(a.null, c.null)
     assert a.p_value >= 1 / 1201  # identity 13
     small = xy[:6]
-    listed = [association_test(small, get_statistic("kendall"), stream=stream("a"), resamples=1000,
-                               alternative="greater", batch_elements=b) for b in (13, 10**6)]
+    listed = [association_test(small, get_statistic("kendall"),
+                               PermutationOptions(resamples=1000, alternative="greater"),
+                               stream=stream("a"), batch_elements=b) for b in (13, 10**6)]
     assert listed[0].exact and listed[0].resamples == 720  # identity 18: 6!
     assert np.array_equal(listed[0].null, listed[1].null)
 
@@ -192,8 +204,9 @@ def test_sign_flip_p_value_bounds_and_symmetry(d, name, alternative, exact):
     x = np.array(d, dtype=float)
     y = np.zeros_like(x)
     m = 300
-    result = signflip_test(x, y, get_statistic(name), resamples=m, alternative=alternative, stream=stream(),
-                           exact=exact)
+    result = signflip_test(x, y, get_statistic(name),
+                           PermutationOptions(resamples=m, alternative=alternative, exact=exact),
+                           stream=stream())
     assert 0.0 < result.p_value <= 1.0
     if result.exact:
         assert result.p_value >= 1 / result.arrangements - 1e-15  # identity 13
@@ -218,8 +231,9 @@ def test_k_group_p_value_bounds(groups, name, exact):
     if sum(g.size for g in samples) < 4:
         return
     try:
-        result = permutation_test(samples, get_statistic(name), resamples=200, alternative="greater",
-                                  stream=stream(), exact=exact)
+        result = permutation_test(samples, get_statistic(name),
+                                  PermutationOptions(resamples=200, alternative="greater", exact=exact),
+                                  stream=stream())
     except EngineError:
         return  # a degenerate F (no spread within groups) is refused, never a silent NaN
     assert 0.0 < result.p_value <= 1.0
@@ -229,7 +243,8 @@ def test_k_group_p_value_bounds(groups, name, exact):
 
 def test_k_group_exact_enumeration_matches_scipy():
     a, b, c = np.array([1.2, 3.4, 2.2]), np.array([2.8, 4.1, 3.3]), np.array([0.2, 1.9])
-    result = permutation_test([a, b, c], get_statistic("rank_h"), resamples=10**5, alternative="greater",
+    result = permutation_test([a, b, c], get_statistic("rank_h"),
+                              PermutationOptions(resamples=10**5, alternative="greater"),
                               stream=stream())
     assert result.arrangements == math.factorial(8) // (6 * 6 * 2)  # identity 18
     ref = stats.permutation_test((a, b, c), lambda *g: stats.kruskal(*g).statistic, n_resamples=np.inf,
@@ -253,7 +268,8 @@ def test_max_t_identical_endpoints_adjust_to_the_unadjusted_value():
     stat = get_statistic("mean_difference")
     result = max_t([([x, y], stat, "greater"), ([x, y], stat, "greater")], strata=None, resamples=10**4,
                    stream=stream())
-    single = permutation_test([x, y], stat, resamples=10**4, alternative="greater", stream=stream())
+    single = permutation_test([x, y], stat, PermutationOptions(resamples=10**4, alternative="greater"),
+                              stream=stream())
     assert result.exact and result.arrangements == math.comb(13, 6)
     assert result.adjusted == pytest.approx((single.p_value, single.p_value), rel=1e-12)
     assert result.unadjusted == pytest.approx((single.p_value, single.p_value), rel=1e-12)
@@ -311,8 +327,9 @@ def test_adjustments_match_statsmodels_bh95(ours, theirs):
 def test_exact_always_error_names_the_count_for_sign_flips():
     d = np.linspace(0.013, 1.7, 30)  # not integer-valued, so no exact shortcut
     with pytest.raises(EngineError, match="1,073,741,824 sign patterns"):  # 2^30
-        signflip_test(d, np.zeros(30), get_statistic("median_difference"), resamples=99, alternative="greater",
-                      stream=stream(), exact="always")
+        signflip_test(d, np.zeros(30), get_statistic("median_difference"),
+                      PermutationOptions(resamples=99, alternative="greater", exact="always"),
+                      stream=stream())
 
 
 def test_stratified_two_by_two_tables_exact_conditional_test():
@@ -320,9 +337,10 @@ def test_stratified_two_by_two_tables_exact_conditional_test():
     x = np.array([1.0, 0, 1, 1, 0, 1, 1, 0])
     y = np.array([0.0, 0, 1, 0, 0, 1, 0, 1, 0])
     sx, sy = np.array([0, 0, 0, 1, 1, 2, 2, 2]), np.array([0, 0, 1, 1, 1, 2, 2, 2, 2])
-    kw = dict(alternative="greater", stream=stream(), strata=[sx, sy])
-    dp = permutation_test([x, y], get_statistic("risk_difference"), resamples=10, **kw)
-    listed = permutation_test([x, y], get_statistic("risk_difference"), resamples=10**6, fast=False, **kw)
+    kw = dict(stream=stream(), strata=[sx, sy])
+    dp = permutation_test([x, y], get_statistic("risk_difference"), PermutationOptions(10, "greater"), **kw)
+    listed = permutation_test([x, y], get_statistic("risk_difference"), PermutationOptions(10**6, "greater"),
+                              fast=False, **kw)
     assert dp.computation == "dynamic programming" and listed.computation == "enumeration"
     assert dp.p_value == pytest.approx(listed.p_value, rel=1e-12)
     # the conditional test by definition: P(Σ_h a_h ≥ observed) under independent hypergeometrics
@@ -340,8 +358,9 @@ def test_absolute_rule_centre_is_the_null_mean_with_unbalanced_strata():
     y = np.array([2.0, 2, 3, 3, 1, 0, 6, 2])
     sx, sy = np.array([0, 0, 0, 0, 0, 1, 1]), np.array([0, 1, 1, 1, 1, 1, 1, 0])
     for name in ("mean_difference", "rank_sum"):
-        result = permutation_test([x, y], get_statistic(name), resamples=10**5, alternative="two-sided",
-                                  two_sided="absolute", stream=stream(), strata=[sx, sy], fast=False)
+        result = permutation_test([x, y], get_statistic(name),
+                                  PermutationOptions(resamples=10**5, alternative="two-sided", two_sided="absolute"),
+                                  stream=stream(), strata=[sx, sy], fast=False)
         assert result.computation == "enumeration"
         assert result.centre == pytest.approx(float(np.mean(result.null)), rel=1e-12, abs=1e-12)  # exact mean
         far = np.abs(result.null - result.centre) >= abs(result.observed - result.centre) - result.tolerance
@@ -351,7 +370,8 @@ def test_absolute_rule_centre_is_the_null_mean_with_unbalanced_strata():
 def test_k_groups_within_strata_by_brute_force():
     a, b, c = np.array([1.0, 4.0, 2.5]), np.array([3.0, 0.5, 6.0]), np.array([2.0, 5.5])
     ca, cb, cc = np.array([0, 1, 1]), np.array([0, 0, 1]), np.array([1, 0])
-    result = permutation_test([a, b, c], get_statistic("one_way_f"), resamples=10**5, alternative="greater",
+    result = permutation_test([a, b, c], get_statistic("one_way_f"),
+                              PermutationOptions(resamples=10**5, alternative="greater"),
                               stream=stream(), strata=[ca, cb, cc])
     values = np.concatenate([a, b, c])
     labels = np.repeat([0, 1, 2], [3, 3, 2])
@@ -369,15 +389,17 @@ def test_k_groups_within_strata_by_brute_force():
     null = np.array(null)
     assert result.arrangements == null.size == 12 * 12  # identity 18: 4!/(1!2!1!) · 4!/(2!1!1!)
     np.testing.assert_allclose(np.sort(result.null), np.sort(null), rtol=1e-10)
-    mc = permutation_test([a, b, c], get_statistic("one_way_f"), resamples=500, alternative="greater",
-                          stream=stream(), strata=[ca, cb, cc], exact="never")
+    mc = permutation_test([a, b, c], get_statistic("one_way_f"),
+                          PermutationOptions(resamples=500, alternative="greater", exact="never"),
+                          stream=stream(), strata=[ca, cb, cc])
     assert np.all(np.min(np.abs(mc.null[:, None] - null[None, :]), axis=1) <= 1e-9)  # only allowed relabellings
 
 
 def test_exact_always_beyond_enumeration_uses_the_dp_null():
     x, y = np.arange(0.0, 30.0, 2.0), np.arange(1.0, 30.0, 2.0)  # distinct integers, C(30, 15) splits
-    result = permutation_test([x, y], get_statistic("mean_difference"), resamples=99, alternative="less",
-                              stream=stream(), exact="always")
+    result = permutation_test([x, y], get_statistic("mean_difference"),
+                              PermutationOptions(resamples=99, alternative="less", exact="always"),
+                              stream=stream())
     assert result.computation == "dynamic programming" and result.arrangements == 155_117_520
     # Δmean is increasing in the first group's sum, here in its rank sum: the exact Mann–Whitney test
     ref = stats.mannwhitneyu(x, y, alternative="less", method="exact")  # scipy reference; identity 15
@@ -390,7 +412,7 @@ def test_kept_or_redrawn_arrangements_give_the_same_numbers(monkeypatch):
     rng = np.random.default_rng(2)
     x, y = rng.normal(size=20) + 0.5, rng.normal(size=18)
     stat = get_statistic("mean_difference")
-    args = dict(confidence=0.95, resamples=1500, stream=stream("shift"))
+    args = dict(options=PermutationOptions(1500, "two-sided", confidence=0.95), stream=stream("shift"))
     endpoints = [([x, y], stat, "greater"), ([x ** 2, y ** 2], get_statistic("rank_sum"), "two-sided")]
     kept = inversion.shift_interval(x, y, stat, **args), max_t(endpoints, strata=None, resamples=1500,
                                                                stream=stream("mt"))
@@ -406,8 +428,9 @@ def test_cluster_batch_size_changes_nothing():
     y = np.array([4.2, 5.0, 5.3, 4.8, 6.0, 5.2, 4.4])
     cx, cy = np.array([0, 0, 1, 1, 2, 3, 4]), np.array([5, 5, 6, 7, 7, 8, 9])
     for name, exact in (("mean_difference", "never"), ("median_difference", "auto")):
-        a, b = (cluster_test(x, y, cx, cy, get_statistic(name), resamples=1100, alternative="greater",
-                             stream=stream("cb"), exact=exact, batch_elements=e) for e in (7, 10**6))
+        a, b = (cluster_test(x, y, cx, cy, get_statistic(name),
+                             PermutationOptions(resamples=1100, alternative="greater", exact=exact),
+                             stream=stream("cb"), batch_elements=e) for e in (7, 10**6))
         assert np.array_equal(a.null, b.null)
 
 
@@ -448,7 +471,8 @@ def test_sign_flip_byte_tables_equal_plain(pairs, name):
     rng = np.random.default_rng(pairs)
     x = np.round(rng.normal(0.2, 1.0, pairs), 1)  # rounding makes zero differences and tied ranks
     y = np.round(rng.normal(0.0, 1.0, pairs), 1)
-    kw = dict(resamples=DRAW_BLOCK + 300, alternative="two-sided", stream=stream("bytes"), exact="never")
+    kw = dict(options=PermutationOptions(resamples=DRAW_BLOCK + 300, alternative="two-sided", exact="never"),
+              stream=stream("bytes"))
     fast = signflip_test(x, y, get_statistic(name), fast=True, **kw)
     plain = signflip_test(x, y, get_statistic(name), fast=False, **kw)
     if name == "signed_rank":

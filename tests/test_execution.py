@@ -13,6 +13,7 @@ import pytest
 
 from planrunner.cli import main as cli
 from planrunner.engines.bootstrap import BootstrapOptions, bootstrap
+from planrunner.engines.permcore import PermutationOptions
 from planrunner.engines.permutation import permutation_test
 from planrunner.engines.statistics import get_statistic
 from planrunner.engines.streams import stream_for
@@ -138,8 +139,9 @@ def test_memory_of_one_engine_call_stays_bounded_as_resamples_grow(method: str) 
         if method == "bootstrap":
             return lambda: bootstrap(data, stat, BootstrapOptions(resamples, 0.95, ("percentile",)),
                                      stream=stream_for(1, "memory"))
-        return lambda: permutation_test(data, stat, resamples=resamples, alternative="two-sided",
-                                        stream=stream_for(1, "memory"), exact="never")
+        return lambda: permutation_test(data, stat,
+                                        PermutationOptions(resamples, "two-sided", exact="never"),
+                                        stream=stream_for(1, "memory"))
 
     small, large = _peak_bytes(call(1000)), _peak_bytes(call(8000))
     # B x n draws would be 8000 * 5000 * 8 bytes = 320 MB; the growth allowed is four arrays of B doubles

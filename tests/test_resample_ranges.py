@@ -7,6 +7,7 @@ import pytest
 
 from planrunner.engines.blocks import resample_ranges, map_resamples, mapping_ranges
 from planrunner.engines.bootstrap import BootstrapOptions, bootstrap
+from planrunner.engines.permcore import PermutationOptions
 from planrunner.engines.permutation import permutation_test
 from planrunner.engines.statistics import get_statistic
 from planrunner.engines.streams import stream_for
@@ -53,7 +54,8 @@ def test_bootstrap_split_ranges_are_bit_identical(name, strata):
 def test_monte_carlo_permutation_split_ranges_are_bit_identical():
     statistic = get_statistic("mean_difference")
     groups = (RNG.normal(size=40), RNG.normal(0.3, size=35))
-    kwargs = dict(resamples=4321, alternative="two-sided", stream=stream_for(6, "perm"), exact="never")
+    kwargs = dict(options=PermutationOptions(resamples=4321, alternative="two-sided", exact="never"),
+                  stream=stream_for(6, "perm"))
     whole = permutation_test(groups, statistic, **kwargs)
     seen: list = []
     with mapping_ranges(out_of_order(seen)):

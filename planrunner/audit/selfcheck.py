@@ -17,6 +17,7 @@ import numpy as np
 
 from planrunner.engines.bootstrap import BootstrapOptions, bootstrap
 from planrunner.engines.jackknife import jackknife
+from planrunner.engines.permcore import PermutationOptions
 from planrunner.engines.permutation import permutation_test
 from planrunner.engines.statistics import get_statistic
 from planrunner.engines.streams import stream_for
@@ -61,8 +62,9 @@ def _mouse() -> tuple[np.ndarray, ...]:
 
 
 def _perm(samples: Sequence[np.ndarray], alternative: str, exact: str = "auto", resamples: int = 100_000):
-    return permutation_test(samples, get_statistic("mean_difference"), resamples=resamples, alternative=alternative,
-                            stream=stream_for(SELFCHECK_SEED, "selfcheck-permutation"), exact=exact)
+    return permutation_test(samples, get_statistic("mean_difference"),
+                            PermutationOptions(resamples=resamples, alternative=alternative, exact=exact),
+                            stream=stream_for(SELFCHECK_SEED, "selfcheck-permutation"))
 
 
 def _null_variance(result) -> float:

@@ -14,15 +14,15 @@ import numpy as np
 from planrunner.compile import design
 from planrunner.engines.bootstrap import BootstrapOptions
 from planrunner.engines.jackknife import JackknifeOptions
+from planrunner.engines.permcore import PermutationOptions
 from planrunner.engines.statistics import Statistic, bind, get_statistic
 from planrunner.engines.teststats import K_GROUP
 from planrunner.engines.streams import Stream, stream_for
 from planrunner.errors import DataError
 from planrunner.data.tables import Table
-from planrunner.plan.schema import Analysis, BootstrapAnalysis, Defaults, Plan
+from planrunner.plan.schema import Analysis, BootstrapAnalysis, Defaults, PermutationAnalysis, Plan
 
-# the permutation options are still a plain dict (keys as in `_options`)
-Options = BootstrapOptions | JackknifeOptions | dict[str, Any]
+Options = BootstrapOptions | JackknifeOptions | PermutationOptions
 
 
 @dataclass(frozen=True)
@@ -44,8 +44,6 @@ class Job:
 
     def settings(self) -> dict[str, Any]:
         """The options as the record states them (JSON values)."""
-        if isinstance(self.options, dict):
-            return {k: (list(v) if isinstance(v, tuple) else v) for k, v in self.options.items()}
         return self.options.settings()
 
     def counts(self) -> dict[str, Any]:
@@ -84,13 +82,19 @@ def _options(plan: Plan, analysis: Analysis) -> Options:
     if analysis.method == "bootstrap":
         return bootstrap_options(analysis, d)
     if analysis.method == "permutation":
-        k_group = analysis.statistic in K_GROUP  # large F or H is the evidence: one-sided by construction
-        confidence = analysis.confidence or d.confidence
-        return {"resamples": analysis.resamples or d.resamples,
-                "alternative": "greater" if k_group else (analysis.alternative or d.alternative),
-                "exact": analysis.exact, "two_sided": analysis.two_sided, "alpha": round(1.0 - confidence, 12),
-                "intervals": tuple(analysis.intervals or ()), "confidence": confidence}
+        return permutation_options(analysis, d)
     return JackknifeOptions()
+
+
+def permutation_options(analysis: PermutationAnalysis, defaults: Defaults) -> PermutationOptions:
+    """The options of a permutation-type test: what the analysis declares, else the plan's defaults."""
+    k_group = analysis.statistic in K_GROUP  # large F or H is the evidence: one-sided by construction
+    confidence = analysis.confidence or defaults.confidence
+    return PermutationOptions(resamples=analysis.resamples or defaults.resamples,
+                              alternative="greater" if k_group else (analysis.alternative or defaults.alternative),
+                              exact=analysis.exact, two_sided=analysis.two_sided,
+                              alpha=round(1.0 - confidence, 12), intervals=tuple(analysis.intervals or ()),
+                              confidence=confidence)
 
 
 def compile_job(plan: Plan, analysis: Analysis, table: Table) -> Job:

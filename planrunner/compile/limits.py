@@ -23,7 +23,7 @@ import math
 from typing import Any, Iterable
 
 from planrunner.errors import DataError
-from planrunner.engines.permutation import ENUMERATION_LIMIT  # the engine's own limit
+from planrunner.engines.permcore import ENUMERATION_LIMIT, PermutationOptions  # the engines' own limit
 from planrunner.engines.bootstrap import BootstrapOptions
 
 READ_FACTOR = 40
@@ -81,9 +81,8 @@ def draws_kept(job: Any) -> int:
         return sum(int(s.shape[0]) for s in job.samples)
     if isinstance(job.options, BootstrapOptions):
         return job.options.resamples
-    resamples = int(job.options["resamples"])
-    if job.method == "permutation":
-        exact = job.options.get("exact", "auto")
+    if isinstance(job.options, PermutationOptions):
+        resamples, exact = job.options.resamples, job.options.exact
         count = arrangements(job)
         if exact == "never" or count is None:
             return resamples
@@ -92,7 +91,7 @@ def draws_kept(job: Any) -> int:
             # exact dynamic-programming null where one applies, or refuses with the count)
             return min(count, ENUMERATION_LIMIT)
         return count if count <= resamples else resamples
-    return resamples
+    raise ValueError(f"no options for method {job.method!r}")  # the schema makes this unreachable
 
 
 def estimate_run_bytes(jobs: Iterable[Any]) -> int:

@@ -18,12 +18,15 @@ from __future__ import annotations
 
 import itertools
 import math
+from dataclasses import dataclass
 
 import numpy as np
 
-from planrunner.engines.permutation import ALTERNATIVES, ENUMERATION_LIMIT, EXACT_CHOICES, TIE_TOLERANCE
-from planrunner.engines.pvalues import TWO_SIDED_RULES, summarize
-from planrunner.engines.results import EngineWarning, PermutationResult, frozen_array
+from planrunner.engines.blocks import bind as range_task
+from planrunner.engines.permcore import (ENUMERATION, ComputedNull, Description, PermutationOptions, all_ties,
+                                         check_null, choose_computation, observed_value, permutation_result,
+                                         tie_tolerance)
+from planrunner.engines.results import EngineWarning, PermutationResult
 from planrunner.engines.statistics import Statistic, check_samples
 from planrunner.engines.streams import Stream, UniformRows
 from planrunner.errors import EngineError
@@ -31,87 +34,106 @@ from planrunner.errors import EngineError
 __all__ = ["association_test"]
 
 
-def _permutations(listing: itertools.permutations, n: int, rows: int) -> np.ndarray:
-    """The next ``rows`` pairings of the lexicographic listing."""
-    return np.array(list(itertools.islice(listing, rows)), dtype=np.int64).reshape(rows, n)
-
-
-def association_test(xy: np.ndarray, statistic: Statistic, *, resamples: int, alternative: str, stream: Stream,
-                     exact: str = "auto", two_sided: str = "doubled", alpha: float | None = None,
+def association_test(xy: np.ndarray, statistic: Statistic, options: PermutationOptions, *, stream: Stream,
                      covariates: np.ndarray | None = None, batch_elements: int = 2_000_000) -> PermutationResult:
     """Permutation test of a two-column statistic (predictor, outcome), or Freedman–Lane."""
     if statistic.columns != 2 or statistic.samples != 1:
         raise EngineError(f"an association test needs a statistic of two columns; {statistic.name!r} is not one")
-    if alternative not in ALTERNATIVES or exact not in EXACT_CHOICES or two_sided not in TWO_SIDED_RULES:
-        raise EngineError("unknown alternative, exact or two-sided choice")
     (data,) = check_samples([xy], statistic, minimum=3, method="the association test")
     n = data.shape[0]
     x, y = data[:, 0], data[:, 1]
     if np.all(x == x[0]) or np.all(y == y[0]):
         raise EngineError("the predictor or the outcome is constant; there is no association to test",
                           hint="check the columns and the row filter")
-    if covariates is not None:
-        if statistic.name != "slope":
-            raise EngineError("with covariates only the partial slope is tested (Freedman–Lane)",
-                              hint="use statistic: slope")
-        z = np.column_stack([np.ones(n), np.asarray(covariates, dtype=np.float64).reshape(n, -1)])
-        if not np.all(np.isfinite(z)):
-            raise EngineError("a covariate has a non-finite value", hint="declare missing values or fix the data")
-        if np.linalg.matrix_rank(np.column_stack([z, x])) < z.shape[1] + 1:
-            raise EngineError("the predictor is a linear combination of the covariates (and the intercept)",
-                              hint="remove the redundant covariate")
-        if n <= z.shape[1] + 1:
-            raise EngineError(f"{n} rows cannot fit a slope and {z.shape[1]} other terms")
-        fitted = z @ np.linalg.lstsq(z, y, rcond=None)[0]
-        residual = y - fitted
-        x_tilde = x - z @ np.linalg.lstsq(z, x, rcond=None)[0]
-        weights_x = x_tilde / float(x_tilde @ x_tilde)
-        # b* = x̃ᵀ(ŷ + Pe)/x̃ᵀx̃ = x̃ᵀPe/x̃ᵀx̃, since x̃ is orthogonal to ŷ (in the span of Z)
-        observed = float(weights_x @ residual)
-        evaluate = lambda order: residual[order] @ weights_x  # noqa: E731
-        scheme = f"Freedman–Lane: residuals of the outcome on {z.shape[1] - 1} covariate(s) permuted"
-    else:
-        with np.errstate(invalid="ignore", divide="ignore"):  # a non-finite value is reported below
-            observed = float(statistic.compute(np.ascontiguousarray(data.T)))
-
-        def evaluate(order: np.ndarray) -> np.ndarray:
-            stacked = np.stack([np.broadcast_to(x, order.shape), y[order]], axis=-2)
-            return statistic.compute(np.ascontiguousarray(stacked))
+    if covariates is None:
+        model = _Model(x, y)
+        observed = observed_value(statistic, np.ascontiguousarray(data.T))
         scheme = "outcome shuffled against the predictor"
-    if not math.isfinite(observed):
-        raise EngineError(f"the statistic {statistic.name!r} is not finite on the data")
-    arrangements = math.factorial(n)
-    if exact == "always" and arrangements > ENUMERATION_LIMIT:
-        raise EngineError(f"exact enumeration asked for, but there are {arrangements:,} pairings "
-                          f"(the limit is {ENUMERATION_LIMIT:,})", hint="use exact: never or exact: auto")
-    is_exact = exact != "never" and arrangements <= (resamples if exact == "auto" else ENUMERATION_LIMIT)
-    total = arrangements if is_exact else resamples
-    rows_per_batch = max(1, batch_elements // (2 * n))
-    null = np.empty(total)
-    reader = UniformRows(stream, n)
-    listing = itertools.permutations(range(n))
-    for start in range(0, total, rows_per_batch):
-        stop = min(total, start + rows_per_batch)
-        order = (_permutations(listing, n, stop - start) if is_exact
-                 else np.argsort(reader.take(stop - start), axis=1))
-        with np.errstate(invalid="ignore", divide="ignore"):
-            null[start:stop] = evaluate(order)
-    if not np.all(np.isfinite(null)):
-        raise EngineError(f"the statistic {statistic.name!r} is not finite for some pairings")
-    scale = max(abs(observed), float(np.max(np.abs(null))))
-    tolerance = TIE_TOLERANCE * scale
-    pv = summarize(null, observed, exact=is_exact, alternative=alternative, two_sided=two_sided,
-                   tolerance=tolerance, alpha=alpha, arrangements=arrangements)
-    warnings = list(pv.warnings)
-    if np.all(np.abs(null - observed) <= tolerance):
-        warnings.append(EngineWarning("degenerate-distribution", "every pairing gives the observed value"))
-    return PermutationResult(
-        observed=observed, p_value=pv.p_value, alternative=alternative, two_sided_rule=two_sided, exact=is_exact,
-        arrangements=arrangements, resamples=total, count_greater=pv.count_greater, count_less=pv.count_less,
-        null=frozen_array(null), tolerance=tolerance, n=(n,), scheme=scheme, warnings=tuple(warnings),
+    else:
+        model = _freedman_lane(x, y, statistic, covariates)
+        observed = float(model.weights_x @ model.residual)  # the partial slope, P = I
+        scheme = f"Freedman–Lane: residuals of the outcome on {model.terms - 1} covariate(s) permuted"
+    null = _null(model, statistic, options, stream, max(1, batch_elements // (2 * n)))
+    check_null(null.values, statistic, "pairing(s)")
+    tolerance = tie_tolerance(observed, float(np.max(np.abs(null.values))))
+    warnings = ()
+    if all_ties(null.values, observed, tolerance):
+        warnings = (EngineWarning("degenerate-distribution", "every pairing gives the observed value"),)
+    about = Description(
+        n=(n,), scheme=scheme,
         conventions={"p_value": "exact: count / n! pairings; Monte Carlo: (count + 1) / (resamples + 1)",
                      "draws": "outcome i of resample r is argsort(keys of row r)[i]"},
-        p_greater=pv.p_greater, p_less=pv.p_less, count_absolute=pv.count_absolute,
-        monte_carlo_se=pv.monte_carlo_se, p_interval=pv.p_interval, smallest_p=pv.smallest_p,
-        computation="enumeration" if is_exact else "Monte Carlo",
-        design={"covariates": 0 if covariates is None else int(np.asarray(covariates).reshape(n, -1).shape[1])})
+        design={"covariates": 0 if covariates is None else model.terms - 1})
+    return permutation_result(null, observed, options, tolerance=tolerance, about=about, warnings=warnings)
+
+
+@dataclass(frozen=True)
+class _Model:
+    """What a pairing is evaluated on: the predictor and outcome (plain shuffle), or, for
+    Freedman–Lane, the reduced model's residuals and the weights x̃/x̃ᵀx̃ of the partial slope."""
+
+    x: np.ndarray
+    y: np.ndarray
+    residual: np.ndarray | None = None
+    weights_x: np.ndarray | None = None
+    terms: int = 0  # columns of Z (the intercept included)
+
+
+def _freedman_lane(x: np.ndarray, y: np.ndarray, statistic: Statistic, covariates: np.ndarray) -> _Model:
+    """Fit the reduced model y = Zγ + e and the predictor's residual x̃ on Z (Freedman & Lane 1983)."""
+    n = x.size
+    if statistic.name != "slope":
+        raise EngineError("with covariates only the partial slope is tested (Freedman–Lane)",
+                          hint="use statistic: slope")
+    z = np.column_stack([np.ones(n), np.asarray(covariates, dtype=np.float64).reshape(n, -1)])
+    if not np.all(np.isfinite(z)):
+        raise EngineError("a covariate has a non-finite value", hint="declare missing values or fix the data")
+    if np.linalg.matrix_rank(np.column_stack([z, x])) < z.shape[1] + 1:
+        raise EngineError("the predictor is a linear combination of the covariates (and the intercept)",
+                          hint="remove the redundant covariate")
+    if n <= z.shape[1] + 1:
+        raise EngineError(f"{n} rows cannot fit a slope and {z.shape[1]} other terms")
+    fitted = z @ np.linalg.lstsq(z, y, rcond=None)[0]
+    x_tilde = x - z @ np.linalg.lstsq(z, x, rcond=None)[0]
+    # b* = x̃ᵀ(ŷ + Pe)/x̃ᵀx̃ = x̃ᵀPe/x̃ᵀx̃, since x̃ is orthogonal to ŷ (in the span of Z)
+    return _Model(x, y, residual=y - fitted, weights_x=x_tilde / float(x_tilde @ x_tilde), terms=z.shape[1])
+
+
+def _null(model: _Model, statistic: Statistic, options: PermutationOptions, stream: Stream,
+          rows_per_batch: int) -> ComputedNull:
+    """The null over the n! pairings: listed in lexicographic order, or drawn (range tasks)."""
+    n = model.x.size
+    arrangements = math.factorial(n)
+    path = choose_computation(arrangements, options, shortcut=False, space="pairings", statistic=statistic.name)
+    if path == ENUMERATION:
+        null = np.empty(arrangements)
+        listing = itertools.permutations(range(n))
+        for start in range(0, arrangements, rows_per_batch):
+            rows = min(rows_per_batch, arrangements - start)
+            order = np.array(list(itertools.islice(listing, rows)), dtype=np.int64).reshape(rows, n)
+            null[start:start + rows] = _evaluate(model, statistic, order)
+        return ComputedNull(null, path, arrangements)
+    task = range_task(_drawn_range, model, statistic, stream, rows_per_batch)
+    return ComputedNull(task(0, options.resamples), path, arrangements)
+
+
+def _drawn_range(model: _Model, statistic: Statistic, stream: Stream, rows_per_batch: int,
+                 start: int, stop: int) -> np.ndarray:
+    """The statistic of random resamples [start, stop) (a picklable range task): outcome i is paired
+    with predictor argsort(keys)[i]."""
+    reader = UniformRows(stream, model.x.size, start)
+    null = np.empty(stop - start)
+    for first in range(0, stop - start, rows_per_batch):
+        rows = min(rows_per_batch, stop - start - first)
+        null[first:first + rows] = _evaluate(model, statistic, np.argsort(reader.take(rows), axis=1))
+    return null
+
+
+def _evaluate(model: _Model, statistic: Statistic, order: np.ndarray) -> np.ndarray:
+    """The statistic of each pairing (row of ``order``)."""
+    with np.errstate(invalid="ignore", divide="ignore"):
+        if model.residual is not None:
+            assert model.weights_x is not None
+            return model.residual[order] @ model.weights_x
+        stacked = np.stack([np.broadcast_to(model.x, order.shape), model.y[order]], axis=-2)
+        return statistic.compute(np.ascontiguousarray(stacked))

@@ -18,14 +18,18 @@ exceed alpha: the result then carries a ``few-clusters`` warning.
 
 from __future__ import annotations
 
+import dataclasses
 import itertools
 import math
+from dataclasses import dataclass
 
 import numpy as np
 
-from planrunner.engines.permutation import ALTERNATIVES, ENUMERATION_LIMIT, EXACT_CHOICES, TIE_TOLERANCE
-from planrunner.engines.pvalues import TWO_SIDED_RULES, summarize
-from planrunner.engines.results import EngineWarning, PermutationResult, frozen_array
+from planrunner.engines.blocks import bind as range_task
+from planrunner.engines.blocks import map_resamples
+from planrunner.engines.permcore import (ENUMERATION, ComputedNull, Description, PermutationOptions, check_null,
+                                         choose_computation, observed_value, permutation_result, tie_tolerance)
+from planrunner.engines.results import EngineWarning, PermutationResult
 from planrunner.engines.statistics import Statistic, check_samples
 from planrunner.engines.streams import Stream, UniformRows
 from planrunner.errors import EngineError
@@ -34,82 +38,112 @@ __all__ = ["cluster_test"]
 
 
 def cluster_test(x: np.ndarray, y: np.ndarray, x_clusters: np.ndarray, y_clusters: np.ndarray,
-                 statistic: Statistic, *, resamples: int, alternative: str, stream: Stream, exact: str = "auto",
-                 two_sided: str = "doubled", alpha: float | None = None, fast: bool = True,
+                 statistic: Statistic, options: PermutationOptions, *, stream: Stream, fast: bool = True,
                  batch_elements: int = 2_000_000) -> PermutationResult:
     """Permutation test of a two-group statistic with the labels assigned to whole clusters."""
     if statistic.samples != 2 or statistic.columns != 1:
         raise EngineError(f"a cluster-level test needs a two-group statistic; {statistic.name!r} is not one")
-    if alternative not in ALTERNATIVES or exact not in EXACT_CHOICES or two_sided not in TWO_SIDED_RULES:
-        raise EngineError("unknown alternative, exact or two-sided choice")
     x, y = check_samples([x, y], statistic, method="the cluster test")
-    cx, cy = np.asarray(x_clusters, dtype=np.int64), np.asarray(y_clusters, dtype=np.int64)
-    if cx.shape != x.shape or cy.shape != y.shape:
-        raise EngineError("every row needs a cluster code")
-    both = np.intersect1d(cx, cy)
-    if both.size:
-        raise EngineError(f"{both.size} cluster(s) have rows in both groups (first code {int(both[0])}); "
-                          "labels were not assigned to whole clusters",
-                          hint="remove clusters: (the design is then not cluster-randomized) or fix the data")
-    values = np.concatenate([x, y])
-    codes = np.concatenate([cx, cy])
-    levels, member = np.unique(codes, return_inverse=True)
-    g = levels.size
-    g1 = int(np.unique(cx).size)
-    sums = np.bincount(member, weights=values, minlength=g)
-    sizes = np.bincount(member, minlength=g).astype(np.float64)
-    observed_set = np.isin(levels, cx)
-    with np.errstate(invalid="ignore", divide="ignore"):  # a non-finite value is reported below
-        observed = float(statistic.compute(x, y))
-    if not math.isfinite(observed):
-        raise EngineError(f"the statistic {statistic.name!r} is not finite on the data")
-    arrangements = math.comb(g, g1)
-    if exact == "always" and arrangements > ENUMERATION_LIMIT:
-        raise EngineError(f"exact enumeration asked for, but there are {arrangements:,} cluster arrangements "
-                          f"(the limit is {ENUMERATION_LIMIT:,})", hint="use exact: never or exact: auto")
-    is_exact = exact != "never" and arrangements <= (resamples if exact == "auto" else ENUMERATION_LIMIT)
-    total = arrangements if is_exact else resamples
-    rows_per_batch = max(1, batch_elements // max(g, values.size))
-    combos = itertools.combinations(range(g), g1)
-    reader = UniformRows(stream, g)
-    null = np.empty(total)
-    for start in range(0, total, rows_per_batch):
-        rows = min(rows_per_batch, total - start)
-        chosen = np.zeros((rows, g), dtype=bool)
-        if is_exact:
-            for r, combo in enumerate(itertools.islice(combos, rows)):
-                chosen[r, list(combo)] = True
-        else:
-            np.put_along_axis(chosen, np.argsort(reader.take(rows), axis=1)[:, :g1], True, axis=1)
-        with np.errstate(invalid="ignore", divide="ignore"):
-            if fast and statistic.form == "mean":
-                # row sums, not a BLAS product, so the batch size never changes a bit
-                n1 = np.where(chosen, sizes, 0.0).sum(axis=1)
-                s1 = np.where(chosen, sums, 0.0).sum(axis=1)
-                null[start:start + rows] = s1 / n1 - (sums.sum() - s1) / (sizes.sum() - n1)
-            else:
-                null[start:start + rows] = [float(statistic.compute(values[row], values[~row]))
-                                            for row in chosen[:, member]]
-    if np.isnan(null).any():
-        raise EngineError(f"the statistic {statistic.name!r} is not finite for some cluster arrangements")
-    tolerance = TIE_TOLERANCE * max(abs(observed), float(np.max(np.abs(values))))
-    pv = summarize(null, observed, exact=is_exact, alternative=alternative, two_sided=two_sided,
-                   tolerance=tolerance, alpha=alpha, arrangements=arrangements)
-    warnings = list(pv.warnings)
-    level = 0.05 if alpha is None else alpha
-    if pv.smallest_p > level:
-        warnings.append(EngineWarning(
-            "few-clusters",
-            f"only {g} clusters ({g1} in the first group): {arrangements} arrangements, so the smallest "
-            f"attainable p-value is {pv.smallest_p:.3g}, above alpha = {level:g}; randomize more clusters"))
-    return PermutationResult(
-        observed=observed, p_value=pv.p_value, alternative=alternative, two_sided_rule=two_sided, exact=is_exact,
-        arrangements=arrangements, resamples=total, count_greater=pv.count_greater, count_less=pv.count_less,
-        null=frozen_array(null), tolerance=tolerance, n=(x.size, y.size),
-        scheme="cluster labels shuffled (whole clusters keep one group)", warnings=tuple(warnings),
+    clusters = _Clusters.of(x, y, x_clusters, y_clusters)
+    observed = observed_value(statistic, x, y)
+    g, g1 = clusters.sums.size, clusters.first
+    rows_per_batch = max(1, batch_elements // max(g, clusters.values.size))
+    null = _null(clusters, statistic, options, stream, rows_per_batch, fast)
+    check_null(null.values, statistic, "cluster arrangement(s)")
+    about = Description(
+        n=(x.size, y.size), scheme="cluster labels shuffled (whole clusters keep one group)",
         conventions={"p_value": "exact: count / C(G, G1) cluster arrangements; Monte Carlo: (count + 1)/(m + 1)",
                      "draws": "first group = clusters at the first G1 places of argsort(keys of row r)"},
-        p_greater=pv.p_greater, p_less=pv.p_less, count_absolute=pv.count_absolute,
-        monte_carlo_se=pv.monte_carlo_se, p_interval=pv.p_interval, smallest_p=pv.smallest_p,
-        computation="enumeration" if is_exact else "Monte Carlo",
-        design={"clusters": g, "clusters_first_group": g1, "observed_clusters_first_group": int(observed_set.sum())})
+        design={"clusters": g, "clusters_first_group": g1,
+                "observed_clusters_first_group": int(np.isin(clusters.levels, clusters.x_codes).sum())})
+    tolerance = tie_tolerance(observed, float(np.max(np.abs(clusters.values))))
+    result = permutation_result(null, observed, options, tolerance=tolerance, about=about)
+    level = 0.05 if options.alpha is None else options.alpha
+    assert result.smallest_p is not None
+    if result.smallest_p > level:
+        few = EngineWarning(
+            "few-clusters",
+            f"only {g} clusters ({g1} in the first group): {null.arrangements} arrangements, so the smallest "
+            f"attainable p-value is {result.smallest_p:.3g}, above alpha = {level:g}; randomize more clusters")
+        result = dataclasses.replace(result, warnings=result.warnings + (few,))
+    return result
+
+
+@dataclass(frozen=True)
+class _Clusters:
+    """Rows pooled (first group, then second) with their cluster index, and each cluster's sum and
+    size in rows."""
+
+    values: np.ndarray
+    member: np.ndarray  # cluster index (0 … G − 1, by increasing code) of each pooled row
+    levels: np.ndarray  # cluster codes, increasing
+    x_codes: np.ndarray  # cluster codes of the first group's rows
+    first: int  # G1, the clusters of the first group
+    sums: np.ndarray
+    sizes: np.ndarray
+
+    @classmethod
+    def of(cls, x: np.ndarray, y: np.ndarray, x_clusters: np.ndarray, y_clusters: np.ndarray) -> _Clusters:
+        cx, cy = np.asarray(x_clusters, dtype=np.int64), np.asarray(y_clusters, dtype=np.int64)
+        if cx.shape != x.shape or cy.shape != y.shape:
+            raise EngineError("every row needs a cluster code")
+        both = np.intersect1d(cx, cy)
+        if both.size:
+            raise EngineError(f"{both.size} cluster(s) have rows in both groups (first code {int(both[0])}); "
+                              "labels were not assigned to whole clusters",
+                              hint="remove clusters: (the design is then not cluster-randomized) or fix the data")
+        values = np.concatenate([x, y])
+        levels, member = np.unique(np.concatenate([cx, cy]), return_inverse=True)
+        g = levels.size
+        return cls(values, member, levels, cx, int(np.unique(cx).size),
+                   np.bincount(member, weights=values, minlength=g),
+                   np.bincount(member, minlength=g).astype(np.float64))
+
+
+def _null(clusters: _Clusters, statistic: Statistic, options: PermutationOptions, stream: Stream,
+          rows_per_batch: int, fast: bool) -> ComputedNull:
+    """The null over the C(G, G1) cluster arrangements: listed, or drawn (range tasks)."""
+    g, g1 = clusters.sums.size, clusters.first
+    arrangements = math.comb(g, g1)
+    path = choose_computation(arrangements, options, shortcut=False, space="cluster arrangements",
+                              statistic=statistic.name)
+    if path == ENUMERATION:
+        null = np.empty(arrangements)
+        combos = itertools.combinations(range(g), g1)
+        for start in range(0, arrangements, rows_per_batch):
+            rows = min(rows_per_batch, arrangements - start)
+            chosen = np.zeros((rows, g), dtype=bool)
+            for r, combo in enumerate(itertools.islice(combos, rows)):
+                chosen[r, list(combo)] = True
+            null[start:start + rows] = _evaluate(clusters, statistic, chosen, fast)
+        return ComputedNull(null, path, arrangements)
+    # ranges of resamples may run on other workers (engines.blocks); the same numbers
+    task = range_task(_drawn_range, clusters, statistic, stream, rows_per_batch, fast)
+    return ComputedNull(map_resamples(task, options.resamples), path, arrangements)
+
+
+def _drawn_range(clusters: _Clusters, statistic: Statistic, stream: Stream, rows_per_batch: int, fast: bool,
+                 start: int, stop: int) -> np.ndarray:
+    """The statistic of random resamples [start, stop) (a picklable range task): the first group
+    takes the clusters at the first G1 places of argsort(keys)."""
+    g = clusters.sums.size
+    reader = UniformRows(stream, g, start)
+    null = np.empty(stop - start)
+    for first in range(0, stop - start, rows_per_batch):
+        rows = min(rows_per_batch, stop - start - first)
+        chosen = np.zeros((rows, g), dtype=bool)
+        np.put_along_axis(chosen, np.argsort(reader.take(rows), axis=1)[:, :clusters.first], True, axis=1)
+        null[first:first + rows] = _evaluate(clusters, statistic, chosen, fast)
+    return null
+
+
+def _evaluate(clusters: _Clusters, statistic: Statistic, chosen: np.ndarray, fast: bool) -> np.ndarray:
+    """The statistic of each row of ``chosen`` (True: the cluster is in the first group)."""
+    sums, sizes, values = clusters.sums, clusters.sizes, clusters.values
+    with np.errstate(invalid="ignore", divide="ignore"):
+        if fast and statistic.form == "mean":
+            # row sums, not a BLAS product, so the batch size never changes a bit
+            n1 = np.where(chosen, sizes, 0.0).sum(axis=1)
+            s1 = np.where(chosen, sums, 0.0).sum(axis=1)
+            return s1 / n1 - (sums.sum() - s1) / (sizes.sum() - n1)
+        return np.array([float(statistic.compute(values[row], values[~row])) for row in chosen[:, clusters.member]])

@@ -21,8 +21,8 @@ from collections.abc import Callable, Iterator
 
 import numpy as np
 
-from planrunner.engines.permutation import (ENUMERATION_LIMIT, TIE_TOLERANCE, _enumerate, _evaluate, _pool, _random,
-                                            null_centre)
+from planrunner.engines.permcore import ENUMERATION_LIMIT, PermutationOptions, tie_tolerance
+from planrunner.engines.permutation import _enumerate, _evaluate, _pool, _random, null_centre
 from planrunner.engines.results import Interval
 from planrunner.engines.statistics import Statistic, check_samples
 from planrunner.engines.streams import Stream
@@ -47,9 +47,14 @@ def _bisect(test: Callable[[float], bool], inside: float, outside: float) -> flo
     return 0.5 * (inside + outside)
 
 
-def shift_interval(x: np.ndarray, y: np.ndarray, statistic: Statistic, *, confidence: float, resamples: int,
-                   stream: Stream, exact: str = "auto") -> tuple[Interval, float]:
-    """(interval, shift estimate) for x = y + δ by inverting the permutation test of ``statistic``."""
+def shift_interval(x: np.ndarray, y: np.ndarray, statistic: Statistic, options: PermutationOptions, *,
+                   stream: Stream) -> tuple[Interval, float]:
+    """(interval, shift estimate) for x = y + δ by inverting the permutation test of ``statistic``
+    (at ``options.confidence``; all arrangements when they are few enough for ``options.exact``,
+    else ``options.resamples`` random ones)."""
+    if options.confidence is None:
+        raise EngineError("the shift interval needs a confidence level", hint="give confidence, e.g. 0.95")
+    confidence, resamples, exact = options.confidence, options.resamples, options.exact
     x, y = check_samples([x, y], statistic, method="the shift interval")
     pooled = _pool((x, y), None)
     n1, n2 = x.size, y.size
@@ -79,7 +84,7 @@ def shift_interval(x: np.ndarray, y: np.ndarray, statistic: Statistic, *, confid
         moved = type(pooled)(shifted, pooled.stratum, pooled.slots, pooled.blocks)
         null = _evaluate(moved, statistic, iter(cached) if cached is not None else fresh(), total, fast=False)
         t = observed(delta)
-        tol = TIE_TOLERANCE * max(abs(t), float(np.max(np.abs(shifted))))
+        tol = tie_tolerance(t, float(np.max(np.abs(shifted))))
         m = null.size
         return ((np.count_nonzero(null >= t - tol) + adjust) / (m + adjust),
                 (np.count_nonzero(null <= t + tol) + adjust) / (m + adjust))

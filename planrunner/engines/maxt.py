@@ -25,8 +25,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from planrunner.engines.permutation import (ENUMERATION_LIMIT, TIE_TOLERANCE, _enumerate, _evaluate, _multinomial, _pool, _random,
-                                            null_centre)
+from planrunner.engines.permcore import ENUMERATION_LIMIT, tie_tolerance
+from planrunner.engines.permutation import _enumerate, _evaluate, _multinomial, _pool, _random, null_centre
 from planrunner.engines.statistics import Statistic, check_samples, check_strata, to_compute_layout
 from planrunner.engines.streams import Stream
 from planrunner.errors import EngineError
@@ -94,7 +94,7 @@ def max_t(endpoints: Sequence[tuple[Sequence[np.ndarray], Statistic, str]], *, s
         z_obs.append(zo)
     z_null_m = np.array(z_null)  # (endpoints, B)
     z_obs_v = np.array(z_obs)
-    tol = TIE_TOLERANCE * max(1.0, float(np.max(np.abs(z_obs_v))))
+    tol = tie_tolerance(float(np.max(np.abs(z_obs_v))), 1.0)  # z is already on the unit scale
     a = 0 if is_exact else 1
     k = z_obs_v.size
     order = np.argsort(-z_obs_v, kind="stable")

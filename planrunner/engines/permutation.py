@@ -52,8 +52,10 @@ from planrunner.errors import EngineError
 from planrunner.engines.blocks import bind as range_task
 from planrunner.engines.blocks import map_resamples
 from planrunner.engines.exactdist import WORK_LIMIT, dp_work, integer_scores, sum_distribution
-from planrunner.engines.pvalues import TWO_SIDED_RULES, summarize
-from planrunner.engines.results import EngineWarning, PermutationResult, frozen_array
+from planrunner.engines.permcore import (DYNAMIC_PROGRAMMING, ENUMERATION, ENUMERATION_LIMIT, ComputedNull,
+                                         Description, PermutationOptions, all_ties, check_null,
+                                         choose_computation, observed_value, permutation_result, tie_tolerance)
+from planrunner.engines.results import EngineWarning, PermutationResult
 from planrunner.engines.statistics import (
     Statistic,
     check_samples,
@@ -62,14 +64,10 @@ from planrunner.engines.statistics import (
     to_compute_layout,
 )
 from planrunner.engines.streams import Stream, UniformRows
-from planrunner.engines.teststats import INFINITE_ALLOWED, SUM_SCORES
+from planrunner.engines.teststats import SUM_SCORES
 
-__all__ = ["ALTERNATIVES", "ENUMERATION_LIMIT", "PermutationResult", "permutation_test"]
+__all__ = ["ENUMERATION_LIMIT", "PermutationOptions", "PermutationResult", "permutation_test"]
 
-ALTERNATIVES = ("greater", "less", "two-sided")
-EXACT_CHOICES = ("auto", "always", "never")
-ENUMERATION_LIMIT = 5_000_000
-TIE_TOLERANCE = 1e-10
 FEW_ARRANGEMENTS = 20  # common practice: below 20 the smallest attainable p exceeds 0.05
 TWO_SIDED_TEXT = {
     "doubled": "min(1, 2 min(p_greater, p_less))",
@@ -108,111 +106,74 @@ def _pool(data: tuple[np.ndarray, ...], strata: tuple[np.ndarray, ...] | None) -
                    tuple(np.flatnonzero(labels == g) for g in range(len(data))), tuple(blocks))
 
 
-def permutation_test(samples: Sequence[np.ndarray], statistic: Statistic, *, resamples: int, alternative: str,
-                     stream: Stream, strata: Sequence[np.ndarray] | None = None, exact: str = "auto",
-                     two_sided: str = "doubled", alpha: float | None = None, fast: bool = True,
+def permutation_test(samples: Sequence[np.ndarray], statistic: Statistic, options: PermutationOptions, *,
+                     stream: Stream, strata: Sequence[np.ndarray] | None = None, fast: bool = True,
                      batch_elements: int = 2_000_000) -> PermutationResult:
     """Permutation test of ``statistic`` (two groups: first minus second; or k groups) against
-    label exchangeability.
+    label exchangeability (within ``strata`` when given).
 
-    ``exact``: "auto" is exact when arrangements ≤ resamples or the exact DP null applies (else
-    Monte Carlo), "always" is exact (enumerating at most 5,000,000 arrangements, or the DP null),
-    "never" draws ``resamples`` random arrangements from ``stream``. Exact nulls come from the DP
-    when it applies and costs less than enumeration (see the module notes). ``alpha`` (optional)
-    turns on the warnings about the smallest attainable p-value and the Monte Carlo interval.
+    Exact nulls come from enumeration or, when it applies and costs less, from the DP null (see
+    the module notes); Monte Carlo draws ``options.resamples`` arrangements from ``stream``.
     """
     if statistic.samples not in (0, 2):
         raise EngineError(
             f"the permutation test of groups needs a statistic of two or more groups; {statistic.name!r} "
             f"takes {statistic.samples}", hint="use a difference statistic such as mean_difference")
-    if alternative not in ALTERNATIVES:
-        raise EngineError(f"unknown alternative {alternative!r}", hint=f"use one of {', '.join(ALTERNATIVES)}")
-    if exact not in EXACT_CHOICES:
-        raise EngineError(f"unknown exact choice {exact!r}", hint=f"use one of {', '.join(EXACT_CHOICES)}")
-    if two_sided not in TWO_SIDED_RULES:
-        raise EngineError(f"unknown two-sided rule {two_sided!r}", hint=f"use one of {', '.join(TWO_SIDED_RULES)}")
-    if resamples < 1:
-        raise EngineError(f"resamples must be at least 1, got {resamples}", hint="use 9999 or more")
     if batch_elements < 1:
         raise ValueError("batch_elements must be >= 1")
     data = check_samples(samples, statistic, method="the permutation test")
     codes = check_strata(strata, data)
     pooled = _pool(data, codes)
-    n = tuple(int(a.shape[0]) for a in data)
-
-    with np.errstate(invalid="ignore", divide="ignore"):  # a non-finite value is reported below
-        observed = float(statistic.compute(*[to_compute_layout(a) for a in data]))
-    if not math.isfinite(observed):
-        raise EngineError(f"the statistic {statistic.name!r} is not finite on the data")
-    arrangements = math.prod(_multinomial(sizes) for _, _, sizes in pooled.blocks)
-    dp_plan = _dp_plan(pooled, statistic) if len(data) == 2 else None
-
-    if exact == "always" and arrangements > ENUMERATION_LIMIT and dp_plan is None:
-        raise EngineError(
-            f"exact enumeration asked for, but there are {arrangements:,} arrangements "
-            f"(the limit is {ENUMERATION_LIMIT:,}) and no exact shortcut applies to {statistic.name!r} "
-            "on these data", hint="use exact: never (Monte Carlo) or exact: auto")
-    if exact == "never":
-        path = "Monte Carlo"
-    elif fast and dp_plan is not None and dp_plan.work <= arrangements * pooled.values.shape[0]:
-        path = "dynamic programming"  # the exact null that enumeration would list, for less work
-    elif arrangements <= (resamples if exact == "auto" else ENUMERATION_LIMIT):
-        path = "enumeration"
-    else:
-        path = "dynamic programming" if dp_plan is not None else "Monte Carlo"
-    is_exact = path != "Monte Carlo"
-
-    per_row = pooled.values.shape[0] * statistic.columns
-    rows_per_batch = max(1, batch_elements // per_row)
-    weights = None
-    if path == "dynamic programming":
-        assert dp_plan is not None
-        null, weights = _dp_null(pooled, statistic, dp_plan)
-    elif is_exact:
-        null = _evaluate(pooled, statistic, _enumerate(pooled, rows_per_batch), arrangements, fast=fast)
-    else:
-        # ranges of resamples may run on other workers (engines.blocks); the same numbers
-        null = map_resamples(range_task(_random_range, pooled, statistic, stream, rows_per_batch, fast), resamples)
-    bad = np.isnan(null) | ((null == np.inf) & (statistic.name not in INFINITE_ALLOWED)) | (null == -np.inf)
-    if bad.any():
-        raise EngineError(
-            f"the statistic {statistic.name!r} is not finite for {int(bad.sum())} arrangement(s)",
-            hint="the permutation test cannot be used with this statistic on these data")
+    observed = observed_value(statistic, *[to_compute_layout(a) for a in data])
+    rows_per_batch = max(1, batch_elements // (pooled.values.shape[0] * statistic.columns))
+    null = _null(pooled, statistic, options, stream, rows_per_batch, fast)
+    check_null(null.values, statistic)
 
     scale = max(float(np.max(np.abs(a))) for a in data)
-    tolerance = TIE_TOLERANCE * max(abs(observed), scale)  # observed is finite (checked above)
-    centre = null_centre(pooled, statistic)
-    pv = summarize(null, observed, exact=is_exact, alternative=alternative, two_sided=two_sided,
-                   tolerance=tolerance, center=centre, weights=weights, alpha=alpha, arrangements=arrangements)
-
-    warnings = list(pv.warnings)
-    if arrangements < FEW_ARRANGEMENTS:
+    tolerance = tie_tolerance(observed, scale)  # observed is finite (checked above)
+    warnings = []
+    if null.arrangements < FEW_ARRANGEMENTS:
         warnings.append(EngineWarning(
             "few-arrangements",
-            f"only {arrangements} distinct arrangement(s) of the labels exist, so the smallest attainable "
-            f"p-value is {1 / arrangements:.3g}: the test cannot reach 0.05"))
-    if np.all(np.abs(null - observed) <= tolerance):
+            f"only {null.arrangements} distinct arrangement(s) of the labels exist, so the smallest attainable "
+            f"p-value is {1 / null.arrangements:.3g}: the test cannot reach 0.05"))
+    if all_ties(null.values, observed, tolerance):
         warnings.append(EngineWarning(
             "degenerate-distribution",
             "every arrangement gives the observed value of the statistic (the data do not vary "
             "between the groups' labels), so p = 1 carries no information"))
-
-    scheme = "labels shuffled over all rows" if codes is None else "labels shuffled within strata"
-    return PermutationResult(
-        observed=observed, p_value=pv.p_value, alternative=alternative, two_sided_rule=two_sided,
-        exact=is_exact, arrangements=arrangements, resamples=int(null.shape[0]) if weights is None else arrangements,
-        count_greater=pv.count_greater, count_less=pv.count_less, null=frozen_array(null), tolerance=tolerance,
-        n=n, scheme=scheme, warnings=tuple(warnings),
+    about = Description(
+        n=tuple(int(a.shape[0]) for a in data),
+        scheme="labels shuffled over all rows" if codes is None else "labels shuffled within strata",
         conventions={
             "p_value": "exact: count / arrangements (observed arrangement included); "
                        "Monte Carlo: (count + 1) / (resamples + 1)",
-            "two_sided": TWO_SIDED_TEXT[two_sided],
+            "two_sided": TWO_SIDED_TEXT[options.two_sided],
             "ties": "T* >= t - tolerance counts as greater or equal; tolerance = 1e-10 max(|t|, max|x|)",
             "draws": "one uniform row of keys per resample; argsort(keys + 2 * stratum) within strata",
-        },
-        p_greater=pv.p_greater, p_less=pv.p_less, count_absolute=pv.count_absolute, centre=centre,
-        monte_carlo_se=pv.monte_carlo_se, p_interval=pv.p_interval, smallest_p=pv.smallest_p,
-        null_weights=None if weights is None else frozen_array(weights), computation=path)
+        })
+    return permutation_result(null, observed, options, tolerance=tolerance, about=about,
+                              centre=null_centre(pooled, statistic), warnings=tuple(warnings))
+
+
+def _null(pooled: _Pooled, statistic: Statistic, options: PermutationOptions, stream: Stream,
+          rows_per_batch: int, fast: bool) -> ComputedNull:
+    """The null by the cheapest exact way allowed, or by Monte Carlo (the label-shuffle space)."""
+    arrangements = math.prod(_multinomial(sizes) for _, _, sizes in pooled.blocks)
+    dp_plan = _dp_plan(pooled, statistic) if len(pooled.slots) == 2 else None
+    cheaper = fast and dp_plan is not None and dp_plan.work <= arrangements * pooled.values.shape[0]
+    path = choose_computation(arrangements, options, shortcut=dp_plan is not None, shortcut_first=cheaper,
+                              statistic=statistic.name)
+    if path == DYNAMIC_PROGRAMMING:
+        assert dp_plan is not None
+        values, weights = _dp_null(pooled, statistic, dp_plan)
+        return ComputedNull(values, path, arrangements, weights)
+    if path == ENUMERATION:
+        values = _evaluate(pooled, statistic, _enumerate(pooled, rows_per_batch), arrangements, fast=fast)
+        return ComputedNull(values, path, arrangements)
+    # ranges of resamples may run on other workers (engines.blocks); the same numbers
+    task = range_task(_random_range, pooled, statistic, stream, rows_per_batch, fast)
+    return ComputedNull(map_resamples(task, options.resamples), path, arrangements)
 
 
 def null_centre(pooled: _Pooled, statistic: Statistic) -> float:

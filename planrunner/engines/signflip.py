@@ -20,15 +20,18 @@ sums (each pair adds its score or not), reaching any n the plan can hold.
 
 from __future__ import annotations
 
-import math
+from dataclasses import dataclass
 
 import numpy as np
 from scipy.stats import rankdata
 
+from planrunner.engines.blocks import bind as range_task
+from planrunner.engines.blocks import map_resamples
 from planrunner.engines.exactdist import integer_scores
-from planrunner.engines.permutation import ALTERNATIVES, ENUMERATION_LIMIT, EXACT_CHOICES, TIE_TOLERANCE
-from planrunner.engines.pvalues import TWO_SIDED_RULES, summarize
-from planrunner.engines.results import EngineWarning, PermutationResult, frozen_array
+from planrunner.engines.permcore import (DYNAMIC_PROGRAMMING, ENUMERATION, ComputedNull, Description,
+                                         PermutationOptions, check_null, choose_computation, observed_value,
+                                         permutation_result, tie_tolerance)
+from planrunner.engines.results import EngineWarning, PermutationResult
 from planrunner.engines.statistics import Statistic, check_samples
 from planrunner.engines.streams import DRAW_BLOCK, Stream
 from planrunner.errors import EngineError
@@ -110,93 +113,118 @@ def _scores(statistic: Statistic, d: np.ndarray) -> np.ndarray | None:
     return None
 
 
-def signflip_test(x: np.ndarray, y: np.ndarray, statistic: Statistic, *, resamples: int, alternative: str,
-                  stream: Stream, exact: str = "auto", two_sided: str = "doubled", alpha: float | None = None,
-                  fast: bool = True, batch_elements: int = 2_000_000) -> PermutationResult:
+def signflip_test(x: np.ndarray, y: np.ndarray, statistic: Statistic, options: PermutationOptions, *,
+                  stream: Stream, fast: bool = True, batch_elements: int = 2_000_000) -> PermutationResult:
     """Sign-flip test of a two-group ``statistic`` on pairs (x[i], y[i])."""
     if statistic.samples != 2:
         raise EngineError(f"a paired test needs a two-group statistic; {statistic.name!r} is not one")
-    if alternative not in ALTERNATIVES or exact not in EXACT_CHOICES or two_sided not in TWO_SIDED_RULES:
-        raise EngineError("unknown alternative, exact or two-sided choice",
-                          hint=f"alternative: {ALTERNATIVES}; exact: {EXACT_CHOICES}; two_sided: {TWO_SIDED_RULES}")
     x, y = check_samples([x, y], statistic, method="the paired test")
     if x.shape != y.shape:
         raise EngineError(f"pairs must have one value in each group; got {x.size} and {y.size}")
-    n = x.size
-    d = x - y
-    with np.errstate(invalid="ignore", divide="ignore"):  # a non-finite value is reported below
-        observed = float(statistic.compute(x, y))
-    if not math.isfinite(observed):
-        raise EngineError(f"the statistic {statistic.name!r} is not finite on the data")
-    arrangements = 2 ** n
-    scores = _scores(statistic, d)
-    integer = integer_scores(scores) if scores is not None else None
-    width = int(integer[0].sum()) + 1 if integer is not None else 0
-    dp_ok = integer is not None and width <= DP_WIDTH_LIMIT and n * width <= DP_WORK_LIMIT
-
-    if exact == "always" and arrangements > ENUMERATION_LIMIT and not dp_ok:
-        raise EngineError(
-            f"exact enumeration asked for, but there are {arrangements:,} sign patterns "
-            f"(the limit is {ENUMERATION_LIMIT:,}) and no exact shortcut applies to {statistic.name!r}",
-            hint="use exact: never (Monte Carlo) or exact: auto")
-    if exact == "never":
-        path = "Monte Carlo"
-    elif arrangements <= (resamples if exact == "auto" else ENUMERATION_LIMIT):
-        path = "enumeration"
-    else:
-        path = "dynamic programming" if dp_ok else "Monte Carlo"
-
-    weights = None
-    centre = 0.0
-    if scores is not None and statistic.name == "signed_rank":
-        centre = float(scores.sum()) / 2.0
-    if path == "dynamic programming":
-        assert integer is not None
-        ints, scale = integer
-        counts = np.ones(1)
-        for a in ints:  # each pair adds its score (positive sign) or not: counts over subset sums
-            grown = np.zeros(counts.size + int(a))
-            grown[:counts.size] += counts
-            grown[int(a):] += counts
-            counts = grown
-        keep = counts > 0
-        positive = np.flatnonzero(keep) / scale
-        null = positive if statistic.name == "signed_rank" else (2.0 * positive - np.abs(d).sum()) / n
-        weights = counts[keep]
-    else:
-        total = arrangements if path == "enumeration" else resamples
-        rows_per_batch = max(1, batch_elements // max(1, 2 * n))
-        lookup = (_lookup(statistic, d, scores)
-                  if fast and scores is not None and path == "Monte Carlo" and n <= TABLE_PAIRS_LIMIT else None)
-        null = np.empty(total)
-        for start in range(0, total, rows_per_batch):
-            stop = min(total, start + rows_per_batch)
-            if lookup is not None:
-                base, factor, divisor, tables = lookup
-                null[start:stop] = (base + factor * swapped_sums(tables, swap_bytes(stream, n, start, stop))) / divisor
-                continue
-            swaps = _patterns(n, start, stop) if path == "enumeration" else swap_bits(stream, n, start, stop)
-            null[start:stop] = _evaluate(statistic, x, y, d, scores, swaps, fast)
-    tolerance = TIE_TOLERANCE * max(abs(observed), float(np.max(np.abs(np.concatenate([x, y])))))
-    pv = summarize(null, observed, exact=path != "Monte Carlo", alternative=alternative, two_sided=two_sided,
-                   tolerance=tolerance, center=centre, weights=weights, alpha=alpha, arrangements=arrangements)
-    warnings = list(pv.warnings)
-    if np.all(d == 0):
-        warnings.append(EngineWarning("degenerate-distribution",
-                                      "every pair difference is zero: swaps change nothing and p = 1"))
-    return PermutationResult(
-        observed=observed, p_value=pv.p_value, alternative=alternative, two_sided_rule=two_sided,
-        exact=path != "Monte Carlo", arrangements=arrangements,
-        resamples=int(null.size) if weights is None else arrangements, count_greater=pv.count_greater,
-        count_less=pv.count_less, null=frozen_array(null), tolerance=tolerance, n=(n, n),
-        scheme="sign-flip within pairs (the two labels swapped within each pair)", warnings=tuple(warnings),
+    observed = observed_value(statistic, x, y)
+    pairs = _Pairs.of(x, y, statistic)
+    null = _null(pairs, statistic, options, stream, max(1, batch_elements // max(1, 2 * x.size)), fast)
+    check_null(null.values, statistic, "sign pattern(s)")
+    warnings = ()
+    if np.all(pairs.d == 0):
+        warnings = (EngineWarning("degenerate-distribution",
+                                  "every pair difference is zero: swaps change nothing and p = 1"),)
+    centre = float(pairs.scores.sum()) / 2.0 if pairs.scores is not None and statistic.name == "signed_rank" else 0.0
+    about = Description(
+        n=(x.size, x.size), scheme="sign-flip within pairs (the two labels swapped within each pair)",
         conventions={"p_value": "exact: count / 2^n sign patterns (duplicates counted); Monte Carlo: "
                                 "(count + 1) / (resamples + 1)",
                      "draws": "random bits: ceil(n/64) uint64 words per resample, pair i swapped when bit i is 1"},
-        p_greater=pv.p_greater, p_less=pv.p_less, count_absolute=pv.count_absolute, centre=centre,
-        monte_carlo_se=pv.monte_carlo_se, p_interval=pv.p_interval, smallest_p=pv.smallest_p,
-        null_weights=None if weights is None else frozen_array(weights), computation=path,
-        design={"pairs": n})
+        design={"pairs": x.size})
+    tolerance = tie_tolerance(observed, float(np.max(np.abs(np.concatenate([x, y])))))
+    return permutation_result(null, observed, options, tolerance=tolerance, about=about, centre=centre,
+                              warnings=warnings)
+
+
+@dataclass(frozen=True)
+class _Pairs:
+    """The pairs as the null needs them: both groups, the differences, and the per-pair scores when
+    the statistic is a function of the swapped differences alone (None otherwise)."""
+
+    x: np.ndarray
+    y: np.ndarray
+    d: np.ndarray
+    scores: np.ndarray | None
+
+    @classmethod
+    def of(cls, x: np.ndarray, y: np.ndarray, statistic: Statistic) -> _Pairs:
+        d = x - y
+        return cls(x, y, d, _scores(statistic, d))
+
+
+def _null(pairs: _Pairs, statistic: Statistic, options: PermutationOptions, stream: Stream,
+          rows_per_batch: int, fast: bool) -> ComputedNull:
+    """The null over the 2ⁿ sign patterns: listed, by subset-sum DP, or drawn (range tasks)."""
+    n = pairs.d.size
+    arrangements = 2 ** n
+    integer = integer_scores(pairs.scores) if pairs.scores is not None else None
+    width = int(integer[0].sum()) + 1 if integer is not None else 0
+    dp_ok = integer is not None and width <= DP_WIDTH_LIMIT and n * width <= DP_WORK_LIMIT
+    path = choose_computation(arrangements, options, shortcut=dp_ok, space="sign patterns",
+                              statistic=statistic.name)
+    if path == DYNAMIC_PROGRAMMING:
+        assert integer is not None
+        values, weights = _subset_sum_null(pairs, statistic, *integer)
+        return ComputedNull(values, path, arrangements, weights)
+    if path == ENUMERATION:
+        return ComputedNull(_listed_range(pairs, statistic, rows_per_batch, fast, 0, arrangements), path,
+                            arrangements)
+    lookup = _lookup(statistic, pairs.d, pairs.scores) if fast and pairs.scores is not None \
+        and n <= TABLE_PAIRS_LIMIT else None
+    # ranges of resamples may run on other workers (engines.blocks); the same numbers
+    task = range_task(_drawn_range, pairs, statistic, stream, rows_per_batch, fast, lookup)
+    return ComputedNull(map_resamples(task, options.resamples), path, arrangements)
+
+
+def _subset_sum_null(pairs: _Pairs, statistic: Statistic, ints: np.ndarray,
+                     scale: float) -> tuple[np.ndarray, np.ndarray]:
+    """Support and counts of the exact null: each pair adds its score (positive sign) or not."""
+    counts = np.ones(1)
+    for a in ints:
+        grown = np.zeros(counts.size + int(a))
+        grown[:counts.size] += counts
+        grown[int(a):] += counts
+        counts = grown
+    keep = counts > 0
+    positive = np.flatnonzero(keep) / scale
+    d = pairs.d
+    values = positive if statistic.name == "signed_rank" else (2.0 * positive - np.abs(d).sum()) / d.size
+    return values, counts[keep]
+
+
+def _listed_range(pairs: _Pairs, statistic: Statistic, rows_per_batch: int, fast: bool,
+                  start: int, stop: int) -> np.ndarray:
+    """The statistic of sign patterns j = start … stop − 1 (bit i of j swaps pair i)."""
+    null = np.empty(stop - start)
+    for first in range(start, stop, rows_per_batch):
+        last = min(stop, first + rows_per_batch)
+        swaps = _patterns(pairs.d.size, first, last)
+        null[first - start:last - start] = _evaluate(statistic, pairs.x, pairs.y, pairs.d, pairs.scores, swaps, fast)
+    return null
+
+
+def _drawn_range(pairs: _Pairs, statistic: Statistic, stream: Stream, rows_per_batch: int, fast: bool,
+                 lookup: tuple[float, float, float, np.ndarray] | None, start: int, stop: int) -> np.ndarray:
+    """The statistic of random resamples [start, stop) (a picklable range task): swaps from the
+    stream's random bits, summed through the byte tables when ``lookup`` is given."""
+    n = pairs.d.size
+    null = np.empty(stop - start)
+    for first in range(start, stop, rows_per_batch):
+        last = min(stop, first + rows_per_batch)
+        if lookup is not None:
+            base, factor, divisor, tables = lookup
+            sums = swapped_sums(tables, swap_bytes(stream, n, first, last))
+            null[first - start:last - start] = (base + factor * sums) / divisor
+        else:
+            swaps = swap_bits(stream, n, first, last)
+            null[first - start:last - start] = _evaluate(statistic, pairs.x, pairs.y, pairs.d, pairs.scores,
+                                                         swaps, fast)
+    return null
 
 
 def _lookup(statistic: Statistic, d: np.ndarray, scores: np.ndarray) -> tuple[float, float, float, np.ndarray]:

@@ -24,6 +24,7 @@ from planrunner.compile.jobs import Job
 from planrunner.engines.blocks import RangeTask, mapping_ranges, resample_ranges
 from planrunner.engines.bootstrap import BootstrapOptions, bootstrap
 from planrunner.engines.jackknife import JackknifeOptions, jackknife
+from planrunner.engines.permcore import PermutationOptions
 from planrunner.engines.statistics import STATISTICS, Statistic, bind, get_statistic
 from planrunner.engines.streams import DRAW_BLOCK
 from planrunner.errors import EngineError, PlanrunnerError
@@ -106,9 +107,9 @@ def _run_engine(job: Job) -> Any:
 
 def job_resamples(job: Job) -> int:
     """The resamples a job draws (its share of the progress total); the jackknife draws none."""
-    if isinstance(job.options, BootstrapOptions):
+    if isinstance(job.options, (BootstrapOptions, PermutationOptions)):
         return job.options.resamples
-    return int(job.options.get("resamples", 0)) if isinstance(job.options, dict) else 0
+    return 0
 
 
 class _Tally:

@@ -5,6 +5,7 @@ from __future__ import annotations
 from typing import Any
 
 from planrunner.engines.maxt import MaxTResult, max_t
+from planrunner.engines.permcore import PermutationOptions
 from planrunner.engines.streams import stream_for
 
 
@@ -21,7 +22,10 @@ def max_t_families(plan: Any, jobs: list[Any]) -> dict[int, MaxTResult]:
             continue
         members = [by_id[i] for i in fam.family]
         first = members[0]
-        out[j] = max_t([(m.samples, m.statistic, m.options["alternative"]) for m in members], strata=first.strata,
-                       resamples=first.options["resamples"], exact=first.options["exact"],
+        options = [m.options for m in members]
+        assert all(isinstance(o, PermutationOptions) for o in options)  # the plan rules: permutation tests
+        # the plan rules give every member the same resamples and exact choice
+        out[j] = max_t([(m.samples, m.statistic, o.alternative) for m, o in zip(members, options)],
+                       strata=first.strata, resamples=options[0].resamples, exact=options[0].exact,
                        stream=stream_for(plan.seed, "max-t:" + ",".join(fam.family)))
     return out

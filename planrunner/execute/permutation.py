@@ -8,31 +8,32 @@ covariates. The shift interval (``intervals: [shift]``) is added by inverting th
 from __future__ import annotations
 
 import dataclasses
-from typing import Any
 
 from planrunner.compile.jobs import Job
 from planrunner.engines.association import association_test
 from planrunner.engines.clusters import cluster_test
 from planrunner.engines.inversion import shift_interval
+from planrunner.engines.permcore import PermutationOptions
 from planrunner.engines.permutation import permutation_test
+from planrunner.engines.results import PermutationResult
 from planrunner.engines.signflip import signflip_test
 
 
-def run_permutation(job: Job) -> Any:
-    o = job.options
-    common = dict(resamples=o["resamples"], alternative=o["alternative"], stream=job.stream, exact=o["exact"],
-                  two_sided=o.get("two_sided", "doubled"), alpha=o.get("alpha"))
+def run_permutation(job: Job) -> PermutationResult:
+    options = job.options
+    assert isinstance(options, PermutationOptions)  # compile builds it for every permutation job
     if "pairs" in job.design:
-        return signflip_test(job.samples[0], job.samples[1], job.statistic, **common)
+        return signflip_test(job.samples[0], job.samples[1], job.statistic, options, stream=job.stream)
     if "clusters" in job.design:
         x_codes, y_codes = job.design["clusters"]
-        return cluster_test(job.samples[0], job.samples[1], x_codes, y_codes, job.statistic, **common)
+        return cluster_test(job.samples[0], job.samples[1], x_codes, y_codes, job.statistic, options,
+                            stream=job.stream)
     if job.statistic.samples == 1:
-        return association_test(job.samples[0], job.statistic, covariates=job.design.get("covariates"), **common)
-    result = permutation_test(job.samples, job.statistic, strata=job.strata, **common)
-    if "shift" in o.get("intervals", ()):
-        interval, estimate = shift_interval(job.samples[0], job.samples[1], job.statistic,
-                                            confidence=o["confidence"], resamples=o["resamples"],
-                                            stream=job.stream.child(1), exact=o["exact"])
+        return association_test(job.samples[0], job.statistic, options, stream=job.stream,
+                                covariates=job.design.get("covariates"))
+    result = permutation_test(job.samples, job.statistic, options, stream=job.stream, strata=job.strata)
+    if "shift" in options.intervals:
+        interval, estimate = shift_interval(job.samples[0], job.samples[1], job.statistic, options,
+                                            stream=job.stream.child(1))
         result = dataclasses.replace(result, intervals=(interval,), shift_estimate=estimate)
     return result
