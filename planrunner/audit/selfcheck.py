@@ -90,8 +90,8 @@ def doubled_p_sd_ratio(seeds: int = 400, resamples: int = 2000) -> float:
     """
     p_values, stated = [], []
     for seed in range(seeds):
-        result = permutation_test(_mouse(), get_statistic("mean_difference"), resamples=resamples,
-                                  alternative="two-sided", exact="never",
+        result = permutation_test(_mouse(), get_statistic("mean_difference"),
+                                  PermutationOptions(resamples=resamples, alternative="two-sided", exact="never"),
                                   stream=stream_for(SELFCHECK_SEED, f"selfcheck-doubled-sd-{seed}"))
         p_values.append(result.p_value)
         stated.append(result.monte_carlo_se)
