@@ -18,13 +18,13 @@ from typing import Any
 from planrunner.record.canonical import RECORD_HASH_FIELD, differences, record_sha256
 from planrunner.compile.jobs import compile_jobs
 from planrunner.errors import PlanError, PlanrunnerError, RecordError
-from planrunner.execute.executors import Execution, execute_all
+from planrunner.execute.executors import Execution
 from planrunner.data.tables import file_sha256, resolve_data_path
 from planrunner.plan.params import apply as apply_parameters
 from planrunner.plan.params import resolve_values
 from planrunner.plan.load import read_plan
-from planrunner.record.build import FORMAT, build_record, environment
-from planrunner.pipeline.run import finish_record, load_tables
+from planrunner.record.build import FORMAT, RunFacts, build_record, environment
+from planrunner.pipeline.run import execute_plan, load_tables
 from planrunner.plan.yamlsafe import load_yaml
 from planrunner.trail.store import read_json, write_new_file
 
@@ -203,19 +203,18 @@ def verify_record(path: str | Path, *, plan: str | Path | None = None, execution
     try:
         tables = load_tables(loaded, data_root)
         jobs = compile_jobs(loaded.plan, tables)
-        results = execute_all(jobs, execution=execution)
+        results, max_t = execute_plan(loaded.plan, jobs, execution=execution)
     except PlanrunnerError as exc:
         problems.append(("datasets", f"the analyses cannot be re-run on the data as they are now: {exc}"))
         return VerifyReport(record_file, plan_file, problems, notes, [], 0, False, plan_changes)
-    rerun = build_record(loaded, tables, jobs, results, run_id=recorded["run_id"],
-                         started_utc=recorded["started_utc"], finished_utc=recorded["finished_utc"],
-                         operator=recorded["operator"], command=recorded["command"])
     # who, when, on what machine and on which executor are facts of the original run, not results
     # to reproduce (the executor never changes a number: the re-run checks that too)
-    rerun["environment"] = recorded.get("environment")
-    if "execution" in recorded:
-        rerun["execution"] = recorded["execution"]
-    finish_record(rerun, (recorded.get("plan") or {}).get("lock"), values)
+    facts = RunFacts(run_id=recorded["run_id"], started_utc=recorded["started_utc"],
+                     finished_utc=recorded["finished_utc"], operator=recorded["operator"],
+                     command=tuple(recorded["command"]), execution=recorded.get("execution"),
+                     environment=recorded.get("environment"), lock=(recorded.get("plan") or {}).get("lock"),
+                     parameters=values)
+    rerun = build_record(loaded, tables, jobs, results, max_t, facts)
     other_environment = bool(notes)
     found = [_judge(d.path, d.before, d.after, recorded, monte_carlo=other_environment)
              for d in differences({k: v for k, v in recorded.items() if k != RECORD_HASH_FIELD},

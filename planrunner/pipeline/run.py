@@ -14,22 +14,22 @@ import hashlib
 import os
 from dataclasses import dataclass, field, replace
 from pathlib import Path
-from typing import Callable
+from typing import Any, Callable
 
 from planrunner.compile import limits
 
 from planrunner.report import render as report
-from planrunner.record.canonical import RECORD_HASH_FIELD, record_sha256
 from planrunner.compile.jobs import Job, compile_jobs
 from planrunner.data.checks import check_tables
 from planrunner.execute.executors import Execution, Progress, execute_all
 from planrunner.data.tables import Table, read_table, resolve_data_path
-from planrunner.record.methods import methods_text
 from planrunner.plan.params import apply as apply_parameters
 from planrunner.plan.params import resolve_values
 from planrunner.execute.families import max_t_families
 from planrunner.plan.load import LoadedPlan, read_plan
-from planrunner.record.build import build_record, to_json
+from planrunner.plan.schema import Plan
+from planrunner.engines.maxt import MaxTResult
+from planrunner.record.build import RunFacts, build_record, to_json
 from planrunner.trail.files import append_history, lock_for_run
 from planrunner.trail.store import STAGING_PREFIX, require_plain_name, write_new_folder  # noqa: F401 (STAGING_PREFIX for callers)
 
@@ -136,29 +136,25 @@ def run_plan(path: str | Path, *, out: str | Path | None = None, operator: str |
     assert tables is not None and jobs is not None
     lock_entry = lock_for_run(loaded, tables, lock, refuse_deviations=refuse_deviations)
     execution = execution or Execution()
-    results = execute_all(jobs, execution=execution, progress=progress)
-    max_t = max_t_families(loaded.plan, jobs)
+    results, max_t = execute_plan(loaded.plan, jobs, execution=execution, progress=progress)
     finished = clock()
     run_id = _run_id(loaded, tables, started)
-    record = build_record(loaded, tables, jobs, results, run_id=run_id, started_utc=_stamp(started),
-                          finished_utc=_stamp(finished), operator=operator or default_operator(),
-                          command=command or ["planrunner", "run", str(path)], max_t=max_t,
-                          execution=execution.describe())
-    finish_record(record, lock_entry, checked.parameters)
+    facts = RunFacts(run_id=run_id, started_utc=_stamp(started), finished_utc=_stamp(finished),
+                     operator=operator or default_operator(),
+                     command=tuple(command or ["planrunner", "run", str(path)]),
+                     execution=execution.describe(), lock=lock_entry, parameters=checked.parameters)
+    record = build_record(loaded, tables, jobs, results, max_t, facts)
     out_root = Path(out) if out is not None else loaded.folder / "runs"
     folder = write_run(out_root, f"{loaded.plan.plan}-{started.strftime('%Y%m%dT%H%M%SZ')}-{run_id[:8]}", record)
     entry = append_history(out_root, record, folder.name, reason) if history else None
     return RunOutcome(folder, record, entry)
 
 
-def finish_record(record: dict, lock_entry: dict | None, parameters: dict[str, str]) -> dict:
-    """The audit fields: the lock and its deviations, parameters, methods text, and the record's own hash."""
-    record["plan"]["lock"] = lock_entry
-    record["parameters"] = dict(parameters)
-    record["methods_text"] = methods_text(record)
-    record.pop(RECORD_HASH_FIELD, None)
-    record[RECORD_HASH_FIELD] = record_sha256(record)
-    return record
+def execute_plan(plan: Plan, jobs: list[Job], *, execution: Execution | None = None,
+                 progress: Progress | None = None) -> tuple[list[Any], dict[int, MaxTResult]]:
+    """The execute stage of a run (and of verify's re-run): every analysis's result, on
+    ``execution``, and the joint max-T run of every max-t family (by family index)."""
+    return execute_all(jobs, execution=execution, progress=progress), max_t_families(plan, jobs)
 
 
 def _run_id(loaded: LoadedPlan, tables: dict[str, Table], started: dt.datetime) -> str:

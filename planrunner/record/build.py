@@ -1,33 +1,44 @@
 """The record: one JSON document that holds every number of a run and how to reproduce it.
 
-The record is the single source of truth; the HTML and Markdown reports are views of it. Field
-names follow the contract in the README (The record). Non-finite numbers never reach the JSON: they become
-null and their path is listed under `nonfinite`.
+The record is the single source of truth (field names: README, The record); the HTML and Markdown
+reports are views of it. It is built once, here, from the run's inputs and results, and nothing
+changes it afterwards:
+
+    result ──(its record adapter: bootstrap, jackknife, permutation)──▶ MethodFields
+    max-T run / members' p-values ──(families adapter)──▶ FamilyFields
+    plan + job + MethodFields + the member's part of each FamilyFields ──▶ analysis entry
+    entries + families + datasets + seed + RunFacts ──▶ record (+ methods text, own hash)
+
+Non-finite numbers never reach the JSON: they become null and their path is listed under
+`nonfinite`.
 """
 
 from __future__ import annotations
 
-import hashlib
 import importlib.metadata
 import json
 import math
 import platform
 import sys
-from typing import Any
-
-import numpy as np
+from dataclasses import dataclass, field
+from typing import Any, Callable
 
 from planrunner import __version__
 from planrunner.compile.jobs import Job
-from planrunner.engines.bootstrap import BootstrapOptions
-from planrunner.engines.streams import DRAW_BLOCK, GENERATOR
 from planrunner.data.tables import Table
-from planrunner.record.bands import RULE as MC_INTERVAL_RULE, interval_bands
-from planrunner.engines.multiplicity import METHOD_NAMES, adjust
-from planrunner.execute.families import max_t_families
-from planrunner.record.permutation import family_floor_warnings, permutation_fields
+from planrunner.engines.bootstrap import BootstrapOptions
+from planrunner.engines.maxt import MaxTResult
+from planrunner.engines.results import BootstrapResult, JackknifeResult, PermutationResult
+from planrunner.engines.streams import DRAW_BLOCK, GENERATOR
 from planrunner.plan.load import LoadedPlan
-from planrunner.record.canonical import plain_number as _f
+from planrunner.plan.schema import Analysis, Plan
+from planrunner.record.bootstrap import bootstrap_fields
+from planrunner.record.canonical import RECORD_HASH_FIELD, record_sha256
+from planrunner.record.families import FamilyFields, Member, adjusted_family_fields, max_t_family_fields
+from planrunner.record.fields import MethodFields
+from planrunner.record.jackknife import jackknife_fields
+from planrunner.record.methods import methods_text
+from planrunner.record.permutation import permutation_fields
 
 FORMAT = "planrunner.record/1"
 PACKAGES = ("numpy", "scipy", "pandas", "pydantic", "pyyaml", "jinja2", "matplotlib")
@@ -42,6 +53,26 @@ SEED_DERIVATION = (
     "SHA-256(analysis id) read as a big-endian integer and b the index of a block of "
     f"{DRAW_BLOCK} resamples; one {GENERATOR} generator per block"
 )
+SERIAL = {"executor": "serial", "workers": 1, "scheduler": None}
+
+
+@dataclass(frozen=True)
+class RunFacts:
+    """Who ran the plan, when, where and against which lock: facts of the run, not results.
+
+    ``environment`` None means this installation (verify passes the recorded one); ``execution``
+    None means serial. Neither ever changes a number.
+    """
+
+    run_id: str
+    started_utc: str
+    finished_utc: str
+    operator: str
+    command: tuple[str, ...]
+    execution: dict[str, Any] | None = None
+    environment: dict[str, Any] | None = None
+    lock: dict[str, Any] | None = None  # the record's plan.lock entry (deviations), None without a lock
+    parameters: dict[str, str] = field(default_factory=dict)
 
 
 def environment() -> dict[str, Any]:
@@ -56,57 +87,7 @@ def environment() -> dict[str, Any]:
             "packages": packages, "planrunner": __version__}
 
 
-def _histogram(values: np.ndarray, bins: int) -> dict[str, Any]:
-    finite = values[np.isfinite(values)]
-    if finite.size == 0:
-        return {"edges": [], "counts": []}
-    lo, hi = float(finite.min()), float(finite.max())
-    if lo == hi:
-        lo, hi = lo - 0.5, hi + 0.5
-    counts, edges = np.histogram(finite, bins=bins, range=(lo, hi))
-    return {"edges": [float(e) for e in edges], "counts": [int(c) for c in counts]}
-
-
-def _jsonable(value: Any) -> Any:
-    """Engine details (dicts, lists, tuples, numpy numbers) as plain JSON values."""
-    if isinstance(value, dict):
-        return {str(k): _jsonable(v) for k, v in value.items()}
-    if isinstance(value, (list, tuple)):
-        return [_jsonable(v) for v in value]
-    if isinstance(value, (str, type(None))):
-        return value
-    return _f(value)
-
-
-def _distribution(kind: str, values: np.ndarray, bins: int, weights: np.ndarray | None = None) -> dict[str, Any]:
-    values = np.asarray(values, dtype=float)
-    if weights is not None:
-        # exhaustive enumeration: every distinct resample once, with its probability
-        mean = float(np.sum(weights * values))
-        out = _distribution(kind, values, bins)
-        counts, edges = np.histogram(values, bins=len(out["histogram"]["counts"]) or 1,
-                                     range=(out["histogram"]["edges"][0], out["histogram"]["edges"][-1]),
-                                     weights=weights)
-        out.update(kind=f"{kind} (every distinct resample, weighted by its probability)", mean=mean,
-                   sd=math.sqrt(float(np.sum(weights * (values - mean) ** 2))),
-                   weights_sha256=hashlib.sha256(np.ascontiguousarray(weights, dtype="<f8").tobytes()).hexdigest(),
-                   histogram={"edges": out["histogram"]["edges"], "probabilities": [float(c) for c in counts],
-                              "counts": [int(round(c * values.size)) for c in counts]})
-        return out
-    return {
-        "kind": kind,
-        "size": int(values.size),
-        "mean": _f(values.mean()) if values.size else None,
-        "sd": _f(values.std(ddof=1)) if values.size > 1 else None,
-        "min": _f(values.min()) if values.size else None,
-        "max": _f(values.max()) if values.size else None,
-        # the hash lets anyone holding the full distribution prove it is the one behind the numbers
-        "sha256": hashlib.sha256(np.ascontiguousarray(values, dtype="<f8").tobytes()).hexdigest(),
-        "histogram": _histogram(values, bins),
-    }
-
-
-def question(analysis: Any, statistic_label: str, unit: str | None) -> str:
+def question(analysis: Analysis, statistic_label: str, unit: str | None) -> str:
     """The analysis in words, e.g. 'foam minus standard: difference in medians of minutes_above_8c'."""
     what = f"{statistic_label} of {analysis.outcome}" + (f" ({unit})" if unit else "")
     if analysis.predictor is not None:
@@ -125,11 +106,45 @@ def question(analysis: Any, statistic_label: str, unit: str | None) -> str:
     return what
 
 
-def analysis_entry(loaded: LoadedPlan, analysis: Any, job: Job, result: Any) -> dict[str, Any]:
+# the record adapter of each result type: (result, job, bins) -> MethodFields
+ADAPTERS: dict[type, Callable[[Any, Job, int], MethodFields]] = {
+    BootstrapResult: lambda result, job, bins: bootstrap_fields(
+        result, bins, save_distribution=isinstance(job.options, BootstrapOptions) and job.options.save_distribution),
+    JackknifeResult: lambda result, job, bins: jackknife_fields(result, bins),
+    PermutationResult: lambda result, job, bins: permutation_fields(result, bins),
+}
+
+
+def method_fields(result: Any, job: Job, bins: int) -> MethodFields:
+    """The result's record fields, from the adapter of its type."""
+    return ADAPTERS[type(result)](result, job, bins)
+
+
+def family_fields(plan: Plan, fields: dict[str, MethodFields],
+                  max_t: dict[int, MaxTResult]) -> list[FamilyFields]:
+    """Every multiplicity family of the plan, in plan order (``max_t``: the execute stage's joint
+    run of each max-t family, by family index)."""
+    alpha = 1.0 - plan.defaults.confidence
+    out = []
+    for j, fam in enumerate(plan.multiplicity):
+        members = [Member(i, fields[i].p_value, fields[i].smallest_p) for i in fam.family]
+        out.append(max_t_family_fields(members, alpha, max_t[j]) if fam.method == "max-t"
+                   else adjusted_family_fields(fam.method, members, alpha))
+    return out
+
+
+def analysis_entry(loaded: LoadedPlan, analysis: Analysis, job: Job, result: Any, fields: MethodFields,
+                   families: list[FamilyFields]) -> dict[str, Any]:
     """One analysis's numbers, with everything needed to re-derive them."""
     plan = loaded.plan
     unit = plan.datasets[analysis.data].columns[analysis.outcome].unit
-    entry: dict[str, Any] = {
+    adjusted, family_warnings = [], []
+    for family in families:
+        mine = family.for_member(analysis.id)
+        adjusted += mine[0]
+        family_warnings += mine[1]
+    numbers = fields.entry_fields()
+    return {
         "id": analysis.id,
         "title": analysis.title,
         "role": analysis.role,
@@ -148,117 +163,54 @@ def analysis_entry(loaded: LoadedPlan, analysis: Any, job: Job, result: Any) -> 
         "stream": job.stream.describe(),
         "n": job.counts(),
         "scheme": result.scheme,
-        "warnings": [{"code": w.code, "message": w.message} for w in (*job.warnings, *result.warnings)],
+        "warnings": [{"code": w.code, "message": w.message} for w in (*job.warnings, *result.warnings)]
+        + family_warnings,
         "statistic_parameter": None if job.statistic.parameter is None
         else {job.statistic.parameter: job.statistic.value},
         "design": {"pairs": analysis.pairs, "clusters": analysis.clusters, "order": analysis.order},
-        # fields that a method does not produce stay null, so every record has the same shape
-        "estimate": None, "standard_error": None, "bias": None, "intervals": [], "p_value": None,
-        "adjusted_p_values": [], "alternative": None, "exact": None, "resamples": None, "monte_carlo": {}, "details": {},
-        "distribution": None,
+        # fields that a method does not produce keep their defaults, so every entry has the same shape
+        **{key: numbers[key] for key in ("estimate", "standard_error", "bias", "intervals", "p_value")},
+        "adjusted_p_values": adjusted,
+        **{key: numbers[key] for key in ("alternative", "exact", "resamples", "monte_carlo", "details",
+                                         "distribution")},
     }
-    bins = plan.report.bins
-    if analysis.method == "bootstrap":
-        b = result.resamples
-        kurtosis = _kurtosis(result.distribution)
-        entry.update(
-            estimate=_f(result.estimate), standard_error=_f(result.standard_error), bias=_f(result.bias),
-            intervals=[{"method": i.method, "level": _f(i.level), "lower": _f(i.lower),
-                        "upper": _f(i.upper), "note": i.note,
-                        "quantile_levels": None if i.quantile_levels is None else [_f(v) for v in i.quantile_levels],
-                        # about 95% Monte Carlo ranges of each endpoint (null when exact or undefined)
-                        "monte_carlo": None if i.monte_carlo is None else
-                        {"lower": [_f(v) for v in i.monte_carlo[0]], "upper": [_f(v) for v in i.monte_carlo[1]]}}
-                       for i in result.intervals],
-            resamples=int(b), exact=bool(result.exact),
-            monte_carlo={
-                # MC s.d. of a B-replicate SE: SE·sqrt((κ−1)/(4B)) (V-TOL); of the bias: SE/√B
-                "standard_error_sd": _f(result.standard_error_sd),
-                "bias_sd": _f(result.bias_sd),
-                "kurtosis": _f(kurtosis),
-            },
-            details={"z0": _f(result.z0), "acceleration": _f(result.acceleration),
-                     "conventions": dict(result.conventions), **_jsonable(result.details)},
-            distribution=_distribution("bootstrap replicates", result.distribution, bins, result.weights),
-        )
-        if isinstance(job.options, BootstrapOptions) and job.options.save_distribution:
-            # every replicate in resample order; its SHA-256 (of little-endian doubles) is `sha256`
-            entry["distribution"]["values"] = [float(v) for v in result.distribution]
-            if result.weights is not None:
-                entry["distribution"]["weights"] = [float(v) for v in result.weights]
-        # Monte Carlo band and s.d. of each interval endpoint (planrunner/mcerror.py)
-        entry["monte_carlo"]["intervals"] = interval_bands(result.distribution, result.estimate, result.intervals)
-        entry["monte_carlo"]["interval_rule"] = MC_INTERVAL_RULE
-    elif analysis.method == "permutation":
-        entry.update(permutation_fields(result, bins))
-    else:
-        entry.update(
-            estimate=_f(result.estimate), standard_error=_f(result.standard_error), bias=_f(result.bias),
-            details={"corrected_estimate": _f(result.corrected_estimate), "units": [int(k) for k in result.n]},
-            distribution=_distribution("jackknife pseudo-values", np.concatenate(result.pseudo_values), bins),
-        )
-    return entry
 
 
-def _kurtosis(values: np.ndarray) -> float | None:
-    values = np.asarray(values, dtype=float)
-    centred = values - values.mean()
-    m2 = float(np.mean(centred ** 2))
-    return float(np.mean(centred ** 4) / m2 ** 2) if m2 > 0 else None
-
-
-def multiplicity_entries(plan: Any, analyses: list[dict[str, Any]],
-                         max_t: dict[int, Any] | None = None) -> list[dict[str, Any]]:
-    by_id = {a["id"]: a for a in analyses}
-    out = []
-    for j, fam in enumerate(plan.multiplicity):
-        raw = [by_id[i]["p_value"] for i in fam.family]
-        if fam.method == "max-t":
-            adjusted = list((max_t or {})[j].adjusted)
-        else:
-            adjusted = adjust([1.0 if p is None else p for p in raw], fam.method)
-        family_floor_warnings(fam, [by_id[i] for i in fam.family], 1.0 - plan.defaults.confidence,
-                              (max_t or {}).get(j))
-        out.append({"method": fam.method, "method_label": METHOD_NAMES[fam.method], "family": list(fam.family),
-                    "unadjusted": dict(zip(fam.family, raw)), "adjusted": dict(zip(fam.family, adjusted))})
-        if fam.method == "max-t" and max_t:
-            out[-1]["details"] = max_t[j].describe()
-        for i, p_adj in zip(fam.family, adjusted):
-            by_id[i]["adjusted_p_values"].append({"method": fam.method, "p_value": p_adj})
-    return out
-
-
-def build_record(loaded: LoadedPlan, tables: dict[str, Table], jobs: list[Job], results: list[Any], *,
-                 run_id: str, started_utc: str, finished_utc: str, operator: str, command: list[str],
-                 max_t: dict[int, Any] | None = None, execution: dict[str, Any] | None = None) -> dict:
+def build_record(loaded: LoadedPlan, tables: dict[str, Table], jobs: list[Job], results: list[Any],
+                 max_t: dict[int, MaxTResult], facts: RunFacts) -> dict:
+    """The record, built once: nothing edits it afterwards (its own hash covers every field)."""
     plan = loaded.plan
-    analyses = [analysis_entry(loaded, a, j, r) for a, j, r in zip(plan.analyses, jobs, results)]
-    if max_t is None and any(f.method == "max-t" for f in plan.multiplicity):
-        max_t = max_t_families(plan, jobs)
-    record = {
+    bins = plan.report.bins
+    fields = [method_fields(r, j, bins) for r, j in zip(results, jobs)]
+    families = family_fields(plan, {a.id: f for a, f in zip(plan.analyses, fields)}, max_t)
+    record = sanitize({
         "format": FORMAT,
-        "run_id": run_id,
-        "started_utc": started_utc,
-        "finished_utc": finished_utc,
-        "operator": operator,
-        "command": list(command),
+        "run_id": facts.run_id,
+        "started_utc": facts.started_utc,
+        "finished_utc": facts.finished_utc,
+        "operator": facts.operator,
+        "command": list(facts.command),
         "plan": {"id": plan.plan, "title": plan.title, "description": plan.description,
                  "file": loaded.file.name, "sha256": loaded.sha256, "text": loaded.text, "lock": None},
         "datasets": [{"name": t.name, "file": t.file, "sha256": t.sha256, "bytes": t.bytes,
                       "rows_read": t.rows_read, "rows_used": t.rows_used, "ignored_columns": list(t.ignored_columns),
                       "excluded": [{"reason": e.reason, "rows": e.rows, "first_lines": list(e.lines)}
                                    for e in t.excluded]} for t in tables.values()],
-        "environment": environment(),
+        "environment": environment() if facts.environment is None else facts.environment,
         "seed": {"root": plan.seed, "generator": GENERATOR, "derivation": SEED_DERIVATION,
                  "draw_block": DRAW_BLOCK},
-        "analyses": analyses,
-        "multiplicity": multiplicity_entries(plan, analyses, max_t),
+        "analyses": [analysis_entry(loaded, a, j, r, f, families)
+                     for a, j, r, f in zip(plan.analyses, jobs, results, fields)],
+        "multiplicity": [family.entry for family in families],
         "report": {"note": plan.report.note, "bins": plan.report.bins},
         "caution": CAUTION,
         # how the jobs were run (executor, workers); informational, it never changes a number
-        "execution": execution or {"executor": "serial", "workers": 1, "scheduler": None},
-    }
-    return sanitize(record)
+        "execution": facts.execution or SERIAL,
+    })
+    # the audit fields come after `nonfinite`: the lock and the parameters are stated as they are
+    audited = {**record, "plan": {**record["plan"], "lock": facts.lock}, "parameters": dict(facts.parameters)}
+    described = {**audited, "methods_text": methods_text(audited)}
+    return {**described, RECORD_HASH_FIELD: record_sha256(described)}
 
 
 def sanitize(record: dict) -> dict:

@@ -1,4 +1,4 @@
-"""Record fields of permutation-type results and the family-level warnings (called by `record`).
+"""Record adapter of permutation-type results (`PermutationResult`) and of the shift interval.
 
 Every p-value keeps the counts behind it: ``count_greater_equal`` and ``count_less_equal`` (and
 ``count_absolute`` for the absolute two-sided rule) out of ``arrangements`` (exact) or
@@ -14,8 +14,9 @@ from typing import Any
 
 import numpy as np
 
-from planrunner.engines.multiplicity import adjust
+from planrunner.engines.results import PermutationResult
 from planrunner.record.canonical import plain_number as _f
+from planrunner.record.fields import MethodFields
 
 
 def _count(x: Any) -> Any:
@@ -50,49 +51,42 @@ def weighted_distribution(kind: str, values: np.ndarray, weights: np.ndarray | N
                           "counts": [float(c) if weights is not None else int(c) for c in counts]}}
 
 
-def permutation_fields(result: Any, bins: int) -> dict[str, Any]:
-    """The analysis-entry fields of a PermutationResult (field names: README, The record)."""
+def permutation_fields(result: PermutationResult, bins: int) -> MethodFields:
+    """The analysis-entry fields of a permutation-type test (labels shuffled, signs flipped, clusters
+    shuffled, association), with the shift interval when the test was inverted for one."""
     exact = bool(result.exact)
-    weights = result.null_weights
     interval = result.p_interval
-    fields: dict[str, Any] = {
-        "estimate": _f(result.observed), "p_value": _f(result.p_value), "alternative": result.alternative,
-        "exact": exact, "resamples": int(result.resamples),
-        "monte_carlo": {"p_value_sd": 0.0 if exact else _f(result.monte_carlo_se),
-                        "p_value_interval": None if interval is None else
-                        {"method": "Clopper–Pearson", "level": 0.99, "lower": interval[0], "upper": interval[1]}},
-        "details": {
-            "observed": _f(result.observed), "count_greater_equal": _count(result.count_greater),
-            "count_less_equal": _count(result.count_less), "count_absolute": _count(result.count_absolute),
-            "p_greater": _f(result.p_greater), "p_less": _f(result.p_less), "centre": _f(result.centre),
-            "arrangements": int(result.arrangements), "computation": result.computation,
-            "two_sided_rule": result.two_sided_rule, "tolerance": _f(result.tolerance),
-            "smallest_p": _f(result.smallest_p),
-            "p_value_rule": "count / arrangements (exact)" if exact
-            else "(count + 1) / (resamples + 1) (Monte Carlo)",
-            "design": {k: _f(v) for k, v in result.design.items()},
-            "conventions": dict(result.conventions),
-        },
-        "distribution": weighted_distribution("permutation null", result.null, weights, bins),
+    details: dict[str, Any] = {
+        "observed": _f(result.observed), "count_greater_equal": _count(result.count_greater),
+        "count_less_equal": _count(result.count_less), "count_absolute": _count(result.count_absolute),
+        "p_greater": _f(result.p_greater), "p_less": _f(result.p_less), "centre": _f(result.centre),
+        "arrangements": int(result.arrangements), "computation": result.computation,
+        "two_sided_rule": result.two_sided_rule, "tolerance": _f(result.tolerance),
+        "smallest_p": _f(result.smallest_p),
+        "p_value_rule": "count / arrangements (exact)" if exact
+        else "(count + 1) / (resamples + 1) (Monte Carlo)",
+        "design": {k: _f(v) for k, v in result.design.items()},
+        "conventions": dict(result.conventions),
     }
+    intervals: tuple[dict[str, Any], ...] = ()
     if result.intervals:
-        fields["intervals"] = [{"method": i.method, "level": _f(i.level), "lower": _f(i.lower), "upper": _f(i.upper),
-                                "note": i.note} for i in result.intervals]
-        fields["details"]["shift_estimate"] = _f(result.shift_estimate)
-    return fields
+        intervals, shift_details = shift_interval_fields(result)
+        details.update(shift_details)
+    return MethodFields(
+        estimate=_f(result.observed), p_value=_f(result.p_value), alternative=result.alternative,
+        exact=exact, resamples=int(result.resamples), intervals=intervals,
+        monte_carlo={"p_value_sd": 0.0 if exact else _f(result.monte_carlo_se),
+                     "p_value_interval": None if interval is None else
+                     {"method": "Clopper–Pearson", "level": 0.99, "lower": interval[0], "upper": interval[1]}},
+        details=details,
+        distribution=weighted_distribution("permutation null", result.null, result.null_weights, bins),
+        smallest_p=_f(result.smallest_p),
+    )
 
 
-def family_floor_warnings(fam: Any, members: list[dict[str, Any]], alpha: float, max_t: Any = None) -> None:
-    """Warn each member whose smallest attainable p-value, adjusted with the family, exceeds alpha."""
-    floors = [m["details"].get("smallest_p") if m["method"] == "permutation" else None for m in members]
-    if all(f is None for f in floors):
-        return
-    filled = [0.0 if f is None else float(f) for f in floors]
-    adjusted = list(max_t.smallest_adjusted) if max_t is not None else adjust(filled, fam.method)
-    for member, floor, floor_adj in zip(members, floors, adjusted):
-        if floor is not None and floor_adj > alpha:
-            member["warnings"].append({
-                "code": "adjusted-p-floor-above-alpha",
-                "message": f"after {fam.method} adjustment over {len(members)} analyses the smallest attainable "
-                           f"p-value is {floor_adj:.4g} (unadjusted {floor:.4g}), above alpha = {alpha:g}: "
-                           "this analysis cannot reach significance in its family"})
+def shift_interval_fields(result: PermutationResult) -> tuple[tuple[dict[str, Any], ...], dict[str, Any]]:
+    """Record adapter of the shift interval (the two-group test inverted): its intervals and the
+    details it adds (the shift estimate)."""
+    intervals = tuple({"method": i.method, "level": _f(i.level), "lower": _f(i.lower), "upper": _f(i.upper),
+                       "note": i.note} for i in result.intervals)
+    return intervals, {"shift_estimate": _f(result.shift_estimate)}
