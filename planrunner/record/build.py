@@ -54,6 +54,7 @@ SEED_DERIVATION = (
     f"{DRAW_BLOCK} resamples; one {GENERATOR} generator per block"
 )
 SERIAL = {"executor": "serial", "workers": 1, "scheduler": None}
+Result = BootstrapResult | JackknifeResult | PermutationResult  # every engine result has an adapter
 
 
 @dataclass(frozen=True)
@@ -76,7 +77,7 @@ class RunFacts:
 
 
 def environment() -> dict[str, Any]:
-    packages = {}
+    packages: dict[str, str | None] = {}
     for name in PACKAGES:
         try:
             packages[name] = importlib.metadata.version(name)
@@ -115,7 +116,7 @@ ADAPTERS: dict[type, Callable[[Any, Job, int], MethodFields]] = {
 }
 
 
-def method_fields(result: Any, job: Job, bins: int) -> MethodFields:
+def method_fields(result: Result, job: Job, bins: int) -> MethodFields:
     """The result's record fields, from the adapter of its type."""
     return ADAPTERS[type(result)](result, job, bins)
 
@@ -133,7 +134,7 @@ def family_fields(plan: Plan, fields: dict[str, MethodFields],
     return out
 
 
-def analysis_entry(loaded: LoadedPlan, analysis: Analysis, job: Job, result: Any, fields: MethodFields,
+def analysis_entry(loaded: LoadedPlan, analysis: Analysis, job: Job, result: Result, fields: MethodFields,
                    families: list[FamilyFields]) -> dict[str, Any]:
     """One analysis's numbers, with everything needed to re-derive them."""
     plan = loaded.plan
@@ -176,7 +177,7 @@ def analysis_entry(loaded: LoadedPlan, analysis: Analysis, job: Job, result: Any
     }
 
 
-def build_record(loaded: LoadedPlan, tables: dict[str, Table], jobs: list[Job], results: list[Any],
+def build_record(loaded: LoadedPlan, tables: dict[str, Table], jobs: list[Job], results: list[Result],
                  max_t: dict[int, MaxTResult], facts: RunFacts) -> dict:
     """The record, built once: nothing edits it afterwards (its own hash covers every field)."""
     plan = loaded.plan
