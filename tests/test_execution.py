@@ -65,6 +65,59 @@ def test_demo_plan_identical_serial_threads_processes_and_dask(demo: Path, tmp_p
             _compare(a, b)
 
 
+def _scheme_plan(write_plan) -> Path:
+    """A plan with every bootstrap scheme that draws: blocks, parametric, studentized (inner
+    jackknife, analytic and nested bootstrap), clusters, pairs and exhaustive enumeration."""
+    rng = np.random.default_rng(31)  # invented readings; the test compares executors, not values
+    rows = ["day,reading,arm,pair,site"] + [
+        f"{d},{20 + 0.3 * np.sin(d / 3) + rng.normal(0, 1):.3f},{'ab'[d % 2]},{d // 2},{d % 8}" for d in range(48)]
+    two_arms = "groups: {by: arm, compare: [a, b]}"
+    analyses = [
+        ("moving", "d", "mean", "resamples: 2500, order: day, blocks: {scheme: moving, length: 5}"),
+        ("stationary", "d", "median", "resamples: 2500, order: day, blocks: {scheme: stationary, length: 4}"),
+        ("normal-model", "d", "mean", "resamples: 2500, parametric: normal, intervals: [percentile, studentized]"),
+        ("t-jackknife", "d", "mean", "resamples: 1500, intervals: [percentile, studentized], "
+                                     "studentized_se: jackknife"),
+        ("t-nested", "d", "mean_difference", f"resamples: 1200, {two_arms}, intervals: [studentized], "
+                                             "studentized_se: bootstrap, inner_resamples: 20"),
+        ("t-pairs", "d", "mean_difference", f"resamples: 1500, {two_arms}, pairs: pair, "
+                                            "intervals: [percentile, studentized], studentized_se: jackknife"),
+        # a bound statistic seen as pairs travels to worker processes by value
+        ("pair-quantile", "d", "quantile_difference", f"resamples: 1500, quantile: 0.5, {two_arms}, pairs: pair"),
+        ("sites", "d", "mean_difference", f"resamples: 2500, {two_arms}, clusters: site"),
+        ("enumerated", "six", "mean", "resamples: 999, exhaustive: true, intervals: [percentile, studentized]"),
+    ]
+    text = "\n".join([
+        "plan: schemes", "title: Every bootstrap scheme on every executor", "seed: 8080", "datasets:",
+        "  d:", "    file: d.csv", "    columns:", "      day: {type: integer}", "      reading: {type: number}",
+        "      arm: {type: category, levels: [a, b]}", "      pair: {type: integer}", "      site: {type: integer}",
+        "  six:", "    file: six.csv", "    columns:", "      reading: {type: number}", "analyses:",
+        *(f"  - {{id: {name}, data: {data}, outcome: reading, statistic: {statistic}, method: bootstrap, {rest}}}"
+          for name, data, statistic, rest in analyses)])
+    return write_plan(text, {"d.csv": "\n".join(rows) + "\n", "six.csv": "reading\n3.1\n4.7\n2.2\n5.9\n4.4\n3.8\n"})
+
+
+def test_every_bootstrap_scheme_identical_serial_threads_processes_and_dask(write_plan, tmp_path: Path) -> None:
+    pytest.importorskip("distributed")
+    plan = _scheme_plan(write_plan)
+    executions = [Execution(), Execution("threads", 2), Execution("processes", 2), Execution("dask", 2)]
+    records = [run_plan(plan, out=tmp_path / f"out-{e.executor}", clock=fixed_clock, execution=e).record
+               for e in executions]
+    analyses = {a["id"]: a for a in records[0]["analyses"]}
+    assert analyses["moving"]["scheme"] == "moving-block bootstrap, block length 5"
+    assert analyses["stationary"]["scheme"] == "stationary bootstrap, mean block length 4"
+    assert analyses["normal-model"]["scheme"].startswith("parametric: normal model")
+    assert analyses["t-nested"]["details"]["studentized_se"]["method"] == "bootstrap"
+    assert analyses["t-pairs"]["scheme"] == "whole pairs resampled"
+    assert analyses["sites"]["scheme"].startswith("whole clusters resampled")
+    assert analyses["enumerated"]["resamples"] == 462  # identity: C(2n - 1, n) distinct resamples, n = 6
+    assert all(a["intervals"] and a["intervals"][-1]["lower"] is not None for a in analyses.values())
+    for other in records[1:]:
+        _compare(records[0], other)
+        for a, b in zip(records[0]["analyses"], other["analyses"]):  # lists of dicts: field by field
+            _compare(a, b)
+
+
 def test_progress_counts_every_resample_once(demo: Path) -> None:
     jobs = check_plan(demo).jobs
     assert jobs is not None

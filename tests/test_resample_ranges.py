@@ -51,6 +51,35 @@ def test_bootstrap_split_ranges_are_bit_identical(name, strata):
     assert split.distribution.tobytes() == whole.distribution.tobytes()
 
 
+SERIES = np.cumsum(RNG.normal(size=90)) * 0.2 + 5.0  # invented, serially dependent
+
+
+@pytest.mark.parametrize("name, options, design", [
+    ("mean", dict(blocks=("moving", 7)), {}),
+    ("median", dict(blocks=("stationary", 5)), {}),
+    ("mean", dict(blocks=("circular", 4)), {}),
+    ("mean", dict(parametric="normal", intervals=("percentile", "studentized")), {}),
+    ("mean", dict(intervals=("studentized",), studentized_se="jackknife"), {}),
+    ("mean", dict(intervals=("studentized",), studentized_se="bootstrap", inner_resamples=12), {}),
+    ("mean", dict(intervals=("percentile",)), {"clusters": (np.arange(90) % 12,)}),
+    ("mean", dict(exhaustive=True, intervals=("percentile", "studentized")), {"short": True}),
+])
+def test_every_bootstrap_scheme_split_ranges_are_bit_identical(name, options, design):
+    """Blocks, parametric, studentized (inner jackknife, analytic, nested), clusters and exhaustive
+    draws go through the range mapper and give the same numbers when split."""
+    data = (SERIES[:6],) if design.pop("short", False) else (SERIES,)
+    settings = BootstrapOptions(**{"resamples": 2100, "confidence": 0.9, "intervals": ("percentile",), **options})
+    whole = bootstrap(data, get_statistic(name), settings, stream=stream_for(9, name), **design)
+    seen: list = []
+    with mapping_ranges(out_of_order(seen)):
+        split = bootstrap(data, get_statistic(name), settings, stream=stream_for(9, name), **design)
+    total = 462 if settings.exhaustive else 2100  # exhaustive: C(11, 6) distinct resamples (identity)
+    assert seen == [resample_ranges(total, 3)]  # the scheme's draws went through the mapper
+    assert split.distribution.tobytes() == whole.distribution.tobytes()
+    assert [(i.lower, i.upper) for i in split.intervals] == [(i.lower, i.upper) for i in whole.intervals]
+    assert all(i.lower is not None for i in whole.intervals)
+
+
 def test_monte_carlo_permutation_split_ranges_are_bit_identical():
     statistic = get_statistic("mean_difference")
     groups = (RNG.normal(size=40), RNG.normal(0.3, size=35))

@@ -12,6 +12,11 @@ Resampling schemes (``BootstrapResult.scheme`` names the one used; draw contract
 * exhaustive ("ideal"): every distinct resample once with its multinomial probability (exact;
   only when the count C(2n − 1, n), multiplied over cells, is at most ``EXHAUSTIVE_LIMIT``).
 
+How it runs: :func:`bootstrap` checks the options, prepares the data (pairs, strata, the estimate),
+lets the scheme chosen from :data:`SCHEMES` draw, and summarises. Every scheme hands its draws to
+``blocks.map_resamples`` as a range task, so an executor may compute ranges of resamples on other
+workers with the same numbers.
+
 Memory: a batch holds at most about ``batch_elements`` draws (at least one row); the numbers do
 not depend on the batch size.
 
@@ -42,7 +47,7 @@ Conventions (also returned in ``BootstrapResult.conventions``):
 from __future__ import annotations
 
 import math
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass, fields, replace
 from typing import Any
 
@@ -52,7 +57,7 @@ from scipy.special import ndtri
 from planrunner.errors import EngineError
 from planrunner.engines import schemes
 from planrunner.engines.blocks import bind as range_task
-from planrunner.engines.blocks import map_resamples
+from planrunner.engines.blocks import RangeTask, map_resamples
 from planrunner.engines.intervals import INTERVAL_METHODS, Summary, bca_levels, quantile_rank, read_quantile
 from planrunner.engines.jackknife import SMALL_SAMPLE, cluster_replicates, jackknife_replicates
 from planrunner.engines.results import BootstrapResult, EngineWarning, Interval, frozen_array
@@ -139,20 +144,30 @@ def percentile_of_score(distribution: np.ndarray, score: float, tolerance: float
     return (np.count_nonzero(below) + np.count_nonzero(at_or_below)) / (2.0 * distribution.shape[0])
 
 
+class _PairCompute:
+    """A two-group statistic computed on (first, second) rows; a class, so that it pickles."""
+
+    def __init__(self, statistic: Statistic):
+        self.statistic = statistic
+
+    def __call__(self, xy: np.ndarray) -> np.ndarray:
+        return self.statistic.compute(xy[..., 0, :], xy[..., 1, :])
+
+
+def _paired_mean_se(xy: np.ndarray) -> np.ndarray:
+    # a difference of paired means is the mean of the paired differences: its SE is sd(d)/√n
+    # (the two-group formula would ignore the pairing)
+    d = xy[..., 0, :] - xy[..., 1, :]
+    return np.std(d, axis=-1, ddof=1) / np.sqrt(d.shape[-1])
+
+
 def _pair_statistic(statistic: Statistic) -> Statistic:
     """A two-group statistic seen as a one-sample statistic of (first, second) rows."""
-    def compute(xy: np.ndarray) -> np.ndarray:
-        return statistic.compute(xy[..., 0, :], xy[..., 1, :])
-
-    se = formula = None
-    if statistic.form == "mean":
-        # a difference of paired means is the mean of the paired differences: its SE is sd(d)/√n
-        # (the two-group formula would ignore the pairing)
-        def se(xy: np.ndarray) -> np.ndarray:
-            d = xy[..., 0, :] - xy[..., 1, :]
-            return np.std(d, axis=-1, ddof=1) / np.sqrt(d.shape[-1])
-        formula = "sd(paired differences) / sqrt(n), divisor n - 1"
-    return replace(statistic, samples=1, columns=2, compute=compute, se=se, se_formula=formula, form=None)
+    paired_mean = statistic.form == "mean"
+    return replace(statistic, samples=1, columns=2, compute=_PairCompute(statistic),
+                   se=_paired_mean_se if paired_mean else None,
+                   se_formula="sd(paired differences) / sqrt(n), divisor n - 1" if paired_mean else None,
+                   form=None, maker=None, se_maker=None)  # bound already; no makers, so that it pickles
 
 
 @dataclass(frozen=True)
@@ -194,304 +209,452 @@ def bootstrap(samples: Sequence[np.ndarray], statistic: Statistic, options: Boot
     ``strata`` / ``clusters``: optional integer codes per group. ``paired``: the two groups are
     aligned pairs (row i of each). ``batch_elements``: about the most draws held at once.
     """
-    resamples, confidence, intervals = options.resamples, options.confidence, options.intervals
-    studentized_se, inner_resamples = options.studentized_se, options.inner_resamples
-    on_degenerate, blocks, parametric = options.on_degenerate, options.blocks, options.parametric
-    trials, exhaustive = options.trials, options.exhaustive
-    if resamples < 2:
-        raise EngineError(f"resamples must be at least 2, got {resamples}", hint="use 999 or more")
-    if not 0.0 < confidence < 1.0:
-        raise EngineError(f"confidence must lie strictly between 0 and 1, got {confidence}")
-    unknown = [m for m in intervals if m not in INTERVAL_METHODS]
+    scheme = SCHEMES[_scheme_name(options, clusters is not None)]
+    _check_options(options, scheme, strata is not None, clusters is not None, paired, batch_elements)
+    prepared = _prepare(samples, statistic, options, scheme, strata, clusters, paired)
+    drawn = scheme.draw(prepared, options, stream, batch_elements)
+    return _summarise(prepared, options, drawn, batch_elements)
+
+
+# ------------------------------------------------------------------ validate
+
+
+@dataclass(frozen=True)
+class Prepared:
+    """The checked data of one bootstrap, as every scheme reads them."""
+
+    data: tuple[np.ndarray, ...]  # one array per group; pairs: one (n, 2) array of (first, second)
+    codes: tuple[np.ndarray, ...] | None  # stratum codes per group
+    cluster_codes: tuple[np.ndarray, ...] | None
+    statistic: Statistic  # the one evaluated (pairs: the one-sample view of the declared statistic)
+    declared: Statistic  # as the plan names it (its label and smoothness go into warnings)
+    paired: bool
+    n: tuple[int, ...]
+    inner: str | None  # how each resample's standard error is found for a studentized interval
+    lay: schemes.Layout  # the observations cell by cell (every scheme's small-sample checks read it)
+    whole: tuple[np.ndarray, ...]  # the data in the statistic's layout
+    estimate: float
+
+
+def _check_options(options: BootstrapOptions, scheme: Scheme, stratified: bool, clustered: bool, paired: bool,
+                   batch_elements: int) -> None:
+    if options.resamples < 2:
+        raise EngineError(f"resamples must be at least 2, got {options.resamples}", hint="use 999 or more")
+    if not 0.0 < options.confidence < 1.0:
+        raise EngineError(f"confidence must lie strictly between 0 and 1, got {options.confidence}")
+    unknown = [m for m in options.intervals if m not in INTERVAL_METHODS]
     if unknown:
         raise EngineError(f"unknown interval method(s) {', '.join(map(repr, unknown))}",
                           hint=f"known: {', '.join(INTERVAL_METHODS)}")
-    if on_degenerate not in DEGENERATE_CHOICES:
-        raise EngineError(f"on_degenerate must be one of {', '.join(DEGENERATE_CHOICES)}, got {on_degenerate!r}")
+    if options.on_degenerate not in DEGENERATE_CHOICES:
+        raise EngineError(f"on_degenerate must be one of {', '.join(DEGENERATE_CHOICES)}, "
+                          f"got {options.on_degenerate!r}")
     if batch_elements < 1:
         raise ValueError("batch_elements must be >= 1")
-    chosen = [k for k, v in (("strata", strata), ("clusters", clusters), ("pairs", paired or None),
-                             ("blocks", blocks), ("parametric", parametric), ("exhaustive", exhaustive or None))
-              if v is not None]
+    chosen = [key for key, given in (("strata", stratified), ("clusters", clustered), ("pairs", paired),
+                                     ("blocks", options.blocks is not None),
+                                     ("parametric", options.parametric is not None),
+                                     ("exhaustive", options.exhaustive)) if given]
     allowed = [{"strata", "clusters"}, {"strata", "pairs"}, {"strata", "exhaustive"},
                {"pairs", "exhaustive"}, {"strata", "pairs", "exhaustive"}]
     if len(chosen) > 1 and set(chosen) not in allowed:
         raise EngineError(f"the bootstrap cannot combine {' and '.join(chosen)}")
-    dependent = blocks is not None or parametric is not None
-    if dependent and "bca" in intervals:
-        why = ("for time-ordered data the iid jackknife acceleration ignores the dependence"
-               if blocks is not None else "the parametric bootstrap has no nonparametric jackknife acceleration")
-        raise EngineError(f"BCa is refused: {why}", hint="use percentile, basic or normal intervals")
-    if blocks is not None and "studentized" in intervals:
-        raise EngineError("studentized intervals are refused for blocks: the per-resample standard error "
-                          "would assume independent rows", hint="use percentile, basic or normal intervals")
-    if clusters is not None and "studentized" in intervals:
-        raise EngineError("studentized intervals are not available with clusters",
-                          hint="use percentile, basic, normal or bca intervals")
+    for interval, message, hint in scheme.refused:
+        if interval in options.intervals:
+            raise EngineError(message, hint=hint)
 
+
+def _prepare(samples: Sequence[np.ndarray], statistic: Statistic, options: BootstrapOptions, scheme: Scheme,
+             strata: Sequence[np.ndarray] | None, clusters: Sequence[np.ndarray] | None,
+             paired: bool) -> Prepared:
     data = check_samples(samples, statistic, method="the bootstrap")
     codes = check_strata(strata, data)
     cluster_codes = check_strata(clusters, data)
     work = statistic
     if paired:
-        if statistic.samples != 2 or statistic.columns != 1:
-            raise EngineError(f"pairs need a two-group statistic of one column; {statistic.name!r} is not")
-        if data[0].shape[0] != data[1].shape[0]:
-            raise EngineError(f"pairs need as many rows in each group, got {data[0].shape[0]} and {data[1].shape[0]}")
-        if codes is not None:
-            if not np.array_equal(codes[0], codes[1]):
-                raise EngineError("the two rows of a pair lie in different strata",
-                                  hint="a pair must lie inside one stratum")
-            codes = (codes[0],)
-        data = (np.ascontiguousarray(np.column_stack(data)),)
+        data, codes = _as_pairs(data, codes, statistic)
         work = _pair_statistic(statistic)
     n = tuple(int(a.shape[0]) for a in data)
-
-    inner = None
-    if "studentized" in intervals:
-        inner = studentized_se or ("analytic" if work.se is not None else None)
-        if inner is None:
-            raise EngineError(f"the {statistic.label} has no analytic standard error",
-                              hint="declare studentized_se: jackknife (B x n extra evaluations)")
-        if inner == "analytic" and work.se is None:
-            raise EngineError(f"the {statistic.label} has no analytic standard error",
-                              hint="declare studentized_se: jackknife")
-        if inner == "jackknife" and min(n) < 2:
-            raise EngineError("the inner jackknife needs at least two observations per group")
-        if inner == "bootstrap":
-            if exhaustive or parametric is not None or blocks is not None or clusters is not None:
-                raise EngineError("the nested bootstrap standard error is available for the row, strata and "
-                                  "pairs schemes only", hint="use studentized_se: jackknife")
-            if inner_resamples < 10:
-                raise EngineError(f"inner_resamples must be at least 10, got {inner_resamples}")
-
-    whole = [to_compute_layout(a) for a in data]
+    inner = _inner_se(options, scheme, work, statistic, n)
+    whole = tuple(to_compute_layout(a) for a in data)
     estimate = float(work.compute(*whole))
     if not math.isfinite(estimate):
         raise EngineError(f"the statistic {statistic.name!r} is not finite on the data")
+    return Prepared(data, codes, cluster_codes, work, statistic, paired, n, inner, schemes.layout(data, codes),
+                    whole, estimate)
 
-    details: dict[str, Any] = {}
-    weights = None
-    se_star = None
-    lay = schemes.layout(data, codes)
-    cl = None
-    warnings: list[EngineWarning] = []
-    if exhaustive:
-        distribution, weights, se_star = schemes.enumerate_cells(lay, work, batch_elements, inner)
-        details["distinct_resamples"] = int(distribution.shape[0])
-        details["exhaustive_limit"] = schemes.EXHAUSTIVE_LIMIT
-        resamples = int(distribution.shape[0])
-        scheme = "exhaustive enumeration of every distinct resample" + (" of pairs" if paired else "") + (
-            " within group × stratum cells" if codes is not None else "")
-    elif parametric is not None:
-        if parametric not in schemes.MODELS:
-            raise EngineError(f"unknown model {parametric!r}", hint=f"one of: {', '.join(schemes.MODELS)}")
-        if parametric == "binomial" and (trials is None or trials < 1):
-            raise EngineError("the binomial model needs the number of trials (at least 1)")
-        if statistic.columns > 2 or (statistic.columns == 2 and parametric != "normal"):
-            raise EngineError("the parametric bootstrap of two columns needs the (bivariate) normal model")
-        fits = [schemes.fit_model(a, parametric, trials, g) for g, a in enumerate(data)]
-        details["model"] = parametric
-        details["fitted_parameters"] = fits
-        details["fit"] = {"normal": "maximum likelihood: mean, sd with divisor n" if statistic.columns == 1
-                          else "maximum likelihood: mean vector, covariance with divisor n (bivariate normal)",
-                          "exponential": "maximum likelihood: mean", "poisson": "maximum likelihood: rate = mean",
-                          "binomial": "maximum likelihood: p = mean / trials"}[parametric]
-        distribution, se_star = schemes.draw_parametric(data, work, resamples, stream, batch_elements,
-                                                        model=parametric, fits=fits, inner=inner)
-        scheme = f"parametric: {parametric} model fitted by maximum likelihood" + (
-            ", each group separately" if len(data) > 1 else "")
-    elif blocks is not None:
-        kind, length = blocks
-        if kind not in schemes.BLOCK_SCHEMES:
-            raise EngineError(f"unknown block scheme {kind!r}", hint=f"one of: {', '.join(schemes.BLOCK_SCHEMES)}")
-        if length < 1:
-            raise EngineError(f"the block length must be at least 1, got {length}")
-        distribution = schemes.draw_blocks(data, work, resamples, stream, batch_elements, scheme=kind, length=length)
-        details["blocks"] = {"scheme": kind, ("mean_length" if kind == "stationary" else "length"): length}
-        scheme = (f"stationary bootstrap, mean block length {length}" if kind == "stationary"
-                  else f"{kind}-block bootstrap, block length {length}") + (
-            ", each group separately" if len(data) > 1 else "")
-    elif cluster_codes is not None:
-        cl = schemes.cluster_layout(data, cluster_codes, codes)
-        distribution = schemes.draw_clusters(data, cl, work, resamples, stream, batch_elements)
-        counts = [int(np.sum(cl.slot_group == g)) for g in range(len(data))]
-        details["clusters"] = counts
-        scheme = "whole clusters resampled" + (" within strata" if codes is not None else "") + (
-            ", each group separately" if len(data) > 1 else "")
-        few = [f"group {g + 1} ({k} clusters)" for g, k in enumerate(counts) if k < SMALL_SAMPLE]
-        if few:
-            warnings.append(EngineWarning(
-                "few-clusters", f"fewer than {SMALL_SAMPLE} clusters in {', '.join(few)}: the cluster bootstrap "
-                "distribution is coarse and its intervals tend to be too narrow"))
+
+def _as_pairs(data: tuple[np.ndarray, ...], codes: tuple[np.ndarray, ...] | None,
+              statistic: Statistic) -> tuple[tuple[np.ndarray, ...], tuple[np.ndarray, ...] | None]:
+    """The two aligned groups as one sample of (first, second) rows, and its stratum codes."""
+    if statistic.samples != 2 or statistic.columns != 1:
+        raise EngineError(f"pairs need a two-group statistic of one column; {statistic.name!r} is not")
+    if data[0].shape[0] != data[1].shape[0]:
+        raise EngineError(f"pairs need as many rows in each group, got {data[0].shape[0]} and {data[1].shape[0]}")
+    if codes is not None:
+        if not np.array_equal(codes[0], codes[1]):
+            raise EngineError("the two rows of a pair lie in different strata",
+                              hint="a pair must lie inside one stratum")
+        codes = (codes[0],)
+    return (np.ascontiguousarray(np.column_stack(data)),), codes
+
+
+def _inner_se(options: BootstrapOptions, scheme: Scheme, work: Statistic, statistic: Statistic,
+              n: tuple[int, ...]) -> str | None:
+    """How each resample's standard error is found (None without a studentized interval)."""
+    if "studentized" not in options.intervals:
+        return None
+    inner = options.studentized_se or ("analytic" if work.se is not None else None)
+    if inner is None:
+        raise EngineError(f"the {statistic.label} has no analytic standard error",
+                          hint="declare studentized_se: jackknife (B x n extra evaluations)")
+    if inner == "analytic" and work.se is None:
+        raise EngineError(f"the {statistic.label} has no analytic standard error",
+                          hint="declare studentized_se: jackknife")
+    if inner == "jackknife" and min(n) < 2:
+        raise EngineError("the inner jackknife needs at least two observations per group")
+    if inner == "bootstrap":
+        if not scheme.nested_se:
+            raise EngineError("the nested bootstrap standard error is available for the row, strata and "
+                              "pairs schemes only", hint="use studentized_se: jackknife")
+        if options.inner_resamples < 10:
+            raise EngineError(f"inner_resamples must be at least 10, got {options.inner_resamples}")
+    return inner
+
+
+# ------------------------------------------------------------------ draw (the scheme table)
+
+
+@dataclass(frozen=True)
+class Drawn:
+    """What a scheme's draws give: the replicates in resample order, and how they were drawn."""
+
+    distribution: np.ndarray
+    se_star: np.ndarray | None  # each resample's standard error (studentized intervals)
+    scheme: str  # the scheme in words, for the record
+    details: dict[str, Any]
+    warnings: tuple[EngineWarning, ...] = ()
+    weights: np.ndarray | None = None  # exhaustive: each distinct resample's probability
+    clusters: schemes.ClusterLayout | None = None  # the clusters scheme's layout (BCa reads it)
+
+
+def _mapped(task: RangeTask, total: int, inner: str | None) -> tuple[np.ndarray, np.ndarray | None]:
+    """The replicates (and inner standard errors) of resamples [0, total), whose ranges an executor
+    may compute anywhere (``engines.blocks``): the numbers are the same."""
+    joined = map_resamples(task, total)
+    if inner is None:
+        return joined, None
+    return np.ascontiguousarray(joined[:, 0]), np.ascontiguousarray(joined[:, 1])
+
+
+def _each_group(data: tuple[np.ndarray, ...]) -> str:
+    return ", each group separately" if len(data) > 1 else ""
+
+
+def _draw_cells(p: Prepared, options: BootstrapOptions, stream: Stream, batch_elements: int) -> Drawn:
+    task = range_task(schemes.cells_range, p.lay, p.statistic, stream, batch_elements, p.inner,
+                      options.inner_resamples)
+    distribution, se_star = _mapped(task, options.resamples, p.inner)
+    if p.paired:
+        words = "whole pairs resampled" + (" within strata" if p.codes is not None else "")
+    elif p.codes is None:
+        words = "rows resampled" if len(p.data) == 1 else "each group resampled separately"
     else:
-        if inner is None:
-            # ranges of resamples may run on other workers (engines.blocks); the same numbers
-            distribution = map_resamples(range_task(_cells_range, lay, work, stream, batch_elements), resamples)
-            se_star = None
-        else:
-            distribution, se_star = schemes.draw_cells(lay, work, resamples, stream, batch_elements, inner,
-                                                       inner_resamples)
-        if paired:
-            scheme = "whole pairs resampled" + (" within strata" if codes is not None else "")
-        elif codes is None:
-            scheme = "rows resampled" if len(data) == 1 else "each group resampled separately"
-        else:
-            scheme = "within group × stratum cells"
-    if inner is not None:
-        extra = {"jackknife": sum(n), "bootstrap": inner_resamples}.get(inner, 0)
-        details["studentized_se"] = {
-            "method": inner,
-            "formula": {"analytic": work.se_formula, "jackknife": "delete-one jackknife of each resample",
-                        "bootstrap": f"sd (divisor M - 1) of M = {inner_resamples} inner resamples of each "
-                                     "resample; the data's se_hat is the outer bootstrap standard error"}[inner],
-            "statistic_evaluations": int(resamples * (1 + extra))}
-        if inner == "bootstrap":
-            details["studentized_se"]["inner_resamples"] = inner_resamples
-            details["studentized_se"]["inner_stream"] = f"child {schemes.INNER_LABEL} of the analysis stream; " \
-                "inner resample j of resample r is its row r*M + j"
+        words = "within group × stratum cells"
+    return Drawn(distribution, se_star, words, {})
 
-    if inner == "jackknife" and not statistic.smooth:
-        warnings.append(EngineWarning(
-            "studentized-non-smooth",
-            f"the studentized interval uses the jackknife standard error of each resample, which is unreliable "
-            f"for the {statistic.label} (not a smooth statistic); prefer studentized_se: bootstrap or the "
-            "percentile interval"))
-    if cl is None:
-        warnings = _data_warnings(n, lay, codes is not None, paired) + warnings
-    exact = weights is not None
 
-    def finish(standard_error: float | None, bias: float | None, found: tuple[Interval, ...],
-               z0: float | None = None, acceleration: float | None = None,
-               se_sd: float | None = None, bias_sd: float | None = None) -> BootstrapResult:
-        return BootstrapResult(
-            estimate=estimate, standard_error=standard_error, bias=bias, intervals=found,
-            resamples=resamples, scheme=scheme, n=n, distribution=frozen_array(distribution),
-            z0=z0, acceleration=acceleration, conventions=dict(CONVENTIONS), warnings=tuple(warnings),
-            exact=exact, weights=None if weights is None else frozen_array(weights),
-            standard_error_sd=se_sd, bias_sd=bias_sd, details=details)
+def _draw_clusters(p: Prepared, options: BootstrapOptions, stream: Stream, batch_elements: int) -> Drawn:
+    assert p.cluster_codes is not None
+    lay = schemes.cluster_layout(p.data, p.cluster_codes, p.codes)
+    task = range_task(schemes.clusters_range, p.data, lay, p.statistic, stream, batch_elements)
+    distribution, _ = _mapped(task, options.resamples, None)
+    counts = [int(np.sum(lay.slot_group == g)) for g in range(len(p.data))]
+    words = "whole clusters resampled" + (" within strata" if p.codes is not None else "") + _each_group(p.data)
+    few = [f"group {g + 1} ({k} clusters)" for g, k in enumerate(counts) if k < SMALL_SAMPLE]
+    warnings = () if not few else (EngineWarning(
+        "few-clusters", f"fewer than {SMALL_SAMPLE} clusters in {', '.join(few)}: the cluster bootstrap "
+        "distribution is coarse and its intervals tend to be too narrow"),)
+    return Drawn(distribution, None, words, {"clusters": counts}, warnings, clusters=lay)
+
+
+def _draw_blocks(p: Prepared, options: BootstrapOptions, stream: Stream, batch_elements: int) -> Drawn:
+    assert options.blocks is not None
+    kind, length = options.blocks
+    schemes.check_blocks(p.data, kind, length)
+    task = range_task(schemes.blocks_range, p.data, p.statistic, stream, batch_elements, kind, length)
+    distribution, _ = _mapped(task, options.resamples, None)
+    details = {"blocks": {"scheme": kind, ("mean_length" if kind == "stationary" else "length"): length}}
+    words = (f"stationary bootstrap, mean block length {length}" if kind == "stationary"
+             else f"{kind}-block bootstrap, block length {length}") + _each_group(p.data)
+    return Drawn(distribution, None, words, details)
+
+
+FITS = {"normal": "maximum likelihood: mean, sd with divisor n",
+        "bivariate normal": "maximum likelihood: mean vector, covariance with divisor n (bivariate normal)",
+        "exponential": "maximum likelihood: mean", "poisson": "maximum likelihood: rate = mean",
+        "binomial": "maximum likelihood: p = mean / trials"}
+
+
+def _draw_parametric(p: Prepared, options: BootstrapOptions, stream: Stream, batch_elements: int) -> Drawn:
+    model, trials = options.parametric, options.trials
+    if model not in schemes.MODELS:
+        raise EngineError(f"unknown model {model!r}", hint=f"one of: {', '.join(schemes.MODELS)}")
+    if model == "binomial" and (trials is None or trials < 1):
+        raise EngineError("the binomial model needs the number of trials (at least 1)")
+    columns = p.statistic.columns
+    if columns > 2 or (columns == 2 and model != "normal"):
+        raise EngineError("the parametric bootstrap of two columns needs the (bivariate) normal model")
+    fits = [schemes.fit_model(a, model, trials, g) for g, a in enumerate(p.data)]
+    details = {"model": model, "fitted_parameters": fits,
+               "fit": FITS["bivariate normal" if model == "normal" and columns == 2 else model]}
+    task = range_task(schemes.parametric_range, p.data, p.statistic, stream, batch_elements, model, fits, p.inner)
+    distribution, se_star = _mapped(task, options.resamples, p.inner)
+    words = f"parametric: {model} model fitted by maximum likelihood" + _each_group(p.data)
+    return Drawn(distribution, se_star, words, details)
+
+
+def _draw_exhaustive(p: Prepared, options: BootstrapOptions, stream: Stream, batch_elements: int) -> Drawn:
+    enum = schemes.enumeration(p.lay)
+    task = range_task(schemes.exhaustive_range, p.lay, enum, p.statistic, batch_elements, p.inner)
+    distribution, se_star = _mapped(task, enum.total, p.inner)
+    details = {"distinct_resamples": int(distribution.shape[0]), "exhaustive_limit": schemes.EXHAUSTIVE_LIMIT}
+    words = "exhaustive enumeration of every distinct resample" + (" of pairs" if p.paired else "") + (
+        " within group × stratum cells" if p.codes is not None else "")
+    return Drawn(distribution, se_star, words, details, weights=schemes.enumeration_weights(enum))
+
+
+@dataclass(frozen=True)
+class Scheme:
+    """One resampling scheme: how it draws, and the intervals it refuses (with why and what instead)."""
+
+    draw: Callable[[Prepared, BootstrapOptions, Stream, int], Drawn]
+    refused: tuple[tuple[str, str, str], ...] = ()  # (interval, message, hint), checked in this order
+    nested_se: bool = False  # whether a studentized interval may use the nested bootstrap standard error
+
+
+_NO_BCA_HINT = "use percentile, basic or normal intervals"
+SCHEMES: dict[str, Scheme] = {
+    "cells": Scheme(_draw_cells, nested_se=True),
+    "clusters": Scheme(_draw_clusters, refused=(
+        ("studentized", "studentized intervals are not available with clusters",
+         "use percentile, basic, normal or bca intervals"),)),
+    "blocks": Scheme(_draw_blocks, refused=(
+        ("bca", "BCa is refused: for time-ordered data the iid jackknife acceleration ignores the dependence",
+         _NO_BCA_HINT),
+        ("studentized", "studentized intervals are refused for blocks: the per-resample standard error would "
+         "assume independent rows", _NO_BCA_HINT))),
+    "parametric": Scheme(_draw_parametric, refused=(
+        ("bca", "BCa is refused: the parametric bootstrap has no nonparametric jackknife acceleration",
+         _NO_BCA_HINT),)),
+    "exhaustive": Scheme(_draw_exhaustive),
+}
+
+
+def _scheme_name(options: BootstrapOptions, clustered: bool) -> str:
+    if options.exhaustive:
+        return "exhaustive"
+    if options.parametric is not None:
+        return "parametric"
+    if options.blocks is not None:
+        return "blocks"
+    return "clusters" if clustered else "cells"
+
+
+# ------------------------------------------------------------------ summarise
+
+
+def _summarise(p: Prepared, options: BootstrapOptions, drawn: Drawn, batch_elements: int) -> BootstrapResult:
+    resamples = int(drawn.distribution.shape[0])
+    details = dict(drawn.details)
+    warnings = list(drawn.warnings)
+    if p.inner is not None:
+        details["studentized_se"] = _studentized_details(p, options, resamples)
+        if p.inner == "jackknife" and not p.declared.smooth:
+            warnings.append(EngineWarning(
+                "studentized-non-smooth",
+                f"the studentized interval uses the jackknife standard error of each resample, which is unreliable "
+                f"for the {p.declared.label} (not a smooth statistic); prefer studentized_se: bootstrap or the "
+                "percentile interval"))
+    if drawn.clusters is None:
+        warnings = _data_warnings(p.n, p.lay, p.codes is not None, p.paired) + warnings
+    result = BootstrapResult(
+        estimate=p.estimate, standard_error=None, bias=None, intervals=(), resamples=resamples,
+        scheme=drawn.scheme, n=p.n, distribution=frozen_array(drawn.distribution), z0=None, acceleration=None,
+        conventions=dict(CONVENTIONS), warnings=(), exact=drawn.weights is not None,
+        weights=None if drawn.weights is None else frozen_array(drawn.weights), details=details)
+    return _with_intervals(result, p, options, drawn, warnings, batch_elements)
+
+
+def _studentized_details(p: Prepared, options: BootstrapOptions, resamples: int) -> dict[str, Any]:
+    m = options.inner_resamples
+    extra = {"jackknife": sum(p.n), "bootstrap": m}.get(p.inner or "", 0)
+    out: dict[str, Any] = {
+        "method": p.inner,
+        "formula": {"analytic": p.statistic.se_formula, "jackknife": "delete-one jackknife of each resample",
+                    "bootstrap": f"sd (divisor M - 1) of M = {m} inner resamples of each resample; the data's "
+                                 "se_hat is the outer bootstrap standard error"}[p.inner or ""],
+        "statistic_evaluations": int(resamples * (1 + extra))}
+    if p.inner == "bootstrap":
+        out["inner_resamples"] = m
+        out["inner_stream"] = (f"child {schemes.INNER_LABEL} of the analysis stream; "
+                               "inner resample j of resample r is its row r*M + j")
+    return out
+
+
+def _with_intervals(result: BootstrapResult, p: Prepared, options: BootstrapOptions, drawn: Drawn,
+                    warnings: list[EngineWarning], batch_elements: int) -> BootstrapResult:
+    """The moments, the intervals and their warnings (or the reason there are none)."""
+    distribution, weights, resamples = drawn.distribution, drawn.weights, result.resamples
+    confidence, on_degenerate = options.confidence, options.on_degenerate
+
+    def finish(**numbers: Any) -> BootstrapResult:
+        return replace(result, warnings=tuple(warnings), **numbers)
 
     def no_intervals(note: str) -> tuple[Interval, ...]:
-        return tuple(Interval(m, confidence, None, None, note=note) for m in intervals)
+        return tuple(Interval(m, confidence, None, None, note=note) for m in options.intervals)
 
     finite = np.isfinite(distribution)
     if not finite.all():
         bad = int((~finite).sum())
         message = (f"the statistic is not finite on {bad} of {resamples} resamples; no standard error, "
                    "bias or interval is reported")
-        if on_degenerate == "fail":
-            raise EngineError(message, hint="on_degenerate: fail was declared in the plan")
-        warnings.append(EngineWarning("non-finite-replicates", message))
-        return finish(None, None, no_intervals(f"{bad} of {resamples} replicates are not finite"))
+        _degenerate(on_degenerate, message, warnings, "non-finite-replicates")
+        return finish(intervals=no_intervals(f"{bad} of {resamples} replicates are not finite"))
 
-    if exact:
-        assert weights is not None
-        mean = float(np.sum(weights * distribution))
-        standard_error = math.sqrt(float(np.sum(weights * (distribution - mean) ** 2)))
-        bias = mean - estimate
-        se_sd = bias_sd = 0.0
-    else:
-        standard_error = float(np.std(distribution, ddof=1))
-        bias = float(np.mean(distribution)) - estimate
-        kurtosis = _kurtosis(distribution)
-        se_sd = standard_error * math.sqrt(max(kurtosis - 1.0, 0.0) / (4 * resamples)) if kurtosis else 0.0
-        bias_sd = standard_error / math.sqrt(resamples)
-    lowest, highest = float(distribution.min()), float(distribution.max())
-
+    moments = _moments(distribution, weights, p.estimate)
     order = np.argsort(distribution, kind="stable")
     ordered = distribution[order]
     cumulative = None if weights is None else np.cumsum(weights[order])
-
+    lowest, highest = float(distribution.min()), float(distribution.max())
     # all replicates equal up to rounding: constant data (or constant cells); no interval
     if highest - lowest <= 1e-12 * max(abs(lowest), abs(highest)):
         message = (f"all {resamples} bootstrap replicates are equal ({lowest!r}): the data do not vary within "
                    "the resampled units, so no interval can be formed")
-        if on_degenerate == "fail":
-            raise EngineError(message, hint="on_degenerate: fail was declared in the plan")
-        warnings.append(EngineWarning("degenerate-distribution", message))
+        _degenerate(on_degenerate, message, warnings, "degenerate-distribution")
         if on_degenerate == "percentile":
             found = tuple(Interval(m, confidence, lowest, highest,
                                    note="degenerate distribution: the percentile interval (a single point) "
                                         "is reported, as on_degenerate: percentile declares")
-                          for m in intervals)
-            return finish(standard_error, bias, found, se_sd=se_sd, bias_sd=bias_sd)
-        return finish(standard_error, bias, no_intervals(f"all {resamples} replicates equal {lowest!r}"),
-                      se_sd=se_sd, bias_sd=bias_sd)
+                          for m in options.intervals)
+            return finish(intervals=found, **moments)
+        return finish(intervals=no_intervals(f"all {resamples} replicates equal {lowest!r}"), **moments)
 
     z0 = acceleration = problem = None
-    if "bca" in intervals:
-        # ties judged relative to the data's magnitude: rounding, not data, separates such values
-        tolerance = TIE_TOLERANCE * max(abs(estimate), max(float(np.max(np.abs(a))) for a in data))
-        z0, acceleration, problem = _bca_constants(data, work, lay, cl, cluster_codes, ordered, estimate,
-                                                   tolerance, confidence, batch_elements,
-                                                   None if weights is None else weights[order])
-        if problem is not None:
-            warnings.append(EngineWarning("bca-undefined", f"no BCa interval: {problem}"))
-        if not statistic.smooth:
-            warnings.append(EngineWarning(
-                "bca-non-smooth",
-                f"the BCa interval is doubtful for the {statistic.label}, which is not a smooth statistic: "
-                "its jackknife acceleration and the bias correction from a discrete bootstrap "
-                "distribution are unreliable; compare with the percentile interval"))
-
+    if "bca" in options.intervals:
+        z0, acceleration, problem = _bca(p, drawn, ordered, order, confidence, batch_elements, warnings)
     t_ordered = t_cumulative = se_hat = t_problem = None
-    if inner is not None:
-        assert se_star is not None
-        se_hat = (float(work.se(*whole)) if inner == "analytic" else standard_error if inner == "bootstrap"
-                  else _jackknife_se(data, work, batch_elements))
-        # a resample with se* = 0 but θ* ≠ θ̂ (e.g. all draws of one observation) has t* = ±∞: a
-        # legitimate extreme of the t* distribution; 0/0 or a non-finite se* leaves t* undefined
-        zero = se_star == 0
-        moved = np.abs(distribution - estimate) > TIE_TOLERANCE * max(1.0, abs(estimate))
-        undefined = ~np.isfinite(se_star) | (zero & ~moved)
-        if undefined.any() or not (math.isfinite(se_hat) and se_hat > 0):
-            t_problem = (f"the standard error is undefined (0/0 or not finite) on {int(undefined.sum())} of "
-                         f"{resamples} resamples" if undefined.any()
-                         else "the standard error of the data is zero or undefined")
-        else:
-            with np.errstate(divide="ignore", invalid="ignore"):
-                t = np.where(zero, np.sign(distribution - estimate) * np.inf, (distribution - estimate) / se_star)
-            if zero.any():
-                warnings.append(EngineWarning(
-                    "studentized-infinite-t",
-                    f"{int(zero.sum())} of {resamples} resamples have a zero standard error; their t* is "
-                    "taken as plus or minus infinity"))
-            t_order = np.argsort(t, kind="stable")
-            t_ordered = t[t_order]
-            t_cumulative = None if weights is None else np.cumsum(weights[t_order])
-            ends = [t_ordered[0], t_ordered[-1]]
-            if not np.isfinite(ends).all():
-                # infinite t* only matter if an endpoint reads them
-                alpha = 1.0 - confidence
-                reads = [read_quantile(t_ordered, t_cumulative, p) for p in (alpha / 2, 1 - alpha / 2)]
-                if not np.isfinite(reads).all():
-                    t_problem = ("so many resamples have a zero standard error that an endpoint of the "
-                                 "studentized interval is infinite")
-                    t_ordered = t_cumulative = None
-        if t_problem is not None:
-            warnings.append(EngineWarning("studentized-undefined", f"no studentized interval: {t_problem}"))
-        details["se_hat"] = se_hat
-
-    summary = Summary(estimate, ordered, cumulative, confidence, standard_error, bias,
-                      None if exact else se_sd, None if exact else bias_sd, z0, acceleration, problem,
-                      t_ordered, t_cumulative, se_hat, t_problem)
-    found = []
-    for m in intervals:
-        interval = INTERVAL_METHODS[m](summary)
-        if interval.lower is None and m in ("bca", "studentized"):
-            if on_degenerate == "fail":
-                raise EngineError(f"the {m} interval is undefined: {interval.note}",
-                                  hint="on_degenerate: fail was declared in the plan")
-            if on_degenerate == "percentile":
-                fallback = INTERVAL_METHODS["percentile"](summary)
-                interval = replace(fallback, note=f"in place of the undefined {m} interval ({interval.note}), "
-                                                  "as on_degenerate: percentile declares")
-        found.append(interval)
+    details = result.details
+    if p.inner is not None:
+        t_ordered, t_cumulative, se_hat, t_problem = _studentized(p, drawn, moments["standard_error"], confidence,
+                                                                  batch_elements, warnings)
+        details = {**details, "se_hat": se_hat}
+    exact = weights is not None
+    summary = Summary(p.estimate, ordered, cumulative, confidence, moments["standard_error"], moments["bias"],
+                      None if exact else moments["standard_error_sd"], None if exact else moments["bias_sd"],
+                      z0, acceleration, problem, t_ordered, t_cumulative, se_hat, t_problem)
+    found = tuple(_interval(m, summary, on_degenerate) for m in options.intervals)
     if not exact:
-        for w in _tail_warnings(tuple(found), ordered):
+        for w in _tail_warnings(found, ordered):
             if w not in warnings:  # a fallback percentile interval repeats the percentile's warning
                 warnings.append(w)
-    return finish(standard_error, bias, tuple(found), z0, acceleration, se_sd, bias_sd)
+    return finish(intervals=found, z0=z0, acceleration=acceleration, details=details, **moments)
+
+
+def _degenerate(on_degenerate: str, message: str, warnings: list[EngineWarning], code: str) -> None:
+    """Stop when the plan declares ``on_degenerate: fail``; otherwise a warning."""
+    if on_degenerate == "fail":
+        raise EngineError(message, hint="on_degenerate: fail was declared in the plan")
+    warnings.append(EngineWarning(code, message))
+
+
+def _moments(distribution: np.ndarray, weights: np.ndarray | None, estimate: float) -> dict[str, float]:
+    """Standard error and bias, with their Monte Carlo s.d. (0 when exact)."""
+    if weights is not None:
+        mean = float(np.sum(weights * distribution))
+        standard_error = math.sqrt(float(np.sum(weights * (distribution - mean) ** 2)))
+        return {"standard_error": standard_error, "bias": mean - estimate, "standard_error_sd": 0.0,
+                "bias_sd": 0.0}
+    resamples = distribution.shape[0]
+    standard_error = float(np.std(distribution, ddof=1))
+    kurtosis = _kurtosis(distribution)
+    return {"standard_error": standard_error, "bias": float(np.mean(distribution)) - estimate,
+            "standard_error_sd": (standard_error * math.sqrt(max(kurtosis - 1.0, 0.0) / (4 * resamples))
+                                  if kurtosis else 0.0),
+            "bias_sd": standard_error / math.sqrt(resamples)}
+
+
+def _interval(method: str, summary: Summary, on_degenerate: str) -> Interval:
+    """One interval; an undefined BCa or studentized one as ``on_degenerate`` declares."""
+    interval = INTERVAL_METHODS[method](summary)
+    if interval.lower is None and method in ("bca", "studentized"):
+        if on_degenerate == "fail":
+            raise EngineError(f"the {method} interval is undefined: {interval.note}",
+                              hint="on_degenerate: fail was declared in the plan")
+        if on_degenerate == "percentile":
+            fallback = INTERVAL_METHODS["percentile"](summary)
+            interval = replace(fallback, note=f"in place of the undefined {method} interval ({interval.note}), "
+                                              "as on_degenerate: percentile declares")
+    return interval
+
+
+def _bca(p: Prepared, drawn: Drawn, ordered: np.ndarray, order: np.ndarray, confidence: float,
+         batch_elements: int, warnings: list[EngineWarning]) -> tuple[float | None, float | None, str | None]:
+    # ties judged relative to the data's magnitude: rounding, not data, separates such values
+    tolerance = TIE_TOLERANCE * max(abs(p.estimate), max(float(np.max(np.abs(a))) for a in p.data))
+    z0, acceleration, problem = _bca_constants(p.data, p.statistic, p.lay, drawn.clusters, p.cluster_codes,
+                                               ordered, p.estimate, tolerance, confidence, batch_elements,
+                                               None if drawn.weights is None else drawn.weights[order])
+    if problem is not None:
+        warnings.append(EngineWarning("bca-undefined", f"no BCa interval: {problem}"))
+    if not p.declared.smooth:
+        warnings.append(EngineWarning(
+            "bca-non-smooth",
+            f"the BCa interval is doubtful for the {p.declared.label}, which is not a smooth statistic: "
+            "its jackknife acceleration and the bias correction from a discrete bootstrap "
+            "distribution are unreliable; compare with the percentile interval"))
+    return z0, acceleration, problem
+
+
+def _studentized(p: Prepared, drawn: Drawn, standard_error: float, confidence: float, batch_elements: int,
+                 warnings: list[EngineWarning]) -> tuple[np.ndarray | None, np.ndarray | None, float, str | None]:
+    """The sorted t* (and cumulative weights), ŝe, and why there is no studentized interval (or None)."""
+    se_star, distribution, estimate = drawn.se_star, drawn.distribution, p.estimate
+    assert se_star is not None
+    se_hat = (float(p.statistic.se(*p.whole)) if p.inner == "analytic" and p.statistic.se is not None
+              else standard_error if p.inner == "bootstrap" else _jackknife_se(p.data, p.statistic, batch_elements))
+    resamples = distribution.shape[0]
+    # a resample with se* = 0 but θ* ≠ θ̂ (e.g. all draws of one observation) has t* = ±∞: a
+    # legitimate extreme of the t* distribution; 0/0 or a non-finite se* leaves t* undefined
+    zero = se_star == 0
+    moved = np.abs(distribution - estimate) > TIE_TOLERANCE * max(1.0, abs(estimate))
+    undefined = ~np.isfinite(se_star) | (zero & ~moved)
+    t_ordered = t_cumulative = t_problem = None
+    if undefined.any() or not (math.isfinite(se_hat) and se_hat > 0):
+        t_problem = (f"the standard error is undefined (0/0 or not finite) on {int(undefined.sum())} of "
+                     f"{resamples} resamples" if undefined.any() else "the standard error of the data is zero or undefined")
+    else:
+        with np.errstate(divide="ignore", invalid="ignore"):
+            t = np.where(zero, np.sign(distribution - estimate) * np.inf, (distribution - estimate) / se_star)
+        if zero.any():
+            warnings.append(EngineWarning(
+                "studentized-infinite-t",
+                f"{int(zero.sum())} of {resamples} resamples have a zero standard error; their t* is "
+                "taken as plus or minus infinity"))
+        t_order = np.argsort(t, kind="stable")
+        t_ordered = t[t_order]
+        t_cumulative = None if drawn.weights is None else np.cumsum(drawn.weights[t_order])
+        if not np.isfinite([t_ordered[0], t_ordered[-1]]).all():
+            # infinite t* only matter if an endpoint reads them
+            alpha = 1.0 - confidence
+            reads = [read_quantile(t_ordered, t_cumulative, q) for q in (alpha / 2, 1 - alpha / 2)]
+            if not np.isfinite(reads).all():
+                t_problem = ("so many resamples have a zero standard error that an endpoint of the "
+                             "studentized interval is infinite")
+                t_ordered = t_cumulative = None
+    if t_problem is not None:
+        warnings.append(EngineWarning("studentized-undefined", f"no studentized interval: {t_problem}"))
+    return t_ordered, t_cumulative, se_hat, t_problem
 
 
 def _kurtosis(values: np.ndarray) -> float | None:
@@ -574,9 +737,3 @@ def _bca_constants(data: tuple[np.ndarray, ...], statistic: Statistic, lay: sche
         return z0, acceleration, (f"the acceleration {acceleration:.4g} is so large that the level "
                                   "adjustment is not monotone")
     return z0, acceleration, None
-
-
-def _cells_range(lay: schemes.Layout, statistic: Statistic, stream: Stream, batch_elements: int,
-                 start: int, stop: int) -> np.ndarray:
-    """Replicates of resamples [start, stop) of the cells scheme (a picklable range task)."""
-    return schemes.draw_cells(lay, statistic, stop - start, stream, batch_elements, None, start=start)[0]

@@ -268,7 +268,9 @@ def draw_cells(lay: Layout, statistic: Statistic, resamples: int, stream: Stream
         # the numbers do not depend on the batch size, so a batch may stay inside the cache
         rows_per_batch = min(rows_per_batch, _rows_per_batch(CACHE_ELEMENTS, width * statistic.columns))
     reader = UniformRows(stream, width, start)
-    nested = UniformRows(stream.child(INNER_LABEL), width) if inner == "bootstrap" else None
+    # inner resample j of outer resample r is row r·M + j of the inner stream
+    nested = (UniformRows(stream.child(INNER_LABEL), width, start * inner_resamples) if inner == "bootstrap"
+              else None)
     out = np.empty(resamples, dtype=np.float64)
     se = np.empty(resamples, dtype=np.float64) if inner else None
     # buffers reused by every batch: allocating them afresh costs more than the arithmetic
@@ -349,10 +351,13 @@ def cluster_layout(data: tuple[np.ndarray, ...], clusters: tuple[np.ndarray, ...
 
 
 def draw_clusters(data: tuple[np.ndarray, ...], lay: ClusterLayout, statistic: Statistic, resamples: int,
-                  stream: Stream, batch_elements: int, *, fast: bool = True) -> np.ndarray:
-    """Run the clusters draw contract. ``fast``: mean-form statistics from cluster sums and sizes."""
+                  stream: Stream, batch_elements: int, *, fast: bool = True, start: int = 0) -> np.ndarray:
+    """Run the clusters draw contract for resamples [start, start + resamples).
+
+    ``fast``: mean-form statistics from cluster sums and sizes.
+    """
     width = int(lay.cell_start.shape[0])
-    reader = UniformRows(stream, width)
+    reader = UniformRows(stream, width, start)
     out = np.empty(resamples, dtype=np.float64)
     use_sums = fast and statistic.form == "mean" and statistic.columns == 1
     if use_sums:
@@ -413,16 +418,25 @@ def block_width(n: int, length: int, scheme: str) -> int:
     return 2 * n if scheme == "stationary" else math.ceil(n / length)
 
 
-def draw_blocks(data: tuple[np.ndarray, ...], statistic: Statistic, resamples: int, stream: Stream,
-                batch_elements: int, *, scheme: str, length: int) -> np.ndarray:
-    """Run the blocks draw contract (each group separately, in its time order)."""
+def check_blocks(data: tuple[np.ndarray, ...], scheme: str, length: int) -> None:
+    """Refuse a block scheme the data cannot carry (before any draw: ranges may run on workers)."""
+    if scheme not in BLOCK_SCHEMES:
+        raise EngineError(f"unknown block scheme {scheme!r}", hint=f"one of: {', '.join(BLOCK_SCHEMES)}")
+    if length < 1:
+        raise EngineError(f"the block length must be at least 1, got {length}")
     for g, a in enumerate(data):
         if scheme == "moving" and length > a.shape[0]:
             raise EngineError(f"the block length {length} exceeds the {a.shape[0]} observations of group {g + 1}",
                               hint="use a shorter block, or the circular or stationary scheme")
+
+
+def draw_blocks(data: tuple[np.ndarray, ...], statistic: Statistic, resamples: int, stream: Stream,
+                batch_elements: int, *, scheme: str, length: int, start: int = 0) -> np.ndarray:
+    """Run the blocks draw contract (each group separately, in its time order) for resamples
+    [start, start + resamples); ``check_blocks`` first."""
     widths = [block_width(a.shape[0], length, scheme) for a in data]
     edges = np.concatenate([[0], np.cumsum(widths)])
-    reader = UniformRows(stream, int(edges[-1]))
+    reader = UniformRows(stream, int(edges[-1]), start)
     out = np.empty(resamples, dtype=np.float64)
     rows_per_batch = _rows_per_batch(batch_elements, sum(a.shape[0] for a in data) * statistic.columns)
     done = 0
@@ -483,11 +497,12 @@ def _inverse_cdf(u: np.ndarray, model: str, fit: dict[str, float]) -> np.ndarray
 
 def draw_parametric(data: tuple[np.ndarray, ...], statistic: Statistic, resamples: int, stream: Stream,
                     batch_elements: int, *, model: str, fits: Sequence[dict[str, float]],
-                    inner: str | None) -> tuple[np.ndarray, np.ndarray | None]:
-    """Run the parametric draw contract: each group drawn from its fitted model."""
+                    inner: str | None, start: int = 0) -> tuple[np.ndarray, np.ndarray | None]:
+    """Run the parametric draw contract for resamples [start, start + resamples): each group drawn
+    from its fitted model."""
     sizes = [a.shape[0] * (1 if a.ndim == 1 else a.shape[1]) for a in data]
     edges = np.concatenate([[0], np.cumsum(sizes)])
-    reader = UniformRows(stream, int(edges[-1]))
+    reader = UniformRows(stream, int(edges[-1]), start)
     out = np.empty(resamples, dtype=np.float64)
     se = np.empty(resamples, dtype=np.float64) if inner else None
     rows_per_batch = _rows_per_batch(batch_elements, int(edges[-1]) * _inner_factor(inner, max(sizes)))
@@ -532,36 +547,94 @@ def _multisets(n: int) -> tuple[np.ndarray, np.ndarray]:
     return index, log_p
 
 
-def enumerate_cells(lay: Layout, statistic: Statistic, batch_elements: int,
-                    inner: str | None) -> tuple[np.ndarray, np.ndarray, np.ndarray | None]:
-    """Every distinct resample once: (replicates, probabilities, inner SEs)."""
+@dataclass(frozen=True)
+class Enumeration:
+    """Every distinct resample of every cell: resample k is the k-th of the cells' product, in C order."""
+
+    tables: tuple[tuple[np.ndarray, np.ndarray], ...]  # per cell: multiset index rows, their log-probabilities
+    shape: tuple[int, ...]  # multisets per cell
+    total: int  # distinct resamples (product over cells)
+
+
+def enumeration(lay: Layout) -> Enumeration:
+    """The cells' multisets, refused beyond ``EXHAUSTIVE_LIMIT`` distinct resamples."""
     sizes = [int(members.shape[0]) for _, members in lay.cells]
     total = math.prod(count_multisets(k) for k in sizes)
     if total > EXHAUSTIVE_LIMIT:
         raise EngineError(f"exhaustive enumeration needs {total} distinct resamples, more than the limit "
                           f"{EXHAUSTIVE_LIMIT}", hint="remove exhaustive: true and draw resamples instead")
-    tables = [_multisets(k) for k in sizes]
-    shape = tuple(t[0].shape[0] for t in tables)
+    tables = tuple(_multisets(k) for k in sizes)
+    return Enumeration(tables, tuple(t[0].shape[0] for t in tables), total)
+
+
+def enumeration_weights(enum: Enumeration) -> np.ndarray:
+    """The multinomial probability of every distinct resample, cells combined as a product."""
+    which = np.unravel_index(np.arange(enum.total), enum.shape)
+    log_p = np.zeros(enum.total, dtype=np.float64)
+    for c, (_, lp) in enumerate(enum.tables):
+        log_p += lp[which[c]]
+    return np.exp(log_p)
+
+
+def enumerate_cells(lay: Layout, enum: Enumeration, statistic: Statistic, batch_elements: int, inner: str | None,
+                    start: int, stop: int) -> tuple[np.ndarray, np.ndarray | None]:
+    """The replicates (and inner SEs) of distinct resamples [start, stop) of ``enum``."""
     width = int(lay.cell_start.shape[0])
     # positions of each cell among the N laid-out positions (cells are consecutive)
-    starts = np.concatenate([[0], np.cumsum(sizes)])
+    starts = np.concatenate([[0], np.cumsum([t[0].shape[1] for t in enum.tables])])
     n_max = max(b - a for a, b in lay.bounds)
     step = _rows_per_batch(batch_elements, width * statistic.columns * _inner_factor(inner, n_max))
-    values = np.empty(total, dtype=np.float64)
-    log_p = np.zeros(total, dtype=np.float64)
-    se = np.empty(total, dtype=np.float64) if inner else None
-    for begin in range(0, total, step):
-        flat = np.arange(begin, min(total, begin + step))
-        which = np.unravel_index(flat, shape)
+    values = np.empty(stop - start, dtype=np.float64)
+    se = np.empty(stop - start, dtype=np.float64) if inner else None
+    for begin in range(start, stop, step):
+        flat = np.arange(begin, min(stop, begin + step))
+        which = np.unravel_index(flat, enum.shape)
         index = np.empty((flat.size, width), dtype=np.int64)
-        for c, (idx, lp) in enumerate(tables):
-            cell_first = lay.cell_start[starts[c]]
-            index[:, starts[c]:starts[c + 1]] = cell_first + idx[which[c]]
-            log_p[flat] += lp[which[c]]
+        for c, (idx, _) in enumerate(enum.tables):
+            index[:, starts[c]:starts[c + 1]] = lay.cell_start[starts[c]] + idx[which[c]]
         gathered = [take_observations(group, index[:, a:b]) for group, (a, b) in zip(lay.groups, lay.bounds)]
         with np.errstate(invalid="ignore", divide="ignore"):
             theta, s = evaluate(statistic, gathered, inner)
-        values[flat] = theta
+        values[flat - start] = theta
         if se is not None and s is not None:
-            se[flat] = s
-    return values, np.exp(log_p), se
+            se[flat - start] = s
+    return values, se
+
+
+# ------------------------------------------------------------------ range tasks
+# Module-level functions of (arguments..., start, stop), bound with `blocks.bind` and handed to
+# `blocks.map_resamples`, so that an executor may compute ranges of resamples on other workers. A
+# scheme with an inner standard error returns (rows, 2): the replicate, then its standard error.
+
+
+def _joined(theta: np.ndarray, se: np.ndarray | None) -> np.ndarray:
+    return theta if se is None else np.column_stack((theta, se))
+
+
+def cells_range(lay: Layout, statistic: Statistic, stream: Stream, batch_elements: int, inner: str | None,
+                inner_resamples: int, start: int, stop: int) -> np.ndarray:
+    return _joined(*draw_cells(lay, statistic, stop - start, stream, batch_elements, inner, inner_resamples,
+                               start=start))
+
+
+def clusters_range(data: tuple[np.ndarray, ...], lay: ClusterLayout, statistic: Statistic, stream: Stream,
+                   batch_elements: int, start: int, stop: int) -> np.ndarray:
+    return draw_clusters(data, lay, statistic, stop - start, stream, batch_elements, start=start)
+
+
+def blocks_range(data: tuple[np.ndarray, ...], statistic: Statistic, stream: Stream, batch_elements: int,
+                 scheme: str, length: int, start: int, stop: int) -> np.ndarray:
+    return draw_blocks(data, statistic, stop - start, stream, batch_elements, scheme=scheme, length=length,
+                       start=start)
+
+
+def parametric_range(data: tuple[np.ndarray, ...], statistic: Statistic, stream: Stream, batch_elements: int,
+                     model: str, fits: Sequence[dict[str, float]], inner: str | None, start: int,
+                     stop: int) -> np.ndarray:
+    return _joined(*draw_parametric(data, statistic, stop - start, stream, batch_elements, model=model,
+                                    fits=fits, inner=inner, start=start))
+
+
+def exhaustive_range(lay: Layout, enum: Enumeration, statistic: Statistic, batch_elements: int,
+                     inner: str | None, start: int, stop: int) -> np.ndarray:
+    return _joined(*enumerate_cells(lay, enum, statistic, batch_elements, inner, start, stop))

@@ -77,7 +77,11 @@ def _reduce_statistic(statistic: Statistic) -> tuple:
     registered = STATISTICS.get(statistic.name)
     if registered is statistic:
         return get_statistic, (statistic.name,)
-    if registered is not None and registered.parameter is not None and statistic.value is not None:
+    # a view of a registered statistic under its name (the bootstrap's pairs: one sample of two
+    # columns) is not the bound statistic: it travels by value
+    same_shape = registered is not None and (registered.samples, registered.columns) == (statistic.samples,
+                                                                                         statistic.columns)
+    if same_shape and registered.parameter is not None and statistic.value is not None:
         return _bound_statistic, (statistic.name, statistic.value)
     return object.__reduce_ex__(statistic, 4)  # by value, whatever fields it has
 
