@@ -74,3 +74,11 @@ class RecordError(PlanrunnerError):
 
     The plan is not at fault; the message names the file (with line and column for broken JSON).
     """
+
+
+class SigningError(PlanrunnerError):
+    """A key, a passphrase, a signers file or a file to sign cannot be used (exit 2).
+
+    A signature that does not hold is not an error but a finding: `verify` and `history` report it
+    and exit with 3.
+    """

@@ -39,9 +39,12 @@ def _add_audit_verbs(verbs: Any) -> None:
     verify.add_argument("--plan", help="the plan file whose folder holds the data (default: found above the run folder)")
     add_execution_options(verify)
     verify.add_argument("--data-root", metavar="DIR", help=DATA_ROOT_HELP)
+    verify.add_argument("--signers", metavar="FILE", help="the trusted signers (default: signers.yaml beside the plan)")
 
     history = verbs.add_parser("history", help="list the run history and check its hash chain")
     history.add_argument("target", help="a plan, its runs folder, or a history.jsonl file")
+    history.add_argument("--signers", metavar="FILE",
+                         help="the trusted signers (default: signers.yaml beside the runs folder or the plan)")
 
     compare = verbs.add_parser("compare", help="put two records side by side")
     compare.add_argument("record_a", help="the earlier record (record.json or run folder)")
@@ -80,6 +83,9 @@ def audit_summary(outcome: Any) -> str:
     entry = outcome.history_entry
     if entry is not None:
         lines.append(f"run history: entry {entry['seq']} appended to {outcome.folder.parent / 'history.jsonl'}")
+    if getattr(outcome, "signed", False):
+        lines.append("signed as executed: the record (signature file in the run folder)"
+                     + (" and its history entry" if entry is not None else ""))
     return "\n".join(lines)
 
 
@@ -113,9 +119,15 @@ def _table(header: tuple[str, ...], rows: list[tuple[str, ...]]) -> str:
 
 
 def _verify(args: argparse.Namespace) -> int:
-    from planrunner.audit.verbs import describe, verify_record
+    from planrunner.audit.signing import record_signatures
+    from planrunner.audit.verbs import describe, find_plan, read_record, verify_record
+    from planrunner.cli.signing import signature_lines
+    record_file, recorded = read_record(args.record)
+    signatures = record_signatures(record_file, find_plan(record_file, recorded, args.plan), args.signers)
     report = verify_record(args.record, plan=args.plan, execution=execution_of(args), data_root=args.data_root)
     print(f"verifying {report.record_file} against the plan folder {report.plan_file.parent}")
+    for line in signature_lines(signatures):
+        print(line)
     for note in report.notes:
         print(f"  note (stated, not a failure): {note}")
     for where, what in report.problems:
@@ -142,13 +154,17 @@ def _verify(args: argparse.Namespace) -> int:
                   f"tolerance ({largest.rule}: {largest.tolerance:.3g})")
         outside = sum(not d.within for d in report.differences)
         print(f"re-run: {len(report.differences)} field(s) differ, {outside} outside tolerance")
-    print("verify: PASSED" if report.passed else "verify: FAILED")
-    return EXIT_OK if report.passed else EXIT_DIFFERS
+    passed = report.passed and signatures.passed
+    print("verify: PASSED" if passed else "verify: FAILED" + ("" if signatures.passed else " (signatures)"))
+    return EXIT_OK if passed else EXIT_DIFFERS
 
 
 def _history(args: argparse.Namespace) -> int:
+    from planrunner.audit.signing import history_signatures
+    from planrunner.cli.signing import signature_lines
     from planrunner.trail.files import history_report
     report = history_report(args.target)
+    signatures = history_signatures(report.log, args.signers)
     rows = [(str(e.get("seq")), str(e.get("finished_utc")), str(e.get("run_id")), str(e.get("operator")),
              str(e.get("reason") or ""), str(e.get("plan_sha256"))[:12], str(e.get("record_sha256"))[:12])
             for e in report.entries]
@@ -158,7 +174,9 @@ def _history(args: argparse.Namespace) -> int:
     for p in report.problems:
         print(f"  BROKEN {'line ' + str(p.line) if p.line else 'log'}: {p.message}")
     print("history chain: intact" if not report.problems else f"history chain: BROKEN ({len(report.problems)} problem(s))")
-    return EXIT_OK if not report.problems else EXIT_DIFFERS
+    for line in signature_lines(signatures):
+        print(line)
+    return EXIT_OK if not report.problems and signatures.passed else EXIT_DIFFERS
 
 
 def _compare(args: argparse.Namespace) -> int:

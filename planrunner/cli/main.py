@@ -20,6 +20,7 @@ from planrunner.report.render import number, pvalue
 from planrunner.cli.audit import (AUDIT_VERBS, _add_audit_run_options, _add_audit_verbs, audit_summary,
                         check_lock_summary)
 from planrunner.cli.options import DATA_ROOT_HELP, add_execution_options, execution_of
+from planrunner.cli.signing import SIGNING_VERBS, add_run_signing_options, add_signing_verbs, run_signing
 
 if TYPE_CHECKING:
     from planrunner.execute.executors import Execution
@@ -72,7 +73,9 @@ def build_parser() -> argparse.ArgumentParser:
     add_execution_options(run)
     run.add_argument("--data-root", metavar="DIR", help=DATA_ROOT_HELP)
     _add_audit_run_options(run)
+    add_run_signing_options(run)
     _add_audit_verbs(verbs)
+    add_signing_verbs(verbs)
     return parser
 
 
@@ -89,6 +92,8 @@ def main(argv: Sequence[str] | None = None) -> int:
             return _run(args, args_list)
         if args.verb in AUDIT_VERBS:
             return AUDIT_VERBS[args.verb](args)
+        if args.verb in SIGNING_VERBS:
+            return SIGNING_VERBS[args.verb](args)
     except PlanrunnerError as exc:
         print(f"planrunner: {exc}", file=sys.stderr)
         return exit_code_for(exc)
@@ -155,12 +160,14 @@ def _run(args: argparse.Namespace, argv: list[str]) -> int:
     from planrunner.plan.params import parse_assignments
     from planrunner.pipeline.run import run_plan
     execution = execution_of(args)
+    signing = run_signing(args)
     bar = progress_bar(args.quiet)
     try:
         outcome = run_plan(args.plan, out=args.out, operator=args.operator, command=["planrunner", *argv],
                            params=parse_assignments(args.param), lock=args.lock,
                            refuse_deviations=args.refuse_deviations, reason=args.reason,
-                           data_root=args.data_root, execution=execution, progress=bar)
+                           data_root=args.data_root, execution=execution, progress=bar,
+                           signing=signing, signers=args.signers)
     finally:
         bar.close()  # before any message, so that it does not land on the bar's line
     if not args.quiet:

@@ -32,6 +32,9 @@ from planrunner.engines.maxt import MaxTResult
 from planrunner.record.build import RunFacts, build_record, to_json
 from planrunner.trail.files import append_history, lock_for_run
 from planrunner.trail.store import STAGING_PREFIX, require_plain_name, write_new_folder  # noqa: F401 (STAGING_PREFIX for callers)
+from planrunner.trail.lock import lock_path_for
+from planrunner.trail.signatures import SigningKey
+from planrunner.trail.signfiles import check_run_signing, find_signers, signed_run_files
 
 Clock = Callable[[], dt.datetime]
 
@@ -57,6 +60,7 @@ class RunOutcome:
     folder: Path
     record: dict
     history_entry: dict | None = None
+    signed: bool = False  # the record and its history entry carry the 'executed' signature
 
 
 def available_memory() -> int | None:
@@ -120,7 +124,8 @@ def run_plan(path: str | Path, *, out: str | Path | None = None, operator: str |
              command: list[str] | None = None, clock: Clock = utc_now, params: dict[str, str] | None = None,
              lock: str | Path | None = None, refuse_deviations: bool = False, reason: str | None = None,
              history: bool = True, data_root: str | Path | None = None, execution: Execution | None = None,
-             progress: Progress | None = None) -> RunOutcome:
+             progress: Progress | None = None, signing: SigningKey | None = None,
+             signers: str | Path | None = None) -> RunOutcome:
     """Run every analysis of the plan and write record.json, report.html and report.md.
 
     The plan is compared with its lock (``lock``, or PLAN.lock.json beside it when that exists);
@@ -128,13 +133,18 @@ def run_plan(path: str | Path, *, out: str | Path | None = None, operator: str |
     The run is appended to the history log beside the run folders (unless ``history`` is False).
     ``execution`` chooses where the jobs run (serial by default; the numbers are the same);
     ``progress(done, total)`` hears of finished resamples. An interrupt while computing leaves
-    nothing behind: files are written only after every result is in.
+    nothing behind: files are written only after every result is in. With ``signing`` the record
+    and its history entry are signed as executed; a signers file (``signers``, or signers.yaml beside
+    the plan) is consulted before anything is computed (see `signfiles.check_run_signing`).
     """
     started = clock()
     checked = check_plan(path, params=params, data_root=data_root)
     loaded, tables, jobs = checked.loaded, checked.tables, checked.jobs
     assert tables is not None and jobs is not None
     lock_entry = lock_for_run(loaded, tables, lock, refuse_deviations=refuse_deviations)
+    check_run_signing(find_signers(loaded.folder, signers), signing, today=started.date(),
+                      lock_file=Path(lock) if lock is not None else lock_path_for(loaded.file),
+                      refuse_deviations=refuse_deviations)
     execution = execution or Execution()
     results, max_t = execute_plan(loaded.plan, jobs, execution=execution, progress=progress)
     finished = clock()
@@ -144,10 +154,13 @@ def run_plan(path: str | Path, *, out: str | Path | None = None, operator: str |
                      command=tuple(command or ["planrunner", "run", str(path)]),
                      execution=execution.describe(), lock=lock_entry, parameters=checked.parameters)
     record = build_record(loaded, tables, jobs, results, max_t, facts)
+    signature_files, sign_entry = (signed_run_files(signing, record, to_json(record), _stamp(clock()))
+                                   if signing is not None else ({}, None))
     out_root = Path(out) if out is not None else loaded.folder / "runs"
-    folder = write_run(out_root, f"{loaded.plan.plan}-{started.strftime('%Y%m%dT%H%M%SZ')}-{run_id[:8]}", record)
-    entry = append_history(out_root, record, folder.name, reason) if history else None
-    return RunOutcome(folder, record, entry)
+    folder = write_run(out_root, f"{loaded.plan.plan}-{started.strftime('%Y%m%dT%H%M%SZ')}-{run_id[:8]}", record,
+                       signature_files)
+    entry = append_history(out_root, record, folder.name, reason, sign_entry) if history else None
+    return RunOutcome(folder, record, entry, signing is not None)
 
 
 def execute_plan(plan: Plan, jobs: list[Job], *, execution: Execution | None = None,
@@ -165,8 +178,9 @@ def _run_id(loaded: LoadedPlan, tables: dict[str, Table], started: dt.datetime) 
     return digest.hexdigest()[:16]
 
 
-def write_run(out_root: Path, name: str, record: dict) -> Path:
-    """Render the reports, then write the record, both reports and their figures as a new run folder.
+def write_run(out_root: Path, name: str, record: dict, extra: dict[str, str] | None = None) -> Path:
+    """Render the reports, then write the record, both reports and their figures as a new run folder
+    (with ``extra``: the record's signature, when the run signs it).
 
     The reports are rendered before anything is created; `store.write_new_folder` writes every file
     into a staging folder and renames it into place, so a folder with a run's name always holds a
@@ -174,5 +188,5 @@ def write_run(out_root: Path, name: str, record: dict) -> Path:
     """
     require_plain_name(name)  # before rendering, so that a bad name never costs a render
     # report.html, report.md and the figures/*.svg files the Markdown report links to
-    files = {"record.json": to_json(record), **report.render_all(record)}
+    files = {"record.json": to_json(record), **report.render_all(record), **(extra or {})}
     return write_new_folder(out_root, name, files)

@@ -10,7 +10,7 @@ import json
 import os
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any
+from typing import Any, Callable
 
 from planrunner.record.canonical import RECORD_HASH_FIELD, canonical_json, record_sha256
 from planrunner.errors import PlanError, RecordError
@@ -83,8 +83,10 @@ def _exclusive(handle: Any) -> None:
     fcntl.flock(handle.fileno(), fcntl.LOCK_EX)
 
 
-def append_history(out_root: Path, record: dict, folder: str, reason: str | None) -> dict:
-    """Append one chained entry to out_root/history.jsonl (the file is only ever appended to)."""
+def append_history(out_root: Path, record: dict, folder: str, reason: str | None,
+                   sign: Callable[[dict], dict] | None = None) -> dict:
+    """Append one chained entry to out_root/history.jsonl (the file is only ever appended to);
+    ``sign`` gives the signature the entry carries (see `history.new_entry`)."""
     log = out_root / HISTORY_FILE
     with open(log, "a+", encoding="utf-8", newline="\n") as handle:
         _exclusive(handle)
@@ -92,7 +94,7 @@ def append_history(out_root: Path, record: dict, folder: str, reason: str | None
         text = handle.read()
         entries, _ = parse_lines(text)
         previous = {k: v for k, v in entries[-1].items() if k != "_line"} if entries else None
-        entry = new_entry(previous, record, folder, reason)
+        entry = new_entry(previous, record, folder, reason, sign)
         handle.seek(0, os.SEEK_END)
         if text and not text.endswith("\n"):
             handle.write("\n")

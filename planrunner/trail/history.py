@@ -13,7 +13,7 @@ from __future__ import annotations
 
 import json
 from dataclasses import dataclass
-from typing import Any
+from typing import Any, Callable
 
 from planrunner.record.canonical import self_hash
 
@@ -24,7 +24,9 @@ GENESIS = "0" * 64
 
 
 def new_entry(previous: dict[str, Any] | None, record: dict[str, Any], folder: str,
-              reason: str | None) -> dict[str, Any]:
+              reason: str | None, sign: Callable[[dict[str, Any]], dict[str, Any]] | None = None) -> dict[str, Any]:
+    """The next entry; ``sign`` (the run's signing, when it signs) gives the signature the entry carries,
+    over every other field, so that the entry's own hash covers the signature too."""
     entry: dict[str, Any] = {
         "format": HISTORY_FORMAT,
         "seq": 1 if previous is None else int(previous.get("seq", 0)) + 1,
@@ -38,6 +40,8 @@ def new_entry(previous: dict[str, Any] | None, record: dict[str, Any], folder: s
         "record_sha256": record.get("record_sha256"),
         "previous_sha256": GENESIS if previous is None else previous.get(ENTRY_HASH_FIELD),
     }
+    if sign is not None:
+        entry["signature"] = sign(entry)
     entry[ENTRY_HASH_FIELD] = self_hash(entry, ENTRY_HASH_FIELD)
     return entry
 

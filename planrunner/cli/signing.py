@@ -1,0 +1,163 @@
+"""Command line of signing: keygen, sign, the signing options of `run`, and printing signature checks.
+
+Passphrases are read from an environment variable, a file or the terminal, never from the command
+line: a run's command line is kept in its record.
+"""
+
+from __future__ import annotations
+
+import argparse
+import getpass
+import os
+import sys
+from pathlib import Path
+from typing import Any, Callable
+
+from planrunner.errors import SigningError
+
+EXIT_OK, EXIT_INPUT, EXIT_DIFFERS = 0, 2, 3
+
+
+def add_passphrase_options(verb: argparse.ArgumentParser) -> None:
+    verb.add_argument("--passphrase-env", metavar="VAR",
+                      help="read the key's passphrase from this environment variable")
+    verb.add_argument("--passphrase-file", metavar="FILE",
+                      help="read the key's passphrase from the first line of this file")
+
+
+def add_signing_verbs(verbs: Any) -> None:
+    from planrunner.trail.signatures import MEANINGS
+    keygen = verbs.add_parser("keygen", help="create an Ed25519 key pair for signing")
+    keygen.add_argument("key", help="the private key file to create (the public key goes to KEY.public.json)")
+    keygen.add_argument("--name", help="the owner's printed name, kept in the public key file")
+    add_passphrase_options(keygen)
+    keygen.add_argument("--no-passphrase", action="store_true",
+                        help="store the private key unencrypted (protect it by other means)")
+
+    sign = verbs.add_parser("sign", help="sign a record, a lock, a history entry or a qualification pack")
+    sign.add_argument("file", help="record.json (or its run folder), PLAN.lock.json, history.jsonl (with --entry) "
+                                   "or qualification.json")
+    sign.add_argument("--meaning", required=True, choices=MEANINGS, help="what the signature means")
+    sign.add_argument("--key", required=True, metavar="KEY", help="the private key file")
+    sign.add_argument("--name", required=True, help="the signer's printed name (as in the signers file)")
+    sign.add_argument("--entry", type=int, metavar="N", help="with a history.jsonl: the entry (its number) to sign")
+    add_passphrase_options(sign)
+
+
+def add_run_signing_options(run: argparse.ArgumentParser) -> None:
+    run.add_argument("--sign-key", metavar="KEY", help="sign the record and its history entry as executed with this key")
+    run.add_argument("--signer", metavar="NAME", help="with --sign-key: the signer's printed name")
+    run.add_argument("--signers", metavar="FILE", help="the trusted signers (default: signers.yaml beside the plan)")
+    add_passphrase_options(run)
+
+
+def _passphrase_given(args: argparse.Namespace) -> bytes | None:
+    if args.passphrase_env and args.passphrase_file:
+        raise SigningError("give the passphrase one way only", hint="--passphrase-env or --passphrase-file")
+    if args.passphrase_env:
+        value = os.environ.get(args.passphrase_env)
+        if value is None:
+            raise SigningError(f"the environment variable {args.passphrase_env} is not set",
+                               hint="set it, or use --passphrase-file")
+        return value.encode("utf-8")
+    if args.passphrase_file:
+        try:
+            text = Path(args.passphrase_file).read_text(encoding="utf-8")
+        except (OSError, UnicodeDecodeError) as exc:
+            raise SigningError(f"cannot read the passphrase file: {exc}", where=args.passphrase_file) from None
+        return text.splitlines()[0].encode("utf-8") if text else b""
+    return None
+
+
+def _ask(prompt: str) -> bytes:
+    return getpass.getpass(prompt).encode("utf-8")
+
+
+def signing_key(key: str, name: str | None, args: argparse.Namespace) -> Any:
+    """Unlock the key; ask for the passphrase on a terminal when it needs one and none was given."""
+    from planrunner.trail.signfiles import load_signing_key
+    if not name:
+        raise SigningError("a signature needs the signer's printed name", hint="give it with --signer NAME")
+    passphrase = _passphrase_given(args)
+    try:
+        return load_signing_key(key, passphrase, name)
+    except SigningError as exc:
+        if passphrase is None and "protected by a passphrase" in exc.message and sys.stdin.isatty():
+            return load_signing_key(key, _ask(f"passphrase for {key}: "), name)
+        raise
+
+
+def run_signing(args: argparse.Namespace) -> Any:
+    """The run's signing key, or None when the run is not signed."""
+    if args.sign_key is None:
+        if args.signer:
+            raise SigningError("--signer needs --sign-key KEY")
+        return None
+    return signing_key(args.sign_key, args.signer, args)
+
+
+def _keygen(args: argparse.Namespace) -> int:
+    from planrunner.trail.signfiles import generate_key
+    passphrase = _passphrase_given(args)
+    if passphrase is not None and args.no_passphrase:
+        raise SigningError("--no-passphrase contradicts the passphrase option")
+    if passphrase is None and not args.no_passphrase:
+        if not sys.stdin.isatty():
+            raise SigningError("a new key needs a passphrase",
+                               hint="give --passphrase-env VAR or --passphrase-file FILE, or --no-passphrase")
+        passphrase = _ask("passphrase for the new key: ")
+        if _ask("the same passphrase again: ") != passphrase:
+            raise SigningError("the two passphrases differ; no key was written")
+    if passphrase is not None and not passphrase:
+        raise SigningError("the passphrase is empty", hint="use --no-passphrase for a key without one")
+    made = generate_key(args.key, passphrase=passphrase, name=args.name)
+    print(f"private key written to {made.private} (readable by its owner only"
+          f"{', encrypted with the passphrase' if passphrase else ', NOT encrypted'})")
+    print(f"public key written to {made.public}")
+    print(f"fingerprint {made.fingerprint}")
+    print("to trust this key, add to signers.yaml beside the plan:")
+    print(f"  - name: {args.name or 'NAME'}\n    public_key: {made.public_key}\n    roles: [executor]")
+    return EXIT_OK
+
+
+def _sign(args: argparse.Namespace) -> int:
+    from planrunner.pipeline.run import _stamp, utc_now
+    from planrunner.trail.signatures import make_signature
+    from planrunner.trail.signfiles import entry_subject, file_subject, is_history, write_signature
+    if is_history(args.file):
+        if args.entry is None:
+            raise SigningError("name the history entry to sign", where=args.file, hint="give --entry N")
+        target, subject = Path(args.file), entry_subject(Path(args.file), args.entry)
+    else:
+        if args.entry is not None:
+            raise SigningError("--entry is only for a history.jsonl", where=args.file)
+        target, subject = file_subject(args.file)
+    key = signing_key(args.key, args.name, args)
+    document = make_signature(key, meaning=args.meaning, signed_utc=_stamp(utc_now()), subject=subject)
+    written = write_signature(target, subject, document)
+    print(f"signed {subject.describe()} as {args.meaning} by {document['signer']} "
+          f"(key {document['fingerprint'][:16]}) at {document['signed_utc']}")
+    print(f"signature written to {written}")
+    return EXIT_OK
+
+
+def signature_lines(report: Any) -> list[str]:
+    """Who signed what and when, and every signature that does not hold or is missing."""
+    lines = []
+    if report.signers is None:
+        lines.append("signatures: no signers file, so no signature can be trusted (none is required)")
+    else:
+        lines.append(f"signatures checked against {report.signers.file} (sha256 {report.signers.sha256})")
+    for f in report.findings:
+        head = (f"{f.subject}: {f.meaning} by {f.signer} (key {str(f.fingerprint)[:16]}) at {f.signed_utc}"
+                if f.signer is not None else f.subject)
+        state = {"valid": "valid", "unchecked": "not trusted", "invalid": "INVALID"}[f.verdict]
+        lines.append(f"  {state}: {head}" + ("" if f.valid else f": {f.message} [{f.where}]"))
+    for missing in report.unsigned:
+        lines.append(f"  UNSIGNED: {missing}")
+    if report.signers is not None or report.findings:
+        lines.append("signatures: PASSED" if report.passed else "signatures: FAILED")
+    return lines
+
+
+SIGNING_VERBS: dict[str, Callable[[argparse.Namespace], int]] = {"keygen": _keygen, "sign": _sign}

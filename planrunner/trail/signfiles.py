@@ -1,0 +1,306 @@
+"""The files of signing: key pairs, detached signature files, and the signers file.
+
+The logic is pure and lives in `planrunner.trail.signatures`; this module reads and writes. Like the
+rest of the audit trail, nothing is ever replaced: a key, a public key and a signature file are each
+created exclusively, and the private key is created readable by its owner only.
+
+Signature files sit beside what they sign, one per signature:
+`record.json.executed.3f2a9c1b7d4e5f60.sig.json`, `plan.lock.json.approved.<fingerprint>.sig.json`,
+`history.jsonl.entry-4.reviewed.<fingerprint>.sig.json`, `qualification.json.approved.<...>.sig.json`.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import hashlib
+import json
+import os
+import stat
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any, Callable
+
+from cryptography.hazmat.primitives import serialization
+from cryptography.hazmat.primitives.asymmetric.ed25519 import Ed25519PrivateKey
+
+from planrunner.errors import PlanrunnerError, SigningError
+from planrunner.plan.yamlsafe import dotted, load_yaml
+from planrunner.record.build import FORMAT as RECORD_FORMAT
+from planrunner.trail.history import HISTORY_FILE, parse_lines
+from planrunner.trail.lock import LOCK_FORMAT, LOCK_HASH_FIELD
+from planrunner.trail.signatures import (QUALIFICATION_FORMAT, QUALIFICATION_HASH_FIELD, Finding, Signers,
+                                         SigningKey, Subject, b64, check_signature, fingerprint,
+                                         history_entry_subject, make_signature, missing_meanings, parse_signers,
+                                         private_key_text, public_bytes, short, signing_problem)
+
+SIGNERS_FILE = "signers.yaml"
+PUBLIC_KEY_FORMAT = "planrunner.public-key/1"
+SIGNATURE_SUFFIX = ".sig.json"
+
+
+def _create(path: Path, data: bytes, mode: int) -> None:
+    """Create a new file with these permissions; an existing file is never replaced."""
+    try:
+        fd = os.open(path, os.O_WRONLY | os.O_CREAT | os.O_EXCL, mode)
+    except FileExistsError:
+        raise SigningError("the file exists already; planrunner never replaces a key or a signature",
+                           where=str(path), hint="choose another file name") from None
+    except OSError as exc:
+        raise SigningError(f"cannot create the file: {exc.strerror}", where=str(path)) from None
+    try:
+        os.fchmod(fd, mode)  # the umask may only narrow the mode; make it exactly this
+        with os.fdopen(fd, "wb") as handle:
+            handle.write(data)
+            handle.flush()
+            os.fsync(handle.fileno())
+    except BaseException:
+        path.unlink(missing_ok=True)
+        raise
+
+
+# --- keys ------------------------------------------------------------------------------------------
+
+@dataclass(frozen=True)
+class NewKey:
+    private: Path
+    public: Path
+    fingerprint: str
+    public_key: str  # base64 of the 32 raw bytes: what a signers file lists
+
+
+def public_key_path(private: Path) -> Path:
+    return private.with_name(f"{private.name}.public.json")
+
+
+def generate_key(private: str | Path, *, passphrase: bytes | None, name: str | None) -> NewKey:
+    """A new Ed25519 key pair: the private key (owner-only, encrypted under the passphrase when given)
+    and beside it the public key with its fingerprint."""
+    private = Path(private)
+    public = public_key_path(private)
+    if private.exists() or private.is_symlink():
+        raise SigningError("the file exists already; planrunner never replaces a key", where=str(private),
+                           hint="choose another key file name")
+    if public.exists():
+        raise SigningError("a public key file of that name exists already", where=str(public),
+                           hint="choose another key file name")
+    key = Ed25519PrivateKey.generate()
+    raw = public_bytes(key.public_key())
+    _create(private, private_key_text(key, passphrase), 0o600)
+    document = {"format": PUBLIC_KEY_FORMAT, "algorithm": "ed25519", "public_key": b64(raw),
+                "fingerprint": fingerprint(raw), "name": name}
+    try:
+        _create(public, (json.dumps(document, indent=2, sort_keys=True) + "\n").encode("utf-8"), 0o644)
+    except BaseException:
+        private.unlink(missing_ok=True)
+        raise
+    return NewKey(private, public, fingerprint(raw), b64(raw))
+
+
+def load_signing_key(path: str | Path, passphrase: bytes | None, signer: str) -> SigningKey:
+    """Unlock a private key for signing; refuse one that others may read, or a wrong passphrase."""
+    path = Path(path)
+    try:
+        mode = path.stat().st_mode
+        data = path.read_bytes()
+    except FileNotFoundError:
+        raise SigningError("key file not found", where=str(path), hint="create one with 'planrunner keygen'") from None
+    except OSError as exc:
+        raise SigningError(f"cannot read the key: {exc.strerror}", where=str(path)) from None
+    if os.name == "posix" and mode & (stat.S_IRWXG | stat.S_IRWXO):
+        raise SigningError(f"the private key may be read by others (permissions {stat.filemode(mode)})",
+                           where=str(path), hint=f"allow its owner only: chmod 600 {path}")
+    if not signer or not signer.strip():
+        raise SigningError("a signature needs the signer's printed name", hint="give it with --name")
+    try:
+        key = serialization.load_pem_private_key(data, password=passphrase or None)
+    except TypeError:
+        if passphrase:
+            raise SigningError("the key has no passphrase, but one was given", where=str(path),
+                               hint="leave out the passphrase option") from None
+        raise SigningError("the key is protected by a passphrase", where=str(path),
+                           hint="give it with --passphrase-env VAR or --passphrase-file FILE") from None
+    except ValueError:
+        raise SigningError("cannot unlock the key: wrong passphrase, or not a private key file",
+                           where=str(path), hint="check the passphrase and the key file") from None
+    if not isinstance(key, Ed25519PrivateKey):
+        raise SigningError("not an Ed25519 private key", where=str(path), hint="create one with 'planrunner keygen'")
+    return SigningKey(key, signer.strip())
+
+
+# --- what is signed --------------------------------------------------------------------------------
+
+def _read_json(path: Path, what: str) -> tuple[bytes, Any]:
+    try:
+        data = path.read_bytes()
+        return data, json.loads(data.decode("utf-8"))
+    except FileNotFoundError:
+        raise SigningError(f"{what} not found", where=str(path)) from None
+    except IsADirectoryError:
+        raise SigningError(f"this is a folder, not a {what}", where=str(path)) from None
+    except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
+        raise SigningError(f"cannot read the {what}: {exc}", where=str(path)) from None
+
+
+def file_subject(path: str | Path) -> tuple[Path, Subject]:
+    """The record (or run folder), lock or qualification pack at ``path`` as a subject to sign."""
+    file = Path(path)
+    if file.is_dir():
+        file = file / "record.json"
+    data, document = _read_json(file, "file to sign")
+    digest = hashlib.sha256(data).hexdigest()
+    kind = document.get("format") if isinstance(document, dict) else None
+    if kind == RECORD_FORMAT and isinstance(document.get("run_id"), str):
+        return file, Subject("record", file.name, digest, document["run_id"])
+    if kind == LOCK_FORMAT and isinstance(document.get(LOCK_HASH_FIELD), str):
+        return file, Subject("lock", file.name, digest, document[LOCK_HASH_FIELD])
+    if kind == QUALIFICATION_FORMAT and isinstance(document.get(QUALIFICATION_HASH_FIELD), str):
+        return file, Subject("qualification", file.name, digest, document[QUALIFICATION_HASH_FIELD])
+    raise SigningError("not a record, a lock, a history or a qualification pack", where=str(file),
+                       hint="sign a record.json (or its run folder), a PLAN.lock.json, a history.jsonl "
+                            "with --entry N, or a qualification.json")
+
+
+def history_entries(log: Path) -> list[dict]:
+    try:
+        text = log.read_text(encoding="utf-8")
+    except FileNotFoundError:
+        raise SigningError("no run history here", where=str(log)) from None
+    except (OSError, UnicodeDecodeError) as exc:
+        raise SigningError(f"cannot read the history: {exc}", where=str(log)) from None
+    return parse_lines(text)[0]
+
+
+def entry_subject(log: Path, seq: int) -> Subject:
+    for entry in history_entries(log):
+        if entry.get("seq") == seq:
+            return history_entry_subject(entry, log.name)
+    raise SigningError(f"the history has no entry {seq}", where=str(log), hint="'planrunner history' lists them")
+
+
+def is_history(path: str | Path) -> bool:
+    return Path(path).name == HISTORY_FILE
+
+
+# --- signature files -------------------------------------------------------------------------------
+
+def _prefix(target: Path, subject: Subject) -> str:
+    return f"{target.name}.entry-{subject.id}" if subject.kind == "history-entry" else target.name
+
+
+def write_signature(target: Path, subject: Subject, document: dict[str, Any]) -> Path:
+    """Write a signature beside what it signs, under a new name (never replacing one)."""
+    path = target.with_name(signature_name(target.name, subject, document))
+    if path.exists():
+        raise SigningError(f"{document['signer']} has signed this {subject.kind} as {document['meaning']} already",
+                           where=str(path), hint="a signature is given once; it is never replaced")
+    _create(path, signature_text(document).encode("utf-8"), 0o644)
+    return path
+
+
+def signature_text(document: dict[str, Any]) -> str:
+    return json.dumps(document, indent=2, sort_keys=True, ensure_ascii=False) + "\n"
+
+
+def signature_files(target: Path, subject: Subject) -> list[Path]:
+    return sorted(target.parent.glob(f"{_prefix(target, subject)}.*{SIGNATURE_SUFFIX}"))
+
+
+def check_files(target: Path, subject: Subject, signers: Signers | None) -> list[Finding]:
+    """Every signature file beside ``target`` that is meant for it, checked."""
+    findings = []
+    for path in signature_files(target, subject):
+        try:
+            document: Any = json.loads(path.read_text(encoding="utf-8"))
+        except (OSError, UnicodeDecodeError, json.JSONDecodeError):
+            document = None
+        findings.append(check_signature(document, subject, signers, str(path)))
+    return findings
+
+
+# --- the signers file ------------------------------------------------------------------------------
+
+def read_signers(path: str | Path) -> Signers:
+    """The trusted signers; every problem in the file at once, each with its line."""
+    path = Path(path)
+    shown = str(path)
+    try:
+        data = path.read_bytes()
+        text = data.decode("utf-8")
+    except FileNotFoundError:
+        raise SigningError("signers file not found", where=shown,
+                           hint=f"write {SIGNERS_FILE} beside the plan (see the README, 'Signatures')") from None
+    except (OSError, UnicodeDecodeError) as exc:
+        raise SigningError(f"cannot read the signers file: {exc}", where=shown) from None
+    try:
+        loaded = load_yaml(text, shown)
+    except PlanrunnerError as exc:
+        raise SigningError(exc.message, where=exc.where, hint=exc.hint) from None
+    signers, problems = parse_signers(loaded.data, file=shown, sha256=hashlib.sha256(data).hexdigest())
+    if signers is None:
+        lines = []
+        for where, message in problems:
+            p = loaded.position(where)
+            lines.append(f"{shown}:{p.line}:{p.column}: {dotted(where) if where else '(file)'}: {message}")
+        raise SigningError("\n".join(lines))
+    return signers
+
+
+def find_signers(folder: Path, given: str | Path | None) -> Signers | None:
+    """The signers file named on the command line, or signers.yaml in ``folder``; None if neither."""
+    if given is not None:
+        return read_signers(given)
+    beside = folder / SIGNERS_FILE
+    return read_signers(beside) if beside.is_file() else None
+
+
+# --- signing a run ---------------------------------------------------------------------------------
+
+def check_run_signing(signers: Signers | None, signing: SigningKey | None, *, lock_file: Path,
+                      refuse_deviations: bool, today: dt.date) -> None:
+    """Before a run computes: refuse a signing key the signers file does not trust for 'executed', a
+    missing key where the signers file requires signed runs, and (with --refuse-deviations) a lock
+    without the signatures the signers file requires."""
+    if signers is None:
+        return
+    required = set(signers.require["record"]) | set(signers.require["history-entry"])
+    if signing is None and "executed" in required:
+        raise SigningError("the signers file requires every run to be signed as executed", where=signers.file,
+                           hint="give --sign-key KEY and --signer NAME")
+    if signing is not None:
+        problem = signing_problem(signers, signing, "executed", today)
+        if problem is not None:
+            raise SigningError(f"this key cannot sign the run: {problem}", where=signers.file,
+                               hint="use a key listed with the role executor, or update the signers file")
+    if refuse_deviations and signers.require["lock"]:
+        if not lock_file.is_file():
+            return  # the missing lock is refused by lock_for_run with its own message
+        target, subject = file_subject(lock_file)
+        findings = check_files(target, subject, signers)
+        missing = missing_meanings(findings, signers.require["lock"])
+        if missing:
+            raise SigningError(f"the lock carries no valid {' or '.join(missing)} signature by a trusted signer",
+                               where=str(lock_file), hint=problems_hint(findings))
+
+
+def problems_hint(findings: list[Finding]) -> str:
+    shown = [f"{Path(f.where).name}: {f.message}" for f in findings if not f.valid]
+    return ("; ".join(shown) + "; " if shown else "") + "sign it with 'planrunner sign LOCK --meaning approved'"
+
+
+def signature_name(target_name: str, subject: Subject, document: dict[str, Any]) -> str:
+    prefix = f"{target_name}.entry-{subject.id}" if subject.kind == "history-entry" else target_name
+    return f"{prefix}.{document['meaning']}.{short(document['fingerprint'])}{SIGNATURE_SUFFIX}"
+
+
+def signed_run_files(signing: SigningKey, record: dict, record_text: str,
+                     signed_utc: str) -> tuple[dict[str, str], Callable[[dict], dict]]:
+    """The run's 'executed' signature of its record (a file to write into the run folder) and the
+    signing of its history entry."""
+    subject = Subject("record", "record.json", hashlib.sha256(record_text.encode("utf-8")).hexdigest(),
+                      record["run_id"])
+    document = make_signature(signing, meaning="executed", signed_utc=signed_utc, subject=subject)
+
+    def sign_entry(entry: dict) -> dict:
+        return make_signature(signing, meaning="executed", signed_utc=signed_utc,
+                              subject=history_entry_subject(entry, HISTORY_FILE))
+    return {signature_name("record.json", subject, document): signature_text(document)}, sign_entry
