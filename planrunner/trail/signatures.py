@@ -24,13 +24,15 @@ import binascii
 import datetime as dt
 import hashlib
 from dataclasses import dataclass, field
-from typing import Any
-
-from cryptography.exceptions import InvalidSignature
-from cryptography.hazmat.primitives import serialization
-from cryptography.hazmat.primitives.asymmetric.ed25519 import Ed25519PrivateKey, Ed25519PublicKey
+from typing import TYPE_CHECKING, Any
 
 from planrunner.record.canonical import canonical_json, content_sha256
+
+if TYPE_CHECKING:
+    from cryptography.hazmat.primitives.asymmetric.ed25519 import Ed25519PrivateKey, Ed25519PublicKey
+
+# `cryptography` is imported where a key is used, so that a run that neither signs nor checks a
+# signature does not load it (it adds to every command's start-up)
 
 SIGNATURE_FORMAT = "planrunner.signature/1"
 SIGNATURE_FIELD = "signature"
@@ -74,6 +76,7 @@ class SigningKey:
 
 
 def public_bytes(public: Ed25519PublicKey) -> bytes:
+    from cryptography.hazmat.primitives import serialization
     return public.public_bytes(serialization.Encoding.Raw, serialization.PublicFormat.Raw)
 
 
@@ -293,6 +296,8 @@ def _authentic(public_raw: bytes, doc: dict[str, Any]) -> bool:
     signature = unb64(doc.get(SIGNATURE_FIELD), 64)
     if signature is None:
         return False
+    from cryptography.exceptions import InvalidSignature
+    from cryptography.hazmat.primitives.asymmetric.ed25519 import Ed25519PublicKey
     try:
         Ed25519PublicKey.from_public_bytes(public_raw).verify(signature, signed_bytes(doc))
     except (InvalidSignature, ValueError):
@@ -372,6 +377,7 @@ def missing_meanings(findings: list[Finding], required: tuple[str, ...]) -> list
 
 def private_key_text(key: Ed25519PrivateKey, passphrase: bytes | None) -> bytes:
     """The private key as PEM (PKCS #8), encrypted with the passphrase when one is given."""
+    from cryptography.hazmat.primitives import serialization
     protection: serialization.KeySerializationEncryption = (
         serialization.BestAvailableEncryption(passphrase) if passphrase else serialization.NoEncryption())
     return key.private_bytes(serialization.Encoding.PEM, serialization.PrivateFormat.PKCS8, protection)

@@ -20,9 +20,6 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, Callable
 
-from cryptography.hazmat.primitives import serialization
-from cryptography.hazmat.primitives.asymmetric.ed25519 import Ed25519PrivateKey
-
 from planrunner.errors import PlanrunnerError, SigningError
 from planrunner.plan.yamlsafe import dotted, load_yaml
 from planrunner.record.build import FORMAT as RECORD_FORMAT
@@ -75,6 +72,7 @@ def public_key_path(private: Path) -> Path:
 def generate_key(private: str | Path, *, passphrase: bytes | None, name: str | None) -> NewKey:
     """A new Ed25519 key pair: the private key (owner-only, encrypted under the passphrase when given)
     and beside it the public key with its fingerprint."""
+    from cryptography.hazmat.primitives.asymmetric.ed25519 import Ed25519PrivateKey
     private = Path(private)
     public = public_key_path(private)
     if private.exists() or private.is_symlink():
@@ -111,6 +109,8 @@ def load_signing_key(path: str | Path, passphrase: bytes | None, signer: str) ->
                            where=str(path), hint=f"allow its owner only: chmod 600 {path}")
     if not signer or not signer.strip():
         raise SigningError("a signature needs the signer's printed name", hint="give it with --name")
+    from cryptography.hazmat.primitives import serialization
+    from cryptography.hazmat.primitives.asymmetric.ed25519 import Ed25519PrivateKey
     try:
         key = serialization.load_pem_private_key(data, password=passphrase or None)
     except TypeError:
