@@ -43,9 +43,10 @@ def record_signatures(record_file: Path, plan_file: Path, signers_file: str | Pa
         lock_file = plan_file.parent / lock["file"]
         if lock_file.is_file():
             lock_target, lock_subject = file_subject(lock_file)
-            if lock_subject.id != lock.get("lock_sha256"):
+            now = json.loads(lock_target.read_text(encoding="utf-8")).get("lock_sha256")
+            if now != lock.get("lock_sha256"):
                 unsigned.append(f"{lock_file}: not the lock this run was compared with (lock_sha256 "
-                                f"{lock_subject.id}, recorded {lock.get('lock_sha256')})")
+                                f"{now}, recorded {lock.get('lock_sha256')})")
             lock_findings = check_files(lock_target, lock_subject, signers)
             findings += lock_findings
             if signers is not None:

@@ -1,4 +1,5 @@
-"""Command line of signing: keygen, sign, the signing options of `run`, and printing signature checks.
+"""Command line of signing and qualification: keygen, sign, qualify, the signing options of `run`,
+and printing signature checks.
 
 Passphrases are read from an environment variable, a file or the terminal, never from the command
 line: a run's command line is kept in its record.
@@ -42,6 +43,13 @@ def add_signing_verbs(verbs: Any) -> None:
     sign.add_argument("--name", required=True, help="the signer's printed name (as in the signers file)")
     sign.add_argument("--entry", type=int, metavar="N", help="with a history.jsonl: the entry (its number) to sign")
     add_passphrase_options(sign)
+
+    qualify = verbs.add_parser("qualify", help="write the qualification pack: installation, operation, traceability")
+    qualify.add_argument("--out", metavar="DIR", help="the folder to write qualification.json and .html into")
+    qualify.add_argument("--plans", metavar="DIR",
+                         help="the folder of the demo plans (default: plans/ of the source tree, when there)")
+    qualify.add_argument("--check", metavar="PACK", help="check a pack's own hash and its signatures instead")
+    qualify.add_argument("--signers", metavar="FILE", help="with --check: the trusted signers")
 
 
 def add_run_signing_options(run: argparse.ArgumentParser) -> None:
@@ -141,6 +149,66 @@ def _sign(args: argparse.Namespace) -> int:
     return EXIT_OK
 
 
+def _qualify(args: argparse.Namespace) -> int:
+    from planrunner.audit.qualify import build_pack, check_pack, write_pack
+    from planrunner.pipeline.run import utc_now
+    if args.check:
+        return _check_pack(args, check_pack)
+    if args.out is None:
+        raise SigningError("name the folder for the pack", hint="give --out DIR (or --check PACK)")
+    if args.signers:
+        raise SigningError("--signers goes with --check")
+    plans = Path(args.plans) if args.plans else None
+    if plans is not None and not plans.is_dir():
+        raise SigningError("not a folder", where=str(plans), hint="name the folder holding the demo plans")
+    from planrunner.audit.qualify import default_plans_folder
+    pack = write_pack(args.out, build_pack(plans or default_plans_folder(), utc_now))
+    doc = pack.document
+    iq, op, trace = doc["installation"], doc["operation"], doc["traceability"]
+    verdict = {True: "passed", False: "NOT PASSED"}
+    print(f"planrunner {doc['planrunner']} qualification on Python {doc['platform']['python']}, "
+          f"{doc['platform']['platform']}")
+    print(f"installation: {verdict[iq['passed']]}: {iq['checked']} file(s) hashed against the wheel's RECORD"
+          + (f"; changed or missing: {', '.join(iq['changed_or_missing'])}" if iq["changed_or_missing"] else "")
+          + (f"; not in the RECORD: {', '.join(iq['unlisted'])}" if iq["unlisted"] else ""))
+    if iq["note"]:
+        print(f"  {iq['note']}")
+    unmet = [d for d in doc["dependencies"] if d["meets"] is False]
+    print(f"dependencies: {len(doc['dependencies'])} checked"
+          + ("".join(f"; {d['name']} {d['installed'] or 'not installed'} does not meet {d['required']}"
+                     for d in unmet) if unmet else ", every one meets its requirement"))
+    failed = [c for c in op["cases"] if not c["passed"]]
+    print(f"operation: {verdict[op['passed']]}: {len(op['cases']) - len(failed)} of {len(op['cases'])} case(s) pass")
+    for c in failed:
+        print(f"  FAIL {c['id']}: expected {c['expected']}, obtained {c['obtained']}" + (f" ({c['error']})" if c.get("error") else ""))
+    if op["note"]:
+        print(f"  {op['note']}")
+    print(f"traceability: {verdict[trace['passed']]}: {len(trace['rows'])} README section(s)"
+          + (f"; not traced: {', '.join(trace['gaps'])}" if trace["gaps"] else ""))
+    print(f"pack written to {pack.json_file} and {pack.html_file} (qualification_sha256 {doc['qualification_sha256']})")
+    print("qualification: PASSED" if doc["summary"]["qualified"] else "qualification: NOT PASSED")
+    return EXIT_OK if doc["summary"]["qualified"] else EXIT_DIFFERS
+
+
+def _check_pack(args: argparse.Namespace, check_pack: Callable) -> int:
+    from planrunner.audit.signing import SignatureReport
+    from planrunner.trail.signatures import missing_meanings
+    from planrunner.trail.signfiles import check_files, file_subject, read_signers
+    document, intact = check_pack(args.check)
+    target, subject = file_subject(Path(args.check) / "qualification.json" if Path(args.check).is_dir() else args.check)
+    signers = read_signers(args.signers) if args.signers else None
+    findings = check_files(target, subject, signers)
+    unsigned = ([f"{target}: no valid {m} signature by a trusted signer"
+                 for m in missing_meanings(findings, signers.require["qualification"])] if signers else [])
+    signatures = SignatureReport(signers, findings, unsigned)
+    print(f"{target}: {'hash matches' if intact else 'HASH DOES NOT MATCH: the pack was changed'}; "
+          f"qualified: {'yes' if document.get('summary', {}).get('qualified') else 'NO'}")
+    for line in signature_lines(signatures):
+        print(line)
+    ok = intact and signatures.passed and bool(document.get("summary", {}).get("qualified"))
+    return EXIT_OK if ok else EXIT_DIFFERS
+
+
 def signature_lines(report: Any) -> list[str]:
     """Who signed what and when, and every signature that does not hold or is missing."""
     lines = []
@@ -160,4 +228,5 @@ def signature_lines(report: Any) -> list[str]:
     return lines
 
 
-SIGNING_VERBS: dict[str, Callable[[argparse.Namespace], int]] = {"keygen": _keygen, "sign": _sign}
+SIGNING_VERBS: dict[str, Callable[[argparse.Namespace], int]] = {"keygen": _keygen, "sign": _sign,
+                                                                  "qualify": _qualify}

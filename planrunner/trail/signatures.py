@@ -3,10 +3,10 @@
 A signature is a small JSON document (`format: planrunner.signature/1`) kept beside what it signs:
 the signer's printed name, the fingerprint and public half of the Ed25519 key, the UTC time, the
 meaning (authored, reviewed, approved, executed) and the *subject*: the kind of document, its file
-name, the SHA-256 of what was signed and the document's own id (a run id, a lock hash, a history
-sequence number). The Ed25519 signature covers the canonical JSON of all of those, so none of them
-can be changed, and a signature copied beside another record names a subject that is not that
-record.
+name, the SHA-256 of what was signed and the document's own id (a run id, the time a lock or a
+qualification pack was made, a history sequence number). The Ed25519 signature covers the
+canonical JSON of all of those, so none of them can be changed, and a signature copied beside
+another record names a subject that is not that record.
 
 A signature proves only that the holder of a key signed. Whom a key belongs to, and what that person
 may sign, comes from the signers file kept with the plan (`signers.yaml`): each signer's name,

@@ -151,10 +151,12 @@ def file_subject(path: str | Path) -> tuple[Path, Subject]:
     kind = document.get("format") if isinstance(document, dict) else None
     if kind == RECORD_FORMAT and isinstance(document.get("run_id"), str):
         return file, Subject("record", file.name, digest, document["run_id"])
+    # the id names the document (its time of creation), the sha256 its content: an edit changes the
+    # one, a signature taken from another document the other
     if kind == LOCK_FORMAT and isinstance(document.get(LOCK_HASH_FIELD), str):
-        return file, Subject("lock", file.name, digest, document[LOCK_HASH_FIELD])
+        return file, Subject("lock", file.name, digest, str(document.get("locked_utc")))
     if kind == QUALIFICATION_FORMAT and isinstance(document.get(QUALIFICATION_HASH_FIELD), str):
-        return file, Subject("qualification", file.name, digest, document[QUALIFICATION_HASH_FIELD])
+        return file, Subject("qualification", file.name, digest, str(document.get("created_utc")))
     raise SigningError("not a record, a lock, a history or a qualification pack", where=str(file),
                        hint="sign a record.json (or its run folder), a PLAN.lock.json, a history.jsonl "
                             "with --entry N, or a qualification.json")

@@ -1,0 +1,144 @@
+"""The traceability matrix: each README section that makes a promise, and the tests that check it.
+
+Every `##` and `###` heading of the README is either in TRACE (with at least one test, named
+`tests/FILE::FUNCTION`) or in NO_PROMISE (with the reason it promises nothing a test could
+check). `tests/test_traceability.py` fails when a heading is in neither or a named test does not
+exist, so a new README section needs a line here. `planrunner qualify` prints the matrix.
+"""
+
+from __future__ import annotations
+
+import re
+
+AUDIT, SIGN, CLI = "tests/test_audit.py::", "tests/test_signatures.py::", "tests/test_cli.py::"
+QUALIFY = "tests/test_qualify.py::"
+
+TRACE: dict[str, tuple[str, ...]] = {
+    "planrunner": (CLI + "test_demo_plan_runs_and_writes_three_files",
+                   CLI + "test_rerun_gives_identical_numbers_in_a_new_folder",
+                   AUDIT + "test_verify_untouched_run_is_identical"),
+    "Set-up on a fresh machine (Python 3.11 or newer)": (
+        "tests/test_packaging.py::test_readme_has_exactly_two_setup_commands_and_ci_runs_the_test_one",
+        "tests/test_packaging.py::test_wheel_contains_templates", CLI + "test_demo_plan_runs_and_writes_three_files"),
+    "Commands": (CLI + "test_check_valid_plan_exit_0", CLI + "test_check_invalid_plan_exit_2_without_traceback",
+                 CLI + "test_missing_plan_and_bad_arguments_exit_2", CLI + "test_unexpected_failure_exit_1_with_versions",
+                 CLI + "test_python_dash_m_entry_point", "tests/test_faults.py::test_data_root_option",
+                 "tests/test_bad_inputs.py::test_bad_input_gives_one_clear_message"),
+    "The plan": ("tests/test_plan_corpus.py::test_invalid_plan_is_reported_where_and_what",
+                 "tests/test_fuzz_plans.py::test_random_yaml_like_text"),
+    "Top level": (AUDIT + "test_plan_schema_validates_every_plan", AUDIT + "test_plan_schema_rejects_an_unknown_key"),
+    "Datasets": ("tests/test_data.py::test_types_are_converted", "tests/test_data.py::test_missing_rows_dropped_and_counted",
+                 "tests/test_data.py::test_keep_filter_counts_exclusions", "tests/test_data.py::test_sha256_pin",
+                 "tests/test_data.py::test_symlink_out_of_the_plan_folder_is_refused",
+                 "tests/test_hardening.py::test_undeclared_columns_are_ignored_and_recorded",
+                 "tests/test_expr.py::test_random_typed_trees_match_the_reference"),
+    "Analyses": ("tests/test_plans_outside_values.py::test_pt_mouse_exact_permutation_from_a_plan",
+                 "tests/test_plans_outside_values.py::test_percentile_and_bca_agree_with_scipy_bootstrap",
+                 "tests/test_plans_bootstrap_designs.py::test_bs_mouse_exhaustive_from_a_plan",
+                 "tests/test_plans_bootstrap_designs.py::test_blocks_and_parametric_from_a_plan",
+                 "tests/test_plans_bootstrap_designs.py::test_on_degenerate_fail_from_a_plan",
+                 "tests/test_plans_bootstrap_designs.py::test_saved_distribution_matches_its_hash"),
+    "Statistics": ("tests/test_engines_statistics_registry.py::test_one_group_statistics_against_references",
+                   "tests/test_engines_statistics_registry.py::test_two_column_statistics_against_references",
+                   "tests/test_engines_statistics_registry.py::test_two_group_statistics_against_references",
+                   "tests/test_engines_statistics_registry.py::test_analytic_standard_errors"),
+    "The bootstrap design": ("tests/test_plans_bootstrap_designs.py::test_pairs_from_a_plan_give_the_ideal_paired_se",
+                             "tests/test_plans_bootstrap_designs.py::test_clusters_from_a_plan",
+                             "tests/test_engines_designs.py::test_clusters_are_resampled_within_strata",
+                             "tests/test_engines_bootstrap.py::test_strata_keep_cells_and_give_stratified_variance"),
+    "Multiplicity": ("tests/test_engines_randomization.py::test_adjustments_match_statsmodels_bh95",
+                     "tests/test_permutation_plans.py::test_max_t_family_end_to_end_and_order_free"),
+    "What planrunner refuses and why": ("tests/test_bad_inputs.py::test_bad_input_gives_one_clear_message",
+                                        "tests/test_plan_corpus.py::test_invalid_plan_is_reported_where_and_what",
+                                        "tests/test_permutation_plans.py::test_incomplete_pair_is_refused"),
+    "Methods and conventions": ("tests/test_engines_bootstrap.py::test_percentile_and_bca_agree_with_scipy",
+                                "tests/test_engines_bootstrap.py::test_z0_mid_rank_rule",
+                                "tests/test_engines_streams.py::test_generator_matches_documented_construction",
+                                "tests/test_engines_permutation.py::test_mouse_two_sided_matches_scipy"),
+    "Permutation and randomization tests": (
+        "tests/test_engines_permutation.py::test_mouse_exact",
+        "tests/test_permutation_plans.py::test_darwin_sign_flip_and_signed_rank",
+        "tests/test_permutation_plans.py::test_freedman_lane_by_definition",
+        "tests/test_permutation_plans.py::test_cluster_shuffle_by_definition_and_few_clusters_warning",
+        "tests/test_permutation_plans.py::test_shift_interval_rank_sum_is_the_hodges_lehmann_interval"),
+    "The record": (AUDIT + "test_record_schema_validates_real_records", AUDIT + "test_record_carries_the_hash_of_its_own_content",
+                   AUDIT + "test_methods_text_names_what_ran"),
+    "The reports": ("tests/test_report.py::test_html_is_self_contained",
+                    "tests/test_report.py::test_summary_table_comes_first_and_labels_p_values",
+                    "tests/test_report.py::test_numbers_are_rounded_by_their_monte_carlo_error",
+                    "tests/test_report.py::test_reports_are_byte_stable_for_the_same_record"),
+    "Parameters": (AUDIT + "test_parameter_fills_file_and_titles_and_is_recorded",
+                   AUDIT + "test_parameter_value_that_does_not_match_is_refused",
+                   AUDIT + "test_parameter_without_value_or_default_is_refused"),
+    "Audit trail": (AUDIT + "test_lock_then_edit_then_run_lists_the_deviation_with_its_path",
+                    AUDIT + "test_verify_untouched_run_is_identical", AUDIT + "test_history_lists_runs_and_the_chain_is_intact"),
+    "Locking a plan": (AUDIT + "test_lock_then_edit_then_run_lists_the_deviation_with_its_path",
+                       AUDIT + "test_changed_setting_and_changed_comment_are_told_apart",
+                       AUDIT + "test_data_changed_after_lock_is_a_deviation",
+                       AUDIT + "test_lock_is_never_replaced_and_an_edited_lock_is_refused",
+                       AUDIT + "test_refuse_deviations_without_a_lock_is_an_error"),
+    "Verifying a run": (AUDIT + "test_verify_fails_after_one_data_byte_changes",
+                        AUDIT + "test_verify_names_the_field_even_when_the_tamperer_rehashes",
+                        AUDIT + "test_same_environment_allows_no_monte_carlo_slack",
+                        AUDIT + "test_other_environment_allows_the_stated_monte_carlo_tolerance",
+                        AUDIT + "test_tolerance_rules", AUDIT + "test_verify_of_a_run_on_workers_passes_on_any_executor"),
+    "Run history": (AUDIT + "test_history_detects_an_edited_entry", AUDIT + "test_history_detects_a_removed_entry",
+                    AUDIT + "test_history_detects_a_replaced_record"),
+    "Signatures": (SIGN + "test_keygen_writes_an_owner_only_encrypted_key_and_never_replaces_it",
+                   SIGN + "test_wrong_or_missing_passphrase_is_exit_2_naming_the_key",
+                   SIGN + "test_a_signed_run_verifies_and_its_history_entry_carries_the_signature",
+                   SIGN + "test_a_signature_copied_onto_another_record_is_detected",
+                   SIGN + "test_a_signature_by_an_untrusted_key", SIGN + "test_a_removed_or_expired_signer",
+                   SIGN + "test_a_signer_without_the_role_and_a_wrong_name",
+                   SIGN + "test_refuse_deviations_requires_an_approved_lock", SIGN + "test_signing_a_history_entry",
+                   SIGN + "test_no_private_key_or_passphrase_is_ever_written",
+                   SIGN + "test_every_field_of_a_signature_is_bound"),
+    "Threat model: what the hashes, the chain and the signatures protect against": (
+        SIGN + "test_a_record_edited_with_a_recomputed_hash_fails_verify",
+        SIGN + "test_a_history_rewritten_with_recomputed_hashes_fails",
+        SIGN + "test_a_forged_signature_field_is_detected", SIGN + "test_a_removed_or_expired_signer",
+        AUDIT + "test_history_detects_a_removed_entry",
+        QUALIFY + "test_a_changed_installed_file_fails_the_installation_qualification"),
+    "Comparing runs": (AUDIT + "test_compare_shows_a_changed_estimate", AUDIT + "test_compare_lists_plan_differences"),
+    "JSON Schemas": (AUDIT + "test_plan_schema_validates_every_plan", AUDIT + "test_record_schema_validates_real_records",
+                     AUDIT + "test_schema_command_prints_json"),
+    "Self-check": (AUDIT + "test_selfcheck_passes_and_its_report_is_hashed", AUDIT + "test_a_failing_case_fails",
+                   AUDIT + "test_selfcheck_runs_from_the_built_wheel_alone"),
+    "Qualification": (QUALIFY + "test_a_changed_installed_file_fails_the_installation_qualification",
+                      QUALIFY + "test_the_pack_from_a_development_checkout",
+                      QUALIFY + "test_a_signed_pack_and_an_edited_pack",
+                      "tests/test_traceability.py::test_every_readme_section_is_traced_or_makes_no_promise"),
+    "Parallel and distributed runs": (
+        "tests/test_execution.py::test_demo_plan_identical_serial_threads_processes_and_dask",
+        "tests/test_execution.py::test_interrupt_stops_cleanly_without_a_record",
+        "tests/test_execution.py::test_progress_bar_is_silent_off_a_terminal_and_when_quiet",
+        "tests/test_execution.py::test_dask_missing_is_a_clear_error",
+        "tests/test_resample_ranges.py::test_bootstrap_split_ranges_are_bit_identical"),
+    "Speed and memory": (
+        "tests/test_execution.py::test_memory_of_one_engine_call_stays_bounded_as_resamples_grow",
+        "tests/test_engines_designs.py::test_order_fast_path_equals_plain_on_large_groups",
+        "tests/test_engines_permutation.py::test_key_window_path_is_range_invariant_and_equals_plain",
+        "tests/test_engines_randomization.py::test_sign_flip_byte_tables_equal_plain"),
+    "Standing caution": ("tests/test_report.py::test_provenance_lists_plan_data_exclusions_seed_environment",),
+}
+
+NO_PROMISE: dict[str, str] = {
+    "Measured": "timings of one machine on one day; tests never assert timings "
+                "(benchmarks/compare_scipy.py measures them again)",
+    "Development": "points to DEVELOPERS.md",
+}
+
+_HEADING = re.compile(r"^(#{1,3}) (.+?)\s*$")
+
+
+def readme_sections(text: str) -> list[tuple[str, int]]:
+    """(heading, line) of every #, ## and ### heading outside code blocks."""
+    sections, fenced = [], False
+    for number, line in enumerate(text.splitlines(), start=1):
+        if line.startswith("```"):
+            fenced = not fenced
+            continue
+        match = None if fenced else _HEADING.match(line)
+        if match:
+            sections.append((match.group(2), number))
+    return sections
