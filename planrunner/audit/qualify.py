@@ -31,7 +31,7 @@ from typing import Any, Callable
 import planrunner
 from planrunner.audit.trace import NO_PROMISE, TRACE, readme_sections
 from planrunner.audit.verbs import run_selfcheck, verify_record
-from planrunner.errors import PlanError
+from planrunner.errors import OutputError, RecordError
 from planrunner.record.canonical import self_hash
 from planrunner.trail.signatures import QUALIFICATION_FORMAT, QUALIFICATION_HASH_FIELD
 
@@ -268,20 +268,20 @@ def build_pack(plans: Path | None, clock: Callable[[], Any]) -> dict[str, Any]:
 
 def write_pack(out: str | Path, document: dict[str, Any]) -> Pack:
     """Write the JSON and the HTML into ``out`` (created if needed); existing files are never replaced."""
-    from planrunner.audit.verbs import write_new_file
     from planrunner.report.qualification import render_html
+    from planrunner.trail.store import write_new_file
     folder = Path(out)
     try:
         folder.mkdir(parents=True, exist_ok=True)
     except OSError as exc:
-        raise PlanError(f"cannot create the folder: {exc.strerror or exc}", where=str(folder)) from None
+        raise OutputError(f"cannot create the folder: {exc.strerror or exc}", where=str(folder)) from None
     for name in (PACK_JSON, PACK_HTML):
         if (folder / name).exists():
-            raise PlanError("a qualification pack is there already; it is never replaced", where=str(folder / name),
+            raise OutputError("a qualification pack is there already; it is never replaced", where=str(folder / name),
                             hint="choose a new folder with --out")
-    json_file = write_new_file(folder / PACK_JSON,
-                               json.dumps(document, indent=2, sort_keys=True, ensure_ascii=False) + "\n")
-    html_file = write_new_file(folder / PACK_HTML, render_html(document))
+    json_file = write_new_file(folder / PACK_JSON, json.dumps(document, indent=2, sort_keys=True,
+                                                              ensure_ascii=False) + "\n", what="qualification pack")
+    html_file = write_new_file(folder / PACK_HTML, render_html(document), what="qualification page")
     return Pack(json_file, html_file, document)
 
 
@@ -290,10 +290,8 @@ def check_pack(path: str | Path) -> tuple[dict[str, Any], bool]:
     file = Path(path)
     if file.is_dir():
         file = file / PACK_JSON
-    try:
-        document = json.loads(file.read_text(encoding="utf-8"))
-    except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
-        raise PlanError(f"cannot read the qualification pack: {exc}", where=str(file)) from None
+    from planrunner.trail.store import read_json
+    document = read_json(file, "qualification pack", hint="name a qualification.json written by 'planrunner qualify'")
     if not isinstance(document, dict) or document.get("format") != QUALIFICATION_FORMAT:
-        raise PlanError(f"not a qualification pack (format {QUALIFICATION_FORMAT} expected)", where=str(file))
+        raise RecordError(f"not a qualification pack (format {QUALIFICATION_FORMAT} expected)", where=str(file))
     return document, document.get(QUALIFICATION_HASH_FIELD) == self_hash(document, QUALIFICATION_HASH_FIELD)

@@ -15,7 +15,7 @@ from typing import TYPE_CHECKING, Any, Sequence
 
 from planrunner import __version__
 from planrunner.errors import (DataError, EngineError, ExpressionError, OutputError, PlanError, PlanrunnerError,
-                               RecordError)
+                               RecordError, SigningError)
 from planrunner.report.render import number, pvalue
 from planrunner.cli.audit import (AUDIT_VERBS, _add_audit_run_options, _add_audit_verbs, audit_summary,
                         check_lock_summary)
@@ -36,6 +36,7 @@ EXIT_FOR_ERROR: dict[type[PlanrunnerError], int] = {
     ExpressionError: EXIT_INPUT,  # a row filter
     RecordError: EXIT_INPUT,  # a record, lock, history or self-check report read back: missing or damaged
     OutputError: EXIT_INPUT,  # a new file or folder cannot be written (space, permission, name taken)
+    SigningError: EXIT_INPUT,  # a key, passphrase, signers file or file to sign that cannot be used
     PlanrunnerError: EXIT_INPUT,  # any other refusal (e.g. an executor that cannot be used)
 }
 

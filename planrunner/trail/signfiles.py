@@ -25,6 +25,7 @@ from planrunner.plan.yamlsafe import dotted, load_yaml
 from planrunner.record.build import FORMAT as RECORD_FORMAT
 from planrunner.trail.history import HISTORY_FILE, parse_lines
 from planrunner.trail.lock import LOCK_FORMAT, LOCK_HASH_FIELD
+from planrunner.trail.store import read_json, write_new_file
 from planrunner.trail.signatures import (QUALIFICATION_FORMAT, QUALIFICATION_HASH_FIELD, Finding, Signers,
                                          SigningKey, Subject, b64, check_signature, fingerprint,
                                          history_entry_subject, make_signature, missing_meanings, parse_signers,
@@ -36,7 +37,8 @@ SIGNATURE_SUFFIX = ".sig.json"
 
 
 def _create(path: Path, data: bytes, mode: int) -> None:
-    """Create a new file with these permissions; an existing file is never replaced."""
+    """Create a new file with these permissions; an existing file is never replaced. (For the private
+    key: `store.write_new_file` stages a copy under the default permissions first.)"""
     try:
         fd = os.open(path, os.O_WRONLY | os.O_CREAT | os.O_EXCL, mode)
     except FileExistsError:
@@ -87,7 +89,8 @@ def generate_key(private: str | Path, *, passphrase: bytes | None, name: str | N
     document = {"format": PUBLIC_KEY_FORMAT, "algorithm": "ed25519", "public_key": b64(raw),
                 "fingerprint": fingerprint(raw), "name": name}
     try:
-        _create(public, (json.dumps(document, indent=2, sort_keys=True) + "\n").encode("utf-8"), 0o644)
+        write_new_file(public, json.dumps(document, indent=2, sort_keys=True) + "\n", what="public key",
+                       hint="choose another key file name")
     except BaseException:
         private.unlink(missing_ok=True)
         raise
@@ -129,25 +132,14 @@ def load_signing_key(path: str | Path, passphrase: bytes | None, signer: str) ->
 
 # --- what is signed --------------------------------------------------------------------------------
 
-def _read_json(path: Path, what: str) -> tuple[bytes, Any]:
-    try:
-        data = path.read_bytes()
-        return data, json.loads(data.decode("utf-8"))
-    except FileNotFoundError:
-        raise SigningError(f"{what} not found", where=str(path)) from None
-    except IsADirectoryError:
-        raise SigningError(f"this is a folder, not a {what}", where=str(path)) from None
-    except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
-        raise SigningError(f"cannot read the {what}: {exc}", where=str(path)) from None
-
-
 def file_subject(path: str | Path) -> tuple[Path, Subject]:
     """The record (or run folder), lock or qualification pack at ``path`` as a subject to sign."""
     file = Path(path)
     if file.is_dir():
         file = file / "record.json"
-    data, document = _read_json(file, "file to sign")
-    digest = hashlib.sha256(data).hexdigest()
+    hint = "name a record.json (or its run folder), a lock, a history.jsonl with --entry N, or a qualification.json"
+    document = read_json(file, "file to sign", hint=hint, error=SigningError)
+    digest = hashlib.sha256(file.read_bytes()).hexdigest()
     kind = document.get("format") if isinstance(document, dict) else None
     if kind == RECORD_FORMAT and isinstance(document.get("run_id"), str):
         return file, Subject("record", file.name, digest, document["run_id"])
@@ -157,9 +149,7 @@ def file_subject(path: str | Path) -> tuple[Path, Subject]:
         return file, Subject("lock", file.name, digest, str(document.get("locked_utc")))
     if kind == QUALIFICATION_FORMAT and isinstance(document.get(QUALIFICATION_HASH_FIELD), str):
         return file, Subject("qualification", file.name, digest, str(document.get("created_utc")))
-    raise SigningError("not a record, a lock, a history or a qualification pack", where=str(file),
-                       hint="sign a record.json (or its run folder), a PLAN.lock.json, a history.jsonl "
-                            "with --entry N, or a qualification.json")
+    raise SigningError("not a record, a lock, a history or a qualification pack", where=str(file), hint=hint)
 
 
 def history_entries(log: Path) -> list[dict]:
@@ -192,11 +182,9 @@ def _prefix(target: Path, subject: Subject) -> str:
 def write_signature(target: Path, subject: Subject, document: dict[str, Any]) -> Path:
     """Write a signature beside what it signs, under a new name (never replacing one)."""
     path = target.with_name(signature_name(target.name, subject, document))
-    if path.exists():
-        raise SigningError(f"{document['signer']} has signed this {subject.kind} as {document['meaning']} already",
-                           where=str(path), hint="a signature is given once; it is never replaced")
-    _create(path, signature_text(document).encode("utf-8"), 0o644)
-    return path
+    return write_new_file(path, signature_text(document), what="signature",
+                          taken=f"{document['signer']} has signed this {subject.kind} as {document['meaning']} already",
+                          hint="a signature is given once; it is never replaced")
 
 
 def signature_text(document: dict[str, Any]) -> str:
