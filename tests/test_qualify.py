@@ -16,6 +16,7 @@ from pathlib import Path
 import pytest
 
 from planrunner.audit.qualify import _record_digest
+from planrunner.audit.selfcheck import CASES
 from planrunner.audit.trace import readme_sections
 from planrunner.cli import main as cli
 from planrunner.record.canonical import self_hash
@@ -71,13 +72,13 @@ def test_the_pack_from_the_installed_wheel_passes(wheel_pack):
     demos = [c for c in cases if c["kind"] == "demo plan"]
     assert [c["id"] for c in demos] == ["demo liner-trial", "demo monthly-fill", "demo ward-hygiene"]
     assert all(c["obtained"] == 0 and c["numbers_compared"] > 0 for c in demos)
-    assert any(c["id"] == "PT-MOUSE greater" for c in cases)
+    assert {c.id for c in CASES} <= {c["id"] for c in cases if c["kind"] == "self-check"}
     for case in cases:
         assert {"source", "expected", "obtained", "tolerance"} <= set(case) and case["passed"]
     readme = (ROOT / "README.md").read_text(encoding="utf-8")
     assert [r["section"] for r in doc["traceability"]["rows"]] == [h for h, _ in readme_sections(readme)]
     html = (wheel_pack / "qualification.html").read_text(encoding="utf-8")
-    assert doc["qualification_sha256"] in html and "Traceability" in html and "PT-MOUSE greater" in html
+    assert doc["qualification_sha256"] in html and "Traceability" in html and CASES[0].id in html
 
 
 def test_a_changed_installed_file_fails_the_installation_qualification(wheel_site, tmp_path):

@@ -342,7 +342,7 @@ def test_no_private_key_or_passphrase_is_ever_written(project, capsys, tmp_path)
 # --- the pure signature logic ----------------------------------------------------------------------
 
 def test_ed25519_signature_of_the_rfc8032_first_test_vector():
-    """The primitive underneath: RFC 8032 §7.1 TEST 1 (empty message). # from memory"""
+    """The primitive underneath: RFC 8032 §7.1 TEST 1, the empty message (V-ED25519)."""
     secret = bytes.fromhex("9d61b19deffd5a60ba844af492ec2cc44449c5697b326919703bac031cae7f60")
     key = Ed25519PrivateKey.from_private_bytes(secret)
     signing = SigningKey(key, "vector")

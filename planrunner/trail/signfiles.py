@@ -112,6 +112,7 @@ def load_signing_key(path: str | Path, passphrase: bytes | None, signer: str) ->
                            where=str(path), hint=f"allow its owner only: chmod 600 {path}")
     if not signer or not signer.strip():
         raise SigningError("a signature needs the signer's printed name", hint="give it with --name")
+    from cryptography.exceptions import UnsupportedAlgorithm
     from cryptography.hazmat.primitives import serialization
     from cryptography.hazmat.primitives.asymmetric.ed25519 import Ed25519PrivateKey
     try:
@@ -122,7 +123,7 @@ def load_signing_key(path: str | Path, passphrase: bytes | None, signer: str) ->
                                hint="leave out the passphrase option") from None
         raise SigningError("the key is protected by a passphrase", where=str(path),
                            hint="give it with --passphrase-env VAR or --passphrase-file FILE") from None
-    except ValueError:
+    except (ValueError, UnsupportedAlgorithm):
         raise SigningError("cannot unlock the key: wrong passphrase, or not a private key file",
                            where=str(path), hint="check the passphrase and the key file") from None
     if not isinstance(key, Ed25519PrivateKey):
