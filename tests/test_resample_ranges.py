@@ -6,9 +6,12 @@ import numpy as np
 import pytest
 
 from planrunner.engines.blocks import resample_ranges, map_resamples, mapping_ranges
+from planrunner.engines.association import association_test
 from planrunner.engines.bootstrap import BootstrapOptions, bootstrap
+from planrunner.engines.clusters import cluster_test
 from planrunner.engines.permcore import PermutationOptions
 from planrunner.engines.permutation import permutation_test
+from planrunner.engines.signflip import signflip_test
 from planrunner.engines.statistics import get_statistic
 from planrunner.engines.streams import stream_for
 
@@ -91,3 +94,40 @@ def test_monte_carlo_permutation_split_ranges_are_bit_identical():
         split = permutation_test(groups, statistic, **kwargs)
     assert seen == [[(0, 1440), (1440, 2880), (2880, 4321)]]  # two ranges start inside a draw block
     assert split.null.tobytes() == whole.null.tobytes() and split.p_value == whole.p_value
+
+
+def _split_equals_whole(run) -> None:
+    whole = run()
+    seen: list = []
+    with mapping_ranges(out_of_order(seen)):
+        split = run()
+    assert seen == [[(0, 1440), (1440, 2880), (2880, 4321)]]  # two ranges start inside a draw block
+    assert split.null.tobytes() == whole.null.tobytes() and split.p_value == whole.p_value
+
+
+@pytest.mark.parametrize("name", ["mean_difference", "signed_rank", "median_difference"])
+def test_sign_flip_split_ranges_are_bit_identical(name):
+    x, y = RNG.normal(size=70), RNG.normal(0.2, size=70)
+    options = PermutationOptions(4321, "two-sided", exact="never")
+    _split_equals_whole(lambda: signflip_test(x, y, get_statistic(name), options, stream=stream_for(7, name),
+                                              batch_elements=999))
+
+
+@pytest.mark.parametrize("name", ["mean_difference", "median_difference"])
+def test_cluster_split_ranges_are_bit_identical(name):
+    x, y = RNG.normal(size=60), RNG.normal(0.3, size=50)
+    cx, cy = np.repeat(np.arange(12), 5), np.repeat(np.arange(12, 22), 5)
+    options = PermutationOptions(4321, "greater", exact="never")
+    _split_equals_whole(lambda: cluster_test(x, y, cx, cy, get_statistic(name), options,
+                                             stream=stream_for(8, name), batch_elements=999))
+
+
+@pytest.mark.parametrize("covariates", [False, True])
+def test_association_split_ranges_are_bit_identical(covariates):
+    x = RNG.normal(size=40)
+    z = RNG.normal(size=(40, 2))
+    xy = np.column_stack([x, 0.4 * x + z @ [0.5, -0.2] + RNG.normal(size=40)])
+    statistic = get_statistic("slope" if covariates else "spearman")
+    options = PermutationOptions(4321, "two-sided", exact="never")
+    _split_equals_whole(lambda: association_test(xy, statistic, options, stream=stream_for(9, "assoc"),
+                                                 covariates=z if covariates else None, batch_elements=999))

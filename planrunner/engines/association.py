@@ -23,6 +23,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from planrunner.engines.blocks import bind as range_task
+from planrunner.engines.blocks import map_resamples
 from planrunner.engines.permcore import (ENUMERATION, ComputedNull, Description, PermutationOptions, all_ties,
                                          check_null, choose_computation, observed_value, permutation_result,
                                          tie_tolerance)
@@ -113,8 +114,9 @@ def _null(model: _Model, statistic: Statistic, options: PermutationOptions, stre
             order = np.array(list(itertools.islice(listing, rows)), dtype=np.int64).reshape(rows, n)
             null[start:start + rows] = _evaluate(model, statistic, order)
         return ComputedNull(null, path, arrangements)
+    # ranges of resamples may run on other workers (engines.blocks); the same numbers
     task = range_task(_drawn_range, model, statistic, stream, rows_per_batch)
-    return ComputedNull(task(0, options.resamples), path, arrangements)
+    return ComputedNull(map_resamples(task, options.resamples), path, arrangements)
 
 
 def _drawn_range(model: _Model, statistic: Statistic, stream: Stream, rows_per_batch: int,
@@ -134,6 +136,7 @@ def _evaluate(model: _Model, statistic: Statistic, order: np.ndarray) -> np.ndar
     with np.errstate(invalid="ignore", divide="ignore"):
         if model.residual is not None:
             assert model.weights_x is not None
-            return model.residual[order] @ model.weights_x
+            # row-wise sums, not a BLAS product, whose rounding depends on how many rows share a call
+            return np.multiply(model.residual[order], model.weights_x).sum(axis=1)
         stacked = np.stack([np.broadcast_to(model.x, order.shape), model.y[order]], axis=-2)
         return statistic.compute(np.ascontiguousarray(stacked))
