@@ -47,8 +47,10 @@ sys.path.insert(0, str(Path(__file__).resolve().parents[1]))  # run from a check
 
 from planrunner import __version__  # noqa: E402
 from planrunner.execute import executors as execute  # noqa: E402,F401  (registered statistics then pickle by name)
+from planrunner.engines.association import association_test  # noqa: E402
 from planrunner.engines.blocks import mapping_ranges, resample_ranges  # noqa: E402
 from planrunner.engines.bootstrap import BootstrapOptions, bootstrap  # noqa: E402
+from planrunner.engines.clusters import cluster_test  # noqa: E402
 from planrunner.engines.jackknife import jackknife  # noqa: E402
 from planrunner.engines.permcore import PermutationOptions  # noqa: E402
 from planrunner.engines.permutation import permutation_test  # noqa: E402
@@ -202,6 +204,43 @@ def workloads(seed: int) -> list[Workload]:
     ]
 
 
+def design_workloads(seed: int) -> list[Workload]:
+    """The permutation designs beyond two groups, planrunner only (scipy.stats has none of them):
+    run with and without ``--workers 2`` to see what spreading their resample ranges gains."""
+    rng = np.random.default_rng(seed + 1)
+    clusters = np.repeat(np.arange(100), 20)  # 100 clusters of 20 rows, 50 in each group
+    effect = rng.normal(0.0, 0.5, size=100)[clusters]
+    rows = rng.gamma(2.0, 10.0, size=clusters.size) + effect
+    first = clusters < 50
+    predictor, covariates = rng.normal(size=2000), rng.normal(size=(2000, 2))
+    outcome = 0.1 * predictor + covariates @ [0.5, -0.3] + rng.normal(size=2000)
+    B = 10_000
+
+    def options(alternative: str) -> PermutationOptions:
+        return PermutationOptions(resamples=B, alternative=alternative, exact="never")
+
+    def p_only(ours: Any, ref: Any) -> str:
+        return f"p {ours.p_value:.4g}"
+
+    return [
+        Workload("D1", "sign-flip test, median difference (plain computation), 2000 pairs, 1e4 resamples",
+                 lambda: signflip_test(outcome, predictor, get_statistic("median_difference"), options("two-sided"),
+                                       stream=stream_for(seed, "benchmark")), None, p_only, None, 200),
+        Workload("D2", "cluster permutation, median difference, 100 clusters of 20 rows, 1e4 resamples",
+                 lambda: cluster_test(rows[first], rows[~first], clusters[first], clusters[~first],
+                                      get_statistic("median_difference"), options("two-sided"),
+                                      stream=stream_for(seed, "benchmark")), None, p_only, None, 200),
+        Workload("D3", "association, Freedman–Lane partial slope, n = 2000, 2 covariates, 1e4 resamples",
+                 lambda: association_test(np.column_stack([predictor, outcome]), get_statistic("slope"),
+                                          options("two-sided"), stream=stream_for(seed, "benchmark"),
+                                          covariates=covariates), None, p_only, None, 200),
+        Workload("D4", "association, Spearman correlation, n = 500, 1e4 resamples",
+                 lambda: association_test(np.column_stack([predictor[:500], outcome[:500]]), get_statistic("spearman"),
+                                          options("two-sided"), stream=stream_for(seed, "benchmark")),
+                 None, p_only, None, 200),
+    ]
+
+
 def _timed(call: Callable[[], Any]) -> tuple[float, Any]:
     gc.collect()
     start = time.perf_counter()
@@ -266,7 +305,7 @@ def main(argv: list[str] | None = None) -> int:
           f"{' (threads)' if args.threads and args.workers > 1 else ' (processes)' if args.workers > 1 else ''}")
     header = ("work", "ours s", "scipy s", "ratio", "target", "ours MB", "scipy MB", "check", "")
     print("  ".join(f"{h:>8}" if i and i < 7 else h for i, h in enumerate(header)))
-    for w in workloads(args.seed):
+    for w in workloads(args.seed) + design_workloads(args.seed):
         if (chosen is not None and w.name not in chosen) or (args.skip_large and w.name == "L1"):
             continue
         repeats = 1 if w.name == "L1" else args.repeats
