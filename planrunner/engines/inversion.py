@@ -76,31 +76,17 @@ def shift_interval(x: np.ndarray, y: np.ndarray, statistic: Statistic, options: 
     spread = float(np.ptp(np.concatenate([x, y]))) or 1.0
     centre = null_centre(pooled, statistic)
 
-    def observed(delta: float) -> float:
-        return float(statistic.compute(x - delta, y))
-
     def pvalues(delta: float) -> tuple[float, float]:
         shifted = pooled.values - delta * is_x
         moved = type(pooled)(shifted, pooled.stratum, pooled.slots, pooled.blocks)
         null = _evaluate(moved, statistic, iter(cached) if cached is not None else fresh(), total, fast=False)
-        t = observed(delta)
+        t = float(statistic.compute(x - delta, y))
         tol = tie_tolerance(t, float(np.max(np.abs(shifted))))
         m = null.size
         return ((np.count_nonzero(null >= t - tol) + adjust) / (m + adjust),
                 (np.count_nonzero(null <= t + tol) + adjust) / (m + adjust))
 
-    # estimate: statistic(x − δ, y) = centre; the statistic falls as δ grows
-    if statistic.name == "rank_sum":
-        estimate = float(np.median(np.subtract.outer(x, y)))  # Hodges–Lehmann
-    else:
-        base = float(np.median(x) - np.median(y))
-        lo, hi = base - spread, base + spread
-        while observed(lo) < centre:
-            lo -= spread
-        while observed(hi) > centre:
-            hi += spread
-        estimate = _bisect(lambda d: observed(d) >= centre, lo, hi)
-
+    estimate = _shift_estimate(x, y, statistic, centre, spread)
     alpha = 1.0 - confidence
     tail = alpha / 2.0
 
@@ -113,20 +99,42 @@ def shift_interval(x: np.ndarray, y: np.ndarray, statistic: Statistic, options: 
     if not (in_lower(estimate) and in_upper(estimate)):
         raise EngineError("the shift estimate itself is rejected; the test cannot be inverted on these data")
     note = f"location shift δ of the first group over the second (estimate {estimate:.6g}), by test inversion"
-    bounds: list[float | None] = []
-    for test, sign in ((in_lower, -1.0), (in_upper, 1.0)):
-        step = spread
-        outside = estimate + sign * step
-        tries = 0
-        while test(outside) and tries < 40:
-            step *= 2.0
-            outside = estimate + sign * step
-            tries += 1
-        if test(outside):
-            bounds.append(None)
+    bounds = [_bound(in_lower, estimate, -spread), _bound(in_upper, estimate, spread)]
+    for bound in bounds:
+        if bound is None:
             note += ("; too few arrangements to reject any shift on this side at this confidence, "
                      "so the interval is unbounded there")
-        else:
-            bounds.append(_bisect(test, estimate, outside))
     interval = Interval(method="shift", level=confidence, lower=bounds[0], upper=bounds[1], note=note)
     return interval, estimate
+
+
+def _shift_estimate(x: np.ndarray, y: np.ndarray, statistic: Statistic, centre: float, spread: float) -> float:
+    """The δ at which statistic(x − δ, y) reaches ``centre`` (it falls as δ grows): the
+    Hodges–Lehmann median of pairwise differences for the rank sum, else by bisection."""
+    if statistic.name == "rank_sum":
+        return float(np.median(np.subtract.outer(x, y)))
+
+    def observed(delta: float) -> float:
+        return float(statistic.compute(x - delta, y))
+
+    base = float(np.median(x) - np.median(y))
+    lo, hi = base - spread, base + spread
+    while observed(lo) < centre:
+        lo -= spread
+    while observed(hi) > centre:
+        hi += spread
+    return _bisect(lambda d: observed(d) >= centre, lo, hi)
+
+
+def _bound(test: Callable[[float], bool], estimate: float, step: float) -> float | None:
+    """The end of the interval on the side of ``step``'s sign: the bracket doubles out from the
+    estimate (at most 40 times), then bisection; None when no shift on that side is rejected."""
+    outside = estimate + step
+    tries = 0
+    while test(outside) and tries < 40:
+        step *= 2.0
+        outside = estimate + step
+        tries += 1
+    if test(outside):
+        return None
+    return _bisect(test, estimate, outside)
