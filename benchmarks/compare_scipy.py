@@ -14,8 +14,8 @@ that a busy machine slows both alike; the table shows the median time of each, t
 measured separately with tracemalloc (numpy reports its buffers to it) so that tracing does not
 distort the times. With ``--workers N`` planrunner's resample ranges run on N worker processes, as
 ``planrunner run --workers N`` does (scipy stays single-threaded; the serial run is the headline
-figure; the memory column then covers the parent process only). A check column shows that both computed the same thing (standard errors within
-Monte Carlo error, the same exact p-value).
+figure; the memory column then covers the parent process only). A check column shows that both
+computed the same thing (standard errors within Monte Carlo error, the same exact p-value).
 
 There is no public jackknife in scipy.stats; the J1/J2 reference is the delete-one construction that
 scipy.stats.bootstrap uses for its BCa acceleration (every deletion as a row of an n × (n−1) index
@@ -46,7 +46,6 @@ import scipy.stats as st
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))  # run from a checkout without installing
 
 from planrunner import __version__  # noqa: E402
-from planrunner.execute import executors as execute  # noqa: E402,F401  (registered statistics then pickle by name)
 from planrunner.engines.association import association_test  # noqa: E402
 from planrunner.engines.blocks import mapping_ranges, resample_ranges  # noqa: E402
 from planrunner.engines.bootstrap import BootstrapOptions, bootstrap  # noqa: E402
@@ -57,6 +56,7 @@ from planrunner.engines.permutation import permutation_test  # noqa: E402
 from planrunner.engines.signflip import signflip_test  # noqa: E402
 from planrunner.engines.statistics import get_statistic  # noqa: E402
 from planrunner.engines.streams import UniformRows, stream_for  # noqa: E402
+from planrunner.execute import executors as execute  # noqa: E402,F401  (registered statistics then pickle by name)
 
 MB = 2 ** 20
 
@@ -289,7 +289,7 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--threads", action="store_true",
                         help="the workers are threads of this process (planrunner run --executor threads)")
     args = parser.parse_args(argv)
-    pool = None
+    pool: Any = None  # a thread pool or a process pool
     if args.workers > 1 and args.threads:
         pool = concurrent.futures.ThreadPoolExecutor(args.workers)
     elif args.workers > 1:

@@ -139,7 +139,8 @@ class Browser:
             elif event["method"] == "Runtime.exceptionThrown":
                 found.append(f"exception: {params.get('exceptionDetails')}")
             elif event["method"] == "Log.entryAdded" and params.get("entry", {}).get("level") in ("error", "warning"):
-                found.append(f"log {params['entry']['level']}: {params['entry'].get('text')} {params['entry'].get('url', '')}")
+                entry = params["entry"]
+                found.append(f"log {entry['level']}: {entry.get('text')} {entry.get('url', '')}")
         return found
 
     def requests(self) -> list[str]:

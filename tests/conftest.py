@@ -8,7 +8,7 @@ from pathlib import Path
 
 import pytest
 
-FIXED_TIME = dt.datetime(2026, 12, 1, 9, 30, tzinfo=dt.timezone.utc)
+FIXED_TIME = dt.datetime(2026, 12, 1, 9, 30, tzinfo=dt.UTC)
 
 
 def fixed_clock() -> dt.datetime:

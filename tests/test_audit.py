@@ -10,11 +10,11 @@ from pathlib import Path
 import jsonschema
 import pytest
 
-from planrunner.cli import main as cli
 from planrunner.audit.verbs import FieldDifference, _judge
+from planrunner.cli import main as cli
+from planrunner.plan.yamlsafe import load_yaml
 from planrunner.record.canonical import record_sha256
 from planrunner.record.schemas import plan_schema, record_schema
-from planrunner.plan.yamlsafe import load_yaml
 
 ROOT = Path(__file__).resolve().parent.parent
 MONTHLY = ROOT / "plans" / "monthly-fill"
@@ -84,7 +84,8 @@ def test_changed_setting_and_changed_comment_are_told_apart(project, capsys):
     entry = record["plan"]["lock"]
     assert entry["deviations"] == [] and entry["content_identical"] and not entry["plan_bytes_identical"]
     assert "no deviations; only comments or layout changed" in out
-    project.write_text(project.read_text(encoding="utf-8").replace("seed: 20261101", "seed: 20261102"), encoding="utf-8")
+    project.write_text(project.read_text(encoding="utf-8").replace("seed: 20261101", "seed: 20261102"),
+                       encoding="utf-8")
     _, record, _ = run_plan(project, capsys)
     assert record["plan"]["lock"]["deviations"] == [{"path": "seed", "locked": 20261101, "now": 20261102}]
 
@@ -359,7 +360,8 @@ def test_compare_shows_a_changed_estimate(project, capsys, tmp_path):
 
 def test_compare_lists_plan_differences(project, capsys):
     first, _, _ = run_plan(project, capsys)
-    project.write_text(project.read_text(encoding="utf-8").replace("resamples: 999", "resamples: 499"), encoding="utf-8")
+    project.write_text(project.read_text(encoding="utf-8").replace("resamples: 999", "resamples: 499"),
+                       encoding="utf-8")
     second, _, _ = run_plan(project, capsys)
     _, out, _ = run(["compare", str(first), str(second)], capsys)
     assert "defaults.resamples  999   499" in out or ("defaults.resamples" in out and "499" in out)

@@ -25,10 +25,8 @@ from pathlib import Path
 import pytest
 
 from planrunner.cli import main as cli
-
-from planrunner.plan import load as plancheck
-
 from planrunner.pipeline import run as runner
+from planrunner.plan import load as plancheck
 
 HERE = Path(__file__).resolve().parent
 PLANS = sorted((HERE / "invalid_plans").glob("*.yaml"))

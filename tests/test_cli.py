@@ -8,8 +8,6 @@ import subprocess
 import sys
 from pathlib import Path
 
-import pytest
-
 from planrunner.cli import main as cli
 
 ROOT = Path(__file__).resolve().parent.parent
@@ -86,7 +84,8 @@ def test_changed_data_file_under_pin_exit_2(tmp_path, capsys):
     shutil.copytree(DEMO.parent, folder, ignore=shutil.ignore_patterns("runs"))
     plan = folder / "plan.yaml"
     plan.write_text(plan.read_text(encoding="utf-8").replace(
-        "    file: data/shipments.csv\n", "    file: data/shipments.csv\n    sha256: " + "a" * 64 + "\n"), encoding="utf-8")
+        "    file: data/shipments.csv\n", "    file: data/shipments.csv\n    sha256: " + "a" * 64 + "\n"),
+        encoding="utf-8")
     assert cli.main(["run", str(plan), "--out", str(tmp_path / "out")]) == 2
     assert "the file has changed" in capsys.readouterr().err
     assert not (tmp_path / "out").exists() or not any((tmp_path / "out").iterdir())

@@ -329,8 +329,10 @@ def _sums_by_argsort(keys, values, stratum, slots):
 def test_key_window_sums_equal_the_sorted_contract(sizes) -> None:
     from planrunner.engines.permutation import _first_group_sums, _pool
     rng = np.random.default_rng(len(sizes))
-    data = [np.concatenate([rng.normal(size=a) for a, _ in sizes]), np.concatenate([rng.normal(size=b) for _, b in sizes])]
-    codes = [np.repeat(np.arange(len(sizes)), [a for a, _ in sizes]), np.repeat(np.arange(len(sizes)), [b for _, b in sizes])]
+    data = [np.concatenate([rng.normal(size=a) for a, _ in sizes]),
+            np.concatenate([rng.normal(size=b) for _, b in sizes])]
+    codes = [np.repeat(np.arange(len(sizes)), [a for a, _ in sizes]),
+             np.repeat(np.arange(len(sizes)), [b for _, b in sizes])]
     pooled = _pool(tuple(data), tuple(codes))
     width = pooled.values.shape[0]
     keys = rng.random((30, width))

@@ -18,6 +18,7 @@ from planrunner.engines.association import association_test
 from planrunner.engines.clusters import cluster_test
 from planrunner.engines.exactdist import subset_sum_distribution, sum_distribution
 from planrunner.engines.maxt import max_t
+from planrunner.engines.multiplicity import adjust
 from planrunner.engines.permcore import PermutationOptions
 from planrunner.engines.permutation import permutation_test
 from planrunner.engines.pvalues import clopper_pearson
@@ -25,7 +26,6 @@ from planrunner.engines.signflip import signflip_test, swap_bits
 from planrunner.engines.statistics import get_statistic
 from planrunner.engines.streams import DRAW_BLOCK, stream_for
 from planrunner.errors import EngineError
-from planrunner.engines.multiplicity import adjust
 
 # Source: V-DEPRESSION (H&W 1973 p. 29f)
 HW_X = np.array([1.83, 0.50, 1.62, 2.48, 1.68, 1.88, 1.55, 3.06, 1.30])

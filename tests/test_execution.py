@@ -10,6 +10,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from conftest import fixed_clock
 
 from planrunner.cli import main as cli
 from planrunner.engines.bootstrap import BootstrapOptions, bootstrap
@@ -19,8 +20,6 @@ from planrunner.engines.statistics import get_statistic
 from planrunner.engines.streams import stream_for
 from planrunner.execute.executors import Execution, ExecutorError, execute_all
 from planrunner.pipeline.run import check_plan, run_plan
-
-from conftest import fixed_clock
 
 DEMO = Path(__file__).resolve().parents[1] / "plans" / "liner-trial"
 # informational fields: when, who, how it ran; everything else must agree bit for bit

@@ -22,8 +22,8 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from planrunner.plan import expr
 from planrunner.errors import ExpressionError
+from planrunner.plan import expr
 from planrunner.plan.expr import MAX_DEPTH, MAX_LENGTH, Expression, parse_expression
 
 NAN = float("nan")

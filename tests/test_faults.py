@@ -18,14 +18,12 @@ import time
 from pathlib import Path
 
 import pytest
+from conftest import fixed_clock
 
 from planrunner.cli import main as cli
-
+from planrunner.errors import DataError
 from planrunner.pipeline import run as runner
 from planrunner.trail import store
-from planrunner.errors import DataError
-
-from conftest import fixed_clock
 
 ROOT = Path(__file__).resolve().parent.parent
 PLAN = """

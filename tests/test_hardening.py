@@ -8,13 +8,11 @@ import math
 import pytest
 
 from planrunner.cli import main as cli
-
 from planrunner.compile import limits
-
-from planrunner.pipeline import run as runner
-from planrunner.errors import DataError
-from planrunner.data.tables import read_table
 from planrunner.data.checks import check_analysis
+from planrunner.data.tables import read_table
+from planrunner.errors import DataError
+from planrunner.pipeline import run as runner
 from planrunner.plan.schema import Plan
 
 PLAN = """

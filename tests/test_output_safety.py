@@ -4,10 +4,10 @@ from __future__ import annotations
 
 import re
 
-from planrunner.report.render import markdown_fence as code_fence
-from planrunner.pipeline.run import run_plan
-
 from conftest import fixed_clock
+
+from planrunner.pipeline.run import run_plan
+from planrunner.report.render import markdown_fence as code_fence
 
 HOSTILE = """
 plan: hostile-strings

@@ -7,11 +7,10 @@ import shutil
 from pathlib import Path
 
 import pytest
+from conftest import fixed_clock
 
 from planrunner.execute.executors import Execution
 from planrunner.pipeline.run import run_plan
-
-from conftest import fixed_clock
 
 DATA = Path(__file__).resolve().parents[1] / "plans" / "ward-hygiene" / "data"
 # informational fields: when, who, how it ran; everything else must agree bit for bit

@@ -10,11 +10,10 @@ import math
 
 import numpy as np
 import pytest
+from conftest import fixed_clock
 from scipy import stats
 
 from planrunner.pipeline.run import run_plan
-
-from conftest import fixed_clock
 
 # Source: E&T Table 2.1 (V-MOUSE-BOOT / V-MOUSE-PERM, published, confirmed)
 TREATMENT = [94, 197, 16, 38, 99, 141, 23]

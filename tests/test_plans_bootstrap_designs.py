@@ -7,12 +7,11 @@ import math
 
 import numpy as np
 import pytest
+from conftest import fixed_clock
 from scipy import stats
 
 from planrunner.errors import EngineError
 from planrunner.pipeline.run import run_plan
-
-from conftest import fixed_clock
 
 HEAD = """
 plan: designs
@@ -42,6 +41,10 @@ NEW = [16449, 14614, 17274, 23798, 12560, 10157, 16570, 26325]
 HW_X = [1.83, 0.50, 1.62, 2.48, 1.68, 1.88, 1.55, 3.06, 1.30]
 HW_Y = [0.878, 0.647, 0.598, 2.05, 1.06, 1.29, 1.06, 3.14, 1.29]
 
+DAYS_CSV = "days\n" + "\n".join(map(str, TREATMENT)) + "\n"
+VISIT_COLS = ("      patient: {type: text, identifier: true}\n      visit: {type: category, levels: [first, second]}\n"
+              "      score: {type: number}")
+
 
 def run(write_plan, tmp_path, columns: str, csv: str, analyses: str, seed: int = 4242) -> dict:
     text = HEAD.format(seed=seed, columns=columns, analyses=analyses)
@@ -61,7 +64,7 @@ def mc_sd(interval: dict, end: str) -> float:
 
 
 def test_bs_mouse_exhaustive_from_a_plan(write_plan, tmp_path):
-    result = run(write_plan, tmp_path, "      days: {type: number}", "days\n" + "\n".join(map(str, TREATMENT)) + "\n", """
+    result = run(write_plan, tmp_path, "      days: {type: number}", DAYS_CSV, """
   - id: mean
     data: d
     outcome: days
@@ -88,7 +91,8 @@ def test_bs_mouse_exhaustive_from_a_plan(write_plan, tmp_path):
     assert (ivs(mean)["percentile"]["lower"], ivs(mean)["percentile"]["upper"]) == pytest.approx(
         (346 / 7, 887 / 7), rel=1e-12)
     assert mean["monte_carlo"]["standard_error_sd"] == 0.0 and ivs(mean)["percentile"]["monte_carlo"] is None
-    assert mean["distribution"]["weights_sha256"] and abs(sum(mean["distribution"]["histogram"]["probabilities"]) - 1) < 1e-9
+    assert mean["distribution"]["weights_sha256"]
+    assert abs(sum(mean["distribution"]["histogram"]["probabilities"]) - 1) < 1e-9
 
 
 def test_jk_patch_and_ideal_bootstrap_from_a_plan(write_plan, tmp_path):
@@ -229,7 +233,7 @@ def test_percentile_basic_bca_agree_with_scipy_for_pairs_of_columns(write_plan, 
 def test_pairs_from_a_plan_give_the_ideal_paired_se(write_plan, tmp_path):
     csv = "patient,visit,score\n" + "".join(f"p{i},first,{a}\np{i},second,{b}\n" for i, (a, b) in
                                              enumerate(zip(HW_X, HW_Y)))
-    cols = "      patient: {type: text, identifier: true}\n      visit: {type: category, levels: [first, second]}\n      score: {type: number}"
+    cols = VISIT_COLS
     result = run(write_plan, tmp_path, cols, csv, """
   - id: paired
     data: d
@@ -264,7 +268,7 @@ def test_pairs_from_a_plan_give_the_ideal_paired_se(write_plan, tmp_path):
 def test_incomplete_pairs_are_refused(write_plan, tmp_path):
     from planrunner.errors import DataError
     csv = "patient,visit,score\np1,first,1\np1,second,2\np2,first,3\np2,second,5\np3,first,4\n"
-    cols = "      patient: {type: text, identifier: true}\n      visit: {type: category, levels: [first, second]}\n      score: {type: number}"
+    cols = VISIT_COLS
     with pytest.raises(DataError, match=r"pair .p3. \(column .patient.\) has no row in group .second."):
         run(write_plan, tmp_path, cols, csv, """
   - id: paired
@@ -277,7 +281,8 @@ def test_incomplete_pairs_are_refused(write_plan, tmp_path):
 """)
 
 
-CLINIC_COLS = "      clinic: {type: text, identifier: true}\n      arm: {type: category, levels: [new, usual]}\n      hours: {type: number}"
+CLINIC_COLS = ("      clinic: {type: text, identifier: true}\n      arm: {type: category, levels: [new, usual]}\n"
+               "      hours: {type: number}")
 
 
 def clinic_csv() -> str:
@@ -400,7 +405,7 @@ def test_on_degenerate_fail_from_a_plan(write_plan, tmp_path):
 
 
 def test_statistic_parameters_reach_the_record(write_plan, tmp_path):
-    result = run(write_plan, tmp_path, "      days: {type: number}", "days\n" + "\n".join(map(str, TREATMENT)) + "\n", """
+    result = run(write_plan, tmp_path, "      days: {type: number}", DAYS_CSV, """
   - id: q90
     data: d
     outcome: days
@@ -446,7 +451,7 @@ def test_bs_law_parametric_bivariate_normal(write_plan, tmp_path):
 
 def test_saved_distribution_matches_its_hash(write_plan, tmp_path):
     import hashlib
-    result = run(write_plan, tmp_path, "      days: {type: number}", "days\n" + "\n".join(map(str, TREATMENT)) + "\n", """
+    result = run(write_plan, tmp_path, "      days: {type: number}", DAYS_CSV, """
   - id: kept
     data: d
     outcome: days

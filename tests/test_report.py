@@ -15,14 +15,14 @@ from types import SimpleNamespace
 
 import numpy as np
 import pytest
+from conftest import fixed_clock
 from scipy import stats
 
-from conftest import fixed_clock
-from planrunner.report import plots
-from planrunner.report import digits as precision
-from planrunner.report import render as report
-from planrunner.record.bands import interval_bands, quantile_band
 from planrunner.pipeline.run import run_plan
+from planrunner.record.bands import interval_bands, quantile_band
+from planrunner.report import digits as precision
+from planrunner.report import plots
+from planrunner.report import render as report
 
 ROOT = Path(__file__).resolve().parent.parent
 DEMO = ROOT / "plans" / "liner-trial" / "plan.yaml"
@@ -118,7 +118,8 @@ def test_each_analysis_shows_question_design_scheme_and_plot(files, demo):
         assert f"<strong>Question.</strong> {entry['question']}" in part
         assert entry["scheme"].replace("×", "×") in part and "Random stream" in part
         assert part.count("<svg") == 1 and 'role="img"' in part and "<figcaption>" in part
-    assert "replicates per bar" in article(html, "primary") and "difference in medians (minutes)" in article(html, "primary")
+    primary = article(html, "primary")
+    assert "replicates per bar" in primary and "difference in medians (minutes)" in primary
     assert "permutations per bar" in article(html, "mean-shift-test")
     assert "pseudo-value, difference in means (minutes)" in article(html, "mean-jackknife")
 
@@ -265,7 +266,8 @@ def test_interval_bands_follow_the_endpoint_or_its_reflection():
     other = SimpleNamespace(method="studentized", lower=1.5, upper=2.5, quantile_levels=(0.025, 0.975))
     bands = interval_bands(values, estimate, [read, reflected, other])
     step = math.ceil(1.959963984540054 * math.sqrt(1000 * 0.025 * 0.975))  # identity: ranks k ± step
-    assert bands[0]["lower_band"] == [25.0 - step, 25.0 + step] and bands[0]["upper_band"] == [975.0 - step, 975.0 + step]
+    assert bands[0]["lower_band"] == [25.0 - step, 25.0 + step]
+    assert bands[0]["upper_band"] == [975.0 - step, 975.0 + step]
     s = math.sqrt(1000 * 0.025 * 0.975)  # identity: unit spacing gives sd = s exactly
     assert bands[0]["lower_sd"] == pytest.approx(s)
     assert bands[1]["lower_band"] == [25.0 - step, 25.0 + step] and bands[1]["upper_sd"] == bands[0]["upper_sd"]

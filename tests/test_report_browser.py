@@ -12,11 +12,11 @@ import copy
 from pathlib import Path
 
 import pytest
-
 from chromium_cdp import Browser, find_chromium
 from conftest import fixed_clock
-from planrunner.report import render as report
+
 from planrunner.pipeline.run import run_plan
+from planrunner.report import render as report
 
 ROOT = Path(__file__).resolve().parent.parent
 DEMO = ROOT / "plans" / "liner-trial" / "plan.yaml"
@@ -28,7 +28,8 @@ SKIP_MESSAGE = ("Chromium is not installed here (looked for chromium, chromium-b
 
 PAGE_FACTS = """(() => {
   const svgFacts = (s) => { const r = s.getBoundingClientRect(); const t = s.querySelector('title');
-    return {width: r.width, height: r.height, title: t ? t.textContent : '', marks: s.querySelectorAll('path').length}; };
+    return {width: r.width, height: r.height, title: t ? t.textContent : '',
+            marks: s.querySelectorAll('path').length}; };
   return {
     title: document.title,
     sections: [...document.querySelectorAll('body > section')].map(s => s.id),

@@ -3,10 +3,9 @@
 from __future__ import annotations
 
 import numpy as np
+from conftest import csv_of_groups, fixed_clock
 
 from planrunner.pipeline.run import run_plan
-
-from conftest import csv_of_groups, fixed_clock
 
 # Source: E&T Table 2.1 (mouse survival, published, confirmed)
 TREATMENT = [94, 197, 16, 38, 99, 141, 23]

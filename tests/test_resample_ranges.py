@@ -5,8 +5,8 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from planrunner.engines.blocks import resample_ranges, map_resamples, mapping_ranges
 from planrunner.engines.association import association_test
+from planrunner.engines.blocks import map_resamples, mapping_ranges, resample_ranges
 from planrunner.engines.bootstrap import BootstrapOptions, bootstrap
 from planrunner.engines.clusters import cluster_test
 from planrunner.engines.permcore import PermutationOptions

@@ -16,8 +16,16 @@ from cryptography.hazmat.primitives.asymmetric.ed25519 import Ed25519PrivateKey
 
 from planrunner.cli import main as cli
 from planrunner.record.canonical import record_sha256, self_hash
-from planrunner.trail.signatures import (Signers, SigningKey, Subject, check_signature, fingerprint,
-                                         make_signature, parse_signers, signed_bytes)
+from planrunner.trail.signatures import (
+    Signers,
+    SigningKey,
+    Subject,
+    check_signature,
+    fingerprint,
+    make_signature,
+    parse_signers,
+    signed_bytes,
+)
 
 ROOT = Path(__file__).resolve().parent.parent
 MONTHLY = ROOT / "plans" / "monthly-fill"
@@ -234,7 +242,7 @@ def test_a_removed_or_expired_signer(project, capsys):
     write_signers(project.parent, [("Bob", "bob", ["executor"], {})])  # Ana removed
     code, out, _ = run(["verify", str(folder)], capsys)
     assert code == 3 and "untrusted or removed signer" in out
-    yesterday = (dt.datetime.now(dt.timezone.utc).date() - dt.timedelta(days=1)).isoformat()
+    yesterday = (dt.datetime.now(dt.UTC).date() - dt.timedelta(days=1)).isoformat()
     write_signers(project.parent, [("Ana Lima", "ana", ["executor"], {"valid_until": yesterday})])
     code, out, _ = run(["verify", str(folder)], capsys)
     assert code == 3 and f"expired (valid until {yesterday})" in out

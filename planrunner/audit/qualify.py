@@ -24,9 +24,10 @@ import platform
 import re
 import sys
 import tempfile
+from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any, Callable
+from typing import Any
 
 import planrunner
 from planrunner.audit.trace import NO_PROMISE, TRACE, readme_sections
@@ -200,7 +201,8 @@ def readme_text() -> tuple[str, str]:
     beside = Path(planrunner.__file__).resolve().parent.parent / "README.md"
     if beside.is_file():
         return beside.read_text(encoding="utf-8"), str(beside)
-    description = metadata.distribution(DISTRIBUTION).metadata.get_payload() or ""
+    # the metadata is an email.message.Message; the PackageMetadata protocol does not declare get_payload
+    description = metadata.distribution(DISTRIBUTION).metadata.get_payload() or ""  # type: ignore[attr-defined]
     return str(description), f"{DISTRIBUTION} {metadata.version(DISTRIBUTION)} METADATA (the README as installed)"
 
 

@@ -10,18 +10,18 @@ planrunner.audit.verbs runs them, adds one case that goes through a whole plan, 
 from __future__ import annotations
 
 import math
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass
-from typing import Callable, Sequence
 
 import numpy as np
 
 from planrunner.engines.bootstrap import BootstrapOptions, bootstrap
 from planrunner.engines.jackknife import jackknife
+from planrunner.engines.multiplicity import adjust
 from planrunner.engines.permcore import PermutationOptions
 from planrunner.engines.permutation import permutation_test
 from planrunner.engines.statistics import get_statistic
 from planrunner.engines.streams import stream_for
-from planrunner.engines.multiplicity import adjust
 
 SELFCHECK_SEED = 20261201
 
@@ -78,6 +78,7 @@ def _null_variance(result) -> float:
 def _boot_se(samples: Sequence[np.ndarray], statistic: str, case: str) -> float:
     result = bootstrap(samples, get_statistic(statistic), BootstrapOptions(2000, 0.9, ("percentile",)),
                        stream=stream_for(SELFCHECK_SEED, case))
+    assert result.standard_error is not None, "a bootstrap of finite data has a standard error"
     return float(result.standard_error)
 
 
@@ -88,12 +89,14 @@ def doubled_p_sd_ratio(seeds: int = 400, resamples: int = 2000) -> float:
     doubled p is 2·sqrt(p₁(1 − p₁)/m). The ratio is 1 up to the sampling error of an s.d. from
     ``seeds`` values (relative s.d. about 1/sqrt(2·seeds) = 3.5% at 400).
     """
-    p_values, stated = [], []
+    p_values: list[float] = []
+    stated: list[float] = []
     for seed in range(seeds):
         result = permutation_test(_mouse(), get_statistic("mean_difference"),
                                   PermutationOptions(resamples=resamples, alternative="two-sided", exact="never"),
                                   stream=stream_for(SELFCHECK_SEED, f"selfcheck-doubled-sd-{seed}"))
         p_values.append(result.p_value)
+        assert result.monte_carlo_se is not None, "a Monte Carlo p-value has a standard error"
         stated.append(result.monte_carlo_se)
     return float(np.std(p_values, ddof=1) / np.mean(stated))
 

@@ -11,10 +11,15 @@ import json
 from dataclasses import dataclass
 from pathlib import Path
 
-from planrunner.trail.signatures import (Finding, Signers, check_signature, history_entry_subject,
-                                         missing_meanings)
-from planrunner.trail.signfiles import (SIGNERS_FILE, check_files, file_subject, find_signers, history_entries,
-                                        read_signers)
+from planrunner.trail.signatures import Finding, Signers, check_signature, history_entry_subject, missing_meanings
+from planrunner.trail.signfiles import (
+    SIGNERS_FILE,
+    check_files,
+    file_subject,
+    find_signers,
+    history_entries,
+    read_signers,
+)
 
 
 @dataclass(frozen=True)
@@ -36,7 +41,8 @@ def record_signatures(record_file: Path, plan_file: Path, signers_file: str | Pa
     unsigned = []
     if signers is not None:
         unsigned += [f"{target}: no valid {m} signature by a trusted signer (the record is unsigned or "
-                     "was rewritten after it was signed)" for m in missing_meanings(findings, signers.require["record"])]
+                     "was rewritten after it was signed)"
+                     for m in missing_meanings(findings, signers.require["record"])]
     record = json.loads(target.read_text(encoding="utf-8"))
     lock = (record.get("plan") or {}).get("lock")
     if isinstance(lock, dict) and isinstance(lock.get("file"), str):

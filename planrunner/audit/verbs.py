@@ -15,17 +15,17 @@ from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any
 
-from planrunner.record.canonical import RECORD_HASH_FIELD, differences, record_sha256
 from planrunner.compile.jobs import compile_jobs
+from planrunner.data.tables import file_sha256, resolve_data_path
 from planrunner.errors import PlanError, PlanrunnerError, RecordError
 from planrunner.execute.executors import Execution
-from planrunner.data.tables import file_sha256, resolve_data_path
+from planrunner.pipeline.run import execute_plan, load_tables
+from planrunner.plan.load import read_plan
 from planrunner.plan.params import apply as apply_parameters
 from planrunner.plan.params import resolve_values
-from planrunner.plan.load import read_plan
-from planrunner.record.build import FORMAT, RunFacts, build_record, environment
-from planrunner.pipeline.run import execute_plan, load_tables
 from planrunner.plan.yamlsafe import load_yaml
+from planrunner.record.build import FORMAT, RunFacts, build_record, environment
+from planrunner.record.canonical import RECORD_HASH_FIELD, differences, record_sha256
 from planrunner.trail.store import read_json, write_new_file
 
 # Differences no larger than this (relative to the larger magnitude) are floating-point noise:
@@ -34,7 +34,8 @@ FLOAT_RELATIVE_TOLERANCE = 1e-9
 # A Monte Carlo quantity whose record states its Monte Carlo s.d. may differ by this many s.d.
 # when the random streams differ (V-TOL in docs/VALIDATION.md: about 4 MC s.d.).
 MC_SDS = 4.0
-HEADLINE = re.compile(r"^(analyses\[\d+\]\.(estimate|standard_error|bias|p_value|intervals|adjusted_p_values)|datasets)")
+HEADLINE = re.compile(r"^(analyses\[\d+\]\.(estimate|standard_error|bias|p_value|intervals|adjusted_p_values)"
+                      r"|datasets)")
 MC_FIELDS = {"standard_error": "standard_error_sd", "bias": "bias_sd", "p_value": "p_value_sd"}
 
 
@@ -67,7 +68,7 @@ class VerifyReport:
     @property
     def largest(self) -> FieldDifference | None:
         numeric = [d for d in self.differences if d.difference is not None]
-        return max(numeric, key=lambda d: d.difference) if numeric else None
+        return max(numeric, key=lambda d: d.difference or 0.0) if numeric else None
 
 
 REQUIRED: dict[str, type | tuple[type, ...]] = {
@@ -84,9 +85,9 @@ def read_record(path: str | Path) -> tuple[Path, dict]:
     if not isinstance(record, dict) or record.get("format") != FORMAT:
         raise RecordError(f"not a planrunner record (format {FORMAT} expected)", where=str(file))
     missing = [key for key, kind in REQUIRED.items() if not isinstance(record.get(key), kind)]
-    plan = record.get("plan") if isinstance(record.get("plan"), dict) else {}
+    plan = record["plan"] if isinstance(record.get("plan"), dict) else {}
     missing += [f"plan.{key}" for key in ("file", "sha256", "text") if not isinstance(plan.get(key), str)]
-    for i, ds in enumerate(record.get("datasets") if isinstance(record.get("datasets"), list) else []):
+    for i, ds in enumerate(record["datasets"] if isinstance(record.get("datasets"), list) else []):
         if not (isinstance(ds, dict) and isinstance(ds.get("file"), str) and isinstance(ds.get("sha256"), str)):
             missing.append(f"datasets[{i}]")
     if missing:
@@ -199,7 +200,8 @@ def verify_record(path: str | Path, *, plan: str | Path | None = None, execution
             problems.append((f"datasets[{i}].sha256", f"data file {ds['file']} cannot be read: {exc}"))
             continue
         if sha != ds["sha256"]:
-            problems.append((f"datasets[{i}].sha256", f"data file {ds['file']} has changed: recorded {ds['sha256']}, now {sha}"))
+            problems.append((f"datasets[{i}].sha256",
+                             f"data file {ds['file']} has changed: recorded {ds['sha256']}, now {sha}"))
     try:
         tables = load_tables(loaded, data_root)
         jobs = compile_jobs(loaded.plan, tables)
@@ -286,8 +288,8 @@ analyses:
 
 
 def _end_to_end_cases(clock: Any) -> list[dict]:
-    from planrunner.pipeline.run import run_plan
     from planrunner.audit.selfcheck import MOUSE_CONTROL, MOUSE_TREATMENT
+    from planrunner.pipeline.run import run_plan
     rows = ["group,days"] + [f"treatment,{v}" for v in MOUSE_TREATMENT] + [f"control,{v}" for v in MOUSE_CONTROL]
     cases = []
     with tempfile.TemporaryDirectory(prefix="planrunner-selfcheck-") as tmp:
@@ -320,9 +322,10 @@ def _end_to_end_cases(clock: Any) -> list[dict]:
 def run_selfcheck(clock: Any = None) -> dict:
     """Every self-check case, with the versions and platform, hashed for integrity."""
     import platform
-    from planrunner.record.canonical import self_hash
-    from planrunner.pipeline.run import _stamp, utc_now
+
     from planrunner.audit.selfcheck import CASES, run_case
+    from planrunner.pipeline.run import _stamp, utc_now
+    from planrunner.record.canonical import self_hash
     clock = clock or utc_now
     started = clock()
     cases = [run_case(c) for c in CASES] + _end_to_end_cases(clock)

@@ -8,7 +8,8 @@ from __future__ import annotations
 
 import argparse
 import json
-from typing import Any, Callable
+from collections.abc import Callable, Sequence
+from typing import Any
 
 from planrunner.cli.options import DATA_ROOT_HELP, add_execution_options, execution_of
 
@@ -20,7 +21,8 @@ MAX_ROWS = 40  # differing fields listed in full before "... and N more"
 def _add_audit_run_options(run: argparse.ArgumentParser) -> None:
     run.add_argument("--param", action="append", metavar="NAME=VALUE",
                      help="a value for a plan parameter (repeat for several)")
-    run.add_argument("--lock", metavar="FILE", help="the lock to compare with (default: PLAN.lock.json beside the plan)")
+    run.add_argument("--lock", metavar="FILE",
+                     help="the lock to compare with (default: PLAN.lock.json beside the plan)")
     run.add_argument("--refuse-deviations", action="store_true",
                      help="stop (exit 2) if the plan or its locked data deviate from the lock, or if there is no lock")
     run.add_argument("--reason", metavar="TEXT", help="why this run is made; written to the run history")
@@ -36,7 +38,8 @@ def _add_audit_verbs(verbs: Any) -> None:
 
     verify = verbs.add_parser("verify", help="re-run a record and compare every number")
     verify.add_argument("record", help="record.json or its run folder")
-    verify.add_argument("--plan", help="the plan file whose folder holds the data (default: found above the run folder)")
+    verify.add_argument("--plan",
+                        help="the plan file whose folder holds the data (default: found above the run folder)")
     add_execution_options(verify)
     verify.add_argument("--data-root", metavar="DIR", help=DATA_ROOT_HELP)
     verify.add_argument("--signers", metavar="FILE", help="the trusted signers (default: signers.yaml beside the plan)")
@@ -97,8 +100,8 @@ def check_lock_summary(outcome: Any) -> str:
 
 
 def _lock(args: argparse.Namespace) -> int:
-    from planrunner.plan.params import parse_assignments
     from planrunner.pipeline.run import _stamp, default_operator, utc_now
+    from planrunner.plan.params import parse_assignments
     from planrunner.trail.files import lock_plan
     path, lock = lock_plan(args.plan, operator=args.operator or default_operator(), locked_utc=_stamp(utc_now()),
                            note=args.note, params=parse_assignments(args.param))
@@ -110,8 +113,8 @@ def _lock(args: argparse.Namespace) -> int:
     return EXIT_OK
 
 
-def _table(header: tuple[str, ...], rows: list[tuple[str, ...]]) -> str:
-    rows = [header] + rows
+def _table(header: tuple[str, ...], body: Sequence[tuple[str, ...]]) -> str:
+    rows = [header, *body]
     widths = [max(len(r[i]) for r in rows) for i in range(len(header))]
     lines = ["  ".join(cell.ljust(w) for cell, w in zip(r, widths)).rstrip() for r in rows]
     lines.insert(1, "  ".join("-" * w for w in widths))
@@ -145,7 +148,8 @@ def _verify(args: argparse.Namespace) -> int:
     if not report.rerun:
         print("the analyses could not be re-run")
     elif not report.differences:
-        print(f"re-run of the recorded plan: identical ({report.compared} numbers compared, every one equal bit for bit)")
+        print(f"re-run of the recorded plan: identical ({report.compared} numbers compared, "
+              "every one equal bit for bit)")
     else:
         largest = report.largest
         if largest is not None:
@@ -173,7 +177,8 @@ def _history(args: argparse.Namespace) -> int:
         print(_table(("#", "finished (UTC)", "run id", "operator", "reason", "plan", "record"), rows))
     for p in report.problems:
         print(f"  BROKEN {'line ' + str(p.line) if p.line else 'log'}: {p.message}")
-    print("history chain: intact" if not report.problems else f"history chain: BROKEN ({len(report.problems)} problem(s))")
+    print("history chain: intact" if not report.problems
+          else f"history chain: BROKEN ({len(report.problems)} problem(s))")
     for line in signature_lines(signatures):
         print(line)
     return EXIT_OK if not report.problems and signatures.passed else EXIT_DIFFERS

@@ -11,19 +11,33 @@ import argparse
 import shutil
 import sys
 import traceback
-from typing import TYPE_CHECKING, Any, Sequence
+from collections.abc import Sequence
+from typing import TYPE_CHECKING, Any, NoReturn
 
 from planrunner import __version__
-from planrunner.errors import (DataError, EngineError, ExpressionError, OutputError, PlanError, PlanrunnerError,
-                               RecordError, SigningError)
-from planrunner.report.render import number, pvalue
-from planrunner.cli.audit import (AUDIT_VERBS, _add_audit_run_options, _add_audit_verbs, audit_summary,
-                        check_lock_summary)
+from planrunner.cli.audit import (
+    AUDIT_VERBS,
+    _add_audit_run_options,
+    _add_audit_verbs,
+    audit_summary,
+    check_lock_summary,
+)
 from planrunner.cli.options import DATA_ROOT_HELP, add_execution_options, execution_of
 from planrunner.cli.signing import SIGNING_VERBS, add_run_signing_options, add_signing_verbs, run_signing
+from planrunner.errors import (
+    DataError,
+    EngineError,
+    ExpressionError,
+    OutputError,
+    PlanError,
+    PlanrunnerError,
+    RecordError,
+    SigningError,
+)
+from planrunner.report.render import number, pvalue
 
 if TYPE_CHECKING:
-    from planrunner.execute.executors import Execution
+    pass
 
 EXIT_OK, EXIT_FAILURE, EXIT_INPUT, EXIT_DIFFERS = 0, 1, 2, 3
 
@@ -47,7 +61,7 @@ def exit_code_for(error: PlanrunnerError) -> int:
 
 
 class _Parser(argparse.ArgumentParser):
-    def error(self, message: str) -> None:  # argparse would exit 2 with usage; keep that, but say what to do
+    def error(self, message: str) -> NoReturn:  # argparse would exit 2 with usage; keep that, say what to do
         self.print_usage(sys.stderr)
         print(f"planrunner: error: {message} (see 'planrunner {self.prog.split()[-1]} --help')"
               if " " in self.prog else f"planrunner: error: {message} (see 'planrunner --help')",
@@ -118,11 +132,13 @@ def _check(args: argparse.Namespace) -> int:
     outcome = check_plan(args.plan, with_data=not args.plan_only, params=parse_assignments(args.param),
                          data_root=args.data_root)
     plan = outcome.loaded.plan
-    print(f"{args.plan}: plan '{plan.plan}' is valid: {len(plan.datasets)} dataset(s), {len(plan.analyses)} analysis(es)")
+    print(f"{args.plan}: plan '{plan.plan}' is valid: {len(plan.datasets)} dataset(s), "
+          f"{len(plan.analyses)} analysis(es)")
     if outcome.tables is not None:
         for t in outcome.tables.values():
             excluded = sum(e.rows for e in t.excluded)
-            print(f"  {t.name}: {t.file}: {t.rows_read} rows read, {t.rows_used} used, {excluded} excluded; sha256 {t.sha256}")
+            print(f"  {t.name}: {t.file}: {t.rows_read} rows read, {t.rows_used} used, {excluded} excluded; "
+                  f"sha256 {t.sha256}")
             if t.ignored_columns:
                 print(f"    ignored columns: {', '.join(t.ignored_columns)}")
         if outcome.jobs is not None:
@@ -158,8 +174,8 @@ class ProgressBar:
 
 
 def _run(args: argparse.Namespace, argv: list[str]) -> int:
-    from planrunner.plan.params import parse_assignments
     from planrunner.pipeline.run import run_plan
+    from planrunner.plan.params import parse_assignments
     execution = execution_of(args)
     signing = run_signing(args)
     bar = progress_bar(args.quiet)

@@ -11,8 +11,9 @@ import argparse
 import getpass
 import os
 import sys
+from collections.abc import Callable
 from pathlib import Path
-from typing import Any, Callable
+from typing import Any
 
 from planrunner.errors import SigningError
 
@@ -53,7 +54,8 @@ def add_signing_verbs(verbs: Any) -> None:
 
 
 def add_run_signing_options(run: argparse.ArgumentParser) -> None:
-    run.add_argument("--sign-key", metavar="KEY", help="sign the record and its history entry as executed with this key")
+    run.add_argument("--sign-key", metavar="KEY",
+                     help="sign the record and its history entry as executed with this key")
     run.add_argument("--signer", metavar="NAME", help="with --sign-key: the signer's printed name")
     run.add_argument("--signers", metavar="FILE", help="the trusted signers (default: signers.yaml beside the plan)")
     add_passphrase_options(run)
@@ -180,7 +182,8 @@ def _qualify(args: argparse.Namespace) -> int:
     failed = [c for c in op["cases"] if not c["passed"]]
     print(f"operation: {verdict[op['passed']]}: {len(op['cases']) - len(failed)} of {len(op['cases'])} case(s) pass")
     for c in failed:
-        print(f"  FAIL {c['id']}: expected {c['expected']}, obtained {c['obtained']}" + (f" ({c['error']})" if c.get("error") else ""))
+        error = f" ({c['error']})" if c.get("error") else ""
+        print(f"  FAIL {c['id']}: expected {c['expected']}, obtained {c['obtained']}" + error)
     if op["note"]:
         print(f"  {op['note']}")
     print(f"traceability: {verdict[trace['passed']]}: {len(trace['rows'])} README section(s)"

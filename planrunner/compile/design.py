@@ -7,9 +7,9 @@ from typing import Any
 
 import numpy as np
 
+from planrunner.data.tables import Table
 from planrunner.engines.results import EngineWarning
 from planrunner.errors import DataError
-from planrunner.data.tables import Table
 
 
 def _labels(table: Table, column: str) -> np.ndarray:
@@ -55,7 +55,8 @@ def time_order(table: Table, column: str, mask: np.ndarray, where: str) -> np.nd
     return rows[order]
 
 
-def repeated_id_warnings(table: Table, analysis: Any, dataset: Any, masks: list[np.ndarray]) -> tuple[EngineWarning, ...]:
+def repeated_id_warnings(table: Table, analysis: Any, dataset: Any,
+                         masks: list[np.ndarray]) -> tuple[EngineWarning, ...]:
     """Rows that repeat the value of an identifier column (declared `identifier: true`) within a
     group, or hold one value in both groups, with no clusters, pairs or time order declared, are
     probably not independent: say so next to the numbers."""

@@ -12,14 +12,14 @@ from typing import Any
 import numpy as np
 
 from planrunner.compile import design
+from planrunner.data.tables import Table
 from planrunner.engines.bootstrap import BootstrapOptions
 from planrunner.engines.jackknife import JackknifeOptions
 from planrunner.engines.permcore import PermutationOptions
 from planrunner.engines.statistics import Statistic, bind, get_statistic
-from planrunner.engines.teststats import K_GROUP
 from planrunner.engines.streams import Stream, stream_for
+from planrunner.engines.teststats import K_GROUP
 from planrunner.errors import DataError
-from planrunner.data.tables import Table
 from planrunner.plan.schema import Analysis, BootstrapAnalysis, Defaults, PermutationAnalysis, Plan
 
 Options = BootstrapOptions | JackknifeOptions | PermutationOptions
@@ -124,7 +124,7 @@ def compile_job(plan: Plan, analysis: Analysis, table: Table) -> Job:
                                  " and the keep filter" if analysis.groups else "check the keep filter")
     paired = analysis.pairs is not None and analysis.method == "bootstrap"
     if paired:
-        masks = design.pair_order(table, analysis.pairs, masks, where)  # row i of each group is pair i
+        masks = design.pair_order(table, str(analysis.pairs), masks, where)  # row i of each group is pair i
     if analysis.order is not None:
         masks = [design.time_order(table, analysis.order, m, where) for m in masks]
     clusters = None
@@ -157,7 +157,7 @@ def compile_design(analysis: Any, table: Table, masks: list[np.ndarray],
     if getattr(analysis, "pairs", None) is not None:
         keys = np.array([str(v) for v in table.columns[analysis.pairs]], dtype=object)
         aligned = []
-        per_group = [dict() for _ in masks]
+        per_group: list[dict[str, Any]] = [{} for _ in masks]
         for g, mask in enumerate(masks):
             for key, line, value in zip(keys[mask], table.lines[mask], samples[g]):
                 if key in per_group[g]:

@@ -20,11 +20,12 @@ since only the runner touches the system), so other processes keep room.
 from __future__ import annotations
 
 import math
-from typing import Any, Iterable
+from collections.abc import Iterable
+from typing import Any
 
-from planrunner.errors import DataError
-from planrunner.engines.permcore import ENUMERATION_LIMIT, PermutationOptions  # the engines' own limit
 from planrunner.engines.bootstrap import BootstrapOptions
+from planrunner.engines.permcore import ENUMERATION_LIMIT, PermutationOptions  # the engines' own limit
+from planrunner.errors import DataError
 
 READ_FACTOR = 40
 BATCH_ELEMENTS = 2_000_000  # the engines' default batch_elements

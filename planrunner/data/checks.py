@@ -14,9 +14,9 @@ from typing import Any
 
 import numpy as np
 
+from planrunner.data.tables import SHOW_LINES, Table, group_value
 from planrunner.engines.statistics import STATISTICS
 from planrunner.errors import DataError
-from planrunner.data.tables import SHOW_LINES, Table, group_value
 from planrunner.plan.schema import Plan
 
 # The fewest rows per group each method is given. One row cannot vary under any resampling;

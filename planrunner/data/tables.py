@@ -9,9 +9,9 @@ from __future__ import annotations
 import csv
 import hashlib
 import io
+from collections.abc import Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Mapping
 
 import numpy as np
 import pandas as pd

@@ -24,9 +24,18 @@ import numpy as np
 
 from planrunner.engines.blocks import bind as range_task
 from planrunner.engines.blocks import map_resamples
-from planrunner.engines.permcore import (ENUMERATION, ComputedNull, Description, PermutationOptions, all_ties,
-                                         check_null, choose_computation, observed_value, permutation_result,
-                                         tie_tolerance)
+from planrunner.engines.permcore import (
+    ENUMERATION,
+    ComputedNull,
+    Description,
+    PermutationOptions,
+    all_ties,
+    check_null,
+    choose_computation,
+    observed_value,
+    permutation_result,
+    tie_tolerance,
+)
 from planrunner.engines.results import EngineWarning, PermutationResult
 from planrunner.engines.statistics import Statistic, check_samples
 from planrunner.engines.streams import Stream, UniformRows
@@ -52,12 +61,13 @@ def association_test(xy: np.ndarray, statistic: Statistic, options: PermutationO
         scheme = "outcome shuffled against the predictor"
     else:
         model = _freedman_lane(x, y, statistic, covariates)
+        assert model.weights_x is not None, "a Freedman–Lane model has the predictor's weights"
         observed = float(model.weights_x @ model.residual)  # the partial slope, P = I
         scheme = f"Freedman–Lane: residuals of the outcome on {model.terms - 1} covariate(s) permuted"
     null = _null(model, statistic, options, stream, max(1, batch_elements // (2 * n)))
     check_null(null.values, statistic, "pairing(s)")
     tolerance = tie_tolerance(observed, float(np.max(np.abs(null.values))))
-    warnings = ()
+    warnings: tuple[EngineWarning, ...] = ()
     if all_ties(null.values, observed, tolerance):
         warnings = (EngineWarning("degenerate-distribution", "every pairing gives the observed value"),)
     about = Description(

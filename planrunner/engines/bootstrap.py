@@ -54,15 +54,15 @@ from typing import Any
 import numpy as np
 from scipy.special import ndtri
 
-from planrunner.errors import EngineError
 from planrunner.engines import schemes
-from planrunner.engines.blocks import bind as range_task
 from planrunner.engines.blocks import RangeTask, map_resamples
+from planrunner.engines.blocks import bind as range_task
 from planrunner.engines.intervals import INTERVAL_METHODS, Summary, bca_levels, quantile_rank, read_quantile
 from planrunner.engines.jackknife import SMALL_SAMPLE, cluster_replicates, jackknife_replicates
 from planrunner.engines.results import BootstrapResult, EngineWarning, Interval, frozen_array
 from planrunner.engines.statistics import Statistic, check_samples, check_strata, to_compute_layout
 from planrunner.engines.streams import Stream
+from planrunner.errors import EngineError
 
 __all__ = [
     "BootstrapOptions",
@@ -97,7 +97,8 @@ CONVENTIONS = {
     "bca_levels": "Phi(z0 + (z0 + z_alpha) / (1 - a (z0 + z_alpha)))",
     "basic": "(2 theta_hat - q(1 - alpha/2), 2 theta_hat - q(alpha/2))",
     "normal": "(theta_hat - bias) -/+ z(1 - alpha/2) * standard error",
-    "studentized": "t* = (theta* - theta_hat) / se*; (theta_hat - se_hat t(1 - alpha/2), theta_hat - se_hat t(alpha/2))",
+    "studentized": ("t* = (theta* - theta_hat) / se*; "
+                    "(theta_hat - se_hat t(1 - alpha/2), theta_hat - se_hat t(alpha/2))"),
     "monte_carlo": "sd(SE) = SE sqrt((kurtosis - 1) / (4B)); sd(bias) = SE / sqrt(B); endpoint ranges "
                    "(about 95%) from the order statistics at ranks B p -/+ 1.96 sqrt(B p (1 - p))",
     "tail_rule": f"warn when fewer than {TAIL_MINIMUM} replicates lie beyond an endpoint",
@@ -632,7 +633,8 @@ def _studentized(p: Prepared, drawn: Drawn, standard_error: float, confidence: f
     t_ordered = t_cumulative = t_problem = None
     if undefined.any() or not (math.isfinite(se_hat) and se_hat > 0):
         t_problem = (f"the standard error is undefined (0/0 or not finite) on {int(undefined.sum())} of "
-                     f"{resamples} resamples" if undefined.any() else "the standard error of the data is zero or undefined")
+                     f"{resamples} resamples" if undefined.any()
+                     else "the standard error of the data is zero or undefined")
     else:
         with np.errstate(divide="ignore", invalid="ignore"):
             t = np.where(zero, np.sign(distribution - estimate) * np.inf, (distribution - estimate) / se_star)
@@ -716,6 +718,7 @@ def _bca_constants(data: tuple[np.ndarray, ...], statistic: Statistic, lay: sche
     if not math.isfinite(z0):
         side = "above" if share == 0.0 else "below"
         return None, None, f"every replicate lies {side} the estimate, so the bias correction z0 is infinite"
+    replicates: Sequence[np.ndarray]
     if cl is not None:
         replicates = cluster_replicates(data, statistic, cluster_codes)
         # each (group, stratum) cell of clusters is one independently resampled sample

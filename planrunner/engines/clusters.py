@@ -27,8 +27,17 @@ import numpy as np
 
 from planrunner.engines.blocks import bind as range_task
 from planrunner.engines.blocks import map_resamples
-from planrunner.engines.permcore import (ENUMERATION, ComputedNull, Description, PermutationOptions, check_null,
-                                         choose_computation, observed_value, permutation_result, tie_tolerance)
+from planrunner.engines.permcore import (
+    ENUMERATION,
+    ComputedNull,
+    Description,
+    PermutationOptions,
+    check_null,
+    choose_computation,
+    observed_value,
+    permutation_result,
+    tie_tolerance,
+)
 from planrunner.engines.results import EngineWarning, PermutationResult
 from planrunner.engines.statistics import Statistic, check_samples
 from planrunner.engines.streams import Stream, UniformRows

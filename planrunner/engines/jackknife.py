@@ -23,7 +23,6 @@ from typing import Any
 
 import numpy as np
 
-from planrunner.errors import EngineError
 from planrunner.engines.results import EngineWarning, JackknifeResult, frozen_array
 from planrunner.engines.statistics import (
     Statistic,
@@ -32,6 +31,7 @@ from planrunner.engines.statistics import (
     take_observations,
     to_compute_layout,
 )
+from planrunner.errors import EngineError
 
 __all__ = ["JackknifeOptions", "JackknifeResult", "cluster_replicates", "jackknife", "jackknife_replicates"]
 
@@ -132,6 +132,8 @@ def jackknife_replicates(samples: Sequence[np.ndarray], statistic: Statistic, *,
 def _replicates(data: tuple[np.ndarray, ...], statistic: Statistic,
                 batch_elements: int) -> list[np.ndarray]:
     if statistic.form is not None and statistic.columns == 1 and statistic.samples in (1, 2):
+        deleted: Callable[[np.ndarray], np.ndarray]
+        loc: Callable[[np.ndarray], Any]
         if statistic.form == "mean":
             deleted, loc = _delete_one_mean, np.mean
         elif statistic.form == "median":

@@ -109,7 +109,8 @@ def max_t(endpoints: Sequence[tuple[Sequence[np.ndarray], Statistic, str]], *, s
     smallest = []
     for i in range(k):
         top = z_null_m.max(axis=0)
-        smallest.append(max(1.0 / arrangements if arrangements < 10 ** 300 else 0.0, (int(np.count_nonzero(top >= z_null_m[i].max() - tol)) + a) / (total + a)))
+        floor = 1.0 / arrangements if arrangements < 10 ** 300 else 0.0
+        smallest.append(max(floor, (int(np.count_nonzero(top >= z_null_m[i].max() - tol)) + a) / (total + a)))
     counts_in_order = np.empty(k, dtype=np.int64)
     counts_in_order[order] = counts
     return MaxTResult(adjusted=tuple(float(v) for v in adjusted), unadjusted=tuple(float(v) for v in unadjusted),

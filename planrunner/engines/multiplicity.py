@@ -8,7 +8,6 @@ from __future__ import annotations
 
 import numpy as np
 
-
 METHOD_NAMES = {
     "bonferroni": "Bonferroni",
     "holm": "Holm step-down",

@@ -48,13 +48,23 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from planrunner.errors import EngineError
 from planrunner.engines.blocks import bind as range_task
 from planrunner.engines.blocks import map_resamples
 from planrunner.engines.exactdist import WORK_LIMIT, dp_work, integer_scores, sum_distribution
-from planrunner.engines.permcore import (DYNAMIC_PROGRAMMING, ENUMERATION, ENUMERATION_LIMIT, ComputedNull,
-                                         Description, PermutationOptions, all_ties, check_null,
-                                         choose_computation, observed_value, permutation_result, tie_tolerance)
+from planrunner.engines.permcore import (
+    DYNAMIC_PROGRAMMING,
+    ENUMERATION,
+    ENUMERATION_LIMIT,
+    ComputedNull,
+    Description,
+    PermutationOptions,
+    all_ties,
+    check_null,
+    choose_computation,
+    observed_value,
+    permutation_result,
+    tie_tolerance,
+)
 from planrunner.engines.results import EngineWarning, PermutationResult
 from planrunner.engines.statistics import (
     Statistic,
@@ -65,6 +75,7 @@ from planrunner.engines.statistics import (
 )
 from planrunner.engines.streams import Stream, UniformRows
 from planrunner.engines.teststats import SUM_SCORES
+from planrunner.errors import EngineError
 
 __all__ = ["ENUMERATION_LIMIT", "PermutationOptions", "PermutationResult", "permutation_test"]
 

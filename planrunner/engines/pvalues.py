@@ -10,12 +10,13 @@ Conventions (V-CONV-P, stated in every record):
   the null given by the engine (the exact null mean of sum statistics; 0 for the others);
 * "at least as extreme" allows ``tolerance``, so values equal in exact arithmetic count as equal.
 
-For a Monte Carlo p-value the record also carries its standard error and a Clopper–Pearson interval for the p-value that full enumeration would give (the binomial proportion
-b/m of extreme arrangements; for the doubled rule, twice that of the smaller side), at
-:data:`P_INTERVAL_LEVEL`. The standard error is that of the binomial proportion behind the p-value,
-scaled as the p-value is: ``sqrt(p (1 − p) / m)`` for a one-sided p and for the absolute rule (one
-proportion each); ``2 sqrt(p₁ (1 − p₁) / m)`` for the doubled rule, with p₁ the smaller one-sided p,
-since the doubled p is twice that proportion (:func:`monte_carlo_sd`).
+For a Monte Carlo p-value the record also carries its standard error and a Clopper–Pearson interval for
+the p-value that full enumeration would give (the binomial proportion b/m of extreme arrangements; for
+the doubled rule, twice that of the smaller side), at :data:`P_INTERVAL_LEVEL`. The standard error is
+that of the binomial proportion behind the p-value, scaled as the p-value is: ``sqrt(p (1 − p) / m)``
+for a one-sided p and for the absolute rule (one proportion each); ``2 sqrt(p₁ (1 − p₁) / m)`` for the
+doubled rule, with p₁ the smaller one-sided p, since the doubled p is twice that proportion
+(:func:`monte_carlo_sd`).
 """
 
 from __future__ import annotations
@@ -107,7 +108,8 @@ def summarize(null: np.ndarray, observed: float, *, exact: bool, alternative: st
             alternative, min(1.0, 2.0 * min(top, bottom)) if two_sided == "doubled" else edge)
     else:
         # 1/arrangements underflows to 0 for large groups (and int → float overflows past 1e308)
-        floor = max(1.0 / (total + 1), 1.0 / arrangements if 0 < arrangements < 10 ** 300 else 0.0)
+        known = arrangements is not None and 0 < arrangements < 10 ** 300
+        floor = max(1.0 / (total + 1), 1.0 / arrangements if known and arrangements else 0.0)
         smallest = min(1.0, 2.0 * floor) if alternative == "two-sided" and two_sided == "doubled" else floor
 
     se = interval = None

@@ -122,8 +122,8 @@ class PermutationResult:
     exact: bool
     arrangements: int
     resamples: int
-    count_greater: int
-    count_less: int
+    count_greater: float  # a whole number of arrangements or draws (a float sum of DP weights)
+    count_less: float
     null: np.ndarray
     tolerance: float
     n: tuple[int, ...]

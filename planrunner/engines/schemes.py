@@ -35,9 +35,9 @@ import numpy as np
 from scipy import stats as _dist
 from scipy.special import gammaln
 
-from planrunner.errors import EngineError
 from planrunner.engines.statistics import Statistic, take_observations
 from planrunner.engines.streams import Stream, UniformRows
+from planrunner.errors import EngineError
 
 __all__ = [
     "BLOCK_SCHEMES",
@@ -116,7 +116,8 @@ class Layout:
 
 
 def layout(data: tuple[np.ndarray, ...], strata: tuple[np.ndarray, ...] | None) -> Layout:
-    groups, bounds, starts, sizes, cells = [], [], [], [], []
+    groups, bounds, starts, sizes = [], [], [], []
+    cells: list[tuple[int, np.ndarray]] = []
     offset = 0
     for g, a in enumerate(data):
         n = a.shape[0]
@@ -151,7 +152,7 @@ def _nested_se(lay: Layout, statistic: Statistic, gathered: list[np.ndarray], re
     u = reader.take(rows * inner_resamples).reshape(rows, inner_resamples, -1)
     index = lay.cell_start + (u * lay.cell_size).astype(np.int64)  # (rows, M, N)
     inner = []
-    for g, (a, (start, stop)) in enumerate(zip(gathered, lay.bounds)):
+    for a, (start, stop) in zip(gathered, lay.bounds):
         local = index[:, :, start:stop]
         rows_axis = np.arange(rows)[:, None, None]
         if a.ndim == 2:
@@ -293,6 +294,7 @@ def draw_cells(lay: Layout, statistic: Statistic, resamples: int, stream: Stream
         gathered = [take_observations(group, index[:, start:stop])
                     for group, (start, stop) in zip(lay.groups, lay.bounds)]
         # undefined values are detected and reported by the caller, not printed by numpy
+        s: np.ndarray | None
         with np.errstate(invalid="ignore", divide="ignore"):
             if nested is not None:
                 theta, s = statistic.compute(*gathered), _nested_se(lay, statistic, gathered, nested,
@@ -321,7 +323,8 @@ class ClusterLayout:
 
 def cluster_layout(data: tuple[np.ndarray, ...], clusters: tuple[np.ndarray, ...],
                    strata: tuple[np.ndarray, ...] | None) -> ClusterLayout:
-    slot_group, starts, sizes, members, cells, codes = [], [], [], [], [], []
+    slot_group, starts, sizes, cells, codes = [], [], [], [], []
+    members: list[np.ndarray] = []
     for g, a in enumerate(data):
         c = clusters[g]
         s = np.zeros(a.shape[0], dtype=np.int64) if strata is None else strata[g]

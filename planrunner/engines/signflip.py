@@ -28,9 +28,18 @@ from scipy.stats import rankdata
 from planrunner.engines.blocks import bind as range_task
 from planrunner.engines.blocks import map_resamples
 from planrunner.engines.exactdist import integer_scores
-from planrunner.engines.permcore import (DYNAMIC_PROGRAMMING, ENUMERATION, ComputedNull, Description,
-                                         PermutationOptions, check_null, choose_computation, observed_value,
-                                         permutation_result, tie_tolerance)
+from planrunner.engines.permcore import (
+    DYNAMIC_PROGRAMMING,
+    ENUMERATION,
+    ComputedNull,
+    Description,
+    PermutationOptions,
+    check_null,
+    choose_computation,
+    observed_value,
+    permutation_result,
+    tie_tolerance,
+)
 from planrunner.engines.results import EngineWarning, PermutationResult
 from planrunner.engines.statistics import Statistic, check_samples
 from planrunner.engines.streams import DRAW_BLOCK, Stream
@@ -56,7 +65,8 @@ def swap_bytes(stream: Stream, pairs: int, start: int, stop: int) -> np.ndarray:
         count = min(stop - row, DRAW_BLOCK - offset)
         gen = stream.generator(block)
         if offset:
-            gen.bit_generator.advance(offset * words)  # one 64-bit output per full-range word
+            # one 64-bit output per full-range word; PCG64 has advance(), numpy's stubs omit it
+            gen.bit_generator.advance(offset * words)  # type: ignore[attr-defined]
         drawn = gen.integers(0, 2**64, size=(count, words), dtype=np.uint64, endpoint=False)
         # little-endian bytes: byte c of a row holds pairs 8c … 8c + 7 on every machine
         out[row - start:row - start + count] = drawn.astype("<u8", copy=False).view(np.uint8)[:, :width]
@@ -125,7 +135,7 @@ def signflip_test(x: np.ndarray, y: np.ndarray, statistic: Statistic, options: P
     pairs = _Pairs.of(x, y, statistic)
     null = _null(pairs, statistic, options, stream, max(1, batch_elements // max(1, 2 * x.size)), fast)
     check_null(null.values, statistic, "sign pattern(s)")
-    warnings = ()
+    warnings: tuple[EngineWarning, ...] = ()
     if np.all(pairs.d == 0):
         warnings = (EngineWarning("degenerate-distribution",
                                   "every pair difference is zero: swaps change nothing and p = 1"),)

@@ -18,9 +18,9 @@ use only where verified equal to the plain computation.
 
 from __future__ import annotations
 
-from collections.abc import Callable, Sequence
 import dataclasses
 import math
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 
 import numpy as np

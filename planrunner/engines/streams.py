@@ -112,7 +112,8 @@ class UniformRows:
                 self._block = block
                 if offset:
                     # starting mid-block (a worker's share): one 64-bit step per double
-                    self._gen.bit_generator.advance(offset * self._width)
+                    # PCG64 has advance(); numpy's stubs declare only the BitGenerator base
+                    self._gen.bit_generator.advance(offset * self._width)  # type: ignore[attr-defined]
             count = min(rows - filled, DRAW_BLOCK - offset)
             self._gen.random(out=out[filled:filled + count])
             filled += count

@@ -18,6 +18,7 @@ arrangements through that sum (the fast path; dynamic programming when the score
 from __future__ import annotations
 
 from collections.abc import Callable
+from typing import Any
 
 import numpy as np
 from scipy import stats
@@ -88,7 +89,8 @@ def _rank_h(*groups: np.ndarray) -> np.ndarray:
     sizes, pooled = _group_sizes_and_stack(groups)
     n = sum(sizes)
     ranks = _ranks(pooled)
-    total, start = 0.0, 0
+    total: Any = 0.0  # a float, then an array of the leading shape
+    start = 0
     for s in sizes:
         total = total + ranks[..., start:start + s].sum(axis=-1) ** 2 / s
         start += s

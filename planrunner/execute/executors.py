@@ -11,6 +11,7 @@ intervals, counts) runs in the calling process.
 from __future__ import annotations
 
 import copyreg
+import functools
 import math
 import multiprocessing
 import signal
@@ -81,9 +82,11 @@ def _reduce_statistic(statistic: Statistic) -> tuple:
     # columns) is not the bound statistic: it travels by value
     same_shape = registered is not None and (registered.samples, registered.columns) == (statistic.samples,
                                                                                          statistic.columns)
-    if same_shape and registered.parameter is not None and statistic.value is not None:
+    if same_shape and registered is not None and registered.parameter is not None and statistic.value is not None:
         return _bound_statistic, (statistic.name, statistic.value)
-    return object.__reduce_ex__(statistic, 4)  # by value, whatever fields it has
+    by_value = object.__reduce_ex__(statistic, 4)  # by value, whatever fields it has
+    assert isinstance(by_value, tuple)
+    return by_value
 
 
 copyreg.pickle(Statistic, _reduce_statistic)
@@ -207,6 +210,16 @@ def _result_of(outcome: tuple[Any, tuple | None]) -> Any:
     return result
 
 
+def _pool_result(pending: Any) -> Any:
+    """The result of a multiprocessing AsyncResult of one job (result, error)."""
+    return _result_of(pending.get())
+
+
+def _future_result(pending: Any) -> Any:
+    """The result of a concurrent or dask future of one job (result, error)."""
+    return _result_of(pending.result())
+
+
 def _spreading(submit: Callable[[RangeTask, int, int], Any], result: Callable[[Any], np.ndarray], workers: int,
                tally: _Tally) -> Callable[[RangeTask, int], list[np.ndarray]]:
     """A range mapper that hands a few equal ranges per worker to ``submit`` at once, then collects
@@ -248,7 +261,7 @@ def _on_processes(jobs: list[Job], execution: Execution, tally: _Tally) -> list[
         mapper = _spreading(lambda task, start, stop: pool.apply_async(_call_range, (task, start, stop)),
                             lambda r: r.get(), execution.workers, tally)
 
-        results = _run_jobs(jobs, tally, mapper, {i: (lambda r=r: _result_of(r.get())) for i, r in pending.items()})
+        results = _run_jobs(jobs, tally, mapper, {i: functools.partial(_pool_result, r) for i, r in pending.items()})
         pool.close()
         pool.join()
         return results
@@ -290,7 +303,7 @@ def _on_dask(jobs: list[Job], execution: Execution, tally: _Tally) -> list[Any]:
 
         mapper = _spreading(submit, lambda f: f.result(), execution.workers, tally)
 
-        return _run_jobs(jobs, tally, mapper, {i: (lambda f=f: _result_of(f.result())) for i, f in pending.items()})
+        return _run_jobs(jobs, tally, mapper, {i: functools.partial(_future_result, f) for i, f in pending.items()})
     finally:
         client.cancel([f for f in futures if not f.done()])
         client.close()

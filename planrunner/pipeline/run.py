@@ -12,39 +12,39 @@ import datetime as dt
 import getpass
 import hashlib
 import os
+from collections.abc import Callable
 from dataclasses import dataclass, field, replace
 from pathlib import Path
-from typing import Any, Callable
+from typing import Any
 
 from planrunner.compile import limits
-
-from planrunner.report import render as report
 from planrunner.compile.jobs import Job, compile_jobs
 from planrunner.data.checks import check_tables
-from planrunner.execute.executors import Execution, Progress, execute_all
 from planrunner.data.tables import Table, read_table, resolve_data_path
-from planrunner.plan.params import apply as apply_parameters
-from planrunner.plan.params import resolve_values
+from planrunner.engines.maxt import MaxTResult
+from planrunner.execute.executors import Execution, Progress, execute_all
 from planrunner.execute.families import max_t_families
 from planrunner.plan.load import LoadedPlan, read_plan
+from planrunner.plan.params import apply as apply_parameters
+from planrunner.plan.params import resolve_values
 from planrunner.plan.schema import Plan
-from planrunner.engines.maxt import MaxTResult
 from planrunner.record.build import RunFacts, build_record, to_json
+from planrunner.report import render as report
 from planrunner.trail.files import append_history, lock_for_run
-from planrunner.trail.store import STAGING_PREFIX, require_plain_name, write_new_folder  # noqa: F401 (STAGING_PREFIX for callers)
 from planrunner.trail.lock import lock_path_for
 from planrunner.trail.signatures import SigningKey
 from planrunner.trail.signfiles import check_run_signing, find_signers, signed_run_files
+from planrunner.trail.store import STAGING_PREFIX, require_plain_name, write_new_folder  # noqa: F401 (STAGING_PREFIX for callers)
 
 Clock = Callable[[], dt.datetime]
 
 
 def utc_now() -> dt.datetime:
-    return dt.datetime.now(dt.timezone.utc)
+    return dt.datetime.now(dt.UTC)
 
 
 def _stamp(moment: dt.datetime) -> str:
-    return moment.astimezone(dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%S.%fZ")
+    return moment.astimezone(dt.UTC).strftime("%Y-%m-%dT%H:%M:%S.%fZ")
 
 
 @dataclass(frozen=True)

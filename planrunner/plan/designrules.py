@@ -81,10 +81,12 @@ def check_resampling_design(at: tuple, a: Any, statistic: Statistic) -> list[Pro
         if a.studentized_se == "bootstrap":
             for key in ("clusters", "order", "parametric"):
                 if getattr(a, key) is not None:
-                    out.append(Problem(at + ("studentized_se",), f"the nested bootstrap SE cannot be combined with {key}",
+                    out.append(Problem(at + ("studentized_se",),
+                                       f"the nested bootstrap SE cannot be combined with {key}",
                                        "use studentized_se: jackknife"))
             if a.exhaustive:
-                out.append(Problem(at + ("studentized_se",), "the nested bootstrap SE would make exhaustive results random",
+                out.append(Problem(at + ("studentized_se",),
+                                   "the nested bootstrap SE would make exhaustive results random",
                                    "use studentized_se: jackknife or analytic"))
         if not has_se and a.studentized_se not in ("jackknife", "bootstrap"):
             out.append(Problem(at + ("intervals", intervals.index("studentized")),

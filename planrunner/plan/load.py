@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import hashlib
 import typing
+from collections.abc import Mapping
 from dataclasses import dataclass
 from pathlib import Path, PurePosixPath, PureWindowsPath
 from typing import Any
@@ -16,14 +17,14 @@ import pydantic
 from pydantic import BaseModel
 
 from planrunner.engines.statistics import PARAMETERS, STATISTICS
-from planrunner.plan.designrules import check_resampling_design
 from planrunner.errors import ExpressionError, PlanError
+from planrunner.plan import permrules as permcheck
+from planrunner.plan.designrules import check_resampling_design
 from planrunner.plan.expr import parse_expression
 from planrunner.plan.params import parameter_problems
 from planrunner.plan.problems import Problem, did_you_mean
 from planrunner.plan.schema import METHODS, Plan
 from planrunner.plan.yamlsafe import MAX_PLAN_BYTES, LoadedYaml, Path_, dotted, load_yaml
-from planrunner.plan import permrules as permcheck
 
 NUMERIC_TYPES = ("number", "integer", "boolean")
 # design keys each method can honour; anything else is refused rather than silently ignored
@@ -152,7 +153,7 @@ def _resolve(annotation: Any, node: Any) -> Any:
         args = typing.get_args(annotation)
         if origin is typing.Annotated:
             annotation = args[0]
-        elif origin in (typing.Union, getattr(__import__("types"), "UnionType")):
+        elif origin in (typing.Union, __import__("types").UnionType):
             members = [a for a in args if a is not type(None)]
             models = [m for m in members if isinstance(m, type) and issubclass(m, BaseModel)]
             if len(members) == 1:
@@ -175,7 +176,7 @@ _TYPE_WORDS = {
 }
 
 
-def _from_pydantic(err: dict, data: Any) -> Problem:
+def _from_pydantic(err: Mapping[str, Any], data: Any) -> Problem:
     path = _strip_union_tags(tuple(err["loc"]), data)
     kind = err["type"]
     ctx = err.get("ctx") or {}
@@ -344,15 +345,18 @@ def _check_analysis(at: Path_, a: Any, plan: Plan) -> list[Problem]:
                 out.append(Problem(at + (key,), f"'{a.statistic}' takes no {key}",
                                    "remove the key, or choose a statistic that uses it"))
         if statistic.samples == 2 and a.groups is None:
-            out.append(Problem(at + ("statistic",), f"'{a.statistic}' compares two groups but the analysis has no groups",
+            out.append(Problem(at + ("statistic",),
+                               f"'{a.statistic}' compares two groups but the analysis has no groups",
                                "add groups: {by: COLUMN, compare: [FIRST, SECOND]}"))
         if statistic.samples == 1 and a.groups is not None:
             one_to_two = {"mean": "mean_difference", "median": "median_difference",
                           "quantile": "quantile_difference", "proportion": "risk_difference"}
-            out.append(Problem(at + ("statistic",), f"'{a.statistic}' describes one group but the analysis compares two",
+            out.append(Problem(at + ("statistic",),
+                               f"'{a.statistic}' describes one group but the analysis compares two",
                                f"use {one_to_two.get(a.statistic, 'a two-group statistic')} or remove groups"))
         if statistic.columns == 2 and a.predictor is None:
-            out.append(Problem(at + ("statistic",), f"'{a.statistic}' relates two columns but the analysis has no predictor",
+            out.append(Problem(at + ("statistic",),
+                               f"'{a.statistic}' relates two columns but the analysis has no predictor",
                                "add predictor: COLUMN (the outcome is the other column)"))
         if statistic.columns == 1 and a.predictor is not None:
             out.append(Problem(at + ("predictor",), f"'{a.statistic}' uses one column; predictor does not apply",

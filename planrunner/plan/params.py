@@ -11,7 +11,8 @@ from __future__ import annotations
 
 import datetime as dt
 import re
-from typing import Any, Iterator
+from collections.abc import Iterator
+from typing import Any
 
 from planrunner.errors import PlanError
 from planrunner.plan.problems import did_you_mean

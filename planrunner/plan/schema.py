@@ -8,7 +8,7 @@ where every problem can be reported at once with its position.
 
 from __future__ import annotations
 
-from typing import Annotated, Literal, Union
+from typing import Annotated, Literal
 
 from pydantic import BaseModel, ConfigDict, Field, model_validator
 
@@ -39,7 +39,7 @@ class Column(Strict):
     identifier: bool = False
 
     @model_validator(mode="after")
-    def _rules(self) -> "Column":
+    def _rules(self) -> Column:
         if self.identifier and self.type not in ("text", "category", "integer"):
             raise ValueError("identifier applies only to text, category and integer columns")
         if self.levels is not None:
@@ -76,7 +76,7 @@ class Groups(Strict):
     compare: Annotated[list[str], Field(min_length=2, max_length=50)]
 
     @model_validator(mode="after")
-    def _distinct(self) -> "Groups":
+    def _distinct(self) -> Groups:
         if len(set(self.compare)) != len(self.compare):
             raise ValueError("compare names the same level twice")
         return self
@@ -122,7 +122,7 @@ class BootstrapAnalysis(AnalysisBase):
     resamples: Resamples | None = None
     confidence: Confidence | None = None
     intervals: Annotated[list[IntervalMethod], Field(min_length=1)] = Field(
-        default_factory=lambda: ["percentile", "bca"])
+        default_factory=lambda: list[IntervalMethod](["percentile", "bca"]))
     studentized_se: Literal["analytic", "jackknife", "bootstrap"] | None = None
     # None: the engine's default (`engines.bootstrap.BootstrapOptions`)
     inner_resamples: Annotated[int, Field(ge=10, le=10_000)] | None = None  # nested bootstrap only
@@ -134,7 +134,7 @@ class BootstrapAnalysis(AnalysisBase):
     save_distribution: bool = False  # write every replicate (and exhaustive weight) into the record
 
     @model_validator(mode="after")
-    def _unique_intervals(self) -> "BootstrapAnalysis":
+    def _unique_intervals(self) -> BootstrapAnalysis:
         if len(set(self.intervals)) != len(self.intervals):
             raise ValueError("intervals names a method twice")
         return self
@@ -155,7 +155,7 @@ class JackknifeAnalysis(AnalysisBase):
 
 
 Analysis = Annotated[
-    Union[BootstrapAnalysis, PermutationAnalysis, JackknifeAnalysis],
+    BootstrapAnalysis | PermutationAnalysis | JackknifeAnalysis,
     Field(discriminator="method"),
 ]
 METHODS = ("bootstrap", "permutation", "jackknife")

@@ -17,7 +17,8 @@ its level (nor its reflection 2θ̂ − q, as in a basic interval) gets no band.
 from __future__ import annotations
 
 import math
-from typing import Any, Sequence
+from collections.abc import Sequence
+from typing import Any
 
 import numpy as np
 

@@ -9,7 +9,8 @@ from typing import Any
 import numpy as np
 
 from planrunner.engines.results import BootstrapResult, Interval
-from planrunner.record.bands import RULE as MC_INTERVAL_RULE, interval_bands
+from planrunner.record.bands import RULE as MC_INTERVAL_RULE
+from planrunner.record.bands import interval_bands
 from planrunner.record.canonical import plain_number as _f
 from planrunner.record.fields import MethodFields, array_sha256, distribution_summary, jsonable
 

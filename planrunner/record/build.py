@@ -20,8 +20,9 @@ import json
 import math
 import platform
 import sys
+from collections.abc import Callable
 from dataclasses import dataclass, field
-from typing import Any, Callable
+from typing import Any
 
 from planrunner import __version__
 from planrunner.compile.jobs import Job

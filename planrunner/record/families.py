@@ -7,8 +7,9 @@ that the family raises; the builder puts those into the members' entries.
 
 from __future__ import annotations
 
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass
-from typing import Any, Callable, Sequence
+from typing import Any
 
 from planrunner.engines.maxt import MaxTResult
 from planrunner.engines.multiplicity import METHOD_NAMES, adjust

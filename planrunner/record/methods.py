@@ -44,7 +44,8 @@ def _sentence(a: dict[str, Any]) -> str:
     if a["method"] == "permutation":
         arrangements = (a.get("details") or {}).get("arrangements")
         how = (f"by complete enumeration of all {arrangements:,} arrangements" if a["exact"] and arrangements
-               else "by complete enumeration" if a["exact"] else f"from m = {a['resamples']} random arrangements as (b + 1)/(m + 1), with b the number "
+               else "by complete enumeration" if a["exact"]
+               else f"from m = {a['resamples']} random arrangements as (b + 1)/(m + 1), with b the number "
                     "at least as extreme as the observed one")
         return (f"{lead} tested {what} by a permutation test (scheme: {a['scheme']}); the p-value, obtained "
                 f"{how}, is {_sidedness(a)}.")

@@ -10,8 +10,8 @@ from __future__ import annotations
 
 from typing import Any
 
-from planrunner.record.build import FORMAT
 from planrunner.plan.schema import Plan
+from planrunner.record.build import FORMAT
 
 DRAFT = "https://json-schema.org/draft/2020-12/schema"
 PLAN_SCHEMA_ID = "urn:planrunner:schema:plan:1"
@@ -40,7 +40,8 @@ def _obj(properties: dict[str, Any], required: list[str] | None = None, extra: b
 
 
 _warning = _obj({"code": {"type": "string"}, "message": {"type": "string"}})
-_interval = _obj({"method": {"type": "string"}, "level": {"type": "number", "exclusiveMinimum": 0, "exclusiveMaximum": 1},
+_interval = _obj({"method": {"type": "string"},
+                  "level": {"type": "number", "exclusiveMinimum": 0, "exclusiveMaximum": 1},
                   "lower": _num, "upper": _num, "note": _str}, required=["method", "level", "lower", "upper"])
 _analysis = _obj({
     "id": {"type": "string"}, "title": _str, "role": {"type": "string"}, "question": {"type": "string"},

@@ -10,10 +10,10 @@ from __future__ import annotations
 import html
 from typing import Any
 
-from planrunner.record.canonical import differences
 from planrunner.errors import PlanError
-from planrunner.report.render import number, pvalue
 from planrunner.plan.yamlsafe import load_yaml
+from planrunner.record.canonical import differences
+from planrunner.report.render import number, pvalue
 
 
 def _interval(a: dict[str, Any] | None, method: str) -> str:
@@ -26,7 +26,8 @@ def _interval(a: dict[str, Any] | None, method: str) -> str:
 
 
 def _change(x: Any, y: Any) -> float | None:
-    if isinstance(x, (int, float)) and isinstance(y, (int, float)) and not isinstance(x, bool) and not isinstance(y, bool):
+    numbers = (int, float)
+    if isinstance(x, numbers) and isinstance(y, numbers) and not isinstance(x, bool) and not isinstance(y, bool):
         return float(y) - float(x)
     return None
 
@@ -80,7 +81,7 @@ def compare_records(a: dict[str, Any], b: dict[str, Any]) -> dict[str, Any]:
         analyses.append({
             "id": aid,
             "in": "both" if x and y else ("A only" if x else "B only"),
-            "method": (x or y)["method"],
+            "method": (x or y or {})["method"],
             "estimate": [x and x["estimate"], y and y["estimate"]],
             "estimate_change": _change(x and x["estimate"], y and y["estimate"]),
             "intervals": [{"method": m, "a": _interval(x, m), "b": _interval(y, m)} for m in methods],

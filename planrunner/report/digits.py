@@ -26,7 +26,8 @@ the family and rule 4 applies with that bound.
 from __future__ import annotations
 
 import math
-from typing import Any, Iterable
+from collections.abc import Iterable
+from typing import Any
 
 SIGNIFICANT = 4
 MAX_SIGNIFICANT = 6

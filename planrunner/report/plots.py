@@ -17,22 +17,23 @@ from __future__ import annotations
 import io
 import math
 import re
+from collections.abc import Callable
 from dataclasses import dataclass
-from typing import Any, Callable
+from typing import Any
 
 import matplotlib
 from matplotlib.figure import Figure
 from matplotlib.ticker import MaxNLocator
 
-from planrunner.report import digits as precision
 from planrunner.engines.statistics import STATISTICS
+from planrunner.report import digits as precision
 
 # Okabe & Ito (2008) colours, each paired with a line style so that greyscale keeps them apart
 BLUE, GREEN, PURPLE, ORANGE, VERMILLION = "#0072B2", "#009E73", "#CC79A7", "#E69F00", "#D55E00"
 INTERVAL_STYLES = [(BLUE, "--"), (GREEN, ":"), (PURPLE, "-."), (ORANGE, (0, (5, 1, 1, 1)))]
 BAR, BAR_EDGE = "#d4d4d4", "#7a7a7a"
 
-RC = {
+RC: Any = {  # matplotlib settings of every figure (Any: the stubs type the keys as a closed Literal)
     "svg.hashsalt": "planrunner",
     "svg.fonttype": "none",
     "font.family": "sans-serif",
@@ -214,7 +215,8 @@ def null_plot(entry: dict[str, Any], fmt: Formatter, fmt_p: Formatter) -> Plot |
         tail = (f"; shaded: the {precision.count(details.get(count_key))} values {relation} the observed value"
                 f"{', doubled for the two-sided p-value' if entry.get('alternative') == 'two-sided' else ''}"
                 f" (p = {fmt_p(entry.get('p_value'), (entry.get('monte_carlo') or {}).get('p_value_sd'))})")
-    alt = (f"Histogram of the permutation null distribution ({precision.count(size)} {what}) of the {axis_label(entry)}, "
+    alt = (f"Histogram of the permutation null distribution ({precision.count(size)} {what}) "
+           f"of the {axis_label(entry)}, "
            f"from {fmt(edges[0])} to {fmt(edges[-1])}; the observed value {fmt(observed)} is a solid black "
            f"line{tail}.")
     return Plot(f"{entry['id']}-null", _svg(fig), alt)

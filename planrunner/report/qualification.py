@@ -2,8 +2,9 @@
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from html import escape
-from typing import Any, Sequence
+from typing import Any
 
 
 def _cell(value: Any) -> str:

@@ -35,7 +35,7 @@ def templates_folder() -> Path:
     return Path(__file__).resolve().parents[2] / "templates"
 
 
-@functools.lru_cache(maxsize=None)
+@functools.cache
 def _environment(kind: str) -> jinja2.Environment:
     env = jinja2.Environment(
         loader=jinja2.FileSystemLoader(str(templates_folder())),

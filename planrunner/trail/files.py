@@ -8,19 +8,19 @@ from __future__ import annotations
 
 import json
 import os
+from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any, Callable
+from typing import Any
 
-from planrunner.record.canonical import RECORD_HASH_FIELD, canonical_json, record_sha256
-from planrunner.errors import PlanError, RecordError
-from planrunner.trail.history import HISTORY_FILE, HistoryProblem, check_chain, new_entry, parse_lines
 from planrunner.data.tables import Table, file_sha256, resolve_data_path
-from planrunner.trail.lock import build_lock, check_lock, compare_with_lock, deviation_lines, lock_path_for
-from planrunner.plan.params import PLACEHOLDER, resolve_values, substitute
+from planrunner.errors import PlanError, RecordError
 from planrunner.plan.load import LoadedPlan, read_plan
+from planrunner.plan.params import PLACEHOLDER, resolve_values, substitute
+from planrunner.record.canonical import RECORD_HASH_FIELD, canonical_json, record_sha256
+from planrunner.trail.history import HISTORY_FILE, HistoryProblem, check_chain, new_entry, parse_lines
+from planrunner.trail.lock import build_lock, check_lock, compare_with_lock, deviation_lines, lock_path_for
 from planrunner.trail.store import read_json, write_new_file
-
 
 # --- locks -----------------------------------------------------------------------------------------
 

@@ -12,8 +12,9 @@ This module is pure: planrunner.pipeline.run appends the lines and reads them ba
 from __future__ import annotations
 
 import json
+from collections.abc import Callable
 from dataclasses import dataclass
-from typing import Any, Callable
+from typing import Any
 
 from planrunner.record.canonical import self_hash
 
@@ -78,12 +79,15 @@ def check_chain(entries: list[dict[str, Any]]) -> list[HistoryProblem]:
         line = e.get("_line", 0)
         body = {k: v for k, v in e.items() if k != "_line"}
         if body.get(ENTRY_HASH_FIELD) != self_hash(body, ENTRY_HASH_FIELD):
-            problems.append(HistoryProblem(line, "the entry was changed after it was written (its hash does not match)"))
+            problems.append(HistoryProblem(
+                line, "the entry was changed after it was written (its hash does not match)"))
         if body.get("previous_sha256") != previous_hash:
             problems.append(HistoryProblem(line, "the link to the previous entry is broken "
                                                  "(an entry before it was removed, changed or reordered)"))
         if body.get("seq") != expected_seq:
-            problems.append(HistoryProblem(line, f"sequence number {body.get('seq')} where {expected_seq} was expected"))
+            problems.append(HistoryProblem(
+                line, f"sequence number {body.get('seq')} where {expected_seq} was expected"))
         previous_hash = body.get(ENTRY_HASH_FIELD) or ""
-        expected_seq = (body.get("seq") if isinstance(body.get("seq"), int) else expected_seq) + 1
+        seq = body.get("seq")
+        expected_seq = (seq if isinstance(seq, int) else expected_seq) + 1
     return problems

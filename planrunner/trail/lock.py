@@ -14,8 +14,8 @@ from __future__ import annotations
 from pathlib import Path
 from typing import Any
 
-from planrunner.record.canonical import content_sha256, differences, self_hash
 from planrunner.errors import RecordError
+from planrunner.record.canonical import content_sha256, differences, self_hash
 
 LOCK_FORMAT = "planrunner.lock/1"
 LOCK_HASH_FIELD = "lock_sha256"

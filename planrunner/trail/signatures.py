@@ -263,7 +263,7 @@ def _utc(text: Any) -> dt.datetime | None:
     if not isinstance(text, str) or not text.endswith("Z"):
         return None
     try:
-        return dt.datetime.fromisoformat(text[:-1]).replace(tzinfo=dt.timezone.utc)
+        return dt.datetime.fromisoformat(text[:-1]).replace(tzinfo=dt.UTC)
     except ValueError:
         return None
 
@@ -366,7 +366,7 @@ def signing_problem(signers: Signers, signing: SigningKey, meaning: str, today: 
         return f"the key belongs to {signer.name!r} in the signers file, not to {signing.signer!r}"
     if ROLE_OF_MEANING[meaning] not in signer.roles:
         return f"{signer.name} may not sign as {meaning} (roles: {', '.join(signer.roles)})"
-    return _within(signer, dt.datetime.combine(today, dt.time(), dt.timezone.utc))
+    return _within(signer, dt.datetime.combine(today, dt.time(), dt.UTC))
 
 
 def missing_meanings(findings: list[Finding], required: tuple[str, ...]) -> list[str]:

@@ -16,20 +16,36 @@ import hashlib
 import json
 import os
 import stat
+from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any, Callable
+from typing import Any
 
 from planrunner.errors import PlanrunnerError, SigningError
 from planrunner.plan.yamlsafe import dotted, load_yaml
 from planrunner.record.build import FORMAT as RECORD_FORMAT
 from planrunner.trail.history import HISTORY_FILE, parse_lines
 from planrunner.trail.lock import LOCK_FORMAT, LOCK_HASH_FIELD
+from planrunner.trail.signatures import (
+    QUALIFICATION_FORMAT,
+    QUALIFICATION_HASH_FIELD,
+    Finding,
+    Signers,
+    SigningKey,
+    Subject,
+    b64,
+    check_signature,
+    fingerprint,
+    history_entry_subject,
+    make_signature,
+    missing_meanings,
+    parse_signers,
+    private_key_text,
+    public_bytes,
+    short,
+    signing_problem,
+)
 from planrunner.trail.store import read_json, write_new_file
-from planrunner.trail.signatures import (QUALIFICATION_FORMAT, QUALIFICATION_HASH_FIELD, Finding, Signers,
-                                         SigningKey, Subject, b64, check_signature, fingerprint,
-                                         history_entry_subject, make_signature, missing_meanings, parse_signers,
-                                         private_key_text, public_bytes, short, signing_problem)
 
 SIGNERS_FILE = "signers.yaml"
 PUBLIC_KEY_FORMAT = "planrunner.public-key/1"
