@@ -14,7 +14,6 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
-import pandas as pd
 
 from planrunner.errors import DataError, ExpressionError
 from planrunner.plan.expr import parse_expression
@@ -278,6 +277,8 @@ def _convert(values: np.ndarray, keep: np.ndarray, name: str, spec: Column, show
                          f"{_list(_lines(bad, line_of), count)}", where=shown, hint=hint)
 
     if kind in ("number", "integer"):
+        import pandas as pd  # loaded only when data are read (half a second; a plan check needs none)
+
         text = np.where(keep, values, "0")
         numbers = pd.to_numeric(pd.Series(text), errors="coerce").to_numpy(dtype=float)
         bad = ~np.isfinite(numbers) & keep
@@ -302,6 +303,8 @@ def _convert(values: np.ndarray, keep: np.ndarray, name: str, spec: Column, show
             raise refuse(bad, "are not true/false", "use true/false, yes/no or 1/0")
         return truth
     if kind == "date":
+        import pandas as pd
+
         text = np.where(keep, values, "1970-01-01")
         dates = pd.to_datetime(pd.Series(text), format="%Y-%m-%d", errors="coerce")
         bad = dates.isna().to_numpy() & keep

@@ -52,13 +52,13 @@ from dataclasses import dataclass, fields, replace
 from typing import Any
 
 import numpy as np
-from scipy.special import ndtri
 
 from planrunner.engines import schemes
 from planrunner.engines.blocks import RangeTask, map_resamples
 from planrunner.engines.blocks import bind as range_task
 from planrunner.engines.intervals import INTERVAL_METHODS, Summary, bca_levels, quantile_rank, read_quantile
 from planrunner.engines.jackknife import SMALL_SAMPLE, cluster_replicates, jackknife_replicates
+from planrunner.engines.lazy import ndtri
 from planrunner.engines.results import BootstrapResult, EngineWarning, Interval, frozen_array
 from planrunner.engines.statistics import Statistic, check_samples, check_strata, to_compute_layout
 from planrunner.engines.streams import Stream

@@ -27,8 +27,8 @@ from collections.abc import Callable
 from dataclasses import dataclass
 
 import numpy as np
-from scipy.special import ndtr, ndtri
 
+from planrunner.engines.lazy import ndtr, ndtri
 from planrunner.engines.results import Interval
 
 __all__ = ["INTERVAL_METHODS", "Summary", "bca_levels", "quantile_rank", "read_quantile"]

@@ -24,8 +24,8 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import stats
 
+from planrunner.engines.lazy import stats
 from planrunner.engines.results import EngineWarning
 
 __all__ = ["P_INTERVAL_LEVEL", "TWO_SIDED_RULES", "PValues", "clopper_pearson", "monte_carlo_sd", "summarize"]

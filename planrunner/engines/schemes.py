@@ -32,9 +32,9 @@ from collections.abc import Sequence
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import stats as _dist
-from scipy.special import gammaln
 
+from planrunner.engines.lazy import gammaln
+from planrunner.engines.lazy import stats as _dist
 from planrunner.engines.statistics import Statistic, take_observations
 from planrunner.engines.streams import Stream, UniformRows
 from planrunner.errors import EngineError

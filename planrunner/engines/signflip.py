@@ -23,11 +23,11 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy.stats import rankdata
 
 from planrunner.engines.blocks import bind as range_task
 from planrunner.engines.blocks import map_resamples
 from planrunner.engines.exactdist import integer_scores
+from planrunner.engines.lazy import rankdata
 from planrunner.engines.permcore import (
     DYNAMIC_PROGRAMMING,
     ENUMERATION,

@@ -24,8 +24,8 @@ from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 
 import numpy as np
-from scipy.stats import rankdata
 
+from planrunner.engines.lazy import rankdata
 from planrunner.errors import EngineError
 
 __all__ = [

@@ -21,8 +21,8 @@ from collections.abc import Callable
 from typing import Any
 
 import numpy as np
-from scipy import stats
 
+from planrunner.engines.lazy import stats
 from planrunner.engines.statistics import Statistic, register
 
 __all__ = ["K_GROUP", "PAIRED_ONLY", "SUM_SCORES", "rank_scores"]

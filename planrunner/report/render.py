@@ -17,13 +17,14 @@ import re
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
-import jinja2
 from markupsafe import Markup, escape
 
 from planrunner.report import digits as precision
 from planrunner.report.digits import significant
 
-if TYPE_CHECKING:  # matplotlib is imported only when a report is drawn
+if TYPE_CHECKING:  # matplotlib and jinja2 are imported only when a report is drawn
+    import jinja2
+
     from planrunner.report import plots
 
 
@@ -35,8 +36,10 @@ def templates_folder() -> Path:
     return Path(__file__).resolve().parents[2] / "templates"
 
 
-@functools.cache
+@functools.cache  # one environment per kind and process: each template is compiled once per process
 def _environment(kind: str) -> jinja2.Environment:
+    import jinja2
+
     env = jinja2.Environment(
         loader=jinja2.FileSystemLoader(str(templates_folder())),
         autoescape=(kind == "html"),
