@@ -136,6 +136,8 @@ TRACE: dict[str, tuple[str, ...]] = {
         "tests/test_resample_ranges.py::test_association_split_ranges_are_bit_identical",
         "tests/test_permutation_executors.py::"
         "test_permutation_designs_identical_serial_threads_processes_and_dask"),
+    "Start-up": ("tests/test_startup.py::test_version_loads_no_heavy_library",
+                 "tests/test_startup.py::test_plan_only_check_loads_no_heavy_library"),
     "Standing caution": ("tests/test_report.py::test_provenance_lists_plan_data_exclusions_seed_environment",),
 }
 
