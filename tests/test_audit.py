@@ -75,6 +75,15 @@ def test_lock_then_edit_then_run_lists_the_deviation_with_its_path(project, caps
 
     code, _, err = run(["run", str(project), "--refuse-deviations"], capsys)
     assert code == 2 and "analyses[0].intervals[1]: locked 'bca'" in err
+    # the fix it suggests records the change (a new locked plan), never dropping the safeguard
+    assert "planrunner lock NEW_PLAN" in err and "new name" in err
+    assert "remove --refuse-deviations" not in err
+
+
+def test_quiet_run_prints_only_the_run_folder(project, capsys):
+    code, out, _ = run(["run", str(project), "--quiet"], capsys)
+    lines = out.splitlines()
+    assert code == 0 and len(lines) == 1 and (Path(lines[0]) / "record.json").is_file()
 
 
 def test_changed_setting_and_changed_comment_are_told_apart(project, capsys):

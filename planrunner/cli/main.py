@@ -187,9 +187,11 @@ def _run(args: argparse.Namespace, argv: list[str]) -> int:
                            signing=signing, signers=args.signers)
     finally:
         bar.close()  # before any message, so that it does not land on the bar's line
-    if not args.quiet:
-        print(summary_table(outcome.record))
-        print(audit_summary(outcome))
+    if args.quiet:
+        print(outcome.folder)  # only the folder, so that a script can use it as it is
+        return EXIT_OK
+    print(summary_table(outcome.record))
+    print(audit_summary(outcome))
     print(f"record written to {outcome.folder}")
     return EXIT_OK
 

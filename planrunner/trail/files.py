@@ -68,7 +68,9 @@ def lock_for_run(loaded: LoadedPlan, tables: dict[str, Table], lock: str | Path 
     if refuse_deviations and entry["deviations"]:
         raise PlanError("the plan deviates from its lock", problems=[
             f"{loaded.file.name}: {line}" for line in deviation_lines(entry)]
-            + [f"(lock {lock_file}; remove --refuse-deviations to run and record the deviations)"])
+            + [f"(lock {lock_file}) A lock is never replaced: to approve these changes, save the changed plan "
+               "under a new name, lock it with 'planrunner lock NEW_PLAN' and run that plan; to keep the locked "
+               "analysis, undo the changes (or restore the locked data files)"])
     return entry
 
 
