@@ -381,5 +381,8 @@ def test_bands_and_figures_do_not_depend_on_order_other_analyses_or_batch_size(w
 def test_counts_are_written_as_people_read_them():
     assert precision.count(11440) == "11,440"  # identity 18: C(16, 7) mouse splits
     assert precision.count(11440.0) == "11,440"
-    assert precision.count(3.1610932081300164e66) == "3.1611 × 10^66"
+    assert precision.count(3.1610932081300164e66) == "3.16 × 10^66"
+    # an exact count of any size, as an integer or a string of digits: C(230, 115) ≈ 9.07e67 (math.comb)
+    assert precision.count(math.comb(230, 115)) == "9.07 × 10^67" == precision.count(str(math.comb(230, 115)))
+    assert precision.count(10**400) == "1.00 × 10^400"  # past the float range: no overflow
     assert precision.count(None) == "—"

@@ -5,9 +5,38 @@ Built only from the record, so it always says what was run, never what was meant
 
 from __future__ import annotations
 
+from decimal import Decimal
 from typing import Any
 
 INTERVAL_WORDS = {"percentile": "percentile", "bca": "bias-corrected and accelerated (BCa)"}
+
+
+def readable_count(value: int | str) -> str:
+    """A whole number as people read it: 11,440 up to 10¹⁵, beyond that 3.16 × 10^66 (three digits).
+
+    Exact for any size: a count of arrangements can exceed what a float holds (and JSON may carry it
+    as a string of digits), so the mantissa is rounded from the integer itself.
+    """
+    number = int(value)
+    if abs(number) < 10**15:
+        return f"{number:,}"
+    mantissa, exponent = f"{Decimal(number):.2e}".split("e")
+    return f"{mantissa} × 10^{int(exponent)}"
+
+
+def _p_computation(a: dict[str, Any]) -> str:
+    """How the p-value was computed: the computation the record says was used, never another."""
+    details = a.get("details") or {}
+    arrangements = details.get("arrangements")
+    of_all = f" of all {readable_count(arrangements)} arrangements" if arrangements not in (None, "") else ""
+    computation = details.get("computation") or ("enumeration" if a["exact"] else "Monte Carlo")
+    if computation == "dynamic programming":
+        return (f"exactly, by dynamic programming: the null distribution{of_all} was counted without listing "
+                "the arrangements one by one")
+    if computation == "enumeration":
+        return f"by complete enumeration{of_all}"
+    return (f"from m = {a['resamples']:,} random arrangements as (b + 1)/(m + 1), with b the number at least as "
+            "extreme as the observed one")
 
 
 def _sidedness(a: dict[str, Any]) -> str:
@@ -42,13 +71,8 @@ def _sentence(a: dict[str, Any]) -> str:
                 f"(scheme: {a['scheme']}) with {a['resamples']} resamples; the standard error is the standard "
                 f"deviation of the replicates, and {intervals} were computed.")
     if a["method"] == "permutation":
-        arrangements = (a.get("details") or {}).get("arrangements")
-        how = (f"by complete enumeration of all {arrangements:,} arrangements" if a["exact"] and arrangements
-               else "by complete enumeration" if a["exact"]
-               else f"from m = {a['resamples']} random arrangements as (b + 1)/(m + 1), with b the number "
-                    "at least as extreme as the observed one")
         return (f"{lead} tested {what} by a permutation test (scheme: {a['scheme']}); the p-value, obtained "
-                f"{how}, is {_sidedness(a)}.")
+                f"{_p_computation(a)}, is {_sidedness(a)}.")
     if a["method"] == "jackknife":
         return (f"{lead} estimated the bias and standard error of {what} by the delete-one jackknife "
                 f"(scheme: {a['scheme']}).")

@@ -29,6 +29,8 @@ import math
 from collections.abc import Iterable
 from typing import Any
 
+from planrunner.record.methods import readable_count
+
 SIGNIFICANT = 4
 MAX_SIGNIFICANT = 6
 
@@ -121,11 +123,14 @@ def adjusted_sd(method: str, sds: Iterable[Any]) -> float | None:
 def count(value: Any) -> str:
     """A count as people read it: thousands separated up to 10¹⁵, beyond that in powers of ten (an
     exact dynamic-programming null can count more arrangements than any integer type holds)."""
+    if isinstance(value, str) and value.lstrip("-").isdigit():
+        value = int(value)  # an exact count kept as a string of digits
+    if isinstance(value, int) and not isinstance(value, bool):
+        return readable_count(value)  # exact at any size (no float overflow past 1e308)
     if not _real(value):
         return "—"
     if float(value).is_integer() and abs(value) < 1e15:
         return f"{int(value):,}"
     if abs(value) >= 1e15:
-        mantissa, exponent = f"{float(value):.4e}".split("e")
-        return f"{float(mantissa):g} × 10^{int(exponent)}"
+        return readable_count(int(value))
     return significant(value)
