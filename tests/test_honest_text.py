@@ -55,3 +55,82 @@ def test_methods_paragraph_states_the_dynamic_programming_it_used(write_plan, tm
     text = methods_text(record)
     assert "dynamic programming" in text and "9.07 × 10^67 arrangements" in text  # math.comb(230, 115)
     assert "complete enumeration" not in text and "906" not in text  # no 68-digit number
+
+
+LABEL_PLAN = """
+plan: honest-labels
+title: Labels
+seed: 9
+datasets:
+  d:
+    file: data.csv
+    columns:
+      g: {type: category}
+      ward: {type: text}
+      y: {type: number, unit: N}
+analyses:
+  - id: ranks
+    data: d
+    outcome: y
+    groups: {by: g, compare: [foam, standard]}
+    statistic: rank_sum
+    method: permutation
+    alternative: less
+    intervals: [shift]
+    resamples: 999
+  - id: ratio
+    data: d
+    outcome: y
+    groups: {by: g, compare: [foam, standard]}
+    statistic: ratio_of_means
+    method: bootstrap
+    resamples: 200
+  - id: wards
+    data: d
+    outcome: y
+    groups: {by: g, compare: [foam, standard]}
+    clusters: ward
+    statistic: mean_difference
+    method: permutation
+"""
+
+# invented data: 4 wards per arm, unequal sizes
+WARDS = {"w1": ("foam", [5.1, 6.0, 5.5]), "w2": ("foam", [7.2, 6.8]), "w3": ("foam", [6.1, 5.9, 6.4, 6.6]),
+         "w4": ("foam", [8.0]), "w5": ("standard", [4.2, 5.0]), "w6": ("standard", [5.3, 4.8, 5.1]),
+         "w7": ("standard", [6.0, 5.2]), "w8": ("standard", [4.4, 4.9, 4.0])}
+
+
+def test_labels_say_direction_effect_clusters_and_ratio(write_plan, tmp_path, capsys) -> None:
+    from scipy import stats
+
+    from planrunner.cli import main as cli
+    from planrunner.report.render import render
+
+    csv = "g,ward,y\n" + "".join(f"{g},{w},{v}\n" for w, (g, vs) in WARDS.items() for v in vs)
+    plan = write_plan(LABEL_PLAN, {"data.csv": csv})
+    record = run_plan(plan, out=tmp_path / "out", clock=fixed_clock).record
+    by_id = {a["id"]: a for a in record["analyses"]}
+    foam = [v for g, vs in WARDS.values() if g == "foam" for v in vs]
+    standard = [v for g, vs in WARDS.values() if g == "standard" for v in vs]
+    hodges_lehmann = float(np.median(np.subtract.outer(foam, standard)))  # definition (Hodges & Lehmann 1963)
+    assert by_id["ranks"]["details"]["shift_estimate"] == hodges_lehmann
+    # the ratio's question relates the groups by a quotient
+    assert "foam over standard" in by_id["ratio"]["question"] and "minus" not in by_id["ratio"]["question"]
+    assert by_id["wards"]["n"]["clusters"] == {"foam": 4, "standard": 4}
+
+    w = stats.mannwhitneyu(foam, standard).statistic + len(foam) * (len(foam) + 1) / 2  # scipy: U; W = U + n1(n1+1)/2
+    for kind in ("md", "html"):
+        text = render(record, kind)
+        glance = text[text.rindex("Results at a glance"):].split("Analyses")[0]
+        assert "one-sided, foam &lt; standard" in glance or "one-sided, foam < standard" in glance, kind
+        assert f"{hodges_lehmann:.4g}" in glance and "shift, Hodges–Lehmann" in glance, kind
+        assert f"W = {w:g}" in glance, kind
+        assert "foam 10 rows in 4 clusters" in glance and "standard 10 rows in 4 clusters" in glance, kind
+        assert "foam over standard" in text, kind
+
+    assert cli.main(["run", str(plan), "--out", str(tmp_path / "again")]) == 0
+    table = capsys.readouterr().out
+    ranks_row = next(line for line in table.splitlines() if line.startswith("ranks"))
+    assert "(one-sided, foam < standard)" in ranks_row and f"W = {w:g}" in ranks_row
+    assert f"{hodges_lehmann:.4g} (shift, Hodges–Lehmann)" in ranks_row
+    assert "foam 10 rows in 4 clusters" in next(line for line in table.splitlines() if line.startswith("wards"))

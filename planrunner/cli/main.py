@@ -34,6 +34,7 @@ from planrunner.errors import (
     RecordError,
     SigningError,
 )
+from planrunner.report import labels
 from planrunner.report.render import number, pvalue
 
 if TYPE_CHECKING:
@@ -209,9 +210,12 @@ def summary_table(record: dict) -> str:
         first = a["intervals"][0] if a["intervals"] else None
         interval = (f"{first['method']} {first['level'] * 100:g}%: {number(first['lower'])} to {number(first['upper'])}"
                     if first else "")
-        n = ", ".join(f"{g} {k}" for g, k in a["n"]["groups"].items())
-        rows.append((a["id"], a["method"], number(a["estimate"]), interval,
-                     pvalue(a["p_value"]) if a["p_value"] is not None else "", n, str(len(a["warnings"]))))
+        value, what, statistic = labels.effect(a)
+        estimate = number(value) + (f" ({what})" if what else "") + (f"; {statistic}" if statistic else "")
+        side = labels.direction(a)
+        p = "" if a["p_value"] is None else pvalue(a["p_value"]) + (f" ({side})" if side else "")
+        rows.append((a["id"], a["method"], estimate, interval, p, ", ".join(labels.group_sizes(a)),
+                     str(len(a["warnings"]))))
     widths = [max(len(r[i]) for r in rows) for i in range(len(header))]
     lines = ["  ".join(cell.ljust(w) for cell, w in zip(r, widths)).rstrip() for r in rows]
     lines.insert(1, "  ".join("-" * w for w in widths))

@@ -47,13 +47,16 @@ class Job:
         return self.options.settings()
 
     def counts(self) -> dict[str, Any]:
-        """Observations per group and, where declared, per stratum within group."""
+        """Observations per group and, where declared, per stratum within group and clusters per group."""
         n: dict[str, Any] = {label: int(s.shape[0]) for label, s in zip(self.group_labels, self.samples)}
-        if self.strata is None or self.strata_labels is None:
-            return {"groups": n}
-        cells = {label: {self.strata_labels[k]: int(np.sum(codes == k)) for k in np.unique(codes)}
-                 for label, codes in zip(self.group_labels, self.strata)}
-        return {"groups": n, "strata": cells}
+        out: dict[str, Any] = {"groups": n}
+        if self.strata is not None and self.strata_labels is not None:
+            out["strata"] = {label: {self.strata_labels[k]: int(np.sum(codes == k)) for k in np.unique(codes)}
+                             for label, codes in zip(self.group_labels, self.strata)}
+        clusters = self.clusters if self.clusters is not None else self.design.get("clusters")
+        if clusters is not None:  # the units that were resampled or shuffled
+            out["clusters"] = {label: int(np.unique(codes).size) for label, codes in zip(self.group_labels, clusters)}
+        return out
 
 
 def compile_jobs(plan: Plan, tables: dict[str, Table]) -> list[Job]:

@@ -30,6 +30,8 @@ from planrunner.errors import EngineError
 
 __all__ = [
     "PARAMETERS",
+    "RATIOS",
+    "comparison_word",
     "STATISTICS",
     "Statistic",
     "bind",
@@ -313,6 +315,14 @@ register(Statistic("risk_difference", "risk difference", 2, True, "binary", _dif
 register(Statistic("risk_ratio", "risk ratio", 2, True, "binary", _ratio_of_means))
 register(Statistic("odds_ratio", "odds ratio", 2, True, "binary", _odds_ratio))
 register(Statistic("hodges_lehmann", "Hodges–Lehmann shift", 2, False, "numeric", _hodges_lehmann))
+
+# two-group statistics that compare by a quotient (first over second), not a difference
+RATIOS = frozenset({"ratio_of_means", "risk_ratio", "odds_ratio"})
+
+
+def comparison_word(name: str) -> str:
+    """How a two-group statistic relates the groups: 'over' for a ratio, 'minus' for a difference."""
+    return "over" if name in RATIOS else "minus"
 
 
 # ---------------------------------------------------------------------------------------------

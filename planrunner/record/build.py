@@ -26,6 +26,7 @@ from typing import Any
 
 from planrunner import __version__
 from planrunner.compile.jobs import Job
+from planrunner.engines.statistics import comparison_word
 from planrunner.data.tables import Table
 from planrunner.engines.bootstrap import BootstrapOptions
 from planrunner.engines.maxt import MaxTResult
@@ -96,7 +97,7 @@ def question(analysis: Analysis, statistic_label: str, unit: str | None) -> str:
         what = f"{statistic_label} of {analysis.predictor} and {analysis.outcome}"
     if analysis.groups is not None and len(analysis.groups.compare) == 2:
         first, second = analysis.groups.compare
-        what = f"{first} minus {second} by {analysis.groups.by}: {what}"
+        what = f"{first} {comparison_word(analysis.statistic)} {second} by {analysis.groups.by}: {what}"
     elif analysis.groups is not None:
         what = f"{', '.join(analysis.groups.compare)} by {analysis.groups.by}: {what}"
     if analysis.strata is not None:

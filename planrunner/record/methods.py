@@ -8,6 +8,8 @@ from __future__ import annotations
 from decimal import Decimal
 from typing import Any
 
+from planrunner.engines.statistics import comparison_word
+
 INTERVAL_WORDS = {"percentile": "percentile", "bca": "bias-corrected and accelerated (BCa)"}
 
 
@@ -55,7 +57,7 @@ def _list(words: list[str]) -> str:
 def _comparison(a: dict[str, Any]) -> str:
     if a.get("groups"):
         first, second = a["groups"]["compare"][:2]
-        return f" ({first} minus {second}, groups defined by {a['groups']['by']})"
+        return f" ({first} {comparison_word(a['statistic'])} {second}, groups defined by {a['groups']['by']})"
     return ""
 
 

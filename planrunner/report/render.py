@@ -19,7 +19,9 @@ from typing import TYPE_CHECKING, Any
 
 from markupsafe import Markup, escape
 
+from planrunner.engines.statistics import comparison_word
 from planrunner.report import digits as precision
+from planrunner.report import labels
 from planrunner.report.digits import significant
 
 if TYPE_CHECKING:  # matplotlib and jinja2 are imported only when a report is drawn
@@ -59,6 +61,7 @@ def _environment(kind: str) -> jinja2.Environment:
     env.filters["plain"] = plain
     env.filters["count"] = precision.count
     env.filters["exactness"] = exactness
+    env.filters["compares"] = comparison_word
     env.globals["fence"] = markdown_fence
     return env
 
@@ -142,7 +145,9 @@ def _analysis_view(index: int, entry: dict[str, Any]) -> dict[str, Any]:
             where = "general"
         concerns.setdefault(where, []).append(warning)
     bands = (entry.get("monte_carlo") or {}).get("intervals") or []
-    return {"figures": figures, "warnings": concerns,
+    value, what, statistic = labels.effect(entry)
+    return {"figures": figures, "warnings": concerns, "direction": labels.direction(entry),
+            "effect": {"value": value, "what": what, "statistic": statistic}, "sizes": labels.group_sizes(entry),
             "bands": [bands[i] if i < len(bands) else {} for i in range(len(entry.get("intervals") or []))]}
 
 

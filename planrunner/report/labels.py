@@ -1,0 +1,63 @@
+"""Words beside the numbers, shared by the reports and the terminal table, built from the record.
+
+- a one-sided p-value says its direction ("one-sided, foam < standard");
+- the effect column shows an effect on the outcome's scale: for a test statistic that is not one
+  (a rank sum W, a t, an F) it shows the shift estimate when the record has one (Hodges–Lehmann for
+  the rank sum) and names the test statistic beside it (W = 1197); without a shift estimate it shows
+  the test statistic, named as such;
+- a cluster design shows clusters per group beside the rows.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+# permutation statistics that test, but do not measure an effect on the outcome's scale
+TEST_STATISTICS = {"rank_sum": "W", "signed_rank": "T+", "t_pooled": "t", "t_welch": "t", "one_way_f": "F",
+                   "rank_h": "H"}
+ASSOCIATION = {"correlation", "spearman", "kendall", "slope"}
+
+
+def direction(entry: dict[str, Any]) -> str | None:
+    """'one-sided, A > B' (or '<') for a one-sided p-value; None for a two-sided one or none."""
+    alternative = entry.get("alternative")
+    if alternative not in ("greater", "less") or entry.get("p_value") is None:
+        return None
+    sign = ">" if alternative == "greater" else "<"
+    compare = (entry.get("groups") or {}).get("compare") or []
+    if len(compare) == 2:
+        return f"one-sided, {compare[0]} {sign} {compare[1]}"
+    if entry.get("statistic") in ASSOCIATION:
+        return f"one-sided, {'positive' if sign == '>' else 'negative'} association"
+    return f"one-sided, {entry.get('statistic_label', 'statistic')} {'large' if sign == '>' else 'small'}"
+
+
+def effect(entry: dict[str, Any]) -> tuple[Any, str | None, str | None]:
+    """(effect value, what it is, the test statistic in words) for the effect column.
+
+    The value is the record's estimate unless the statistic only tests (``TEST_STATISTICS``); then
+    it is the shift estimate when there is one, else the test statistic itself (labelled)."""
+    estimate = entry.get("estimate")
+    symbol = TEST_STATISTICS.get(entry.get("statistic", "")) if entry.get("method") == "permutation" else None
+    if symbol is None:
+        return estimate, None, None
+    statistic = f"test statistic {symbol} = {_plain(estimate)}"
+    shift = (entry.get("details") or {}).get("shift_estimate")
+    if shift is None:
+        return estimate, "test statistic", None
+    what = "shift, Hodges–Lehmann" if entry.get("statistic") == "rank_sum" else "shift"
+    return shift, what, statistic
+
+
+def group_sizes(entry: dict[str, Any]) -> list[str]:
+    """'foam 40' per group, or 'foam 40 rows in 8 clusters' for a cluster design."""
+    n = entry.get("n") or {}
+    clusters = n.get("clusters") or {}
+    return [f"{g} {k} rows in {clusters[g]} clusters" if g in clusters else f"{g} {k}"
+            for g, k in (n.get("groups") or {}).items()]
+
+
+def _plain(value: Any) -> str:
+    if isinstance(value, float):
+        return f"{value:.6g}"
+    return "—" if value is None else str(value)
