@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import json
 import math
 
 import numpy as np
@@ -55,6 +56,9 @@ def test_methods_paragraph_states_the_dynamic_programming_it_used(write_plan, tm
     text = methods_text(record)
     assert "dynamic programming" in text and "9.07 × 10^67 arrangements" in text  # math.comb(230, 115)
     assert "complete enumeration" not in text and "906" not in text  # no 68-digit number
+    absolute = json.loads(json.dumps(record))
+    absolute["analyses"][0]["details"]["two_sided_rule"] = "absolute"
+    assert "twice the smaller" not in methods_text(absolute) and "far from the centre" in methods_text(absolute)
 
 
 LABEL_PLAN = """

@@ -43,7 +43,10 @@ def _p_computation(a: dict[str, Any]) -> str:
 
 def _sidedness(a: dict[str, Any]) -> str:
     first, second = (a["groups"]["compare"][:2] if a.get("groups") else ("the first group", "the second"))
-    return {"two-sided": "two-sided (twice the smaller one-sided p-value, at most 1)",
+    rule = (a.get("details") or {}).get("two_sided_rule", "doubled")
+    two_sided = ("two-sided (twice the smaller one-sided p-value, at most 1)" if rule == "doubled" else
+                 "two-sided (arrangements at least as far from the centre of the null as the observed one)")
+    return {"two-sided": two_sided,
             "greater": f"one-sided (alternative: {first} greater than {second})",
             "less": f"one-sided (alternative: {first} less than {second})"}.get(a["alternative"], str(a["alternative"]))
 
