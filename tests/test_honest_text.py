@@ -6,6 +6,7 @@ import json
 import math
 
 import numpy as np
+import pytest
 
 from planrunner.pipeline.run import run_plan
 from planrunner.record.methods import methods_text, readable_count
@@ -138,3 +139,35 @@ def test_labels_say_direction_effect_clusters_and_ratio(write_plan, tmp_path, ca
     assert "(one-sided, foam < standard)" in ranks_row and f"W = {w:g}" in ranks_row
     assert f"{hodges_lehmann:.4g} (shift, Hodges–Lehmann)" in ranks_row
     assert "foam 10 rows in 4 clusters" in next(line for line in table.splitlines() if line.startswith("wards"))
+
+
+def _family_record(p_a: float, sd_a: float, p_b: float, sd_b: float, method: str = "holm") -> dict:
+    from planrunner.engines.multiplicity import adjust
+
+    adjusted = adjust([p_a, p_b], method)
+    return {"analyses": [{"id": "a", "monte_carlo": {"p_value_sd": sd_a}, "settings": {"alpha": 0.05}},
+                         {"id": "b", "monte_carlo": {"p_value_sd": sd_b}, "settings": {"alpha": 0.05}}],
+            "multiplicity": [{"method": method, "family": ["a", "b"], "unadjusted": {"a": p_a, "b": p_b},
+                              "adjusted": {"a": adjusted[0], "b": adjusted[1]}}]}
+
+
+def test_an_exact_adjusted_p_is_never_rounded_with_another_members_error() -> None:
+    from planrunner.report.render import _adjusted_view
+
+    # Holm: b's adjusted p is its own exact 0.05022 (2 × a's 0.0065 ± 2 s.d. stays below it)
+    view = _adjusted_view(_family_record(0.0065, 0.0008, 0.05022, 0.0))
+    assert view["b"][0]["text"] == "0.05022" and view["b"][0]["sd_bound"] is None  # 4 significant digits, exact
+    assert view["a"][0]["sd_bound"] == pytest.approx(2 * 0.0008)  # rule 5: F = 2 for Holm
+    # when b's adjusted value does come from a's Monte Carlo p, a's error applies to it
+    view = _adjusted_view(_family_record(0.03, 0.004, 0.031, 0.0))
+    assert view["b"][0]["sd_bound"] == pytest.approx(2 * 0.004)
+
+
+def test_a_p_value_is_never_printed_rounded_across_alpha() -> None:
+    from planrunner.report import digits
+
+    assert digits.p_value(0.05022, 0.002) == "0.050"  # rule 4 alone would cross alpha
+    assert digits.p_value(0.05022, 0.002, 0.05) == "0.0502"
+    assert digits.p_value(0.04996, 0.002, 0.05) == "0.050"  # 0.050 ≤ 0.05: same side, kept
+    assert digits.p_value(0.050004, None, 0.05) == "0.050004"  # exact: 4 digits would read 0.05
+    assert digits.p_value(0.0123, 0.002, 0.05) == "0.012"

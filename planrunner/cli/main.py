@@ -34,8 +34,8 @@ from planrunner.errors import (
     RecordError,
     SigningError,
 )
-from planrunner.report import labels
-from planrunner.report.render import number, pvalue
+from planrunner.report import digits, labels
+from planrunner.report.render import number
 
 if TYPE_CHECKING:
     pass
@@ -213,7 +213,9 @@ def summary_table(record: dict) -> str:
         value, what, statistic = labels.effect(a)
         estimate = number(value) + (f" ({what})" if what else "") + (f"; {statistic}" if statistic else "")
         side = labels.direction(a)
-        p = "" if a["p_value"] is None else pvalue(a["p_value"]) + (f" ({side})" if side else "")
+        shown = digits.p_value(a["p_value"], (a.get("monte_carlo") or {}).get("p_value_sd"),
+                               (a.get("settings") or {}).get("alpha"))
+        p = "" if a["p_value"] is None else shown + (f" ({side})" if side else "")
         rows.append((a["id"], a["method"], estimate, interval, p, ", ".join(labels.group_sizes(a)),
                      str(len(a["warnings"]))))
     widths = [max(len(r[i]) for r in rows) for i in range(len(header))]

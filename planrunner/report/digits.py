@@ -19,14 +19,20 @@ Rule 4 (a p-value): as rules 1–2, but never printed as 0: a Monte Carlo p-valu
 Rule 5 (an adjusted p-value): every adjusted p-value of a family is a function of the family's
 p-values in which each is multiplied by at most F (F = m, the family size, for Bonferroni, Holm,
 Hochberg and Benjamini–Hochberg; F = m·(1 + 1/2 + … + 1/m) for Benjamini–Yekutieli, and used for
-any other method as a cautious bound), so its Monte Carlo s.d. is taken as F × the largest s.d. in
-the family and rule 4 applies with that bound.
+any other method as a cautious bound), so its Monte Carlo s.d. is taken as F × the largest s.d.
+among the members whose Monte Carlo p-values it moves with (found by moving each by ±2 of its s.d.),
+and rule 4 applies with that bound; an adjusted p-value that moves with none is exact (rule 2). A
+max-T adjusted p-value is one proportion of the joint permutations: s.d. sqrt(p(1 − p)/B).
+
+Rule 6 (alpha): a p-value is never printed rounded across alpha: when the rounded text would lie on
+the other side of alpha than the value (0.05022 shown as 0.050 with alpha = 0.05), digits are
+added until it does not.
 """
 
 from __future__ import annotations
 
 import math
-from collections.abc import Iterable
+from collections.abc import Callable, Iterable, Sequence
 from typing import Any
 
 from planrunner.record.methods import readable_count
@@ -90,18 +96,30 @@ def mc_sd(sd: Any) -> str:
     return "0" if sd == 0 else f"{sd:.2g}"
 
 
-def p_value(p: Any, sd: Any = None) -> str:
-    """Rule 4."""
+def p_value(p: Any, sd: Any = None, alpha: Any = None) -> str:
+    """Rules 4 and 6."""
     if p is None:
         return "—"
     if not _real(p):
         return str(p)
     if decimals_for(sd) is None:
-        return f"{p:.4g}" if p >= 1e-4 or p == 0 else f"{p:.2e}"
-    text = with_mc(p, sd)
-    if p > 0 and float(text) == 0:
-        return f"{p:.1g}"
-    return text
+        text = f"{p:.4g}" if p >= 1e-4 or p == 0 else f"{p:.2e}"
+    else:
+        text = with_mc(p, sd)
+        if p > 0 and float(text) == 0:
+            text = f"{p:.1g}"
+    return _same_side(p, text, alpha)
+
+
+def _same_side(p: float, text: str, alpha: Any) -> str:
+    """Rule 6: more digits until the printed value lies on the same side of alpha as p itself."""
+    if not _real(alpha) or (p <= alpha) == (float(text) <= alpha):
+        return text
+    for digits in range(2, 18):
+        text = f"{p:.{digits}g}"
+        if (p <= alpha) == (float(text) <= alpha):
+            return text
+    return repr(float(p))
 
 
 def family_factor(method: str, size: int) -> float:
@@ -118,6 +136,29 @@ def adjusted_sd(method: str, sds: Iterable[Any]) -> float | None:
     if not known or max(known) <= 0:
         return None
     return family_factor(method, len(values)) * max(known)
+
+
+def adjusted_sds(method: str, p_values: Sequence[float], sds: Sequence[Any],
+                 adjust: Callable[[list[float], str], Sequence[float]]) -> list[float | None]:
+    """Rule 5 per member: F × the largest s.d. among the members its adjusted p-value moves with.
+
+    Member k's Monte Carlo p is moved by ±2 of its s.d.; an adjusted p-value that does not move with
+    any Monte Carlo member (an exact member whose adjusted value comes from exact p-values only) has
+    no Monte Carlo error and is printed as an exact value (rule 2), never with another member's error.
+    """
+    factor = family_factor(method, len(p_values))
+    base = list(adjust(list(p_values), method))
+    moved_by: list[list[float]] = [[] for _ in p_values]
+    for k, sd in enumerate(sds):
+        if not _real(sd) or sd <= 0:
+            continue
+        for shift in (-2.0 * sd, 2.0 * sd):
+            trial = list(p_values)
+            trial[k] = min(1.0, max(0.0, trial[k] + shift))
+            for i, value in enumerate(adjust(trial, method)):
+                if value != base[i] and sd not in moved_by[i]:
+                    moved_by[i].append(sd)
+    return [factor * max(found) if found else None for found in moved_by]
 
 
 def count(value: Any) -> str:

@@ -13,12 +13,14 @@ from __future__ import annotations
 import functools
 import importlib.resources
 import json
+import math
 import re
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 from markupsafe import Markup, escape
 
+from planrunner.engines.multiplicity import adjust
 from planrunner.engines.statistics import comparison_word
 from planrunner.report import digits as precision
 from planrunner.report import labels
@@ -159,19 +161,36 @@ def _plots(entry_json: str) -> tuple[plots.Plot, ...]:
     return tuple(plots.plots_for(json.loads(entry_json), significant, precision.p_value))
 
 
+def _alpha(entry: dict[str, Any] | None) -> Any:
+    return ((entry or {}).get("settings") or {}).get("alpha")
+
+
+def _adjusted_sds(family: dict[str, Any], by_id: dict[str, dict[str, Any]]) -> list[float | None]:
+    """The Monte Carlo s.d. (or rule 5's bound) of each adjusted p-value of a family; None if exact."""
+    ids = family["family"]
+    if family["method"] == "max-t":  # one proportion of the joint permutations each
+        details = family.get("details") or {}
+        if details.get("exact", True):
+            return [None] * len(ids)
+        m = details["resamples"]
+        return [math.sqrt(p * (1.0 - p) / m) for p in (family["adjusted"][i] for i in ids)]
+    p_values = [1.0 if family["unadjusted"].get(i) is None else family["unadjusted"][i] for i in ids]
+    sds = [((by_id.get(i) or {}).get("monte_carlo") or {}).get("p_value_sd") for i in ids]
+    return precision.adjusted_sds(family["method"], p_values, sds, adjust)
+
+
 def _adjusted_view(record: dict[str, Any]) -> dict[str, list[dict[str, Any]]]:
-    """Adjusted p-values per analysis, each printed to the precision of rule 5 (precision.py)."""
+    """Adjusted p-values per analysis, each printed to the precision of rules 5 and 6 (digits.py)."""
     by_id = {a["id"]: a for a in record["analyses"]}
     out: dict[str, list[dict[str, Any]]] = {a["id"]: [] for a in record["analyses"]}
     for family in record.get("multiplicity") or []:
-        sds = [((by_id.get(i) or {}).get("monte_carlo") or {}).get("p_value_sd") for i in family["family"]]
-        bound = precision.adjusted_sd(family["method"], sds)
-        for i in family["family"]:
+        for i, sd in zip(family["family"], _adjusted_sds(family, by_id)):
+            value = family["adjusted"].get(i)
             out.setdefault(i, []).append({"method": family["method"],
                                           "label": family.get("method_label", family["method"]),
-                                          "p_value": family["adjusted"].get(i),
-                                          "text": precision.p_value(family["adjusted"].get(i), bound),
-                                          "sd_bound": bound})
+                                          "p_value": value,
+                                          "text": precision.p_value(value, sd, _alpha(by_id.get(i))),
+                                          "sd_bound": sd})
     return out
 
 
@@ -183,7 +202,8 @@ def _context(record: dict[str, Any]) -> dict[str, Any]:
     return {"record": record,
             "views": {a["id"]: _analysis_view(i, a) for i, a in enumerate(record["analyses"])},
             "adjusted": _adjusted_view(record),
-            "p_sd": {a["id"]: (a.get("monte_carlo") or {}).get("p_value_sd") for a in record["analyses"]}}
+            "p_sd": {a["id"]: (a.get("monte_carlo") or {}).get("p_value_sd") for a in record["analyses"]},
+            "p_alpha": {a["id"]: _alpha(a) for a in record["analyses"]}}
 
 
 def _render(context: dict[str, Any], kind: str) -> str:
