@@ -60,6 +60,15 @@ class VerifyReport:
     compared: int  # numbers compared
     rerun: bool  # False when the data could not be re-read
     plan_changes: list[str] = field(default_factory=list)
+    causes: list[str] = field(default_factory=list)  # what changed under the run (data files), said first
+
+    def kinds(self) -> list[tuple[str, int]]:
+        """Differing fields counted by kind (the path with its list positions left out), most first."""
+        counts: dict[str, int] = {}
+        for d in self.differences:
+            kind = re.sub(r"\[\d+\]", "[]", d.path)
+            counts[kind] = counts.get(kind, 0) + 1
+        return sorted(counts.items(), key=lambda item: (-item[1], item[0]))
 
     @property
     def passed(self) -> bool:
@@ -192,6 +201,7 @@ def verify_record(path: str | Path, *, plan: str | Path | None = None, execution
         problems.append(("plan.text", f"this installation cannot re-run the recorded plan: {message}"))
         return VerifyReport(record_file, plan_file, problems, notes, [], 0, False, plan_changes)
     loaded = replace(loaded, plan=apply_parameters(loaded.plan, values))
+    changed: dict[str, tuple[str, str]] = {}  # file -> (recorded sha256, current sha256)
     for i, ds in enumerate(recorded["datasets"]):
         try:
             sha, _ = file_sha256(resolve_data_path(loaded.folder, ds["file"],
@@ -202,13 +212,20 @@ def verify_record(path: str | Path, *, plan: str | Path | None = None, execution
         if sha != ds["sha256"]:
             problems.append((f"datasets[{i}].sha256",
                              f"data file {ds['file']} has changed: recorded {ds['sha256']}, now {sha}"))
+            changed[ds["file"]] = (ds["sha256"], sha)
     try:
         tables = load_tables(loaded, data_root)
+    except PlanrunnerError as exc:
+        problems.append(("datasets", f"the analyses cannot be re-run on the data as they are now: {exc}"))
+        return VerifyReport(record_file, plan_file, problems, notes, [], 0, False, plan_changes,
+                            data_causes(recorded, changed, {}))
+    causes = data_causes(recorded, changed, tables)
+    try:
         jobs = compile_jobs(loaded.plan, tables)
         results, max_t = execute_plan(loaded.plan, jobs, execution=execution)
     except PlanrunnerError as exc:
         problems.append(("datasets", f"the analyses cannot be re-run on the data as they are now: {exc}"))
-        return VerifyReport(record_file, plan_file, problems, notes, [], 0, False, plan_changes)
+        return VerifyReport(record_file, plan_file, problems, notes, [], 0, False, plan_changes, causes)
     # who, when, on what machine and on which executor are facts of the original run, not results
     # to reproduce (the executor never changes a number: the re-run checks that too)
     facts = RunFacts(run_id=recorded["run_id"], started_utc=recorded["started_utc"],
@@ -222,7 +239,36 @@ def verify_record(path: str | Path, *, plan: str | Path | None = None, execution
              for d in differences({k: v for k, v in recorded.items() if k != RECORD_HASH_FIELD},
                                   {k: v for k, v in rerun.items() if k != RECORD_HASH_FIELD})]
     found.sort(key=lambda d: HEADLINE.match(d.path) is None)  # the reported numbers first (stable sort)
-    return VerifyReport(record_file, plan_file, problems, notes, found, _numbers(recorded), True, plan_changes)
+    return VerifyReport(record_file, plan_file, problems, notes, found, _numbers(recorded), True, plan_changes,
+                        causes)
+
+
+def data_causes(recorded: dict, changed: dict[str, tuple[str, str]], tables: dict[str, Any]) -> list[str]:
+    """One sentence per data file that changed since the run: its hashes and rows read and used, then and now."""
+    now = {t.file: t for t in tables.values()}
+    causes = []
+    for ds in recorded["datasets"]:
+        if ds["file"] not in changed:
+            continue
+        then_sha, now_sha = changed[ds["file"]]
+        sentence = f"data file {ds['file']} changed since the run (sha256 {then_sha[:12]}… then, {now_sha[:12]}… now)"
+        table = now.get(ds["file"])
+        if table is not None:
+            sentence += (f": {ds.get('rows_read')} rows read then, {table.rows_read} now; "
+                         f"{ds.get('rows_used')} used then, {table.rows_used} now")
+        causes.append(sentence)
+    return causes
+
+
+def differences_text(report: VerifyReport) -> str:
+    """Every differing field, one per line, tab-separated (the file verify writes beside its summary)."""
+    lines = ["field\trecorded\tre-run\t|difference|\ttolerance\tverdict\trule"]
+    for d in report.differences:
+        lines.append("\t".join([d.path, json.dumps(d.recorded), json.dumps(d.rerun),
+                                "" if d.difference is None else repr(d.difference),
+                                "" if d.tolerance is None else repr(d.tolerance),
+                                "within" if d.within else "OUTSIDE", d.rule]))
+    return "\n".join(lines) + "\n"
 
 
 def describe(value: Any, width: int = 36) -> str:

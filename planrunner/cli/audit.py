@@ -8,14 +8,17 @@ from __future__ import annotations
 
 import argparse
 import json
+import tempfile
 from collections.abc import Callable, Sequence
+from pathlib import Path
 from typing import Any
 
 from planrunner.cli.options import DATA_ROOT_HELP, add_execution_options, execution_of
 
 # the exit codes of planrunner.cli.main (README: Commands), repeated so that this module imports on its own
 EXIT_OK, EXIT_INPUT, EXIT_DIFFERS = 0, 2, 3
-MAX_ROWS = 40  # differing fields listed in full before "... and N more"
+MAX_ROWS = 10  # differing fields shown in the terminal; the full list goes to a file
+MAX_KINDS = 8  # kinds of differing fields counted in the terminal
 
 
 def _add_audit_run_options(run: argparse.ArgumentParser) -> None:
@@ -43,6 +46,9 @@ def _add_audit_verbs(verbs: Any) -> None:
     add_execution_options(verify)
     verify.add_argument("--data-root", metavar="DIR", help=DATA_ROOT_HELP)
     verify.add_argument("--signers", metavar="FILE", help="the trusted signers (default: signers.yaml beside the plan)")
+    verify.add_argument("--differences", metavar="FILE",
+                        help="write every differing field to FILE (default: planrunner-verify-RUN-TIME.tsv "
+                             "in the temporary folder, when more differ than the terminal shows)")
 
     history = verbs.add_parser("history", help="list the run history and check its hash chain")
     history.add_argument("target", help="a plan, its runs folder, or a history.jsonl file")
@@ -123,12 +129,14 @@ def _table(header: tuple[str, ...], body: Sequence[tuple[str, ...]]) -> str:
 
 def _verify(args: argparse.Namespace) -> int:
     from planrunner.audit.signing import record_signatures
-    from planrunner.audit.verbs import describe, find_plan, read_record, verify_record
+    from planrunner.audit.verbs import find_plan, read_record, verify_record
     from planrunner.cli.signing import signature_lines
     record_file, recorded = read_record(args.record)
     signatures = record_signatures(record_file, find_plan(record_file, recorded, args.plan), args.signers)
     report = verify_record(args.record, plan=args.plan, execution=execution_of(args), data_root=args.data_root)
     print(f"verifying {report.record_file} against the plan folder {report.plan_file.parent}")
+    for cause in report.causes:  # the cause first: every number below follows from it
+        print(f"  CAUSE {cause}")
     for line in signature_lines(signatures):
         print(line)
     for note in report.notes:
@@ -138,13 +146,7 @@ def _verify(args: argparse.Namespace) -> int:
     for change in report.plan_changes:
         print(f"    plan change: {change}")
     if report.differences:
-        rows = [(d.path, describe(d.recorded), describe(d.rerun),
-                 "" if d.difference is None else f"{d.difference:.3g}",
-                 "" if d.tolerance is None else f"{d.tolerance:.3g}",
-                 "within" if d.within else "OUTSIDE", d.rule) for d in report.differences[:MAX_ROWS]]
-        print(_table(("field", "recorded", "re-run", "|difference|", "tolerance", "verdict", "rule"), rows))
-        if len(report.differences) > MAX_ROWS:
-            print(f"... and {len(report.differences) - MAX_ROWS} more differing fields")
+        _print_differences(report, args.differences)
     if not report.rerun:
         print("the analyses could not be re-run")
     elif not report.differences:
@@ -152,15 +154,42 @@ def _verify(args: argparse.Namespace) -> int:
               "every one equal bit for bit)")
     else:
         largest = report.largest
-        if largest is not None:
+        if largest is not None and not report.causes:  # after a data change the cause says more than a size
             verdict = "within" if largest.within else "OUTSIDE"
             print(f"re-run: largest difference {largest.difference:.3g} at {largest.path}, {verdict} its "
                   f"tolerance ({largest.rule}: {largest.tolerance:.3g})")
         outside = sum(not d.within for d in report.differences)
-        print(f"re-run: {len(report.differences)} field(s) differ, {outside} outside tolerance")
+        because = " (the data changed: see CAUSE above)" if report.causes else ""
+        print(f"re-run: {len(report.differences)} field(s) differ, {outside} outside tolerance{because}")
     passed = report.passed and signatures.passed
     print("verify: PASSED" if passed else "verify: FAILED" + ("" if signatures.passed else " (signatures)"))
     return EXIT_OK if passed else EXIT_DIFFERS
+
+
+def _print_differences(report: Any, target: str | None) -> None:
+    """How many fields differ, by kind, the first few in a table, and every one in a file."""
+    from planrunner.audit.verbs import describe, differences_text
+    from planrunner.pipeline.run import utc_now
+    from planrunner.trail.store import write_new_file
+    outside = sum(not d.within for d in report.differences)
+    print(f"{len(report.differences)} field(s) differ, {outside} outside tolerance; by kind:")
+    kinds = report.kinds()
+    for kind, count in kinds[:MAX_KINDS]:
+        print(f"  {count:>6}  {kind}")
+    if len(kinds) > MAX_KINDS:
+        print(f"  {sum(c for _, c in kinds[MAX_KINDS:]):>6}  in {len(kinds) - MAX_KINDS} other kinds")
+    rows = [(d.path, describe(d.recorded), describe(d.rerun),
+             "" if d.difference is None else f"{d.difference:.3g}",
+             "" if d.tolerance is None else f"{d.tolerance:.3g}",
+             "within" if d.within else "OUTSIDE", d.rule) for d in report.differences[:MAX_ROWS]]
+    print(_table(("field", "recorded", "re-run", "|difference|", "tolerance", "verdict", "rule"), rows))
+    if len(report.differences) > MAX_ROWS or target:
+        stamp = utc_now().strftime("%Y%m%dT%H%M%SZ")
+        # by default in the temporary folder: never among the run's files, nor wherever verify was started
+        name = target or Path(tempfile.gettempdir()) / f"planrunner-verify-{report.record_file.parent.name or 'record'}-{stamp}.tsv"
+        written = write_new_file(name, differences_text(report), what="list of differences")
+        print(f"... {len(report.differences) - min(MAX_ROWS, len(report.differences))} more; "
+              f"every differing field is listed in {written}")
 
 
 def _history(args: argparse.Namespace) -> int:
