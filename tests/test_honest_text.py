@@ -171,3 +171,52 @@ def test_a_p_value_is_never_printed_rounded_across_alpha() -> None:
     assert digits.p_value(0.04996, 0.002, 0.05) == "0.050"  # 0.050 ≤ 0.05: same side, kept
     assert digits.p_value(0.050004, None, 0.05) == "0.050004"  # exact: 4 digits would read 0.05
     assert digits.p_value(0.0123, 0.002, 0.05) == "0.012"
+
+
+REFUSED = """
+plan: refused-at-check
+title: exact always beyond the limit
+seed: 3
+datasets:
+  d:
+    file: data.csv
+    columns:
+      g: {{type: category}}
+      unit: {{type: text}}
+      x: {{type: number}}
+      y: {{type: number}}
+analyses:
+  - id: refused
+    data: d
+    outcome: y
+{design}
+    method: permutation
+    exact: always
+"""
+
+DESIGNS = {  # each beyond 5,000,000 arrangements with no exact shortcut for its statistic
+    "pairs": "    groups: {by: g, compare: [a, b]}\n    pairs: unit\n    statistic: t_welch",  # 2^30 sign patterns
+    "clusters": "    groups: {by: g, compare: [a, b]}\n    clusters: unit\n    statistic: t_welch",  # C(30, 15)
+    "association": "    predictor: x\n    statistic: kendall",  # 60! pairings
+}
+
+
+@pytest.mark.parametrize("design", sorted(DESIGNS))
+def test_check_refuses_what_run_refuses(write_plan, tmp_path, capsys, design: str) -> None:
+    from planrunner.cli import main as cli
+
+    rng = np.random.default_rng(1)
+    rows = ["g,unit,x,y"]
+    for i in range(30):
+        unit = f"u{i:02d}"
+        if design == "pairs":
+            rows += [f"a,{unit},{rng.normal():.4f},{rng.normal():.4f}", f"b,{unit},{rng.normal():.4f},{rng.normal():.4f}"]
+        else:
+            group = "a" if i < 15 else "b"
+            rows += [f"{group},{unit},{rng.normal():.4f},{rng.normal():.4f}" for _ in range(2)]
+    plan = write_plan(REFUSED.format(design=DESIGNS[design]), {"data.csv": "\n".join(rows) + "\n"})
+    assert cli.main(["check", str(plan)]) == 2
+    checked = capsys.readouterr().err
+    assert cli.main(["run", str(plan), "--out", str(tmp_path / "out")]) == 2
+    ran = capsys.readouterr().err
+    assert "exact enumeration asked for" in checked and checked.strip() == ran.strip()

@@ -41,29 +41,14 @@ from planrunner.engines.statistics import Statistic, check_samples
 from planrunner.engines.streams import Stream, UniformRows
 from planrunner.errors import EngineError
 
-__all__ = ["association_test"]
+__all__ = ["association_test", "computation"]
 
 
 def association_test(xy: np.ndarray, statistic: Statistic, options: PermutationOptions, *, stream: Stream,
                      covariates: np.ndarray | None = None, batch_elements: int = 2_000_000) -> PermutationResult:
     """Permutation test of a two-column statistic (predictor, outcome), or Freedman–Lane."""
-    if statistic.columns != 2 or statistic.samples != 1:
-        raise EngineError(f"an association test needs a statistic of two columns; {statistic.name!r} is not one")
-    (data,) = check_samples([xy], statistic, minimum=3, method="the association test")
-    n = data.shape[0]
-    x, y = data[:, 0], data[:, 1]
-    if np.all(x == x[0]) or np.all(y == y[0]):
-        raise EngineError("the predictor or the outcome is constant; there is no association to test",
-                          hint="check the columns and the row filter")
-    if covariates is None:
-        model = _Model(x, y)
-        observed = observed_value(statistic, np.ascontiguousarray(data.T))
-        scheme = "outcome shuffled against the predictor"
-    else:
-        model = _freedman_lane(x, y, statistic, covariates)
-        assert model.weights_x is not None, "a Freedman–Lane model has the predictor's weights"
-        observed = float(model.weights_x @ model.residual)  # the partial slope, P = I
-        scheme = f"Freedman–Lane: residuals of the outcome on {model.terms - 1} covariate(s) permuted"
+    model, observed, scheme = _checked(xy, statistic, covariates)
+    n = model.x.size
     null = _null(model, statistic, options, stream, max(1, batch_elements // (2 * n)))
     check_null(null.values, statistic, "pairing(s)")
     tolerance = tie_tolerance(observed, float(np.max(np.abs(null.values))))
@@ -110,12 +95,43 @@ def _freedman_lane(x: np.ndarray, y: np.ndarray, statistic: Statistic, covariate
     return _Model(x, y, residual=y - fitted, weights_x=x_tilde / float(x_tilde @ x_tilde), terms=z.shape[1])
 
 
+def _checked(xy: np.ndarray, statistic: Statistic, covariates: np.ndarray | None) -> tuple[_Model, float, str]:
+    """The model the test permutes, the observed statistic and the scheme; refused as the test refuses."""
+    if statistic.columns != 2 or statistic.samples != 1:
+        raise EngineError(f"an association test needs a statistic of two columns; {statistic.name!r} is not one")
+    (data,) = check_samples([xy], statistic, minimum=3, method="the association test")
+    x, y = data[:, 0], data[:, 1]
+    if np.all(x == x[0]) or np.all(y == y[0]):
+        raise EngineError("the predictor or the outcome is constant; there is no association to test",
+                          hint="check the columns and the row filter")
+    if covariates is None:
+        return (_Model(x, y), observed_value(statistic, np.ascontiguousarray(data.T)),
+                "outcome shuffled against the predictor")
+    model = _freedman_lane(x, y, statistic, covariates)
+    assert model.weights_x is not None, "a Freedman–Lane model has the predictor's weights"
+    return (model, float(model.weights_x @ model.residual),  # the partial slope, P = I
+            f"Freedman–Lane: residuals of the outcome on {model.terms - 1} covariate(s) permuted")
+
+
+def computation(xy: np.ndarray, statistic: Statistic, options: PermutationOptions, *,
+                covariates: np.ndarray | None = None) -> str:
+    """The computation :func:`association_test` will use on these data, or its refusal (raised)."""
+    model, _, _ = _checked(xy, statistic, covariates)
+    return _choose(model, statistic, options)[0]
+
+
+def _choose(model: _Model, statistic: Statistic, options: PermutationOptions) -> tuple[str, int]:
+    """(computation, n!) by the one rule of ``choose_computation``."""
+    arrangements = math.factorial(model.x.size)
+    return choose_computation(arrangements, options, shortcut=False, space="pairings",
+                              statistic=statistic.name), arrangements
+
+
 def _null(model: _Model, statistic: Statistic, options: PermutationOptions, stream: Stream,
           rows_per_batch: int) -> ComputedNull:
     """The null over the n! pairings: listed in lexicographic order, or drawn (range tasks)."""
     n = model.x.size
-    arrangements = math.factorial(n)
-    path = choose_computation(arrangements, options, shortcut=False, space="pairings", statistic=statistic.name)
+    path, arrangements = _choose(model, statistic, options)
     if path == ENUMERATION:
         null = np.empty(arrangements)
         listing = itertools.permutations(range(n))

@@ -43,18 +43,14 @@ from planrunner.engines.statistics import Statistic, check_samples
 from planrunner.engines.streams import Stream, UniformRows
 from planrunner.errors import EngineError
 
-__all__ = ["cluster_test"]
+__all__ = ["cluster_test", "computation"]
 
 
 def cluster_test(x: np.ndarray, y: np.ndarray, x_clusters: np.ndarray, y_clusters: np.ndarray,
                  statistic: Statistic, options: PermutationOptions, *, stream: Stream, fast: bool = True,
                  batch_elements: int = 2_000_000) -> PermutationResult:
     """Permutation test of a two-group statistic with the labels assigned to whole clusters."""
-    if statistic.samples != 2 or statistic.columns != 1:
-        raise EngineError(f"a cluster-level test needs a two-group statistic; {statistic.name!r} is not one")
-    x, y = check_samples([x, y], statistic, method="the cluster test")
-    clusters = _Clusters.of(x, y, x_clusters, y_clusters)
-    observed = observed_value(statistic, x, y)
+    x, y, clusters, observed = _checked(x, y, x_clusters, y_clusters, statistic)
     g, g1 = clusters.sums.size, clusters.first
     rows_per_batch = max(1, batch_elements // max(g, clusters.values.size))
     null = _null(clusters, statistic, options, stream, rows_per_batch, fast)
@@ -109,13 +105,34 @@ class _Clusters:
                    np.bincount(member, minlength=g).astype(np.float64))
 
 
+def _checked(x: np.ndarray, y: np.ndarray, x_clusters: np.ndarray, y_clusters: np.ndarray,
+             statistic: Statistic) -> tuple[np.ndarray, np.ndarray, _Clusters, float]:
+    """The groups and clusters as the test takes them, and the observed statistic; refused as the test refuses."""
+    if statistic.samples != 2 or statistic.columns != 1:
+        raise EngineError(f"a cluster-level test needs a two-group statistic; {statistic.name!r} is not one")
+    x, y = check_samples([x, y], statistic, method="the cluster test")
+    clusters = _Clusters.of(x, y, x_clusters, y_clusters)
+    return x, y, clusters, observed_value(statistic, x, y)
+
+
+def computation(x: np.ndarray, y: np.ndarray, x_clusters: np.ndarray, y_clusters: np.ndarray,
+                statistic: Statistic, options: PermutationOptions) -> str:
+    """The computation :func:`cluster_test` will use on these clusters, or its refusal (raised)."""
+    return _choose(_checked(x, y, x_clusters, y_clusters, statistic)[2], statistic, options)[0]
+
+
+def _choose(clusters: _Clusters, statistic: Statistic, options: PermutationOptions) -> tuple[str, int]:
+    """(computation, C(G, G1)) by the one rule of ``choose_computation``."""
+    arrangements = math.comb(clusters.sums.size, clusters.first)
+    return choose_computation(arrangements, options, shortcut=False, space="cluster arrangements",
+                              statistic=statistic.name), arrangements
+
+
 def _null(clusters: _Clusters, statistic: Statistic, options: PermutationOptions, stream: Stream,
           rows_per_batch: int, fast: bool) -> ComputedNull:
     """The null over the C(G, G1) cluster arrangements: listed, or drawn (range tasks)."""
     g, g1 = clusters.sums.size, clusters.first
-    arrangements = math.comb(g, g1)
-    path = choose_computation(arrangements, options, shortcut=False, space="cluster arrangements",
-                              statistic=statistic.name)
+    path, arrangements = _choose(clusters, statistic, options)
     if path == ENUMERATION:
         null = np.empty(arrangements)
         combos = itertools.combinations(range(g), g1)

@@ -45,6 +45,7 @@ import itertools
 import math
 from collections.abc import Iterator, Sequence
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 
@@ -77,7 +78,7 @@ from planrunner.engines.streams import Stream, UniformRows
 from planrunner.engines.teststats import SUM_SCORES
 from planrunner.errors import EngineError
 
-__all__ = ["ENUMERATION_LIMIT", "PermutationOptions", "PermutationResult", "permutation_test"]
+__all__ = ["ENUMERATION_LIMIT", "PermutationOptions", "PermutationResult", "computation", "permutation_test"]
 
 FEW_ARRANGEMENTS = 20  # common practice: below 20 the smallest attainable p exceeds 0.05
 TWO_SIDED_TEXT = {
@@ -167,14 +168,31 @@ def permutation_test(samples: Sequence[np.ndarray], statistic: Statistic, option
                               centre=null_centre(pooled, statistic), warnings=tuple(warnings))
 
 
-def _null(pooled: _Pooled, statistic: Statistic, options: PermutationOptions, stream: Stream,
-          rows_per_batch: int, fast: bool) -> ComputedNull:
-    """The null by the cheapest exact way allowed, or by Monte Carlo (the label-shuffle space)."""
+def computation(samples: Sequence[np.ndarray], statistic: Statistic, options: PermutationOptions, *,
+                strata: Sequence[np.ndarray] | None = None, fast: bool = True) -> str:
+    """The computation :func:`permutation_test` will use on these data, or its refusal (raised), from
+    the counts and the DP plan alone: ``check`` calls it so that it finds what a run would refuse."""
+    data = check_samples(samples, statistic, method="the permutation test")
+    pooled = _pool(data, check_strata(strata, data))
+    observed_value(statistic, *[to_compute_layout(a) for a in data])
+    return _choose(pooled, statistic, options, fast)[0]
+
+
+def _choose(pooled: _Pooled, statistic: Statistic, options: PermutationOptions,
+            fast: bool) -> tuple[str, int, Any]:
+    """(computation, arrangements, DP plan) by the one rule of ``choose_computation``."""
     arrangements = math.prod(_multinomial(sizes) for _, _, sizes in pooled.blocks)
     dp_plan = _dp_plan(pooled, statistic) if len(pooled.slots) == 2 else None
     cheaper = fast and dp_plan is not None and dp_plan.work <= arrangements * pooled.values.shape[0]
     path = choose_computation(arrangements, options, shortcut=dp_plan is not None, shortcut_first=cheaper,
                               statistic=statistic.name)
+    return path, arrangements, dp_plan
+
+
+def _null(pooled: _Pooled, statistic: Statistic, options: PermutationOptions, stream: Stream,
+          rows_per_batch: int, fast: bool) -> ComputedNull:
+    """The null by the cheapest exact way allowed, or by Monte Carlo (the label-shuffle space)."""
+    path, arrangements, dp_plan = _choose(pooled, statistic, options, fast)
     if path == DYNAMIC_PROGRAMMING:
         assert dp_plan is not None
         values, weights = _dp_null(pooled, statistic, dp_plan)

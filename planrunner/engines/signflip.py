@@ -21,6 +21,7 @@ sums (each pair adds its score or not), reaching any n the plan can hold.
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 
@@ -45,7 +46,7 @@ from planrunner.engines.statistics import Statistic, check_samples
 from planrunner.engines.streams import DRAW_BLOCK, Stream
 from planrunner.errors import EngineError
 
-__all__ = ["byte_tables", "signflip_test", "swap_bits", "swap_bytes", "swapped_sums"]
+__all__ = ["byte_tables", "computation", "signflip_test", "swap_bits", "swap_bytes", "swapped_sums"]
 
 DP_WIDTH_LIMIT = 5_000_000  # largest subset-sum table (doubles, 40 MB) the exact shortcut may build
 DP_WORK_LIMIT = 2_000_000_000  # pairs × table width
@@ -126,12 +127,7 @@ def _scores(statistic: Statistic, d: np.ndarray) -> np.ndarray | None:
 def signflip_test(x: np.ndarray, y: np.ndarray, statistic: Statistic, options: PermutationOptions, *,
                   stream: Stream, fast: bool = True, batch_elements: int = 2_000_000) -> PermutationResult:
     """Sign-flip test of a two-group ``statistic`` on pairs (x[i], y[i])."""
-    if statistic.samples != 2:
-        raise EngineError(f"a paired test needs a two-group statistic; {statistic.name!r} is not one")
-    x, y = check_samples([x, y], statistic, method="the paired test")
-    if x.shape != y.shape:
-        raise EngineError(f"pairs must have one value in each group; got {x.size} and {y.size}")
-    observed = observed_value(statistic, x, y)
+    x, y, observed = _checked(x, y, statistic)
     pairs = _Pairs.of(x, y, statistic)
     null = _null(pairs, statistic, options, stream, max(1, batch_elements // max(1, 2 * x.size)), fast)
     check_null(null.values, statistic, "sign pattern(s)")
@@ -167,9 +163,24 @@ class _Pairs:
         return cls(x, y, d, _scores(statistic, d))
 
 
-def _null(pairs: _Pairs, statistic: Statistic, options: PermutationOptions, stream: Stream,
-          rows_per_batch: int, fast: bool) -> ComputedNull:
-    """The null over the 2ⁿ sign patterns: listed, by subset-sum DP, or drawn (range tasks)."""
+def _checked(x: np.ndarray, y: np.ndarray, statistic: Statistic) -> tuple[np.ndarray, np.ndarray, float]:
+    """The pairs as the test takes them, and the observed statistic; refused as the test refuses."""
+    if statistic.samples != 2:
+        raise EngineError(f"a paired test needs a two-group statistic; {statistic.name!r} is not one")
+    x, y = check_samples([x, y], statistic, method="the paired test")
+    if x.shape != y.shape:
+        raise EngineError(f"pairs must have one value in each group; got {x.size} and {y.size}")
+    return x, y, observed_value(statistic, x, y)
+
+
+def computation(x: np.ndarray, y: np.ndarray, statistic: Statistic, options: PermutationOptions) -> str:
+    """The computation :func:`signflip_test` will use on these pairs, or its refusal (raised)."""
+    x, y, _ = _checked(x, y, statistic)
+    return _choose(_Pairs.of(x, y, statistic), statistic, options)[0]
+
+
+def _choose(pairs: _Pairs, statistic: Statistic, options: PermutationOptions) -> tuple[str, int, Any]:
+    """(computation, 2ⁿ, integer scores for the DP or None) by the one rule of ``choose_computation``."""
     n = pairs.d.size
     arrangements = 2 ** n
     integer = integer_scores(pairs.scores) if pairs.scores is not None else None
@@ -177,6 +188,14 @@ def _null(pairs: _Pairs, statistic: Statistic, options: PermutationOptions, stre
     dp_ok = integer is not None and width <= DP_WIDTH_LIMIT and n * width <= DP_WORK_LIMIT
     path = choose_computation(arrangements, options, shortcut=dp_ok, space="sign patterns",
                               statistic=statistic.name)
+    return path, arrangements, integer
+
+
+def _null(pairs: _Pairs, statistic: Statistic, options: PermutationOptions, stream: Stream,
+          rows_per_batch: int, fast: bool) -> ComputedNull:
+    """The null over the 2ⁿ sign patterns: listed, by subset-sum DP, or drawn (range tasks)."""
+    path, arrangements, integer = _choose(pairs, statistic, options)
+    n = pairs.d.size
     if path == DYNAMIC_PROGRAMMING:
         assert integer is not None
         values, weights = _subset_sum_null(pairs, statistic, *integer)

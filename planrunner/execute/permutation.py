@@ -10,6 +10,7 @@ from __future__ import annotations
 import dataclasses
 
 from planrunner.compile.jobs import Job
+from planrunner.engines import association, clusters, permutation, signflip
 from planrunner.engines.association import association_test
 from planrunner.engines.clusters import cluster_test
 from planrunner.engines.inversion import shift_interval
@@ -17,6 +18,21 @@ from planrunner.engines.permcore import PermutationOptions
 from planrunner.engines.permutation import permutation_test
 from planrunner.engines.results import PermutationResult
 from planrunner.engines.signflip import signflip_test
+
+
+def planned_computation(job: Job) -> str:
+    """The computation ``run_permutation`` will use for the job, or the engine's refusal (raised),
+    found by the engine's own rule without resampling (``check`` runs it for every permutation job)."""
+    options = job.options
+    assert isinstance(options, PermutationOptions)
+    if "pairs" in job.design:
+        return signflip.computation(job.samples[0], job.samples[1], job.statistic, options)
+    if "clusters" in job.design:
+        x_codes, y_codes = job.design["clusters"]
+        return clusters.computation(job.samples[0], job.samples[1], x_codes, y_codes, job.statistic, options)
+    if job.statistic.samples == 1:
+        return association.computation(job.samples[0], job.statistic, options, covariates=job.design.get("covariates"))
+    return permutation.computation(job.samples, job.statistic, options, strata=job.strata)
 
 
 def run_permutation(job: Job) -> PermutationResult:

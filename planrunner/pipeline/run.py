@@ -18,6 +18,7 @@ from pathlib import Path
 from typing import Any
 
 from planrunner.compile import limits
+from planrunner.execute.permutation import planned_computation
 from planrunner.compile.jobs import Job, compile_jobs
 from planrunner.data.checks import check_tables
 from planrunner.data.tables import Table, read_table, resolve_data_path
@@ -110,6 +111,9 @@ def check_plan(path: str | Path, *, with_data: bool = True, params: dict[str, st
     check_tables(loaded.plan, tables)
     jobs = compile_jobs(loaded.plan, tables)
     limits.check_jobs(jobs, available=available_memory())
+    for job in jobs:  # what a run would refuse, refused now, by the engines' own rule (no resampling)
+        if job.method == "permutation":
+            planned_computation(job)
     return CheckOutcome(loaded, tables, jobs, values)
 
 
