@@ -37,7 +37,31 @@ class PlanError(PlanrunnerError):
 
 
 class DataError(PlanrunnerError):
-    """A data file is missing, changed, or does not match what the plan declares."""
+    """A data file is missing, changed, or does not match what the plan declares.
+
+    ``problems`` holds every problem found in one file (each a DataError), reported together."""
+
+    def __init__(self, message: str, *, where: str | None = None, hint: str | None = None,
+                 problems: list[DataError] | None = None):
+        super().__init__(message, where=where, hint=hint)
+        self.problems = problems or []
+
+    @classmethod
+    def of_all(cls, problems: list[DataError], where: str | None) -> DataError:
+        """One error for every problem found in a file (the problem itself when there is one)."""
+        if len(problems) == 1:
+            return problems[0]
+        return cls(f"{len(problems)} problems in the data (each column's first one)", where=where,
+                   problems=problems)
+
+    def __str__(self) -> str:
+        if not self.problems:
+            return super().__str__()
+        lines = [f"{self.where}: {self.message}:" if self.where else f"{self.message}:"]
+        for problem in self.problems:
+            text = f"{problem.message} ({problem.hint})" if problem.hint else problem.message
+            lines.append(f"  {text}")
+        return "\n".join(lines)
 
 
 class EngineError(PlanrunnerError):

@@ -100,7 +100,8 @@ def test_bad_input_gives_one_clear_message(case: Case, tmp_path: Path, monkeypat
     assert "Traceback" not in err and "please report" not in err, err
     for fragment in case.fragments:
         assert fragment in err, f"'{fragment}' not in:\n{err}"
-    messages = [line for line in err.splitlines() if line.strip()]
+    # one message; indented lines continue it (every problem of one data file, listed together)
+    messages = [line for line in err.splitlines() if line.strip() and not line.startswith("  ")]
     if case.at is not None:
         matching = [line for line in messages if line.startswith(f"planrunner: {plan}:{case.at}:")
                     or line.startswith(f"{plan}:{case.at}:")]

@@ -132,18 +132,30 @@ def read_table(name: str, spec: Dataset, plan_folder: Path, *, data_root: Path |
     markers = set(spec.missing_values)
     values_read = {c: _distinct(raw[c], spec.columns[c].type, markers) for c in spec.columns
                    if spec.columns[c].type in GROUPING_TYPES}
+    problems: dict[str, DataError] = {}  # every column's first problem, reported together
     for column in spec.columns:
         missing = np.isin(raw[column], list(markers)) & keep if markers else np.zeros(rows_read, bool)
         if missing.any():
             count = int(missing.sum())
             if spec.missing == "refuse":
-                raise DataError(f"column '{column}' has {count} missing value(s) on line(s) "
-                                f"{_list(_lines(missing, line_of), count)}", where=shown,
-                                hint=f"fill them in, or set datasets.{name}.missing: drop to exclude those rows")
+                problems[column] = DataError(
+                    f"column '{column}' has {count} missing value(s) on line(s) "
+                    f"{_list(_lines(missing, line_of), count)}", where=shown,
+                    hint=f"fill them in, or set datasets.{name}.missing: drop to exclude those rows")
+                continue
             excluded.append(Exclusion(f"missing value in '{column}'", count, tuple(_lines(missing, line_of))))
             keep &= ~missing
 
-    columns = {c: _convert(raw[c], keep, c, spec.columns[c], shown, line_of) for c in spec.columns}
+    columns = {}
+    for c in spec.columns:
+        if c in problems:
+            continue
+        try:
+            columns[c] = _convert(raw[c], keep, c, spec.columns[c], shown, line_of)
+        except DataError as exc:
+            problems[c] = exc
+    if problems:
+        raise DataError.of_all([problems[c] for c in spec.columns if c in problems], shown)
     if spec.keep is not None:
         try:
             kept = parse_expression(spec.keep).evaluate({c: v[keep] for c, v in columns.items()})
