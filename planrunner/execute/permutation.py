@@ -18,11 +18,20 @@ from planrunner.engines.permcore import PermutationOptions
 from planrunner.engines.permutation import permutation_test
 from planrunner.engines.results import PermutationResult
 from planrunner.engines.signflip import signflip_test
+from planrunner.errors import EngineError
 
 
 def planned_computation(job: Job) -> str:
-    """The computation ``run_permutation`` will use for the job, or the engine's refusal (raised),
-    found by the engine's own rule without resampling (``check`` runs it for every permutation job)."""
+    """The computation ``run_permutation`` will use for the job, or the engine's refusal (raised,
+    with the analysis id as a run gives it), found by the engine's own rule without resampling
+    (``check`` runs it for every permutation job)."""
+    try:
+        return _computation(job)
+    except EngineError as exc:
+        raise EngineError(f"{exc.message}", where=f"analysis '{job.analysis_id}'", hint=exc.hint) from None
+
+
+def _computation(job: Job) -> str:
     options = job.options
     assert isinstance(options, PermutationOptions)
     if "pairs" in job.design:
