@@ -19,7 +19,8 @@ from conftest import fixed_clock
 from scipy import stats
 
 from planrunner.pipeline.run import run_plan
-from planrunner.record.bands import interval_bands, quantile_band
+from planrunner.engines.intervals import INTERVAL_METHODS, Summary, quantile_band
+from planrunner.record.bands import interval_bands
 from planrunner.report import digits as precision
 from planrunner.report import plots
 from planrunner.report import render as report
@@ -257,21 +258,31 @@ def test_quantile_band_sd_and_coverage_match_the_normal_reference():
     assert abs(covered / runs - 0.95) <= 4 * math.sqrt(0.95 * 0.05 / runs)
 
 
-def test_interval_bands_follow_the_endpoint_or_its_reflection():
+def test_one_band_rule_for_every_interval_end_and_both_record_fields():
     values = np.arange(1.0, 1001.0)  # replicate values 1..1000: the quantile of rank k is k
-    estimate = 500.0
-    read = SimpleNamespace(method="percentile", lower=25.0, upper=975.0, quantile_levels=(0.025, 0.975))
-    reflected = SimpleNamespace(method="basic", lower=2 * estimate - 975.0, upper=2 * estimate - 25.0,
-                                quantile_levels=(0.025, 0.975))
-    other = SimpleNamespace(method="studentized", lower=1.5, upper=2.5, quantile_levels=(0.025, 0.975))
-    bands = interval_bands(values, estimate, [read, reflected, other])
+    t = np.arange(1.0, 1001.0) / 100.0  # studentized replicates 0.01..10
+    summary = Summary(estimate=500.0, ordered=values, cumulative=None, confidence=0.95, standard_error=2.0,
+                      bias=0.0, standard_error_sd=0.1, bias_sd=0.05, t_ordered=t, se_hat=3.0)
+    made = {name: INTERVAL_METHODS[name](summary) for name in ("percentile", "basic", "normal", "studentized")}
+    bands = {b["method"]: b for b in interval_bands(list(made.values()))}
     step = math.ceil(1.959963984540054 * math.sqrt(1000 * 0.025 * 0.975))  # identity: ranks k ± step
-    assert bands[0]["lower_band"] == [25.0 - step, 25.0 + step]
-    assert bands[0]["upper_band"] == [975.0 - step, 975.0 + step]
     s = math.sqrt(1000 * 0.025 * 0.975)  # identity: unit spacing gives sd = s exactly
-    assert bands[0]["lower_sd"] == pytest.approx(s)
-    assert bands[1]["lower_band"] == [25.0 - step, 25.0 + step] and bands[1]["upper_sd"] == bands[0]["upper_sd"]
-    assert bands[2]["lower_band"] is None and bands[2]["lower_sd"] is None
+    assert bands["percentile"]["lower_band"] == [25.0 - step, 25.0 + step]
+    assert bands["percentile"]["upper_band"] == [975.0 - step, 975.0 + step]
+    assert bands["percentile"]["lower_sd"] == pytest.approx(s)
+    assert bands["basic"]["lower_band"] == [25.0 - step, 25.0 + step]  # 2·500 − (975 ± step)
+    assert bands["basic"]["upper_sd"] == bands["percentile"]["lower_sd"]
+    # studentized: end θ̂ − ŝe·t, so the t band maps by ŝe (the end at t = 9.75 is 500 − 29.25)
+    assert bands["studentized"]["lower_band"] == pytest.approx([500 - 3 * (9.75 + step / 100), 500 - 3 * (9.75 - step / 100)])
+    assert bands["studentized"]["lower_sd"] == pytest.approx(3 * s / 100)
+    # normal: sd = sqrt(sd_bias² + z²·sd_se²) (delta method), band ± 1.96 sd
+    z = 1.959963984540054
+    assert bands["normal"]["upper_sd"] == pytest.approx(math.sqrt(0.05 ** 2 + (z * 0.1) ** 2))
+    for name, interval in made.items():  # the record's two fields are one computation
+        band = bands[name]
+        assert interval.monte_carlo == (tuple(band["lower_band"]), tuple(band["upper_band"])), name
+        assert band["lower_band"][0] <= interval.lower <= band["lower_band"][1], name
+        assert band["upper_band"][0] <= interval.upper <= band["upper_band"][1], name
 
 
 def test_demo_record_keeps_bands_that_hold_each_end(demo):

@@ -12,16 +12,23 @@ resamples were enumerated exhaustively) and returns an :class:`Interval`. Conven
 * studentized (bootstrap-t, E&T ch. 12): t* = (θ* − θ̂)/se*, interval
   (θ̂ − ŝe·t(1 − α/2), θ̂ − ŝe·t(α/2)), with se* and ŝe from the same standard-error method.
 
-Monte Carlo error of an endpoint read at level p from B replicates (common practice: the
-distribution-free binomial interval for a quantile from order statistics): ranks
-floor(Bp − 1.96√(Bp(1−p))) and ceil(Bp + 1.96√(Bp(1−p))) bound, with about 95% confidence, the
-endpoint that infinitely many resamples would give (for BCa and studentized endpoints the levels
-and ŝe are taken as fixed). For the normal interval: ±1.96·√(sd_bias² + z²·sd_se²).
+Monte Carlo error of an endpoint: ONE rule (:data:`MC_RULE`, stated in every record), giving each
+end a band (about 95%) and a Monte Carlo s.d. An end read at level q from B replicates is the
+order statistic of rank k = ⌈qB⌉ (``quantile_rank``); how many replicates fall below the B = ∞
+quantile is Binomial(B, q), so its rank varies by s = √(Bq(1 − q)) and the replicates at ranks
+k ± ⌈z·s⌉ (z = 1.96) bracket the B = ∞ end about 95% of the time (the distribution-free
+order-statistic interval for a quantile; David & Nagaraja, *Order Statistics*, §7.1, from memory).
+The s.d. √(q(1 − q)/B)/f(x_q) is read from the replicates at ranks k ± r, r = max(1, round(s)), as
+(x_(k+r) − x_(k−r))·s/(2r), without estimating the density f. A basic end is the reflection
+2θ̂ − x of the quantile it reflects; a studentized end θ̂ − ŝe·t maps the band and s.d. of the t
+quantile (ŝe taken as fixed); BCa ends use the adjusted levels (taken as fixed). The normal
+interval's ends move with the bias and the SE: s.d. √(sd_bias² + z_c²·sd_se²), band ± z of it.
 Exhaustive enumeration has no Monte Carlo error.
 """
 
 from __future__ import annotations
 
+import dataclasses
 import math
 from collections.abc import Callable
 from dataclasses import dataclass
@@ -31,9 +38,14 @@ import numpy as np
 from planrunner.engines.lazy import ndtr, ndtri
 from planrunner.engines.results import Interval
 
-__all__ = ["INTERVAL_METHODS", "Summary", "bca_levels", "quantile_rank", "read_quantile"]
+__all__ = ["INTERVAL_METHODS", "MC_RULE", "Summary", "bca_levels", "quantile_band", "quantile_rank", "read_quantile"]
 
-MC_Z = 1.959963984540054  # 97.5% normal point: the Monte Carlo ranges are about 95%
+MC_Z = 1.959963984540054  # 97.5% normal point: the Monte Carlo bands are about 95%
+MC_RULE = ("band: ranks ceil(qB) ± ceil(z·s) of the sorted replicates, s = sqrt(B q (1-q)), z = 1.96 "
+           "(order-statistic band for a quantile); sd = (x_(k+r) - x_(k-r))·s / (2r), r = max(1, round(s)); "
+           "q = the interval's quantile levels (BCa: adjusted; basic: reflected; studentized: the t "
+           "quantiles, mapped by the estimate and its SE); normal: sd = sqrt(sd_bias² + z_c²·sd_se²), "
+           "band ± 1.96 sd")
 
 
 @dataclass(frozen=True)
@@ -94,15 +106,43 @@ def read_quantile(ordered: np.ndarray, cumulative: np.ndarray | None, level: flo
     return float(ordered[min(k, ordered.shape[0] - 1)])
 
 
-def _mc_range(ordered: np.ndarray, cumulative: np.ndarray | None, level: float) -> tuple[float, float] | None:
-    """About 95% Monte Carlo range of the quantile read at ``level`` (order statistics)."""
-    if cumulative is not None:
-        return None
+def quantile_band(ordered: np.ndarray, level: float, z: float = MC_Z) -> tuple[float, float, float]:
+    """(low, high, sd) of the end read at ``level`` from the sorted replicates (``MC_RULE``)."""
     b = ordered.shape[0]
-    spread = MC_Z * math.sqrt(b * level * (1.0 - level))
-    low = min(max(int(math.floor(b * level - spread)), 1), b)
-    high = min(max(int(math.ceil(b * level + spread)), 1), b)
-    return float(ordered[low - 1]), float(ordered[high - 1])
+    k = quantile_rank(level, b)
+    s = math.sqrt(b * level * (1.0 - level))
+
+    def at(rank: int) -> tuple[int, float]:
+        rank = min(max(rank, 1), b)
+        return rank, float(ordered[rank - 1])
+
+    step = math.ceil(z * s)
+    (_, low), (_, high) = at(k - step), at(k + step)
+    r = max(1, round(s))
+    (r_lo, x_lo), (r_hi, x_hi) = at(k - r), at(k + r)
+    sd = (x_hi - x_lo) * s / (r_hi - r_lo) if r_hi > r_lo else 0.0
+    return low, high, sd
+
+
+Band = tuple[float, float, float]  # (low, high, sd) of one end
+
+
+def _band(ordered: np.ndarray, cumulative: np.ndarray | None, level: float) -> Band | None:
+    """The end's band and s.d.; None for exhaustive enumeration (no Monte Carlo error)."""
+    if cumulative is not None or ordered.shape[0] < 2:
+        return None
+    return quantile_band(ordered, level)
+
+
+def _reflected(estimate: float, band: Band | None) -> Band | None:
+    return None if band is None else (2 * estimate - band[1], 2 * estimate - band[0], band[2])
+
+
+def _with_bands(interval: Interval, lower: Band | None, upper: Band | None) -> Interval:
+    if lower is None or upper is None:
+        return interval
+    return dataclasses.replace(interval, monte_carlo=((lower[0], lower[1]), (upper[0], upper[1])),
+                               monte_carlo_sd=(lower[2], upper[2]))
 
 
 def _undefined(method: str, s: Summary, note: str) -> Interval:
@@ -116,21 +156,19 @@ def _tails(s: Summary) -> tuple[float, float]:
 
 def _percentile(s: Summary) -> Interval:
     lo, hi = _tails(s)
-    mc = _mc_range(s.ordered, s.cumulative, lo), _mc_range(s.ordered, s.cumulative, hi)
-    return Interval("percentile", s.confidence, read_quantile(s.ordered, s.cumulative, lo),
-                    read_quantile(s.ordered, s.cumulative, hi), quantile_levels=(lo, hi),
-                    monte_carlo=None if mc[0] is None or mc[1] is None else (mc[0], mc[1]))
+    interval = Interval("percentile", s.confidence, read_quantile(s.ordered, s.cumulative, lo),
+                        read_quantile(s.ordered, s.cumulative, hi), quantile_levels=(lo, hi))
+    return _with_bands(interval, _band(s.ordered, s.cumulative, lo), _band(s.ordered, s.cumulative, hi))
 
 
 def _basic(s: Summary) -> Interval:
     lo, hi = _tails(s)
     q_lo = read_quantile(s.ordered, s.cumulative, lo)
     q_hi = read_quantile(s.ordered, s.cumulative, hi)
-    mc_lo, mc_hi = _mc_range(s.ordered, s.cumulative, hi), _mc_range(s.ordered, s.cumulative, lo)
-    reflect = (lambda r: (2 * s.estimate - r[1], 2 * s.estimate - r[0]))  # noqa: E731
-    mc = None if mc_lo is None or mc_hi is None else (reflect(mc_lo), reflect(mc_hi))
-    return Interval("basic", s.confidence, 2 * s.estimate - q_hi, 2 * s.estimate - q_lo,
-                    quantile_levels=(hi, lo), monte_carlo=mc)
+    interval = Interval("basic", s.confidence, 2 * s.estimate - q_hi, 2 * s.estimate - q_lo,
+                        quantile_levels=(hi, lo))
+    return _with_bands(interval, _reflected(s.estimate, _band(s.ordered, s.cumulative, hi)),
+                       _reflected(s.estimate, _band(s.ordered, s.cumulative, lo)))
 
 
 def _normal(s: Summary) -> Interval:
@@ -138,12 +176,13 @@ def _normal(s: Summary) -> Interval:
     z = float(ndtri(hi))
     centre = s.estimate - s.bias
     lower, upper = centre - z * s.standard_error, centre + z * s.standard_error
-    mc = None
-    if s.standard_error_sd is not None and s.bias_sd is not None:
-        half = MC_Z * math.sqrt(s.bias_sd ** 2 + (z * s.standard_error_sd) ** 2)
-        mc = ((lower - half, lower + half), (upper - half, upper + half))
-    return Interval("normal", s.confidence, lower, upper, monte_carlo=mc,
-                    note="bias-corrected: (estimate - bias) -/+ z * standard error")
+    interval = Interval("normal", s.confidence, lower, upper,
+                        note="bias-corrected: (estimate - bias) -/+ z * standard error")
+    if s.standard_error_sd is None or s.bias_sd is None:
+        return interval
+    sd = math.sqrt(s.bias_sd ** 2 + (z * s.standard_error_sd) ** 2)
+    return _with_bands(interval, (lower - MC_Z * sd, lower + MC_Z * sd, sd),
+                       (upper - MC_Z * sd, upper + MC_Z * sd, sd))
 
 
 def _bca(s: Summary) -> Interval:
@@ -151,10 +190,9 @@ def _bca(s: Summary) -> Interval:
         return _undefined("bca", s, s.bca_problem)
     assert s.z0 is not None and s.acceleration is not None
     lo, hi = (float(v) for v in bca_levels(s.z0, s.acceleration, list(_tails(s))))
-    mc = _mc_range(s.ordered, s.cumulative, lo), _mc_range(s.ordered, s.cumulative, hi)
-    return Interval("bca", s.confidence, read_quantile(s.ordered, s.cumulative, lo),
-                    read_quantile(s.ordered, s.cumulative, hi), quantile_levels=(lo, hi),
-                    monte_carlo=None if mc[0] is None or mc[1] is None else (mc[0], mc[1]))
+    interval = Interval("bca", s.confidence, read_quantile(s.ordered, s.cumulative, lo),
+                        read_quantile(s.ordered, s.cumulative, hi), quantile_levels=(lo, hi))
+    return _with_bands(interval, _band(s.ordered, s.cumulative, lo), _band(s.ordered, s.cumulative, hi))
 
 
 def _studentized(s: Summary) -> Interval:
@@ -164,13 +202,15 @@ def _studentized(s: Summary) -> Interval:
     lo, hi = _tails(s)
     t_lo = read_quantile(s.t_ordered, s.t_cumulative, lo)
     t_hi = read_quantile(s.t_ordered, s.t_cumulative, hi)
-    mc = None
-    r_lo, r_hi = _mc_range(s.t_ordered, s.t_cumulative, hi), _mc_range(s.t_ordered, s.t_cumulative, lo)
-    if r_lo is not None and r_hi is not None:
-        mc = ((s.estimate - s.se_hat * r_lo[1], s.estimate - s.se_hat * r_lo[0]),
-              (s.estimate - s.se_hat * r_hi[1], s.estimate - s.se_hat * r_hi[0]))
-    return Interval("studentized", s.confidence, s.estimate - s.se_hat * t_hi, s.estimate - s.se_hat * t_lo,
-                    quantile_levels=(hi, lo), monte_carlo=mc)
+    interval = Interval("studentized", s.confidence, s.estimate - s.se_hat * t_hi, s.estimate - s.se_hat * t_lo,
+                        quantile_levels=(hi, lo))
+    se_hat = s.se_hat
+
+    def mapped(band: Band | None) -> Band | None:  # an end θ̂ − ŝe·t moves with its t quantile
+        return None if band is None else (s.estimate - se_hat * band[1], s.estimate - se_hat * band[0],
+                                          abs(se_hat) * band[2])
+    return _with_bands(interval, mapped(_band(s.t_ordered, s.t_cumulative, hi)),
+                       mapped(_band(s.t_ordered, s.t_cumulative, lo)))
 
 
 INTERVAL_METHODS: dict[str, IntervalMethod] = {

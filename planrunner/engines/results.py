@@ -54,6 +54,8 @@ class Interval:
     # about 95% Monte Carlo ranges (low, high) of the lower and of the upper endpoint; None when
     # exact (exhaustive enumeration) or undefined
     monte_carlo: tuple[tuple[float, float], tuple[float, float]] | None = None
+    # Monte Carlo s.d. of the lower and of the upper endpoint, by the same rule (intervals.MC_RULE)
+    monte_carlo_sd: tuple[float, float] | None = None
 
 
 @dataclass(frozen=True, eq=False)

@@ -32,8 +32,8 @@ def bootstrap_fields(result: BootstrapResult, bins: int, *, save_distribution: b
             "standard_error_sd": _f(result.standard_error_sd),
             "bias_sd": _f(result.bias_sd),
             "kurtosis": _f(_kurtosis(result.distribution)),
-            # Monte Carlo band and s.d. of each interval endpoint (record/bands.py)
-            "intervals": interval_bands(result.distribution, result.estimate, result.intervals),
+            # Monte Carlo band and s.d. of each interval endpoint, the same as intervals[i].monte_carlo
+            "intervals": interval_bands(result.intervals),
             "interval_rule": MC_INTERVAL_RULE,
         },
         details={"z0": _f(result.z0), "acceleration": _f(result.acceleration),
