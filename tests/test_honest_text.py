@@ -7,11 +7,10 @@ import math
 
 import numpy as np
 import pytest
+from conftest import fixed_clock
 
 from planrunner.pipeline.run import run_plan
 from planrunner.record.methods import methods_text, readable_count
-
-from conftest import fixed_clock
 
 PLAN = """
 plan: honest-text
@@ -210,7 +209,7 @@ def test_check_refuses_what_run_refuses(write_plan, tmp_path, capsys, design: st
     for i in range(30):
         unit = f"u{i:02d}"
         if design == "pairs":
-            rows += [f"a,{unit},{rng.normal():.4f},{rng.normal():.4f}", f"b,{unit},{rng.normal():.4f},{rng.normal():.4f}"]
+            rows += [f"{arm},{unit},{rng.normal():.4f},{rng.normal():.4f}" for arm in ("a", "b")]
         else:
             group = "a" if i < 15 else "b"
             rows += [f"{group},{unit},{rng.normal():.4f},{rng.normal():.4f}" for _ in range(2)]

@@ -6,13 +6,12 @@ import time
 
 import numpy as np
 import pytest
+from conftest import fixed_clock
 from scipy import stats
 
 from planrunner.engines import teststats
 from planrunner.engines.statistics import get_statistic
 from planrunner.pipeline.run import run_plan
-
-from conftest import fixed_clock
 
 KENDALL = get_statistic("kendall")
 

@@ -11,15 +11,14 @@ import subprocess
 import sys
 import xml.etree.ElementTree as ET
 from pathlib import Path
-from types import SimpleNamespace
 
 import numpy as np
 import pytest
 from conftest import fixed_clock
 from scipy import stats
 
-from planrunner.pipeline.run import run_plan
 from planrunner.engines.intervals import INTERVAL_METHODS, Summary, quantile_band
+from planrunner.pipeline.run import run_plan
 from planrunner.record.bands import interval_bands
 from planrunner.report import digits as precision
 from planrunner.report import plots
@@ -273,7 +272,8 @@ def test_one_band_rule_for_every_interval_end_and_both_record_fields():
     assert bands["basic"]["lower_band"] == [25.0 - step, 25.0 + step]  # 2·500 − (975 ± step)
     assert bands["basic"]["upper_sd"] == bands["percentile"]["lower_sd"]
     # studentized: end θ̂ − ŝe·t, so the t band maps by ŝe (the end at t = 9.75 is 500 − 29.25)
-    assert bands["studentized"]["lower_band"] == pytest.approx([500 - 3 * (9.75 + step / 100), 500 - 3 * (9.75 - step / 100)])
+    expected = [500 - 3 * (9.75 + step / 100), 500 - 3 * (9.75 - step / 100)]
+    assert bands["studentized"]["lower_band"] == pytest.approx(expected)
     assert bands["studentized"]["lower_sd"] == pytest.approx(3 * s / 100)
     # normal: sd = sqrt(sd_bias² + z²·sd_se²) (delta method), band ± 1.96 sd
     z = 1.959963984540054

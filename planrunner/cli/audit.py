@@ -186,7 +186,8 @@ def _print_differences(report: Any, target: str | None) -> None:
     if len(report.differences) > MAX_ROWS or target:
         stamp = utc_now().strftime("%Y%m%dT%H%M%SZ")
         # by default in the temporary folder: never among the run's files, nor wherever verify was started
-        name = target or Path(tempfile.gettempdir()) / f"planrunner-verify-{report.record_file.parent.name or 'record'}-{stamp}.tsv"
+        run = report.record_file.parent.name or "record"
+        name = target or Path(tempfile.gettempdir()) / f"planrunner-verify-{run}-{stamp}.tsv"
         written = write_new_file(name, differences_text(report), what="list of differences")
         print(f"... {len(report.differences) - min(MAX_ROWS, len(report.differences))} more; "
               f"every differing field is listed in {written}")

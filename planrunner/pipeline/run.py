@@ -18,13 +18,13 @@ from pathlib import Path
 from typing import Any
 
 from planrunner.compile import limits
-from planrunner.execute.permutation import planned_computation
 from planrunner.compile.jobs import Job, compile_jobs
 from planrunner.data.checks import check_tables
 from planrunner.data.tables import Table, read_table, resolve_data_path
 from planrunner.engines.maxt import MaxTResult
 from planrunner.execute.executors import Execution, Progress, execute_all
 from planrunner.execute.families import max_t_families
+from planrunner.execute.permutation import planned_computation
 from planrunner.plan.load import LoadedPlan, read_plan
 from planrunner.plan.params import apply as apply_parameters
 from planrunner.plan.params import resolve_values

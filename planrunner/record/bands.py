@@ -7,7 +7,8 @@ bands, read from one computation, so they can never disagree.
 
 from __future__ import annotations
 
-from typing import Any, Sequence
+from collections.abc import Sequence
+from typing import Any
 
 from planrunner.engines.intervals import MC_RULE as RULE
 from planrunner.engines.results import Interval

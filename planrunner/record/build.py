@@ -26,11 +26,11 @@ from typing import Any
 
 from planrunner import __version__
 from planrunner.compile.jobs import Job
-from planrunner.engines.statistics import comparison_word
 from planrunner.data.tables import Table
 from planrunner.engines.bootstrap import BootstrapOptions
 from planrunner.engines.maxt import MaxTResult
 from planrunner.engines.results import BootstrapResult, JackknifeResult, PermutationResult
+from planrunner.engines.statistics import comparison_word
 from planrunner.engines.streams import DRAW_BLOCK, GENERATOR
 from planrunner.plan.load import LoadedPlan
 from planrunner.plan.schema import Analysis, Plan

@@ -212,9 +212,10 @@ def null_plot(entry: dict[str, Any], fmt: Formatter, fmt_p: Formatter) -> Plot |
     tail = ""
     if count_key:
         relation = "at or above" if side == "greater" else "at or below"
+        alpha = (entry.get("settings") or {}).get("alpha")
         tail = (f"; shaded: the {precision.count(details.get(count_key))} values {relation} the observed value"
                 f"{', doubled for the two-sided p-value' if entry.get('alternative') == 'two-sided' else ''}"
-                f" (p = {fmt_p(entry.get('p_value'), (entry.get('monte_carlo') or {}).get('p_value_sd'), (entry.get('settings') or {}).get('alpha'))})")
+                f" (p = {fmt_p(entry.get('p_value'), (entry.get('monte_carlo') or {}).get('p_value_sd'), alpha)})")
     alt = (f"Histogram of the permutation null distribution ({precision.count(size)} {what}) "
            f"of the {axis_label(entry)}, "
            f"from {fmt(edges[0])} to {fmt(edges[-1])}; the observed value {fmt(observed)} is a solid black "
