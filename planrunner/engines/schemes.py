@@ -441,7 +441,9 @@ def draw_blocks(data: tuple[np.ndarray, ...], statistic: Statistic, resamples: i
     edges = np.concatenate([[0], np.cumsum(widths)])
     reader = UniformRows(stream, int(edges[-1]), start)
     out = np.empty(resamples, dtype=np.float64)
-    rows_per_batch = _rows_per_batch(batch_elements, sum(a.shape[0] for a in data) * statistic.columns)
+    values = sum(a.shape[0] for a in data) * statistic.columns
+    # the numbers do not depend on the batch size, so a batch may stay inside the cache
+    rows_per_batch = min(_rows_per_batch(batch_elements, values), _rows_per_batch(CACHE_ELEMENTS, values))
     done = 0
     while done < resamples:
         rows = min(rows_per_batch, resamples - done)
