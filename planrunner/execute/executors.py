@@ -26,12 +26,14 @@ from planrunner.engines.blocks import RangeTask, mapping_ranges, resample_ranges
 from planrunner.engines.bootstrap import BootstrapOptions, bootstrap
 from planrunner.engines.jackknife import JackknifeOptions, jackknife
 from planrunner.engines.permcore import PermutationOptions
+from planrunner.engines.results import BootstrapResult, JackknifeResult, PermutationResult
 from planrunner.engines.statistics import STATISTICS, Statistic, bind, get_statistic
 from planrunner.engines.streams import DRAW_BLOCK
 from planrunner.errors import EngineError, PlanrunnerError
 from planrunner.execute.permutation import run_permutation
 
 EXECUTORS = ("serial", "threads", "processes", "dask")
+EngineResult = BootstrapResult | JackknifeResult | PermutationResult
 # (resamples done, resamples in total) after every finished range and job
 Progress = Callable[[int, int], None]
 RANGES_PER_WORKER = 4  # a few ranges per worker keep them busy while one finishes early
@@ -92,7 +94,7 @@ def _reduce_statistic(statistic: Statistic) -> tuple:
 copyreg.pickle(Statistic, _reduce_statistic)
 
 
-def execute(job: Job) -> Any:
+def execute(job: Job) -> EngineResult:
     """The engine result for one job (a frozen dataclass of numbers). An engine knows only arrays,
     so its errors are given the analysis id here, where the reader can find it in the plan."""
     try:
@@ -101,7 +103,7 @@ def execute(job: Job) -> Any:
         raise EngineError(f"{exc.message}", where=f"analysis '{job.analysis_id}'", hint=exc.hint) from None
 
 
-def _run_engine(job: Job) -> Any:
+def _run_engine(job: Job) -> EngineResult:
     if isinstance(job.options, BootstrapOptions):
         return bootstrap(job.samples, job.statistic, job.options, stream=job.stream, strata=job.strata,
                          clusters=job.clusters, paired=job.paired)
