@@ -9,6 +9,8 @@ can point into the file.
 
 from __future__ import annotations
 
+import re
+import unicodedata
 from dataclasses import dataclass
 from typing import Any
 
@@ -29,6 +31,11 @@ _PLAIN_TAGS = {
     "tag:yaml.org,2002:bool",
     "tag:yaml.org,2002:null",
 }
+
+
+# YAML 1.1 (which PyYAML follows) reads 017 as octal 15, 0x1F as 31, 0b11 as 3 and 1:30 as
+# base 60 (90); YAML 1.2 and every reader of a plan would not. A plan must not depend on that.
+_SURPRISING_NUMBER = re.compile(r"[-+]?(0[0-9_]+(\.[0-9_]*)?|0[xXoObB][0-9a-fA-F_]+|[0-9][0-9_]*(:[0-5]?[0-9])+(\.[0-9_]*)?)")
 
 
 _OPENERS = (yaml.BlockMappingStartToken, yaml.BlockSequenceStartToken, yaml.FlowMappingStartToken,
@@ -70,6 +77,8 @@ def load_yaml(text: str, filename: str) -> LoadedYaml:
     if len(text.encode("utf-8")) > MAX_PLAN_BYTES:
         raise PlanError(f"the plan is larger than {MAX_PLAN_BYTES} bytes", where=filename,
                         hint="a plan holds settings, not data; put data in the files it names")
+    # one Unicode form (NFC) for names, levels and filters, as for the data files
+    text = unicodedata.normalize("NFC", text)
     try:
         depth = 0
         for token in yaml.scan(text, Loader=yaml.SafeLoader):
@@ -151,6 +160,13 @@ def _build(node: yaml.Node, path: Path_, values: dict, keys: dict, filename: str
         return [_build(item, path + (i,), values, keys, filename) for i, item in enumerate(node.value)]
     # Scalars: the usual plain types; anything else (timestamps) stays the text as written, so a
     # date in a plan is never silently turned into a datetime object.
+    if node.tag in ("tag:yaml.org,2002:int", "tag:yaml.org,2002:float") and _SURPRISING_NUMBER.fullmatch(node.value):
+        raise PlanError(f"{dotted(path)}: the number {node.value} has a leading zero, a base prefix or a colon, "
+                        "which YAML 1.1 reads as octal, hexadecimal, binary or base 60 "
+                        f"({_SCALAR_LOADER.construct_object(node)!r} here)",
+                        where=f"{filename}:{start.line}:{start.column}",
+                        hint="write the number in plain decimal without leading zeros (e.g. 17, 10000), or "
+                             "quote it if it is text")
     if node.tag in _PLAIN_TAGS:
         try:
             value = _SCALAR_LOADER.construct_object(node)
