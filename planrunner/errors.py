@@ -71,13 +71,16 @@ class EngineError(PlanrunnerError):
 class ExpressionError(PlanrunnerError):
     """A row filter expression cannot be parsed or evaluated.
 
-    `position` is the 0-based character offset in the expression text where the problem is.
+    `position` is the 0-based character offset in the expression text where the problem is;
+    `rows` the rows where the expression has no defined value (log of a negative number, ...).
     """
 
-    def __init__(self, message: str, *, position: int = 0, text: str = "", hint: str | None = None):
+    def __init__(self, message: str, *, position: int = 0, text: str = "", hint: str | None = None,
+                 rows: tuple[int, ...] = ()):
         super().__init__(message, hint=hint)
         self.position = position
         self.text = text
+        self.rows = rows  # 0-based rows (of the arrays evaluated) where a value is undefined
 
     def excerpt(self) -> str:
         """The expression with a caret under the offending character."""

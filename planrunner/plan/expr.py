@@ -107,17 +107,44 @@ class _Problem(Exception):
     `Expression.evaluate` turn it into an `ExpressionError` that carries the text.
     """
 
-    def __init__(self, message: str, position: int, hint: str | None = None):
+    def __init__(self, message: str, position: int, hint: str | None = None, rows: tuple[int, ...] = ()):
         super().__init__(message)
         self.message = message
         self.position = position
         self.hint = hint
+        self.rows = rows
 
     def to_error(self, text: str) -> ExpressionError:
         """The public error, with the position repeated in the message for one-line output
         (counted from 1 there, as a person counts; `position` itself is 0-based)."""
         return ExpressionError(f"{self.message} at character {self.position + 1}",
-                               position=self.position, text=text, hint=self.hint)
+                               position=self.position, text=text, hint=self.hint, rows=self.rows)
+
+
+_UNDEFINED = {
+    "log": ("log is defined only for numbers above 0", "exclude those rows first, e.g. y > 0 and log(y) < 2"),
+    "sqrt": ("sqrt is defined only for numbers from 0 up", "exclude those rows first, e.g. y >= 0 and sqrt(y) < 2"),
+    "exp": ("exp overflows (its value would exceed the largest double)", "compare the argument instead"),
+    "/": ("division by zero (or a quotient beyond the largest double)", "exclude the rows whose divisor is 0 "
+          "first, e.g. d != 0 and x / d > 1"),
+}
+
+
+def _defined(value: Any, operator: str, position: int, *operands: Any) -> Any:
+    """A number every row can compare with: a result outside a function's domain (NaN) or beyond the
+    doubles (infinite) would make comparisons quietly false or true, so it is an error naming rows.
+    Only results made non-finite here count: a missing (NaN) operand stays missing."""
+    bad = ~np.isfinite(value)
+    for operand in operands:
+        bad = bad & np.isfinite(operand)
+    if not np.any(bad):
+        return value
+    what, hint = _UNDEFINED.get(operator, (f"'{operator}' overflows (a value beyond the largest double)",
+                                            "rescale the values, or compare them without arithmetic"))
+    if np.ndim(bad) == 0:  # a constant part of the filter: every row alike
+        raise _Problem(f"{what}, but not here", position, hint)
+    rows = tuple(int(i) for i in np.flatnonzero(bad))
+    raise _Problem(f"{what}, but not on {len(rows)} row(s)", position, hint, rows=rows)
 
 
 # --------------------------------------------------------------------------------------------
@@ -375,8 +402,9 @@ class _Arithmetic(_Node):
 
     def compute(self, env: Mapping[str, _Value]) -> _Value:
         total = _as_float(self.first.compute(env))
-        for operator, _, node in self.rest:
-            total = _ARITHMETIC_UFUNCS[operator](total, _as_float(node.compute(env)))
+        for operator, position, node in self.rest:
+            operand = _as_float(node.compute(env))
+            total = _defined(_ARITHMETIC_UFUNCS[operator](total, operand), operator, position, total, operand)
         return _Value("number", total)
 
 
@@ -411,7 +439,8 @@ class _Call(_Node):
         return "number"
 
     def compute(self, env: Mapping[str, _Value]) -> _Value:
-        return _Value("number", FUNCTIONS[self.name](_as_float(self.argument.compute(env))))
+        argument = _as_float(self.argument.compute(env))
+        return _Value("number", _defined(FUNCTIONS[self.name](argument), self.name, self.position, argument))
 
 
 @dataclass(frozen=True)
@@ -1006,8 +1035,8 @@ class Expression:
             rows = len(next(iter(columns.values()))) if columns else 0
         kind = self._root.infer({name: value.kind for name, value in env.items()})
         _check_root(self._root, kind)
-        # Division by zero, log(0), sqrt(-1) give inf/NaN by IEEE rules, which the comparisons
-        # then handle; numpy's warnings about them would only be noise for the user.
+        # Division by zero, log(0), sqrt(-1) give inf/NaN by IEEE rules; `_defined` turns each into
+        # an error naming the rows, so numpy's own warnings about them are not needed.
         with np.errstate(all="ignore"):
             value = self._root.compute(env)
         return np.broadcast_to(np.asarray(value.data, dtype=bool), (rows,)).copy()
