@@ -9,6 +9,7 @@ screenshot and the two PDFs are saved under test-artifacts/.
 from __future__ import annotations
 
 import copy
+import json
 from pathlib import Path
 
 import pytest
@@ -123,3 +124,22 @@ def test_script_in_a_title_is_shown_as_text(demo, browser, tmp_path):
     assert facts["title"] != "run"  # the script never ran
     assert [url for url in browser.requests() if url != page.as_uri()] == []
     assert browser.problems() == []
+
+
+def test_a_long_unbroken_level_still_fits_the_printed_page(demo, browser, tmp_path):
+    # a level of 60 characters without a space once widened the tables beyond A4's printable width
+    long_level = "polyurethane" + "x" * 48
+    record = json.loads(json.dumps(demo.record).replace("foam", long_level))
+    page = tmp_path / "report.html"
+    page.write_text(report.render(record, "html"), encoding="utf-8")
+    browser.open(page.as_uri())
+    width_px = int((210.0 - 24.0) / 25.4 * 96)  # A4 less the print style sheet's 12 mm margins
+    browser.call("Emulation.setEmulatedMedia", media="print")
+    browser.call("Emulation.setDeviceMetricsOverride", width=width_px, height=1000, deviceScaleFactor=1, mobile=False)
+    try:
+        assert long_level in browser.evaluate("document.body.textContent")
+        overflow = browser.evaluate(OVERFLOW)
+        assert overflow["page"] <= 0 and overflow["wide"] == [], overflow
+    finally:
+        browser.call("Emulation.setEmulatedMedia", media="")
+        browser.call("Emulation.clearDeviceMetricsOverride")
