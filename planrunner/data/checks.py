@@ -10,11 +10,12 @@ so that `planrunner check` finds it before a long run does.
 
 from __future__ import annotations
 
+import unicodedata
 from typing import Any
 
 import numpy as np
 
-from planrunner.data.tables import SHOW_LINES, Table, group_value
+from planrunner.data.tables import FLOAT_EXACT, SHOW_LINES, Table, group_value
 from planrunner.engines.statistics import STATISTICS
 from planrunner.errors import DataError
 from planrunner.plan.schema import Plan
@@ -29,7 +30,9 @@ METHOD_WORDS = {"bootstrap": "the bootstrap", "jackknife": "the jackknife", "per
 def check_tables(plan: Plan, tables: dict[str, Table]) -> None:
     """Raise the first data problem of any analysis (analyses in plan order)."""
     for analysis in plan.analyses:
-        check_analysis(analysis, tables[analysis.data])
+        columns = plan.datasets[analysis.data].columns
+        by = analysis.groups.by if analysis.groups is not None else None
+        check_analysis(analysis, tables[analysis.data], declared=columns[by].levels if by in columns else None)
 
 
 def _lines(lines: np.ndarray) -> str:
@@ -43,7 +46,9 @@ def _excluded(table: Table) -> str:
     return "excluded: " + "; ".join(f"{e.rows} row(s) for {e.reason}" for e in table.excluded)
 
 
-def check_analysis(analysis: Any, table: Table) -> None:
+def check_analysis(analysis: Any, table: Table, declared: list[str] | None = None) -> None:
+    """The data problems of one analysis; `declared` are the levels the plan declares for its
+    group column (values declared there are deliberate, never near-duplicates)."""
     where = table.file
     who = f"analysis '{analysis.id}'"
     statistic = STATISTICS.get(analysis.statistic)
@@ -62,12 +67,17 @@ def check_analysis(analysis: Any, table: Table) -> None:
             present = table.values_read.get(by, ())
             if level not in present:
                 listed = ", ".join(present[:10]) + (" ..." if len(present) > 10 else "")
+                near = [v for v in present if fold(v) == fold(level)]
+                spelled = (f"; '{level}' is {code_points(level)}, the file's '{near[0]}' is {code_points(near[0])}"
+                           if near else "")
                 raise DataError(f"{who}: group '{level}' does not occur in column '{by}' "
-                                f"(values in the file: {listed})", where=where,
+                                f"(values in the file: {listed}){spelled}", where=where,
                                 hint=f"check groups.compare against the file (spelling, case), or use the "
                                      f"extract that holds group '{level}'")
             raise DataError(f"{who}: no rows of group '{level}' (column '{by}') are left; {_excluded(table)}",
                             where=where, hint="check the keep filter and the missing-value handling")
+    if analysis.groups is not None:
+        _refuse_near_duplicates(analysis, table, column, labels, who, declared or [])
     minimum = MIN_ROWS_TWO_COLUMNS if two_columns else MIN_ROWS
     for label, mask in zip(labels, masks):
         count = int(mask.sum())
@@ -81,6 +91,9 @@ def check_analysis(analysis: Any, table: Table) -> None:
                             f"{' per group' if analysis.groups else ''}", where=where,
                             hint="use more data, or relax the keep filter")
     used = np.logical_or.reduce(masks)
+    for name in (analysis.outcome, analysis.predictor, *(getattr(analysis, "covariates", None) or ())):
+        if name is not None:
+            refuse_inexact_integers(table, name, used, who)
     binary = statistic is not None and statistic.outcome == "binary"
     for role, name in (("outcome", analysis.outcome), ("predictor", analysis.predictor)):
         # a 0/1 outcome that is all 0 is a finding (no events), not a broken extract
@@ -154,3 +167,48 @@ def _check_clusters(analysis: Any, table: Table, labels: tuple[str, ...], masks:
                                 hint="a cluster must lie within one group: fix the group or the cluster "
                                      "labels in the file")
             seen[cluster] = label
+
+
+def fold(text: str) -> str:
+    """A level as a reader sees it: compatibility form, case folded, invisible characters dropped."""
+    return "".join(c for c in unicodedata.normalize("NFKC", text).casefold()
+                   if unicodedata.category(c) not in ("Cf", "Cc", "Zs", "Zl", "Zp"))
+
+
+def code_points(text: str) -> str:
+    """'é' -> 'U+00E9': what the eye cannot tell apart, spelled out."""
+    return " ".join(f"U+{ord(c):04X}" for c in text[:20]) + (" ..." if len(text) > 20 else "")
+
+
+def _refuse_near_duplicates(analysis: Any, table: Table, column: np.ndarray, labels: tuple[str, ...],
+                            who: str, declared: list[str]) -> None:
+    """Rows whose group differs from a compared level only by case, Unicode form or an invisible
+    character would silently be left out: refuse them, unless the plan declares both as levels."""
+    by = analysis.groups.by
+    for level in labels:
+        others = sorted({v for v in set(column.tolist()) - set(labels) - set(declared) if fold(v) == fold(level)})
+        if not others:
+            continue
+        rows = column == others[0]
+        raise DataError(f"{who}: column '{by}' holds '{others[0]}' ({code_points(others[0])}) beside the compared "
+                        f"level '{level}' ({code_points(level)}), on line(s) {_lines(table.lines[rows])}; they "
+                        "differ only by case, Unicode form or invisible characters, and those rows would be "
+                        "left out", where=table.file,
+                        hint="fix the values in the file, exclude those rows with the keep filter, or declare "
+                             f"both as levels of '{by}' if they are different groups")
+
+
+def refuse_inexact_integers(table: Table, name: str, used: np.ndarray, who: str) -> None:
+    """An integer column is computed with as doubles; beyond 2**53 a double no longer holds every
+    whole number, so neighbouring values would merge. Refuse rather than round silently."""
+    values = table.columns[name]
+    if values.dtype.kind not in "iu":
+        return
+    beyond = used & ((values > FLOAT_EXACT) | (values < -FLOAT_EXACT))
+    if beyond.any():
+        first = int(values[np.flatnonzero(beyond)[0]])
+        raise DataError(f"{who}: the integer column '{name}' holds {int(beyond.sum())} value(s) beyond "
+                        f"2^53 = {FLOAT_EXACT:,} (e.g. {first} on line(s) {_lines(table.lines[beyond])}); "
+                        "computations use doubles, which cannot hold every whole number that large",
+                        where=table.file, hint="subtract a common offset in the extract, or declare the "
+                                               "column as number to accept rounding to about 16 digits")

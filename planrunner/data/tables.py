@@ -7,10 +7,16 @@ to open the file at that line. Line numbers count the header as line 1 (the firs
 from __future__ import annotations
 
 import csv
+import errno
 import hashlib
 import io
+import os
+import re
+import stat
+import unicodedata
 from collections.abc import Mapping
 from dataclasses import dataclass, field
+from decimal import Decimal, InvalidOperation
 from pathlib import Path
 
 import numpy as np
@@ -23,6 +29,9 @@ TRUE_WORDS = {"true", "yes", "1"}
 FALSE_WORDS = {"false", "no", "0"}
 SHOW_LINES = 5  # how many offending lines a message lists
 GROUPING_TYPES = ("category", "boolean", "integer", "text")
+INT64_MAX = 2**63 - 1  # an integer column holds 64-bit integers: beyond this it is refused
+FLOAT_EXACT = 2**53  # a double holds every whole number up to here, and not every one above
+_ISO_DATE = re.compile(r"\d{4}-\d{2}-\d{2}")
 
 
 @dataclass(frozen=True)
@@ -67,8 +76,13 @@ def resolve_data_path(plan_folder: Path, file: str, *, data_root: Path | None = 
     if data_root is not None and not base.is_dir():
         raise DataError("the data root is not a folder", where=str(data_root),
                         hint="name an existing folder with --data-root")
-    root = base.resolve()
-    path = (base / file).resolve()
+    try:
+        root = base.resolve()
+        path = (base / file).resolve()
+    except (RuntimeError, OSError) as exc:  # a symlink loop (RuntimeError before Python 3.13)
+        raise DataError(f"data file '{file}' cannot be resolved: {exc}", where=file,
+                        hint="a symbolic link on this path points (directly or not) back to itself; "
+                             "replace it with the file or a link to the file") from None
     if not path.is_relative_to(root):
         allowed = "the plan's folder" if data_root is None else "the data root"
         raise DataError(f"data file '{file}' resolves to {path}, outside {allowed} {root}",
@@ -76,6 +90,42 @@ def resolve_data_path(plan_folder: Path, file: str, *, data_root: Path | None = 
                                          "it with --data-root DIR" if data_root is None else
                                          "keep data inside the data root")
     return path
+
+
+def read_regular_file(path: Path, shown: str, key: str) -> bytes:
+    """The bytes of a regular file, opened once and checked on the opened descriptor.
+
+    Checking the path first and opening it after would let a file swapped for a pipe in between
+    hang the run, or a swapped-in symlink lead elsewhere: open without following a final symlink
+    and without blocking on a pipe, then ask the open descriptor what it is.
+    """
+    flags = os.O_RDONLY | getattr(os, "O_NOFOLLOW", 0) | getattr(os, "O_NONBLOCK", 0)
+    try:
+        descriptor = os.open(path, flags)
+    except FileNotFoundError:
+        raise DataError("data file not found", where=shown,
+                        hint=f"the plan expects it at {path}; check {key}") from None
+    except IsADirectoryError:
+        raise DataError("this is a folder, not a data file", where=shown,
+                        hint=f"name the CSV or TSV file inside it in {key}") from None
+    except OSError as exc:
+        what = ("it was replaced by a symbolic link after its path was checked" if exc.errno == errno.ELOOP
+                else exc.strerror or str(exc))
+        raise DataError(f"the data file cannot be opened: {what}", where=shown,
+                        hint=f"check the file at {path}") from None
+    try:
+        mode = os.fstat(descriptor).st_mode
+        if stat.S_ISDIR(mode):
+            raise DataError("this is a folder, not a data file", where=shown,
+                            hint=f"name the CSV or TSV file inside it in {key}")
+        if not stat.S_ISREG(mode):
+            raise DataError("this is not a regular file (a device or a pipe?)", where=shown,
+                            hint=f"name a CSV or TSV file in {key}")
+    except DataError:
+        os.close(descriptor)
+        raise
+    with os.fdopen(descriptor, "rb") as handle:
+        return handle.read()
 
 
 def file_sha256(path: Path) -> tuple[str, int]:
@@ -101,17 +151,8 @@ def read_table(name: str, spec: Dataset, plan_folder: Path, *, data_root: Path |
     """Read one dataset: hash it, check its columns and types, handle missing values, filter rows."""
     path = resolve_data_path(plan_folder, spec.file, data_root=data_root)
     shown = spec.file
-    if path.is_dir():
-        raise DataError("this is a folder, not a data file", where=shown,
-                        hint=f"name the CSV or TSV file inside it in datasets.{name}.file")
-    if path.exists() and not path.is_file():
-        raise DataError("this is not a regular file (a device or a pipe?)", where=shown,
-                        hint=f"name a CSV or TSV file in datasets.{name}.file")
-    if not path.is_file():
-        raise DataError("data file not found", where=shown,
-                        hint=f"the plan expects it at {path}; check datasets.{name}.file")
     # hash the very bytes that are parsed: a file changing between two reads cannot slip past a pin
-    data = path.read_bytes()
+    data = read_regular_file(path, shown, f"datasets.{name}.file")
     sha, size = hashlib.sha256(data).hexdigest(), len(data)
     if spec.sha256 is not None and spec.sha256 != sha:
         raise DataError(f"the file has changed: its sha256 is {sha}, the plan pins {spec.sha256}",
@@ -160,7 +201,9 @@ def read_table(name: str, spec: Dataset, plan_folder: Path, *, data_root: Path |
         try:
             kept = parse_expression(spec.keep).evaluate({c: v[keep] for c, v in columns.items()})
         except ExpressionError as exc:
-            raise DataError(f"the keep filter cannot be applied: {exc.message}", where=f"datasets.{name}.keep",
+            lines = line_of[np.flatnonzero(keep)[list(exc.rows)]] if exc.rows else ()
+            on = f" (line(s) {_list([int(n) for n in lines[:SHOW_LINES]], len(lines))} of {shown})" if exc.rows else ""
+            raise DataError(f"the keep filter cannot be applied: {exc.message}{on}", where=f"datasets.{name}.keep",
                             hint=exc.hint) from None
         dropped = np.zeros(rows_read, dtype=bool)
         dropped[np.flatnonzero(keep)[~kept]] = True
@@ -179,10 +222,8 @@ def _distinct(values: np.ndarray, kind: str, markers: set[str]) -> tuple[str, ..
         if kind == "boolean" and text.lower() in TRUE_WORDS | FALSE_WORDS:
             out.add("true" if text.lower() in TRUE_WORDS else "false")
         elif kind == "integer":
-            try:
-                out.add(str(int(float(text))))
-            except (ValueError, OverflowError):
-                out.add(text)
+            exact = _exact_integer(text)
+            out.add(text if exact is None else str(exact))
         else:
             out.add(text)
     return tuple(sorted(out))
@@ -211,23 +252,26 @@ def _read_rows(data: bytes, fmt: str, shown: str) -> tuple[list[str], list[list[
                         f"{exc.start}{'; it looks like UTF-16' if utf16 else ''})", where=shown,
                         hint="save the file as UTF-8 ('CSV UTF-8' in most spreadsheet programs)") from None
     text = text.removeprefix("\ufeff")  # a byte-order mark written by some spreadsheet programs
+    # One Unicode form (NFC) for every value and name, as for the plan: a composed and a decomposed
+    # 'é' look the same and must compare equal (only the hash sees the bytes as written).
+    text = unicodedata.normalize("NFC", text)
     delimiter = "\t" if fmt == "tsv" else ","
     reader = csv.reader(io.StringIO(text, newline=""), delimiter=delimiter, strict=True)
-    if '"' not in text:
-        # No quotes, so no record spans lines: record i is line i + 1 and the whole file can be
-        # read in one call (several times faster than asking the reader for each line number).
-        numbered = [(i + 1, r) for i, r in enumerate(reader) if r]
-    else:
-        numbered = []
-        end = 0
-        try:
+    numbered: list[tuple[int, list[str]]] = []
+    end = 0
+    try:
+        if '"' not in text:
+            # No quotes, so no record spans lines: record i is line i + 1 and the whole file can be
+            # read in one call (several times faster than asking the reader for each line number).
+            numbered = [(i + 1, r) for i, r in enumerate(reader) if r]
+        else:
             for record in reader:
                 start, end = end + 1, reader.line_num
                 if record:
                     numbered.append((start, record))
-        except csv.Error as exc:
-            raise DataError(f"line {end + 1}: cannot be read as {fmt.upper()}: {exc}", where=shown,
-                            hint="check the quotes on that line (a quote opened and never closed?)") from None
+    except csv.Error as exc:
+        line = reader.line_num if '"' not in text else end + 1
+        raise _unreadable(exc, line, fmt, shown) from None
     if not numbered:
         raise DataError("the file is empty", where=shown, hint="a header line and data rows are expected")
     header_line, first = numbered[0]
@@ -236,11 +280,33 @@ def _read_rows(data: bytes, fmt: str, shown: str) -> tuple[list[str], list[list[
     width = len(header)
     for line, record in numbered[1:]:
         if len(record) != width:
+            _refuse_decimal_commas(header, record, line, fmt, shown)
             raise DataError(f"line {line} has {len(record)} field(s) but the header (line {header_line}) has "
                             f"{width}", where=shown,
                             hint="check the delimiter and the quotes on that line: every row needs one "
                                  "value per column")
     return header, rows, np.array([line for line, _ in numbered[1:]], dtype=np.int64)
+
+
+def _unreadable(exc: csv.Error, line: int, fmt: str, shown: str) -> DataError:
+    """The csv module's complaint, with the cause it points to."""
+    if "field larger than field limit" in str(exc):
+        return DataError(f"line {line}: a field is longer than {csv.field_size_limit():,} characters", where=shown,
+                         hint="a field this long is usually a whole file read as one value: check the "
+                              "delimiter and the line breaks of that line (or an unclosed quote before it)")
+    return DataError(f"line {line}: cannot be read as {fmt.upper()}: {exc}", where=shown,
+                     hint="check the quotes on that line (a quote opened and never closed?)")
+
+
+def _refuse_decimal_commas(header: list[str], record: list[str], line: int, fmt: str, shown: str) -> None:
+    """A semicolon-separated file with decimal commas, read as CSV, splits at every decimal comma."""
+    if fmt != "csv" or len(header) != 1 or ";" not in header[0]:
+        return
+    sample = ",".join(record)
+    raise DataError(f"the file seems to separate fields with semicolons and to write decimals with commas "
+                    f"(line {line}: '{sample[:60]}'), but the plan reads it as CSV (fields separated by commas)",
+                    where=shown, hint="save the file as CSV with commas between fields and points in numbers "
+                                      "(1.5, not 1,5)")
 
 
 _OTHER_DELIMITERS = {";": "semicolons", "\t": "tabs", ",": "commas", "|": "bars"}
@@ -297,16 +363,15 @@ def _convert(values: np.ndarray, keep: np.ndarray, name: str, spec: Column, show
         if bad.any():
             raise refuse(bad, "are not finite numbers", "fix the values, declare the missing-value "
                          "markers (missing_values), or declare the column as text")
+        whole = None
         if kind == "integer":
-            bad = (numbers != np.round(numbers)) & keep
-            if bad.any():
-                raise refuse(bad, "are not whole numbers", "declare the column as number")
+            whole = _whole_numbers(text, numbers, keep, refuse)
         for bound, outside in (("min", numbers < (spec.min if spec.min is not None else -np.inf)),
                                ("max", numbers > (spec.max if spec.max is not None else np.inf))):
             if (outside & keep).any():
                 raise refuse(outside & keep, f"are outside the declared {bound} "
                              f"{getattr(spec, bound):g}", "check the file, or the declared range")
-        return numbers.astype(np.int64) if kind == "integer" else numbers
+        return whole if whole is not None else numbers
     if kind == "boolean":
         lowered = np.array([str(v).lower() for v in values], dtype=object)
         truth = np.isin(lowered, list(TRUE_WORDS))
@@ -319,9 +384,12 @@ def _convert(values: np.ndarray, keep: np.ndarray, name: str, spec: Column, show
 
         text = np.where(keep, values, "1970-01-01")
         dates = pd.to_datetime(pd.Series(text), format="%Y-%m-%d", errors="coerce")
-        bad = dates.isna().to_numpy() & keep
+        # the same strict form as a date in a keep filter: four, two and two digits
+        padded = np.array([_ISO_DATE.fullmatch(str(v)) is not None for v in text], dtype=bool)
+        bad = (dates.isna().to_numpy() | ~padded) & keep
         if bad.any():
-            raise refuse(bad, "are not dates of the form YYYY-MM-DD", "write dates as 2026-11-30")
+            raise refuse(bad, "are not dates of the form YYYY-MM-DD", "write dates with four, two and two "
+                         "digits, e.g. 2026-01-05")
         return dates.to_numpy().astype("datetime64[D]")
     # category and text
     if spec.levels is not None:
@@ -330,3 +398,39 @@ def _convert(values: np.ndarray, keep: np.ndarray, name: str, spec: Column, show
             raise refuse(bad, "are not among the declared levels " + ", ".join(spec.levels),
                          "add the level to the plan, or fix the file")
     return values
+
+
+def _exact_integer(text: str) -> int | None:
+    """The whole number a text writes ('12', '-3', '1.0', '1e3'), exactly; None if it writes none."""
+    try:
+        number = Decimal(text)
+    except InvalidOperation:
+        return None
+    if not number.is_finite() or number != number.to_integral_value():
+        return None
+    return int(number)
+
+
+def _whole_numbers(text: np.ndarray, numbers: np.ndarray, keep: np.ndarray, refuse) -> np.ndarray:
+    """An integer column as exact 64-bit integers.
+
+    The values parse as doubles first (fast); a double is exact up to 2**53, so only the values
+    beyond it are parsed again exactly from their text. A value beyond the 64-bit range is refused,
+    never wrapped or rounded.
+    """
+    bad = (numbers != np.round(numbers)) & keep
+    if bad.any():
+        raise refuse(bad, "are not whole numbers", "declare the column as number")
+    large = (np.abs(numbers) >= FLOAT_EXACT) & keep
+    exact = {int(i): _exact_integer(str(text[i])) for i in np.flatnonzero(large)}
+    bad = np.zeros(numbers.size, dtype=bool)
+    for i, value in exact.items():
+        bad[i] = value is None or not -INT64_MAX - 1 <= value <= INT64_MAX
+    if bad.any():
+        raise refuse(bad, f"are outside the range of a 64-bit integer (±{INT64_MAX:,}) or not whole",
+                     "declare the column as text if it holds identifiers, or as number if it holds "
+                     "measurements (stored as doubles, about 16 significant digits)")
+    whole = np.where(large, 0.0, numbers).astype(np.int64)
+    for i, value in exact.items():
+        whole[i] = value
+    return whole
