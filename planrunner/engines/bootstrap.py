@@ -77,7 +77,9 @@ __all__ = [
     "quantile_rank",
 ]
 
-TIE_TOLERANCE = 1e-10  # relative; values this close to θ̂ count as ties (rounding, not data)
+# relative; values this close to θ̂ count as ties (rounding, not data): about 1000 units in the last
+# place, so a large common offset (1e7 + readings of 0.001) does not make every replicate a tie
+TIE_TOLERANCE = 2.0 ** -43
 # The tail-count rule: an endpoint with fewer than TAIL_MINIMUM replicates beyond it is mostly
 # noise (common practice; with α/2 = 0.025 it asks B ≥ 400, below the B ≥ 1000 that Efron &
 # Tibshirani advise for percentile intervals, from memory).
@@ -90,7 +92,7 @@ CONVENTIONS = {
     "quantile": "inverse empirical CDF (numpy method 'inverted_cdf'): smallest replicate whose "
                 "empirical CDF reaches the level; level*B within 1e-9 of an integer is snapped to it",
     "bca_z0": "mid-rank: inverse normal of (#{theta* < theta_hat} + #{theta* <= theta_hat}) / (2B), "
-              "ties to relative tolerance 1e-10",
+              "ties to relative tolerance 2^-43 (about 1.1e-13)",
     "bca_acceleration": "delete-one jackknife (delete-one cluster with clusters), E&T eq. 14.15 for one "
                         "sample; for several independently resampled samples (groups or group x stratum "
                         "cells) E&T eq. 15.36 as in scipy.stats.bootstrap",

@@ -11,7 +11,7 @@ spread over workers (:mod:`~planrunner.engines.blocks`). Everything else is here
 
 1. :class:`PermutationOptions` checks the options (each with its own message) when it is made;
 2. :func:`choose_computation` picks enumeration, dynamic programming or Monte Carlo by one rule;
-3. :func:`tie_tolerance` is the one tolerance rule, ``1e-10 · max(|t|, scale)``, each engine naming
+3. :func:`tie_tolerance` is the one tolerance rule, ``2**-43 · max(|t|, scale)``, each engine naming
    its scale;
 4. :func:`check_null` refuses a null with values the statistic cannot take, and
    :func:`permutation_result` turns the null into p-values (:mod:`~planrunner.engines.pvalues`)
@@ -21,6 +21,8 @@ spread over workers (:mod:`~planrunner.engines.blocks`). Everything else is here
 from __future__ import annotations
 
 import math
+from decimal import Decimal
+from fractions import Fraction
 from collections.abc import Mapping
 from dataclasses import dataclass, field
 from typing import Any
@@ -41,7 +43,11 @@ ALTERNATIVES = ("greater", "less", "two-sided")
 EXACT_CHOICES = ("auto", "always", "never")
 INTERVAL_CHOICES = ("shift",)
 ENUMERATION_LIMIT = 5_000_000  # most arrangements listed one by one (exact: always)
-TIE_TOLERANCE = 1e-10  # relative; values this close to t count as ties (rounding, not data)
+# Relative; values this close to t count as ties. 2**-43 ≈ 1.1e-13 is about 1000 units in the last
+# place of the largest magnitude involved: above the rounding of sums of many thousands of values, yet
+# far below the differences data make, even on a common offset 10**9 times their resolution (a
+# tolerance of 1e-10 · max|x| counted every arrangement as a tie for readings such as 1e7 + 0.0031).
+TIE_TOLERANCE = 2.0 ** -43
 ENUMERATION = "enumeration"
 DYNAMIC_PROGRAMMING = "dynamic programming"
 MONTE_CARLO = "Monte Carlo"
@@ -157,7 +163,8 @@ class ComputedNull:
     values: np.ndarray
     computation: str  # ENUMERATION | DYNAMIC_PROGRAMMING | MONTE_CARLO
     arrangements: int
-    weights: np.ndarray | None = None
+    weights: np.ndarray | None = None  # times 2**weight_exponent arrangements (see exactdist)
+    weight_exponent: int = 0
 
     @property
     def exact(self) -> bool:
@@ -183,12 +190,30 @@ def permutation_result(null: ComputedNull, observed: float, options: Permutation
                    two_sided=options.two_sided, tolerance=tolerance, center=centre, weights=null.weights,
                    alpha=options.alpha, arrangements=null.arrangements)
     resamples = int(null.values.shape[0]) if null.weights is None else null.arrangements
+    if null.exact and min(pv.count_greater, pv.count_less) <= 0:
+        # the observed arrangement is one of the arrangements, so both counts hold at least its own
+        raise EngineError(f"the observed value {observed!r} lies outside its own exact null distribution "
+                          "(its weight is below what the computation can hold, or rounding separated it)",
+                          hint="use exact: never (Monte Carlo), whose p-value cannot be 0")
+    scale = null.weight_exponent
     return PermutationResult(
         observed=observed, p_value=pv.p_value, alternative=options.alternative, two_sided_rule=options.two_sided,
-        exact=null.exact, arrangements=null.arrangements, resamples=resamples, count_greater=pv.count_greater,
-        count_less=pv.count_less, null=frozen_array(null.values), tolerance=tolerance, n=about.n,
+        exact=null.exact, arrangements=null.arrangements, resamples=resamples,
+        count_greater=_unscaled(pv.count_greater, scale), count_less=_unscaled(pv.count_less, scale),
+        null=frozen_array(null.values), tolerance=tolerance, n=about.n,
         scheme=about.scheme, warnings=pv.warnings + tuple(warnings), conventions=dict(about.conventions),
-        p_greater=pv.p_greater, p_less=pv.p_less, count_absolute=pv.count_absolute, centre=centre,
+        p_greater=pv.p_greater, p_less=pv.p_less, count_absolute=_unscaled(pv.count_absolute, scale), centre=centre,
         monte_carlo_se=pv.monte_carlo_se, p_interval=pv.p_interval, smallest_p=pv.smallest_p,
         null_weights=None if null.weights is None else frozen_array(null.weights),
         computation=null.computation, design=dict(about.design))
+
+
+def _unscaled(count: float, exponent: int) -> float | str:
+    """A DP count held as ``count · 2**exponent``: a float while one holds it, else the same number
+    as decimal text in scientific notation (17 significant digits, as precise as the float count)."""
+    if exponent == 0:
+        return count
+    try:
+        return math.ldexp(count, exponent)
+    except OverflowError:
+        return format(Decimal(int(Fraction(count) * 2 ** exponent)), ".16e")

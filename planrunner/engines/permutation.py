@@ -36,7 +36,7 @@ arrangements as the argsort, summed in another order. The plain computation is k
 
 p-values: see :mod:`planrunner.engines.pvalues` (exact count / arrangements; Monte Carlo
 (b + 1)/(m + 1); two-sided ``doubled`` or ``absolute``). Comparisons allow
-``tolerance = 1e-10 · max(|t|, scale)`` (scale = the largest absolute data value) so that values
+``tolerance = 2**-43 · max(|t|, scale)`` (scale = the largest absolute data value) so that values
 equal in exact arithmetic count as equal.
 """
 from __future__ import annotations
@@ -161,7 +161,7 @@ def permutation_test(samples: Sequence[np.ndarray], statistic: Statistic, option
             "p_value": "exact: count / arrangements (observed arrangement included); "
                        "Monte Carlo: (count + 1) / (resamples + 1)",
             "two_sided": TWO_SIDED_TEXT[options.two_sided],
-            "ties": "T* >= t - tolerance counts as greater or equal; tolerance = 1e-10 max(|t|, max|x|)",
+            "ties": "T* >= t - tolerance counts as greater or equal; tolerance = 2^-43 max(|t|, max|x|)",
             "draws": "one uniform row of keys per resample; argsort(keys + 2 * stratum) within strata",
         })
     return permutation_result(null, observed, options, tolerance=tolerance, about=about,
@@ -195,8 +195,8 @@ def _null(pooled: _Pooled, statistic: Statistic, options: PermutationOptions, st
     path, arrangements, dp_plan = _choose(pooled, statistic, options, fast)
     if path == DYNAMIC_PROGRAMMING:
         assert dp_plan is not None
-        values, weights = _dp_null(pooled, statistic, dp_plan)
-        return ComputedNull(values, path, arrangements, weights)
+        values, weights, exponent = _dp_null(pooled, statistic, dp_plan)
+        return ComputedNull(values, path, arrangements, weights, exponent)
     if path == ENUMERATION:
         values = _evaluate(pooled, statistic, _enumerate(pooled, rows_per_batch), arrangements, fast=fast)
         return ComputedNull(values, path, arrangements)
@@ -254,9 +254,10 @@ def _dp_plan(pooled: _Pooled, statistic: Statistic) -> _DpPlan | None:
     return _DpPlan(strata, scale, scores, work)
 
 
-def _dp_null(pooled: _Pooled, statistic: Statistic, plan: _DpPlan) -> tuple[np.ndarray, np.ndarray]:
-    """Support of the exact null (statistic values) and the number of arrangements at each."""
-    offset, counts = sum_distribution(plan.strata)
+def _dp_null(pooled: _Pooled, statistic: Statistic, plan: _DpPlan) -> tuple[np.ndarray, np.ndarray, int]:
+    """Support of the exact null (statistic values) and the number of arrangements at each (times
+    2**exponent)."""
+    offset, counts, exponent = sum_distribution(plan.strata)
     keep = counts > 0
     sums = (offset + np.flatnonzero(keep)) / plan.scale  # S1 in score units
     x = pooled.values
@@ -277,7 +278,7 @@ def _dp_null(pooled: _Pooled, statistic: Statistic, plan: _DpPlan) -> tuple[np.n
                 values = diff / np.sqrt(np.maximum(within, 0.0) / (n1 + n2 - 2) * (1.0 / n1 + 1.0 / n2))
         else:
             values = diff
-    return values, counts[keep]
+    return values, counts[keep], exponent
 
 
 def _evaluate(pooled: _Pooled, statistic: Statistic, batches: Iterator[tuple[np.ndarray, ...]],
