@@ -16,7 +16,7 @@ from typing import Any
 import numpy as np
 
 from planrunner.data.tables import FLOAT_EXACT, SHOW_LINES, Table, group_value
-from planrunner.engines.statistics import STATISTICS
+from planrunner.engines.statistics import MAGNITUDE_LIMIT, STATISTICS
 from planrunner.errors import DataError
 from planrunner.plan.schema import Plan
 
@@ -94,6 +94,7 @@ def check_analysis(analysis: Any, table: Table, declared: list[str] | None = Non
     for name in (analysis.outcome, analysis.predictor, *(getattr(analysis, "covariates", None) or ())):
         if name is not None:
             refuse_inexact_integers(table, name, used, who)
+            _refuse_overflowing(table, name, used, who)
     binary = statistic is not None and statistic.outcome == "binary"
     for role, name in (("outcome", analysis.outcome), ("predictor", analysis.predictor)):
         # a 0/1 outcome that is all 0 is a finding (no events), not a broken extract
@@ -212,3 +213,19 @@ def refuse_inexact_integers(table: Table, name: str, used: np.ndarray, who: str)
                         "computations use doubles, which cannot hold every whole number that large",
                         where=table.file, hint="subtract a common offset in the extract, or declare the "
                                                "column as number to accept rounding to about 16 digits")
+
+
+def _refuse_overflowing(table: Table, name: str, used: np.ndarray, who: str) -> None:
+    """Values so large that their squares overflow would give infinite variances and t statistics of
+    0 (p = 1, a false 'degenerate' warning): refuse them with their lines."""
+    values = table.columns[name]
+    if values.dtype.kind not in "fiu":
+        return
+    huge = used & (np.abs(values.astype(float)) > MAGNITUDE_LIMIT)
+    if huge.any():
+        first = float(values[np.flatnonzero(huge)[0]])
+        raise DataError(f"{who}: column '{name}' holds {int(huge.sum())} value(s) beyond ±{MAGNITUDE_LIMIT:g} "
+                        f"(e.g. {first:g} on line(s) {_lines(table.lines[huge])}); their squares pass the largest "
+                        "double (1.8e308), so variances, standard errors and t statistics would be infinite or 0",
+                        where=table.file, hint="check the value (a unit or decimal-point error?), or express the "
+                                               "column in larger units")

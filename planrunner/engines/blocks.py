@@ -42,7 +42,10 @@ class bind:
         object.__setattr__(self, "args", args)
 
     def __call__(self, start: int, stop: int) -> np.ndarray:
-        return self.function(*self.args, start, stop)
+        # non-finite values are found and reported by the engines; numpy's own warnings about them
+        # would reach stderr from whichever thread or process runs the range
+        with np.errstate(all="ignore"):
+            return self.function(*self.args, start, stop)
 
 
 def map_resamples(task: RangeTask, total: int) -> np.ndarray:

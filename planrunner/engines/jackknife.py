@@ -93,6 +93,8 @@ def jackknife(samples: Sequence[np.ndarray], statistic: Statistic, options: Jack
             f"fewer than {SMALL_SAMPLE} observations in {', '.join(small)}: "
             "the jackknife standard error and bias are rough"))
 
+    warnings += _degenerate_spread(data, statistic, sum_sq)
+
     scheme = "delete-one observation" if len(data) == 1 else "delete-one observation within each group"
     if clusters is not None:
         scheme = "delete-one cluster" if len(data) == 1 else "delete-one cluster within each group"
@@ -248,3 +250,26 @@ def _generic(data: tuple[np.ndarray, ...], statistic: Statistic, batch_elements:
             out[start:start + deleted.size] = statistic.compute(*args)
         reps.append(out)
     return reps
+
+
+def _degenerate_spread(data: Sequence[np.ndarray], statistic: Statistic, sum_sq: float) -> list[EngineWarning]:
+    """A standard error of 0, or one from a 0/1 outcome with an empty cell, does not describe the
+    statistic's uncertainty: say so beside the number instead of printing it plainly."""
+    out = []
+    if statistic.outcome == "binary":
+        for g, values in enumerate(data):
+            events = int(np.sum(values))
+            if events in (0, values.shape[0]):
+                what = "no events (every value 0)" if events == 0 else "no non-events (every value 1)"
+                out.append(EngineWarning(
+                    "zero-cell",
+                    f"group {g + 1} has {what}: the {statistic.label} stays at its boundary in every "
+                    "delete-one value that keeps the cell empty, so the jackknife standard error understates "
+                    "its uncertainty (it is 0 when every deletion gives the same value); report the counts, "
+                    "or use an exact permutation test"))
+    if sum_sq == 0.0:
+        out.append(EngineWarning(
+            "zero-standard-error",
+            "every delete-one value equals the estimate, so the jackknife standard error is 0: the data "
+            "cannot show this statistic's variability, which does not make it certain"))
+    return out

@@ -329,6 +329,10 @@ def comparison_word(name: str) -> str:
 # Sample checks shared by the engines: what only the data can reveal.
 
 
+# the largest magnitude whose squares, summed over a billion values, stay finite: sqrt(1.8e308 / 1e9)
+MAGNITUDE_LIMIT = 1e149
+
+
 def check_samples(samples: Sequence[np.ndarray], statistic: Statistic, *, minimum: int = 1,
                   method: str = "this method") -> tuple[np.ndarray, ...]:
     """Validate the groups and return them as float64 arrays, observation axis first.
@@ -362,6 +366,14 @@ def check_samples(samples: Sequence[np.ndarray], statistic: Statistic, *, minimu
                 f"group {g + 1} has {int(bad.sum())} observation(s) with a non-finite value "
                 f"(first: observation {first + 1})",
                 hint="declare missing values in the plan (missing: drop) or fix the data")
+        largest = float(np.max(np.abs(a))) if a.size else 0.0
+        if largest > MAGNITUDE_LIMIT:
+            raise EngineError(
+                f"group {g + 1} holds a value of magnitude {largest:.3g} (observation "
+                f"{int(np.argmax(np.max(np.abs(a), axis=-1) if a.ndim == 2 else np.abs(a))) + 1}); sums of squares "
+                f"of such values pass the largest double (1.8e308), so variances, t statistics and standard errors "
+                "would be infinite or 0", hint="express the data in other units (e.g. divide by 1e150), or check "
+                "the value")
         if statistic.outcome == "binary" and not np.isin(a, (0.0, 1.0)).all():
             raise EngineError(
                 f"group {g + 1} has values other than 0 and 1; {statistic.name!r} needs a binary outcome",

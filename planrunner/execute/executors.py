@@ -15,6 +15,7 @@ import functools
 import math
 import multiprocessing
 import signal
+import warnings
 from collections.abc import Callable
 from dataclasses import dataclass
 from typing import Any
@@ -31,6 +32,12 @@ from planrunner.engines.statistics import STATISTICS, Statistic, bind, get_stati
 from planrunner.engines.streams import DRAW_BLOCK
 from planrunner.errors import EngineError, PlanrunnerError
 from planrunner.execute.permutation import run_permutation
+
+# Non-finite intermediates are checked and reported by the engines (a message, or a warning in the
+# result). numpy's own RuntimeWarnings about them (e.g. "Degrees of freedom <= 0" from a variance of
+# one value) would reach stderr, from this process and from worker processes alike (each imports this
+# module for its initializer); the floating-point ones are silenced by np.errstate around each engine.
+warnings.filterwarnings("ignore", category=RuntimeWarning, module=r"numpy\.")
 
 EXECUTORS = ("serial", "threads", "processes", "dask")
 EngineResult = BootstrapResult | JackknifeResult | PermutationResult
@@ -98,7 +105,10 @@ def execute(job: Job) -> EngineResult:
     """The engine result for one job (a frozen dataclass of numbers). An engine knows only arrays,
     so its errors are given the analysis id here, where the reader can find it in the plan."""
     try:
-        return _run_engine(job)
+        # every non-finite intermediate is checked and reported by the engines as a message (or a
+        # warning in the result); numpy's RuntimeWarnings about them would only reach stderr
+        with np.errstate(all="ignore"):
+            return _run_engine(job)
     except EngineError as exc:
         raise EngineError(f"{exc.message}", where=f"analysis '{job.analysis_id}'", hint=exc.hint) from None
 
