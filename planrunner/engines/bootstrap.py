@@ -77,7 +77,7 @@ __all__ = [
     "quantile_rank",
 ]
 
-# relative; values this close to θ̂ count as ties (rounding, not data): about 1000 units in the last
+# relative; values this close to θ̂ count as ties (rounding, not data): 512 units in the last
 # place, so a large common offset (1e7 + readings of 0.001) does not make every replicate a tie
 TIE_TOLERANCE = 2.0 ** -43
 # The tail-count rule: an endpoint with fewer than TAIL_MINIMUM replicates beyond it is mostly

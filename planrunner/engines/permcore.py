@@ -21,10 +21,10 @@ spread over workers (:mod:`~planrunner.engines.blocks`). Everything else is here
 from __future__ import annotations
 
 import math
-from decimal import Decimal
-from fractions import Fraction
 from collections.abc import Mapping
 from dataclasses import dataclass, field
+from decimal import Decimal
+from fractions import Fraction
 from typing import Any
 
 import numpy as np
@@ -43,10 +43,11 @@ ALTERNATIVES = ("greater", "less", "two-sided")
 EXACT_CHOICES = ("auto", "always", "never")
 INTERVAL_CHOICES = ("shift",)
 ENUMERATION_LIMIT = 5_000_000  # most arrangements listed one by one (exact: always)
-# Relative; values this close to t count as ties. 2**-43 ≈ 1.1e-13 is about 1000 units in the last
-# place of the largest magnitude involved: above the rounding of sums of many thousands of values, yet
-# far below the differences data make, even on a common offset 10**9 times their resolution (a
-# tolerance of 1e-10 · max|x| counted every arrangement as a tie for readings such as 1e7 + 0.0031).
+# Relative; values this close to t count as ties. 2**-43 ≈ 1.1e-13 is 512 units in the last place of
+# the largest magnitude involved: above the rounding of sums of many thousands of values, yet below
+# the differences data make on a common offset up to about 10**7 times their resolution (a tolerance
+# of 1e-10 · max|x| counted every arrangement as a tie for readings such as 1e7 + 0.0031; at 10**9 the
+# doubles themselves hold such readings only to 1.2e-7, and nearby null values count as ties).
 TIE_TOLERANCE = 2.0 ** -43
 ENUMERATION = "enumeration"
 DYNAMIC_PROGRAMMING = "dynamic programming"
