@@ -23,8 +23,6 @@ from __future__ import annotations
 import math
 from collections.abc import Mapping
 from dataclasses import dataclass, field
-from decimal import Decimal
-from fractions import Fraction
 from typing import Any
 
 import numpy as np
@@ -211,10 +209,12 @@ def permutation_result(null: ComputedNull, observed: float, options: Permutation
 
 def _unscaled(count: float, exponent: int) -> float | str:
     """A DP count held as ``count · 2**exponent``: a float while one holds it, else the same number
-    as decimal text in scientific notation (17 significant digits, as precise as the float count)."""
+    as decimal text in scientific notation (13 significant digits, from its logarithm)."""
     if exponent == 0:
         return count
     try:
         return math.ldexp(count, exponent)
     except OverflowError:
-        return format(Decimal(int(Fraction(count) * 2 ** exponent)), ".16e")
+        power = math.log10(count) + exponent * math.log10(2.0)
+        whole = math.floor(power)
+        return f"{10.0 ** (power - whole):.12f}e+{whole}"

@@ -21,7 +21,7 @@ from planrunner.record.fields import MethodFields
 
 def _count(x: Any) -> Any:
     """A count as an int when it is one exactly (DP counts are floats, exact below 2**53; beyond
-    1.8e308 the engine gives them as decimal text, e.g. '1.6608429393762932e+599')."""
+    1.8e308 the engine gives them as decimal text, e.g. '1.660842939376e+1202')."""
     if isinstance(x, str):
         return x
     if isinstance(x, float) and x.is_integer() and abs(x) < 2.0**53:
