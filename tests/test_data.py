@@ -203,7 +203,7 @@ def test_cluster_ids_beyond_2_53_stay_distinct(write_plan):
     ids = [2**60 + i for i in range(12)]  # 12 clusters whose doubles would merge into fewer
     assert len({float(i) for i in ids}) < 12
     lines = ["g,y,c"] + [f"{'a' if i < 6 else 'b'},{1.0 + i % 5},{ids[i]}" for i in range(12) for _ in range(2)]
-    plan_text = f"""
+    plan_text = """
     plan: clusters
     title: Cluster ids
     seed: 3
@@ -211,14 +211,14 @@ def test_cluster_ids_beyond_2_53_stay_distinct(write_plan):
       d:
         file: d.csv
         columns:
-          g: {{type: category}}
-          y: {{type: number}}
-          c: {{type: integer}}
+          g: {type: category}
+          y: {type: number}
+          c: {type: integer}
     analyses:
       - id: one
         data: d
         outcome: y
-        groups: {{by: g, compare: [a, b]}}
+        groups: {by: g, compare: [a, b]}
         clusters: c
         statistic: mean_difference
         method: bootstrap

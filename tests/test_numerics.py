@@ -236,3 +236,22 @@ def test_exhaustive_bca_on_tiny_degenerate_data_writes_its_reports(write_plan, t
     outcome = run_plan(plan, out=tmp_path / "runs", operator="tester")
     assert (outcome.folder / "report.html").is_file() and (outcome.folder / "report.md").is_file()
     assert outcome.record["analyses"][0]["intervals"][0]["method"] == "bca"
+
+
+def test_exact_signed_rank_beyond_1024_pairs_keeps_its_p_value():
+    from planrunner.engines.signflip import signflip_test
+    # once: the 2**n sign patterns overflowed float64 from n = 1024 (an infinite total, p NaN or 1)
+    rng = np.random.default_rng(5)
+    n = 1100
+    d = rng.normal(0.08, 1.0, n)  # invented differences, continuous: no ties
+    result = signflip_test(d, np.zeros(n), get_statistic("signed_rank"),
+                           PermutationOptions(resamples=999, alternative="greater", exact="always"),
+                           stream=stream_for(1, "pairs"))
+    assert result.computation == "dynamic programming"
+    ranks = stats.rankdata(np.abs(d))
+    w = float(ranks[d > 0].sum())
+    mean, var = n * (n + 1) / 4, n * (n + 1) * (2 * n + 1) / 24
+    normal = stats.norm.sf((w - 0.5 - mean) / math.sqrt(var))  # normal approximation with continuity
+    # correction (common practice; at n = 1100 it is within about 1e-3 of the exact p)
+    assert result.p_value == pytest.approx(normal, abs=2e-3)
+    assert 0 < result.p_value < 1

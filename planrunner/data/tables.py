@@ -432,5 +432,5 @@ def _whole_numbers(text: np.ndarray, numbers: np.ndarray, keep: np.ndarray, refu
                      "measurements (stored as doubles, about 16 significant digits)")
     whole = np.where(large, 0.0, numbers).astype(np.int64)
     for i, value in exact.items():
-        whole[i] = value
+        whole[i] = int(value or 0)  # every value is a checked 64-bit integer by now
     return whole

@@ -124,8 +124,9 @@ class PermutationResult:
     exact: bool
     arrangements: int
     resamples: int
-    count_greater: float  # a whole number of arrangements or draws (a float sum of DP weights)
-    count_less: float
+    # a whole number of arrangements or draws (a float sum of DP weights; decimal text beyond 1.8e308)
+    count_greater: float | str
+    count_less: float | str
     null: np.ndarray
     tolerance: float
     n: tuple[int, ...]
@@ -135,7 +136,7 @@ class PermutationResult:
     # added for the complete permutation tests; defaults keep older constructions valid
     p_greater: float | None = None
     p_less: float | None = None
-    count_absolute: float | None = None  # |T* − centre| ≥ |t − centre| − tolerance
+    count_absolute: float | str | None = None  # |T* − centre| ≥ |t − centre| − tolerance
     centre: float = 0.0
     monte_carlo_se: float | None = None  # pvalues.monte_carlo_sd; None when exact
     p_interval: tuple[float, float] | None = None  # Clopper–Pearson for the full-enumeration p

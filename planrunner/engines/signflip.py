@@ -27,7 +27,7 @@ import numpy as np
 
 from planrunner.engines.blocks import bind as range_task
 from planrunner.engines.blocks import map_resamples
-from planrunner.engines.exactdist import integer_scores
+from planrunner.engines.exactdist import RESCALE, integer_scores
 from planrunner.engines.lazy import rankdata
 from planrunner.engines.permcore import (
     DYNAMIC_PROGRAMMING,
@@ -198,8 +198,8 @@ def _null(pairs: _Pairs, statistic: Statistic, options: PermutationOptions, stre
     n = pairs.d.size
     if path == DYNAMIC_PROGRAMMING:
         assert integer is not None
-        values, weights = _subset_sum_null(pairs, statistic, *integer)
-        return ComputedNull(values, path, arrangements, weights)
+        values, weights, exponent = _subset_sum_null(pairs, statistic, *integer)
+        return ComputedNull(values, path, arrangements, weights, exponent)
     if path == ENUMERATION:
         return ComputedNull(_listed_range(pairs, statistic, rows_per_batch, fast, 0, arrangements), path,
                             arrangements)
@@ -211,10 +211,16 @@ def _null(pairs: _Pairs, statistic: Statistic, options: PermutationOptions, stre
 
 
 def _subset_sum_null(pairs: _Pairs, statistic: Statistic, ints: np.ndarray,
-                     scale: float) -> tuple[np.ndarray, np.ndarray]:
-    """Support and counts of the exact null: each pair adds its score (positive sign) or not."""
+                     scale: float) -> tuple[np.ndarray, np.ndarray, int]:
+    """Support and counts (times 2**exponent) of the exact null: each pair adds its score (positive
+    sign) or not. The counts sum to 2**n, past the double range from n = 1024: they are rescaled by
+    2**-RESCALE as in ``exactdist``, so the p-values keep their precision."""
     counts = np.ones(1)
-    for a in ints:
+    exponent = 0
+    for i, a in enumerate(ints):
+        if i % 64 == 63 and counts.max() > 2.0 ** RESCALE:  # counts at most double per pair
+            counts *= 2.0 ** -RESCALE
+            exponent += RESCALE
         grown = np.zeros(counts.size + int(a))
         grown[:counts.size] += counts
         grown[int(a):] += counts
@@ -223,7 +229,7 @@ def _subset_sum_null(pairs: _Pairs, statistic: Statistic, ints: np.ndarray,
     positive = np.flatnonzero(keep) / scale
     d = pairs.d
     values = positive if statistic.name == "signed_rank" else (2.0 * positive - np.abs(d).sum()) / d.size
-    return values, counts[keep]
+    return values, counts[keep], exponent
 
 
 def _listed_range(pairs: _Pairs, statistic: Statistic, rows_per_batch: int, fast: bool,

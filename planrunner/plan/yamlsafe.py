@@ -35,7 +35,9 @@ _PLAIN_TAGS = {
 
 # YAML 1.1 (which PyYAML follows) reads 017 as octal 15, 0x1F as 31, 0b11 as 3 and 1:30 as
 # base 60 (90); YAML 1.2 and every reader of a plan would not. A plan must not depend on that.
-_SURPRISING_NUMBER = re.compile(r"[-+]?(0[0-9_]+(\.[0-9_]*)?|0[xXoObB][0-9a-fA-F_]+|[0-9][0-9_]*(:[0-5]?[0-9])+(\.[0-9_]*)?)")
+_SURPRISING_NUMBER = re.compile(r"[-+]?(0[0-9_]+(\.[0-9_]*)?"  # leading zero (octal)
+                                r"|0[xXoObB][0-9a-fA-F_]+"  # base prefix
+                                r"|[0-9][0-9_]*(:[0-5]?[0-9])+(\.[0-9_]*)?)")  # base 60
 
 
 _OPENERS = (yaml.BlockMappingStartToken, yaml.BlockSequenceStartToken, yaml.FlowMappingStartToken,
