@@ -35,7 +35,7 @@ from planrunner.errors import EngineError
 
 __all__ = ["ALTERNATIVES", "ENUMERATION_LIMIT", "EXACT_CHOICES", "INTERVAL_CHOICES", "TIE_TOLERANCE",
            "ComputedNull", "PermutationOptions", "check_null", "choose_computation", "observed_value",
-           "permutation_result", "tie_tolerance"]
+           "permutation_result", "tie_tolerance", "unscaled"]
 
 ALTERNATIVES = ("greater", "less", "two-sided")
 EXACT_CHOICES = ("auto", "always", "never")
@@ -198,16 +198,16 @@ def permutation_result(null: ComputedNull, observed: float, options: Permutation
     return PermutationResult(
         observed=observed, p_value=pv.p_value, alternative=options.alternative, two_sided_rule=options.two_sided,
         exact=null.exact, arrangements=null.arrangements, resamples=resamples,
-        count_greater=_unscaled(pv.count_greater, scale), count_less=_unscaled(pv.count_less, scale),
+        count_greater=unscaled(pv.count_greater, scale), count_less=unscaled(pv.count_less, scale),
         null=frozen_array(null.values), tolerance=tolerance, n=about.n,
         scheme=about.scheme, warnings=pv.warnings + tuple(warnings), conventions=dict(about.conventions),
-        p_greater=pv.p_greater, p_less=pv.p_less, count_absolute=_unscaled(pv.count_absolute, scale), centre=centre,
+        p_greater=pv.p_greater, p_less=pv.p_less, count_absolute=unscaled(pv.count_absolute, scale), centre=centre,
         monte_carlo_se=pv.monte_carlo_se, p_interval=pv.p_interval, smallest_p=pv.smallest_p,
-        null_weights=None if null.weights is None else frozen_array(null.weights),
+        null_weights=None if null.weights is None else frozen_array(null.weights), null_weight_exponent=scale,
         computation=null.computation, design=dict(about.design))
 
 
-def _unscaled(count: float, exponent: int) -> float | str:
+def unscaled(count: float, exponent: int) -> float | str:
     """A DP count held as ``count · 2**exponent``: a float while one holds it, else the same number
     as decimal text in scientific notation (13 significant digits, from its logarithm)."""
     if exponent == 0:

@@ -142,6 +142,8 @@ class PermutationResult:
     p_interval: tuple[float, float] | None = None  # Clopper–Pearson for the full-enumeration p
     smallest_p: float | None = None  # the smallest p-value these arrangements can give
     null_weights: np.ndarray | None = None  # arrangements at each null value (exact DP); None: one each
+    # the DP weights above are held as weight · 2**null_weight_exponent (beyond the float range; exactdist)
+    null_weight_exponent: int = 0
     computation: str = "enumeration"  # enumeration | dynamic programming | Monte Carlo
     intervals: tuple[Interval, ...] = ()
     shift_estimate: float | None = None

@@ -19,6 +19,9 @@ def readable_count(value: int | str) -> str:
     Exact for any size: a count of arrangements can exceed what a float holds (and JSON may carry it
     as a string of digits), so the mantissa is rounded from the integer itself.
     """
+    if isinstance(value, str) and "e" in value:  # a count beyond any float, written as decimal text
+        mantissa_text, exponent_text = value.split("e")
+        return f"{float(mantissa_text):.2f} × 10^{int(exponent_text)}"
     number = int(value)
     if abs(number) < 10**15:
         return f"{number:,}"

@@ -14,6 +14,7 @@ from typing import Any
 
 import numpy as np
 
+from planrunner.engines.permcore import unscaled
 from planrunner.engines.results import PermutationResult
 from planrunner.record.canonical import plain_number as _f
 from planrunner.record.fields import MethodFields
@@ -29,8 +30,28 @@ def _count(x: Any) -> Any:
     return _f(x)
 
 
-def weighted_distribution(kind: str, values: np.ndarray, weights: np.ndarray | None, bins: int) -> dict[str, Any]:
-    """Size, moments, range, histogram and hash of a null given by values (and exact weights)."""
+# Python refuses to write an int of more digits than this as text (sys.get_int_max_str_digits)
+INT_DIGITS_WRITTEN = 4000
+
+
+def arrangements_count(count: int) -> int | str:
+    """The number of arrangements as JSON can carry it: the exact int up to 4000 digits (e.g. C(N, n)),
+    beyond that (n! at n ≈ 1450 and up, a pairing count) decimal text with 13 significant digits."""
+    if count < 10**INT_DIGITS_WRITTEN:
+        return int(count)
+    power = math.log10(count)
+    whole = math.floor(power)
+    return f"{10.0 ** (power - whole):.12f}e+{whole}"
+
+
+def weighted_distribution(kind: str, values: np.ndarray, weights: np.ndarray | None, bins: int,
+                          weight_exponent: int = 0) -> dict[str, Any]:
+    """Size, moments, range, histogram and hash of a null given by values (and exact weights).
+
+    ``weights`` held as ``w · 2**weight_exponent`` (a DP null beyond the float range): the size is
+    written as decimal text and the histogram as the share of arrangements per bar
+    (``histogram.counts_are = "probability"``), since the counts themselves exceed what a float holds.
+    """
     values = np.asarray(values, dtype=float)
     w = np.ones(values.size) if weights is None else np.asarray(weights, dtype=float)
     infinite = float(w[~np.isfinite(values)].sum())  # e.g. a ratio over an empty denominator
@@ -38,6 +59,8 @@ def weighted_distribution(kind: str, values: np.ndarray, weights: np.ndarray | N
     total = float(w.sum())
     mean = float(np.sum(w * values) / total)
     var = float(np.sum(w * (values - mean) ** 2) / total)
+    if weight_exponent:
+        return _rescaled_distribution(kind, values, w, weight_exponent, infinite, mean, var, bins)
     lo, hi = float(values.min()), float(values.max())
     if lo == hi:
         lo, hi = lo - 0.5, hi + 0.5
@@ -54,6 +77,25 @@ def weighted_distribution(kind: str, values: np.ndarray, weights: np.ndarray | N
                           "counts": [float(c) if weights is not None else int(c) for c in counts]}}
 
 
+def _rescaled_distribution(kind: str, values: np.ndarray, w: np.ndarray, exponent: int, infinite: float,
+                           mean: float, var: float, bins: int) -> dict[str, Any]:
+    """A weighted null whose weights are ``w · 2**exponent``: shares instead of counts (see above)."""
+    total = float(w.sum())
+    lo, hi = float(values.min()), float(values.max())
+    if lo == hi:
+        lo, hi = lo - 0.5, hi + 0.5
+    shares, edges = np.histogram(values, bins=bins, range=(lo, hi), weights=w / (total + infinite))
+    digest = hashlib.sha256(np.ascontiguousarray(values, dtype="<f8").tobytes())
+    digest.update(np.ascontiguousarray(w, dtype="<f8").tobytes())
+    digest.update(str(exponent).encode())
+    return {"kind": kind, "size": _count(unscaled(total + infinite, exponent)), "support_points": int(values.size),
+            "mean": mean, "sd": math.sqrt(var),  # the divisor total − 1 is total itself at this size
+            "min": float(values.min()), "max": float(values.max()), "sha256": digest.hexdigest(),
+            "weighted": True, "infinite": _count(unscaled(infinite, exponent)) if infinite else 0,
+            "histogram": {"edges": [float(e) for e in edges], "counts": [float(c) for c in shares],
+                          "counts_are": "probability"}}
+
+
 def permutation_fields(result: PermutationResult, bins: int) -> MethodFields:
     """The analysis-entry fields of a permutation-type test (labels shuffled, signs flipped, clusters
     shuffled, association), with the shift interval when the test was inverted for one."""
@@ -63,7 +105,7 @@ def permutation_fields(result: PermutationResult, bins: int) -> MethodFields:
         "observed": _f(result.observed), "count_greater_equal": _count(result.count_greater),
         "count_less_equal": _count(result.count_less), "count_absolute": _count(result.count_absolute),
         "p_greater": _f(result.p_greater), "p_less": _f(result.p_less), "centre": _f(result.centre),
-        "arrangements": int(result.arrangements), "computation": result.computation,
+        "arrangements": arrangements_count(int(result.arrangements)), "computation": result.computation,
         "two_sided_rule": result.two_sided_rule, "tolerance": _f(result.tolerance),
         "smallest_p": _f(result.smallest_p),
         "p_value_rule": "count / arrangements (exact)" if exact
@@ -82,7 +124,8 @@ def permutation_fields(result: PermutationResult, bins: int) -> MethodFields:
                      "p_value_interval": None if interval is None else
                      {"method": "Clopper–Pearson", "level": 0.99, "lower": interval[0], "upper": interval[1]}},
         details=details,
-        distribution=weighted_distribution("permutation null", result.null, result.null_weights, bins),
+        distribution=weighted_distribution("permutation null", result.null, result.null_weights, bins,
+                                           result.null_weight_exponent),
         smallest_p=_f(result.smallest_p),
     )
 

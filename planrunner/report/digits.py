@@ -166,6 +166,8 @@ def count(value: Any) -> str:
     exact dynamic-programming null can count more arrangements than any integer type holds)."""
     if isinstance(value, str) and value.lstrip("-").isdigit():
         value = int(value)  # an exact count kept as a string of digits
+    if isinstance(value, str) and "e+" in value:
+        return readable_count(value)  # a count beyond any float, kept as decimal text
     if isinstance(value, int) and not isinstance(value, bool):
         return readable_count(value)  # exact at any size (no float overflow past 1e308)
     if not _real(value):

@@ -204,7 +204,8 @@ def null_plot(entry: dict[str, Any], fmt: Formatter, fmt_p: Formatter) -> Plot |
         _limits(ax, hist, observed)
         ax.set_ylim(0, top * 1.08 or 1)
         ax.set_xlabel(axis_label(entry))
-        ax.set_ylabel("arrangements per bar" if entry.get("exact") else "permutations per bar")
+        ax.set_ylabel("share of arrangements per bar" if hist.get("counts_are") == "probability"
+                      else "arrangements per bar" if entry.get("exact") else "permutations per bar")
         _legend(ax)
     size = (entry.get("distribution") or {}).get("size")
     count_key = {"greater": "count_greater_equal", "less": "count_less_equal"}.get(side or "")
