@@ -109,3 +109,13 @@ class SigningError(PlanrunnerError):
     A signature that does not hold is not an error but a finding: `verify` and `history` report it
     and exit with 3.
     """
+
+
+class Terminated(KeyboardInterrupt):
+    """The process was asked to stop (SIGTERM, SIGHUP). Raised like Ctrl-C's KeyboardInterrupt, so
+    that every cleanup an interrupt runs (stopping workers, removing a staging folder) runs too."""
+
+    def __init__(self, signal_number: int, name: str):
+        super().__init__(name)
+        self.signal_number = signal_number
+        self.name = name

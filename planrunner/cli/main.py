@@ -33,6 +33,7 @@ from planrunner.errors import (
     PlanrunnerError,
     RecordError,
     SigningError,
+    Terminated,
 )
 from planrunner.report import digits, labels
 from planrunner.report.render import number
@@ -101,18 +102,18 @@ def main(argv: Sequence[str] | None = None) -> int:
         args = build_parser().parse_args(args_list)
     except SystemExit as exc:
         return int(exc.code or 0)
+    from planrunner.execute.executors import stopping_on_termination
     try:
-        if args.verb == "check":
-            return _check(args)
-        if args.verb == "run":
-            return _run(args, args_list)
-        if args.verb in AUDIT_VERBS:
-            return AUDIT_VERBS[args.verb](args)
-        if args.verb in SIGNING_VERBS:
-            return SIGNING_VERBS[args.verb](args)
+        # SIGTERM and SIGHUP stop a verb as Ctrl-C does: workers stopped, staging folders removed
+        with stopping_on_termination():
+            return _dispatch(args, args_list)
     except PlanrunnerError as exc:
         print(f"planrunner: {exc}", file=sys.stderr)
         return exit_code_for(exc)
+    except Terminated as exc:
+        print(f"planrunner: stopped by {exc.name}; no record was written (any workers were stopped)",
+              file=sys.stderr)
+        return 128 + exc.signal_number
     except KeyboardInterrupt:
         print("planrunner: interrupted; no record was written (any workers were stopped)", file=sys.stderr)
         return 130
@@ -124,6 +125,17 @@ def main(argv: Sequence[str] | None = None) -> int:
               + ", ".join(f"{k} {v}" for k, v in env["packages"].items()), file=sys.stderr)
         traceback.print_exc(file=sys.stderr)
         return EXIT_FAILURE
+
+
+def _dispatch(args: argparse.Namespace, args_list: list[str]) -> int:
+    if args.verb == "check":
+        return _check(args)
+    if args.verb == "run":
+        return _run(args, args_list)
+    if args.verb in AUDIT_VERBS:
+        return AUDIT_VERBS[args.verb](args)
+    if args.verb in SIGNING_VERBS:
+        return SIGNING_VERBS[args.verb](args)
     return EXIT_INPUT
 
 
