@@ -4,15 +4,19 @@ compare, JSON Schemas, methods text and the self-check."""
 from __future__ import annotations
 
 import json
+import math
 import shutil
 from pathlib import Path
 
 import jsonschema
 import pytest
 
-from planrunner.audit.verbs import FieldDifference, _judge
+from planrunner.audit import verbs
+from planrunner.audit.verbs import Basis, FieldDifference, _judge
 from planrunner.cli import main as cli
+from planrunner.engines.streams import REFERENCE_DRAWS_SHA256, Stream, draws_sha256
 from planrunner.plan.yamlsafe import load_yaml
+from planrunner.record.build import environment
 from planrunner.record.canonical import record_sha256
 from planrunner.record.schemas import plan_schema, record_schema
 
@@ -123,6 +127,21 @@ def test_lock_is_never_replaced_and_an_edited_lock_is_refused(project, capsys):
     assert code == 2 and "lock file was changed" in err
 
 
+def test_a_lock_rewritten_with_its_hash_recomputed_is_accepted_as_the_readme_says(project, capsys):
+    # lock_sha256 is a plain SHA-256: it detects a changed lock, not an editor who recomputes it
+    # (README, "What the hashes detect"); plan and lock edited alike then show no deviation
+    from planrunner.record.canonical import self_hash
+    assert run(["lock", str(project)], capsys)[0] == 0
+    lock_file = project.parent / "plan.lock.json"
+    lock = json.loads(lock_file.read_text(encoding="utf-8"))
+    lock["content"]["seed"] = 7
+    lock["lock_sha256"] = self_hash(lock, "lock_sha256")
+    lock_file.write_text(json.dumps(lock), encoding="utf-8")
+    project.write_text(project.read_text(encoding="utf-8").replace("seed: 20261101", "seed: 7"), encoding="utf-8")
+    _, record, _ = run_plan(project, capsys)
+    assert record["plan"]["lock"]["deviations"] == []
+
+
 def test_refuse_deviations_without_a_lock_is_an_error(project, capsys):
     code, _, err = run(["run", str(project), "--refuse-deviations"], capsys)
     assert code == 2 and "no lock file" in err
@@ -194,19 +213,71 @@ def test_same_environment_allows_no_monte_carlo_slack(project, capsys):
     assert code == 3 and "analyses[1].p_value" in out and "OUTSIDE" in out
 
 
-def test_other_environment_allows_the_stated_monte_carlo_tolerance(project, capsys):
+def _forge(folder: Path, change) -> None:
+    """Edit a record as its holder could: change fields, rewrite the methods text that quotes the
+    versions, and recompute the record's own hash."""
     from planrunner.record.methods import methods_text
+
+    def edit(r: dict) -> None:
+        change(r)
+        r["methods_text"] = methods_text(r)
+    rewrite_record(folder, edit, rehash=True)
+
+
+def test_a_forged_environment_does_not_switch_on_the_monte_carlo_tolerance(project, capsys):
+    # the record's holder claims another Python (which once let a p-value move by 4 Monte Carlo s.d.)
+    # and lowers the p-value by 3.9 s.d.; this installation draws the reference random numbers, so
+    # the re-run draws the same resamples and the lowered p-value is a difference
     folder, record, _ = run_plan(project, capsys)
     p, sd = record["analyses"][1]["p_value"], record["analyses"][1]["monte_carlo"]["p_value_sd"]
 
-    def elsewhere(r: dict) -> None:  # as if drawn by another numpy build: p moved by 1 MC s.d.
-        r["environment"]["packages"]["numpy"] = "0.0.1"
-        r["methods_text"] = methods_text(r)
-        r["analyses"][1]["p_value"] = p + sd
-    rewrite_record(folder, elsewhere, rehash=True)
+    def forged(r: dict) -> None:
+        r["environment"]["python"] = "3.0.0"
+        r["analyses"][1]["p_value"] = p - 3.9 * sd
+    _forge(folder, forged)
+    code, out, _ = run(["verify", str(folder)], capsys)
+    assert code == 3 and "verify: FAILED" in out
+    assert "DIFFERENCE record_sha256" not in out  # the forger recomputed the hash
+    row = next(line for line in out.splitlines() if line.startswith("analyses[1].p_value"))
+    assert "OUTSIDE" in row and "floating point" in row and "Monte Carlo" not in out.split("comparison:")[0]
+    assert "comparison: another environment than the recorded one" in out
+    assert "draws the reference random numbers" in out
+
+
+def test_an_installation_with_other_draws_allows_the_stated_monte_carlo_tolerance(project, capsys, monkeypatch):
+    # the one case where the re-run draws other resamples: this installation's own draws are not the
+    # reference ones (a fact of the verifier, here simulated), for a record made elsewhere
+    folder, record, _ = run_plan(project, capsys)
+    p, sd = record["analyses"][1]["p_value"], record["analyses"][1]["monte_carlo"]["p_value_sd"]
+    _forge(folder, lambda r: r["environment"]["packages"].update(numpy="0.0.1")
+           or r["analyses"][1].update(p_value=p + sd))
+    monkeypatch.setattr(verbs, "draws_are_reference", lambda: False)
     code, out, _ = run(["verify", str(folder)], capsys)
     assert code == 0, out
     assert "analyses[1].p_value" in out and "within" in out and "Monte Carlo (4 stated s.d.)" in out
+    assert "comparison: this installation draws other random numbers than the reference ones" in out
+    # the same record claiming this very environment gets no slack, whatever this installation draws
+    _forge(folder, lambda r: r.update(environment=environment()))
+    code, out, _ = run(["verify", str(folder)], capsys)
+    assert code == 3 and "same environment: bit for bit" in out
+
+
+def test_a_rerun_on_the_recorded_environment_is_bit_for_bit_and_says_so(project, capsys):
+    folder, record, _ = run_plan(project, capsys)
+    code, out, _ = run(["verify", str(folder)], capsys)
+    assert code == 0
+    assert "comparison: the recorded environment is this one" in out and "equal bit for bit" in out
+    assert "identical" in out and "every one equal bit for bit" in out
+    # a difference in the last bits is a difference here, with a word on where such bits come from
+    estimate = record["analyses"][0]["estimate"]
+    _forge(folder, lambda r: r["analyses"][0].update(estimate=math.nextafter(estimate, math.inf)))
+    code, out, _ = run(["verify", str(folder)], capsys)
+    assert code == 3 and "same environment: bit for bit" in out and "rounding size only" in out
+    # the same record from another environment: rounding is allowed there
+    _forge(folder, lambda r: r["environment"].update(platform="elsewhere"))
+    code, out, _ = run(["verify", str(folder)], capsys)
+    assert code == 0, out
+    assert "floating point (relative 1e-9)" in out and "within" in out
 
 
 def test_verify_fails_after_the_seed_changes_in_the_record(project, capsys):
@@ -253,15 +324,32 @@ def test_verify_not_a_record_is_exit_2(tmp_path, capsys):
 
 def test_tolerance_rules():
     record = {"analyses": [{"monte_carlo": {"standard_error_sd": 0.01}}]}
+    other_draws = Basis(same_environment=False, reference_draws=False)
+    same_draws = Basis(same_environment=False, reference_draws=True)
+    same_environment = Basis(same_environment=True, reference_draws=False)
     # Source: V-TOL, about 4 MC s.d. for Monte Carlo quantities; 1e-9 relative for floating point
-    assert _judge("analyses[0].standard_error", 1.0, 1.039, record).within
-    assert not _judge("analyses[0].standard_error", 1.0, 1.041, record).within
-    assert not _judge("analyses[0].standard_error", 1.0, 1.039, record, monte_carlo=False).within
-    assert _judge("analyses[0].estimate", 1.0, 1.0 + 1e-12, record).within
-    assert not _judge("analyses[0].estimate", 1.0, 1.0 + 1e-6, record).within
-    assert not _judge("analyses[0].details.count_less_equal", 10, 11, record).within
-    assert not _judge("analyses[0].scheme", "a", "b", record).within
-    assert isinstance(_judge("x", 1.0, 2.0, record), FieldDifference)
+    assert _judge("analyses[0].standard_error", 1.0, 1.039, record, other_draws).within
+    assert not _judge("analyses[0].standard_error", 1.0, 1.041, record, other_draws).within
+    assert not _judge("analyses[0].standard_error", 1.0, 1.039, record, same_draws).within
+    assert _judge("analyses[0].estimate", 1.0, 1.0 + 1e-12, record, same_draws).within
+    assert not _judge("analyses[0].estimate", 1.0, 1.0 + 1e-12, record, same_environment).within
+    assert not _judge("analyses[0].estimate", 1.0, 1.0 + 1e-6, record, other_draws).within
+    assert not _judge("analyses[0].details.count_less_equal", 10, 11, record, other_draws).within
+    assert not _judge("analyses[0].scheme", "a", "b", record, other_draws).within
+    assert isinstance(_judge("x", 1.0, 2.0, record, other_draws), FieldDifference)
+
+
+def test_this_installation_draws_the_reference_numbers():
+    # the reference was computed with numpy 1.26.4 and with numpy 2.4.6 (the same value on both)
+    assert draws_sha256() == REFERENCE_DRAWS_SHA256
+    assert verbs.draws_are_reference()
+
+
+def test_other_draws_are_noticed(monkeypatch):
+    # an installation whose generator gives other numbers (here: another seed) fails the check
+    real = Stream.generator
+    monkeypatch.setattr(Stream, "generator", lambda self, block: real(Stream(self.root_seed + 1, self.key), block))
+    assert draws_sha256() != REFERENCE_DRAWS_SHA256 and not verbs.draws_are_reference()
 
 
 # --- history ---------------------------------------------------------------------------------------

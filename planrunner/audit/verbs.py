@@ -17,6 +17,7 @@ from typing import Any
 
 from planrunner.compile.jobs import compile_jobs
 from planrunner.data.tables import file_sha256, resolve_data_path
+from planrunner.engines.streams import REFERENCE_DRAWS_SHA256, draws_sha256
 from planrunner.errors import PlanError, PlanrunnerError, RecordError
 from planrunner.execute.executors import Execution
 from planrunner.pipeline.run import execute_plan, load_tables
@@ -29,10 +30,10 @@ from planrunner.record.canonical import RECORD_HASH_FIELD, differences, record_s
 from planrunner.trail.store import read_json, write_new_file
 
 # Differences no larger than this (relative to the larger magnitude) are floating-point noise:
-# another machine may add the same numbers in another order. Same build, same machine: 0.
+# another build or machine may add the same numbers in another order. Same environment: 0.
 FLOAT_RELATIVE_TOLERANCE = 1e-9
 # A Monte Carlo quantity whose record states its Monte Carlo s.d. may differ by this many s.d.
-# when the random streams differ (V-TOL in docs/VALIDATION.md: about 4 MC s.d.).
+# when the random draws differ (docs/VALIDATION.md V-TOL: about 4 MC s.d.).
 MC_SDS = 4.0
 HEADLINE = re.compile(r"^(analyses\[\d+\]\.(estimate|standard_error|bias|p_value|intervals|adjusted_p_values)"
                       r"|datasets)")
@@ -61,6 +62,7 @@ class VerifyReport:
     rerun: bool  # False when the data could not be re-read
     plan_changes: list[str] = field(default_factory=list)
     causes: list[str] = field(default_factory=list)  # what changed under the run (data files), said first
+    basis: Basis | None = None  # how the re-run was compared (None when there was no re-run)
 
     def kinds(self) -> list[tuple[str, int]]:
         """Differing fields counted by kind (the path with its list positions left out), most first."""
@@ -128,23 +130,54 @@ def _numbers(value: Any) -> int:
     return int(isinstance(value, (int, float)) and not isinstance(value, bool))
 
 
-def _judge(path: str, before: Any, after: Any, recorded: dict, *, monte_carlo: bool = True) -> FieldDifference:
-    """How far a re-run field is from the recorded one, and whether that is within tolerance.
+@dataclass(frozen=True)
+class Basis:
+    """What this installation knows about how its re-run may differ from the recorded run.
 
-    ``monte_carlo``: whether the stated Monte Carlo tolerance may apply, i.e. whether the re-run
-    is on another environment (on the same one, the random draws are the same bit for bit).
+    Nothing here is taken from the record alone: whoever holds a record can edit any field of it
+    (`environment` included) and recompute its hash. The Monte Carlo tolerance therefore depends only
+    on this installation's own draws, checked against the reference draws (`streams.draws_sha256`).
     """
+
+    same_environment: bool  # the recorded environment is this installation's, field for field
+    reference_draws: bool  # this installation draws planrunner's reference random numbers
+
+    @property
+    def monte_carlo(self) -> bool:
+        """Whether the re-run may draw other resamples than the run: only on an installation whose
+        own draws are not the reference ones, for a record that names another environment."""
+        return not self.same_environment and not self.reference_draws
+
+    def statement(self) -> str:
+        if self.same_environment:
+            return ("the recorded environment is this one, so the re-run draws the same resamples and does "
+                    "the same arithmetic: every number must be equal bit for bit")
+        if self.reference_draws:
+            return ("another environment than the recorded one: numbers may differ by rounding (relative "
+                    "1e-9); this installation draws the reference random numbers, so the re-run draws the "
+                    "same resamples and no Monte Carlo tolerance applies")
+        return ("this installation draws other random numbers than the reference ones, so its re-run draws "
+                "other resamples: standard errors, biases and p-values may differ by "
+                f"{MC_SDS:g} of their stated Monte Carlo s.d.; interval ends and other resampled quantities "
+                "will differ too, and are reported as differences")
+
+
+def _judge(path: str, before: Any, after: Any, recorded: dict, basis: Basis) -> FieldDifference:
+    """How far a re-run field is from the recorded one, and whether that is within the tolerance
+    that ``basis`` allows."""
     numeric = all(isinstance(v, (int, float)) and not isinstance(v, bool) for v in (before, after))
     if not numeric:
         return FieldDifference(path, before, after, None, None, False, "must be equal")
     diff = abs(float(before) - float(after))
+    if basis.same_environment:
+        return FieldDifference(path, before, after, diff, 0.0, False, "same environment: bit for bit")
     scale = max(abs(float(before)), abs(float(after)))
     fp = FLOAT_RELATIVE_TOLERANCE * scale
     if diff <= fp and not isinstance(before, int):
         return FieldDifference(path, before, after, diff, fp, True, "floating point (relative 1e-9)")
     # analyses[3].standard_error -> the stated Monte Carlo s.d. of that analysis
     head, _, leaf = path.rpartition(".")
-    if monte_carlo and leaf in MC_FIELDS and head.startswith("analyses[") and head.endswith("]"):
+    if basis.monte_carlo and leaf in MC_FIELDS and head.startswith("analyses[") and head.endswith("]"):
         index = int(head[len("analyses["):-1])
         sd = ((recorded["analyses"][index].get("monte_carlo") or {}).get(MC_FIELDS[leaf])
               if index < len(recorded["analyses"]) else None)
@@ -154,6 +187,12 @@ def _judge(path: str, before: Any, after: Any, recorded: dict, *, monte_carlo: b
     if isinstance(before, int) and isinstance(after, int):
         return FieldDifference(path, before, after, diff, 0.0, False, "counts must be equal")
     return FieldDifference(path, before, after, diff, fp, False, "floating point (relative 1e-9)")
+
+
+def draws_are_reference() -> bool:
+    """Whether this installation draws planrunner's reference random numbers (a fact of this
+    installation, checked each time: never read from a record)."""
+    return draws_sha256() == REFERENCE_DRAWS_SHA256
 
 
 def verify_record(path: str | Path, *, plan: str | Path | None = None, execution: Execution | None = None,
@@ -187,6 +226,7 @@ def verify_record(path: str | Path, *, plan: str | Path | None = None, execution
     env_now = environment()
     for d in differences(recorded.get("environment", {}), env_now):
         notes.append(f"environment.{d.path}: recorded {d.before!r}, now {d.after!r}")
+    basis = Basis(same_environment=not notes, reference_draws=draws_are_reference())
 
     # re-run the plan exactly as recorded, with the data from the plan's folder
     try:
@@ -234,13 +274,12 @@ def verify_record(path: str | Path, *, plan: str | Path | None = None, execution
                      environment=recorded.get("environment"), lock=(recorded.get("plan") or {}).get("lock"),
                      parameters=values)
     rerun = build_record(loaded, tables, jobs, results, max_t, facts)
-    other_environment = bool(notes)
-    found = [_judge(d.path, d.before, d.after, recorded, monte_carlo=other_environment)
+    found = [_judge(d.path, d.before, d.after, recorded, basis)
              for d in differences({k: v for k, v in recorded.items() if k != RECORD_HASH_FIELD},
                                   {k: v for k, v in rerun.items() if k != RECORD_HASH_FIELD})]
     found.sort(key=lambda d: HEADLINE.match(d.path) is None)  # the reported numbers first (stable sort)
     return VerifyReport(record_file, plan_file, problems, notes, found, _numbers(recorded), True, plan_changes,
-                        causes)
+                        causes, basis)
 
 
 def data_causes(recorded: dict, changed: dict[str, tuple[str, str]], tables: dict[str, Any]) -> list[str]:

@@ -141,6 +141,8 @@ def _verify(args: argparse.Namespace) -> int:
         print(line)
     for note in report.notes:
         print(f"  note (stated, not a failure): {note}")
+    if report.basis is not None:
+        print(f"comparison: {report.basis.statement()}")
     for where, what in report.problems:
         print(f"  DIFFERENCE {where}: {what}")
     for change in report.plan_changes:
@@ -161,6 +163,10 @@ def _verify(args: argparse.Namespace) -> int:
         outside = sum(not d.within for d in report.differences)
         because = " (the data changed: see CAUSE above)" if report.causes else ""
         print(f"re-run: {len(report.differences)} field(s) differ, {outside} outside tolerance{because}")
+        if report.basis is not None and report.basis.same_environment and _rounding_only(report):
+            print("  these differences are of rounding size only: the same versions on a processor with other "
+                  "vector instructions can round the last bits differently; verify on the machine that made "
+                  "the run to tell this from a change")
     passed = report.passed and signatures.passed
     print("verify: PASSED" if passed else "verify: FAILED" + ("" if signatures.passed else " (signatures)"))
     return EXIT_OK if passed else EXIT_DIFFERS
@@ -191,6 +197,13 @@ def _print_differences(report: Any, target: str | None) -> None:
         written = write_new_file(name, differences_text(report), what="list of differences")
         print(f"... {len(report.differences) - min(MAX_ROWS, len(report.differences))} more; "
               f"every differing field is listed in {written}")
+
+
+def _rounding_only(report: Any) -> bool:
+    from planrunner.audit.verbs import FLOAT_RELATIVE_TOLERANCE
+    return all(d.difference is not None and not isinstance(d.recorded, int)
+               and d.difference <= FLOAT_RELATIVE_TOLERANCE * max(abs(d.recorded), abs(d.rerun))
+               for d in report.differences)
 
 
 def _history(args: argparse.Namespace) -> int:

@@ -27,7 +27,8 @@ import numpy as np
 DRAW_BLOCK: int = 1000
 GENERATOR = "PCG64"
 
-__all__ = ["DRAW_BLOCK", "GENERATOR", "Stream", "UniformRows", "analysis_key", "stream_for"]
+__all__ = ["DRAW_BLOCK", "GENERATOR", "REFERENCE_DRAWS_SHA256", "Stream", "UniformRows", "analysis_key",
+           "draws_sha256", "stream_for"]
 
 
 def analysis_key(analysis_id: str) -> int:
@@ -119,3 +120,23 @@ class UniformRows:
             filled += count
             self._next_row += count
         return out
+
+
+# SHA-256 of the draws `draws_sha256` makes, as numpy 1.26.4 and 2.4.6 both make them: numpy keeps
+# SeedSequence, PCG64 and the doubles and 64-bit words drawn from it the same across its versions and
+# platforms, and an installation that draws these numbers draws every resample of every record the same.
+REFERENCE_DRAWS_SHA256 = "8091a50fb215b482e638660780da3959fd4f42deaadba441287b4bc441c12187"
+
+
+def draws_sha256() -> str:
+    """SHA-256 of a few draws made exactly as the engines make theirs: doubles of uniform rows
+    crossing a block boundary from a start inside a block (a worker's share), and full-range 64-bit
+    words after an advance (the sign-flip tests). Equal to `REFERENCE_DRAWS_SHA256` when this
+    installation's random numbers are the reference ones."""
+    stream = Stream(20261201, (analysis_key("reference draws"),))
+    digest = hashlib.sha256()
+    digest.update(UniformRows(stream, 3, DRAW_BLOCK - 2).take(4).astype("<f8").tobytes())
+    gen = stream.generator(1)
+    gen.bit_generator.advance(5)  # type: ignore[attr-defined]  # PCG64 has advance()
+    digest.update(gen.integers(0, 2**64, size=6, dtype=np.uint64, endpoint=False).astype("<u8").tobytes())
+    return digest.hexdigest()
