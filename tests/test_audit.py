@@ -129,7 +129,7 @@ def test_lock_is_never_replaced_and_an_edited_lock_is_refused(project, capsys):
 
 def test_a_lock_rewritten_with_its_hash_recomputed_is_accepted_as_the_readme_says(project, capsys):
     # lock_sha256 is a plain SHA-256: it detects a changed lock, not an editor who recomputes it
-    # (README, "What the hashes detect"); plan and lock edited alike then show no deviation
+    # (README, "Threat model"); plan and lock edited alike then show no deviation
     from planrunner.record.canonical import self_hash
     assert run(["lock", str(project)], capsys)[0] == 0
     lock_file = project.parent / "plan.lock.json"

@@ -106,6 +106,7 @@ TRACE: dict[str, tuple[str, ...]] = {
         SIGN + "test_a_history_rewritten_with_recomputed_hashes_fails",
         SIGN + "test_a_forged_signature_field_is_detected", SIGN + "test_a_removed_or_expired_signer",
         AUDIT + "test_history_detects_a_removed_entry",
+        AUDIT + "test_a_lock_rewritten_with_its_hash_recomputed_is_accepted_as_the_readme_says",
         QUALIFY + "test_a_changed_installed_file_fails_the_installation_qualification"),
     "Comparing runs": (AUDIT + "test_compare_shows_a_changed_estimate", AUDIT + "test_compare_lists_plan_differences"),
     "JSON Schemas": (AUDIT + "test_plan_schema_validates_every_plan",
