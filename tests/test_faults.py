@@ -8,9 +8,11 @@ run folder is never reused.
 
 from __future__ import annotations
 
+import dis
 import errno
 import json
 import os
+import shutil
 import signal
 import subprocess
 import sys
@@ -22,8 +24,9 @@ from conftest import fixed_clock
 
 from planrunner.cli import main as cli
 from planrunner.errors import DataError
+from planrunner.execute import signals
 from planrunner.pipeline import run as runner
-from planrunner.trail import store
+from planrunner.trail import files, history, store
 
 ROOT = Path(__file__).resolve().parent.parent
 PLAN = """
@@ -295,3 +298,198 @@ def test_data_root_still_confines_symlinks(write_plan, tmp_path):
     os.symlink(secret / "d.csv", locked / "d.csv")
     with pytest.raises(DataError, match="outside the data root"):
         runner.check_plan(plan, data_root=locked)
+
+
+# --- an interrupt at every step of writing a run --------------------------------------------------
+
+WRITING_CODE = {Path(m.__file__).resolve() for m in (runner, store, files, history, signals)}
+NOP = dis.opmap["NOP"]
+
+
+class SignalAtLine:
+    """A trace function that sends this process ``number`` when the ``at``-th line of the code
+    that writes a run (pipeline, store, history files, signals) is about to run."""
+
+    def __init__(self, at: int, number: int):
+        self.at, self.number, self.lines, self.sent, self.where = at, number, 0, False, ""
+        self._ours: dict[str, bool] = {}
+
+    def __call__(self, frame, event, arg):
+        name = frame.f_code.co_filename
+        if name not in self._ours:
+            self._ours[name] = Path(name).resolve() in WRITING_CODE
+        return self._line if self._ours[name] else None
+
+    def _line(self, frame, event, arg):
+        # not at a line that starts with a NOP (`try:`): no signal is ever handled there, and an
+        # exception a trace function raises there escapes the enclosing try (CPython 3.11)
+        if event == "line" and frame.f_code.co_code[frame.f_lasti] != NOP:
+            self.lines += 1
+            if self.lines == self.at:
+                self.sent = True
+                self.where = f"{Path(frame.f_code.co_filename).name}:{frame.f_lineno} ({frame.f_code.co_name})"
+                os.kill(os.getpid(), self.number)
+        return self._line
+
+
+def _seeded_output(plan: Path, tmp_path: Path) -> Path:
+    """An output folder holding one finished run and its history entry (copied for each step)."""
+    seed = tmp_path / "seed"
+    if not seed.exists():
+        runner.run_plan(plan, out=seed, clock=fixed_clock, operator="t", reason="seed")
+    return seed
+
+
+def _state(out: Path) -> tuple[list[Path], list[dict], list]:
+    entries = [json.loads(line) for line in (out / "history.jsonl").read_text(encoding="utf-8").split("\n") if line]
+    return visible(out), entries, files.history_report(out).problems
+
+
+# SIGTERM takes the same path as SIGINT once its handler has raised: every fifth line keeps the time down
+@pytest.mark.parametrize("number, stride", [(signal.SIGINT, 1), (signal.SIGTERM, 5)], ids=["SIGINT", "SIGTERM"])
+def test_an_interrupt_at_every_step_of_writing_leaves_folder_message_and_history_agreeing(
+        plan, tmp_path, monkeypatch, capsys, number, stride):
+    """SIGINT or SIGTERM before each line that writes a run (about 280 lines): either nothing was
+    written and the message says so, or the run folder and its history entry both exist and the
+    message names them; the history is intact either way, and no staging folder is left."""
+    seed = _seeded_output(plan, tmp_path)
+    # the reports are a stand-in: what is tested is how the files reach the disk, not their content
+    monkeypatch.setattr(runner.report, "render_all", lambda record: {"report.md": "# run\n"})
+    real_write_run = runner.write_run
+    outcomes: dict[str, int] = {}
+    at = 1 - stride
+    while True:
+        at += stride
+        out = tmp_path / f"out-{at}"
+        shutil.copytree(seed, out)
+        tracer = SignalAtLine(at, number)
+
+        def traced_write_run(*args, tracer=tracer, **kwargs):
+            sys.settrace(tracer)
+            try:
+                return real_write_run(*args, **kwargs)
+            finally:
+                sys.settrace(None)
+        monkeypatch.setattr(runner, "write_run", traced_write_run)
+        code = cli.main(["run", str(plan), "--out", str(out), "--quiet", "--reason", "monthly"])
+        err = capsys.readouterr().err
+        folders, entries, problems = _state(out)
+        at_line = f"signal before {tracer.where}: {err}"
+        assert problems == [] and [e["seq"] for e in entries] == list(range(1, len(entries) + 1)), at_line
+        assert not [p for p in out.iterdir() if p.name.startswith(".")], at_line  # no staging folder left
+        if not tracer.sent:
+            assert code == 0 and len(folders) == 2 and len(entries) == 2
+            break
+        assert code == 128 + number, at_line
+        if "no record was written" in err:
+            outcomes["nothing written"] = outcomes.get("nothing written", 0) + 1
+            assert len(folders) == 1 and len(entries) == 1, at_line
+        else:
+            outcomes["written and logged"] = outcomes.get("written and logged", 0) + 1
+            new = [f for f in folders if f.name != entries[0]["folder"]]
+            assert len(new) == 1 and len(entries) == 2, at_line
+            assert f"after the run was complete: record written to {new[0]}, history entry 2" in err, at_line
+            assert entries[1]["folder"] == new[0].name and entries[1]["reason"] == "monthly"
+            assert not (new[0] / files.ENTRY_WAITING).exists()
+            record = json.loads((new[0] / "record.json").read_text(encoding="utf-8"))
+            assert record["record_sha256"] == entries[1]["record_sha256"]
+        shutil.rmtree(out)
+    # both outcomes happen: before the rename nothing is kept, from it on the run completes first
+    assert outcomes["nothing written"] > 100 // stride and outcomes["written and logged"] > 100 // stride, outcomes
+
+
+# --- a process killed between the run folder and its history entry --------------------------------
+
+KILLED_CHILD = r"""
+import os, sys, time
+from pathlib import Path
+from planrunner.cli import main as cli
+from planrunner.trail import files
+
+marker, where = Path(sys.argv[1]), sys.argv[2]
+
+def pause():
+    marker.write_text("reached", encoding="utf-8")
+    time.sleep(120)  # the parent kills us here
+
+if where == "before-rename":  # the entry is written into the staging folder, the rename not yet done
+    real_rename = os.rename
+    os.rename = lambda *args: pause()
+elif where == "before-entry":  # the folder is in place, its entry not yet appended
+    files.HistoryLog.append = lambda self, folder: pause()
+else:  # the entry is appended, the waiting copy in the folder not yet removed
+    real_append = files.HistoryLog.append_entry
+    files.HistoryLog.append_entry = lambda self, entry: (real_append(self, entry), pause())
+sys.exit(cli.main(["run", sys.argv[3], "--out", sys.argv[4], "--quiet", "--reason", "killed"]))
+"""
+
+
+def _kill_child_at(where: str, plan: Path, out: Path, tmp_path: Path) -> None:
+    marker = tmp_path / f"reached-{where}"
+    env = {**os.environ, "PYTHONPATH": str(ROOT) + os.pathsep + os.environ.get("PYTHONPATH", "")}
+    child = subprocess.Popen([sys.executable, "-c", KILLED_CHILD, str(marker), where, str(plan), str(out)],
+                             cwd=ROOT, env=env, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    deadline = time.monotonic() + 120
+    while not marker.exists():
+        if child.poll() is not None:
+            raise AssertionError(f"the child ended early: {child.communicate()}")
+        if time.monotonic() > deadline:
+            child.kill()
+            raise AssertionError("the child never reached the pause")
+        time.sleep(0.05)
+    child.send_signal(signal.SIGKILL)
+    child.communicate(timeout=60)
+
+
+def test_killed_before_the_rename_leaves_no_run_and_an_intact_history(plan, tmp_path, capsys):
+    out = tmp_path / "out"
+    runner.run_plan(plan, out=out, clock=fixed_clock, operator="t")
+    _kill_child_at("before-rename", plan, out, tmp_path)
+    folders, entries, problems = _state(out)
+    assert len(folders) == 1 and len(entries) == 1 and problems == []
+    assert cli.main(["history", str(out)]) == 0
+
+
+def test_killed_between_the_folder_and_its_entry_history_repair_appends_it(plan, tmp_path, capsys):
+    out = tmp_path / "out"
+    runner.run_plan(plan, out=out, clock=fixed_clock, operator="t")
+    _kill_child_at("before-entry", plan, out, tmp_path)
+    folders, entries, problems = _state(out)
+    assert len(folders) == 2 and len(entries) == 1
+    waiting = next(f for f in folders if f.name != entries[0]["folder"])
+    assert (waiting / files.ENTRY_WAITING).is_file()
+    capsys.readouterr()
+    assert cli.main(["history", str(out)]) == 3
+    shown = capsys.readouterr().out
+    assert f"run folder {waiting.name} was written, but its run was stopped before its entry was appended" in shown
+    assert "--repair" in shown and "(entries may have been removed" not in shown
+    assert cli.main(["history", str(out), "--repair"]) == 0
+    shown = capsys.readouterr().out
+    assert f"appended entry 2 for {waiting.name}" in shown and "history chain: intact" in shown
+    folders, entries, problems = _state(out)
+    assert problems == [] and entries[1]["folder"] == waiting.name and entries[1]["reason"] == "killed"
+    assert not (waiting / files.ENTRY_WAITING).exists()
+    assert cli.main(["history", str(out), "--repair"]) == 0  # nothing more to do
+    assert len(_state(out)[1]) == 2
+
+
+def test_killed_between_the_folder_and_its_entry_the_next_run_appends_it_first(plan, tmp_path, capsys):
+    out = tmp_path / "out"
+    _kill_child_at("before-entry", plan, out, tmp_path)
+    capsys.readouterr()
+    assert cli.main(["run", str(plan), "--out", str(out), "--reason", "next"]) == 0
+    shown = capsys.readouterr().out
+    assert "run history: entry 1 appended first for" in shown and "entry 2 appended to" in shown
+    folders, entries, problems = _state(out)
+    assert problems == [] and [e["reason"] for e in entries] == ["killed", "next"]
+    assert not any((f / files.ENTRY_WAITING).exists() for f in folders)
+
+
+def test_killed_after_the_entry_the_history_is_intact_and_the_leftover_goes(plan, tmp_path, capsys):
+    out = tmp_path / "out"
+    _kill_child_at("after-entry", plan, out, tmp_path)
+    folders, entries, problems = _state(out)
+    assert len(folders) == 1 and len(entries) == 1 and problems == []
+    assert (folders[0] / files.ENTRY_WAITING).is_file()  # the copy was not removed yet
+    assert cli.main(["history", str(out), "--repair"]) == 0
+    assert not (folders[0] / files.ENTRY_WAITING).exists() and len(_state(out)[1]) == 1

@@ -52,6 +52,9 @@ def _add_audit_verbs(verbs: Any) -> None:
 
     history = verbs.add_parser("history", help="list the run history and check its hash chain")
     history.add_argument("target", help="a plan, its runs folder, or a history.jsonl file")
+    history.add_argument("--repair", action="store_true",
+                         help="first append the entries of runs stopped after writing their folder and before "
+                              "appending their entry (they wait in the run folder)")
     history.add_argument("--signers", metavar="FILE",
                          help="the trusted signers (default: signers.yaml beside the runs folder or the plan)")
 
@@ -90,6 +93,9 @@ def audit_summary(outcome: Any) -> str:
     if params:
         lines.append("parameters: " + ", ".join(f"{k}={v}" for k, v in params.items()))
     entry = outcome.history_entry
+    for late in getattr(outcome, "recovered", ()):
+        lines.append(f"run history: entry {late['seq']} appended first for {late['folder']}, whose run was stopped "
+                     "after writing its folder and before appending its entry")
     if entry is not None:
         lines.append(f"run history: entry {entry['seq']} appended to {outcome.folder.parent / 'history.jsonl'}")
     if getattr(outcome, "signed", False):
@@ -206,14 +212,25 @@ def _rounding_only(report: Any) -> bool:
                for d in report.differences)
 
 
+def _shown(text: str) -> str:
+    """Free text as one printable line: a line break, a control or an invisible formatting character
+    is shown as its \\u escape, so that a reason can neither split the table nor fake a line of it."""
+    return "".join(c if c.isprintable() else f"\\u{ord(c):04x}" for c in text)
+
+
 def _history(args: argparse.Namespace) -> int:
     from planrunner.audit.signing import history_signatures
     from planrunner.cli.signing import signature_lines
-    from planrunner.trail.files import history_report
+    from planrunner.trail.files import history_report, repair_history
+    if args.repair:
+        for entry in repair_history(args.target):
+            print(f"repair: appended entry {entry['seq']} for {entry['folder']}, whose run was stopped after "
+                  "writing its folder and before appending its entry")
     report = history_report(args.target)
     signatures = history_signatures(report.log, args.signers)
-    rows = [(str(e.get("seq")), str(e.get("finished_utc")), str(e.get("run_id")), str(e.get("operator")),
-             str(e.get("reason") or ""), str(e.get("plan_sha256"))[:12], str(e.get("record_sha256"))[:12])
+    rows = [tuple(_shown(str(cell)) for cell in (
+                e.get("seq"), e.get("finished_utc"), e.get("run_id"), e.get("operator"), e.get("reason") or "",
+                str(e.get("plan_sha256"))[:12], str(e.get("record_sha256"))[:12]))
             for e in report.entries]
     print(f"run history {report.log}: {len(rows)} run(s)")
     if rows:

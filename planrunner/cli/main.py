@@ -102,7 +102,7 @@ def main(argv: Sequence[str] | None = None) -> int:
         args = build_parser().parse_args(args_list)
     except SystemExit as exc:
         return int(exc.code or 0)
-    from planrunner.execute.executors import stopping_on_termination
+    from planrunner.execute.signals import stopping_on_termination
     try:
         # SIGTERM and SIGHUP stop a verb as Ctrl-C does: workers stopped, staging folders removed
         with stopping_on_termination():
@@ -110,13 +110,9 @@ def main(argv: Sequence[str] | None = None) -> int:
     except PlanrunnerError as exc:
         print(f"planrunner: {exc}", file=sys.stderr)
         return exit_code_for(exc)
-    except Terminated as exc:
-        print(f"planrunner: stopped by {exc.name}; no record was written (any workers were stopped)",
-              file=sys.stderr)
-        return 128 + exc.signal_number
-    except KeyboardInterrupt:
-        print("planrunner: interrupted; no record was written (any workers were stopped)", file=sys.stderr)
-        return 130
+    except KeyboardInterrupt as exc:
+        print(f"planrunner: {_stopped(exc)}{STOPPED_BEFORE.get(args.verb, '')}", file=sys.stderr)
+        return _stop_code(exc)
     except Exception:  # an unexpected failure: show enough to report it
         from planrunner.record.build import environment
         env = environment()
@@ -125,6 +121,20 @@ def main(argv: Sequence[str] | None = None) -> int:
               + ", ".join(f"{k} {v}" for k, v in env["packages"].items()), file=sys.stderr)
         traceback.print_exc(file=sys.stderr)
         return EXIT_FAILURE
+
+
+# what an interrupt of a verb left undone (only `run` writes what must exist whole or not at all)
+STOPPED_BEFORE = {"run": "; no record was written (any workers were stopped)",
+                  "verify": " (any workers were stopped)", "selfcheck": "; no report was written"}
+
+
+def _stopped(exc: KeyboardInterrupt) -> str:
+    return f"stopped by {exc.name}" if isinstance(exc, Terminated) else "interrupted"
+
+
+def _stop_code(exc: KeyboardInterrupt) -> int:
+    """128 + the signal's number, as a shell reports a process its signal ended (Ctrl-C: 130)."""
+    return 128 + (exc.signal_number if isinstance(exc, Terminated) else 2)
 
 
 def _dispatch(args: argparse.Namespace, args_list: list[str]) -> int:
@@ -192,20 +202,30 @@ def _run(args: argparse.Namespace, argv: list[str]) -> int:
     execution = execution_of(args)
     signing = run_signing(args)
     bar = progress_bar(args.quiet)
+    written: list[Any] = []  # the outcome, once the run folder and its history entry are in place
     try:
-        outcome = run_plan(args.plan, out=args.out, operator=args.operator, command=["planrunner", *argv],
-                           params=parse_assignments(args.param), lock=args.lock,
-                           refuse_deviations=args.refuse_deviations, reason=args.reason,
-                           data_root=args.data_root, execution=execution, progress=bar,
-                           signing=signing, signers=args.signers)
-    finally:
-        bar.close()  # before any message, so that it does not land on the bar's line
-    if args.quiet:
-        print(outcome.folder)  # only the folder, so that a script can use it as it is
-        return EXIT_OK
-    print(summary_table(outcome.record))
-    print(audit_summary(outcome))
-    print(f"record written to {outcome.folder}")
+        try:
+            outcome = run_plan(args.plan, out=args.out, operator=args.operator, command=["planrunner", *argv],
+                               params=parse_assignments(args.param), lock=args.lock,
+                               refuse_deviations=args.refuse_deviations, reason=args.reason,
+                               data_root=args.data_root, execution=execution, progress=bar,
+                               signing=signing, signers=args.signers, written=written.append)
+        finally:
+            bar.close()  # before any message, so that it does not land on the bar's line
+        if args.quiet:
+            print(outcome.folder)  # only the folder, so that a script can use it as it is
+            return EXIT_OK
+        print(summary_table(outcome.record))
+        print(audit_summary(outcome))
+        print(f"record written to {outcome.folder}")
+    except KeyboardInterrupt as exc:
+        if not written:
+            raise  # nothing was written: main says so
+        done = written[0]
+        logged = (f", history entry {done.history_entry['seq']}" if done.history_entry is not None else "")
+        print(f"planrunner: {_stopped(exc)} after the run was complete: record written to {done.folder}{logged}",
+              file=sys.stderr)
+        return _stop_code(exc)
     return EXIT_OK
 
 

@@ -10,16 +10,14 @@ intervals, counts) runs in the calling process.
 
 from __future__ import annotations
 
-import contextlib
 import copyreg
 import functools
 import logging
 import math
 import multiprocessing
 import signal
-import threading
 import warnings
-from collections.abc import Callable, Iterator
+from collections.abc import Callable
 from dataclasses import dataclass
 from typing import Any
 
@@ -33,8 +31,9 @@ from planrunner.engines.permcore import PermutationOptions
 from planrunner.engines.results import BootstrapResult, JackknifeResult, PermutationResult
 from planrunner.engines.statistics import STATISTICS, Statistic, bind, get_statistic
 from planrunner.engines.streams import DRAW_BLOCK
-from planrunner.errors import EngineError, PlanrunnerError, Terminated
+from planrunner.errors import EngineError, PlanrunnerError
 from planrunner.execute.permutation import run_permutation
+from planrunner.execute.signals import stopping_on_termination
 
 # Non-finite intermediates are checked and reported by the engines (a message, or a warning in the
 # result). numpy's own RuntimeWarnings about them (e.g. "Degrees of freedom <= 0" from a variance of
@@ -167,40 +166,6 @@ def execute_all(jobs: list[Job], *, execution: Execution | None = None,
         if execution.executor == "processes":
             return _on_processes(jobs, execution, tally)
         return _on_dask(jobs, execution, tally)
-
-
-# asked to stop by the system or a closed terminal; their default action ends the process at once,
-# without the cleanups below, and leaves worker processes computing
-TERMINATING_SIGNALS = tuple(getattr(signal, name) for name in ("SIGTERM", "SIGHUP") if hasattr(signal, name))
-
-
-@contextlib.contextmanager
-def stopping_on_termination() -> Iterator[None]:
-    """While the body runs, SIGTERM and SIGHUP raise `Terminated` as Ctrl-C raises KeyboardInterrupt,
-    so every executor stops its workers (and a run removes its staging folder) the same way.
-
-    Only where Python can handle signals (the main thread), and only over the default action: a
-    program that embeds planrunner and handles these signals itself keeps its handlers. A repeated
-    signal while the cleanups run is ignored, so that it cannot cut a cleanup short.
-    """
-    if threading.current_thread() is not threading.main_thread():
-        yield
-        return
-    replaced = [s for s in TERMINATING_SIGNALS if signal.getsignal(s) is signal.SIG_DFL]
-    raised: list[int] = []
-
-    def stop(number: int, frame: object) -> None:
-        if not raised:
-            raised.append(number)
-            raise Terminated(number, signal.Signals(number).name)
-
-    for number in replaced:
-        signal.signal(number, stop)
-    try:
-        yield
-    finally:
-        for number in replaced:
-            signal.signal(number, signal.SIG_DFL)
 
 
 def _run_jobs(jobs: list[Job], tally: _Tally, mapper: Callable[[RangeTask, int], list[np.ndarray]] | None,

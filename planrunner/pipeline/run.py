@@ -22,20 +22,28 @@ from planrunner.compile.jobs import Job, compile_jobs
 from planrunner.data.checks import check_tables
 from planrunner.data.tables import Table, read_table, resolve_data_path
 from planrunner.engines.maxt import MaxTResult
+from planrunner.errors import OutputError
 from planrunner.execute.executors import Execution, Progress, execute_all
 from planrunner.execute.families import max_t_families
 from planrunner.execute.permutation import planned_computation
+from planrunner.execute.signals import holding_interrupts
 from planrunner.plan.load import LoadedPlan, read_plan
 from planrunner.plan.params import apply as apply_parameters
 from planrunner.plan.params import resolve_values
 from planrunner.plan.schema import Plan
 from planrunner.record.build import RunFacts, build_record, to_json
 from planrunner.report import render as report
-from planrunner.trail.files import append_history, lock_for_run
+from planrunner.trail.files import HistoryLog, lock_for_run
+from planrunner.trail.history import HISTORY_FILE
 from planrunner.trail.lock import lock_path_for
 from planrunner.trail.signatures import SigningKey
 from planrunner.trail.signfiles import check_run_signing, find_signers, signed_run_files
-from planrunner.trail.store import STAGING_PREFIX, require_plain_name, write_new_folder  # noqa: F401 (STAGING_PREFIX for callers)
+from planrunner.trail.store import (  # noqa: F401 (STAGING_PREFIX for callers)
+    STAGING_PREFIX,
+    place_folder,
+    require_plain_name,
+    staged_folder,
+)
 
 Clock = Callable[[], dt.datetime]
 
@@ -62,6 +70,7 @@ class RunOutcome:
     record: dict
     history_entry: dict | None = None
     signed: bool = False  # the record and its history entry carry the 'executed' signature
+    recovered: tuple[dict, ...] = ()  # entries of earlier runs, killed before logging, appended first
 
 
 def available_memory() -> int | None:
@@ -129,7 +138,7 @@ def run_plan(path: str | Path, *, out: str | Path | None = None, operator: str |
              lock: str | Path | None = None, refuse_deviations: bool = False, reason: str | None = None,
              history: bool = True, data_root: str | Path | None = None, execution: Execution | None = None,
              progress: Progress | None = None, signing: SigningKey | None = None,
-             signers: str | Path | None = None) -> RunOutcome:
+             signers: str | Path | None = None, written: Callable[[RunOutcome], None] | None = None) -> RunOutcome:
     """Run every analysis of the plan and write record.json, report.html and report.md.
 
     The plan is compared with its lock (``lock``, or PLAN.lock.json beside it when that exists);
@@ -140,6 +149,10 @@ def run_plan(path: str | Path, *, out: str | Path | None = None, operator: str |
     nothing behind: files are written only after every result is in. With ``signing`` the record
     and its history entry are signed as executed; a signers file (``signers``, or signers.yaml beside
     the plan) is consulted before anything is computed (see `signfiles.check_run_signing`).
+
+    The run folder is put in place and its history entry appended together: an interrupt that
+    arrives meanwhile waits until both are done and is then raised. ``written(outcome)`` hears of the
+    run as soon as both are done, so that a caller interrupted after that moment can say so.
     """
     started = clock()
     checked = check_plan(path, params=params, data_root=data_root)
@@ -161,10 +174,15 @@ def run_plan(path: str | Path, *, out: str | Path | None = None, operator: str |
     signature_files, sign_entry = (signed_run_files(signing, record, to_json(record), _stamp(clock()))
                                    if signing is not None else ({}, None))
     out_root = Path(out) if out is not None else loaded.folder / "runs"
-    folder = write_run(out_root, f"{loaded.plan.plan}-{started.strftime('%Y%m%dT%H%M%SZ')}-{run_id[:8]}", record,
-                       signature_files)
-    entry = append_history(out_root, record, folder.name, reason, sign_entry) if history else None
-    return RunOutcome(folder, record, entry, signing is not None)
+
+    def done(folder: Path, entry: dict | None, recovered: list[dict]) -> RunOutcome:
+        outcome = RunOutcome(folder, record, entry, signing is not None, tuple(recovered))
+        if written is not None:
+            written(outcome)
+        return outcome
+
+    return write_run(out_root, f"{loaded.plan.plan}-{started.strftime('%Y%m%dT%H%M%SZ')}-{run_id[:8]}", record,
+                     signature_files, history=history, reason=reason, sign=sign_entry, done=done)
 
 
 def execute_plan(plan: Plan, jobs: list[Job], *, execution: Execution | None = None,
@@ -182,15 +200,38 @@ def _run_id(loaded: LoadedPlan, tables: dict[str, Table], started: dt.datetime) 
     return digest.hexdigest()[:16]
 
 
-def write_run(out_root: Path, name: str, record: dict, extra: dict[str, str] | None = None) -> Path:
+def write_run(out_root: Path, name: str, record: dict, extra: dict[str, str] | None = None, *,
+              history: bool = False, reason: str | None = None, sign: Callable[[dict], dict] | None = None,
+              done: Callable[[Path, dict | None, list[dict]], RunOutcome] | None = None) -> RunOutcome:
     """Render the reports, then write the record, both reports and their figures as a new run folder
-    (with ``extra``: the record's signature, when the run signs it).
+    (with ``extra``: the record's signature, when the run signs it) and, with ``history``, append the
+    run's entry to the history log beside it. ``done(folder, entry, recovered)`` makes the outcome.
 
-    The reports are rendered before anything is created; `store.write_new_folder` writes every file
-    into a staging folder and renames it into place, so a folder with a run's name always holds a
-    complete record and both reports, and an existing folder is never reused.
+    The reports are rendered before anything is created; `store.staged_folder` writes every file into
+    a staging folder, which is renamed into place, so a folder with a run's name always holds a
+    complete record and both reports, and an existing folder is never reused. The rename and the
+    history entry happen together: under the log's lock, with interrupts held until both are done.
+    The entry is written into the folder before the rename (`files.ENTRY_WAITING`) and removed once
+    it is in the log, so a process killed between the two leaves it waiting for the next run (or
+    'history --repair') to append.
     """
     require_plain_name(name)  # before rendering, so that a bad name never costs a render
+    done = done or (lambda folder, entry, recovered: RunOutcome(folder, record, entry, False, tuple(recovered)))
     # report.html, report.md and the figures/*.svg files the Markdown report links to
     files = {"record.json": to_json(record), **report.render_all(record), **(extra or {})}
-    return write_new_folder(out_root, name, files)
+    with staged_folder(out_root, name, files) as staging:
+        if not history:
+            with holding_interrupts():  # put in place and known to be, or neither
+                return done(place_folder(staging, out_root, name), None, [])
+        with HistoryLog(out_root) as log, holding_interrupts():
+            folder = place_folder(staging, out_root, name,
+                                  prepare=lambda final: log.prepare(staging, final, record, reason, sign))
+            try:
+                entry = log.append(folder)
+            except OSError as exc:
+                raise OutputError(f"the run was written to {folder}, but its history entry could not be appended: "
+                                  f"{exc.strerror or exc}", where=str(out_root / HISTORY_FILE),
+                                  hint=f"the entry waits in the run folder; 'planrunner history {out_root} --repair' "
+                                       "or the next run there appends it") from None
+            return done(folder, entry, log.recovered)
+

@@ -14,13 +14,22 @@ from pathlib import Path
 from typing import Any
 
 from planrunner.data.tables import Table, file_sha256, resolve_data_path
-from planrunner.errors import PlanError, RecordError
+from planrunner.errors import OutputError, PlanError, RecordError
 from planrunner.plan.load import LoadedPlan, read_plan
 from planrunner.plan.params import PLACEHOLDER, resolve_values, substitute
-from planrunner.record.canonical import RECORD_HASH_FIELD, canonical_json, record_sha256
-from planrunner.trail.history import HISTORY_FILE, HistoryProblem, check_chain, new_entry, parse_lines
+from planrunner.record.canonical import RECORD_HASH_FIELD, record_sha256, self_hash
+from planrunner.trail.history import (
+    ENTRY_HASH_FIELD,
+    GENESIS,
+    HISTORY_FILE,
+    HistoryProblem,
+    check_chain,
+    entry_line,
+    new_entry,
+    parse_lines,
+)
 from planrunner.trail.lock import build_lock, check_lock, compare_with_lock, deviation_lines, lock_path_for
-from planrunner.trail.store import read_json, write_new_file
+from planrunner.trail.store import read_json, sync_folder, write_new_file, write_synced
 
 # --- locks -----------------------------------------------------------------------------------------
 
@@ -76,34 +85,168 @@ def lock_for_run(loaded: LoadedPlan, tables: dict[str, Table], lock: str | Path 
 
 # --- run history -----------------------------------------------------------------------------------
 
-def _exclusive(handle: Any) -> None:
-    """Hold the log for this process while it appends (POSIX; elsewhere appends are not serialised)."""
+def _lock_folder(folder: Path) -> int | None:
+    """Hold ``folder`` for this process until the descriptor returned is closed (POSIX; elsewhere
+    runs into one folder are not serialised). The folder itself is the lock, so that no file appears
+    in it before a run is logged."""
     try:
         import fcntl
     except ImportError:  # pragma: no cover - Windows
-        return
-    fcntl.flock(handle.fileno(), fcntl.LOCK_EX)
+        return None
+    descriptor = os.open(folder, os.O_RDONLY)
+    try:
+        fcntl.flock(descriptor, fcntl.LOCK_EX)
+    except BaseException:
+        os.close(descriptor)
+        raise
+    return descriptor
 
 
-def append_history(out_root: Path, record: dict, folder: str, reason: str | None,
-                   sign: Callable[[dict], dict] | None = None) -> dict:
-    """Append one chained entry to out_root/history.jsonl (the file is only ever appended to);
-    ``sign`` gives the signature the entry carries (see `history.new_entry`)."""
-    log = out_root / HISTORY_FILE
-    with open(log, "a+", encoding="utf-8", newline="\n") as handle:
-        _exclusive(handle)
-        handle.seek(0)
-        text = handle.read()
-        entries, _ = parse_lines(text)
-        previous = {k: v for k, v in entries[-1].items() if k != "_line"} if entries else None
-        entry = new_entry(previous, record, folder, reason, sign)
-        handle.seek(0, os.SEEK_END)
-        if text and not text.endswith("\n"):
-            handle.write("\n")
-        handle.write(canonical_json(entry) + "\n")
-        handle.flush()
-        os.fsync(handle.fileno())
-    return entry
+# In a run folder: the history entry its run is about to append. Written before the folder is put
+# in place and removed once the entry is in the log, so a run killed between the two leaves its entry
+# waiting here, and the next run into the same output folder (or 'history --repair') appends it.
+ENTRY_WAITING = ".history-entry.json"
+
+
+class HistoryLog:
+    """The history log of one output folder, held by this process (an exclusive lock) from the
+    moment a run is about to be put in place until its entry is appended.
+
+    On entering, it first appends the entries that runs killed between those two steps left waiting
+    in their folders (`recovered`), so that the log and the run folders agree again.
+    """
+
+    def __init__(self, out_root: Path):
+        self.out_root = out_root
+        self.recovered: list[dict] = []
+        self._pending: dict | None = None
+
+    def __enter__(self) -> HistoryLog:
+        self._log = self.out_root / HISTORY_FILE
+        try:
+            self._lock = _lock_folder(self.out_root)
+        except OSError as exc:
+            raise OutputError(f"cannot use the output folder: {exc.strerror or exc}", where=str(self.out_root),
+                              hint="nothing was kept; check that the folder can be written, then run again") from None
+        try:
+            self.recovered = self._recover()
+        except OSError as exc:
+            self._unlock()
+            raise OutputError(f"cannot append to the run history: {exc.strerror or exc}", where=str(self._log),
+                              hint="free space or check the folder's permissions, then run again") from None
+        except BaseException:
+            self._unlock()
+            raise
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        self._unlock()
+
+    def _unlock(self) -> None:
+        if self._lock is not None:
+            os.close(self._lock)
+            self._lock = None
+
+    def prepare(self, staging: Path, folder: str, record: dict, reason: str | None,
+                sign: Callable[[dict], dict] | None) -> None:
+        """Write into the staging folder the entry this run appends once it is in place as ``folder``."""
+        self._pending = new_entry(self.last(), record, folder, reason, sign)
+        write_synced(staging / ENTRY_WAITING, entry_line(self._pending) + "\n")
+
+    def append(self, folder: Path) -> dict:
+        """Append the prepared entry of the run now in place in ``folder``."""
+        assert self._pending is not None, "prepare() comes first"
+        self.append_entry(self._pending)
+        try:
+            (folder / ENTRY_WAITING).unlink()
+            sync_folder(folder)
+        except OSError:
+            pass  # the entry is in the log; the next HistoryLog of this folder removes the copy
+        return self._pending
+
+    def _text(self) -> str:
+        try:
+            with open(self._log, encoding="utf-8", newline="") as handle:  # lines end at \n only
+                return handle.read()
+        except FileNotFoundError:
+            return ""
+
+    def _entries(self) -> list[dict]:
+        return parse_lines(self._text())[0]
+
+    def last(self) -> dict | None:
+        entries = self._entries()
+        return {k: v for k, v in entries[-1].items() if k != "_line"} if entries else None
+
+    def append_entry(self, entry: dict) -> None:
+        """Append one entry as one line (the log is only ever appended to), flushed to disk."""
+        text = self._text()
+        with open(self._log, "a", encoding="utf-8", newline="\n") as handle:
+            if text and not text.endswith("\n"):
+                handle.write("\n")
+            handle.write(entry_line(entry) + "\n")
+            handle.flush()
+            os.fsync(handle.fileno())
+
+    def _recover(self) -> list[dict]:
+        recovered = []
+        for folder in sorted(self.out_root.iterdir()):
+            waiting = folder / ENTRY_WAITING
+            if folder.name.startswith(".") or not waiting.is_file():
+                continue
+            entry = _waiting_entry(waiting)
+            entries = self._entries()
+            if entry is not None and any(e.get(ENTRY_HASH_FIELD) == entry.get(ENTRY_HASH_FIELD) for e in entries):
+                waiting.unlink()  # appended already: only removing this file was cut short
+            elif entry is not None and _fits(entry, entries, folder):
+                self.append_entry(entry)
+                waiting.unlink()
+                recovered.append(entry)
+            # otherwise the folder stays as it is, and `history` says why
+        return recovered
+
+
+def _waiting_entry(waiting: Path) -> dict | None:
+    try:
+        entry = json.loads(waiting.read_text(encoding="utf-8"))
+    except (OSError, UnicodeDecodeError, json.JSONDecodeError):
+        return None
+    return entry if isinstance(entry, dict) else None
+
+
+def _fits(entry: dict, entries: list[dict], folder: Path) -> bool:
+    """Whether a waiting entry is the next one of the log, intact, for the record in its folder."""
+    last = entries[-1] if entries else None
+    previous = last.get(ENTRY_HASH_FIELD) if last else GENESIS
+    last_seq = last.get("seq") if last else 0
+    seq = (last_seq if isinstance(last_seq, int) else 0) + 1
+    try:
+        record = json.loads((folder / "record.json").read_text(encoding="utf-8"))
+    except (OSError, UnicodeDecodeError, json.JSONDecodeError):
+        return False
+    return (entry.get(ENTRY_HASH_FIELD) == self_hash(entry, ENTRY_HASH_FIELD) and entry.get("folder") == folder.name
+            and entry.get("previous_sha256") == previous and entry.get("seq") == seq and isinstance(record, dict)
+            and record.get(RECORD_HASH_FIELD) == entry.get("record_sha256") == record_sha256(record))
+
+
+def history_log(target: str | Path) -> Path:
+    """The history.jsonl named by a log, its folder, or a plan whose runs/ holds it."""
+    target = Path(target)
+    if target.is_file() and target.name != HISTORY_FILE:
+        return target.resolve().parent / "runs" / HISTORY_FILE
+    if target.is_dir():
+        return target / HISTORY_FILE
+    return target
+
+
+def repair_history(target: str | Path) -> list[dict]:
+    """Append the entries that killed runs left waiting in their folders; return them."""
+    log = history_log(target)
+    if not log.is_file():
+        raise RecordError("no run history here", where=str(log),
+                          hint="name a plan, its runs folder, or a history.jsonl file")
+    with HistoryLog(log.parent) as held:
+        return held.recovered
 
 
 @dataclass(frozen=True)
@@ -115,15 +258,10 @@ class HistoryReport:
 
 def history_report(target: str | Path) -> HistoryReport:
     """Read a history log (given the log, its folder, or a plan whose runs/ holds it) and check it."""
-    target = Path(target)
-    if target.is_file() and target.name != HISTORY_FILE:
-        log = target.resolve().parent / "runs" / HISTORY_FILE
-    elif target.is_dir():
-        log = target / HISTORY_FILE
-    else:
-        log = target
+    log = history_log(target)
     try:
-        text = log.read_text(encoding="utf-8")
+        with open(log, encoding="utf-8", newline="") as handle:  # lines end at \n only
+            text = handle.read()
     except FileNotFoundError:
         raise RecordError("no run history here", where=str(log),
                           hint="name a plan, its runs folder, or a history.jsonl file") from None
@@ -150,7 +288,14 @@ def history_report(target: str | Path) -> HistoryReport:
             problems.append(HistoryProblem(e["_line"], f"the record in {e.get('folder')} is not the one logged "
                                                         "(its hash differs)"))
     for folder in sorted(log.parent.iterdir()):
-        if (folder / "record.json").is_file() and folder.name not in listed:
+        # a hidden .staging-* folder is a run that was never put in place, not a run
+        if folder.name.startswith(".") or not (folder / "record.json").is_file() or folder.name in listed:
+            continue
+        if (folder / ENTRY_WAITING).is_file():
+            problems.append(HistoryProblem(0, f"run folder {folder.name} was written, but its run was stopped "
+                                              "before its entry was appended; 'planrunner history "
+                                              f"{log.parent} --repair' (or the next run there) appends it"))
+        else:
             problems.append(HistoryProblem(0, f"run folder {folder.name} is not in the history "
                                               "(entries may have been removed from the end of the log)"))
     return HistoryReport(log, [{k: v for k, v in e.items() if k != "_line"} for e in entries],

@@ -16,7 +16,7 @@ from collections.abc import Callable
 from dataclasses import dataclass
 from typing import Any
 
-from planrunner.record.canonical import self_hash
+from planrunner.record.canonical import canonical_json, self_hash
 
 HISTORY_FILE = "history.jsonl"
 HISTORY_FORMAT = "planrunner.history/1"
@@ -47,6 +47,22 @@ def new_entry(previous: dict[str, Any] | None, record: dict[str, Any], folder: s
     return entry
 
 
+# Characters that some reader takes for the end of a line: every separator of Python's
+# str.splitlines (\n \r \v \f, U+001C–U+001E, NEL U+0085, U+2028, U+2029), which covers Unicode's
+# mandatory breaks (line-break classes BK, CR, LF and NL). JSON escapes those below U+0020 itself.
+LINE_BREAKS = "\n\r\x0b\x0c\x1c\x1d\x1e\x85\u2028\u2029"
+
+
+def entry_line(entry: dict[str, Any]) -> str:
+    """An entry as one line of history.jsonl: its canonical JSON with every line-break character
+    written as a \\u escape, so that free text (a reason, an operator) can never split the line. The
+    parsed value, and so the entry's hash, is the same."""
+    text = canonical_json(entry)
+    for char in LINE_BREAKS:
+        text = text.replace(char, f"\\u{ord(char):04x}")
+    return text
+
+
 @dataclass(frozen=True)
 class HistoryProblem:
     line: int  # 1-based line of history.jsonl, 0 for the log as a whole
@@ -54,8 +70,13 @@ class HistoryProblem:
 
 
 def parse_lines(text: str) -> tuple[list[dict[str, Any]], list[HistoryProblem]]:
+    """The entries of a log and its unreadable lines. Lines end at \\n only: a log written before
+    line breaks were escaped may hold a raw U+2028 or U+0085 inside an entry's text."""
     entries, problems = [], []
-    for number, line in enumerate(text.splitlines(), start=1):
+    lines = text.split("\n")
+    if lines[-1] == "":
+        lines.pop()  # the newline that ends the last line
+    for number, line in enumerate(lines, start=1):
         if not line.strip():
             problems.append(HistoryProblem(number, "empty line"))
             continue

@@ -11,15 +11,18 @@ Every JSON file planrunner reads back (a record, a lock, a self-check report) is
 
 from __future__ import annotations
 
+import contextlib
 import errno
 import json
 import os
 import secrets
 import shutil
+from collections.abc import Callable, Iterator
 from pathlib import Path
 from typing import Any
 
 from planrunner.errors import OutputError, PlanrunnerError, RecordError
+from planrunner.execute.signals import holding_interrupts
 
 STAGING_PREFIX = ".staging-"  # folders being written; a killed run may leave one, never a run folder
 
@@ -38,7 +41,7 @@ def write_new_file(target: str | Path, text: str, *, what: str = "file", hint: s
     target = Path(target)
     staging = target.with_name(f".{target.name}.{secrets.token_hex(4)}.tmp")
     try:
-        _write_synced(staging, text)
+        write_synced(staging, text)
         os.link(staging, target)
     except FileExistsError:
         raise OutputError(taken or f"the {what} exists already; planrunner never overwrites a file",
@@ -59,31 +62,55 @@ def write_new_folder(root: Path, name: str, files: dict[str, str]) -> Path:
     never reused). Any failure, an interrupt included, removes the staging folder; a process killed
     outright can leave only a hidden ``.staging-*`` folder, which nothing reads.
     """
+    with staged_folder(root, name, files) as staging, holding_interrupts():
+        return place_folder(staging, root, name)
+
+
+@contextlib.contextmanager
+def staged_folder(root: Path, name: str, files: dict[str, str]) -> Iterator[Path]:
+    """A hidden staging folder under ``root`` holding ``files``, each flushed to disk, for the body
+    to put in place with `place_folder`. On leaving, whatever happened (an interrupt included), a
+    staging folder that was not put in place is removed."""
     require_plain_name(name)
     try:
         root.mkdir(parents=True, exist_ok=True)
     except OSError as exc:
         raise OutputError(f"cannot create the output folder: {exc.strerror or exc}", where=str(root),
                           hint="choose another folder with --out") from None
-    staging = _new_staging(root, name)
+    staging: Path | None = None
     try:
-        for relative, text in files.items():
-            (staging / relative).parent.mkdir(parents=True, exist_ok=True)
-            _write_synced(staging / relative, text)
-        final = _place(staging, root, name)
-        _sync_folder(root)
-        return final
+        with holding_interrupts():  # an interrupt between creating the folder and knowing it would leave it
+            staging = _new_staging(root, name)
+        try:
+            for relative, text in files.items():
+                (staging / relative).parent.mkdir(parents=True, exist_ok=True)
+                write_synced(staging / relative, text)
+        except OSError as exc:
+            raise _not_written(exc, root) from None
+        yield staging
+    finally:
+        if staging is not None:
+            shutil.rmtree(staging, ignore_errors=True)  # nothing there any more once it was put in place
+
+
+def place_folder(staging: Path, root: Path, name: str, *, prepare: Callable[[str], None] | None = None) -> Path:
+    """Rename the staging folder to ``name`` (or the next free ``name-k``) and make that durable.
+    ``prepare(final_name)`` runs before each rename is tried, for content that names the folder."""
+    try:
+        final = _place(staging, root, name, prepare)
     except OSError as exc:
-        shutil.rmtree(staging, ignore_errors=True)
-        raise OutputError(f"the run could not be written: {exc.strerror or exc}", where=str(root),
-                          hint="nothing was kept; free space or choose another folder with --out, "
-                               "then run again") from None
-    except BaseException:
-        shutil.rmtree(staging, ignore_errors=True)
-        raise
+        raise _not_written(exc, root) from None
+    sync_folder(root)
+    return final
 
 
-def _write_synced(path: Path, text: str) -> None:
+def _not_written(exc: OSError, root: Path) -> OutputError:
+    return OutputError(f"the run could not be written: {exc.strerror or exc}", where=str(root),
+                       hint="nothing was kept; free space or choose another folder with --out, then run again")
+
+
+def write_synced(path: Path, text: str) -> None:
+    """Write ``path`` (created or truncated) and flush it to disk."""
     with open(path, "w", encoding="utf-8", newline="\n") as handle:
         handle.write(text)
         handle.flush()
@@ -115,7 +142,7 @@ def _new_staging(root: Path, name: str) -> Path:
     raise OutputError("cannot create a staging folder", where=str(root), hint="choose another folder with --out")
 
 
-def _place(staging: Path, root: Path, name: str) -> Path:
+def _place(staging: Path, root: Path, name: str, prepare: Callable[[str], None] | None = None) -> Path:
     """Rename the staging folder to a name not yet taken. Another process may take the same name
     between the check and the rename: the rename then fails (the folder is not empty) and the next
     name is tried."""
@@ -125,6 +152,8 @@ def _place(staging: Path, root: Path, name: str) -> Path:
         k += 1
         if candidate.exists() or candidate.is_symlink():
             continue
+        if prepare is not None:
+            prepare(candidate.name)
         try:
             os.rename(staging, candidate)
             return candidate
@@ -134,7 +163,7 @@ def _place(staging: Path, root: Path, name: str) -> Path:
             raise
 
 
-def _sync_folder(folder: Path) -> None:
+def sync_folder(folder: Path) -> None:
     """Make the rename itself durable (POSIX); harmless where folders cannot be opened."""
     try:
         fd = os.open(folder, os.O_RDONLY)
