@@ -3,6 +3,7 @@ report as true numbers, never as a crash or a silently rescaled figure."""
 
 from __future__ import annotations
 
+import itertools
 import json
 import math
 
@@ -97,3 +98,47 @@ def test_arrangement_counts_stay_exact_integers_while_json_can_write_them():
     big = math.factorial(2000)
     text = arrangements_count(big)
     assert isinstance(text, str) and text.endswith("e+5735")
+
+
+def test_a_boolean_stratum_is_named_as_the_data_checks_name_it(write_plan, tmp_path):
+    """One rule for design labels: a boolean stratum reads true/false in the record, as in the checks
+    and in groups.compare (it once read True/False there)."""
+    rows = "".join(f"{g},{s},{v}\n" for g, s, v in [
+        ("a", "true", 1.0), ("a", "false", 2.0), ("a", "true", 3.5), ("a", "false", 4.0),
+        ("b", "true", 2.5), ("b", "false", 3.0), ("b", "true", 5.0), ("b", "false", 6.5)])
+    plan = write_plan("""
+plan: strata-words
+title: Boolean strata
+seed: 3
+datasets:
+  d:
+    file: data.csv
+    columns:
+      g: {type: category}
+      s: {type: boolean}
+      y: {type: number}
+analyses:
+  - id: shift
+    data: d
+    outcome: y
+    groups: {by: g, compare: [a, b]}
+    strata: s
+    statistic: mean_difference
+    method: permutation
+    resamples: 50
+""", {"data.csv": "g,s,y\n" + rows})
+    entry = run_plan(plan, out=tmp_path / "out", clock=fixed_clock).record["analyses"][0]
+    assert entry["n"]["strata"] == {"a": {"false": 2, "true": 2}, "b": {"false": 2, "true": 2}}
+    # exact, by listing the C(4, 2)² = 36 within-stratum arrangements here (doubled two-sided rule)
+    strata = {"true": [1.0, 3.5, 2.5, 5.0], "false": [2.0, 4.0, 3.0, 6.5]}  # a's two rows first
+    observed = np.mean([1.0, 3.5, 2.0, 4.0]) - np.mean([2.5, 5.0, 3.0, 6.5])
+    null = []
+    for first in itertools.combinations(range(4), 2):
+        for second in itertools.combinations(range(4), 2):
+            a = [strata["true"][i] for i in first] + [strata["false"][i] for i in second]
+            b = [strata["true"][i] for i in range(4) if i not in first] + \
+                [strata["false"][i] for i in range(4) if i not in second]
+            null.append(np.mean(a) - np.mean(b))
+    null = np.array(null)
+    greater, less = np.mean(null >= observed - 1e-12), np.mean(null <= observed + 1e-12)
+    assert entry["exact"] and entry["p_value"] == pytest.approx(min(1.0, 2 * min(greater, less)), rel=1e-12)

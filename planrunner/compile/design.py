@@ -7,24 +7,30 @@ from typing import Any
 
 import numpy as np
 
-from planrunner.data.tables import Table
+from planrunner.data.tables import Table, group_value
 from planrunner.engines.results import EngineWarning
 from planrunner.errors import DataError
 
 
-def _labels(table: Table, column: str) -> np.ndarray:
-    return np.array([str(v) for v in table.columns[column]], dtype=object)
+def labels_of(table: Table, column: str) -> np.ndarray:
+    """A column's values as group, stratum, pair and cluster labels: named exactly as the data checks
+    and ``groups.compare`` name them (booleans as true/false), the one rule for every design column."""
+    return np.array([group_value(v) for v in table.columns[column]], dtype=object)
 
 
 def cluster_codes(table: Table, column: str, masks: list[np.ndarray]) -> tuple[tuple[np.ndarray, ...], tuple[str, ...]]:
     """Integer cluster codes per group (codes shared across groups) and the cluster labels."""
-    labels, codes = np.unique(_labels(table, column), return_inverse=True)
+    labels, codes = np.unique(labels_of(table, column), return_inverse=True)
     return tuple(codes[m].astype(np.int64) for m in masks), tuple(str(v) for v in labels)
 
 
 def pair_order(table: Table, column: str, masks: list[np.ndarray], where: str) -> list[np.ndarray]:
-    """Row numbers of each of the two groups, aligned so that row i of each is pair i (pairs sorted)."""
-    ids = _labels(table, column)
+    """Row numbers of each of the two groups, aligned so that row i of each is pair i (pairs sorted).
+
+    The one alignment of pairs (bootstrap and permutation alike). The data checks have already
+    refused a pair with a missing or repeated row, naming its lines; the errors here only guard the
+    contract when this is called on its own."""
+    ids = labels_of(table, column)
     aligned = []
     for label, mask in zip(("first", "second"), masks):
         rows = np.flatnonzero(mask)
@@ -67,7 +73,7 @@ def repeated_id_warnings(table: Table, analysis: Any, dataset: Any,
     for name, spec in dataset.columns.items():
         if not spec.identifier or name in used or name not in table.columns:
             continue
-        ids = _labels(table, name)
+        ids = labels_of(table, name)
         repeats = sum(int(np.sum(np.unique(ids[m], return_counts=True)[1] > 1)) for m in masks)
         shared = set.intersection(*[set(ids[m]) for m in masks]) if len(masks) > 1 else set()
         if shared:

@@ -116,8 +116,7 @@ def compile_job(plan: Plan, analysis: Analysis, table: Table) -> Job:
         masks = [np.ones(values.size, dtype=bool)]
         labels: tuple[str, ...] = ("all rows",)
     else:
-        group_column = np.array([str(v).lower() if isinstance(v, (bool, np.bool_)) else str(v)
-                                 for v in table.columns[analysis.groups.by]], dtype=object)
+        group_column = design.labels_of(table, analysis.groups.by)
         labels = tuple(analysis.groups.compare)
         masks = [group_column == level for level in labels]
     for label, mask in zip(labels, masks):
@@ -140,7 +139,7 @@ def compile_job(plan: Plan, analysis: Analysis, table: Table) -> Job:
     samples = tuple(values[m] for m in masks)
     strata = strata_labels = None
     if analysis.strata is not None:
-        stratum_column = np.array([str(v) for v in table.columns[analysis.strata]], dtype=object)
+        stratum_column = design.labels_of(table, analysis.strata)
         strata_labels_all, codes = np.unique(stratum_column, return_inverse=True)
         strata_labels = tuple(str(s) for s in strata_labels_all)
         strata = tuple(codes[m].astype(np.int64) for m in masks)
@@ -153,36 +152,19 @@ def compile_job(plan: Plan, analysis: Analysis, table: Table) -> Job:
                clusters=clusters, paired=paired, warnings=warnings, design=permutation_design)
 
 
-def compile_design(analysis: Any, table: Table, masks: list[np.ndarray],
+def compile_design(analysis: Analysis, table: Table, masks: list[np.ndarray],
                    samples: tuple[np.ndarray, ...]) -> tuple[tuple[np.ndarray, ...], dict[str, Any]]:
     """Arrays for the declared pairs, clusters and covariates (permutation designs)."""
-    design: dict[str, Any] = {}
-    if getattr(analysis, "pairs", None) is not None:
-        keys = np.array([str(v) for v in table.columns[analysis.pairs]], dtype=object)
-        aligned = []
-        per_group: list[dict[str, Any]] = [{} for _ in masks]
-        for g, mask in enumerate(masks):
-            for key, line, value in zip(keys[mask], table.lines[mask], samples[g]):
-                if key in per_group[g]:
-                    raise DataError(f"analysis '{analysis.id}': pair '{key}' has two rows in group "
-                                    f"'{analysis.groups.compare[g]}' (line {line})", where=table.file,
-                                    hint="each pair needs exactly one row in each of the two groups")
-                per_group[g][key] = value
-        unmatched = sorted(set(per_group[0]) ^ set(per_group[1]))
-        if unmatched:
-            raise DataError(f"analysis '{analysis.id}': {len(unmatched)} pair(s) lack a row in one group "
-                            f"(first: '{unmatched[0]}')", where=table.file,
-                            hint="each pair needs exactly one row in each group; filter incomplete pairs out")
-        order = sorted(per_group[0])
-        aligned = [np.array([per_group[g][k] for k in order], dtype=float) for g in range(2)]
-        samples = tuple(aligned)
-        design["pairs"] = tuple(order)
-    if getattr(analysis, "clusters", None) is not None:
-        labels_all, codes = np.unique(np.array([str(v) for v in table.columns[analysis.clusters]], dtype=object),
-                                      return_inverse=True)
-        design["clusters"] = tuple(codes[m].astype(np.int64) for m in masks)
-        design["cluster_labels"] = tuple(str(v) for v in labels_all)
-    if getattr(analysis, "covariates", None):
-        design["covariates"] = np.column_stack([table.columns[c].astype(float) for c in analysis.covariates])
-        design["covariate_names"] = tuple(analysis.covariates)
-    return samples, design
+    found: dict[str, Any] = {}
+    if analysis.pairs is not None:
+        aligned = design.pair_order(table, analysis.pairs, masks, f"analysis '{analysis.id}'")
+        # where each aligned row sits among its group's rows, so the group's values follow the pairs
+        samples = tuple(np.asarray(samples[g], dtype=float)[np.searchsorted(np.flatnonzero(masks[g]), rows)]
+                        for g, rows in enumerate(aligned))
+        found["pairs"] = tuple(str(v) for v in design.labels_of(table, analysis.pairs)[aligned[0]])
+    if analysis.clusters is not None:
+        found["clusters"], found["cluster_labels"] = design.cluster_codes(table, analysis.clusters, masks)
+    if analysis.covariates:
+        found["covariates"] = np.column_stack([table.columns[c].astype(float) for c in analysis.covariates])
+        found["covariate_names"] = tuple(analysis.covariates)
+    return samples, found
