@@ -35,7 +35,7 @@ from planrunner.errors import EngineError
 
 __all__ = ["ALTERNATIVES", "ENUMERATION_LIMIT", "EXACT_CHOICES", "INTERVAL_CHOICES", "TIE_TOLERANCE",
            "ComputedNull", "PermutationOptions", "check_null", "choose_computation", "observed_value",
-           "permutation_result", "tie_tolerance", "unscaled"]
+           "permutation_result", "power_of_ten_text", "tie_tolerance", "unscaled"]
 
 ALTERNATIVES = ("greater", "less", "two-sided")
 EXACT_CHOICES = ("auto", "always", "never")
@@ -215,6 +215,11 @@ def unscaled(count: float, exponent: int) -> float | str:
     try:
         return math.ldexp(count, exponent)
     except OverflowError:
-        power = math.log10(count) + exponent * math.log10(2.0)
-        whole = math.floor(power)
-        return f"{10.0 ** (power - whole):.12f}e+{whole}"
+        return power_of_ten_text(math.log10(count) + exponent * math.log10(2.0))
+
+
+def power_of_ten_text(power: float) -> str:
+    """``10**power`` as decimal text in scientific notation, 13 significant digits: a count too large
+    for a float (or for Python to write as int text), e.g. '1.660842939376e+1202'."""
+    whole = math.floor(power)
+    return f"{10.0 ** (power - whole):.12f}e+{whole}"

@@ -14,7 +14,7 @@ from typing import Any
 
 import numpy as np
 
-from planrunner.engines.permcore import unscaled
+from planrunner.engines.permcore import power_of_ten_text, unscaled
 from planrunner.engines.results import PermutationResult
 from planrunner.record.canonical import plain_number as _f
 from planrunner.record.fields import MethodFields
@@ -37,11 +37,7 @@ INT_DIGITS_WRITTEN = 4000
 def arrangements_count(count: int) -> int | str:
     """The number of arrangements as JSON can carry it: the exact int up to 4000 digits (e.g. C(N, n)),
     beyond that (n! at n ≈ 1450 and up, a pairing count) decimal text with 13 significant digits."""
-    if count < 10**INT_DIGITS_WRITTEN:
-        return int(count)
-    power = math.log10(count)
-    whole = math.floor(power)
-    return f"{10.0 ** (power - whole):.12f}e+{whole}"
+    return int(count) if count < 10**INT_DIGITS_WRITTEN else power_of_ten_text(math.log10(count))
 
 
 def weighted_distribution(kind: str, values: np.ndarray, weights: np.ndarray | None, bins: int,
@@ -59,41 +55,29 @@ def weighted_distribution(kind: str, values: np.ndarray, weights: np.ndarray | N
     total = float(w.sum())
     mean = float(np.sum(w * values) / total)
     var = float(np.sum(w * (values - mean) ** 2) / total)
-    if weight_exponent:
-        return _rescaled_distribution(kind, values, w, weight_exponent, infinite, mean, var, bins)
+    rescaled = weight_exponent != 0
     lo, hi = float(values.min()), float(values.max())
     if lo == hi:
         lo, hi = lo - 0.5, hi + 0.5
-    counts, edges = np.histogram(values, bins=bins, range=(lo, hi), weights=w)
+    counts, edges = np.histogram(values, bins=bins, range=(lo, hi),
+                                 weights=w / (total + infinite) if rescaled else w)
     digest = hashlib.sha256(np.ascontiguousarray(values, dtype="<f8").tobytes())
     if weights is not None:
         digest.update(np.ascontiguousarray(w, dtype="<f8").tobytes())
-    return {"kind": kind, "size": _count(total + infinite) if weights is not None else int(values.size + infinite),
-            "support_points": int(values.size), "mean": mean,
-            "sd": math.sqrt(var * total / (total - 1)) if total > 1 else None,
+    if rescaled:
+        digest.update(str(weight_exponent).encode())
+    histogram: dict[str, Any] = {"edges": [float(e) for e in edges],
+                                 "counts": [float(c) if weights is not None else int(c) for c in counts]}
+    if rescaled:
+        histogram["counts_are"] = "probability"
+    # unscaled(x, 0) is x: only a rescaled null's counts are turned back into true counts
+    size = _count(unscaled(total + infinite, weight_exponent)) if weights is not None else int(values.size + infinite)
+    return {"kind": kind, "size": size, "support_points": int(values.size), "mean": mean,
+            # beyond the float range the divisor total − 1 is total itself
+            "sd": math.sqrt(var) if rescaled else math.sqrt(var * total / (total - 1)) if total > 1 else None,
             "min": float(values.min()), "max": float(values.max()), "sha256": digest.hexdigest(),
-            "weighted": weights is not None, "infinite": _count(infinite),
-            "histogram": {"edges": [float(e) for e in edges],
-                          "counts": [float(c) if weights is not None else int(c) for c in counts]}}
-
-
-def _rescaled_distribution(kind: str, values: np.ndarray, w: np.ndarray, exponent: int, infinite: float,
-                           mean: float, var: float, bins: int) -> dict[str, Any]:
-    """A weighted null whose weights are ``w · 2**exponent``: shares instead of counts (see above)."""
-    total = float(w.sum())
-    lo, hi = float(values.min()), float(values.max())
-    if lo == hi:
-        lo, hi = lo - 0.5, hi + 0.5
-    shares, edges = np.histogram(values, bins=bins, range=(lo, hi), weights=w / (total + infinite))
-    digest = hashlib.sha256(np.ascontiguousarray(values, dtype="<f8").tobytes())
-    digest.update(np.ascontiguousarray(w, dtype="<f8").tobytes())
-    digest.update(str(exponent).encode())
-    return {"kind": kind, "size": _count(unscaled(total + infinite, exponent)), "support_points": int(values.size),
-            "mean": mean, "sd": math.sqrt(var),  # the divisor total − 1 is total itself at this size
-            "min": float(values.min()), "max": float(values.max()), "sha256": digest.hexdigest(),
-            "weighted": True, "infinite": _count(unscaled(infinite, exponent)) if infinite else 0,
-            "histogram": {"edges": [float(e) for e in edges], "counts": [float(c) for c in shares],
-                          "counts_are": "probability"}}
+            "weighted": weights is not None, "infinite": _count(unscaled(infinite, weight_exponent)),
+            "histogram": histogram}
 
 
 def permutation_fields(result: PermutationResult, bins: int) -> MethodFields:
