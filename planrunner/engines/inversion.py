@@ -21,14 +21,14 @@ from collections.abc import Callable, Iterator
 
 import numpy as np
 
-from planrunner.engines.permcore import ENUMERATION_LIMIT, PermutationOptions, tie_tolerance
+from planrunner.engines.permcore import ENUMERATION, PermutationOptions, choose_computation, tie_tolerance
 from planrunner.engines.permutation import _enumerate, _evaluate, _pool, _random, null_centre
 from planrunner.engines.results import Interval
 from planrunner.engines.statistics import Statistic, check_samples
 from planrunner.engines.streams import Stream
 from planrunner.errors import EngineError
 
-__all__ = ["shift_interval"]
+__all__ = ["computation", "shift_interval"]
 
 HALVINGS = 60
 CACHE_ELEMENTS = 5_000_000
@@ -47,6 +47,25 @@ def _bisect(test: Callable[[float], bool], inside: float, outside: float) -> flo
     return 0.5 * (inside + outside)
 
 
+def _choose(arrangements: int, options: PermutationOptions) -> str:
+    """Enumeration or Monte Carlo by the one rule of ``choose_computation``. The interval tests many
+    shifted data sets on one set of arrangements and has no exact shortcut (the test alone may have
+    one), so ``exact: always`` beyond the enumeration limit is refused, never quietly drawn at random."""
+    return choose_computation(
+        arrangements, options, shortcut=False,
+        why="the shift interval has no exact shortcut (it re-tests every candidate shift on listed or drawn "
+            "arrangements)",
+        fix="use exact: auto (the test stays exact where a shortcut applies; the interval then draws "
+            "resamples at random) or exact: never, or drop intervals: [shift]")
+
+
+def computation(x: np.ndarray, y: np.ndarray, statistic: Statistic, options: PermutationOptions) -> str:
+    """The computation :func:`shift_interval` will use, or its refusal, raised, without drawing
+    anything: ``check`` calls it so that it finds what a run would refuse."""
+    x, y = check_samples([x, y], statistic, method="the shift interval")
+    return _choose(math.comb(x.size + y.size, x.size), options)
+
+
 def shift_interval(x: np.ndarray, y: np.ndarray, statistic: Statistic, options: PermutationOptions, *,
                    stream: Stream) -> tuple[Interval, float]:
     """(interval, shift estimate) for x = y + δ by inverting the permutation test of ``statistic``
@@ -54,13 +73,12 @@ def shift_interval(x: np.ndarray, y: np.ndarray, statistic: Statistic, options: 
     else ``options.resamples`` random ones)."""
     if options.confidence is None:
         raise EngineError("the shift interval needs a confidence level", hint="give confidence, e.g. 0.95")
-    confidence, resamples, exact = options.confidence, options.resamples, options.exact
+    confidence, resamples = options.confidence, options.resamples
     x, y = check_samples([x, y], statistic, method="the shift interval")
     pooled = _pool((x, y), None)
     n1, n2 = x.size, y.size
     arrangements = math.comb(n1 + n2, n1)
-    limit = ENUMERATION_LIMIT if exact == "always" else resamples
-    enumerate_all = exact != "never" and arrangements <= limit
+    enumerate_all = _choose(arrangements, options) == ENUMERATION
     rows = max(1, 2_000_000 // (n1 + n2))
     total = arrangements if enumerate_all else resamples
 

@@ -25,13 +25,21 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from planrunner.engines.permcore import ENUMERATION_LIMIT, tie_tolerance
-from planrunner.engines.permutation import _enumerate, _evaluate, _multinomial, _pool, _random, null_centre
+from planrunner.engines.permcore import ENUMERATION, PermutationOptions, choose_computation, tie_tolerance
+from planrunner.engines.permutation import (
+    _enumerate,
+    _evaluate,
+    _multinomial,
+    _pool,
+    _Pooled,
+    _random,
+    null_centre,
+)
 from planrunner.engines.statistics import Statistic, check_samples, check_strata, to_compute_layout
 from planrunner.engines.streams import Stream
 from planrunner.errors import EngineError
 
-__all__ = ["MaxTResult", "max_t"]
+__all__ = ["MaxTResult", "computation", "max_t"]
 
 CACHE_ELEMENTS = 5_000_000
 
@@ -54,24 +62,57 @@ class MaxTResult:
                 "rule": "exact: count / arrangements; Monte Carlo: (count + 1) / (resamples + 1)"}
 
 
-def max_t(endpoints: Sequence[tuple[Sequence[np.ndarray], Statistic, str]], *, strata: Sequence[np.ndarray] | None,
-          resamples: int, stream: Stream, exact: str = "auto", batch_elements: int = 2_000_000) -> MaxTResult:
-    """Step-down max-T adjusted p-values of endpoints ``(samples, statistic, alternative)``."""
+def _arrangements(layout: _Pooled) -> int:
+    return math.prod(_multinomial(sizes) for _, _, sizes in layout.blocks)
+
+
+def _choose(arrangements: int, resamples: int, exact: str) -> str:
+    """Enumeration or Monte Carlo by the one rule of ``choose_computation`` (no exact shortcut: the
+    joint null of several endpoints has no dynamic programme), so ``exact: always`` beyond the
+    enumeration limit is refused, never quietly drawn at random."""
+    options = PermutationOptions(resamples=resamples, alternative="two-sided", exact=exact)
+    return choose_computation(
+        arrangements, options, shortcut=False,
+        why="the joint max-T null of several endpoints has no exact shortcut (it is enumerated or drawn)",
+        fix="give the family's members exact: auto or exact: never (the family then draws its resamples "
+            "at random), or adjust the family with holm instead of max-t")
+
+
+Endpoint = tuple[Sequence[np.ndarray], Statistic, str]
+
+
+def _pooled(endpoints: Sequence[Endpoint], strata: Sequence[np.ndarray] | None) -> list[_Pooled]:
+    """Each endpoint's pooled layout; refused unless they share the rows, groups and strata."""
     if len(endpoints) < 2:
         raise EngineError("max-t needs at least two endpoints")
-    pooled_all, observed, centres = [], [], []
+    pooled_all = []
     for samples, statistic, _ in endpoints:
         data = check_samples(samples, statistic, method="max-t")
-        codes = check_strata(strata, data)
-        pooled_all.append(_pool(data, codes))
+        pooled_all.append(_pool(data, check_strata(strata, data)))
+    if any(other.blocks != pooled_all[0].blocks for other in pooled_all[1:]):
+        raise EngineError("max-t endpoints must share the rows, groups and strata")
+    return pooled_all
+
+
+def computation(endpoints: Sequence[Endpoint], *, strata: Sequence[np.ndarray] | None, resamples: int,
+                exact: str = "auto") -> str:
+    """The computation :func:`max_t` will use (enumeration or Monte Carlo), or its refusal, raised,
+    without drawing anything: ``check`` calls it so that it finds what a run would refuse."""
+    return _choose(_arrangements(_pooled(endpoints, strata)[0]), resamples, exact)
+
+
+def max_t(endpoints: Sequence[Endpoint], *, strata: Sequence[np.ndarray] | None,
+          resamples: int, stream: Stream, exact: str = "auto", batch_elements: int = 2_000_000) -> MaxTResult:
+    """Step-down max-T adjusted p-values of endpoints ``(samples, statistic, alternative)``."""
+    pooled_all = _pooled(endpoints, strata)
+    observed, centres = [], []
+    for pooled, (samples, statistic, _) in zip(pooled_all, endpoints):
+        data = check_samples(samples, statistic, method="max-t")
         observed.append(float(statistic.compute(*[to_compute_layout(a) for a in data])))
-        centres.append(null_centre(pooled_all[-1], statistic))
+        centres.append(null_centre(pooled, statistic))
     layout = pooled_all[0]
-    for other in pooled_all[1:]:
-        if other.blocks != layout.blocks:
-            raise EngineError("max-t endpoints must share the rows, groups and strata")
-    arrangements = math.prod(_multinomial(sizes) for _, _, sizes in layout.blocks)
-    is_exact = exact != "never" and arrangements <= (ENUMERATION_LIMIT if exact == "always" else resamples)
+    arrangements = _arrangements(layout)
+    is_exact = _choose(arrangements, resamples, exact) == ENUMERATION
     rows = max(1, batch_elements // layout.values.shape[0])
     total = arrangements if is_exact else resamples
     small = total * layout.values.shape[0] <= CACHE_ELEMENTS  # keep the arrangements only when small

@@ -109,18 +109,20 @@ def tie_tolerance(observed: float, scale: float) -> float:
 
 def choose_computation(arrangements: int, options: PermutationOptions, *, shortcut: bool,
                        shortcut_first: bool = False, space: str = "arrangements",
-                       statistic: str = "") -> str:
+                       statistic: str = "", why: str | None = None, fix: str | None = None) -> str:
     """Enumeration, dynamic programming or Monte Carlo, by one rule for every engine.
 
     ``shortcut``: an exact null by dynamic programming is available; ``shortcut_first``: it costs
     less than listing the arrangements, so it is used even where enumeration would be. ``space``
-    names the arrangements in the error message ("sign patterns", "pairings", ...).
+    names the arrangements in the error message ("sign patterns", "pairings", ...); ``why`` says why
+    no shortcut applies (default: none applies to ``statistic``) and ``fix`` replaces the hint.
     """
     if options.exact == "always" and arrangements > ENUMERATION_LIMIT and not shortcut:
+        why = why or f"no exact shortcut applies to {statistic!r} on these data"
         raise EngineError(
             f"exact enumeration asked for, but there are {arrangements:,} {space} "
-            f"(the limit is {ENUMERATION_LIMIT:,}) and no exact shortcut applies to {statistic!r} on these data",
-            hint="use exact: never (Monte Carlo) or exact: auto")
+            f"(the limit is {ENUMERATION_LIMIT:,}) and {why}",
+            hint=fix or "use exact: never (Monte Carlo) or exact: auto")
     if options.exact == "never":
         return MONTE_CARLO
     if shortcut and shortcut_first:

@@ -10,7 +10,7 @@ from __future__ import annotations
 import dataclasses
 
 from planrunner.compile.jobs import Job
-from planrunner.engines import association, clusters, permutation, signflip
+from planrunner.engines import association, clusters, inversion, permutation, signflip
 from planrunner.engines.association import association_test
 from planrunner.engines.clusters import cluster_test
 from planrunner.engines.inversion import shift_interval
@@ -41,7 +41,10 @@ def _computation(job: Job) -> str:
         return clusters.computation(job.samples[0], job.samples[1], x_codes, y_codes, job.statistic, options)
     if job.statistic.samples == 1:
         return association.computation(job.samples[0], job.statistic, options, covariates=job.design.get("covariates"))
-    return permutation.computation(job.samples, job.statistic, options, strata=job.strata)
+    found = permutation.computation(job.samples, job.statistic, options, strata=job.strata)
+    if "shift" in options.intervals:  # the interval's own choice: enumeration or Monte Carlo
+        inversion.computation(job.samples[0], job.samples[1], job.statistic, options)
+    return found
 
 
 def run_permutation(job: Job) -> PermutationResult:

@@ -24,7 +24,7 @@ from planrunner.data.tables import Table, read_table, resolve_data_path
 from planrunner.engines.maxt import MaxTResult
 from planrunner.errors import OutputError
 from planrunner.execute.executors import Execution, Progress, execute_all
-from planrunner.execute.families import max_t_families
+from planrunner.execute.families import max_t_families, planned_family_computations
 from planrunner.execute.permutation import planned_computation
 from planrunner.execute.signals import holding_interrupts
 from planrunner.plan.load import LoadedPlan, read_plan
@@ -123,6 +123,7 @@ def check_plan(path: str | Path, *, with_data: bool = True, params: dict[str, st
     for job in jobs:  # what a run would refuse, refused now, by the engines' own rule (no resampling)
         if job.method == "permutation":
             planned_computation(job)
+    planned_family_computations(loaded.plan, jobs)
     return CheckOutcome(loaded, tables, jobs, values)
 
 
