@@ -18,6 +18,7 @@ import numpy as np
 from planrunner.data.tables import FLOAT_EXACT, SHOW_LINES, Table, group_value
 from planrunner.engines.statistics import MAGNITUDE_LIMIT, STATISTICS
 from planrunner.errors import DataError
+from planrunner.plan.derived import dataset_columns
 from planrunner.plan.schema import Plan
 
 # The fewest rows per group each method is given. One row cannot vary under any resampling;
@@ -30,7 +31,7 @@ METHOD_WORDS = {"bootstrap": "the bootstrap", "jackknife": "the jackknife", "per
 def check_tables(plan: Plan, tables: dict[str, Table]) -> None:
     """Raise the first data problem of any analysis (analyses in plan order)."""
     for analysis in plan.analyses:
-        columns = plan.datasets[analysis.data].columns
+        columns = dataset_columns(plan.datasets[analysis.data])
         by = analysis.groups.by if analysis.groups is not None else None
         check_analysis(analysis, tables[analysis.data], declared=columns[by].levels if by in columns else None)
 

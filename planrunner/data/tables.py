@@ -22,6 +22,7 @@ from pathlib import Path
 import numpy as np
 
 from planrunner.errors import DataError, ExpressionError
+from planrunner.plan.derived import dataset_columns, derivations, needed_by
 from planrunner.plan.expr import parse_expression
 from planrunner.plan.schema import Column, Dataset
 
@@ -59,6 +60,7 @@ class Table:
     # read, before missing values and the keep filter: tells "absent from the file" apart from
     # "removed by the filter"
     values_read: Mapping[str, tuple[str, ...]] = field(default_factory=dict)
+    derived: tuple[tuple[str, str, str], ...] = ()  # (name, expression, type) of each derived column
 
     @property
     def rows_used(self) -> int:
@@ -197,9 +199,12 @@ def read_table(name: str, spec: Dataset, plan_folder: Path, *, data_root: Path |
             problems[c] = exc
     if problems:
         raise DataError.of_all([problems[c] for c in spec.columns if c in problems], shown)
+    table_columns = {c: v[keep] for c, v in columns.items()}  # the rows that missing values left
+    early = needed_by(spec, parse_expression(spec.keep).columns) if spec.keep is not None else set()
+    table_columns.update(_derive(name, spec, early, table_columns, line_of[keep], shown))
     if spec.keep is not None:
         try:
-            kept = parse_expression(spec.keep).evaluate({c: v[keep] for c, v in columns.items()})
+            kept = parse_expression(spec.keep).evaluate(table_columns)
         except ExpressionError as exc:
             lines = line_of[np.flatnonzero(keep)[list(exc.rows)]] if exc.rows else ()
             on = f" (line(s) {_list([int(n) for n in lines[:SHOW_LINES]], len(lines))} of {shown})" if exc.rows else ""
@@ -210,9 +215,39 @@ def read_table(name: str, spec: Dataset, plan_folder: Path, *, data_root: Path |
         if dropped.any():
             excluded.append(Exclusion(f"keep: {spec.keep}", int(dropped.sum()), tuple(_lines(dropped, line_of))))
         keep &= ~dropped
+        table_columns = {c: v[kept] for c, v in table_columns.items()}
+    table_columns.update(_derive(name, spec, set(spec.derive) - early, table_columns, line_of[keep], shown))
+    derived = {c: table_columns[c] for c in spec.derive if table_columns[c].dtype == bool}
     return Table(name=name, file=shown, path=path, sha256=sha, bytes=size, rows_read=rows_read,
-                 excluded=tuple(excluded), columns={c: v[keep] for c, v in columns.items()},
-                 lines=line_of[keep], ignored_columns=ignored, values_read=values_read)
+                 excluded=tuple(excluded), columns=table_columns, lines=line_of[keep], ignored_columns=ignored,
+                 values_read={**values_read, **{c: tuple(sorted({group_value(v) for v in values}))
+                                                for c, values in derived.items()}},
+                 derived=tuple((c, d.expression, dataset_columns(spec)[c].type) for c, d in spec.derived().items()))
+
+
+def _derive(name: str, spec: Dataset, which: set[str], rows: dict[str, np.ndarray], lines: np.ndarray,
+            shown: str) -> dict[str, np.ndarray]:
+    """The derived columns named in `which`, in the order written, computed on `rows` (file lines
+    `lines`). A value that is not a finite number (log of 0, a quotient by zero) is an error naming
+    the file's lines, never a NaN passed on to an analysis."""
+    out: dict[str, np.ndarray] = {}
+    for column, expression in derivations(spec).items():
+        if column not in which:
+            continue
+        try:
+            values = expression.evaluate({**rows, **out})
+        except ExpressionError as exc:
+            bad = lines[list(exc.rows)] if exc.rows else np.array([], dtype=int)
+            on = f" on line(s) {_list([int(n) for n in bad[:SHOW_LINES]], len(bad))} of {shown}" if exc.rows else ""
+            raise DataError(f"derived column '{column}' cannot be computed: {exc.message}{on}",
+                            where=f"{shown}:{int(bad[0])}" if exc.rows else shown,
+                            hint=f"exclude those rows with datasets.{name}.keep (a filter that does not use "
+                                 f"'{column}' is applied before it is computed), or change "
+                                 f"datasets.{name}.derive.{column}") from None
+        if spec.derived()[column].type == "number" and values.dtype == bool:
+            values = values.astype(np.float64)
+        out[column] = values
+    return out
 
 
 def _distinct(values: np.ndarray, kind: str, markers: set[str]) -> tuple[str, ...]:

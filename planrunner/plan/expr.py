@@ -1019,20 +1019,7 @@ class Expression:
 
     def _evaluate(self, columns: Mapping[str, np.ndarray]) -> np.ndarray:
         assert self._root is not None  # set in __post_init__
-        env: dict[str, _Value] = {}
-        rows: int | None = None
-        for name, position in self._first_seen:
-            if name not in columns:
-                raise _unknown_column(name, position, columns)
-            array = np.asarray(columns[name])
-            if array.ndim != 1:
-                raise ValueError(f"column {name!r} must be a 1-D array, not {array.ndim}-D")
-            if rows is not None and len(array) != rows:
-                raise ValueError(f"column {name!r} has {len(array)} rows, others have {rows}")
-            rows = len(array)
-            env[name] = _prepare_column(name, position, array)
-        if rows is None:  # the filter uses no column (e.g. "true"): one value per row anyway
-            rows = len(next(iter(columns.values()))) if columns else 0
+        env, rows = _environment(self._first_seen, columns)
         kind = self._root.infer({name: value.kind for name, value in env.items()})
         _check_root(self._root, kind)
         # Division by zero, log(0), sqrt(-1) give inf/NaN by IEEE rules; `_defined` turns each into
@@ -1102,3 +1089,100 @@ def _prepare_column(name: str, position: int, array: np.ndarray) -> _Value:
     raise _Problem(f"column {_written_name(name)} holds values of type {array.dtype}, "
                    f"which filters cannot use", position,
                    "filters work on numbers, true/false, text and dates")
+
+
+# --------------------------------------------------------------------------------------------
+# Derived columns: the same language giving a value per row
+# --------------------------------------------------------------------------------------------
+
+DERIVED_KINDS: dict[str, Kind] = {"number": "number", "integer": "number", "boolean": "bool",
+                                  "category": "text", "text": "text", "date": "date"}
+"""The kind a filter or derivation sees for each declared column type."""
+
+
+@dataclass(frozen=True)
+class ValueExpression:
+    """A parsed derivation (``derive:`` in a dataset): a number or true/false per row.
+
+    The same tokenizer, parser and tree as a row filter, so it can never run code; only the root
+    is not required to be a condition. Build it with `parse_value_expression`.
+    """
+
+    text: str
+    columns: frozenset[str]
+    _root: _Node = field(repr=False, compare=False)
+    _first_seen: tuple[tuple[str, int], ...] = field(default=(), repr=False, compare=False)
+
+    def kind(self, kinds: Mapping[str, Kind]) -> Kind | None:
+        """The kind of the result given the kinds of the columns it names (ExpressionError when
+        the types do not fit, e.g. text in a sum)."""
+        try:
+            return self._root.infer(kinds)
+        except _Problem as problem:
+            raise problem.to_error(self.text) from None
+
+    def evaluate(self, columns: Mapping[str, np.ndarray]) -> np.ndarray:
+        """One value per row: float64 for a number, bool for a condition. A result that is not a
+        finite number (log(0), a quotient by zero, an overflow) raises `ExpressionError` naming the
+        rows (0-based indices into the arrays), never a silent NaN or infinity."""
+        try:
+            env, rows = _environment(self._first_seen, columns)
+            kind = self._root.infer({name: value.kind for name, value in env.items()})
+            if kind not in _NUMERIC:
+                raise _Problem(f"a derived column must be a number or true/false, but this gives "
+                               f"{_KIND_PHRASE[kind] if kind else 'nothing'}", self._root.position,
+                               "compute a number (e.g. after - before) or a condition (e.g. dose > 0)")
+            with np.errstate(all="ignore"):
+                value = self._root.compute(env)
+            if kind == "bool":
+                return np.broadcast_to(np.asarray(value.data, dtype=bool), (rows,)).copy()
+            data = np.broadcast_to(np.asarray(value.data, dtype=np.float64), (rows,)).copy()
+            bad = ~np.isfinite(data)
+            if bad.any():  # a constant beyond the doubles (1e999) or a missing value of a column
+                raise _Problem(f"the value is not a finite number on {int(bad.sum())} row(s)",
+                               self._root.start, "exclude those rows first, or rescale the values",
+                               rows=tuple(int(i) for i in np.flatnonzero(bad)))
+            return data
+        except _Problem as problem:
+            raise problem.to_error(self.text) from None
+
+
+def parse_value_expression(text: str) -> ValueExpression:
+    """Parse a derivation, checking everything that does not depend on the data (as
+    `parse_expression` does, without requiring a condition)."""
+    if not isinstance(text, str):
+        raise ExpressionError(f"the expression must be text, not {type(text).__name__}",
+                              position=0, text=str(text), hint="put the expression in quotes")
+    try:
+        if len(text) > MAX_LENGTH:
+            raise _Problem(f"the expression is longer than {MAX_LENGTH} characters", MAX_LENGTH,
+                           "split it into several derived columns")
+        parser = _Parser(_tokenize(text))
+        root = parser.parse()
+        kind = root.infer({})
+        if kind is not None and kind not in _NUMERIC:
+            raise _Problem(f"a derived column must be a number or true/false, but this gives {_KIND_PHRASE[kind]}",
+                           root.position, "compute a number (e.g. after - before) or a condition (e.g. dose > 0)")
+    except _Problem as problem:
+        raise problem.to_error(text) from None
+    return ValueExpression(text, frozenset(parser.first_seen), root, tuple(parser.first_seen.items()))
+
+
+def _environment(first_seen: tuple[tuple[str, int], ...],
+                 columns: Mapping[str, np.ndarray]) -> tuple[dict[str, _Value], int]:
+    """The prepared columns an expression names, and the number of rows."""
+    env: dict[str, _Value] = {}
+    rows: int | None = None
+    for name, position in first_seen:
+        if name not in columns:
+            raise _unknown_column(name, position, columns)
+        array = np.asarray(columns[name])
+        if array.ndim != 1:
+            raise ValueError(f"column {name!r} must be a 1-D array, not {array.ndim}-D")
+        if rows is not None and len(array) != rows:
+            raise ValueError(f"column {name!r} has {len(array)} rows, others have {rows}")
+        rows = len(array)
+        env[name] = _prepare_column(name, position, array)
+    if rows is None:  # no column named: one value per row anyway
+        rows = len(next(iter(columns.values()))) if columns else 0
+    return env, rows

@@ -19,6 +19,7 @@ from pydantic import BaseModel
 from planrunner.engines.statistics import PARAMETERS, STATISTICS
 from planrunner.errors import ExpressionError, PlanError
 from planrunner.plan import permrules as permcheck
+from planrunner.plan.derived import dataset_columns, derived_problems
 from planrunner.plan.designrules import check_resampling_design
 from planrunner.plan.expr import parse_expression
 from planrunner.plan.params import parameter_problems
@@ -226,8 +227,9 @@ def cross_check(plan: Plan) -> list[Problem]:
     problems: list[Problem] = []
     for name, ds in plan.datasets.items():
         problems += _check_dataset_file(name, ds.file)
+        problems += derived_problems(name, ds)
         if ds.keep is not None:
-            problems += _check_expression(("datasets", name, "keep"), ds.keep, ds.columns)
+            problems += _check_expression(("datasets", name, "keep"), ds.keep, dataset_columns(ds))
     seen: dict[str, int] = {}
     for i, a in enumerate(plan.analyses):
         at = ("analyses", i)
@@ -284,7 +286,7 @@ def _check_analysis(at: Path_, a: Any, plan: Plan) -> list[Problem]:
     if ds is None:
         return [Problem(at + ("data",), f"no dataset is named '{a.data}'",
                         did_you_mean(a.data, plan.datasets) or f"declared: {', '.join(plan.datasets)}")]
-    cols = ds.columns
+    cols = dataset_columns(ds)
 
     def column(path: Path_, name: str, allowed: tuple[str, ...], role: str) -> bool:
         if name not in cols:

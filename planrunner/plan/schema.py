@@ -54,6 +54,14 @@ class Column(Strict):
         return self
 
 
+class Derived(Strict):
+    """A column computed from other columns of its dataset (``derive:``), in the row-filter language."""
+
+    expression: Annotated[str, Field(min_length=1)]
+    type: Literal["number", "boolean"] | None = None  # None: inferred from the expression
+    unit: str | None = None
+
+
 class Dataset(Strict):
     """A data file, the columns it must hold, and which rows are kept."""
 
@@ -67,6 +75,13 @@ class Dataset(Strict):
     # header columns the plan does not declare: ignored (and listed in the record), or refused by a
     # plan that wants the file to hold exactly the declared columns
     undeclared_columns: Literal["ignore", "refuse"] = "ignore"
+    # columns computed from the others, in order (a derivation may use the ones before it); the short
+    # form is `name: "expression"`
+    derive: dict[ColumnName, Annotated[str, Field(min_length=1)] | Derived] = Field(default_factory=dict)
+
+    def derived(self) -> dict[str, Derived]:
+        """Every derivation in its long form, in the order written."""
+        return {name: Derived(expression=d) if isinstance(d, str) else d for name, d in self.derive.items()}
 
 
 class Groups(Strict):

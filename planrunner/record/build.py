@@ -32,6 +32,7 @@ from planrunner.engines.maxt import MaxTResult
 from planrunner.engines.results import BootstrapResult, JackknifeResult, PermutationResult
 from planrunner.engines.statistics import comparison_word
 from planrunner.engines.streams import DRAW_BLOCK, GENERATOR
+from planrunner.plan.derived import dataset_columns
 from planrunner.plan.load import LoadedPlan
 from planrunner.plan.schema import Analysis, Plan
 from planrunner.record.bootstrap import bootstrap_fields
@@ -140,7 +141,7 @@ def analysis_entry(loaded: LoadedPlan, analysis: Analysis, job: Job, result: Res
                    families: list[FamilyFields]) -> dict[str, Any]:
     """One analysis's numbers, with everything needed to re-derive them."""
     plan = loaded.plan
-    unit = plan.datasets[analysis.data].columns[analysis.outcome].unit
+    unit = dataset_columns(plan.datasets[analysis.data])[analysis.outcome].unit
     adjusted, family_warnings = [], []
     for family in families:
         mine = family.for_member(analysis.id)
@@ -198,7 +199,10 @@ def build_record(loaded: LoadedPlan, tables: dict[str, Table], jobs: list[Job], 
         "datasets": [{"name": t.name, "file": t.file, "sha256": t.sha256, "bytes": t.bytes,
                       "rows_read": t.rows_read, "rows_used": t.rows_used, "ignored_columns": list(t.ignored_columns),
                       "excluded": [{"reason": e.reason, "rows": e.rows, "first_lines": list(e.lines)}
-                                   for e in t.excluded]} for t in tables.values()],
+                                   for e in t.excluded],
+                      # only a dataset that derives columns lists them: older records stay as they were
+                      **({"derived": [{"name": n, "expression": x, "type": k} for n, x, k in t.derived]}
+                         if t.derived else {})} for t in tables.values()],
         "environment": environment() if facts.environment is None else facts.environment,
         "seed": {"root": plan.seed, "generator": GENERATOR, "derivation": SEED_DERIVATION,
                  "draw_block": DRAW_BLOCK},
