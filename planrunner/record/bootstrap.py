@@ -12,7 +12,7 @@ from planrunner.engines.results import BootstrapResult, Interval
 from planrunner.record.bands import RULE as MC_INTERVAL_RULE
 from planrunner.record.bands import interval_bands
 from planrunner.record.canonical import plain_number as _f
-from planrunner.record.fields import MethodFields, array_sha256, distribution_summary, jsonable
+from planrunner.record.fields import MethodFields, array_sha256, distribution_summary, jsonable, support
 
 
 def bootstrap_fields(result: BootstrapResult, bins: int, *, save_distribution: bool = False) -> MethodFields:
@@ -65,7 +65,8 @@ def replicate_distribution(result: BootstrapResult, bins: int) -> dict[str, Any]
     out.update(kind=f"{kind} (every distinct resample, weighted by its probability)", mean=mean,
                sd=math.sqrt(float(np.sum(weights * (values - mean) ** 2))), weights_sha256=array_sha256(weights),
                histogram={"edges": out["histogram"]["edges"], "probabilities": [float(c) for c in counts],
-                          "counts": [int(round(c * values.size)) for c in counts]})
+                          "counts": [int(round(c * values.size)) for c in counts]},
+               support=support(values, weights, float(np.sum(weights))))
     return out
 
 

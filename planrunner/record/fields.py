@@ -55,6 +55,33 @@ def histogram(values: np.ndarray, bins: int) -> dict[str, Any]:
     return {"edges": [float(e) for e in edges], "counts": [int(c) for c in counts]}
 
 
+# a distribution with at most this many distinct values is also recorded value by value (`support`)
+SUPPORT_LIMIT = 100
+
+
+def support(values: np.ndarray, weights: np.ndarray | None = None, total: float | None = None) -> dict[str, Any] | None:
+    """The distinct finite values and the share of the distribution at each, when there are at most
+    SUPPORT_LIMIT of them (a discrete distribution: an exact null, a 0/1 outcome, a median of a few
+    integers), else None. Values closer than 2**-40 of the largest magnitude are one point: the same
+    arrangement total reached by sums in another order differs only in its last bits. ``total`` is
+    the whole distribution's weight (non-finite values included), so the shares are of all of it."""
+    values = np.asarray(values, dtype=float)
+    w = np.ones(values.size) if weights is None else np.asarray(weights, dtype=float)
+    finite = np.isfinite(values)
+    v, w = values[finite], w[finite]
+    if v.size == 0:
+        return None
+    order = np.argsort(v, kind="stable")
+    v, w = v[order], w[order]
+    gap = max(abs(float(v[0])), abs(float(v[-1]))) * 2.0**-40
+    starts = np.flatnonzero(np.concatenate(([True], np.diff(v) > gap)))
+    if starts.size > SUPPORT_LIMIT:
+        return None
+    mass = np.add.reduceat(w, starts)
+    whole = float(values.size if weights is None else np.sum(weights)) if total is None else total
+    return {"values": [_f(x) for x in v[starts]], "probabilities": [_f(m / whole) for m in mass]}
+
+
 def distribution_summary(kind: str, values: np.ndarray, bins: int) -> dict[str, Any]:
     """Size, moments, range, histogram and SHA-256 of a set of replicates (or pseudo-values)."""
     values = np.asarray(values, dtype=float)
@@ -68,6 +95,7 @@ def distribution_summary(kind: str, values: np.ndarray, bins: int) -> dict[str, 
         # the hash lets anyone holding the full distribution prove it is the one behind the numbers
         "sha256": array_sha256(values),
         "histogram": histogram(values, bins),
+        "support": support(values),
     }
 
 

@@ -17,7 +17,7 @@ import numpy as np
 from planrunner.engines.permcore import power_of_ten_text, unscaled
 from planrunner.engines.results import PermutationResult
 from planrunner.record.canonical import plain_number as _f
-from planrunner.record.fields import MethodFields
+from planrunner.record.fields import MethodFields, support
 
 
 def _count(x: Any) -> Any:
@@ -77,7 +77,7 @@ def weighted_distribution(kind: str, values: np.ndarray, weights: np.ndarray | N
             "sd": math.sqrt(var) if rescaled else math.sqrt(var * total / (total - 1)) if total > 1 else None,
             "min": float(values.min()), "max": float(values.max()), "sha256": digest.hexdigest(),
             "weighted": weights is not None, "infinite": _count(unscaled(infinite, weight_exponent)),
-            "histogram": histogram}
+            "histogram": histogram, "support": support(values, w, total + infinite)}
 
 
 def permutation_fields(result: PermutationResult, bins: int) -> MethodFields:

@@ -59,7 +59,11 @@ _analysis = _obj({
     "alternative": _str, "exact": {"type": ["boolean", "null"]},
     "resamples": {"type": ["integer", "null"], "minimum": 1},
     "monte_carlo": {"type": "object"}, "details": {"type": "object"},
-    "distribution": {"type": ["object", "null"]},
+    "distribution": {"oneOf": [{"type": "null"}, _obj({
+        "support": {"oneOf": [{"type": "null"}, _obj({
+            "values": {"type": "array", "items": {"type": "number"}, "maxItems": 100},
+            "probabilities": {"type": "array", "items": {"type": "number", "minimum": 0, "maximum": 1}}})]},
+    }, required=[])]},
     "warnings": {"type": "array", "items": _warning},
 }, required=["id", "method", "scheme", "statistic", "estimate", "standard_error", "bias", "intervals",
              "p_value", "alternative", "exact", "resamples", "n", "warnings", "settings", "stream"])

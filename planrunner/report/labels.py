@@ -17,6 +17,15 @@ TEST_STATISTICS = {"rank_sum": "W", "signed_rank": "T+", "t_pooled": "t", "t_wel
                    "rank_h": "H"}
 ASSOCIATION = {"correlation", "spearman", "kendall", "slope"}
 
+# interval methods as the trade writes them (the record keeps the plan's lower-case keys)
+INTERVAL_NAMES = {"percentile": "percentile", "bca": "BCa", "basic": "basic", "normal": "normal",
+                  "studentized": "studentized", "shift": "shift"}
+
+
+def interval_name(method: Any) -> str:
+    """An interval method as a reader writes it (BCa, not bca); an unknown one as recorded."""
+    return INTERVAL_NAMES.get(str(method), str(method))
+
 
 def direction(entry: dict[str, Any]) -> str | None:
     """'one-sided, A > B' (or '<') for a one-sided p-value; None for a two-sided one or none."""

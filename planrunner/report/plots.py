@@ -6,7 +6,14 @@ counts behind a p-value. Nothing here computes a statistic.
 
 Looks: bars in light grey, marks in the Okabe–Ito colours (distinguishable with the common colour
 vision deficiencies) and each mark also told apart by line style or hatching, so a greyscale print
-keeps every meaning. No mathtext (`text.parse_math` off), so a `$` in a unit stays a `$`.
+keeps every meaning. Each interval method has one colour and line style in every picture
+(`METHOD_STYLES`), so BCa looks the same wherever it appears. A distribution with few distinct
+values (the record's `distribution.support`) is drawn as spikes at those values, not as bars that
+alternate between full and empty; a weighted one (every arrangement or resample with its
+probability) shows probabilities, never counts of 10⁶⁵. Tick labels carry their own digits (no
+axis offset or multiplier text). A thin grey line marks the value of no effect (0 for a difference
+or a correlation, 1 for a ratio) and long dashes the decision's margin or limits when the record has
+them. No mathtext (`text.parse_math` off), so a `$` in a unit stays a `$`.
 
 Byte stability: a fixed `svg.hashsalt`, no date in the metadata, the font that ships with
 matplotlib, and text kept as text (`svg.fonttype: none`); the same record gives the same bytes.
@@ -23,15 +30,115 @@ from typing import Any
 
 import matplotlib
 from matplotlib.figure import Figure
+from matplotlib.ticker import Formatter as TickFormatter
 from matplotlib.ticker import MaxNLocator
 
-from planrunner.engines.statistics import STATISTICS
+from planrunner.engines.statistics import RATIOS, STATISTICS
 from planrunner.report import digits as precision
+from planrunner.report.labels import INTERVAL_NAMES
 
 # Okabe & Ito (2008) colours, each paired with a line style so that greyscale keeps them apart
-BLUE, GREEN, PURPLE, ORANGE, VERMILLION = "#0072B2", "#009E73", "#CC79A7", "#E69F00", "#D55E00"
-INTERVAL_STYLES = [(BLUE, "--"), (GREEN, ":"), (PURPLE, "-."), (ORANGE, (0, (5, 1, 1, 1)))]
+BLUE, GREEN, PURPLE, ORANGE, VERMILLION, SKY = "#0072B2", "#009E73", "#CC79A7", "#E69F00", "#D55E00", "#56B4E9"
 BAR, BAR_EDGE = "#d4d4d4", "#7a7a7a"
+NULL_LINE, DECISION_LINE = "#555555", "#000000"
+
+
+@dataclass(frozen=True)
+class MethodStyle:
+    """How one interval method is drawn and named, the same in every picture and page."""
+
+    colour: str
+    line: Any  # a matplotlib line style
+    name: str  # the name in the trade's spelling
+
+
+# one fixed style per interval method, never by its position in the plan's list
+METHOD_STYLES = {method: MethodStyle(colour, line, INTERVAL_NAMES[method]) for method, colour, line in (
+    ("percentile", BLUE, "--"),
+    ("bca", GREEN, ":"),
+    ("basic", PURPLE, "-."),
+    ("normal", ORANGE, (0, (5, 1, 1, 1))),
+    ("studentized", VERMILLION, (0, (3, 1, 1, 1, 1, 1))),
+    ("shift", SKY, (0, (6, 2))),
+)}
+OTHER_METHOD = MethodStyle("#444444", (0, (2, 2)), "")
+
+
+def method_style(method: Any) -> MethodStyle:
+    """The style of an interval method; a method this version does not know gets a neutral one."""
+    known = METHOD_STYLES.get(str(method))
+    return known if known is not None else MethodStyle(OTHER_METHOD.colour, OTHER_METHOD.line, str(method))
+
+
+def method_name(method: Any) -> str:
+    """An interval method as a reader writes it: BCa, percentile, basic, normal, studentized, shift."""
+    return method_style(method).name
+
+
+# statistics whose value of no effect is 0 (a difference, a correlation, a slope, a centred t) or 1 (a ratio)
+NO_EFFECT_ZERO = frozenset({"mean_difference", "median_difference", "quantile_difference", "risk_difference",
+                            "hodges_lehmann", "correlation", "spearman", "kendall", "slope",
+                            "t_pooled", "t_welch"})
+
+
+def null_value(statistic: Any) -> float | None:
+    """The statistic's value when there is no effect, from its kind (0 for a difference or an
+    association, 1 for a ratio); None when it has none (a mean, a rank sum, an F statistic)."""
+    if statistic in RATIOS:
+        return 1.0
+    return 0.0 if statistic in NO_EFFECT_ZERO else None
+
+
+def decision_marks(entry: dict[str, Any]) -> list[tuple[str, float]]:
+    """(label, value) of the decision's margin, limit or limits, read defensively: a record without
+    ``decision``, or with one whose values are missing or not finite numbers, gives none."""
+    decision = entry.get("decision")
+    if not isinstance(decision, dict):
+        return []
+    marks: list[tuple[str, float]] = []
+    if _finite(decision.get("margin")):
+        marks.append(("margin", float(decision["margin"])))
+    if _finite(decision.get("limit")):
+        marks.append(("limit", float(decision["limit"])))
+    limits = decision.get("limits")
+    if isinstance(limits, (list, tuple)):
+        marks += [("limit", v) for v in _finite(*limits)]
+    return marks
+
+
+class PlainTicks(TickFormatter):
+    """Tick labels that each say their whole value with just enough digits to tell neighbours
+    apart: no offset ("+1e6") or multiplier ("1e65") printed apart from the ticks, where it can
+    collide with the legend and is easily missed."""
+
+    def __call__(self, x: float, pos: int | None = None) -> str:
+        return self.format_ticks([x])[0]
+
+    def format_ticks(self, values: Any) -> list[str]:
+        values = [float(v) for v in values]
+        finite = sorted(v for v in values if math.isfinite(v))
+        big = max((abs(v) for v in finite), default=0.0)
+        steps = [b - a for a, b in zip(finite, finite[1:]) if b > a]
+        step = min(steps) if steps else (big or 1.0)
+        positional = big == 0.0 or 1e-4 <= big < 1e6
+        for digits in range(17):
+            labels = [_tick_text(v, digits, positional) for v in values]
+            if all(not math.isfinite(v) or abs(float(t.replace("\u2212", "-")) - v) <= step * 1e-3
+                   for t, v in zip(labels, values)):
+                return labels
+        return labels
+
+
+def _tick_text(value: float, digits: int, positional: bool) -> str:
+    if not math.isfinite(value):
+        return str(value)
+    text = f"{value:.{digits}f}" if positional else f"{value:.{digits}e}"
+    if not positional:
+        mantissa, exponent = text.split("e")
+        text = f"{mantissa}e{int(exponent)}"
+    if float(text) == 0.0:
+        return "0"
+    return text.replace("-", "\u2212")
 
 RC: Any = {  # matplotlib settings of every figure (Any: the stubs type the keys as a closed Literal)
     "svg.hashsalt": "planrunner",
@@ -72,23 +179,115 @@ def axis_label(entry: dict[str, Any], prefix: str = "") -> str:
     return f"{label} ({entry['unit']})" if entry.get("unit") and in_outcome_units(entry.get("statistic")) else label
 
 
-def _bars(ax: Any, hist: dict[str, Any]) -> int:
-    edges, counts = hist["edges"], hist["counts"]
-    ax.stairs(counts, edges, fill=True, color=BAR, label="_bars")
-    ax.stairs(counts, edges, color=BAR_EDGE, linewidth=0.6)
-    ax.yaxis.set_major_locator(MaxNLocator(integer=True))  # counts are whole numbers
-    return max(counts) if counts else 0
+@dataclass(frozen=True)
+class Shape:
+    """What a picture draws of a distribution: bars (``edges`` around ``heights``) or spikes (one
+    height at each of ``points``), and what a height is (``ylabel``)."""
+
+    edges: list[float]
+    points: list[float]
+    heights: list[float]
+    ylabel: str
+    probability: bool
+
+    @property
+    def spikes(self) -> bool:
+        return bool(self.points)
+
+    @property
+    def span(self) -> tuple[float, float]:
+        ends = self.points if self.spikes else [self.edges[0], self.edges[-1]]
+        return min(ends), max(ends)
+
+
+def _numbers(values: Any) -> list[float] | None:
+    """The list as floats when every item is a finite number, else None."""
+    if not isinstance(values, list) or not values:
+        return None
+    finite = _finite(*values)
+    return finite if len(finite) == len(values) else None
+
+
+def distribution_shape(entry: dict[str, Any], things: str) -> Shape | None:
+    """How to draw the entry's distribution: spikes at its support points when the record lists
+    them, else the histogram's bars; probabilities when the distribution is weighted (every
+    arrangement or resample with its probability), else counts of ``things`` (e.g. "replicates")."""
+    dist = entry.get("distribution") or {}
+    hist = dist.get("histogram") or {}
+    weighted = bool(dist.get("weighted")) or "probabilities" in hist or hist.get("counts_are") == "probability"
+    support: dict[str, Any] = dist["support"] if isinstance(dist.get("support"), dict) else {}
+    points, shares = _numbers(support.get("values")), _numbers(support.get("probabilities"))
+    if points and shares and len(points) == len(shares):
+        if weighted:
+            return Shape([], points, shares, "probability", True)
+        size = (_finite(dist.get("size")) or [0.0])[0]
+        return Shape([], points, [float(round(p * size)) for p in shares], f"{things} at each value", False)
+    edges, counts = _numbers(hist.get("edges")), _numbers(hist.get("counts"))
+    if not edges or not counts or len(edges) != len(counts) + 1:
+        return None
+    if weighted:
+        raw = _numbers(hist.get("probabilities")) or counts
+        total = sum(raw) + (_finite(dist.get("infinite")) or [0.0])[0]
+        return Shape(edges, [], [c / total if total > 0 else 0.0 for c in raw], "probability per bar", True)
+    return Shape(edges, [], counts, f"{things} per bar", False)
+
+
+def _draw(ax: Any, shape: Shape) -> float:
+    """Bars or spikes in grey; returns the tallest height."""
+    if shape.spikes:
+        ax.vlines(shape.points, 0, shape.heights, color=BAR_EDGE, linewidth=1.6)
+        ax.plot(shape.points, shape.heights, linestyle="none", marker="o", markersize=3.0, color=BAR_EDGE)
+    else:
+        ax.stairs(shape.heights, shape.edges, fill=True, color=BAR, label="_bars")
+        ax.stairs(shape.heights, shape.edges, color=BAR_EDGE, linewidth=0.6)
+    if not shape.probability:
+        ax.yaxis.set_major_locator(MaxNLocator(integer=True))  # counts are whole numbers
+    ax.xaxis.set_major_formatter(PlainTicks())
+    ax.yaxis.set_major_formatter(PlainTicks())
+    return max(shape.heights) if shape.heights else 0.0
 
 
 def _finite(*values: Any) -> list[float]:
     return [float(v) for v in values if isinstance(v, (int, float)) and not isinstance(v, bool) and math.isfinite(v)]
 
 
-def _limits(ax: Any, hist: dict[str, Any], *marks: Any) -> None:
-    points = _finite(hist["edges"][0], hist["edges"][-1], *marks)
+def _limits(ax: Any, shape: Shape, *marks: Any) -> None:
+    points = _finite(*shape.span, *marks)
     lo, hi = min(points), max(points)
     pad = (hi - lo) * 0.04 or 0.5
     ax.set_xlim(lo - pad, hi + pad)
+
+
+def _reference_lines(ax: Any, entry: dict[str, Any], shape: Shape, fmt: Formatter,
+                     *marks: Any) -> tuple[list[float], list[str]]:
+    """The line of no effect and the decision's margin or limits, each drawn when it lies within one
+    width of the drawn range (beyond that it would squeeze the picture, and the text says so).
+    Returns the values drawn (to keep in view) and the sentences for the text alternative."""
+    lo, hi = min(_finite(*shape.span, *marks)), max(_finite(*shape.span, *marks))
+    width = (hi - lo) or 1.0
+    drawn: list[float] = []
+    said: list[str] = []
+    none_value = null_value(entry.get("statistic"))
+    if none_value is not None:
+        if lo - width <= none_value <= hi + width:
+            ax.axvline(none_value, color=NULL_LINE, linewidth=1.0, label=f"no effect {fmt(none_value)}")
+            drawn.append(none_value)
+            said.append(f"a thin grey line marks no effect ({fmt(none_value)})")
+        else:
+            said.append(f"no effect ({fmt(none_value)}) lies outside the drawn range")
+    groups: dict[str, list[float]] = {}
+    for label, value in decision_marks(entry):
+        groups.setdefault(label, []).append(value)
+    for label, values in groups.items():
+        shown = [v for v in values if lo - width <= v <= hi + width]
+        name = f"decision {label}{'s' if len(values) > 1 else ''} {' and '.join(fmt(v) for v in values)}"
+        for k, value in enumerate(shown):
+            ax.axvline(value, color=DECISION_LINE, linewidth=1.2, linestyle=(0, (8, 3)),
+                       label=name if k == 0 else None)
+        drawn += shown
+        said.append(f"long dashes mark the {name}" if len(shown) == len(values)
+                    else f"the {name} {'lie' if len(values) > 1 else 'lies'} partly outside the drawn range")
+    return drawn, said
 
 
 def _svg(fig: Figure) -> str:
@@ -110,54 +309,66 @@ def _legend(ax: Any) -> None:
               handlelength=2.6, borderaxespad=0.2)
 
 
+def _what_drawn(shape: Shape, what: str) -> str:
+    """The start of a text alternative: what kind of picture of which distribution."""
+    if shape.spikes:
+        return (f"Spikes at the {len(shape.points)} values taken by {what}, each as tall as the "
+                f"{'probability' if shape.probability else 'number'} of that value")
+    return f"Histogram of {what}" + (" (bar heights are probabilities)" if shape.probability else "")
+
+
 def resampling_plot(entry: dict[str, Any], fmt: Formatter) -> Plot | None:
-    """Bootstrap replicates: bars, the estimate, each interval and the Monte Carlo band of its ends."""
-    hist = ((entry.get("distribution") or {}).get("histogram") or {})
-    if not hist.get("counts"):
+    """Bootstrap replicates: bars or spikes, the estimate, each interval and the Monte Carlo band of its ends."""
+    shape = distribution_shape(entry, "replicates")
+    if shape is None:
         return None
     bands = {b["method"]: b for b in (entry.get("monte_carlo") or {}).get("intervals") or []}
     with matplotlib.rc_context(RC):
         fig, ax = _figure()
-        top = _bars(ax, hist)
+        top = _draw(ax, shape)
         estimate = entry.get("estimate")
         marks: list[Any] = [estimate]
         if _finite(estimate):
             ax.axvline(estimate, color="black", linewidth=2.0, label=f"estimate {fmt(estimate)}")
         alt_parts = []
+        band_labelled = False
         for k, interval in enumerate(entry.get("intervals") or []):
-            colour, style = INTERVAL_STYLES[k % len(INTERVAL_STYLES)]
+            style = method_style(interval.get("method"))
             lower, upper = interval.get("lower"), interval.get("upper")
-            name = f"{interval['method']} {interval['level'] * 100:g}%"
-            if not _finite(lower, upper) or len(_finite(lower, upper)) < 2:
+            name = f"{style.name} {interval['level'] * 100:g}%"
+            if len(_finite(lower, upper)) < 2:
                 alt_parts.append(f"{name} interval not available")
                 continue
             y = top * (1.06 + 0.1 * k)
-            ax.plot([lower, upper], [y, y], color=colour, linestyle=style, linewidth=1.6,
+            ax.plot([lower, upper], [y, y], color=style.colour, linestyle=style.line, linewidth=1.6,
                     label=f"{name} interval")
             for end in (lower, upper):
-                ax.plot([end, end], [0, y], color=colour, linestyle=style, linewidth=1.0)
+                ax.plot([end, end], [0, y], color=style.colour, linestyle=style.line, linewidth=1.0)
             marks += [lower, upper]
             band = bands.get(interval["method"]) or {}
             band_text = []
             for side in ("lower_band", "upper_band"):
                 if band.get(side) and len(_finite(*band[side])) == 2:
                     lo, hi = band[side]
-                    ax.fill_between([lo, hi], y - top * 0.025, y + top * 0.025, facecolor=colour, alpha=0.35,
-                                    edgecolor=colour, linewidth=0.8,
-                                    label="Monte Carlo band of the ends" if side == "lower_band" and k == 0 else None)
+                    ax.fill_between([lo, hi], y - top * 0.025, y + top * 0.025, facecolor=style.colour, alpha=0.35,
+                                    edgecolor=style.colour, linewidth=0.8,
+                                    label=None if band_labelled else "Monte Carlo band of the ends")
+                    band_labelled = True
                     marks += [lo, hi]
                     band_text.append(f"{fmt(lo)} to {fmt(hi)}")
             alt_parts.append(f"{name} interval {fmt(lower)} to {fmt(upper)}"
                              + (f" (Monte Carlo band of the ends: {'; '.join(band_text)})" if band_text else ""))
-        _limits(ax, hist, *marks)
+        drawn, said = _reference_lines(ax, entry, shape, fmt, *marks)
+        _limits(ax, shape, *marks, *drawn)
         ax.set_ylim(0, top * (1.12 + 0.1 * max(len(entry.get("intervals") or []) - 1, 0)) or 1)
         ax.set_xlabel(axis_label(entry))
-        ax.set_ylabel("replicates per bar")
+        ax.set_ylabel(shape.ylabel)
         _legend(ax)
     size = (entry.get("distribution") or {}).get("size")
-    alt = (f"Histogram of {size} bootstrap replicates of the {axis_label(entry)}, from {fmt(hist['edges'][0])} "
-           f"to {fmt(hist['edges'][-1])}; the estimate {fmt(estimate)} is a solid black line"
-           + ("; " + "; ".join(alt_parts) if alt_parts else "") + ".")
+    lo, hi = shape.span
+    alt = (f"{_what_drawn(shape, f'{precision.count(size)} bootstrap replicates of the {axis_label(entry)}')}, "
+           f"from {fmt(lo)} to {fmt(hi)}; the estimate {fmt(estimate)} is a solid black line"
+           + ("; " + "; ".join(alt_parts + said) if alt_parts or said else "") + ".")
     return Plot(f"{entry['id']}-resampling", _svg(fig), alt)
 
 
@@ -177,35 +388,53 @@ def tail_side(entry: dict[str, Any]) -> str | None:
     return None
 
 
+def _shade_tail(ax: Any, shape: Shape, side: str, observed: float, tolerance: float) -> None:
+    """The part of the distribution on the counted side of the observed value: the bars cut at it,
+    or the spikes at or beyond it (within the test's tie tolerance), in hatched vermillion."""
+    if shape.spikes:
+        counted = [(x, h) for x, h in zip(shape.points, shape.heights)
+                   if (x >= observed - tolerance if side == "greater" else x <= observed + tolerance)]
+        if counted:
+            xs, hs = zip(*counted)
+            ax.vlines(xs, 0, hs, color=VERMILLION, linewidth=2.2)
+            ax.plot(xs, hs, linestyle="none", marker="s", markersize=4.0, color=VERMILLION)
+        return
+    for left, right, c in zip(shape.edges[:-1], shape.edges[1:], shape.heights):
+        lo, hi = (max(left, observed), right) if side == "greater" else (left, min(right, observed))
+        if c and hi > lo:
+            ax.fill_between([lo, hi], 0, c, facecolor=VERMILLION, alpha=0.55, edgecolor="black",
+                            hatch="////", linewidth=0.0, step=None)
+
+
 def null_plot(entry: dict[str, Any], fmt: Formatter, fmt_p: Formatter) -> Plot | None:
-    """Permutation null: bars, the observed statistic and, shaded, the tail that makes the p-value."""
-    hist = ((entry.get("distribution") or {}).get("histogram") or {})
-    if not hist.get("counts"):
+    """Permutation null: bars or spikes, the observed statistic and, shaded, the tail that makes the p-value."""
+    shape = distribution_shape(entry, "arrangements" if entry.get("exact") else "permutations")
+    if shape is None:
         return None
     observed = entry.get("estimate")
     side = tail_side(entry)
     details = entry.get("details") or {}
     with matplotlib.rc_context(RC):
         fig, ax = _figure()
-        top = _bars(ax, hist)
-        edges, counts = hist["edges"], hist["counts"]
-        if side is not None and _finite(observed):
-            # the part of each bar on the counted side of the observed value (bars are cut at it)
-            for left, right, c in zip(edges[:-1], edges[1:], counts):
-                lo, hi = (max(left, observed), right) if side == "greater" else (left, min(right, observed))
-                if c and hi > lo:
-                    ax.fill_between([lo, hi], 0, c, facecolor=VERMILLION, alpha=0.55, edgecolor="black",
-                                    hatch="////", linewidth=0.0, step=None)
-            ax.fill_between([], [], [], facecolor=VERMILLION, alpha=0.55, edgecolor="black", hatch="////",
-                            label="tail counted for the p-value"
-                            + (" (doubled)" if entry.get("alternative") == "two-sided" else ""))
+        top = _draw(ax, shape)
+        if side is not None and isinstance(observed, (int, float)) and _finite(observed):
+            scale = max(abs(v) for v in _finite(observed, *shape.span))
+            tolerance = max(_finite(details.get("tolerance")) + [scale * 2.0**-40])
+            _shade_tail(ax, shape, side, float(observed), abs(tolerance))
+            doubled = " (doubled)" if entry.get("alternative") == "two-sided" else ""
+            if shape.spikes:
+                ax.plot([], [], color=VERMILLION, linewidth=2.2, marker="s", markersize=4.0,
+                        label=f"values counted for the p-value{doubled}")
+            else:
+                ax.fill_between([], [], [], facecolor=VERMILLION, alpha=0.55, edgecolor="black", hatch="////",
+                                label=f"tail counted for the p-value{doubled}")
         if _finite(observed):
             ax.axvline(observed, color="black", linewidth=2.0, label=f"observed {fmt(observed)}")
-        _limits(ax, hist, observed)
+        drawn, said = _reference_lines(ax, entry, shape, fmt, observed)
+        _limits(ax, shape, observed, *drawn)
         ax.set_ylim(0, top * 1.08 or 1)
         ax.set_xlabel(axis_label(entry))
-        ax.set_ylabel("share of arrangements per bar" if hist.get("counts_are") == "probability"
-                      else "arrangements per bar" if entry.get("exact") else "permutations per bar")
+        ax.set_ylabel(shape.ylabel)
         _legend(ax)
     size = (entry.get("distribution") or {}).get("size")
     count_key = {"greater": "count_greater_equal", "less": "count_less_equal"}.get(side or "")
@@ -217,38 +446,42 @@ def null_plot(entry: dict[str, Any], fmt: Formatter, fmt_p: Formatter) -> Plot |
         tail = (f"; shaded: the {precision.count(details.get(count_key))} values {relation} the observed value"
                 f"{', doubled for the two-sided p-value' if entry.get('alternative') == 'two-sided' else ''}"
                 f" (p = {fmt_p(entry.get('p_value'), (entry.get('monte_carlo') or {}).get('p_value_sd'), alpha)})")
-    alt = (f"Histogram of the permutation null distribution ({precision.count(size)} {what}) "
+    lo, hi = shape.span
+    alt = (f"{_what_drawn(shape, f'the permutation null distribution ({precision.count(size)} {what})')} "
            f"of the {axis_label(entry)}, "
-           f"from {fmt(edges[0])} to {fmt(edges[-1])}; the observed value {fmt(observed)} is a solid black "
-           f"line{tail}.")
+           f"from {fmt(lo)} to {fmt(hi)}; the observed value {fmt(observed)} is a solid black "
+           f"line{tail}" + ("; " + "; ".join(said) if said else "") + ".")
     return Plot(f"{entry['id']}-null", _svg(fig), alt)
 
 
 def pseudo_value_plot(entry: dict[str, Any], fmt: Formatter) -> Plot | None:
-    """Jackknife pseudo-values: bars, the estimate and the bias-corrected estimate (their mean)."""
-    hist = ((entry.get("distribution") or {}).get("histogram") or {})
-    if not hist.get("counts"):
+    """Jackknife pseudo-values: bars or spikes, the estimate and the bias-corrected estimate (their mean)."""
+    shape = distribution_shape(entry, "observations")
+    if shape is None:
         return None
     estimate = entry.get("estimate")
     corrected = (entry.get("details") or {}).get("corrected_estimate")
     with matplotlib.rc_context(RC):
         fig, ax = _figure()
-        top = _bars(ax, hist)
+        top = _draw(ax, shape)
         if _finite(estimate):
             ax.axvline(estimate, color="black", linewidth=2.0, label=f"estimate {fmt(estimate)}")
         if _finite(corrected):
             ax.axvline(corrected, color=BLUE, linewidth=1.6, linestyle="--",
                        label=f"bias-corrected (mean of pseudo-values) {fmt(corrected)}")
-        _limits(ax, hist, estimate, corrected)
+        drawn, said = _reference_lines(ax, entry, shape, fmt, estimate, corrected)
+        _limits(ax, shape, estimate, corrected, *drawn)
         ax.set_ylim(0, top * 1.08 or 1)
         ax.set_xlabel(axis_label(entry, "pseudo-value, "))
-        ax.set_ylabel("observations per bar")
+        ax.set_ylabel(shape.ylabel)
         _legend(ax)
     size = (entry.get("distribution") or {}).get("size")
-    alt = (f"Histogram of the {size} jackknife pseudo-values of the {axis_label(entry)}, from "
-           f"{fmt(hist['edges'][0])} to {fmt(hist['edges'][-1])}; the estimate {fmt(estimate)} is a solid "
-           f"black line and the bias-corrected estimate {fmt(corrected)} a dashed blue line. Isolated bars "
-           f"far from the rest are observations with a large influence on the estimate.")
+    lo, hi = shape.span
+    alt = (f"{_what_drawn(shape, f'the {size} jackknife pseudo-values of the {axis_label(entry)}')}, from "
+           f"{fmt(lo)} to {fmt(hi)}; the estimate {fmt(estimate)} is a solid "
+           f"black line and the bias-corrected estimate {fmt(corrected)} a dashed blue line"
+           + ("; " + "; ".join(said) if said else "")
+           + ". Isolated bars far from the rest are observations with a large influence on the estimate.")
     return Plot(f"{entry['id']}-pseudo-values", _svg(fig), alt)
 
 

@@ -64,6 +64,7 @@ def _environment(kind: str) -> jinja2.Environment:
     env.filters["count"] = precision.count
     env.filters["exactness"] = exactness
     env.filters["compares"] = comparison_word
+    env.filters["interval"] = labels.interval_name
     env.globals["fence"] = markdown_fence
     return env
 
