@@ -116,7 +116,7 @@ def test_each_analysis_shows_question_design_scheme_and_plot(files, demo):
     for entry in demo.record["analyses"]:
         part = article(html, entry["id"])
         assert f"<strong>Question.</strong> {entry['question']}" in part
-        assert entry["scheme"].replace("×", "×") in part and "Random stream" in part
+        assert entry["scheme"].replace("×", "×") in part and "Seed and random streams" in part
         assert part.count("<svg") == 1 and 'role="img"' in part and "<figcaption>" in part
     primary = article(html, "primary")
     assert "replicates per bar" in primary and "difference in medians (minutes)" in primary

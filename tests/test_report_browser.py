@@ -143,3 +143,48 @@ def test_a_long_unbroken_level_still_fits_the_printed_page(demo, browser, tmp_pa
     finally:
         browser.call("Emulation.setEmulatedMedia", media="")
         browser.call("Emulation.clearDeviceMetricsOverride")
+
+
+# --- the other pages: the comparison of two runs and the index of a plan's runs ---------------------
+
+def check_page(browser, page: Path, artefact: str) -> dict:
+    """What every page planrunner writes must pass in the browser: no console message, no request
+    besides the file, nothing wider than the screen or than A4's printable width, every picture
+    drawn; the full-page screenshot is saved as a test artefact."""
+    browser.open(page.as_uri())
+    assert browser.problems() == []
+    assert [url for url in browser.requests() if url != page.as_uri()] == []
+    pictures = browser.evaluate("""[...document.querySelectorAll('svg')].map(s => {
+        const r = s.getBoundingClientRect(); return {width: r.width, height: r.height,
+        marks: s.querySelectorAll('path, line, polyline, circle, rect').length,
+        title: (s.querySelector('title') || {}).textContent || ''}; })""")
+    for picture in pictures:
+        assert picture["width"] > 200 and picture["height"] > 80 and picture["marks"] > 5, picture
+        assert len(picture["title"]) > 20, picture
+    assert browser.evaluate("document.scripts.length + document.images.length") == 0
+    for media, width in (("screen", 1100), ("print", int((210.0 - 24.0) / 25.4 * 96))):
+        browser.call("Emulation.setEmulatedMedia", media=media)
+        browser.call("Emulation.setDeviceMetricsOverride", width=width, height=1000, deviceScaleFactor=1, mobile=False)
+        try:
+            overflow = browser.evaluate(OVERFLOW)
+            assert overflow["page"] <= 0 and overflow["wide"] == [], (media, overflow)
+        finally:
+            browser.call("Emulation.setEmulatedMedia", media="")
+            browser.call("Emulation.clearDeviceMetricsOverride")
+    ARTIFACTS.mkdir(exist_ok=True)
+    shot = ARTIFACTS / artefact
+    browser.screenshot(shot)
+    assert shot.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+    return {"pictures": pictures}
+
+
+def test_comparison_page_loads_cleanly_and_fits(demo, browser, tmp_path):
+    from planrunner.report import compare
+
+    other = copy.deepcopy(demo.record)
+    other["run_id"], other["operator"] = "b" * 16, "<b>second</b> operator"
+    other["analyses"][0]["estimate"] = -6.5
+    page = tmp_path / "comparison.html"
+    page.write_text(compare.render_html(compare.compare_records(demo.record, other)), encoding="utf-8")
+    check_page(browser, page, "comparison-demo.png")
+    assert "<b>second</b> operator" in browser.evaluate("document.body.textContent")

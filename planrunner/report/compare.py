@@ -1,18 +1,19 @@
 """Two records side by side: what changed between runs (e.g. last month's extract and this month's).
 
 Pure functions of two record dicts: `compare_records` gathers the differences, and three renderers
-show them as a terminal table, Markdown and a self-contained HTML page. Numbers are only formatted
-here, never recomputed.
+show them as a terminal table, Markdown and a self-contained HTML page (the jinja2 template
+`compare.html.j2`, with the report's look). Numbers are only formatted here, never recomputed.
 """
 
 from __future__ import annotations
 
-import html
+import re
 from typing import Any
 
 from planrunner.errors import PlanError
 from planrunner.plan.yamlsafe import load_yaml
 from planrunner.record.canonical import differences
+from planrunner.report.labels import interval_name
 from planrunner.report.render import number, pvalue
 
 
@@ -138,7 +139,8 @@ def _sections(c: dict[str, Any]) -> list[tuple[str, list[str], list[list[str]]]]
             for x in c["analyses"] for p in x["adjusted"]]
     if rows:
         out.append(("Adjusted p-values", ["analysis", "adjustment", "A", "B", "change"], rows))
-    rows = [[x["id"], i["method"], i["a"] or "—", i["b"] or "—"] for x in c["analyses"] for i in x["intervals"]]
+    rows = [[x["id"], interval_name(i["method"]), i["a"] or "—", i["b"] or "—"] for x in c["analyses"]
+            for i in x["intervals"]]
     if rows:
         out.append(("Intervals", ["analysis", "method", "A", "B"], rows))
     rows = []
@@ -189,17 +191,27 @@ def render_markdown(c: dict[str, Any]) -> str:
     return "\n".join(parts)
 
 
+# columns that hold numbers (right-aligned) or hashes (monospace) in the HTML page, by heading
+_NUMERIC = {"Estimates and p-values": {2, 3, 4, 5, 6, 7}, "Adjusted p-values": {2, 3, 4},
+            "Data": {3, 4, 5, 6}}
+_HASHES = {"Runs": set(), "Data": {7, 8}}
+
+
+def _anchor(heading: str) -> str:
+    return "s-" + re.sub(r"[^a-z0-9]+", "-", heading.lower()).strip("-")
+
+
 def render_html(c: dict[str, Any]) -> str:
-    ra, rb = c["runs"]
-    e = html.escape
-    body = [f"<h1>Comparison of two runs</h1><p>A: <code>{e(ra['run_id'])}</code> ({e(ra['finished_utc'])}); "
-            f"B: <code>{e(rb['run_id'])}</code> ({e(rb['finished_utc'])}). Changes are B minus A.</p>"]
+    """The comparison as one self-contained page (no script, no link, no network), from the
+    template `compare.html.j2`; every text is escaped by the template."""
+    from planrunner.report.render import environment
+
+    sections = []
     for heading, header, rows in _sections(c):
-        head = "".join(f"<th>{e(h)}</th>" for h in header)
-        cells = "".join("<tr>" + "".join(f"<td>{e(cell)}</td>" for cell in r) + "</tr>" for r in rows)
-        body.append(f"<h2>{e(heading)}</h2><table><thead><tr>{head}</tr></thead><tbody>{cells}</tbody></table>")
-    style = ("body{font-family:system-ui,sans-serif;margin:2em;color:#222}table{border-collapse:collapse;"
-             "margin-bottom:1.5em}th,td{border:1px solid #bbb;padding:.25em .6em;text-align:left}"
-             "th{background:#eee}code{font-size:.95em}")
-    return ("<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\"><title>Comparison of two runs</title>"
-            f"<style>{style}</style></head><body>\n" + "\n".join(body) + "\n</body></html>\n")
+        numeric, hashes = _NUMERIC.get(heading, set()), _HASHES.get(heading, set())
+        sections.append({"heading": heading, "anchor": _anchor(heading), "header": header, "rows": rows,
+                         "numeric": [k in numeric for k in range(len(header))],
+                         "hashes": [k in hashes for k in range(len(header))]})
+    template = environment("html").get_template("compare.html.j2")
+    return template.render(runs=c["runs"], sections=sections, plan_same_bytes=c["plan_same_bytes"],
+                           plan_changes=c["plan_changes"])

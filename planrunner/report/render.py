@@ -40,6 +40,11 @@ def templates_folder() -> Path:
     return Path(__file__).resolve().parents[2] / "templates"
 
 
+def environment(kind: str) -> jinja2.Environment:
+    """The jinja2 environment of every page and report of `kind` ('html' escapes, 'md' does not)."""
+    return _environment(kind)
+
+
 @functools.cache  # one environment per kind and process: each template is compiled once per process
 def _environment(kind: str) -> jinja2.Environment:
     import jinja2
