@@ -12,6 +12,7 @@ from typing import Any
 import numpy as np
 
 from planrunner.compile import design
+from planrunner.data.formats import TEXT_FORMATS, in_rows
 from planrunner.data.tables import Table
 from planrunner.engines.bootstrap import BootstrapOptions
 from planrunner.engines.jackknife import JackknifeOptions
@@ -60,7 +61,14 @@ class Job:
 
 
 def compile_jobs(plan: Plan, tables: dict[str, Table]) -> list[Job]:
-    return [compile_job(plan, analysis, tables[analysis.data]) for analysis in plan.analyses]
+    jobs = []
+    for analysis in plan.analyses:
+        table = tables[analysis.data]
+        try:
+            jobs.append(compile_job(plan, analysis, table))
+        except DataError as exc:  # a typed file's rows are observations, not lines of text
+            raise (exc if table.format in TEXT_FORMATS else in_rows(exc)) from None
+    return jobs
 
 
 def bootstrap_options(analysis: BootstrapAnalysis, defaults: Defaults) -> BootstrapOptions:

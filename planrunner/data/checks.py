@@ -15,6 +15,7 @@ from typing import Any
 
 import numpy as np
 
+from planrunner.data.formats import TEXT_FORMATS, in_rows
 from planrunner.data.tables import FLOAT_EXACT, SHOW_LINES, Table, group_value
 from planrunner.engines.statistics import MAGNITUDE_LIMIT, STATISTICS
 from planrunner.errors import DataError
@@ -33,7 +34,11 @@ def check_tables(plan: Plan, tables: dict[str, Table]) -> None:
     for analysis in plan.analyses:
         columns = dataset_columns(plan.datasets[analysis.data])
         by = analysis.groups.by if analysis.groups is not None else None
-        check_analysis(analysis, tables[analysis.data], declared=columns[by].levels if by in columns else None)
+        table = tables[analysis.data]
+        try:
+            check_analysis(analysis, table, declared=columns[by].levels if by in columns else None)
+        except DataError as exc:  # a typed file's rows are observations, not lines of text
+            raise (exc if table.format in TEXT_FORMATS else in_rows(exc)) from None
 
 
 def _lines(lines: np.ndarray) -> str:

@@ -18,9 +18,11 @@ from collections.abc import Mapping
 from dataclasses import dataclass, field
 from decimal import Decimal, InvalidOperation
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 
+from planrunner.data.formats import NULL, TEXT_FORMATS, Entry, format_of, in_rows, read_cells, text_dictionary
 from planrunner.errors import DataError, ExpressionError
 from planrunner.plan.derived import dataset_columns, derivations, needed_by
 from planrunner.plan.expr import parse_expression
@@ -61,6 +63,8 @@ class Table:
     # "removed by the filter"
     values_read: Mapping[str, tuple[str, ...]] = field(default_factory=dict)
     derived: tuple[tuple[str, str, str], ...] = ()  # (name, expression, type) of each derived column
+    format: str = "csv"  # csv, tsv, xpt, dataset-json, parquet, xlsx
+    dictionary: tuple[Entry, ...] = ()  # what the file says of each declared column (labels, formats)
 
     @property
     def rows_used(self) -> int:
@@ -160,19 +164,35 @@ def read_table(name: str, spec: Dataset, plan_folder: Path, *, data_root: Path |
         raise DataError(f"the file has changed: its sha256 is {sha}, the plan pins {spec.sha256}",
                         where=shown, hint="use the file the plan was written for, or update the pin "
                                           "(a deviation to document)")
-    fmt = spec.format or ("tsv" if path.suffix.lower() in (".tsv", ".tab") else "csv")
-    header, rows, line_of = _read_rows(data, fmt, shown)
-    index = _column_index(header, spec, name, fmt, shown)
-    raw = {c: np.array([row[index[c]].strip() for row in rows], dtype=object) for c in spec.columns}
-    ignored = tuple(h or f"(unnamed column {i + 1})" for i, h in enumerate(header) if h not in spec.columns)
-    rows_read = len(rows)
-    if rows_read == 0:
-        raise DataError("the file has a header but no data rows", where=shown,
-                        hint="check that the extract is complete")
+    fmt = format_of(spec, path)
+    if fmt in TEXT_FORMATS:
+        header, rows, line_of = _read_rows(data, fmt, shown)
+        index = _column_index(header, spec, name, fmt, shown)
+        raw = {c: np.array([row[index[c]].strip() for row in rows], dtype=object) for c in spec.columns}
+        ignored = tuple(h or f"(unnamed column {i + 1})" for i, h in enumerate(header) if h not in spec.columns)
+        dictionary, nulls = text_dictionary(spec), set()
+        if not rows:
+            raise DataError("the file has a header but no data rows", where=shown,
+                            hint="check that the extract is complete")
+    else:  # typed formats: the declared columns as text, one value per observation (data/formats.py)
+        cells = read_cells(data, fmt, shown, name, spec)
+        raw, line_of, ignored, dictionary, nulls = cells.columns, cells.rows, cells.ignored, cells.dictionary, {NULL}
+    try:
+        return _checked_table(name, spec, shown, raw, line_of, nulls, path=path, sha256=sha, bytes=size,
+                              ignored_columns=ignored, format=fmt, dictionary=dictionary)
+    except DataError as exc:  # a typed file's rows are observations, not lines of text
+        raise (exc if fmt in TEXT_FORMATS else in_rows(exc)) from None
+
+
+def _checked_table(name: str, spec: Dataset, shown: str, raw: dict[str, np.ndarray], line_of: np.ndarray,
+                   nulls: set[str], **facts: Any) -> Table:
+    """Missing values, types, levels and ranges of the declared columns, the derived columns and the
+    row filter; `facts` are the file's (path, hash, size, format, dictionary, ignored columns)."""
+    rows_read = int(line_of.size)
     keep = np.ones(rows_read, dtype=bool)
     excluded: list[Exclusion] = []
 
-    markers = set(spec.missing_values)
+    markers = set(spec.missing_values) | nulls
     values_read = {c: _distinct(raw[c], spec.columns[c].type, markers) for c in spec.columns
                    if spec.columns[c].type in GROUPING_TYPES}
     problems: dict[str, DataError] = {}  # every column's first problem, reported together
@@ -218,8 +238,8 @@ def read_table(name: str, spec: Dataset, plan_folder: Path, *, data_root: Path |
         table_columns = {c: v[kept] for c, v in table_columns.items()}
     table_columns.update(_derive(name, spec, set(spec.derive) - early, table_columns, line_of[keep], shown))
     derived = {c: table_columns[c] for c in spec.derive if table_columns[c].dtype == bool}
-    return Table(name=name, file=shown, path=path, sha256=sha, bytes=size, rows_read=rows_read,
-                 excluded=tuple(excluded), columns=table_columns, lines=line_of[keep], ignored_columns=ignored,
+    return Table(name=name, file=shown, **facts, rows_read=rows_read,
+                 excluded=tuple(excluded), columns=table_columns, lines=line_of[keep],
                  values_read={**values_read, **{c: tuple(sorted({group_value(v) for v in values}))
                                                 for c, values in derived.items()}},
                  derived=tuple((c, d.expression, dataset_columns(spec)[c].type) for c, d in spec.derived().items()))

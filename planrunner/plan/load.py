@@ -24,7 +24,7 @@ from planrunner.plan.designrules import check_resampling_design
 from planrunner.plan.expr import parse_expression
 from planrunner.plan.params import parameter_problems
 from planrunner.plan.problems import Problem, did_you_mean
-from planrunner.plan.schema import METHODS, Plan
+from planrunner.plan.schema import DATA_SUFFIXES, METHODS, Dataset, Plan
 from planrunner.plan.yamlsafe import MAX_PLAN_BYTES, LoadedYaml, Path_, dotted, load_yaml
 
 NUMERIC_TYPES = ("number", "integer", "boolean")
@@ -228,6 +228,7 @@ def cross_check(plan: Plan) -> list[Problem]:
     for name, ds in plan.datasets.items():
         problems += _check_dataset_file(name, ds.file)
         problems += derived_problems(name, ds)
+        problems += _check_sheet(name, ds)
         if ds.keep is not None:
             problems += _check_expression(("datasets", name, "keep"), ds.keep, dataset_columns(ds))
     seen: dict[str, int] = {}
@@ -268,6 +269,18 @@ def _check_dataset_file(name: str, file: str) -> list[Problem]:
         # the path is shown in reports, inside Markdown code spans and HTML: keep it plain
         return [Problem(at, "data paths may not contain control characters, backticks or angle brackets",
                         "rename the file")]
+    return []
+
+
+def _check_sheet(name: str, ds: Dataset) -> list[Problem]:
+    """A workbook is read from one named sheet; no other format has sheets."""
+    fmt = ds.format or DATA_SUFFIXES.get(PurePosixPath(ds.file).suffix.lower(), "csv")
+    if fmt == "xlsx" and ds.sheet is None:
+        return [Problem(("datasets", name), "a workbook (.xlsx) needs the sheet to read: add 'sheet: NAME'",
+                        "name the sheet that holds the data, exactly as its tab is labelled")]
+    if fmt != "xlsx" and ds.sheet is not None:
+        return [Problem(("datasets", name, "sheet"), f"sheet applies only to .xlsx workbooks, and this file is {fmt}",
+                        "remove sheet, or set format: xlsx if the file is a workbook")]
     return []
 
 

@@ -19,6 +19,10 @@ Role = Literal["primary", "secondary", "sensitivity", "supplementary"]
 IntervalMethod = Literal["percentile", "basic", "normal", "bca", "studentized"]
 Resamples = Annotated[int, Field(ge=1, le=10_000_000)]
 Confidence = Annotated[float, Field(gt=0.5, lt=1.0)]
+DataFormat = Literal["csv", "tsv", "xpt", "dataset-json", "parquet", "xlsx"]
+# the format a file's ending names, when the plan gives no `format` (any other ending: csv)
+DATA_SUFFIXES = {".csv": "csv", ".tsv": "tsv", ".tab": "tsv", ".xpt": "xpt", ".json": "dataset-json",
+                 ".parquet": "parquet", ".xlsx": "xlsx"}
 MultiplicityMethod = Literal["bonferroni", "holm", "hochberg", "bh", "by", "max-t"]
 
 
@@ -66,7 +70,8 @@ class Dataset(Strict):
     """A data file, the columns it must hold, and which rows are kept."""
 
     file: Annotated[str, Field(min_length=1)]
-    format: Literal["csv", "tsv"] | None = None
+    format: DataFormat | None = None
+    sheet: Annotated[str, Field(min_length=1)] | None = None  # the sheet of an .xlsx workbook
     sha256: Annotated[str, Field(pattern=r"^[0-9a-f]{64}$")] | None = None
     columns: Annotated[dict[ColumnName, Column], Field(min_length=1)]
     missing: Literal["refuse", "drop"] = "refuse"

@@ -197,6 +197,9 @@ def build_record(loaded: LoadedPlan, tables: dict[str, Table], jobs: list[Job], 
         "plan": {"id": plan.plan, "title": plan.title, "description": plan.description,
                  "file": loaded.file.name, "sha256": loaded.sha256, "text": loaded.text, "lock": None},
         "datasets": [{"name": t.name, "file": t.file, "sha256": t.sha256, "bytes": t.bytes,
+                      "format": t.format, "dictionary": [
+                          {"column": e.name, "label": e.label, "display_format": e.display_format,
+                           "stored_as": e.stored_as} for e in t.dictionary],
                       "rows_read": t.rows_read, "rows_used": t.rows_used, "ignored_columns": list(t.ignored_columns),
                       "excluded": [{"reason": e.reason, "rows": e.rows, "first_lines": list(e.lines)}
                                    for e in t.excluded],
