@@ -30,11 +30,12 @@ def test_exact_null_beyond_the_float_range_is_recorded_as_shares(write_plan, tmp
     dist = entry["distribution"]
     assert dist["histogram"]["counts_are"] == "probability"
     assert sum(dist["histogram"]["counts"]) == pytest.approx(1.0, abs=1e-12)  # shares of all arrangements
-    log10_total = special.gammaln(1201) / math.log(10) - 2 * special.gammaln(601) / math.log(10)  # log10 C(1200, 600)
-    size = dist["size"]
-    assert isinstance(size, str)
-    mantissa, exponent = size.split("e+")
-    assert math.log10(float(mantissa)) + int(exponent) == pytest.approx(log10_total, abs=1e-9)
+    # the size is the exact number of arrangements, identity 18: C(1200, 600), written as its digits
+    assert dist["size"] == str(math.comb(1200, 600)) and entry["details"]["counts_exact"]
+    # group a's events are hypergeometric: C(138, k) C(1062, 600 − k) arrangements give k events
+    # (identity 17), so the count at or below the observed 60 is that sum, exactly
+    less = sum(math.comb(138, k) * math.comb(1062, 600 - k) for k in range(0, 61))
+    assert entry["details"]["count_less_equal"] == str(less)
     # the null mean of the difference in proportions is 0 under label exchangeability (identity)
     assert dist["mean"] == pytest.approx(0.0, abs=1e-12)
     # its s.d.: the hypergeometric s.d. of group a's events, over n_a and n_b (scipy reference)

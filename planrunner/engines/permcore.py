@@ -27,6 +27,7 @@ from typing import Any
 
 import numpy as np
 
+from planrunner.engines.exactdist import EXACT_FROM
 from planrunner.engines.pvalues import TWO_SIDED_RULES, summarize
 from planrunner.engines.results import EngineWarning, PermutationResult, frozen_array
 from planrunner.engines.statistics import Statistic
@@ -166,6 +167,9 @@ class ComputedNull:
     arrangements: int
     weights: np.ndarray | None = None  # times 2**weight_exponent arrangements (see exactdist)
     weight_exponent: int = 0
+    # the same weights as exact Python integers (an object array), where they pass 2**53 and the
+    # exact programme was affordable; the counts and p-values are then taken from them
+    exact_weights: np.ndarray | None = None
 
     @property
     def exact(self) -> bool:
@@ -187,8 +191,10 @@ def permutation_result(null: ComputedNull, observed: float, options: Permutation
                        warnings: tuple[EngineWarning, ...] = ()) -> PermutationResult:
     """p-values of ``observed`` against ``null`` and the result that carries them (the p-value
     warnings first, then the engine's own ``warnings``)."""
+    exact_counts = null.exact_weights is not None
     pv = summarize(null.values, observed, exact=null.exact, alternative=options.alternative,
-                   two_sided=options.two_sided, tolerance=tolerance, center=centre, weights=null.weights,
+                   two_sided=options.two_sided, tolerance=tolerance, center=centre,
+                   weights=null.exact_weights if exact_counts else null.weights,
                    alpha=options.alpha, arrangements=null.arrangements)
     resamples = int(null.values.shape[0]) if null.weights is None else null.arrangements
     if null.exact and min(pv.count_greater, pv.count_less) <= 0:
@@ -196,7 +202,7 @@ def permutation_result(null: ComputedNull, observed: float, options: Permutation
         raise EngineError(f"the observed value {observed!r} lies outside its own exact null distribution "
                           "(its weight is below what the computation can hold, or rounding separated it)",
                           hint="use exact: never (Monte Carlo), whose p-value cannot be 0")
-    scale = null.weight_exponent
+    scale = 0 if exact_counts else null.weight_exponent  # exact integers need no scaling back
     return PermutationResult(
         observed=observed, p_value=pv.p_value, alternative=options.alternative, two_sided_rule=options.two_sided,
         exact=null.exact, arrangements=null.arrangements, resamples=resamples,
@@ -205,14 +211,16 @@ def permutation_result(null: ComputedNull, observed: float, options: Permutation
         scheme=about.scheme, warnings=pv.warnings + tuple(warnings), conventions=dict(about.conventions),
         p_greater=pv.p_greater, p_less=pv.p_less, count_absolute=unscaled(pv.count_absolute, scale), centre=centre,
         monte_carlo_se=pv.monte_carlo_se, p_interval=pv.p_interval, smallest_p=pv.smallest_p,
-        null_weights=None if null.weights is None else frozen_array(null.weights), null_weight_exponent=scale,
+        null_weights=None if null.weights is None else frozen_array(null.weights),
+        null_weight_exponent=null.weight_exponent, null_exact_weights=null.exact_weights,
+        counts_exact=null.weights is None or exact_counts or null.arrangements <= EXACT_FROM,
         computation=null.computation, design=dict(about.design))
 
 
-def unscaled(count: float, exponent: int) -> float | str:
+def unscaled(count: float | int, exponent: int) -> float | int | str:
     """A DP count held as ``count · 2**exponent``: a float while one holds it, else the same number
     as decimal text in scientific notation (13 significant digits, from its logarithm)."""
-    if exponent == 0:
+    if exponent == 0 or isinstance(count, int):
         return count
     try:
         return math.ldexp(count, exponent)

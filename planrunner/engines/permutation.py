@@ -51,7 +51,14 @@ import numpy as np
 
 from planrunner.engines.blocks import bind as range_task
 from planrunner.engines.blocks import map_resamples
-from planrunner.engines.exactdist import WORK_LIMIT, dp_work, integer_scores, sum_distribution
+from planrunner.engines.exactdist import (
+    EXACT_FROM,
+    WORK_LIMIT,
+    dp_work,
+    exact_sum_distribution,
+    integer_scores,
+    sum_distribution,
+)
 from planrunner.engines.permcore import (
     DYNAMIC_PROGRAMMING,
     ENUMERATION,
@@ -195,8 +202,8 @@ def _null(pooled: _Pooled, statistic: Statistic, options: PermutationOptions, st
     path, arrangements, dp_plan = _choose(pooled, statistic, options, fast)
     if path == DYNAMIC_PROGRAMMING:
         assert dp_plan is not None
-        values, weights, exponent = _dp_null(pooled, statistic, dp_plan)
-        return ComputedNull(values, path, arrangements, weights, exponent)
+        values, weights, exponent, exact = _dp_null(pooled, statistic, dp_plan, arrangements)
+        return ComputedNull(values, path, arrangements, weights, exponent, exact)
     if path == ENUMERATION:
         values = _evaluate(pooled, statistic, _enumerate(pooled, rows_per_batch), arrangements, fast=fast)
         return ComputedNull(values, path, arrangements)
@@ -254,11 +261,16 @@ def _dp_plan(pooled: _Pooled, statistic: Statistic) -> _DpPlan | None:
     return _DpPlan(strata, scale, scores, work)
 
 
-def _dp_null(pooled: _Pooled, statistic: Statistic, plan: _DpPlan) -> tuple[np.ndarray, np.ndarray, int]:
-    """Support of the exact null (statistic values) and the number of arrangements at each (times
-    2**exponent)."""
+def _dp_null(pooled: _Pooled, statistic: Statistic, plan: _DpPlan,
+             arrangements: int) -> tuple[np.ndarray, np.ndarray, int, np.ndarray | None]:
+    """Support of the exact null (statistic values), the number of arrangements at each (times
+    2**exponent) and, beyond 2**53 arrangements, the same numbers as exact integers (None beyond
+    the exact programme's limits; below 2**53 the float counts are exact)."""
     offset, counts, exponent = sum_distribution(plan.strata)
-    keep = counts > 0
+    exact = exact_sum_distribution(plan.strata) if arrangements > EXACT_FROM else None
+    if exact is not None:
+        assert exact[0] == offset and len(exact[1]) == counts.size  # the same sums as the float programme
+    keep = counts > 0 if exact is None else np.array([c > 0 for c in exact[1]])
     sums = (offset + np.flatnonzero(keep)) / plan.scale  # S1 in score units
     x = pooled.values
     n1 = int(pooled.slots[0].size)
@@ -278,7 +290,8 @@ def _dp_null(pooled: _Pooled, statistic: Statistic, plan: _DpPlan) -> tuple[np.n
                 values = diff / np.sqrt(np.maximum(within, 0.0) / (n1 + n2 - 2) * (1.0 / n1 + 1.0 / n2))
         else:
             values = diff
-    return values, counts[keep], exponent
+    exact_kept = None if exact is None else np.array([c for c in exact[1] if c > 0], dtype=object)
+    return values, counts[keep], exponent, exact_kept
 
 
 def _evaluate(pooled: _Pooled, statistic: Statistic, batches: Iterator[tuple[np.ndarray, ...]],

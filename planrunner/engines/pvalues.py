@@ -22,6 +22,7 @@ doubled rule, with p₁ the smaller one-sided p, since the doubled p is twice th
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 
@@ -39,10 +40,10 @@ class PValues:
     p_value: float
     p_greater: float
     p_less: float
-    count_greater: float  # arrangements (or draws) with T* ≥ t − tol; a float only for DP weights
+    count_greater: float  # arrangements (or draws) with T* ≥ t − tol; a float only for float DP weights
     count_less: float
     count_absolute: float  # |T* − c| ≥ |t − c| − tol
-    total: float  # arrangements (exact) or resamples (Monte Carlo)
+    total: float  # arrangements (exact) or resamples (Monte Carlo); Python ints for exact integer weights
     monte_carlo_se: float | None
     p_interval: tuple[float, float] | None
     smallest_p: float
@@ -84,12 +85,18 @@ def summarize(null: np.ndarray, observed: float, *, exact: bool, alternative: st
     ``weights`` (dynamic programming) are the number of arrangements at each null value; the null is
     then its support. ``arrangements`` bounds the smallest Monte Carlo p-value (1/arrangements).
     """
-    w = np.ones(null.shape[0]) if weights is None else np.asarray(weights, dtype=np.float64)
-    greater = float(w[null >= observed - tolerance].sum())
-    less = float(w[null <= observed + tolerance].sum())
+    integers = weights is not None and np.asarray(weights).dtype == object  # exact Python int counts
+    w = np.ones(null.shape[0]) if weights is None else np.asarray(weights, dtype=object if integers else np.float64)
+
+    def weight(mask: np.ndarray) -> Any:
+        # exact ints stay ints: int / int below is the correctly rounded quotient
+        return int(w[mask].sum()) if integers else float(w[mask].sum())
+    everywhere = np.ones(null.shape[0], dtype=bool)
+    greater = weight(null >= observed - tolerance)
+    less = weight(null <= observed + tolerance)
     distance = np.abs(null - center)
-    far = float(w[distance >= abs(observed - center) - tolerance].sum())
-    total = float(w.sum())
+    far = weight(distance >= abs(observed - center) - tolerance)
+    total = weight(everywhere)
     if weights is None:
         greater, less, far, total = int(greater), int(less), int(far), int(total)
     if exact:
@@ -101,9 +108,9 @@ def summarize(null: np.ndarray, observed: float, *, exact: bool, alternative: st
 
     # smallest attainable p: the most extreme value of the null, however the data had fallen
     if exact:
-        top = float(w[null >= null.max() - tolerance].sum()) / total
-        bottom = float(w[null <= null.min() + tolerance].sum()) / total
-        edge = float(w[distance >= distance.max() - tolerance].sum()) / total
+        top = weight(null >= null.max() - tolerance) / total
+        bottom = weight(null <= null.min() + tolerance) / total
+        edge = weight(distance >= distance.max() - tolerance) / total
         smallest = {"greater": top, "less": bottom}.get(
             alternative, min(1.0, 2.0 * min(top, bottom)) if two_sided == "doubled" else edge)
     else:

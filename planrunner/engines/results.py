@@ -124,9 +124,10 @@ class PermutationResult:
     exact: bool
     arrangements: int
     resamples: int
-    # a whole number of arrangements or draws (a float sum of DP weights; decimal text beyond 1.8e308)
-    count_greater: float | str
-    count_less: float | str
+    # a whole number of arrangements or draws: an int when exact (draws, listed arrangements, exact DP
+    # integers), else a float sum of DP weights (decimal text beyond 1.8e308); see counts_exact
+    count_greater: int | float | str
+    count_less: int | float | str
     null: np.ndarray
     tolerance: float
     n: tuple[int, ...]
@@ -136,7 +137,7 @@ class PermutationResult:
     # added for the complete permutation tests; defaults keep older constructions valid
     p_greater: float | None = None
     p_less: float | None = None
-    count_absolute: float | str | None = None  # |T* − centre| ≥ |t − centre| − tolerance
+    count_absolute: int | float | str | None = None  # |T* − centre| ≥ |t − centre| − tolerance
     centre: float = 0.0
     monte_carlo_se: float | None = None  # pvalues.monte_carlo_sd; None when exact
     p_interval: tuple[float, float] | None = None  # Clopper–Pearson for the full-enumeration p
@@ -144,6 +145,9 @@ class PermutationResult:
     null_weights: np.ndarray | None = None  # arrangements at each null value (exact DP); None: one each
     # the DP weights above are held as weight · 2**null_weight_exponent (beyond the float range; exactdist)
     null_weight_exponent: int = 0
+    # the null weights as exact Python integers (object array), where the DP counts pass 2**53
+    null_exact_weights: np.ndarray | None = None
+    counts_exact: bool = True  # False: DP counts beyond 2**53 held in floating point (13 digits)
     computation: str = "enumeration"  # enumeration | dynamic programming | Monte Carlo
     intervals: tuple[Interval, ...] = ()
     shift_estimate: float | None = None

@@ -27,7 +27,7 @@ import numpy as np
 
 from planrunner.engines.blocks import bind as range_task
 from planrunner.engines.blocks import map_resamples
-from planrunner.engines.exactdist import RESCALE, integer_scores
+from planrunner.engines.exactdist import EXACT_FROM, RESCALE, exact_subset_sums_any_size, integer_scores
 from planrunner.engines.lazy import rankdata
 from planrunner.engines.permcore import (
     DYNAMIC_PROGRAMMING,
@@ -198,8 +198,8 @@ def _null(pairs: _Pairs, statistic: Statistic, options: PermutationOptions, stre
     n = pairs.d.size
     if path == DYNAMIC_PROGRAMMING:
         assert integer is not None
-        values, weights, exponent = _subset_sum_null(pairs, statistic, *integer)
-        return ComputedNull(values, path, arrangements, weights, exponent)
+        values, weights, exponent, exact = _subset_sum_null(pairs, statistic, *integer)
+        return ComputedNull(values, path, arrangements, weights, exponent, exact)
     if path == ENUMERATION:
         return ComputedNull(_listed_range(pairs, statistic, rows_per_batch, fast, 0, arrangements), path,
                             arrangements)
@@ -211,10 +211,11 @@ def _null(pairs: _Pairs, statistic: Statistic, options: PermutationOptions, stre
 
 
 def _subset_sum_null(pairs: _Pairs, statistic: Statistic, ints: np.ndarray,
-                     scale: float) -> tuple[np.ndarray, np.ndarray, int]:
-    """Support and counts (times 2**exponent) of the exact null: each pair adds its score (positive
-    sign) or not. The counts sum to 2**n, past the double range from n = 1024: they are rescaled by
-    2**-RESCALE as in ``exactdist``, so the p-values keep their precision."""
+                     scale: float) -> tuple[np.ndarray, np.ndarray, int, np.ndarray | None]:
+    """Support, counts (times 2**exponent) and exact counts of the null: each pair adds its score
+    (positive sign) or not. The counts sum to 2**n, past the double range from n = 1024: they are
+    rescaled by 2**-RESCALE as in ``exactdist``, so the p-values keep their precision. Beyond 2**53
+    patterns the exact integer counts come from ``exactdist`` too (None beyond its limits)."""
     counts = np.ones(1)
     exponent = 0
     for i, a in enumerate(ints):
@@ -225,11 +226,13 @@ def _subset_sum_null(pairs: _Pairs, statistic: Statistic, ints: np.ndarray,
         grown[:counts.size] += counts
         grown[int(a):] += counts
         counts = grown
-    keep = counts > 0
+    exact = exact_subset_sums_any_size(ints) if 2 ** ints.size > EXACT_FROM else None
+    keep = counts > 0 if exact is None else np.array([c > 0 for c in exact])
     positive = np.flatnonzero(keep) / scale
     d = pairs.d
     values = positive if statistic.name == "signed_rank" else (2.0 * positive - np.abs(d).sum()) / d.size
-    return values, counts[keep], exponent
+    exact_kept = None if exact is None else np.array([c for c in exact if c > 0], dtype=object)
+    return values, counts[keep], exponent, exact_kept
 
 
 def _listed_range(pairs: _Pairs, statistic: Statistic, rows_per_batch: int, fast: bool,

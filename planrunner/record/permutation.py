@@ -2,8 +2,11 @@
 
 Every p-value keeps the counts behind it: ``count_greater_equal`` and ``count_less_equal`` (and
 ``count_absolute`` for the absolute two-sided rule) out of ``arrangements`` (exact) or
-``resamples`` (Monte Carlo). For an exact null from dynamic programming the counts are numbers of
-arrangements held in floating point (they can exceed 2⁶³).
+``resamples`` (Monte Carlo). Counts are JSON integers up to 2⁵³ and strings of decimal digits
+beyond (exact integers that a JSON reader might round; dynamic programming counts past 2⁵³ come from
+the exact integer programme of ``exactdist``). Only where that programme would cost more than its
+bound are they the floating-point counts, written as decimal text in scientific notation with 13
+significant digits, and ``details.counts_exact`` is false.
 """
 
 from __future__ import annotations
@@ -19,14 +22,22 @@ from planrunner.engines.results import PermutationResult
 from planrunner.record.canonical import plain_number as _f
 from planrunner.record.fields import MethodFields, support
 
+JSON_EXACT = 2 ** 53  # integers up to this are written as JSON numbers; every reader keeps them exact
+
 
 def _count(x: Any) -> Any:
-    """A count as an int when it is one exactly (DP counts are floats, exact below 2**53; beyond
-    1.8e308 the engine gives them as decimal text, e.g. '1.660842939376e+1202')."""
+    """A count as the record writes it: a JSON integer up to 2**53; an exact integer beyond that as a
+    string of its decimal digits; a float count (DP counts past 2**53 beyond the exact programme's
+    bound) as decimal text in scientific notation, 13 significant digits (beyond 1.8e308 the engine
+    already gives that text, e.g. '1.660842939376e+1202')."""
     if isinstance(x, str):
         return x
-    if isinstance(x, float) and x.is_integer() and abs(x) < 2.0**53:
+    if isinstance(x, (int, np.integer)) and not isinstance(x, bool):
+        return int(x) if abs(int(x)) <= JSON_EXACT else str(int(x))
+    if isinstance(x, float) and x.is_integer() and abs(x) <= JSON_EXACT:
         return int(x)
+    if isinstance(x, float) and math.isfinite(x):
+        return f"{x:.12e}"
     return _f(x)
 
 
@@ -41,14 +52,15 @@ def arrangements_count(count: int) -> int | str:
 
 
 def weighted_distribution(kind: str, values: np.ndarray, weights: np.ndarray | None, bins: int,
-                          weight_exponent: int = 0) -> dict[str, Any]:
+                          weight_exponent: int = 0, exact_weights: np.ndarray | None = None) -> dict[str, Any]:
     """Size, moments, range, histogram and hash of a null given by values (and exact weights).
 
     ``weights`` held as ``w · 2**weight_exponent`` (a DP null beyond the float range): the size is
     written as decimal text and the histogram as the share of arrangements per bar
     (``histogram.counts_are = "probability"``), since the counts themselves exceed what a float holds.
+    ``exact_weights`` (the same weights as Python integers) give the size and the infinite count exactly.
     """
-    values = np.asarray(values, dtype=float)
+    values_in = values = np.asarray(values, dtype=float)
     w = np.ones(values.size) if weights is None else np.asarray(weights, dtype=float)
     infinite = float(w[~np.isfinite(values)].sum())  # e.g. a ratio over an empty denominator
     w, values = w[np.isfinite(values)], values[np.isfinite(values)]
@@ -72,11 +84,15 @@ def weighted_distribution(kind: str, values: np.ndarray, weights: np.ndarray | N
         histogram["counts_are"] = "probability"
     # unscaled(x, 0) is x: only a rescaled null's counts are turned back into true counts
     size = _count(unscaled(total + infinite, weight_exponent)) if weights is not None else int(values.size + infinite)
+    infinite_count = _count(unscaled(infinite, weight_exponent))
+    if exact_weights is not None:
+        size = _count(int(np.sum(exact_weights)))
+        infinite_count = _count(int(np.sum(exact_weights[~np.isfinite(values_in)])))
     return {"kind": kind, "size": size, "support_points": int(values.size), "mean": mean,
             # beyond the float range the divisor total − 1 is total itself
             "sd": math.sqrt(var) if rescaled else math.sqrt(var * total / (total - 1)) if total > 1 else None,
             "min": float(values.min()), "max": float(values.max()), "sha256": digest.hexdigest(),
-            "weighted": weights is not None, "infinite": _count(unscaled(infinite, weight_exponent)),
+            "weighted": weights is not None, "infinite": infinite_count,
             "histogram": histogram, "support": support(values, w, total + infinite)}
 
 
@@ -90,6 +106,7 @@ def permutation_fields(result: PermutationResult, bins: int) -> MethodFields:
         "count_less_equal": _count(result.count_less), "count_absolute": _count(result.count_absolute),
         "p_greater": _f(result.p_greater), "p_less": _f(result.p_less), "centre": _f(result.centre),
         "arrangements": arrangements_count(int(result.arrangements)), "computation": result.computation,
+        "counts_exact": bool(result.counts_exact),
         "two_sided_rule": result.two_sided_rule, "tolerance": _f(result.tolerance),
         "smallest_p": _f(result.smallest_p),
         "p_value_rule": "count / arrangements (exact)" if exact
@@ -109,7 +126,7 @@ def permutation_fields(result: PermutationResult, bins: int) -> MethodFields:
                      {"method": "Clopper–Pearson", "level": 0.99, "lower": interval[0], "upper": interval[1]}},
         details=details,
         distribution=weighted_distribution("permutation null", result.null, result.null_weights, bins,
-                                           result.null_weight_exponent),
+                                           result.null_weight_exponent, result.null_exact_weights),
         smallest_p=_f(result.smallest_p),
     )
 

@@ -29,6 +29,12 @@ _num = {"type": ["number", "null"]}
 _str = {"type": ["string", "null"]}
 _sha = {"type": "string", "pattern": "^[0-9a-f]{64}$"}
 _int0 = {"type": "integer", "minimum": 0}
+# a count of arrangements or draws: a JSON integer up to 2**53, an exact integer beyond as its decimal
+# digits, or (a float count beyond the exact programme's bound) decimal text, 13 significant digits
+_count = {"oneOf": [{"type": "integer", "minimum": 0, "maximum": 2 ** 53},
+                    {"type": "string", "pattern": "^[0-9]+$"},
+                    {"type": "string", "pattern": "^[0-9]\\.[0-9]{12}e\\+[0-9]+$"},
+                    {"type": "null"}]}
 
 
 def _obj(properties: dict[str, Any], required: list[str] | None = None, extra: bool = True) -> dict[str, Any]:
@@ -58,7 +64,10 @@ _analysis = _obj({
                                                           "p_value": {"type": "number", "minimum": 0, "maximum": 1}})},
     "alternative": _str, "exact": {"type": ["boolean", "null"]},
     "resamples": {"type": ["integer", "null"], "minimum": 1},
-    "monte_carlo": {"type": "object"}, "details": {"type": "object"},
+    "monte_carlo": {"type": "object"},
+    "details": {"type": "object", "properties": {
+        "count_greater_equal": _count, "count_less_equal": _count, "count_absolute": _count,
+        "counts_exact": {"type": "boolean"}}},
     "distribution": {"oneOf": [{"type": "null"}, _obj({
         "support": {"oneOf": [{"type": "null"}, _obj({
             "values": {"type": "array", "items": {"type": "number"}, "maxItems": 100},
