@@ -1,4 +1,5 @@
-"""Free text in the run history (`--reason`, `--operator`) never splits a line of history.jsonl.
+"""Free text in the run history (`--reason`) never splits a line of history.jsonl, and a name
+(`--operator`, a signer's name) with a line break or another control character is refused.
 
 Every character some reader takes for the end of a line (each Unicode line-break class that
 forces a break: BK, CR, LF, NL, and the separators of Python's str.splitlines) is written as a
@@ -53,14 +54,14 @@ def test_a_log_written_with_raw_separators_is_read_by_newline_only():
     assert problems == [] and len(entries) == 1 and entries[0]["reason"] == "a\u2028b\x85c\u2029d"
 
 
-def test_runs_with_every_line_break_in_reason_and_operator_keep_the_chain(write_plan, tmp_path, capsys):
+def test_runs_with_every_line_break_in_the_reason_keep_the_chain(write_plan, tmp_path, capsys):
     from test_faults import DATA, PLAN
     plan = write_plan(PLAN, {"data/d.csv": DATA})
     text = "".join(f"{name}{char}" for char, name in BREAKS)
     out = tmp_path / "out"
     for reason in (f"first {text}", "second"):
         assert cli.main(["run", str(plan), "--out", str(out), "--quiet", "--reason", reason,
-                         "--operator", f"op {text}"]) == 0
+                         "--operator", "op"]) == 0
     log = (out / "history.jsonl").read_text(encoding="utf-8")
     assert len(log.splitlines()) == 2  # no reader splits an entry
     capsys.readouterr()
@@ -71,4 +72,25 @@ def test_runs_with_every_line_break_in_reason_and_operator_keep_the_chain(write_
     assert "LF\\u000aCR\\u000d" in shown and "LS (BK)\\u2028" in shown
     assert not any(c in shown.replace("\n", "") for c in LINE_BREAKS)
     first = json.loads(log.splitlines()[0])
-    assert first["reason"] == f"first {text}" and first["operator"] == f"op {text}"
+    assert first["reason"] == f"first {text}" and first["operator"] == "op"
+
+
+# every line break above, a tab, a bidirectional override (U+202E) and an isolate (U+2066)
+REFUSED = BREAKS + [("\t", "TAB"), ("\u202e", "RLO"), ("\u2066", "LRI")]
+
+
+@pytest.mark.parametrize("char, name", REFUSED, ids=[name for _, name in REFUSED])
+def test_a_name_with_a_control_character_is_refused_before_anything_is_written(write_plan, tmp_path, capsys,
+                                                                                char, name):
+    from test_faults import DATA, PLAN
+    plan = write_plan(PLAN, {"data/d.csv": DATA})
+    out = tmp_path / "out"
+    capsys.readouterr()
+    assert cli.main(["run", str(plan), "--out", str(out), "--operator", f"ana{char}lima"]) == 2
+    err = capsys.readouterr().err
+    assert f"U+{ord(char[0]):04X}" in err and "at character 4" in err and "--operator" in err
+    assert len(err.strip().splitlines()) == 1 and "Traceback" not in err  # one message, on one line
+    assert not out.exists()
+    assert cli.main(["lock", str(plan), "--operator", f"ana{char}lima"]) == 2
+    assert f"U+{ord(char[0]):04X}" in capsys.readouterr().err
+    assert not plan.with_name(plan.name + ".lock.json").exists() and not list(plan.parent.glob("*.lock.json"))

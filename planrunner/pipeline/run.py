@@ -36,6 +36,7 @@ from planrunner.report import render as report
 from planrunner.trail.files import HistoryLog, lock_for_run
 from planrunner.trail.history import HISTORY_FILE
 from planrunner.trail.lock import lock_path_for
+from planrunner.trail.names import require_person_name
 from planrunner.trail.signatures import SigningKey
 from planrunner.trail.signfiles import check_run_signing, find_signers, signed_run_files
 from planrunner.trail.store import (  # noqa: F401 (STAGING_PREFIX for callers)
@@ -156,6 +157,7 @@ def run_plan(path: str | Path, *, out: str | Path | None = None, operator: str |
     run as soon as both are done, so that a caller interrupted after that moment can say so.
     """
     started = clock()
+    operator = require_person_name(operator, "--operator") if operator is not None else default_operator()
     checked = check_plan(path, params=params, data_root=data_root)
     loaded, tables, jobs = checked.loaded, checked.tables, checked.jobs
     assert tables is not None and jobs is not None
@@ -168,7 +170,7 @@ def run_plan(path: str | Path, *, out: str | Path | None = None, operator: str |
     finished = clock()
     run_id = _run_id(loaded, tables, started)
     facts = RunFacts(run_id=run_id, started_utc=_stamp(started), finished_utc=_stamp(finished),
-                     operator=operator or default_operator(),
+                     operator=operator,
                      command=tuple(command or ["planrunner", "run", str(path)]),
                      execution=execution.describe(), lock=lock_entry, parameters=checked.parameters)
     record = build_record(loaded, tables, jobs, results, max_t, facts)

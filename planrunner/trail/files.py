@@ -29,6 +29,7 @@ from planrunner.trail.history import (
     parse_lines,
 )
 from planrunner.trail.lock import build_lock, check_lock, compare_with_lock, deviation_lines, lock_path_for
+from planrunner.trail.names import require_person_name
 from planrunner.trail.store import read_json, sync_folder, write_new_file, write_synced
 
 # --- locks -----------------------------------------------------------------------------------------
@@ -36,6 +37,7 @@ from planrunner.trail.store import read_json, sync_folder, write_new_file, write
 def lock_plan(path: str | Path, *, operator: str, locked_utc: str, note: str | None = None,
               params: dict[str, str] | None = None) -> tuple[Path, dict]:
     """Write PLAN.lock.json beside the plan; an existing lock is never replaced."""
+    require_person_name(operator, "--operator")
     loaded = read_plan(path)
     # a parameter without a value leaves its data files unknown: they are recorded as not present
     values = resolve_values(loaded.plan, params or {}, require=False)

@@ -26,6 +26,7 @@ from planrunner.plan.yamlsafe import dotted, load_yaml
 from planrunner.record.build import FORMAT as RECORD_FORMAT
 from planrunner.trail.history import HISTORY_FILE, parse_lines
 from planrunner.trail.lock import LOCK_FORMAT, LOCK_HASH_FIELD
+from planrunner.trail.names import require_person_name
 from planrunner.trail.signatures import (
     QUALIFICATION_FORMAT,
     QUALIFICATION_HASH_FIELD,
@@ -115,6 +116,7 @@ def generate_key(private: str | Path, *, passphrase: bytes | None, name: str | N
 
 def load_signing_key(path: str | Path, passphrase: bytes | None, signer: str) -> SigningKey:
     """Unlock a private key for signing; refuse one that others may read, or a wrong passphrase."""
+    require_person_name(signer, "the signer's name")
     path = Path(path)
     try:
         mode = path.stat().st_mode
