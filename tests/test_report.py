@@ -229,7 +229,8 @@ def test_p_values_follow_their_monte_carlo_error_and_are_never_zero():
 def test_adjusted_p_value_bound():
     # Source: precision.py rule 5 with identity 19 (BY = BH·Σ1/i)
     assert precision.adjusted_sd("holm", [0.001, 0.002]) == pytest.approx(0.004)
-    assert precision.adjusted_sd("by", [0.001, 0.002, None]) == pytest.approx(3 * (1 + 1 / 2 + 1 / 3) * 0.002)
+    assert precision.adjusted_sd("benjamini-yekutieli", [0.001, 0.002, None]) == pytest.approx(
+        3 * (1 + 1 / 2 + 1 / 3) * 0.002)
     assert precision.adjusted_sd("holm", [0.0, 0.0]) is None
 
 

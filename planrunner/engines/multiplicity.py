@@ -12,8 +12,8 @@ METHOD_NAMES = {
     "bonferroni": "Bonferroni",
     "holm": "Holm step-down",
     "hochberg": "Hochberg step-up",
-    "bh": "Benjamini–Hochberg (false discovery rate)",
-    "by": "Benjamini–Yekutieli (false discovery rate, any dependence)",
+    "benjamini-hochberg": "Benjamini–Hochberg (false discovery rate)",
+    "benjamini-yekutieli": "Benjamini–Yekutieli (false discovery rate, any dependence)",
     "max-t": "Westfall–Young max-T step-down (same permutations)",
 }
 
@@ -31,8 +31,8 @@ def adjust(p_values: list[float], method: str) -> list[float]:
         adjusted_sorted = np.minimum(1.0, np.maximum.accumulate((m - rank + 1) * ranked))
     elif method == "hochberg":
         adjusted_sorted = np.minimum(1.0, np.minimum.accumulate(((m - rank + 1) * ranked)[::-1])[::-1])
-    elif method in ("bh", "by"):
-        scale = np.sum(1.0 / rank) if method == "by" else 1.0
+    elif method in ("benjamini-hochberg", "benjamini-yekutieli"):
+        scale = np.sum(1.0 / rank) if method == "benjamini-yekutieli" else 1.0
         adjusted_sorted = np.minimum(1.0, np.minimum.accumulate((scale * m / rank * ranked)[::-1])[::-1])
     else:
         raise ValueError(f"unknown multiplicity method {method!r}")

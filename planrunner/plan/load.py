@@ -24,7 +24,7 @@ from planrunner.plan.designrules import check_resampling_design
 from planrunner.plan.expr import parse_expression
 from planrunner.plan.params import parameter_problems
 from planrunner.plan.problems import Problem, did_you_mean
-from planrunner.plan.schema import DATA_SUFFIXES, METHODS, Dataset, Plan
+from planrunner.plan.schema import DATA_SUFFIXES, METHODS, RENAMED_VALUES, Dataset, Plan
 from planrunner.plan.yamlsafe import MAX_PLAN_BYTES, LoadedYaml, Path_, dotted, load_yaml
 
 NUMERIC_TYPES = ("number", "integer", "boolean")
@@ -199,6 +199,9 @@ def _from_pydantic(err: Mapping[str, Any], data: Any) -> Problem:
         expected = str(ctx.get("expected", "")).replace("'", "")
         choices = [c.strip() for c in expected.replace(" or ", ",").split(",") if c.strip()]
         given = err.get("input")
+        renamed = RENAMED_VALUES.get((str(path[0]), str(path[-1])), {}) if path else {}
+        if isinstance(given, str) and given in renamed:
+            return Problem(path, f"'{given}' is now written '{renamed[given]}'", f"write {path[-1]}: {renamed[given]}")
         hint = did_you_mean(str(given), choices) if isinstance(given, str) else None
         return Problem(path, f"'{given}' is not allowed; one of: {', '.join(choices)}", hint)
     if kind == "string_pattern_mismatch":

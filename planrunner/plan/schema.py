@@ -23,7 +23,9 @@ DataFormat = Literal["csv", "tsv", "xpt", "dataset-json", "parquet", "xlsx"]
 # the format a file's ending names, when the plan gives no `format` (any other ending: csv)
 DATA_SUFFIXES = {".csv": "csv", ".tsv": "tsv", ".tab": "tsv", ".xpt": "xpt", ".json": "dataset-json",
                  ".parquet": "parquet", ".xlsx": "xlsx"}
-MultiplicityMethod = Literal["bonferroni", "holm", "hochberg", "bh", "by", "max-t"]
+MultiplicityMethod = Literal["bonferroni", "holm", "hochberg", "benjamini-hochberg", "benjamini-yekutieli", "max-t"]
+# earlier spellings of plan values, refused with the new one named (never read silently)
+RENAMED_VALUES = {("multiplicity", "method"): {"bh": "benjamini-hochberg", "by": "benjamini-yekutieli"}}
 
 
 class Strict(BaseModel):

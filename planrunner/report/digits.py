@@ -124,7 +124,7 @@ def _same_side(p: float, text: str, alpha: Any) -> str:
 
 def family_factor(method: str, size: int) -> float:
     """F of rule 5."""
-    if method in ("bonferroni", "holm", "hochberg", "bh"):
+    if method in ("bonferroni", "holm", "hochberg", "benjamini-hochberg"):
         return float(size)
     return size * sum(1.0 / i for i in range(1, size + 1))
 
