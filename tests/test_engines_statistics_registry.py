@@ -79,10 +79,16 @@ def test_two_group_statistics_against_references() -> None:
 @pytest.mark.parametrize("name", sorted(STATISTICS))
 def test_vectorised_rows_equal_one_at_a_time(name: str) -> None:
     stat = get_statistic(name)
-    stat = bind(stat, {"quantile": 0.3, "trim": 0.15}.get(stat.parameter)) if stat.parameter else stat
+    stat = bind(stat, {"quantile": 0.3, "trim": 0.15, "at": 9.0, "horizon": 10.0}.get(stat.parameter)) \
+        if stat.parameter else stat
     rng = np.random.default_rng(sum(map(ord, name)))  # deterministic per name
 
     def draw(n: int) -> np.ndarray:
+        if stat.outcome == "censored":  # (time, 0/1 event[, stratum]); the last time an event: S reaches 0
+            a = np.stack([rng.normal(10, 2, (5, n)).round(1), (rng.random((5, n)) < 0.7).astype(float),
+                          rng.integers(0, 2, (5, n)).astype(float)], axis=1)[:, :stat.columns]
+            a[:, :2, -1] = [30.0, 1.0]
+            return a
         if stat.outcome == "binary":
             return (rng.random((5, n)) < 0.5).astype(float) if stat.columns == 1 else rng.random((5, 2, n))
         return rng.normal(10, 2, (5, n)) if stat.columns == 1 else rng.normal(10, 2, (5, 2, n))

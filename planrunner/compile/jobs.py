@@ -19,6 +19,7 @@ from planrunner.engines.jackknife import JackknifeOptions
 from planrunner.engines.permcore import PermutationOptions
 from planrunner.engines.statistics import Statistic, bind, get_statistic
 from planrunner.engines.streams import Stream, stream_for
+from planrunner.engines.survival import flipped
 from planrunner.engines.teststats import K_GROUP
 from planrunner.errors import DataError
 from planrunner.plan.schema import Analysis, BootstrapAnalysis, Defaults, PermutationAnalysis, Plan
@@ -144,13 +145,16 @@ def compile_job(plan: Plan, analysis: Analysis, table: Table) -> Job:
     if analysis.predictor is not None:
         # two-column statistics take (n, 2) arrays: predictor first, outcome second
         values = np.column_stack([table.columns[analysis.predictor].astype(float), values])
-    samples = tuple(values[m] for m in masks)
     strata = strata_labels = None
+    codes = None
     if analysis.strata is not None:
         stratum_column = design.labels_of(table, analysis.strata)
         strata_labels_all, codes = np.unique(stratum_column, return_inverse=True)
         strata_labels = tuple(str(s) for s in strata_labels_all)
         strata = tuple(codes[m].astype(np.int64) for m in masks)
+    if statistic.outcome == "censored":
+        values, statistic = censored_values(analysis, table, values, masks, statistic, codes)
+    samples = tuple(values[m] for m in masks)
     permutation_design: dict[str, Any] = {}
     if analysis.method == "permutation":  # the bootstrap's design is the fields above
         samples, permutation_design = compile_design(analysis, table, masks, samples)
@@ -158,6 +162,25 @@ def compile_job(plan: Plan, analysis: Analysis, table: Table) -> Job:
                strata=strata, group_labels=labels, strata_labels=strata_labels,
                options=_options(plan, analysis), stream=stream_for(plan.seed, analysis.id),
                clusters=clusters, paired=paired, warnings=warnings, design=permutation_design)
+
+
+def censored_values(analysis: Analysis, table: Table, values: np.ndarray, masks: list[np.ndarray],
+                    statistic: Statistic, codes: np.ndarray | None) -> tuple[np.ndarray, Statistic]:
+    """Rows (time, event) of a censored outcome, and (time, event, stratum code) for the log-rank
+    statistic. Left-censored values x become right-censored times M − x, M the largest value the
+    analysis uses, and the statistic maps its result back (``survival.flipped``)."""
+    assert analysis.event is not None  # the plan check requires it
+    events = table.columns[analysis.event].astype(float)
+    times = values
+    if analysis.censoring == "left":
+        largest = float(np.max(values[np.logical_or.reduce(masks)]))
+        times = largest - values
+        if statistic.form == "survival":
+            statistic = flipped(statistic, largest)
+    columns = [times, events]
+    if statistic.columns == 3:
+        columns.append(np.zeros(values.size) if codes is None else codes.astype(float))
+    return np.column_stack(columns), statistic
 
 
 def compile_design(analysis: Analysis, table: Table, masks: list[np.ndarray],

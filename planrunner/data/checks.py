@@ -112,12 +112,106 @@ def check_analysis(analysis: Any, table: Table, declared: list[str] | None = Non
                             f"{values[0]:g} (lines {_lines(table.lines[used])}); resampling cannot vary a "
                             "constant", where=where,
                             hint=f"check that the file is the right extract and '{name}' the right column")
+    if statistic is not None and statistic.outcome == "censored" and getattr(analysis, "event", None) is not None:
+        check_censored(analysis, table, labels, masks, who)
     if analysis.groups is not None and analysis.strata is not None:
         _check_strata(analysis, table, labels, masks, who)
     if analysis.groups is not None and getattr(analysis, "pairs", None) is not None:
         _check_pairs(analysis, table, labels, masks, who)
     if analysis.groups is not None and getattr(analysis, "clusters", None) is not None:
         _check_clusters(analysis, table, labels, masks, who)
+
+
+def check_censored(analysis: Any, table: Table, labels: tuple[str, ...], masks: list[np.ndarray], who: str) -> None:
+    """A censored outcome: times not negative (right censoring), events 0 or 1, at least one event per
+    group; then what the statistic reads must exist in the data (a quantile reached, a time or horizon
+    within the follow-up). Every problem of the analysis in one message."""
+    time_name, event_name = analysis.outcome, analysis.event
+    left = analysis.censoring == "left"
+    used = np.logical_or.reduce(masks)
+    values = np.asarray(table.columns[time_name], dtype=float)
+    events = np.asarray(table.columns[event_name], dtype=float)
+    problems = []
+    negative = used & (values < 0)
+    if negative.any() and not left:
+        problems.append(DataError(f"{who}: {int(negative.sum())} negative time(s) in '{time_name}' (e.g. "
+                                  f"{values[negative][0]:g} on line(s) {_lines(table.lines[negative])})",
+                                  hint="times are measured from the origin (0) of follow-up; fix the extract"))
+    bad = used & ~np.isin(events, (0.0, 1.0))
+    if bad.any():
+        problems.append(DataError(f"{who}: the event column '{event_name}' holds {int(bad.sum())} value(s) other "
+                                  f"than 0 and 1 (e.g. {events[bad][0]:g} on line(s) {_lines(table.lines[bad])})",
+                                  hint="code 1 = event observed (detected) and 0 = censored (below the limit)"))
+    word = "detected" if left else "with an observed event"
+    for label, mask in zip(labels, masks):
+        if mask.any() and not np.any(events[mask] == 1.0):
+            where = f"group '{label}'" if analysis.groups else "the analysis"
+            problems.append(DataError(f"{who}: every one of the {int(mask.sum())} rows of {where} is censored "
+                                      f"(no row {word}; lines {_lines(table.lines[mask])}), so the Kaplan–Meier "
+                                      "curve never leaves 1", hint="check the event column's coding (1 = event), "
+                                      "or report the follow-up without events"))
+    if problems:
+        raise _all_at_once(problems, table)
+    _check_reach(analysis, table, labels, masks, who, values, events)
+
+
+def _all_at_once(problems: list[DataError], table: Table) -> DataError:
+    if len(problems) == 1:
+        return DataError(problems[0].message, where=table.file, hint=problems[0].hint)
+    return DataError(f"{len(problems)} problems with the censored outcome", where=table.file, problems=problems)
+
+
+def _check_reach(analysis: Any, table: Table, labels: tuple[str, ...], masks: list[np.ndarray], who: str,
+                 values: np.ndarray, events: np.ndarray) -> None:
+    """The quantile must be reached, and a time or horizon must lie within each group's follow-up."""
+    from planrunner.engines.statistics import bind
+    from planrunner.engines.survival import SurvivalCompute, SurvivalSpec, flipped
+
+    statistic = STATISTICS[analysis.statistic]
+    if statistic.form != "survival":
+        return
+    if statistic.parameter is not None:
+        statistic = bind(statistic, getattr(analysis, statistic.parameter))
+    left = analysis.censoring == "left"
+    used = np.logical_or.reduce(masks)
+    largest = float(np.max(values[used]))
+    times = largest - values if left else values
+    if left:
+        statistic = flipped(statistic, largest)
+    compute = statistic.compute
+    assert isinstance(compute, SurvivalCompute)
+    spec = compute.spec
+    one = SurvivalCompute(SurvivalSpec(spec.kind, spec.value, None, spec.flip))
+    problems = []
+    for label, mask in zip(labels, masks):
+        group = f"group '{label}'" if analysis.groups else "the data"
+        rows = np.flatnonzero(mask)
+        if spec.kind in ("at", "rmst"):
+            last = int(rows[np.argmax(times[rows])])
+            if spec.value is not None and spec.value > times[last]:
+                key = "at" if spec.kind == "at" else "horizon"
+                problems.append(DataError(
+                    f"{who}: {key} {spec.value:g} lies beyond the last follow-up of {group} ({times[last]:g}, "
+                    f"line {int(table.lines[last])}); the Kaplan–Meier curve is not estimated there",
+                    hint=f"choose {key} at most the shortest last follow-up of the groups, where several "
+                         "subjects are still at risk"))
+            continue
+        if spec.kind != "quantile":
+            continue
+        value = float(one(np.vstack([times[mask], events[mask]])))
+        if not np.isfinite(value):
+            level = spec.value
+            what = "median" if level == 0.5 else f"{level:g} quantile"
+            lowest = "highest" if left else "largest"
+            problems.append(DataError(
+                f"{who}: the Kaplan–Meier {what} of {group} is not reached: "
+                + ("too few values are detected above the limits" if left else
+                   f"the estimated survival stays above {1 - (level or 0.5):g} up to the {lowest} time "
+                   f"({float(np.max(times[mask])):g})") + f" (lines {_lines(table.lines[mask])})",
+                hint="report it as not reached within the follow-up; use km_quantile with a lower level, "
+                     "survival_at or rmst for this group"))
+    if problems:
+        raise _all_at_once(problems, table)
 
 
 def _check_strata(analysis: Any, table: Table, labels: tuple[str, ...], masks: list[np.ndarray], who: str) -> None:

@@ -520,6 +520,8 @@ def _with_intervals(result: BootstrapResult, p: Prepared, options: BootstrapOpti
     finite = np.isfinite(distribution)
     if not finite.all():
         bad = int((~finite).sum())
+        if p.declared.outcome == "censored":
+            return _not_estimable(result, p, options, distribution, warnings)
         message = (f"the statistic is not finite on {bad} of {resamples} resamples; no standard error, "
                    "bias or interval is reported")
         _degenerate(on_degenerate, message, warnings, "non-finite-replicates")
@@ -562,6 +564,46 @@ def _with_intervals(result: BootstrapResult, p: Prepared, options: BootstrapOpti
             if w not in warnings:  # a fallback percentile interval repeats the percentile's warning
                 warnings.append(w)
     return finish(intervals=found, z0=z0, acceleration=acceleration, details=details, **moments)
+
+
+def _not_estimable(result: BootstrapResult, p: Prepared, options: BootstrapOptions, distribution: np.ndarray,
+                   warnings: list[EngineWarning]) -> BootstrapResult:
+    """A Kaplan–Meier statistic not estimable in some resamples: a quantile not reached (±∞: beyond
+    the follow-up) or a curve read beyond a resample's last follow-up (NaN). The share goes into the
+    record; ``on_degenerate`` decides: fail, no interval (estimate-only), or (percentile) the
+    percentile interval with a not-reached resample ordered beyond every finite one, reported only
+    when both endpoints are finite. No standard error or bias (they would need the missing values)."""
+    resamples = int(distribution.shape[0])
+    beyond = int(np.isinf(distribution).sum())
+    undefined = int(np.isnan(distribution).sum())
+    bad = beyond + undefined
+    share = bad / resamples
+    details = {**result.details, "not_estimable": {
+        "resamples": bad, "share": share, "quantile_not_reached": beyond, "beyond_last_follow_up": undefined}}
+    parts = ([f"{beyond} where a quantile is not reached (it lies beyond the follow-up)"] if beyond else []) + (
+        [f"{undefined} where the curve is read beyond the resample's last follow-up"] if undefined else [])
+    message = (f"the {p.declared.label} is not estimable in {bad} of {resamples} resamples ({share:.1%}): "
+               f"{' and '.join(parts)}; no standard error or bias is reported")
+    _degenerate(options.on_degenerate, message, warnings, "not-estimable-resamples")
+    confidence = options.confidence
+    note = f"{bad} of {resamples} resamples ({share:.1%}) not estimable"
+    found = []
+    for method in options.intervals:
+        interval = Interval(method, confidence, None, None, note=note)
+        if method == "percentile" and options.on_degenerate == "percentile" and undefined == 0:
+            ordered = np.sort(distribution)
+            alpha = 1.0 - confidence
+            levels = (alpha / 2, 1 - alpha / 2)
+            ends = [read_quantile(ordered, None, q) for q in levels]
+            if all(math.isfinite(e) for e in ends):
+                interval = Interval(method, confidence, ends[0], ends[1], quantile_levels=levels,
+                                    note=f"{note}: ordered beyond every estimable one (not reached), as "
+                                         "on_degenerate: percentile declares")
+            else:
+                interval = Interval(method, confidence, None, None,
+                                    note=f"{note}: an endpoint lies among the not-reached resamples")
+        found.append(interval)
+    return replace(result, intervals=tuple(found), details=details, warnings=tuple(warnings))
 
 
 def _degenerate(on_degenerate: str, message: str, warnings: list[EngineWarning], code: str) -> None:

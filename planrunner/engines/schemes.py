@@ -37,6 +37,7 @@ from planrunner.engines.lazy import gammaln
 from planrunner.engines.lazy import stats as _dist
 from planrunner.engines.statistics import Statistic, take_observations
 from planrunner.engines.streams import Stream, UniformRows
+from planrunner.engines.survival import SurvivalFastPath
 from planrunner.errors import EngineError
 
 __all__ = [
@@ -256,11 +257,16 @@ def draw_cells(lay: Layout, statistic: Statistic, resamples: int, stream: Stream
                start: int = 0) -> tuple[np.ndarray, np.ndarray | None]:
     """Run the cells draw contract; the B replicates (and inner SEs) in resample order.
 
-    ``fast``: medians and quantiles over the once-sorted data (identical numbers; see _OrderFastPath).
+    ``fast``: medians and quantiles over the once-sorted data (identical numbers; see _OrderFastPath), and
+    Kaplan–Meier statistics from counts per distinct time (``survival.SurvivalFastPath``).
     ``start``: the first resample drawn (resamples [start, start + resamples)), so that ranges of
     resamples can be computed apart and joined (see ``engines.blocks``).
     """
-    order_path = _OrderFastPath(statistic, lay.groups) if fast and _OrderFastPath.applies(statistic, inner) else None
+    order_path: _OrderFastPath | SurvivalFastPath | None = None
+    if fast and _OrderFastPath.applies(statistic, inner):
+        order_path = _OrderFastPath(statistic, lay.groups)
+    elif fast and SurvivalFastPath.applies(statistic, inner):
+        order_path = SurvivalFastPath(statistic, lay.groups)  # counts per distinct time, no per-resample sort
     width = int(lay.cell_start.shape[0])
     n_max = max(b - a for a, b in lay.bounds)
     factor = inner_resamples if inner == "bootstrap" else _inner_factor(inner, n_max)
@@ -357,11 +363,14 @@ def draw_clusters(data: tuple[np.ndarray, ...], lay: ClusterLayout, statistic: S
                   stream: Stream, batch_elements: int, *, fast: bool = True, start: int = 0) -> np.ndarray:
     """Run the clusters draw contract for resamples [start, start + resamples).
 
-    ``fast``: mean-form statistics from cluster sums and sizes.
+    ``fast``: mean-form statistics from cluster sums and sizes; Kaplan–Meier statistics from each
+    observation's multiplicity (the times its cluster was drawn) and counts per distinct time.
     """
     width = int(lay.cell_start.shape[0])
     reader = UniformRows(stream, width, start)
     out = np.empty(resamples, dtype=np.float64)
+    if fast and SurvivalFastPath.applies(statistic, None):
+        return _survival_clusters(data, lay, statistic, resamples, reader, batch_elements)
     use_sums = fast and statistic.form == "mean" and statistic.columns == 1
     if use_sums:
         sums = np.array([float(np.sum(data[lay.slot_group[k]][rows])) for k, rows in enumerate(lay.members)])
@@ -396,6 +405,28 @@ def draw_clusters(data: tuple[np.ndarray, ...], lay: ClusterLayout, statistic: S
                         index = np.concatenate([lay.members[k] for k in picked])
                         gathered.append(take_observations(a, index[None, :]))
                     out[done + r] = statistic.compute(*gathered)[0]
+        done += rows
+    return out
+
+
+def _survival_clusters(data: tuple[np.ndarray, ...], lay: ClusterLayout, statistic: Statistic, resamples: int,
+                       reader: UniformRows, batch_elements: int) -> np.ndarray:
+    """The clusters draw contract for a Kaplan–Meier statistic: each observation weighted by how many
+    times its cluster was drawn (the same resamples as the plain gather, counted instead)."""
+    path = SurvivalFastPath(statistic, data)
+    clusters = int(lay.cell_start.shape[0])
+    owner = [np.empty(a.shape[0], dtype=np.int64) for a in data]  # cluster number of each observation
+    for k, members in enumerate(lay.members):
+        owner[int(lay.slot_group[k])][members] = k
+    rows_per_batch = _rows_per_batch(batch_elements, max(clusters, sum(a.shape[0] for a in data)))
+    out = np.empty(resamples, dtype=np.float64)
+    done = 0
+    while done < resamples:
+        rows = min(rows_per_batch, resamples - done)
+        chosen = lay.cell_start + (reader.take(rows) * lay.cell_size).astype(np.int64)  # (rows, C)
+        offsets = (np.arange(rows, dtype=np.int64) * clusters)[:, None]
+        drawn = np.bincount((chosen + offsets).ravel(), minlength=rows * clusters).reshape(rows, clusters)
+        out[done:done + rows] = path.compute_weighted([drawn[:, owner[g]] for g in range(len(data))])
         done += rows
     return out
 

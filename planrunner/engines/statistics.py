@@ -67,9 +67,9 @@ class Statistic:
     se_formula: str | None = None
 
     def __post_init__(self) -> None:
-        if self.outcome not in ("numeric", "binary"):
-            raise ValueError(f"outcome must be 'numeric' or 'binary', got {self.outcome!r}")
-        if self.form not in (None, "mean", "median", "quantile"):
+        if self.outcome not in ("numeric", "binary", "censored"):
+            raise ValueError(f"outcome must be 'numeric', 'binary' or 'censored', got {self.outcome!r}")
+        if self.form not in (None, "mean", "median", "quantile", "survival"):
             raise ValueError(f"unknown form {self.form!r}")
         if self.samples < 0 or self.columns < 1:
             raise ValueError("samples must be >= 0 (0: two or more groups) and columns >= 1")
@@ -101,7 +101,9 @@ def _unbound(*_: np.ndarray) -> np.ndarray:
 
 # Parameters a plan may give a statistic: plan key -> (lowest, highest, whether the lowest is allowed);
 # the highest is never allowed (a 1-quantile is the maximum; trimming half leaves nothing)
-PARAMETERS: dict[str, tuple[float, float, bool]] = {"quantile": (0.0, 1.0, False), "trim": (0.0, 0.5, True)}
+PARAMETERS: dict[str, tuple[float, float, bool]] = {"quantile": (0.0, 1.0, False), "trim": (0.0, 0.5, True),
+                                                   # a time and a horizon of Kaplan–Meier statistics
+                                                   "at": (0.0, math.inf, False), "horizon": (0.0, math.inf, False)}
 
 
 def bind(statistic: Statistic, value: float | None) -> Statistic:
@@ -317,7 +319,7 @@ register(Statistic("odds_ratio", "odds ratio", 2, True, "binary", _odds_ratio))
 register(Statistic("hodges_lehmann", "Hodges–Lehmann shift", 2, False, "numeric", _hodges_lehmann))
 
 # two-group statistics that compare by a quotient (first over second), not a difference
-RATIOS = frozenset({"ratio_of_means", "risk_ratio", "odds_ratio"})
+RATIOS = frozenset({"ratio_of_means", "risk_ratio", "odds_ratio", "rmst_ratio"})
 
 
 def comparison_word(name: str) -> str:

@@ -93,7 +93,10 @@ def _reduce_statistic(statistic: Statistic) -> tuple:
     # columns) is not the bound statistic: it travels by value
     same_shape = registered is not None and (registered.samples, registered.columns) == (statistic.samples,
                                                                                          statistic.columns)
-    if same_shape and registered is not None and registered.parameter is not None and statistic.value is not None:
+    # a flipped Kaplan–Meier statistic (left censoring) carries its M: it travels by value
+    plain = getattr(getattr(statistic.compute, "spec", None), "flip", None) is None
+    if (same_shape and plain and registered is not None and registered.parameter is not None
+            and statistic.value is not None):
         return _bound_statistic, (statistic.name, statistic.value)
     by_value = object.__reduce_ex__(statistic, 4)  # by value, whatever fields it has
     assert isinstance(by_value, tuple)

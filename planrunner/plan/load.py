@@ -25,6 +25,7 @@ from planrunner.plan.expr import parse_expression
 from planrunner.plan.params import parameter_problems
 from planrunner.plan.problems import Problem, did_you_mean
 from planrunner.plan.schema import DATA_SUFFIXES, METHODS, RENAMED_VALUES, Dataset, Plan
+from planrunner.plan.survrules import censoring_checks
 from planrunner.plan.yamlsafe import MAX_PLAN_BYTES, LoadedYaml, Path_, dotted, load_yaml
 
 NUMERIC_TYPES = ("number", "integer", "boolean")
@@ -372,7 +373,8 @@ def _check_analysis(at: Path_, a: Any, plan: Plan) -> list[Problem]:
             out.append(Problem(at + ("statistic",),
                                f"'{a.statistic}' describes one group but the analysis compares two",
                                f"use {one_to_two.get(a.statistic, 'a two-group statistic')} or remove groups"))
-        if statistic.columns == 2 and a.predictor is None:
+        out += censoring_checks(at, a, cols)
+        if statistic.columns == 2 and a.predictor is None and statistic.outcome != "censored":
             out.append(Problem(at + ("statistic",),
                                f"'{a.statistic}' relates two columns but the analysis has no predictor",
                                "add predictor: COLUMN (the outcome is the other column)"))

@@ -47,7 +47,7 @@ def permutation_checks(at: tuple, a: Any, statistic: Statistic) -> list[Problem]
         if statistic.samples != 2 or statistic.columns != 1:
             out.append(Problem(at + ("clusters",), "clusters need a two-group statistic of one column",
                                "use e.g. mean_difference"))
-    if statistic.columns == 2 and a.strata is not None:
+    if statistic.columns == 2 and a.strata is not None and statistic.outcome != "censored":
         out.append(Problem(at + ("strata",), "an association test shuffles the outcome over all rows; "
                            "shuffling within strata is not supported",
                            "remove strata, or adjust for numeric covariates with Freedman–Lane (statistic: slope)"))

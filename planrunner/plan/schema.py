@@ -130,6 +130,12 @@ class AnalysisBase(Strict):
     # parameters of a statistic (each statistic says which one it takes, if any)
     quantile: Annotated[float, Field(gt=0.0, lt=1.0)] | None = None  # level of quantile statistics
     trim: Annotated[float, Field(ge=0.0, lt=0.5)] | None = None  # proportion cut from each end
+    # censored outcomes (Kaplan–Meier statistics, log-rank): the 0/1 column saying whether the event
+    # was observed (right censoring) or the value detected (left censoring, below a reported limit)
+    event: ColumnName | None = None
+    censoring: Literal["right", "left"] | None = None
+    at: Annotated[float, Field(gt=0.0, allow_inf_nan=False)] | None = None  # time of survival_at
+    horizon: Annotated[float, Field(gt=0.0, allow_inf_nan=False)] | None = None  # horizon of the RMST
 
 
 class Blocks(Strict):

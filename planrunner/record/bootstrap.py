@@ -72,6 +72,8 @@ def replicate_distribution(result: BootstrapResult, bins: int) -> dict[str, Any]
 
 def _kurtosis(values: np.ndarray) -> float | None:
     values = np.asarray(values, dtype=float)
+    if not np.isfinite(values).all():
+        return None  # not-estimable replicates (e.g. a median not reached) have no moments
     centred = values - values.mean()
     m2 = float(np.mean(centred ** 2))
     return float(np.mean(centred ** 4) / m2 ** 2) if m2 > 0 else None
