@@ -85,11 +85,14 @@ def support(values: np.ndarray, weights: np.ndarray | None = None, total: float 
 def distribution_summary(kind: str, values: np.ndarray, bins: int) -> dict[str, Any]:
     """Size, moments, range, histogram and SHA-256 of a set of replicates (or pseudo-values)."""
     values = np.asarray(values, dtype=float)
+    with np.errstate(invalid="ignore"):  # ±∞ replicates (a median not reached) give no moments: null
+        mean = _f(values.mean()) if values.size else None
+        sd = _f(values.std(ddof=1)) if values.size > 1 else None
     return {
         "kind": kind,
         "size": int(values.size),
-        "mean": _f(values.mean()) if values.size else None,
-        "sd": _f(values.std(ddof=1)) if values.size > 1 else None,
+        "mean": mean,
+        "sd": sd,
         "min": _f(values.min()) if values.size else None,
         "max": _f(values.max()) if values.size else None,
         # the hash lets anyone holding the full distribution prove it is the one behind the numbers
