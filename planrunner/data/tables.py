@@ -45,6 +45,19 @@ class Exclusion:
 
 
 @dataclass(frozen=True)
+class Dropped:
+    """The rows read but not kept, for counts per group: whether each had a missing value (else the
+    keep filter removed it), and its grouping-type columns as groups.compare names them (None where
+    the value itself was missing)."""
+
+    missing: np.ndarray  # bool, one per dropped row
+    labels: Mapping[str, np.ndarray]  # column -> object array of labels, one per dropped row
+
+
+NO_ROWS_DROPPED = Dropped(np.zeros(0, dtype=bool), {})
+
+
+@dataclass(frozen=True)
 class Table:
     """A dataset as read: typed columns of the rows kept, and how we got there."""
 
@@ -65,6 +78,7 @@ class Table:
     derived: tuple[tuple[str, str, str], ...] = ()  # (name, expression, type) of each derived column
     format: str = "csv"  # csv, tsv, xpt, dataset-json, parquet, xlsx
     dictionary: tuple[Entry, ...] = ()  # what the file says of each declared column (labels, formats)
+    dropped: Dropped = NO_ROWS_DROPPED  # the rows not kept, for missing and excluded counts per group
 
     @property
     def rows_used(self) -> int:
@@ -242,7 +256,33 @@ def _checked_table(name: str, spec: Dataset, shown: str, raw: dict[str, np.ndarr
                  excluded=tuple(excluded), columns=table_columns, lines=line_of[keep],
                  values_read={**values_read, **{c: tuple(sorted({group_value(v) for v in values}))
                                                 for c, values in derived.items()}},
-                 derived=tuple((c, d.expression, dataset_columns(spec)[c].type) for c, d in spec.derived().items()))
+                 derived=tuple((c, d.expression, dataset_columns(spec)[c].type) for c, d in spec.derived().items()),
+                 dropped=_dropped(raw, keep, markers, spec))
+
+
+def _dropped(raw: Mapping[str, np.ndarray], keep: np.ndarray, markers: set[str], spec: Dataset) -> Dropped:
+    """The rows not kept, each with why and with its grouping-type columns as labels."""
+    rows = np.flatnonzero(~keep)
+    missing = np.zeros(rows.size, dtype=bool)
+    labels = {}
+    for column, declared in spec.columns.items():
+        values = raw[column][rows]
+        absent = np.isin(values, list(markers)) if markers else np.zeros(rows.size, dtype=bool)
+        missing |= absent
+        if declared.type in GROUPING_TYPES:
+            labels[column] = np.array([None if gone else _label(text, declared.type)
+                                       for text, gone in zip(values.tolist(), absent)], dtype=object)
+    return Dropped(missing, labels)
+
+
+def _label(text: str, kind: str) -> str:
+    """A value read as text, named as groups.compare names it (booleans as true/false)."""
+    if kind == "boolean" and text.lower() in TRUE_WORDS | FALSE_WORDS:
+        return "true" if text.lower() in TRUE_WORDS else "false"
+    if kind == "integer":
+        exact = _exact_integer(text)
+        return text if exact is None else str(exact)
+    return text
 
 
 def _derive(name: str, spec: Dataset, which: set[str], rows: dict[str, np.ndarray], lines: np.ndarray,
@@ -272,16 +312,7 @@ def _derive(name: str, spec: Dataset, which: set[str], rows: dict[str, np.ndarra
 
 def _distinct(values: np.ndarray, kind: str, markers: set[str]) -> tuple[str, ...]:
     """Distinct values of a column as groups.compare names them, over every row read."""
-    out: set[str] = set()
-    for text in set(values.tolist()) - markers:
-        if kind == "boolean" and text.lower() in TRUE_WORDS | FALSE_WORDS:
-            out.add("true" if text.lower() in TRUE_WORDS else "false")
-        elif kind == "integer":
-            exact = _exact_integer(text)
-            out.add(text if exact is None else str(exact))
-        else:
-            out.add(text)
-    return tuple(sorted(out))
+    return tuple(sorted({_label(text, kind) for text in set(values.tolist()) - markers}))
 
 
 def group_value(value: object) -> str:

@@ -37,6 +37,7 @@ from planrunner.plan.load import LoadedPlan
 from planrunner.plan.schema import Analysis, Plan
 from planrunner.record.bootstrap import bootstrap_fields
 from planrunner.record.canonical import RECORD_HASH_FIELD, record_sha256
+from planrunner.record.describe import descriptives
 from planrunner.record.families import FamilyFields, Member, adjusted_family_fields, max_t_family_fields
 from planrunner.record.fields import MethodFields
 from planrunner.record.jackknife import jackknife_fields
@@ -209,7 +210,9 @@ def build_record(loaded: LoadedPlan, tables: dict[str, Table], jobs: list[Job], 
         "environment": environment() if facts.environment is None else facts.environment,
         "seed": {"root": plan.seed, "generator": GENERATOR, "derivation": SEED_DERIVATION,
                  "draw_block": DRAW_BLOCK},
-        "analyses": [analysis_entry(loaded, a, j, r, f, families)
+        "analyses": [{**analysis_entry(loaded, a, j, r, f, families),
+                      # the descriptive table, from the dataset as read (record/describe.py)
+                      "descriptives": descriptives(a, plan.datasets[a.data], tables[a.data])}
                      for a, j, r, f in zip(plan.analyses, jobs, results, fields)],
         "multiplicity": [family.entry for family in families],
         "report": {"note": plan.report.note, "bins": plan.report.bins},

@@ -74,6 +74,13 @@ _analysis = _obj({
             "probabilities": {"type": "array", "items": {"type": "number", "minimum": 0, "maximum": 1}}})]},
     }, required=[])]},
     "warnings": {"type": "array", "items": _warning},
+    "descriptives": _obj({"quartiles": {"type": "string"}, "rows": {"type": "array", "items": _obj({
+        "variable": {"type": "string"}, "group": {"type": "string"}, "stratum": _str,
+        "n": _int0, "clusters": {"type": ["integer", "null"], "minimum": 0},
+        **{k: _num for k in ("mean", "sd", "median", "q1", "q3", "min", "max", "proportion")},
+        "events": {"type": ["integer", "null"], "minimum": 0},
+        "missing": {"type": ["integer", "null"], "minimum": 0}, "excluded": {"type": ["integer", "null"], "minimum": 0},
+    })}}),
 }, required=["id", "method", "scheme", "statistic", "estimate", "standard_error", "bias", "intervals",
              "p_value", "alternative", "exact", "resamples", "n", "warnings", "settings", "stream"])
 _lock = {"oneOf": [{"type": "null"}, _obj({

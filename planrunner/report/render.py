@@ -154,9 +154,29 @@ def _analysis_view(index: int, entry: dict[str, Any]) -> dict[str, Any]:
         concerns.setdefault(where, []).append(warning)
     bands = (entry.get("monte_carlo") or {}).get("intervals") or []
     value, what, statistic = labels.effect(entry)
+    tables = descriptive_tables(entry)
     return {"figures": figures, "warnings": concerns, "direction": labels.direction(entry),
             "effect": {"value": value, "what": what, "statistic": statistic}, "sizes": labels.group_sizes(entry),
-            "bands": [bands[i] if i < len(bands) else {} for i in range(len(entry.get("intervals") or []))]}
+            "bands": [bands[i] if i < len(bands) else {} for i in range(len(entry.get("intervals") or []))],
+            "descriptives": tables}
+
+
+def descriptive_tables(entry: dict[str, Any]) -> list[dict[str, Any]]:
+    """The record's descriptive rows as one table per variable: a 0/1 variable shows events and
+    their proportion, another its mean, s.d., median, quartiles and range; the clusters and strata
+    columns only when the analysis has them. A record from before `descriptives` existed has none."""
+    described = entry.get("descriptives")
+    if not isinstance(described, dict):
+        return []
+    tables: dict[str, dict[str, Any]] = {}
+    for row in described.get("rows") or []:
+        table = tables.setdefault(str(row.get("variable")), {"variable": row.get("variable"), "rows": [],
+                                                             "binary": True, "clusters": False, "strata": False})
+        table["rows"].append(row)
+        table["binary"] = table["binary"] and row.get("events") is not None
+        table["clusters"] = table["clusters"] or row.get("clusters") is not None
+        table["strata"] = table["strata"] or row.get("stratum") is not None
+    return list(tables.values())
 
 
 @functools.lru_cache(maxsize=64)
