@@ -69,6 +69,11 @@ TRACE: dict[str, tuple[str, ...]] = {
         "tests/test_survival.py::test_left_censoring_is_the_flipped_right_censored_curve",
         "tests/test_survival.py::test_plan_runs_end_to_end",
         "tests/test_bad_inputs.py::test_bad_input_gives_one_clear_message"),
+    "One-sided bootstrap bounds": (
+        "tests/test_bootstrap_bounds.py::test_percentile_and_basic_bounds_equal_scipy_on_the_same_replicates",
+        "tests/test_bootstrap_bounds.py::test_bca_bound_matches_scipy_on_the_same_replicates",
+        "tests/test_bootstrap_bounds.py::test_identity_20_one_sided_bound_is_an_end_of_the_2c_minus_1_interval",
+        "tests/test_bootstrap_bounds.py::test_bounds_from_a_plan_reach_record_and_reports"),
     "Multiplicity": ("tests/test_engines_randomization.py::test_adjustments_match_statsmodels_bh95",
                      "tests/test_permutation_plans.py::test_max_t_family_end_to_end_and_order_free"),
     "What planrunner refuses and why": ("tests/test_bad_inputs.py::test_bad_input_gives_one_clear_message",

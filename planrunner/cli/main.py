@@ -240,7 +240,8 @@ def summary_table(record: dict) -> str:
     rows = [header]
     for a in record["analyses"]:
         first = a["intervals"][0] if a["intervals"] else None
-        interval = (f"{first['method']} {first['level'] * 100:g}%: {number(first['lower'])} to {number(first['upper'])}"
+        interval = (f"{labels.interval_label(first, format(first['level'] * 100, 'g'))}: "
+                    f"{labels.interval_ends(first, number(first['lower']), number(first['upper']))}"
                     if first else "")
         value, what, statistic = labels.effect(a)
         estimate = number(value) + (f" ({what})" if what else "") + (f"; {statistic}" if statistic else "")

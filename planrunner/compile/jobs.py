@@ -85,7 +85,9 @@ def bootstrap_options(analysis: BootstrapAnalysis, defaults: Defaults) -> Bootst
         "inner_resamples": analysis.inner_resamples, "on_degenerate": analysis.on_degenerate,
         "blocks": None if analysis.blocks is None else (analysis.blocks.scheme, analysis.blocks.length),
         "parametric": analysis.parametric, "trials": analysis.trials, "exhaustive": analysis.exhaustive,
-        "save_distribution": analysis.save_distribution}
+        "save_distribution": analysis.save_distribution,
+        # the analysis's own key only: defaults.alternative is for the permutation-type tests
+        "alternative": analysis.alternative}
     return BootstrapOptions(**{key: value for key, value in declared.items() if value is not None})
 
 

@@ -56,7 +56,14 @@ import numpy as np
 from planrunner.engines import schemes
 from planrunner.engines.blocks import RangeTask, map_resamples
 from planrunner.engines.blocks import bind as range_task
-from planrunner.engines.intervals import INTERVAL_METHODS, Summary, bca_levels, quantile_rank, read_quantile
+from planrunner.engines.intervals import (
+    INTERVAL_METHODS,
+    Summary,
+    bca_levels,
+    quantile_rank,
+    read_quantile,
+    tail_levels,
+)
 from planrunner.engines.jackknife import SMALL_SAMPLE, cluster_replicates, jackknife_replicates
 from planrunner.engines.lazy import ndtri
 from planrunner.engines.results import BootstrapResult, EngineWarning, Interval, frozen_array
@@ -85,6 +92,7 @@ TIE_TOLERANCE = 2.0 ** -43
 # Tibshirani advise for percentile intervals, from memory).
 TAIL_MINIMUM = 10
 DEGENERATE_CHOICES = ("fail", "percentile", "estimate-only")
+ALTERNATIVES = ("two-sided", "greater", "less")  # greater: a one-sided lower bound; less: an upper bound
 
 CONVENTIONS = {
     "standard_error": "sd of the replicates, divisor B-1 (exhaustive: exact weighted sd)",
@@ -195,6 +203,8 @@ class BootstrapOptions:
     trials: int | None = None  # the binomial model's number of trials
     exhaustive: bool = False  # enumerate every distinct resample instead of drawing
     save_distribution: bool = False  # the record keeps every replicate (not used by the engine)
+    # "two-sided" intervals, or one-sided confidence bounds: "greater" a lower bound, "less" an upper one
+    alternative: str = "two-sided"
 
     def settings(self) -> dict[str, Any]:
         """The record's ``settings`` (JSON values: tuples become lists)."""
@@ -249,6 +259,8 @@ def _check_options(options: BootstrapOptions, scheme: Scheme, stratified: bool, 
     if unknown:
         raise EngineError(f"unknown interval method(s) {', '.join(map(repr, unknown))}",
                           hint=f"known: {', '.join(INTERVAL_METHODS)}")
+    if options.alternative not in ALTERNATIVES:
+        raise EngineError(f"alternative must be one of {', '.join(ALTERNATIVES)}, got {options.alternative!r}")
     if options.on_degenerate not in DEGENERATE_CHOICES:
         raise EngineError(f"on_degenerate must be one of {', '.join(DEGENERATE_CHOICES)}, "
                           f"got {options.on_degenerate!r}")
@@ -485,7 +497,8 @@ def _summarise(p: Prepared, options: BootstrapOptions, drawn: Drawn, batch_eleme
         estimate=p.estimate, standard_error=None, bias=None, intervals=(), resamples=resamples,
         scheme=drawn.scheme, n=p.n, distribution=frozen_array(drawn.distribution), z0=None, acceleration=None,
         conventions=dict(CONVENTIONS), warnings=(), exact=drawn.weights is not None,
-        weights=None if drawn.weights is None else frozen_array(drawn.weights), details=details)
+        weights=None if drawn.weights is None else frozen_array(drawn.weights), details=details,
+        alternative=options.alternative)
     return _with_intervals(result, p, options, drawn, warnings, batch_elements)
 
 
@@ -514,8 +527,10 @@ def _with_intervals(result: BootstrapResult, p: Prepared, options: BootstrapOpti
     def finish(**numbers: Any) -> BootstrapResult:
         return replace(result, warnings=tuple(warnings), **numbers)
 
+    side = {"greater": "lower", "less": "upper"}.get(options.alternative, "two-sided")
+
     def no_intervals(note: str) -> tuple[Interval, ...]:
-        return tuple(Interval(m, confidence, None, None, note=note) for m in options.intervals)
+        return tuple(Interval(m, confidence, None, None, note=note, side=side) for m in options.intervals)
 
     finite = np.isfinite(distribution)
     if not finite.all():
@@ -538,7 +553,8 @@ def _with_intervals(result: BootstrapResult, p: Prepared, options: BootstrapOpti
                    "the resampled units, so no interval can be formed")
         _degenerate(on_degenerate, message, warnings, "degenerate-distribution")
         if on_degenerate == "percentile":
-            found = tuple(Interval(m, confidence, lowest, highest,
+            ends = (-math.inf if side == "upper" else lowest, math.inf if side == "lower" else highest)
+            found = tuple(Interval(m, confidence, *ends, side=side,
                                    note="degenerate distribution: the percentile interval (a single point) "
                                         "is reported, as on_degenerate: percentile declares")
                           for m in options.intervals)
@@ -547,17 +563,17 @@ def _with_intervals(result: BootstrapResult, p: Prepared, options: BootstrapOpti
 
     z0 = acceleration = problem = None
     if "bca" in options.intervals:
-        z0, acceleration, problem = _bca(p, drawn, ordered, order, confidence, batch_elements, warnings)
+        z0, acceleration, problem = _bca(p, drawn, ordered, order, options, batch_elements, warnings)
     t_ordered = t_cumulative = se_hat = t_problem = None
     details = result.details
     if p.inner is not None:
-        t_ordered, t_cumulative, se_hat, t_problem = _studentized(p, drawn, moments["standard_error"], confidence,
+        t_ordered, t_cumulative, se_hat, t_problem = _studentized(p, drawn, moments["standard_error"], options,
                                                                   batch_elements, warnings)
         details = {**details, "se_hat": se_hat}
     exact = weights is not None
     summary = Summary(p.estimate, ordered, cumulative, confidence, moments["standard_error"], moments["bias"],
                       None if exact else moments["standard_error_sd"], None if exact else moments["bias_sd"],
-                      z0, acceleration, problem, t_ordered, t_cumulative, se_hat, t_problem)
+                      z0, acceleration, problem, t_ordered, t_cumulative, se_hat, t_problem, options.alternative)
     found = tuple(_interval(m, summary, on_degenerate) for m in options.intervals)
     if not exact:
         for w in _tail_warnings(found, ordered):
@@ -588,22 +604,29 @@ def _not_estimable(result: BootstrapResult, p: Prepared, options: BootstrapOptio
     confidence = options.confidence
     note = f"{bad} of {resamples} resamples ({share:.1%}) not estimable"
     found = []
+    side = {"greater": "lower", "less": "upper"}.get(options.alternative, "two-sided")
     for method in options.intervals:
-        interval = Interval(method, confidence, None, None, note=note)
+        interval = Interval(method, confidence, None, None, note=note, side=side)
         if method == "percentile" and options.on_degenerate == "percentile" and undefined == 0:
             ordered = np.sort(distribution)
-            alpha = 1.0 - confidence
-            levels = (alpha / 2, 1 - alpha / 2)
-            ends = [read_quantile(ordered, None, q) for q in levels]
-            if all(math.isfinite(e) for e in ends):
-                interval = Interval(method, confidence, ends[0], ends[1], quantile_levels=levels,
+            levels = tail_levels(confidence, options.alternative)  # a one-sided bound reads one end
+            ends = [read_quantile(ordered, None, q) if q is not None else (-math.inf if k == 0 else math.inf)
+                    for k, q in enumerate(levels)]
+            read = [e for e, q in zip(ends, levels) if q is not None]
+            if all(math.isfinite(e) for e in read):
+                interval = Interval(method, confidence, ends[0], ends[1], quantile_levels=levels, side=side,
                                     note=f"{note}: ordered beyond every estimable one (not reached), as "
                                          "on_degenerate: percentile declares")
             else:
-                interval = Interval(method, confidence, None, None,
+                interval = Interval(method, confidence, None, None, side=side,
                                     note=f"{note}: an endpoint lies among the not-reached resamples")
         found.append(interval)
     return replace(result, intervals=tuple(found), details=details, warnings=tuple(warnings))
+
+
+def _read_levels(confidence: float, alternative: str) -> list[float]:
+    """The nominal levels whose quantiles the interval reads (one for a one-sided bound)."""
+    return [q for q in tail_levels(confidence, alternative) if q is not None]
 
 
 def _degenerate(on_degenerate: str, message: str, warnings: list[EngineWarning], code: str) -> None:
@@ -643,12 +666,13 @@ def _interval(method: str, summary: Summary, on_degenerate: str) -> Interval:
     return interval
 
 
-def _bca(p: Prepared, drawn: Drawn, ordered: np.ndarray, order: np.ndarray, confidence: float,
+def _bca(p: Prepared, drawn: Drawn, ordered: np.ndarray, order: np.ndarray, options: BootstrapOptions,
          batch_elements: int, warnings: list[EngineWarning]) -> tuple[float | None, float | None, str | None]:
     # ties judged relative to the data's magnitude: rounding, not data, separates such values
     tolerance = TIE_TOLERANCE * max(abs(p.estimate), max(float(np.max(np.abs(a))) for a in p.data))
     z0, acceleration, problem = _bca_constants(p.data, p.statistic, p.lay, drawn.clusters, p.cluster_codes,
-                                               ordered, p.estimate, tolerance, confidence, batch_elements,
+                                               ordered, p.estimate, tolerance,
+                                               _read_levels(options.confidence, options.alternative), batch_elements,
                                                None if drawn.weights is None else drawn.weights[order])
     if problem is not None:
         warnings.append(EngineWarning("bca-undefined", f"no BCa interval: {problem}"))
@@ -661,7 +685,7 @@ def _bca(p: Prepared, drawn: Drawn, ordered: np.ndarray, order: np.ndarray, conf
     return z0, acceleration, problem
 
 
-def _studentized(p: Prepared, drawn: Drawn, standard_error: float, confidence: float, batch_elements: int,
+def _studentized(p: Prepared, drawn: Drawn, standard_error: float, options: BootstrapOptions, batch_elements: int,
                  warnings: list[EngineWarning]) -> tuple[np.ndarray | None, np.ndarray | None, float, str | None]:
     """The sorted t* (and cumulative weights), ŝe, and why there is no studentized interval (or None)."""
     se_star, distribution, estimate = drawn.se_star, drawn.distribution, p.estimate
@@ -691,9 +715,9 @@ def _studentized(p: Prepared, drawn: Drawn, standard_error: float, confidence: f
         t_ordered = t[t_order]
         t_cumulative = None if drawn.weights is None else np.cumsum(drawn.weights[t_order])
         if not np.isfinite([t_ordered[0], t_ordered[-1]]).all():
-            # infinite t* only matter if an endpoint reads them
-            alpha = 1.0 - confidence
-            reads = [read_quantile(t_ordered, t_cumulative, q) for q in (alpha / 2, 1 - alpha / 2)]
+            # infinite t* only matter if an endpoint reads them (the t levels are the reflected ones)
+            reads = [read_quantile(t_ordered, t_cumulative, 1 - q)
+                     for q in _read_levels(options.confidence, options.alternative)]
             if not np.isfinite(reads).all():
                 t_problem = ("so many resamples have a zero standard error that an endpoint of the "
                              "studentized interval is infinite")
@@ -743,10 +767,14 @@ def _tail_warnings(found: tuple[Interval, ...], ordered: np.ndarray) -> list[Eng
             continue  # these endpoints are not read from the replicates' own tails
         below = int(np.count_nonzero(ordered < iv.lower))
         above = int(np.count_nonzero(ordered > iv.upper))
-        if min(below, above) < TAIL_MINIMUM:
+        # the open end of a one-sided bound reads no tail: only the bound's own tail counts
+        read = [n for n, end in ((below, iv.lower), (above, iv.upper)) if math.isfinite(end)]
+        if min(read) < TAIL_MINIMUM:
+            where = (f"below and {above} above the {iv.method} interval" if iv.side == "two-sided" else
+                     f"{'below' if iv.side == 'lower' else 'above'} the one-sided {iv.method} {iv.side} bound")
             warnings.append(EngineWarning(
                 "few-resamples-in-tail",
-                f"only {below} replicate(s) lie below and {above} above the {iv.method} interval "
+                f"only {below if iv.side != 'upper' else above} replicate(s) lie {where} "
                 f"(fewer than {TAIL_MINIMUM} in a tail): the endpoint is poorly determined by "
                 f"{ordered.shape[0]} resamples; use more resamples"))
     return warnings
@@ -754,7 +782,7 @@ def _tail_warnings(found: tuple[Interval, ...], ordered: np.ndarray) -> list[Eng
 
 def _bca_constants(data: tuple[np.ndarray, ...], statistic: Statistic, lay: schemes.Layout,
                    cl: schemes.ClusterLayout | None, cluster_codes: tuple[np.ndarray, ...] | None,
-                   ordered: np.ndarray, estimate: float, tolerance: float, confidence: float, batch_elements: int,
+                   ordered: np.ndarray, estimate: float, tolerance: float, levels: list[float], batch_elements: int,
                    ordered_weights: np.ndarray | None) -> tuple[float | None, float | None, str | None]:
     """z0, acceleration, and the reason BCa is undefined (None when it is defined)."""
     share = percentile_of_score(ordered, estimate, tolerance, ordered_weights)
@@ -778,8 +806,7 @@ def _bca_constants(data: tuple[np.ndarray, ...], statistic: Statistic, lay: sche
     acceleration = bca_acceleration(per_cell)
     if not math.isfinite(acceleration):
         return z0, None, ("the delete-one jackknife values do not vary, so the acceleration is undefined")
-    alpha = 1.0 - confidence
-    z = z0 + ndtri(np.array([alpha / 2, 1 - alpha / 2]))
+    z = z0 + ndtri(np.array(levels))
     if np.any(1.0 - acceleration * z <= 0.0):
         return z0, acceleration, (f"the acceleration {acceleration:.4g} is so large that the level "
                                   "adjustment is not monotone")

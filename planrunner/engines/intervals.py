@@ -38,7 +38,8 @@ import numpy as np
 from planrunner.engines.lazy import ndtr, ndtri
 from planrunner.engines.results import Interval
 
-__all__ = ["INTERVAL_METHODS", "MC_RULE", "Summary", "bca_levels", "quantile_band", "quantile_rank", "read_quantile"]
+__all__ = ["INTERVAL_METHODS", "MC_RULE", "Summary", "bca_levels", "quantile_band", "quantile_rank", "read_quantile",
+           "tail_levels"]
 
 MC_Z = 1.959963984540054  # 97.5% normal point: the Monte Carlo bands are about 95%
 MC_RULE = ("band: ranks ceil(qB) ± ceil(z·s) of the sorted replicates, s = sqrt(B q (1-q)), z = 1.96 "
@@ -67,10 +68,16 @@ class Summary:
     t_cumulative: np.ndarray | None = None
     se_hat: float | None = None
     studentized_problem: str | None = None
+    alternative: str = "two-sided"  # "greater": a one-sided lower bound; "less": an upper bound
 
     @property
     def exact(self) -> bool:
         return self.cumulative is not None
+
+    @property
+    def side(self) -> str:
+        """The interval's side: "two-sided", or "lower" / "upper" for a one-sided bound."""
+        return {"greater": "lower", "less": "upper"}.get(self.alternative, "two-sided")
 
 
 IntervalMethod = Callable[[Summary], Interval]
@@ -139,78 +146,122 @@ def _reflected(estimate: float, band: Band | None) -> Band | None:
 
 
 def _with_bands(interval: Interval, lower: Band | None, upper: Band | None) -> Interval:
-    if lower is None or upper is None:
+    """The interval with the bands of its read ends (an open end of a one-sided bound has none)."""
+    if lower is None and upper is None:
         return interval
-    return dataclasses.replace(interval, monte_carlo=((lower[0], lower[1]), (upper[0], upper[1])),
-                               monte_carlo_sd=(lower[2], upper[2]))
+    return dataclasses.replace(interval, monte_carlo=(None if lower is None else (lower[0], lower[1]),
+                                                      None if upper is None else (upper[0], upper[1])),
+                               monte_carlo_sd=(None if lower is None else lower[2],
+                                               None if upper is None else upper[2]))
 
 
 def _undefined(method: str, s: Summary, note: str) -> Interval:
-    return Interval(method, s.confidence, None, None, note=note)
+    return Interval(method, s.confidence, None, None, note=note, side=s.side)
 
 
-def _tails(s: Summary) -> tuple[float, float]:
-    alpha = 1.0 - s.confidence
+def tail_levels(confidence: float, alternative: str) -> tuple[float | None, float | None]:
+    """The levels of the lower and of the upper end: (α/2, 1 − α/2) two-sided; a one-sided bound
+    at confidence 1 − α reads one end at α (lower bound, ``greater``) or 1 − α (upper bound,
+    ``less``), and its other end is open (None here, ∓∞ in the interval)."""
+    alpha = 1.0 - confidence
+    if alternative == "greater":
+        return alpha, None
+    if alternative == "less":
+        return None, 1.0 - alpha
     return alpha / 2, 1 - alpha / 2
+
+
+def _tails(s: Summary) -> tuple[float | None, float | None]:
+    return tail_levels(s.confidence, s.alternative)
+
+
+def _reflected_tails(s: Summary) -> tuple[float | None, float | None]:
+    """The levels that the lower and the upper end of a reflected interval (basic, studentized)
+    read: the lower end reflects the upper quantile, so (1 − α/2, α/2) two-sided; (1 − α, open)
+    for a lower bound; (open, α) for an upper bound."""
+    alpha = 1.0 - s.confidence
+    if s.alternative == "greater":
+        return 1 - alpha, None
+    if s.alternative == "less":
+        return None, alpha
+    return 1 - alpha / 2, alpha / 2
+
+
+def _ends(lo: float | None, hi: float | None, read: Callable[[float], float],
+          band: Callable[[float], Band | None]) -> tuple[float, float, Band | None, Band | None]:
+    """(lower, upper, lower band, upper band) of ends read at ``lo`` and ``hi``; an open end is ∓∞."""
+    return (-math.inf if lo is None else read(lo), math.inf if hi is None else read(hi),
+            None if lo is None else band(lo), None if hi is None else band(hi))
 
 
 def _percentile(s: Summary) -> Interval:
     lo, hi = _tails(s)
-    interval = Interval("percentile", s.confidence, read_quantile(s.ordered, s.cumulative, lo),
-                        read_quantile(s.ordered, s.cumulative, hi), quantile_levels=(lo, hi))
-    return _with_bands(interval, _band(s.ordered, s.cumulative, lo), _band(s.ordered, s.cumulative, hi))
+    lower, upper, b_lo, b_hi = _ends(lo, hi, lambda q: read_quantile(s.ordered, s.cumulative, q),
+                                     lambda q: _band(s.ordered, s.cumulative, q))
+    interval = Interval("percentile", s.confidence, lower, upper, quantile_levels=(lo, hi), side=s.side)
+    return _with_bands(interval, b_lo, b_hi)
 
 
 def _basic(s: Summary) -> Interval:
-    lo, hi = _tails(s)
-    q_lo = read_quantile(s.ordered, s.cumulative, lo)
-    q_hi = read_quantile(s.ordered, s.cumulative, hi)
-    interval = Interval("basic", s.confidence, 2 * s.estimate - q_hi, 2 * s.estimate - q_lo,
-                        quantile_levels=(hi, lo))
-    return _with_bands(interval, _reflected(s.estimate, _band(s.ordered, s.cumulative, hi)),
-                       _reflected(s.estimate, _band(s.ordered, s.cumulative, lo)))
+    r_lo, r_hi = _reflected_tails(s)
+    lower, upper, b_lo, b_hi = _ends(r_lo, r_hi, lambda q: 2 * s.estimate - read_quantile(s.ordered, s.cumulative, q),
+                                     lambda q: _reflected(s.estimate, _band(s.ordered, s.cumulative, q)))
+    interval = Interval("basic", s.confidence, lower, upper, quantile_levels=(r_lo, r_hi), side=s.side)
+    return _with_bands(interval, b_lo, b_hi)
 
 
 def _normal(s: Summary) -> Interval:
-    _, hi = _tails(s)
-    z = float(ndtri(hi))
+    lo, hi = _tails(s)
     centre = s.estimate - s.bias
-    lower, upper = centre - z * s.standard_error, centre + z * s.standard_error
+    # the lower end is centre − z(1 − lo)·se, the upper centre + z(hi)·se
+    z_lo = None if lo is None else float(ndtri(1 - lo))
+    z_hi = None if hi is None else float(ndtri(hi))
+    lower = -math.inf if z_lo is None else centre - z_lo * s.standard_error
+    upper = math.inf if z_hi is None else centre + z_hi * s.standard_error
+    sign = {"lower": "-", "upper": "+"}.get(s.side, "-/+")
     interval = Interval("normal", s.confidence, lower, upper,
-                        note="bias-corrected: (estimate - bias) -/+ z * standard error")
+                        note=f"bias-corrected: (estimate - bias) {sign} z * standard error", side=s.side)
     if s.standard_error_sd is None or s.bias_sd is None:
         return interval
-    sd = math.sqrt(s.bias_sd ** 2 + (z * s.standard_error_sd) ** 2)
-    return _with_bands(interval, (lower - MC_Z * sd, lower + MC_Z * sd, sd),
-                       (upper - MC_Z * sd, upper + MC_Z * sd, sd))
+
+    def band(end: float, z: float | None) -> Band | None:
+        if z is None:
+            return None
+        assert s.bias_sd is not None and s.standard_error_sd is not None
+        sd = math.sqrt(s.bias_sd ** 2 + (z * s.standard_error_sd) ** 2)
+        return end - MC_Z * sd, end + MC_Z * sd, sd
+    return _with_bands(interval, band(lower, z_lo), band(upper, z_hi))
 
 
 def _bca(s: Summary) -> Interval:
     if s.bca_problem is not None:
         return _undefined("bca", s, s.bca_problem)
     assert s.z0 is not None and s.acceleration is not None
-    lo, hi = (float(v) for v in bca_levels(s.z0, s.acceleration, list(_tails(s))))
-    interval = Interval("bca", s.confidence, read_quantile(s.ordered, s.cumulative, lo),
-                        read_quantile(s.ordered, s.cumulative, hi), quantile_levels=(lo, hi))
-    return _with_bands(interval, _band(s.ordered, s.cumulative, lo), _band(s.ordered, s.cumulative, hi))
+    lo, hi = _tails(s)
+    a_lo = None if lo is None else float(bca_levels(s.z0, s.acceleration, lo))
+    a_hi = None if hi is None else float(bca_levels(s.z0, s.acceleration, hi))
+    lower, upper, b_lo, b_hi = _ends(a_lo, a_hi, lambda q: read_quantile(s.ordered, s.cumulative, q),
+                                     lambda q: _band(s.ordered, s.cumulative, q))
+    interval = Interval("bca", s.confidence, lower, upper, quantile_levels=(a_lo, a_hi), side=s.side)
+    return _with_bands(interval, b_lo, b_hi)
 
 
 def _studentized(s: Summary) -> Interval:
     if s.studentized_problem is not None:
         return _undefined("studentized", s, s.studentized_problem)
     assert s.t_ordered is not None and s.se_hat is not None
-    lo, hi = _tails(s)
-    t_lo = read_quantile(s.t_ordered, s.t_cumulative, lo)
-    t_hi = read_quantile(s.t_ordered, s.t_cumulative, hi)
-    interval = Interval("studentized", s.confidence, s.estimate - s.se_hat * t_hi, s.estimate - s.se_hat * t_lo,
-                        quantile_levels=(hi, lo))
     se_hat = s.se_hat
+    t_ordered, t_cumulative = s.t_ordered, s.t_cumulative
 
     def mapped(band: Band | None) -> Band | None:  # an end θ̂ − ŝe·t moves with its t quantile
         return None if band is None else (s.estimate - se_hat * band[1], s.estimate - se_hat * band[0],
                                           abs(se_hat) * band[2])
-    return _with_bands(interval, mapped(_band(s.t_ordered, s.t_cumulative, hi)),
-                       mapped(_band(s.t_ordered, s.t_cumulative, lo)))
+    r_lo, r_hi = _reflected_tails(s)  # the lower end is θ̂ − ŝe·t(r_lo), the upper θ̂ − ŝe·t(r_hi)
+    lower, upper, b_lo, b_hi = _ends(r_lo, r_hi,
+                                     lambda q: s.estimate - se_hat * read_quantile(t_ordered, t_cumulative, q),
+                                     lambda q: mapped(_band(t_ordered, t_cumulative, q)))
+    interval = Interval("studentized", s.confidence, lower, upper, quantile_levels=(r_lo, r_hi), side=s.side)
+    return _with_bands(interval, b_lo, b_hi)
 
 
 INTERVAL_METHODS: dict[str, IntervalMethod] = {

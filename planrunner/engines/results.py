@@ -42,7 +42,10 @@ class Interval:
     """A confidence interval; ``lower``/``upper`` are None (with a ``note``) when it is undefined.
 
     ``quantile_levels`` are the levels of the resample distribution the endpoints were read at
-    (for BCa the adjusted levels), when the method reads quantiles.
+    (for BCa the adjusted levels), when the method reads quantiles (None for an open end).
+    ``side``: "two-sided", or "lower" / "upper" for a one-sided confidence bound, whose other end
+    is open: ``upper`` is +inf for a lower bound, ``lower`` −inf for an upper bound (the record
+    writes an open end as null beside ``side``).
     """
 
     method: str
@@ -50,12 +53,13 @@ class Interval:
     lower: float | None
     upper: float | None
     note: str | None = None
-    quantile_levels: tuple[float, float] | None = None
+    quantile_levels: tuple[float | None, float | None] | None = None
     # about 95% Monte Carlo ranges (low, high) of the lower and of the upper endpoint; None when
-    # exact (exhaustive enumeration) or undefined
-    monte_carlo: tuple[tuple[float, float], tuple[float, float]] | None = None
+    # exact (exhaustive enumeration) or undefined; the open end of a one-sided bound has none
+    monte_carlo: tuple[tuple[float, float] | None, tuple[float, float] | None] | None = None
     # Monte Carlo s.d. of the lower and of the upper endpoint, by the same rule (intervals.MC_RULE)
-    monte_carlo_sd: tuple[float, float] | None = None
+    monte_carlo_sd: tuple[float | None, float | None] | None = None
+    side: str = "two-sided"
 
 
 @dataclass(frozen=True, eq=False)
@@ -87,6 +91,8 @@ class BootstrapResult:
     bias_sd: float | None = None
     # scheme-specific facts: fitted parameters, block length, inner standard-error method and cost
     details: dict = field(default_factory=dict)
+    # "two-sided" intervals, or one-sided bounds: "greater" (lower bounds), "less" (upper bounds)
+    alternative: str = "two-sided"
 
 
 @dataclass(frozen=True, eq=False)

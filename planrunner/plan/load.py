@@ -24,7 +24,7 @@ from planrunner.plan.designrules import check_resampling_design
 from planrunner.plan.expr import parse_expression
 from planrunner.plan.params import parameter_problems
 from planrunner.plan.problems import Problem, did_you_mean
-from planrunner.plan.schema import DATA_SUFFIXES, METHODS, RENAMED_VALUES, Dataset, Plan
+from planrunner.plan.schema import DATA_SUFFIXES, METHOD_MODELS, METHODS, RENAMED_VALUES, Dataset, Plan
 from planrunner.plan.survrules import censoring_checks
 from planrunner.plan.yamlsafe import MAX_PLAN_BYTES, LoadedYaml, Path_, dotted, load_yaml
 
@@ -185,6 +185,11 @@ def _from_pydantic(err: Mapping[str, Any], data: Any) -> Problem:
     if kind == "extra_forbidden":
         model = _model_at(path[:-1], data)
         allowed = sorted(model.model_fields) if model else []
+        analysis_models = list(METHOD_MODELS.values())
+        owners = [m for m in analysis_models if model in analysis_models and str(path[-1]) in m.model_fields]
+        if owners:  # a key of another method: say whose it is rather than guessing a spelling
+            names = " and ".join(name for name, m in METHOD_MODELS.items() if m in owners)
+            return Problem(path, f"'{path[-1]}' applies only to {names} analyses", "remove the key", at_key=True)
         hint = did_you_mean(str(path[-1]), allowed) or (
             f"allowed here: {', '.join(allowed)}" if allowed else None)
         return Problem(path, f"unknown key '{path[-1]}'", hint, at_key=True)

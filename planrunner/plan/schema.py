@@ -160,6 +160,10 @@ class BootstrapAnalysis(AnalysisBase):
     trials: Annotated[int, Field(ge=1)] | None = None
     exhaustive: bool = False
     save_distribution: bool = False  # write every replicate (and exhaustive weight) into the record
+    # one-sided confidence bounds: greater gives lower bounds, less upper bounds; never inherited
+    # from defaults.alternative (which is for the permutation-type tests), so that a plan written
+    # before bounds existed keeps its two-sided intervals
+    alternative: Alternative | None = None
 
     @model_validator(mode="after")
     def _unique_intervals(self) -> BootstrapAnalysis:
@@ -187,6 +191,8 @@ Analysis = Annotated[
     Field(discriminator="method"),
 ]
 METHODS = ("bootstrap", "permutation", "jackknife")
+METHOD_MODELS: dict[str, type[AnalysisBase]] = {"bootstrap": BootstrapAnalysis, "permutation": PermutationAnalysis,
+                                                "jackknife": JackknifeAnalysis}
 
 
 class MultiplicityFamily(Strict):

@@ -23,8 +23,10 @@ def interval_bands(intervals: Sequence[Interval]) -> list[dict[str, Any]]:
         entry: dict[str, Any] = {"method": interval.method, "lower_band": None, "upper_band": None,
                                  "lower_sd": None, "upper_sd": None}
         if interval.monte_carlo is not None and interval.monte_carlo_sd is not None:
-            (lo_low, lo_high), (up_low, up_high) = interval.monte_carlo
-            entry.update(lower_band=[lo_low, lo_high], upper_band=[up_low, up_high],
+            # the open end of a one-sided bound has no band (null)
+            lower, upper = interval.monte_carlo
+            entry.update(lower_band=None if lower is None else list(lower),
+                         upper_band=None if upper is None else list(upper),
                          lower_sd=interval.monte_carlo_sd[0], upper_sd=interval.monte_carlo_sd[1])
         out.append(entry)
     return out

@@ -26,7 +26,7 @@ def bootstrap_fields(result: BootstrapResult, bins: int, *, save_distribution: b
     return MethodFields(
         estimate=_f(result.estimate), standard_error=_f(result.standard_error), bias=_f(result.bias),
         intervals=tuple(_interval(i) for i in result.intervals),
-        resamples=int(result.resamples), exact=bool(result.exact),
+        resamples=int(result.resamples), exact=bool(result.exact), alternative=result.alternative,
         monte_carlo={
             # MC s.d. of a B-replicate SE: SE·sqrt((κ−1)/(4B)) (V-TOL); of the bias: SE/√B
             "standard_error_sd": _f(result.standard_error_sd),
@@ -43,11 +43,20 @@ def bootstrap_fields(result: BootstrapResult, bins: int, *, save_distribution: b
 
 
 def _interval(i: Interval) -> dict[str, Any]:
-    return {"method": i.method, "level": _f(i.level), "lower": _f(i.lower), "upper": _f(i.upper), "note": i.note,
+    # a one-sided bound's open end (−inf or +inf in the engine) is written as null beside `side`
+    # (JSON has no infinity): side "lower" means upper = +inf, side "upper" means lower = −inf
+    lower = None if i.side == "upper" else _f(i.lower)
+    upper = None if i.side == "lower" else _f(i.upper)
+    return {"method": i.method, "level": _f(i.level), "side": i.side, "lower": lower, "upper": upper,
+            "note": i.note,
             "quantile_levels": None if i.quantile_levels is None else [_f(v) for v in i.quantile_levels],
-            # about 95% Monte Carlo ranges of each endpoint (null when exact or undefined)
+            # about 95% Monte Carlo ranges of each endpoint (null when exact, undefined or open)
             "monte_carlo": None if i.monte_carlo is None else
-            {"lower": [_f(v) for v in i.monte_carlo[0]], "upper": [_f(v) for v in i.monte_carlo[1]]}}
+            {"lower": _pair(i.monte_carlo[0]), "upper": _pair(i.monte_carlo[1])}}
+
+
+def _pair(band: tuple[float, float] | None) -> list[Any] | None:
+    return None if band is None else [_f(v) for v in band]
 
 
 def replicate_distribution(result: BootstrapResult, bins: int) -> dict[str, Any]:

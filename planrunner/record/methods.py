@@ -75,6 +75,10 @@ def _sentence(a: dict[str, Any]) -> str:
         methods = _list([INTERVAL_WORDS.get(m, m) for m in settings.get("intervals", [])])
         level = settings.get("confidence")
         intervals = f"{level * 100:g}% {methods} intervals" if level is not None else f"{methods} intervals"
+        side = {"greater": "lower", "less": "upper"}.get(settings.get("alternative", ""))
+        if side is not None:  # one-sided confidence bounds
+            intervals = (f"one-sided {side} {level * 100:g}% confidence bounds ({methods})" if level is not None
+                         else f"one-sided {side} confidence bounds ({methods})")
         return (f"{lead} estimated {what} and its uncertainty by the nonparametric bootstrap "
                 f"(scheme: {a['scheme']}) with {a['resamples']} resamples; the standard error is the standard "
                 f"deviation of the replicates, and {intervals} were computed.")

@@ -134,6 +134,6 @@ def permutation_fields(result: PermutationResult, bins: int) -> MethodFields:
 def shift_interval_fields(result: PermutationResult) -> tuple[tuple[dict[str, Any], ...], dict[str, Any]]:
     """Record adapter of the shift interval (the two-group test inverted): its intervals and the
     details it adds (the shift estimate)."""
-    intervals = tuple({"method": i.method, "level": _f(i.level), "lower": _f(i.lower), "upper": _f(i.upper),
-                       "note": i.note} for i in result.intervals)
+    intervals = tuple({"method": i.method, "level": _f(i.level), "side": i.side, "lower": _f(i.lower),
+                       "upper": _f(i.upper), "note": i.note} for i in result.intervals)
     return intervals, {"shift_estimate": _f(result.shift_estimate)}

@@ -46,8 +46,11 @@ def _obj(properties: dict[str, Any], required: list[str] | None = None, extra: b
 
 
 _warning = _obj({"code": {"type": "string"}, "message": {"type": "string"}})
+# side: "two-sided", or a one-sided bound ("lower": upper is null meaning +inf; "upper": lower is null
+# meaning -inf); records written before one-sided bounds have no side (two-sided)
 _interval = _obj({"method": {"type": "string"},
                   "level": {"type": "number", "exclusiveMinimum": 0, "exclusiveMaximum": 1},
+                  "side": {"enum": ["two-sided", "lower", "upper"]},
                   "lower": _num, "upper": _num, "note": _str}, required=["method", "level", "lower", "upper"])
 _analysis = _obj({
     "id": {"type": "string"}, "title": _str, "role": {"type": "string"}, "question": {"type": "string"},

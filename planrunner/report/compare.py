@@ -13,6 +13,7 @@ from typing import Any
 from planrunner.errors import PlanError
 from planrunner.plan.yamlsafe import load_yaml
 from planrunner.record.canonical import differences
+from planrunner.report import labels
 from planrunner.report.labels import interval_name
 from planrunner.report.render import number, pvalue
 
@@ -22,7 +23,7 @@ def _interval(a: dict[str, Any] | None, method: str) -> str:
         return ""
     for i in a.get("intervals") or []:
         if i["method"] == method:
-            return f"{number(i['lower'])} to {number(i['upper'])}"
+            return labels.interval_ends(i, number(i["lower"]), number(i["upper"]))
     return ""
 
 

@@ -5,7 +5,9 @@
   (a rank sum W, a t, an F) it shows the shift estimate when the record has one (Hodges–Lehmann for
   the rank sum) and names the test statistic beside it (W = 1197); without a shift estimate it shows
   the test statistic, named as such;
-- a cluster design shows clusters per group beside the rows.
+- a cluster design shows clusters per group beside the rows;
+- an interval says whether it is two-sided or a one-sided bound ("percentile, one-sided lower 95%
+  bound"), and a bound shows its one end only (the record writes the open end as null).
 """
 
 from __future__ import annotations
@@ -70,3 +72,35 @@ def _plain(value: Any) -> str:
     if isinstance(value, float):
         return f"{value:.6g}"
     return "—" if value is None else str(value)
+
+
+def one_sided(interval: dict[str, Any]) -> str | None:
+    """"lower" or "upper" for a one-sided confidence bound; None for a two-sided interval."""
+    side = interval.get("side")
+    return side if side in ("lower", "upper") else None
+
+
+def interval_label(interval: dict[str, Any], percent: str) -> str:
+    """'percentile 95%', or 'BCa, one-sided lower 95% bound' (``percent``: the level, formatted)."""
+    side = one_sided(interval)
+    name = interval_name(interval.get("method"))
+    if side is None:
+        return f"{name} {percent}%"
+    return f"{name}, one-sided {side} {percent}% bound"
+
+
+def interval_heading(interval: dict[str, Any], percent: str) -> str:
+    """'percentile interval, 95%', or 'percentile, one-sided lower 95% bound' (a table row's heading)."""
+    if one_sided(interval) is None:
+        return f"{interval_name(interval.get('method'))} interval, {percent}%"
+    return interval_label(interval, percent)
+
+
+def interval_ends(interval: dict[str, Any], lower: str, upper: str) -> str:
+    """'lower to upper' for an interval; a one-sided bound's own end only (its other end is open)."""
+    side = one_sided(interval)
+    if side == "lower":
+        return lower
+    if side == "upper":
+        return upper
+    return f"{lower} to {upper}"

@@ -35,6 +35,7 @@ from matplotlib.ticker import MaxNLocator
 
 from planrunner.engines.statistics import RATIOS, STATISTICS
 from planrunner.report import digits as precision
+from planrunner.report import labels
 from planrunner.report.labels import INTERVAL_NAMES
 
 # Okabe & Ito (2008) colours, each paired with a line style so that greyscale keeps them apart
@@ -335,29 +336,39 @@ def resampling_plot(entry: dict[str, Any], fmt: Formatter) -> Plot | None:
         for k, interval in enumerate(entry.get("intervals") or []):
             style = method_style(interval.get("method"))
             lower, upper = interval.get("lower"), interval.get("upper")
-            name = f"{style.name} {interval['level'] * 100:g}%"
-            if len(_finite(lower, upper)) < 2:
-                alt_parts.append(f"{name} interval not available")
+            side = labels.one_sided(interval)
+            name = labels.interval_label(interval, format(interval["level"] * 100, "g"))
+            kind = "" if side else " interval"
+            ends = [e for e, key in ((lower, "lower"), (upper, "upper")) if side in (None, key)]
+            if len(_finite(*ends)) < len(ends):
+                alt_parts.append(f"{name}{kind} not available")
                 continue
             y = top * (1.06 + 0.1 * k)
-            ax.plot([lower, upper], [y, y], color=style.colour, linestyle=style.line, linewidth=1.6,
-                    label=f"{name} interval")
-            for end in (lower, upper):
+            # a one-sided bound runs from its end to the edge of the replicates on its open side
+            span_lo, span_hi = shape.span
+            x0 = lower if lower is not None else min(span_lo, upper)
+            x1 = upper if upper is not None else max(span_hi, lower)
+            ax.plot([x0, x1], [y, y], color=style.colour, linestyle=style.line, linewidth=1.6,
+                    label=f"{name}{kind}")
+            for end in ends:
                 ax.plot([end, end], [0, y], color=style.colour, linestyle=style.line, linewidth=1.0)
-            marks += [lower, upper]
+            marks += ends
             band = bands.get(interval["method"]) or {}
             band_text = []
-            for side in ("lower_band", "upper_band"):
-                if band.get(side) and len(_finite(*band[side])) == 2:
-                    lo, hi = band[side]
+            for which in ("lower_band", "upper_band"):
+                if band.get(which) and len(_finite(*band[which])) == 2:
+                    lo, hi = band[which]
                     ax.fill_between([lo, hi], y - top * 0.025, y + top * 0.025, facecolor=style.colour, alpha=0.35,
                                     edgecolor=style.colour, linewidth=0.8,
                                     label=None if band_labelled else "Monte Carlo band of the ends")
                     band_labelled = True
                     marks += [lo, hi]
                     band_text.append(f"{fmt(lo)} to {fmt(hi)}")
-            alt_parts.append(f"{name} interval {fmt(lower)} to {fmt(upper)}"
-                             + (f" (Monte Carlo band of the ends: {'; '.join(band_text)})" if band_text else ""))
+            shown = " to ".join(fmt(e) for e in ends) + (f" ({'upper' if side == 'lower' else 'lower'} end open)"
+                                                         if side else "")
+            alt_parts.append(f"{name}{kind} {shown}"
+                             + (f" (Monte Carlo band of the {'end' if side else 'ends'}: {'; '.join(band_text)})"
+                                if band_text else ""))
         drawn, said = _reference_lines(ax, entry, shape, fmt, *marks)
         _limits(ax, shape, *marks, *drawn)
         ax.set_ylim(0, top * (1.12 + 0.1 * max(len(entry.get("intervals") or []) - 1, 0)) or 1)

@@ -71,11 +71,35 @@ def _environment(kind: str) -> jinja2.Environment:
     env.filters["compares"] = comparison_word
     env.filters["interval"] = labels.interval_name
     env.globals["fence"] = markdown_fence
+    env.globals["interval_label"] = labels.interval_label
+    env.globals["interval_heading"] = labels.interval_heading
+    env.globals["interval_ends"] = interval_ends
+    env.globals["interval_mc"] = interval_mc
     return env
 
 
 # the reports' and the terminal's plain number: 4 significant digits, '—' for a missing one
 number = precision.significant
+
+
+def interval_ends(interval: dict[str, Any], band: dict[str, Any]) -> str:
+    """An interval's ends (or a one-sided bound's one end), each to the digits its Monte Carlo s.d. supports."""
+    return labels.interval_ends(interval, precision.with_mc(interval.get("lower"), band.get("lower_sd")),
+                                precision.with_mc(interval.get("upper"), band.get("upper_sd")))
+
+
+def interval_mc(interval: dict[str, Any], band: dict[str, Any]) -> dict[str, Any] | None:
+    """The Monte Carlo s.d. of the ends that were read ("ends 0.41 and 0.52", or "end 0.41" for a
+    one-sided bound) and their bands ("a to b" each); None when exact or undefined."""
+    ends = [end for end, key in (("lower", "lower_sd"), ("upper", "upper_sd"))
+            if band.get(key) is not None and (labels.one_sided(interval) in (None, end))]
+    if not ends:
+        return None
+    sds = [precision.mc_sd(band[f"{end}_sd"]) for end in ends]
+    bands = [f"{significant(band[f'{end}_band'][0])} to {significant(band[f'{end}_band'][1])}"
+             for end in ends if band.get(f"{end}_band")]
+    return {"sd": ("ends " + " and ".join(sds)) if len(sds) == 2 else f"end {sds[0]}",
+            "bands": bands if len(bands) == len(ends) else []}
 
 
 def pvalue(value: Any) -> str:
