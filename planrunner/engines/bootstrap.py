@@ -194,7 +194,8 @@ class BootstrapOptions:
     confidence: float
     intervals: tuple[str, ...]
     # how each resample's standard error is found for a studentized interval: "analytic",
-    # "jackknife" or "bootstrap" (nested); None: analytic when the statistic has one
+    # "jackknife", "bootstrap" (nested) or "model" (the parametric model's own standard error of a
+    # mean: the parametric bootstrap-t); None: analytic when the statistic has one
     studentized_se: str | None = None
     inner_resamples: int = 50  # M, the inner resamples of the nested bootstrap standard error
     on_degenerate: str = "estimate-only"  # what to do when an interval is undefined (DEGENERATE_CHOICES)
@@ -326,6 +327,15 @@ def _inner_se(options: BootstrapOptions, scheme: Scheme, work: Statistic, statis
     if inner == "analytic" and work.se is None:
         raise EngineError(f"the {statistic.label} has no analytic standard error",
                           hint="declare studentized_se: jackknife")
+    if inner == "model":
+        if options.parametric is None:
+            raise EngineError("studentized_se: model needs the parametric bootstrap (the fitted model's own "
+                              "standard error)", hint="declare parametric: MODEL, or use analytic or jackknife")
+        if statistic.form != "mean" or work.columns != 1:
+            raise EngineError(f"the model's standard error is defined for means and differences of means; the "
+                              f"{statistic.label} is neither", hint="use studentized_se: analytic or jackknife")
+        if min(n) < 1:
+            raise EngineError("every group needs an observation")
     if inner == "jackknife" and min(n) < 2:
         raise EngineError("the inner jackknife needs at least two observations per group")
     if inner == "bootstrap":
@@ -508,6 +518,9 @@ def _studentized_details(p: Prepared, options: BootstrapOptions, resamples: int)
     out: dict[str, Any] = {
         "method": p.inner,
         "formula": {"analytic": p.statistic.se_formula, "jackknife": "delete-one jackknife of each resample",
+                    "model": (f"the fitted {options.parametric} model's standard error of each mean: "
+                              f"{schemes.MODEL_SE.get(options.parametric or '', '')}"
+                              + ("; of a difference: the root of the summed variances" if len(p.n) > 1 else "")),
                     "bootstrap": f"sd (divisor M - 1) of M = {m} inner resamples of each resample; the data's "
                                  "se_hat is the outer bootstrap standard error"}[p.inner or ""],
         "statistic_evaluations": int(resamples * (1 + extra))}
@@ -690,8 +703,13 @@ def _studentized(p: Prepared, drawn: Drawn, standard_error: float, options: Boot
     """The sorted t* (and cumulative weights), ŝe, and why there is no studentized interval (or None)."""
     se_star, distribution, estimate = drawn.se_star, drawn.distribution, p.estimate
     assert se_star is not None
-    se_hat = (float(p.statistic.se(*p.whole)) if p.inner == "analytic" and p.statistic.se is not None
-              else standard_error if p.inner == "bootstrap" else _jackknife_se(p.data, p.statistic, batch_elements))
+    if p.inner == "model":  # the fitted model's standard error of the data's mean(s)
+        assert options.parametric is not None
+        fits = [schemes.fit_model(a, options.parametric, options.trials, g) for g, a in enumerate(p.data)]
+        se_hat = float(schemes.model_se(options.parametric, p.whole, fits))
+    else:
+        se_hat = (float(p.statistic.se(*p.whole)) if p.inner == "analytic" and p.statistic.se is not None
+                  else standard_error if p.inner == "bootstrap" else _jackknife_se(p.data, p.statistic, batch_elements))
     resamples = distribution.shape[0]
     # a resample with se* = 0 but θ* ≠ θ̂ (e.g. all draws of one observation) has t* = ±∞: a
     # legitimate extreme of the t* distribution; 0/0 or a non-finite se* leaves t* undefined

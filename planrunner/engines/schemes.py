@@ -44,6 +44,7 @@ __all__ = [
     "BLOCK_SCHEMES",
     "EXHAUSTIVE_LIMIT",
     "MODELS",
+    "MODEL_SE",
     "Layout",
     "count_multisets",
     "draw_blocks",
@@ -54,6 +55,7 @@ __all__ = [
     "evaluate",
     "fit_model",
     "layout",
+    "model_se",
 ]
 
 # draws per batch when nothing else bounds it: about 1 MB of doubles, so that a batch's uniforms,
@@ -521,6 +523,35 @@ def fit_model(x: np.ndarray, model: str, trials: int | None, group: int) -> dict
     return {"p": float(np.mean(x)) / trials, "trials": float(trials)}
 
 
+MODEL_SE = {  # the standard error of a group mean under each fitted model, from the group's values
+    "normal": "sd (divisor n, maximum likelihood) / sqrt(n)",
+    "exponential": "mean / sqrt(n) (the exponential's sd is its mean)",
+    "poisson": "sqrt(mean / n) (the Poisson's variance is its mean)",
+    "binomial": "sqrt(mean (1 - mean / trials) / n) (the binomial's variance is trials p (1 - p))",
+}
+
+
+def model_se(model: str, groups: Sequence[np.ndarray], fits: Sequence[dict[str, float]]) -> np.ndarray:
+    """The model's own standard error of a mean (one group) or of a difference of means (two,
+    independent: the root of the summed variances), along the last axis of each group's values:
+    the parametric bootstrap-t's se* of each resample and ŝe of the data (``MODEL_SE``)."""
+    variance = None
+    for x, fit in zip(groups, fits):
+        n = x.shape[-1]
+        mean = np.mean(x, axis=-1)
+        if model == "normal":
+            v = np.var(x, axis=-1) / n
+        elif model == "exponential":
+            v = mean * mean / n
+        elif model == "poisson":
+            v = mean / n
+        else:
+            v = mean * (1.0 - mean / fit["trials"]) / n
+        variance = v if variance is None else variance + v
+    assert variance is not None
+    return np.sqrt(np.maximum(variance, 0.0))  # a binomial mean at 0 or trials has variance 0, not −0
+
+
 def _inverse_cdf(u: np.ndarray, model: str, fit: dict[str, float]) -> np.ndarray:
     if model == "normal":
         return fit["mean"] + fit["sd"] * _dist.norm.ppf(u)
@@ -558,7 +589,9 @@ def draw_parametric(data: tuple[np.ndarray, ...], statistic: Statistic, resample
                 mean = np.array(fits[g]["mean"])[:, None]
                 gathered.append(np.ascontiguousarray(mean + np.einsum("ij,rjn->rin", factor, z)))
         with np.errstate(invalid="ignore", divide="ignore"):
-            theta, s = evaluate(statistic, gathered, inner)
+            theta, s = evaluate(statistic, gathered, None if inner == "model" else inner)
+            if inner == "model":  # the fitted model's own standard error of each resample's mean(s)
+                s = model_se(model, gathered, fits)
         out[done:done + rows] = theta
         if se is not None and s is not None:
             se[done:done + rows] = s

@@ -88,7 +88,16 @@ def check_resampling_design(at: tuple, a: Any, statistic: Statistic) -> list[Pro
                 out.append(Problem(at + ("studentized_se",),
                                    "the nested bootstrap SE would make exhaustive results random",
                                    "use studentized_se: jackknife or analytic"))
-        if not has_se and a.studentized_se not in ("jackknife", "bootstrap"):
+        if a.studentized_se == "model":
+            if a.parametric is None:
+                out.append(Problem(at + ("studentized_se",),
+                                   "studentized_se: model is the parametric model's own standard error",
+                                   "declare parametric: MODEL, or use studentized_se: analytic or jackknife"))
+            elif statistic.form != "mean" or statistic.columns != 1:
+                out.append(Problem(at + ("studentized_se",),
+                                   f"the model's standard error is defined for means and differences of means; "
+                                   f"'{a.statistic}' is neither", "use studentized_se: analytic or jackknife"))
+        if not has_se and a.studentized_se not in ("jackknife", "bootstrap", "model"):
             out.append(Problem(at + ("intervals", intervals.index("studentized")),
                                f"'{a.statistic}' has no analytic standard error for the studentized interval",
                                "declare studentized_se: jackknife (B x n extra evaluations) or bootstrap "

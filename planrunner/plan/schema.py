@@ -151,7 +151,7 @@ class BootstrapAnalysis(AnalysisBase):
     confidence: Confidence | None = None
     intervals: Annotated[list[IntervalMethod], Field(min_length=1)] = Field(
         default_factory=lambda: list[IntervalMethod](["percentile", "bca"]))
-    studentized_se: Literal["analytic", "jackknife", "bootstrap"] | None = None
+    studentized_se: Literal["analytic", "jackknife", "bootstrap", "model"] | None = None
     # None: the engine's default (`engines.bootstrap.BootstrapOptions`)
     inner_resamples: Annotated[int, Field(ge=10, le=10_000)] | None = None  # nested bootstrap only
     on_degenerate: Literal["fail", "percentile", "estimate-only"] | None = None
