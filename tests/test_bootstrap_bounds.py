@@ -219,7 +219,7 @@ def test_bounds_from_a_plan_reach_record_and_reports(tmp_path: Path) -> None:
     md = (folder / "report.md").read_text()
     html = (folder / "report.html").read_text()
     for text in (md, html):
-        assert "bca, one-sided lower 95% bound" in text and "normal, one-sided upper 90% bound" in text
+        assert "BCa, one-sided lower 95% bound" in text and "normal, one-sided upper 90% bound" in text
         assert "percentile 95%" in text  # the two-sided interval keeps its wording
     assert "one-sided lower 95% confidence bounds" in record["methods_text"]
     import jsonschema
