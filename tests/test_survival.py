@@ -384,3 +384,79 @@ def test_flipped_statistics_travel_to_workers_with_their_limit() -> None:
     assert back.compute.spec == flipped.compute.spec and back.compute.spec.flip == 12.5
     plain = bind(get_statistic("km_quantile"), 0.25)
     assert pickle.loads(pickle.dumps(plain)).compute.spec.flip is None
+
+
+def test_record_holds_the_curves_and_the_report_draws_them(write_plan, tmp_path) -> None:
+    from conftest import fixed_clock
+
+    from planrunner.pipeline.run import run_plan
+    from planrunner.report.kmplot import curve_plot
+
+    rows = ["arm,weeks,relapse,centre"] + [f"mp,{t},{e},x" for t, e in zip(MP_WEEKS, MP_RELAPSE)] + [
+        f"placebo,{t},{e},x" for t, e in zip(PLACEBO_WEEKS, PLACEBO_RELAPSE)]
+    plan = write_plan(PLAN, {"d.csv": "\n".join(rows) + "\n"})
+    outcome = run_plan(plan, out=tmp_path / "out", clock=fixed_clock)
+    entry = {a["id"]: a for a in outcome.record["analyses"]}["logrank"]
+    km = entry["details"]["kaplan_meier"]
+    assert km["censoring"] == "right" and [g["group"] for g in km["groups"]] == ["mp", "placebo"]
+    mp = km["groups"][0]
+    reference = SurvfuncRight(MP_WEEKS, MP_RELAPSE)  # statsmodels reference
+    stored = {p[0]: p[1] for p in mp["points"]}
+    assert np.allclose([stored[t] for t in reference.surv_times], reference.surv_prob, rtol=0, atol=1e-12)
+    assert (mp["events"], mp["censored"], mp["n"]) == (9, 12, 21)
+    plot = curve_plot(entry)
+    assert plot is not None and plot.name == "logrank-kaplan-meier" and "12 censored" in plot.alt
+    assert curve_plot(entry).svg == plot.svg  # the same record gives the same bytes
+    folder = outcome.folder if hasattr(outcome, "folder") else next((tmp_path / "out").glob("remission-*"))
+    assert (folder / "figures" / "logrank-kaplan-meier.svg").exists()
+    assert "logrank-kaplan-meier" in (folder / "report.md").read_text(encoding="utf-8")
+
+
+def test_left_censored_plan_reports_on_the_concentration_scale(write_plan, tmp_path) -> None:
+    from conftest import fixed_clock
+
+    from planrunner.pipeline.run import run_plan
+
+    text = """
+plan: wells
+title: Nitrate below detection limits
+seed: 5
+datasets:
+  d:
+    file: d.csv
+    columns:
+      well: {type: category, levels: [east, west]}
+      nitrate: {type: number, unit: mg/L}
+      detected: {type: integer}
+analyses:
+  - id: median
+    data: d
+    outcome: nitrate
+    event: detected
+    censoring: left
+    groups: {by: well, compare: [east, west]}
+    statistic: km_median_difference
+    method: bootstrap
+    resamples: 500
+    intervals: [percentile]
+"""
+    east = [(0.5, 0), (0.5, 0), (0.8, 1), (1.1, 1), (1.4, 1), (1.0, 0), (2.2, 1), (2.9, 1), (3.5, 1), (0.5, 0),
+            (4.0, 1)]
+    west = [(0.5, 0), (0.5, 0), (0.5, 0), (0.6, 1), (0.7, 1), (1.0, 0), (0.9, 1), (1.2, 1), (1.9, 1), (2.4, 1)]
+    rows = ["well,nitrate,detected"] + [f"east,{x},{d}" for x, d in east] + [f"west,{x},{d}" for x, d in west]
+    plan = write_plan(text, {"d.csv": "\n".join(rows) + "\n"})
+    entry = run_plan(plan, out=tmp_path / "out", clock=fixed_clock).record["analyses"][0]
+    largest = 4.0
+    medians = []
+    for data in (east, west):  # scipy reference on the flipped scale (V-KM-REF)
+        x = np.array([v for v, _ in data])
+        d = np.array([e for _, e in data], dtype=bool)
+        t = largest - x
+        sf = stats.ecdf(stats.CensoredData.right_censored(t, ~d)).sf
+        grid = np.unique(t)
+        medians.append(largest - grid[np.argmax(sf.evaluate(grid) <= 0.5 + 1e-12)])
+    assert entry["estimate"] == pytest.approx(medians[0] - medians[1], abs=1e-12)
+    km = entry["details"]["kaplan_meier"]
+    assert km["censoring"] == "left" and km["flipped_at"] == largest
+    values = [p[0] for p in km["groups"][0]["points"]]
+    assert values == sorted(values) and values[-1] == largest and km["groups"][0]["points"][-1][1] == 1.0

@@ -68,6 +68,8 @@ TRACE: dict[str, tuple[str, ...]] = {
         "tests/test_survival.py::test_median_not_reached_in_some_resamples_is_counted_and_handled",
         "tests/test_survival.py::test_left_censoring_is_the_flipped_right_censored_curve",
         "tests/test_survival.py::test_plan_runs_end_to_end",
+        "tests/test_survival.py::test_record_holds_the_curves_and_the_report_draws_them",
+        "tests/test_survival.py::test_left_censored_plan_reports_on_the_concentration_scale",
         "tests/test_bad_inputs.py::test_bad_input_gives_one_clear_message"),
     "One-sided bootstrap bounds": (
         "tests/test_bootstrap_bounds.py::test_percentile_and_basic_bounds_equal_scipy_on_the_same_replicates",

@@ -43,6 +43,8 @@ class Job:
     paired: bool = False
     warnings: tuple[Any, ...] = ()
     design: dict[str, Any] = field(default_factory=dict)  # permutation designs (see compile_design)
+    # a censored outcome: ("right", None), or ("left", M) when the samples hold times M − x
+    censoring: tuple[str, float | None] | None = None
 
     def settings(self) -> dict[str, Any]:
         """The options as the record states them (JSON values)."""
@@ -154,8 +156,9 @@ def compile_job(plan: Plan, analysis: Analysis, table: Table) -> Job:
         strata_labels_all, codes = np.unique(stratum_column, return_inverse=True)
         strata_labels = tuple(str(s) for s in strata_labels_all)
         strata = tuple(codes[m].astype(np.int64) for m in masks)
+    censoring: tuple[str, float | None] | None = None
     if statistic.outcome == "censored":
-        values, statistic = censored_values(analysis, table, values, masks, statistic, codes)
+        values, statistic, censoring = censored_values(analysis, table, values, masks, statistic, codes)
     samples = tuple(values[m] for m in masks)
     permutation_design: dict[str, Any] = {}
     if analysis.method == "permutation":  # the bootstrap's design is the fields above
@@ -163,17 +166,20 @@ def compile_job(plan: Plan, analysis: Analysis, table: Table) -> Job:
     return Job(analysis_id=analysis.id, method=analysis.method, statistic=statistic, samples=samples,
                strata=strata, group_labels=labels, strata_labels=strata_labels,
                options=_options(plan, analysis), stream=stream_for(plan.seed, analysis.id),
-               clusters=clusters, paired=paired, warnings=warnings, design=permutation_design)
+               clusters=clusters, paired=paired, warnings=warnings, design=permutation_design,
+               censoring=censoring)
 
 
 def censored_values(analysis: Analysis, table: Table, values: np.ndarray, masks: list[np.ndarray],
-                    statistic: Statistic, codes: np.ndarray | None) -> tuple[np.ndarray, Statistic]:
+                    statistic: Statistic,
+                    codes: np.ndarray | None) -> tuple[np.ndarray, Statistic, tuple[str, float | None]]:
     """Rows (time, event) of a censored outcome, and (time, event, stratum code) for the log-rank
     statistic. Left-censored values x become right-censored times M − x, M the largest value the
     analysis uses, and the statistic maps its result back (``survival.flipped``)."""
     assert analysis.event is not None  # the plan check requires it
     events = table.columns[analysis.event].astype(float)
     times = values
+    largest = None
     if analysis.censoring == "left":
         largest = float(np.max(values[np.logical_or.reduce(masks)]))
         times = largest - values
@@ -182,7 +188,7 @@ def censored_values(analysis: Analysis, table: Table, values: np.ndarray, masks:
     columns = [times, events]
     if statistic.columns == 3:
         columns.append(np.zeros(values.size) if codes is None else codes.astype(float))
-    return np.column_stack(columns), statistic
+    return np.column_stack(columns), statistic, (analysis.censoring or "right", largest)
 
 
 def compile_design(analysis: Analysis, table: Table, masks: list[np.ndarray],

@@ -43,6 +43,7 @@ from planrunner.record.fields import MethodFields
 from planrunner.record.jackknife import jackknife_fields
 from planrunner.record.methods import methods_text
 from planrunner.record.permutation import permutation_fields
+from planrunner.record.survival import kaplan_meier_details
 
 FORMAT = "planrunner.record/1"
 PACKAGES = ("numpy", "scipy", "pandas", "pydantic", "pyyaml", "jinja2", "matplotlib")
@@ -176,9 +177,16 @@ def analysis_entry(loaded: LoadedPlan, analysis: Analysis, job: Job, result: Res
         # fields that a method does not produce keep their defaults, so every entry has the same shape
         **{key: numbers[key] for key in ("estimate", "standard_error", "bias", "intervals", "p_value")},
         "adjusted_p_values": adjusted,
-        **{key: numbers[key] for key in ("alternative", "exact", "resamples", "monte_carlo", "details",
-                                         "distribution")},
+        **{key: numbers[key] for key in ("alternative", "exact", "resamples", "monte_carlo")},
+        "details": _with_curves(numbers["details"], job),
+        "distribution": numbers["distribution"],
     }
+
+
+def _with_curves(details: Any, job: Job) -> Any:
+    """A censored analysis's details gain the Kaplan–Meier curve of each group (the report draws it)."""
+    curves = kaplan_meier_details(job)
+    return details if curves is None else {**details, "kaplan_meier": curves}
 
 
 def build_record(loaded: LoadedPlan, tables: dict[str, Table], jobs: list[Job], results: list[Result],

@@ -207,8 +207,11 @@ def descriptive_tables(entry: dict[str, Any]) -> list[dict[str, Any]]:
 def _plots(entry_json: str) -> tuple[plots.Plot, ...]:
     """The pictures of one record entry; drawing is slow and pure, so the same entry is drawn once."""
     from planrunner.report import plots  # matplotlib loads only when a report is drawn (not for `check` or `--version`)
+    from planrunner.report.kmplot import curve_plot
 
-    return tuple(plots.plots_for(json.loads(entry_json), significant, precision.p_value))
+    entry = json.loads(entry_json)
+    curves = curve_plot(entry)  # a censored analysis: its Kaplan–Meier curves first
+    return tuple(([curves] if curves is not None else []) + plots.plots_for(entry, significant, precision.p_value))
 
 
 def _alpha(entry: dict[str, Any] | None) -> Any:
