@@ -434,3 +434,28 @@ def check_selfcheck_report(path: str | Path) -> tuple[dict, bool]:
     if not isinstance(report, dict) or report.get("format") != SELFCHECK_FORMAT:
         raise RecordError(f"not a self-check report (format {SELFCHECK_FORMAT} expected)", where=str(path))
     return report, report.get(SELFCHECK_HASH_FIELD) == self_hash(report, SELFCHECK_HASH_FIELD)
+
+
+def write_pdf(run: str | Path, paper: str = "A4", out: str | Path | None = None) -> Path:
+    """Print a run's HTML report to PDF (A4 or Letter) with headless Chromium and write it as a new
+    file: ``out``, or report-PAPER.pdf in the run folder. A folder without report.html gets the page
+    rendered from its record first. Raises OutputError, saying how to get one, without a browser."""
+    import tempfile
+
+    from planrunner.report.pdf import find_browser, print_pdf
+    from planrunner.report.render import render
+    from planrunner.trail.store import write_new_file
+
+    browser = find_browser()  # before anything else: the one message when there is none
+    record_file, record = read_record(run)
+    folder = record_file.parent
+    target = Path(out) if out is not None else folder / f"report-{paper}.pdf"
+    page = folder / "report.html"
+    if page.is_file():
+        data = print_pdf(page, str(record["run_id"]), paper, browser=browser)
+    else:
+        with tempfile.TemporaryDirectory(prefix="planrunner-pdf-page-") as scratch:
+            page = Path(scratch) / "report.html"
+            page.write_text(render(record, "html"), encoding="utf-8")
+            data = print_pdf(page, str(record["run_id"]), paper, browser=browser)
+    return write_new_file(target, data, what="PDF", hint="choose another name with --out, or remove the old PDF")

@@ -29,6 +29,9 @@ def _add_audit_run_options(run: argparse.ArgumentParser) -> None:
     run.add_argument("--refuse-deviations", action="store_true",
                      help="stop (exit 2) if the plan or its locked data deviate from the lock, or if there is no lock")
     run.add_argument("--reason", metavar="TEXT", help="why this run is made; written to the run history")
+    run.add_argument("--pdf", action="store_true",
+                     help="also print the report to report-PAPER.pdf in the run folder (needs Chromium or Chrome)")
+    add_pdf_options(run)
 
 
 def _add_audit_verbs(verbs: Any) -> None:
@@ -63,6 +66,12 @@ def _add_audit_verbs(verbs: Any) -> None:
     compare.add_argument("record_b", help="the later record")
     compare.add_argument("--markdown", metavar="FILE", help="also write the comparison as Markdown")
     compare.add_argument("--html", metavar="FILE", help="also write the comparison as a self-contained HTML page")
+
+    pdf = verbs.add_parser("pdf", help="print a run's report to PDF with headless Chromium")
+    pdf.add_argument("run", help="the run folder (or its record.json)")
+    add_pdf_options(pdf)
+    pdf.add_argument("--out", metavar="FILE",
+                     help="where to write the PDF (default: report-PAPER.pdf in the run folder)")
 
     schema = verbs.add_parser("schema", help="print the JSON Schema of the plan or of the record")
     schema.add_argument("which", choices=["plan", "record"])
@@ -256,6 +265,16 @@ def _compare(args: argparse.Namespace) -> int:
     return EXIT_OK
 
 
+def add_pdf_options(parser: Any) -> None:
+    parser.add_argument("--paper", choices=["A4", "Letter"], default="A4", help="paper size of the PDF (default A4)")
+
+
+def _pdf(args: argparse.Namespace) -> int:
+    from planrunner.audit.verbs import write_pdf
+    print(f"PDF written to {write_pdf(args.run, args.paper, args.out)}")
+    return EXIT_OK
+
+
 def _schema(args: argparse.Namespace) -> int:
     from planrunner.record.schemas import plan_schema, record_schema
     print(json.dumps(plan_schema() if args.which == "plan" else record_schema(), indent=2, ensure_ascii=False))
@@ -288,5 +307,5 @@ def _selfcheck(args: argparse.Namespace) -> int:
 
 AUDIT_VERBS: dict[str, Callable[[argparse.Namespace], int]] = {
     "lock": _lock, "verify": _verify, "history": _history, "compare": _compare, "schema": _schema,
-    "selfcheck": _selfcheck,
+    "selfcheck": _selfcheck, "pdf": _pdf,
 }

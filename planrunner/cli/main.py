@@ -200,6 +200,9 @@ def _run(args: argparse.Namespace, argv: list[str]) -> int:
     from planrunner.pipeline.run import run_plan
     from planrunner.plan.params import parse_assignments
     execution = execution_of(args)
+    if args.pdf:  # no browser: say so before computing anything
+        from planrunner.report.pdf import find_browser
+        find_browser()
     signing = run_signing(args)
     bar = progress_bar(args.quiet)
     written: list[Any] = []  # the outcome, once the run folder and its history entry are in place
@@ -212,12 +215,18 @@ def _run(args: argparse.Namespace, argv: list[str]) -> int:
                                signing=signing, signers=args.signers, written=written.append)
         finally:
             bar.close()  # before any message, so that it does not land on the bar's line
+        pdf = None
+        if args.pdf:
+            from planrunner.audit.verbs import write_pdf
+            pdf = write_pdf(outcome.folder, args.paper)
         if args.quiet:
             print(outcome.folder)  # only the folder, so that a script can use it as it is
             return EXIT_OK
         print(summary_table(outcome.record))
         print(audit_summary(outcome))
         print(f"record written to {outcome.folder}")
+        if pdf is not None:
+            print(f"PDF written to {pdf}")
     except KeyboardInterrupt as exc:
         if not written:
             raise  # nothing was written: main says so

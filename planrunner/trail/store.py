@@ -29,7 +29,7 @@ STAGING_PREFIX = ".staging-"  # folders being written; a killed run may leave on
 
 # --- writing ---------------------------------------------------------------------------------------
 
-def write_new_file(target: str | Path, text: str, *, what: str = "file", hint: str = "choose a new file name",
+def write_new_file(target: str | Path, text: str | bytes, *, what: str = "file", hint: str = "choose a new file name",
                    taken: str | None = None) -> Path:
     """Create ``target`` holding ``text``; refuse if anything exists under that name.
 
@@ -109,8 +109,14 @@ def _not_written(exc: OSError, root: Path) -> OutputError:
                        hint="nothing was kept; free space or choose another folder with --out, then run again")
 
 
-def write_synced(path: Path, text: str) -> None:
-    """Write ``path`` (created or truncated) and flush it to disk."""
+def write_synced(path: Path, text: str | bytes) -> None:
+    """Write ``path`` (created or truncated; text as UTF-8, bytes as they are) and flush it to disk."""
+    if isinstance(text, bytes):
+        with open(path, "wb") as binary:
+            binary.write(text)
+            binary.flush()
+            os.fsync(binary.fileno())
+        return
     with open(path, "w", encoding="utf-8", newline="\n") as handle:
         handle.write(text)
         handle.flush()
