@@ -609,7 +609,9 @@ def _not_estimable(result: BootstrapResult, p: Prepared, options: BootstrapOptio
     share = bad / resamples
     details = {**result.details, "not_estimable": {
         "resamples": bad, "share": share, "quantile_not_reached": beyond, "beyond_last_follow_up": undefined}}
-    parts = ([f"{beyond} where a quantile is not reached (it lies beyond the follow-up)"] if beyond else []) + (
+    left = getattr(getattr(p.declared.compute, "spec", None), "flip", None) is not None
+    where = "below the detection limits" if left else "beyond the follow-up"
+    parts = ([f"{beyond} where a quantile is not reached (it lies {where})"] if beyond else []) + (
         [f"{undefined} where the curve is read beyond the resample's last follow-up"] if undefined else [])
     message = (f"the {p.declared.label} is not estimable in {bad} of {resamples} resamples ({share:.1%}): "
                f"{' and '.join(parts)}; no standard error or bias is reported")
