@@ -70,7 +70,8 @@ def test_the_pack_from_the_installed_wheel_passes(wheel_pack):
     assert {"numpy", "scipy", "cryptography", "pandas"} <= names and all(d["meets"] for d in doc["dependencies"])
     cases = doc["operation"]["cases"]
     demos = [c for c in cases if c["kind"] == "demo plan"]
-    assert [c["id"] for c in demos] == ["demo liner-trial", "demo monthly-fill", "demo ward-hygiene"]
+    assert [c["id"] for c in demos] == ["demo liner-trial", "demo monthly-fill", "demo ward-hygiene",
+                                                "demo seal-endurance"]
     assert all(c["obtained"] == 0 and c["numbers_compared"] > 0 for c in demos)
     assert {c.id for c in CASES} <= {c["id"] for c in cases if c["kind"] == "self-check"}
     for case in cases:

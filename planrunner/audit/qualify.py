@@ -38,7 +38,7 @@ from planrunner.trail.signatures import QUALIFICATION_FORMAT, QUALIFICATION_HASH
 
 DISTRIBUTION = "planrunner"
 PACK_JSON, PACK_HTML = "qualification.json", "qualification.html"
-DEMO_PLANS = ("liner-trial", "monthly-fill", "ward-hygiene")
+DEMO_PLANS = ("liner-trial", "monthly-fill", "ward-hygiene", "seal-endurance")
 
 
 # --- installation ----------------------------------------------------------------------------------
