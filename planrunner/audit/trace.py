@@ -76,6 +76,17 @@ TRACE: dict[str, tuple[str, ...]] = {
         "tests/test_bootstrap_bounds.py::test_bca_bound_matches_scipy_on_the_same_replicates",
         "tests/test_bootstrap_bounds.py::test_identity_20_one_sided_bound_is_an_end_of_the_2c_minus_1_interval",
         "tests/test_bootstrap_bounds.py::test_bounds_from_a_plan_reach_record_and_reports"),
+    "Bootstrap p-values of a null value": (
+        "tests/test_bootstrap_pvalues.py::test_identity_21_p_below_alpha_exactly_when_the_bound_excludes_the_null",
+        "tests/test_bootstrap_pvalues.py::test_exponential_bootstrap_t_p_value_is_the_exact_chi_square_test",
+        "tests/test_bootstrap_pvalues.py::test_exhaustive_percentile_p_value_of_the_median_is_binomial",
+        "tests/test_bootstrap_pvalues.py::test_stated_monte_carlo_sd_matches_the_spread_over_streams",
+        "tests/test_bootstrap_pvalues.py::test_null_value_from_a_plan_reaches_record_and_reports"),
+    "The parametric bootstrap-t with the model's standard error": (
+        "tests/test_parametric_bootstrap_t.py::test_identity_11_exponential_bootstrap_t_is_the_exact_chi_square_interval",
+        "tests/test_parametric_bootstrap_t.py::test_identity_11_normal_bootstrap_t_is_the_exact_student_interval",
+        "tests/test_parametric_bootstrap_t.py::test_model_standard_errors_of_two_groups_poisson_and_binomial",
+        "tests/test_parametric_bootstrap_t.py::test_model_se_from_a_plan"),
     "Multiplicity": ("tests/test_engines_randomization.py::test_adjustments_match_statsmodels_bh95",
                      "tests/test_permutation_plans.py::test_max_t_family_end_to_end_and_order_free"),
     "What planrunner refuses and why": ("tests/test_bad_inputs.py::test_bad_input_gives_one_clear_message",

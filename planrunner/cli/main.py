@@ -255,8 +255,7 @@ def summary_table(record: dict) -> str:
         value, what, statistic = labels.effect(a)
         estimate = number(value) + (f" ({what})" if what else "") + (f"; {statistic}" if statistic else "")
         side = labels.direction(a)
-        shown = digits.p_value(a["p_value"], (a.get("monte_carlo") or {}).get("p_value_sd"),
-                               (a.get("settings") or {}).get("alpha"))
+        shown = digits.p_value(a["p_value"], (a.get("monte_carlo") or {}).get("p_value_sd"), labels.alpha(a))
         p = "" if a["p_value"] is None else shown + (f" ({side})" if side else "")
         rows.append((a["id"], a["method"], estimate, interval, p, ", ".join(labels.group_sizes(a)),
                      str(len(a["warnings"]))))

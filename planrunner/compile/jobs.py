@@ -89,7 +89,7 @@ def bootstrap_options(analysis: BootstrapAnalysis, defaults: Defaults) -> Bootst
         "parametric": analysis.parametric, "trials": analysis.trials, "exhaustive": analysis.exhaustive,
         "save_distribution": analysis.save_distribution,
         # the analysis's own key only: defaults.alternative is for the permutation-type tests
-        "alternative": analysis.alternative}
+        "alternative": analysis.alternative, "null_value": analysis.null_value}
     return BootstrapOptions(**{key: value for key, value in declared.items() if value is not None})
 
 

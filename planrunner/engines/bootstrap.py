@@ -58,15 +58,18 @@ from planrunner.engines.blocks import RangeTask, map_resamples
 from planrunner.engines.blocks import bind as range_task
 from planrunner.engines.intervals import (
     INTERVAL_METHODS,
+    INVERSION_RULES,
     Summary,
     bca_levels,
+    invert,
     quantile_rank,
     read_quantile,
     tail_levels,
 )
 from planrunner.engines.jackknife import SMALL_SAMPLE, cluster_replicates, jackknife_replicates
 from planrunner.engines.lazy import ndtri
-from planrunner.engines.results import BootstrapResult, EngineWarning, Interval, frozen_array
+from planrunner.engines.pvalues import P_INTERVAL_LEVEL, clopper_pearson
+from planrunner.engines.results import BootstrapResult, EngineWarning, Interval, NullTest, frozen_array
 from planrunner.engines.statistics import Statistic, check_samples, check_strata, to_compute_layout
 from planrunner.engines.streams import Stream
 from planrunner.errors import EngineError
@@ -206,6 +209,8 @@ class BootstrapOptions:
     save_distribution: bool = False  # the record keeps every replicate (not used by the engine)
     # "two-sided" intervals, or one-sided confidence bounds: "greater" a lower bound, "less" an upper one
     alternative: str = "two-sided"
+    # a stated null value: its p-value by inverting the first listed interval's one-sided bounds
+    null_value: float | None = None
 
     def settings(self) -> dict[str, Any]:
         """The record's ``settings`` (JSON values: tuples become lists)."""
@@ -538,6 +543,10 @@ def _with_intervals(result: BootstrapResult, p: Prepared, options: BootstrapOpti
     confidence, on_degenerate = options.confidence, options.on_degenerate
 
     def finish(**numbers: Any) -> BootstrapResult:
+        if options.null_value is not None and "null_test" not in numbers:
+            numbers["null_test"] = NullTest(options.null_value, options.intervals[0],
+                                            INVERSION_RULES[options.intervals[0]], None,
+                                            note="no p-value: the replicates give no interval (see the warnings)")
         return replace(result, warnings=tuple(warnings), **numbers)
 
     side = {"greater": "lower", "less": "upper"}.get(options.alternative, "two-sided")
@@ -592,7 +601,67 @@ def _with_intervals(result: BootstrapResult, p: Prepared, options: BootstrapOpti
         for w in _tail_warnings(found, ordered):
             if w not in warnings:  # a fallback percentile interval repeats the percentile's warning
                 warnings.append(w)
-    return finish(intervals=found, z0=z0, acceleration=acceleration, details=details, **moments)
+    extra: dict[str, Any] = {}
+    if options.null_value is not None:
+        extra["null_test"] = _null_test(options, summary, found[0], weights, warnings)
+    return finish(intervals=found, z0=z0, acceleration=acceleration, details=details, **moments, **extra)
+
+
+P_Z = 2.5758293035489004  # 99.5% normal point: the p-value's Monte Carlo interval is about 99%, as the permutation one
+
+
+def _null_test(options: BootstrapOptions, summary: Summary, first: Interval, weights: np.ndarray | None,
+               warnings: list[EngineWarning]) -> NullTest:
+    """The p-value of the stated null value by inverting the pre-specified (first) interval's bounds."""
+    assert options.null_value is not None
+    null, method = options.null_value, options.intervals[0]
+    if first.note is not None and first.note.startswith("in place of the undefined"):
+        method = "percentile"  # on_degenerate: percentile replaced the pre-specified interval
+    rule = INVERSION_RULES[method]
+    ordered = summary.ordered
+    tolerance = TIE_TOLERANCE * max(abs(null), abs(float(ordered[0])), abs(float(ordered[-1])))
+    found = invert(method, summary, null, tolerance)
+    if isinstance(found, str):
+        return NullTest(null, method, rule, None, note=f"no p-value: the {method} interval is undefined ({found})")
+    if options.alternative in ("greater", "less"):
+        greater = options.alternative == "greater"
+        p = found.p_greater if greater else found.p_less
+        sd = found.sd_greater if greater else found.sd_less
+        side = 0 if greater else 1
+    else:  # doubled: twice the smaller one-sided p, capped at 1
+        side = 0 if found.p_greater <= found.p_less else 1
+        smaller = (found.p_greater, found.p_less)[side]
+        p = min(1.0, 2.0 * smaller)
+        one_sd = (found.sd_greater, found.sd_less)[side]
+        sd = None if one_sd is None else 2.0 * one_sd
+    floored = p <= 0.0
+    if floored:  # θ0 beyond every replicate: the smallest p the replicates can resolve (doubled when two-sided)
+        step = 1.0 / ordered.shape[0] if weights is None else float(np.min(weights))
+        p = min(1.0, step * (2.0 if options.alternative == "two-sided" else 1.0))
+    interval = interval_rule = None
+    if weights is None:
+        if found.counts is not None:
+            count, total = found.counts[side]
+            lo, hi = clopper_pearson(count, total)
+            doubled = options.alternative == "two-sided"
+            interval = (min(1.0, 2.0 * lo), min(1.0, 2.0 * hi)) if doubled else (lo, hi)
+            interval_rule = (f"{P_INTERVAL_LEVEL:.0%} Clopper-Pearson interval of the replicate count behind the "
+                             "p-value" + (" (doubled)" if doubled else ""))
+        elif sd is not None:
+            interval = (max(0.0, p - P_Z * sd), min(1.0, p + P_Z * sd))
+            interval_rule = f"p -/+ {P_Z:.3f} Monte Carlo s.d. (about {P_INTERVAL_LEVEL:.0%}), cut to [0, 1]"
+        alpha = round(1.0 - options.confidence, 12)
+        if interval is not None and interval[0] <= alpha <= interval[1]:
+            warnings.append(EngineWarning(
+                "mc-interval-contains-alpha",
+                f"alpha = {alpha:g} (1 - confidence) lies inside the Monte Carlo interval ({interval[0]:.4g}, "
+                f"{interval[1]:.4g}) of the p-value of the null value {null:g}: {ordered.shape[0]} resamples "
+                "cannot settle the test at this alpha; use more resamples"))
+    return NullTest(null, method, rule, float(p), found.p_greater, found.p_less, sd, interval, interval_rule,
+                    floored, None if not floored else
+                    "no replicate lies on the far side of the null value: p is reported as the smallest value "
+                    "the replicates can resolve (1/B, doubled when two-sided; exhaustive: the smallest resample "
+                    "probability)")
 
 
 def _not_estimable(result: BootstrapResult, p: Prepared, options: BootstrapOptions, distribution: np.ndarray,
@@ -636,7 +705,10 @@ def _not_estimable(result: BootstrapResult, p: Prepared, options: BootstrapOptio
                 interval = Interval(method, confidence, None, None, side=side,
                                     note=f"{note}: an endpoint lies among the not-reached resamples")
         found.append(interval)
-    return replace(result, intervals=tuple(found), details=details, warnings=tuple(warnings))
+    null_test = None if options.null_value is None else NullTest(
+        options.null_value, options.intervals[0], INVERSION_RULES[options.intervals[0]], None,
+        note=f"no p-value: {note}")
+    return replace(result, intervals=tuple(found), details=details, warnings=tuple(warnings), null_test=null_test)
 
 
 def _read_levels(confidence: float, alternative: str) -> list[float]:

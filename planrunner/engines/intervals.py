@@ -38,8 +38,8 @@ import numpy as np
 from planrunner.engines.lazy import ndtr, ndtri
 from planrunner.engines.results import Interval
 
-__all__ = ["INTERVAL_METHODS", "MC_RULE", "Summary", "bca_levels", "quantile_band", "quantile_rank", "read_quantile",
-           "tail_levels"]
+__all__ = ["INTERVAL_METHODS", "INVERSION_RULES", "MC_RULE", "Inverted", "Summary", "bca_levels", "invert",
+           "quantile_band", "quantile_rank", "read_quantile", "tail_levels"]
 
 MC_Z = 1.959963984540054  # 97.5% normal point: the Monte Carlo bands are about 95%
 MC_RULE = ("band: ranks ceil(qB) ± ceil(z·s) of the sorted replicates, s = sqrt(B q (1-q)), z = 1.96 "
@@ -267,3 +267,167 @@ def _studentized(s: Summary) -> Interval:
 INTERVAL_METHODS: dict[str, IntervalMethod] = {
     "percentile": _percentile, "basic": _basic, "normal": _normal, "bca": _bca, "studentized": _studentized,
 }
+
+
+# ------------------------------------------------------------------ p-values by inverting a bound family
+
+
+@dataclass(frozen=True)
+class Inverted:
+    """One-sided p-values of a null value θ0 from inverting an interval family (:func:`invert`).
+
+    ``p_greater``: the smallest α at which θ0 lies below the 1 − α lower bound (evidence that
+    θ > θ0); ``p_less``: the smallest α at which θ0 lies above the 1 − α upper bound. ``sd_*``: their
+    Monte Carlo s.d. (None when exact). ``counts``: for the methods that count replicates, the
+    (count, total) behind each p (a Clopper–Pearson interval can be formed from them).
+    """
+
+    p_greater: float
+    p_less: float
+    sd_greater: float | None
+    sd_less: float | None
+    counts: tuple[tuple[int, int], tuple[int, int]] | None = None
+
+
+def _shares(ordered: np.ndarray, cumulative: np.ndarray | None, value: float,
+            tolerance: float) -> tuple[float, float, int, int]:
+    """(P(θ* ≤ value), P(θ* ≥ value), #≤, #≥): ties within ``tolerance`` count on both sides."""
+    b = ordered.shape[0]
+    at_most = int(np.searchsorted(ordered, value + tolerance, side="right"))
+    below = int(np.searchsorted(ordered, value - tolerance, side="left"))
+    if cumulative is None:
+        return at_most / b, (b - below) / b, at_most, b - below
+    total = float(cumulative[-1])
+    le = float(cumulative[at_most - 1]) / total if at_most else 0.0
+    lt = float(cumulative[below - 1]) / total if below else 0.0
+    return min(le, 1.0), min(max(1.0 - lt, 0.0), 1.0), at_most, b - below
+
+
+def _count_sd(p: float, b: int, exact: bool) -> float | None:
+    return None if exact else math.sqrt(p * (1.0 - p) / b)
+
+
+def _invert_percentile(s: Summary, null: float, tolerance: float) -> Inverted:
+    # lower bound q(α) > θ0 ⇔ P(θ* ≤ θ0) < α; upper bound q(1 − α) < θ0 ⇔ P(θ* ≥ θ0) ≤ α
+    le, ge, n_le, n_ge = _shares(s.ordered, s.cumulative, null, tolerance)
+    b = s.ordered.shape[0]
+    return Inverted(le, ge, _count_sd(le, b, s.exact), _count_sd(ge, b, s.exact), ((n_le, b), (n_ge, b)))
+
+
+def _invert_basic(s: Summary, null: float, tolerance: float) -> Inverted:
+    # lower bound 2θ̂ − q(1 − α) > θ0 ⇔ q(1 − α) < 2θ̂ − θ0 ⇔ P(θ* ≥ 2θ̂ − θ0) ≤ α; mirrored above
+    le, ge, n_le, n_ge = _shares(s.ordered, s.cumulative, 2 * s.estimate - null, tolerance)
+    b = s.ordered.shape[0]
+    return Inverted(ge, le, _count_sd(ge, b, s.exact), _count_sd(le, b, s.exact), ((n_ge, b), (n_le, b)))
+
+
+def _invert_studentized(s: Summary, null: float, tolerance: float) -> Inverted | str:
+    if s.studentized_problem is not None:
+        return s.studentized_problem
+    assert s.t_ordered is not None and s.se_hat is not None
+    # lower bound θ̂ − ŝe·t(1 − α) > θ0 ⇔ t(1 − α) < t0 = (θ̂ − θ0)/ŝe ⇔ P(t* ≥ t0) ≤ α (bootstrap-t test)
+    t0 = (s.estimate - null) / s.se_hat
+    le, ge, n_le, n_ge = _shares(s.t_ordered, s.t_cumulative, t0, TIE_SCALE * max(1.0, abs(t0)))
+    b = s.t_ordered.shape[0]
+    return Inverted(ge, le, _count_sd(ge, b, s.exact), _count_sd(le, b, s.exact), ((n_ge, b), (n_le, b)))
+
+
+def _invert_normal(s: Summary, null: float, tolerance: float) -> Inverted | str:
+    if not s.standard_error > 0:
+        return "the standard error is zero"
+    # lower bound c − z(1 − α)·SE > θ0 ⇔ α > Φ((θ0 − c)/SE); upper mirrored
+    x = (null - (s.estimate - s.bias)) / s.standard_error
+    p_g, p_l = float(ndtr(x)), float(ndtr(-x))
+    if s.standard_error_sd is None or s.bias_sd is None:
+        return Inverted(p_g, p_l, None, None)
+    # delta method: ∂p/∂bias = φ(x)/SE, ∂p/∂SE = −φ(x)·x/SE (same for both sides)
+    sd = _phi(x) / s.standard_error * math.sqrt(s.bias_sd ** 2 + (x * s.standard_error_sd) ** 2)
+    return Inverted(p_g, p_l, sd, sd)
+
+
+def _phi(x: float) -> float:
+    return math.exp(-0.5 * x * x) / math.sqrt(2 * math.pi)
+
+
+def _bca_p(share: float, z0: float, a: float, side: str) -> float:
+    """The smallest α at which the BCa bound excludes θ0, from the share of replicates on θ0's side.
+
+    Lower bound (side "greater"): θ0 < q(β(α)) ⇔ F(θ0) < β(α), β(α) = Φ(z0 + (z0 + z_α)/(1 − a(z0 + z_α)));
+    solving β(α) = F with w = Φ⁻¹(F): α = Φ((w − z0)/(1 + a(w − z0)) − z0). Upper bound (side "less"),
+    with F = P(θ* < θ0): α = Φ(z0 − (w − z0)/(1 + a(w − z0))). Where 1 + a(w − z0) ≤ 0 the share lies
+    beyond every level the BCa map reaches: excluded at every α (0) or at none (1).
+    """
+    w = float(ndtri(share)) if 0.0 < share < 1.0 else (-math.inf if share <= 0.0 else math.inf)
+    if math.isinf(w):
+        # the limits of the formula as w → ∓∞
+        if a == 0.0:
+            u = w
+        else:
+            tends = 1.0 + a * (w - z0)  # ±∞ with the sign of a·w
+            u = 1.0 / a if tends > 0 else math.nan
+    else:
+        d = 1.0 + a * (w - z0)
+        u = (w - z0) / d if d > 0 else math.nan
+    if math.isnan(u):
+        reached = a > 0  # the map reaches only levels above Φ(z0 − 1/a) (a > 0) or below it (a < 0)
+        if side == "greater":
+            return 0.0 if reached else 1.0
+        return 1.0 if reached else 0.0
+    return float(ndtr(u - z0)) if side == "greater" else float(ndtr(z0 - u))
+
+
+def _invert_bca(s: Summary, null: float, tolerance: float) -> Inverted | str:
+    if s.bca_problem is not None:
+        return s.bca_problem
+    assert s.z0 is not None and s.acceleration is not None
+    z0, a = s.z0, s.acceleration
+    le, ge, n_le, n_ge = _shares(s.ordered, s.cumulative, null, tolerance)
+    below = 1.0 - ge  # P(θ* < θ0)
+    p_g, p_l = _bca_p(le, z0, a, "greater"), _bca_p(below, z0, a, "less")
+    if s.exact:
+        return Inverted(p_g, p_l, None, None)
+    b = s.ordered.shape[0]
+
+    g = float(ndtr(z0))  # the share of replicates below the estimate that z0 was read from
+
+    def sd(share: float, side: str) -> float:
+        # delta method in the two shares the p-value reads from the same replicates (a fixed): F, the
+        # share on the null value's side, and G = Φ(z0); both are empirical CDF values, so
+        # Var(F) = F(1 − F)/B, Var(G) = G(1 − G)/B, Cov = (min(F, G) − F·G)/B. Slopes by central
+        # differences (one replicate's weight for F; 1e-4 in z0 for G, dz0/dG = 1/φ(z0)).
+        h = 1.0 / b
+        f = min(max(share, h), 1.0 - h)
+        d_f = (_bca_p(min(f + h, 1.0), z0, a, side) - _bca_p(max(f - h, 0.0), z0, a, side)) / (2 * h)
+        e = 1e-4
+        d_g = (_bca_p(f, z0 + e, a, side) - _bca_p(f, z0 - e, a, side)) / (2 * e) / _phi(z0)
+        variance = (d_f ** 2 * f * (1 - f) + d_g ** 2 * g * (1 - g) + 2 * d_f * d_g * (min(f, g) - f * g)) / b
+        return math.sqrt(max(variance, 0.0))
+    return Inverted(p_g, p_l, sd(le, "greater"), sd(below, "less"))
+
+
+TIE_SCALE = 2.0 ** -43  # relative tolerance of ties at the null value (as the engine's TIE_TOLERANCE)
+
+INVERSIONS: dict[str, Callable[[Summary, float, float], Inverted | str]] = {
+    "percentile": lambda s, v, t: _invert_percentile(s, v, t), "basic": lambda s, v, t: _invert_basic(s, v, t),
+    "normal": _invert_normal, "bca": _invert_bca, "studentized": _invert_studentized,
+}
+INVERSION_RULES = {
+    "percentile": "p_greater = share of replicates <= null value; p_less = share >= null value",
+    "basic": "p_greater = share of replicates >= 2 estimate - null value; p_less = share <= it",
+    "normal": "p_greater = Phi((null value - (estimate - bias)) / SE); p_less = 1 - that",
+    "bca": "p_greater = Phi((w - z0) / (1 + a (w - z0)) - z0), w = inverse normal of the share <= null value; "
+           "p_less = Phi(z0 - (w - z0) / (1 + a (w - z0))), w from the share < null value",
+    "studentized": "t0 = (estimate - null value) / se_hat; p_greater = share of t* >= t0; p_less = share <= t0",
+}
+
+
+def invert(method: str, s: Summary, null: float, tolerance: float) -> Inverted | str:
+    """One-sided p-values of ``null`` by inverting ``method``'s one-sided bounds (or why there are none).
+
+    p_greater is the smallest α whose 1 − α lower bound lies above ``null`` and p_less the smallest α
+    whose upper bound lies below it, so that p < α exactly when the bound at confidence 1 − α
+    excludes the null value (for the counting methods: p_greater < α, p_less ≤ α, by the inverse-CDF
+    quantile convention). Efron & Tibshirani (1993), §15.4 (percentile and BCa achieved significance
+    levels); Davison & Hinkley (1997), §4.4 (tests from confidence limits); both from memory.
+    """
+    return INVERSIONS[method](s, null, tolerance)

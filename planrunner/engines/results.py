@@ -17,6 +17,7 @@ __all__ = [
     "EngineWarning",
     "Interval",
     "JackknifeResult",
+    "NullTest",
     "PermutationResult",
     "frozen_array",
 ]
@@ -62,6 +63,26 @@ class Interval:
     side: str = "two-sided"
 
 
+@dataclass(frozen=True)
+class NullTest:
+    """The p-value of a stated null value from a bootstrap, by inverting the pre-specified interval's
+    family of one-sided bounds (``engines.intervals.invert``); ``p_value`` None (with ``note``) when
+    that interval is undefined."""
+
+    null_value: float
+    method: str  # the interval method inverted
+    rule: str
+    p_value: float | None
+    p_greater: float | None = None
+    p_less: float | None = None
+    # Monte Carlo s.d. of p_value and an interval for the p-value of B = ∞ (None when exact)
+    monte_carlo_sd: float | None = None
+    monte_carlo_interval: tuple[float, float] | None = None
+    interval_rule: str | None = None
+    floored: bool = False  # a p of exactly 0 reported as the smallest p the replicates can resolve
+    note: str | None = None
+
+
 @dataclass(frozen=True, eq=False)
 class BootstrapResult:
     """Bootstrap estimate, standard error, bias and intervals of one statistic.
@@ -93,6 +114,7 @@ class BootstrapResult:
     details: dict = field(default_factory=dict)
     # "two-sided" intervals, or one-sided bounds: "greater" (lower bounds), "less" (upper bounds)
     alternative: str = "two-sided"
+    null_test: NullTest | None = None  # with a stated null value: its p-value
 
 
 @dataclass(frozen=True, eq=False)

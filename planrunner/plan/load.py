@@ -258,6 +258,12 @@ def cross_check(plan: Plan) -> list[Problem]:
         if fam.method == "max-t" and all(member in seen for member in fam.family):
             problems += permcheck.max_t_checks(("multiplicity", j), [plan.analyses[seen[m]] for m in fam.family])
         for k, member in enumerate(fam.family):
+            if member in seen and plan.analyses[seen[member]].method == "bootstrap" \
+                    and getattr(plan.analyses[seen[member]], "null_value", None) is None:
+                problems.append(Problem(("multiplicity", j, "family", k),
+                                        f"analysis '{member}' is a bootstrap without null_value and has no p-value",
+                                        f"add null_value: V to analysis '{member}' (its p-value inverts its "
+                                        "first interval), or leave it out of the family"))
             if member in seen and plan.analyses[seen[member]].method == "jackknife":
                 problems.append(Problem(("multiplicity", j, "family", k),
                                         f"analysis '{member}' is a jackknife and has no p-value",

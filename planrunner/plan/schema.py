@@ -164,6 +164,9 @@ class BootstrapAnalysis(AnalysisBase):
     # from defaults.alternative (which is for the permutation-type tests), so that a plan written
     # before bounds existed keeps its two-sided intervals
     alternative: Alternative | None = None
+    # a stated null value of the statistic: the record gets its p-value, by inverting the first
+    # listed interval's one-sided bounds (consistent with `alternative`)
+    null_value: Annotated[float, Field(allow_inf_nan=False)] | None = None
 
     @model_validator(mode="after")
     def _unique_intervals(self) -> BootstrapAnalysis:

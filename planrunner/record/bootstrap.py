@@ -8,7 +8,7 @@ from typing import Any
 
 import numpy as np
 
-from planrunner.engines.results import BootstrapResult, Interval
+from planrunner.engines.results import BootstrapResult, Interval, NullTest
 from planrunner.record.bands import RULE as MC_INTERVAL_RULE
 from planrunner.record.bands import interval_bands
 from planrunner.record.canonical import plain_number as _f
@@ -23,11 +23,14 @@ def bootstrap_fields(result: BootstrapResult, bins: int, *, save_distribution: b
         distribution["values"] = [float(v) for v in result.distribution]
         if result.weights is not None:
             distribution["weights"] = [float(v) for v in result.weights]
+    null = result.null_test
     return MethodFields(
         estimate=_f(result.estimate), standard_error=_f(result.standard_error), bias=_f(result.bias),
         intervals=tuple(_interval(i) for i in result.intervals),
+        p_value=None if null is None else _f(null.p_value),
         resamples=int(result.resamples), exact=bool(result.exact), alternative=result.alternative,
         monte_carlo={
+            **({} if null is None else null_test_monte_carlo(null)),
             # MC s.d. of a B-replicate SE: SE·sqrt((κ−1)/(4B)) (V-TOL); of the bias: SE/√B
             "standard_error_sd": _f(result.standard_error_sd),
             "bias_sd": _f(result.bias_sd),
@@ -37,7 +40,8 @@ def bootstrap_fields(result: BootstrapResult, bins: int, *, save_distribution: b
             "interval_rule": MC_INTERVAL_RULE,
         },
         details={"z0": _f(result.z0), "acceleration": _f(result.acceleration),
-                 "conventions": dict(result.conventions), **jsonable(result.details)},
+                 "conventions": dict(result.conventions), **jsonable(result.details),
+                 **({} if null is None else {"null_test": null_test_details(null, result)})},
         distribution=distribution,
     )
 
@@ -86,3 +90,28 @@ def _kurtosis(values: np.ndarray) -> float | None:
     centred = values - values.mean()
     m2 = float(np.mean(centred ** 2))
     return float(np.mean(centred ** 4) / m2 ** 2) if m2 > 0 else None
+
+
+NULL_TEST_METHOD = ("inversion of the pre-specified interval's one-sided bounds: p_greater is the smallest alpha "
+                    "whose 1 - alpha lower bound lies above the null value, p_less the smallest alpha whose upper "
+                    "bound lies below it; two-sided: min(1, 2 min(p_greater, p_less))")
+NULL_TEST_SOURCE = ("Efron & Tibshirani (1993), An Introduction to the Bootstrap, section 15.4 (achieved significance "
+                    "levels of the percentile and BCa intervals); Davison & Hinkley (1997), Bootstrap Methods and "
+                    "their Application, section 4.4 (tests from confidence limits)")
+
+
+def null_test_details(null: NullTest, result: BootstrapResult) -> dict[str, Any]:
+    """`details.null_test`: the null value, the interval family inverted, both one-sided p-values."""
+    return {"null_value": _f(null.null_value), "method": NULL_TEST_METHOD, "source": NULL_TEST_SOURCE,
+            "interval_inverted": null.method, "rule": null.rule, "alternative": result.alternative,
+            "p_greater": _f(null.p_greater), "p_less": _f(null.p_less), "floored": null.floored, "note": null.note,
+            # the alpha whose side of the p-value the reports never round across: 1 - confidence
+            "alpha": round(1.0 - (result.intervals[0].level if result.intervals else 0.95), 12)}
+
+
+def null_test_monte_carlo(null: NullTest) -> dict[str, Any]:
+    """The p-value's Monte Carlo s.d. and interval (null when exact), as `monte_carlo` states them."""
+    return {"p_value_sd": _f(null.monte_carlo_sd),
+            "p_value_interval": None if null.monte_carlo_interval is None else
+            [_f(v) for v in null.monte_carlo_interval],
+            "p_value_interval_rule": null.interval_rule}

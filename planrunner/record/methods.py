@@ -79,9 +79,16 @@ def _sentence(a: dict[str, Any]) -> str:
         if side is not None:  # one-sided confidence bounds
             intervals = (f"one-sided {side} {level * 100:g}% confidence bounds ({methods})" if level is not None
                          else f"one-sided {side} confidence bounds ({methods})")
+        null = (a.get("details") or {}).get("null_test")
+        tested = "" if not null else (
+            f" The {'two-sided' if a.get('alternative') == 'two-sided' else 'one-sided'} p-value of the null value "
+            f"{null['null_value']:g} was obtained by inverting the one-sided "
+            f"{INTERVAL_WORDS.get(null['interval_inverted'], null['interval_inverted'])} bounds "
+            "(the smallest alpha at which the bound excludes the null value; Efron & Tibshirani 1993, section 15.4)"
+            + (", doubling the smaller one-sided p-value." if a.get("alternative") == "two-sided" else "."))
         return (f"{lead} estimated {what} and its uncertainty by the nonparametric bootstrap "
                 f"(scheme: {a['scheme']}) with {a['resamples']} resamples; the standard error is the standard "
-                f"deviation of the replicates, and {intervals} were computed.")
+                f"deviation of the replicates, and {intervals} were computed.{tested}")
     if a["method"] == "permutation":
         return (f"{lead} tested {what} by a permutation test (scheme: {a['scheme']}); the p-value, obtained "
                 f"{_p_computation(a)}, is {_sidedness(a)}.")

@@ -30,8 +30,15 @@ def interval_name(method: Any) -> str:
 
 
 def direction(entry: dict[str, Any]) -> str | None:
-    """'one-sided, A > B' (or '<') for a one-sided p-value; None for a two-sided one or none."""
+    """'one-sided, A > B' (or '<') for a one-sided p-value; None for a two-sided one or none. A
+    bootstrap p-value names its null value: 'one-sided, difference in means > -5 (null value)'."""
     alternative = entry.get("alternative")
+    null = ((entry.get("details") or {}).get("null_test") or {})
+    if null and entry.get("p_value") is not None:
+        sign = {"greater": ">", "less": "<"}.get(str(alternative), "≠")
+        sided = "two-sided" if sign == "≠" else "one-sided"
+        label = entry.get("statistic_label", "statistic")
+        return f"{sided}, {label} {sign} {_plain(null.get('null_value'))} (null value)"
     if alternative not in ("greater", "less") or entry.get("p_value") is None:
         return None
     sign = ">" if alternative == "greater" else "<"
@@ -104,3 +111,12 @@ def interval_ends(interval: dict[str, Any], lower: str, upper: str) -> str:
     if side == "upper":
         return upper
     return f"{lower} to {upper}"
+
+
+def alpha(entry: dict[str, Any]) -> Any:
+    """The alpha a p-value is never rounded across: the permutation test's `settings.alpha`, or for a
+    bootstrap p-value of a null value 1 − confidence (`details.null_test.alpha`)."""
+    given = (entry.get("settings") or {}).get("alpha")
+    if given is not None:
+        return given
+    return ((entry.get("details") or {}).get("null_test") or {}).get("alpha")

@@ -215,7 +215,7 @@ def _plots(entry_json: str) -> tuple[plots.Plot, ...]:
 
 
 def _alpha(entry: dict[str, Any] | None) -> Any:
-    return ((entry or {}).get("settings") or {}).get("alpha")
+    return labels.alpha(entry or {})
 
 
 def _adjusted_sds(family: dict[str, Any], by_id: dict[str, dict[str, Any]]) -> list[float | None]:
