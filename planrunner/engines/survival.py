@@ -76,11 +76,10 @@ class SurvivalSpec:
 
 def kaplan_meier(grid: np.ndarray, deaths: np.ndarray, total: np.ndarray) -> np.ndarray:
     """S after each grid time, rows of counts: ``deaths`` and ``total`` (events plus censorings) per
-    grid time, shape (rows, K). A time nobody reaches (at risk 0) has hazard 0."""
-    at_risk = np.cumsum(total[:, ::-1], axis=1)[:, ::-1]
-    with np.errstate(invalid="ignore", divide="ignore"):
-        hazard = np.where(at_risk > 0, deaths / np.maximum(at_risk, 1.0), 0.0)
-    return np.cumprod(1.0 - hazard, axis=1)
+    grid time, shape (rows, K). At risk at t_j: the row's n minus those before t_j (whole numbers,
+    exact); a time nobody reaches (at risk 0, hence no deaths) has hazard 0."""
+    at_risk = total.sum(axis=1, keepdims=True) - np.cumsum(total, axis=1) + total
+    return np.cumprod(1.0 - deaths / np.maximum(at_risk, 1), axis=1)
 
 
 @dataclass(frozen=True)
@@ -98,7 +97,8 @@ def curve(times: np.ndarray, events: np.ndarray) -> Curve:
     """The Kaplan–Meier curve of (time, 0/1 event) observations (the engines' own computation)."""
     t = np.asarray(times, dtype=np.float64)
     grid, codes = np.unique(t, return_inverse=True)
-    deaths, total = _counts(codes.reshape(1, -1), (np.asarray(events) == 1).reshape(1, -1), grid.shape[0])
+    coded = 2 * codes.reshape(1, -1).astype(np.int64) + (np.asarray(events) == 1).reshape(1, -1)
+    deaths, total = _counts(coded, grid.shape[0])
     surv = kaplan_meier(grid, deaths, total)[0]
     at_risk = np.cumsum(total[0, ::-1])[::-1]
     return Curve(grid, surv, at_risk, deaths[0], total[0] - deaths[0])
@@ -163,13 +163,21 @@ def _combine(spec: SurvivalSpec, values: list[np.ndarray]) -> np.ndarray:
         return values[0] - values[1] if spec.combine == "difference" else values[0] / values[1]
 
 
-def _counts(codes: np.ndarray, events: np.ndarray, width: int) -> tuple[np.ndarray, np.ndarray]:
-    """Events and observations per (row, grid time): codes and 0/1 events of shape (rows, m)."""
+def _counts(coded: np.ndarray, width: int) -> tuple[np.ndarray, np.ndarray]:
+    """Events and observations per (row, grid time) from codes 2·(grid index) + event, shape (rows, m):
+    one ``bincount`` of the rows' cells (each row offset by 2·width)."""
+    rows = coded.shape[0]
+    cells = coded + (np.arange(rows, dtype=np.int64) * (2 * width))[:, None]
+    both = np.bincount(cells.ravel(), minlength=rows * 2 * width).reshape(rows, width, 2)
+    deaths = both[:, :, 1]
+    return deaths, both[:, :, 0] + deaths
+
+
+def _masked(codes: np.ndarray, mask: np.ndarray, width: int) -> np.ndarray:
+    """Observations per (row, cell) among those where ``mask`` holds."""
     rows = codes.shape[0]
     cells = codes + (np.arange(rows, dtype=np.int64) * width)[:, None]
-    total = np.bincount(cells.ravel(), minlength=rows * width).reshape(rows, width).astype(np.float64)
-    deaths = np.bincount(cells[events].ravel(), minlength=rows * width).reshape(rows, width).astype(np.float64)
-    return deaths, total
+    return np.bincount(cells[mask], minlength=rows * width).reshape(rows, width).astype(np.float64)
 
 
 class SurvivalCompute:
@@ -185,7 +193,7 @@ class SurvivalCompute:
         times, events = flat[:, 0, :], flat[:, 1, :] == 1.0
         grid = np.unique(times)  # the batch's distinct times (extra grid times change no bit)
         codes = np.searchsorted(grid, times)
-        deaths, total = _counts(codes, events, grid.shape[0])
+        deaths, total = _counts(2 * codes + events, grid.shape[0])
         surv = kaplan_meier(grid, deaths, total)
         value = _read(self.spec, grid, surv, total, n, _level(self.spec))
         return _on_scale(self.spec, value).reshape(lead)
@@ -205,19 +213,20 @@ class SurvivalFastPath:
         compute = statistic.compute
         assert isinstance(compute, SurvivalCompute)
         self.spec = compute.spec
-        self.grids, self.codes, self.events = [], [], []
+        self.grids, self.codes, self.events, self.coded = [], [], [], []
         for a in groups:
             grid, codes = np.unique(a[:, 0], return_inverse=True)
             self.grids.append(grid)
             self.codes.append(codes.reshape(-1).astype(np.int64))
             self.events.append(a[:, 1] == 1.0)
+            self.coded.append(2 * self.codes[-1] + self.events[-1])  # grid index and event in one code
 
     @staticmethod
     def applies(statistic: Statistic, inner: str | None) -> bool:
         return inner is None and statistic.form == "survival" and isinstance(statistic.compute, SurvivalCompute)
 
     def _group(self, g: int, index: np.ndarray) -> np.ndarray:
-        deaths, total = _counts(self.codes[g][index], self.events[g][index], self.grids[g].shape[0])
+        deaths, total = _counts(self.coded[g][index], self.grids[g].shape[0])
         return self.from_counts(g, deaths, total, index.shape[1])
 
     def from_counts(self, g: int, deaths: np.ndarray, total: np.ndarray, n: np.ndarray | int) -> np.ndarray:
@@ -266,9 +275,10 @@ def logrank_parts(first: np.ndarray, second: np.ndarray) -> tuple[np.ndarray, np
     cells = strata_values.shape[0] * width
     in_first = np.zeros((rows, n), dtype=bool)
     in_first[:, :n1] = True
-    deaths, total = _counts(codes, events, cells)
-    deaths1, _ = _counts(codes, events & in_first, cells)
-    total1, _ = _counts(codes, in_first, cells)  # observations of the first group per cell
+    deaths = _masked(codes, events, cells)
+    total = _masked(codes, np.ones_like(events), cells)
+    deaths1 = _masked(codes, events & in_first, cells)
+    total1 = _masked(codes, in_first, cells)  # observations of the first group per cell
     shape = (rows, strata_values.shape[0], width)
 
     def at_risk(counts: np.ndarray) -> np.ndarray:
