@@ -89,7 +89,8 @@ def main(argv: list[str] | None = None) -> int:
     print(f"  planrunner plain gather (scaled from 500) {plain_s:7.2f} s   same replicates: {same_plain}")
     print(f"  statsmodels SurvfuncRight loop{' (scaled from ' + str(r) + ')' if r != args.resamples else ''}"
           f"  {reference_s:9.2f} s  (CPU {reference_cpu:.2f} s)")
-    print(f"  ratio loop / planrunner {reference_s / ours_s:8.1f} (CPU {reference_cpu / ours_cpu:.1f})   largest |difference| of the replicates "
+    print(f"  ratio loop / planrunner {reference_s / ours_s:8.1f} (CPU {reference_cpu / ours_cpu:.1f})"
+          "   largest |difference| of the replicates "
           f"{difference:.3g}; standard error {ours.standard_error}, percentile interval "
           f"{ours.intervals[0].lower} to {ours.intervals[0].upper}")
     return 0
