@@ -44,7 +44,7 @@ def test_demo_plan_runs_and_writes_three_files(tmp_path, capsys):
     data = record["datasets"][0]
     assert data["rows_read"] == 240
     assert data["rows_used"] == 240 - sum(e["rows"] for e in data["excluded"])
-    assert {e["reason"].split(" ")[0] for e in data["excluded"]} == {"missing", "keep:"}
+    assert {e["reason"].split(" ")[0] for e in data["excluded"]} == {"missing", "rows_where:"}
     html = (folder / "report.html").read_text(encoding="utf-8")
     assert "<svg" in html and "http://" not in html.replace("http://www.w3.org/2000/svg", "")
     assert record["caution"] in html.replace("\n", " ") or "Caution" in html

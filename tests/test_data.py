@@ -81,7 +81,7 @@ def test_missing_rows_dropped_and_counted(write_plan):
 def test_keep_filter_counts_exclusions(write_plan):
     # one more row of group b, so that the jackknife still has two rows there after the filter
     table = check(write_plan, GOOD + "b,1.0,5,no,2026-02-03,v\n",
-                  extra="    keep: \"y < 3 or day < '2026-02-01'\"").tables["d"]
+                  extra="    rows_where: \"y < 3 or day < '2026-02-01'\"").tables["d"]
     assert table.rows_used == 4
     assert table.excluded[0].rows == 1 and table.excluded[0].lines == (4,)
 
@@ -118,7 +118,7 @@ def test_symlink_out_of_the_plan_folder_is_refused(write_plan, tmp_path_factory)
 
 def test_empty_group_after_filter(write_plan):
     with pytest.raises(DataError, match=r"no rows of group 'b' \(column 'site'\) are left"):
-        check(write_plan, GOOD, extra="    keep: \"site == 'a'\"")
+        check(write_plan, GOOD, extra="    rows_where: \"site == 'a'\"")
 
 
 def test_not_utf8(write_plan, tmp_path):

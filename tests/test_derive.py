@@ -106,7 +106,7 @@ def test_derived_columns_in_filters_groups_strata_and_each_other(write_plan, tmp
       ratio: "after / before"
       log_ratio: {expression: "log(ratio)", unit: log}
       improved: "after > before"
-    keep: "ratio < 2.5"
+    rows_where: "ratio < 2.5"
 """
     plan = write_plan(PLAN.format(extra=extra, outcome="log_ratio").replace(
         "groups: {by: g, compare: [a, b]}", "groups: {by: improved, compare: ['true', 'false']}\n    strata: site"),
@@ -123,7 +123,7 @@ def test_derived_columns_in_filters_groups_strata_and_each_other(write_plan, tmp
 def test_keep_runs_before_a_derivation_it_does_not_use(write_plan, tmp_path):
     # log(before - 0.5) is undefined on the row the filter drops; the filter does not use it, so it is
     # applied first and the derivation sees only the rows kept
-    extra = '    derive: {shifted: "log(before - 0.5)"}\n    keep: "before > 0.5"'
+    extra = '    derive: {shifted: "log(before - 0.5)"}\n    rows_where: "before > 0.5"'
     plan = write_plan(PLAN.format(extra=extra, outcome="shifted"), {"d.csv": _csv()})
     record = run_plan(plan, out=tmp_path / "out", clock=fixed_clock).record
     assert record["datasets"][0]["rows_used"] == len(ROWS) - 2

@@ -41,7 +41,7 @@ datasets:
       visits: {{type: integer, min: 0}}
       day: {{type: date}}
     missing: drop
-    keep: day >= '2025-01-03'
+    rows_where: day >= '2025-01-03'
 analyses:
   - id: diff
     data: d

@@ -29,7 +29,7 @@ VALID = {
     "datasets": {"d": {"file": "d.csv", "columns": {"g": {"type": "category", "levels": ["a", "b"]},
                                                      "y": {"type": "number", "min": 0},
                                                      "s": {"type": "category"}},
-                       "keep": "y < 100"}},
+                       "rows_where": "y < 100"}},
     "analyses": [{"id": "one", "data": "d", "outcome": "y", "groups": {"by": "g", "compare": ["a", "b"]},
                   "strata": "s", "statistic": "mean_difference", "method": "jackknife"},
                  {"id": "two", "data": "d", "outcome": "y", "statistic": "mean", "method": "bootstrap",

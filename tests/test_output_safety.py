@@ -26,7 +26,7 @@ datasets:
     columns:
       g: {type: category, levels: [a, b]}
       "minutes above": {type: number}
-    keep: "`minutes above` >= 0"
+    rows_where: "`minutes above` >= 0"
 analyses:
   - id: one
     title: "<b>x</b> | y"

@@ -32,7 +32,7 @@ datasets:
       period: {type: category, levels: [before, after]}
       session: {type: text}
       compliance: {type: number}
-    keep: "period == 'after'"
+    rows_where: "period == 'after'"
   wards:
     file: data/wards.csv
     columns:
@@ -51,7 +51,7 @@ datasets:
       compliance: {type: number}
       staff_per_bed: {type: number}
       beds: {type: integer}
-    keep: "period == 'after'"
+    rows_where: "period == 'after'"
 analyses:
   - {id: clusters-mean, data: sessions, outcome: compliance, groups: {by: arm, compare: [dispenser, usual]},
      clusters: ward, statistic: mean_difference, method: permutation, exact: never}

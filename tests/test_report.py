@@ -132,8 +132,8 @@ def test_provenance_lists_plan_data_exclusions_seed_environment(files, demo):
         assert str(record["seed"]["root"]) in text and "No lock was used for this run." in text
         assert record["environment"]["packages"]["numpy"] in text and "matplotlib" in text
         assert record["caution"] in text
-    assert "keep: minutes_above_8c &lt; 1440" in html and "104, 209, 218, 219" in html
-    assert "keep: minutes\\_above\\_8c &lt; 1440" in md
+    assert "rows_where: minutes_above_8c &lt; 1440" in html and "104, 209, 218, 219" in html
+    assert "rows\\_where: minutes\\_above\\_8c &lt; 1440" in md
     assert "seed: 20261201" in md and "seed: 20261201" in html  # the plan text as run
     assert record["methods_text"]  # every record now carries its methods paragraph
     assert "Methods paragraph" in html and "Methods paragraph" in md
@@ -143,7 +143,7 @@ def test_lock_deviations_and_methods_paragraph_are_rendered_when_present(demo):
     record = copy.deepcopy(demo.record)
     record["plan"]["lock"] = {"file": "plan.lock.json", "sha256": "ab" * 32,
                               "deviations": [{"path": "analyses[0].resamples", "locked": 9999, "now": 999},
-                                             {"path": "datasets.shipments.keep", "locked": "x < 1", "now": None}]}
+                                             {"path": "datasets.shipments.rows_where", "locked": "x < 1", "now": None}]}
     record["methods_text"] = "First paragraph about <b>methods</b>.\n\nSecond paragraph."
     html, md = report.render(record, "html"), report.render(record, "md")
     assert "2 deviation(s) from the lock" in html and "<code>analyses[0].resamples</code>" in html

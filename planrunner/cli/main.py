@@ -82,6 +82,14 @@ def build_parser() -> argparse.ArgumentParser:
     check.add_argument("--param", action="append", metavar="NAME=VALUE", help="a value for a plan parameter")
     check.add_argument("--data-root", metavar="DIR", help=DATA_ROOT_HELP)
 
+    init = verbs.add_parser("init", help="write a plan skeleton from a data file's columns (types only, no values)")
+    init.add_argument("datafile", help="the data file (CSV, TSV, XPT, Dataset-JSON, Parquet or .xlsx)")
+    init.add_argument("--out", metavar="PLAN", help="the plan to write (default: plan.yaml beside the data file); "
+                                                     "an existing file is never replaced")
+    init.add_argument("--sheet", help="the sheet of an .xlsx workbook")
+    init.add_argument("--format", choices=["csv", "tsv", "xpt", "dataset-json", "parquet", "xlsx"],
+                      help="the file's format (default: from its ending)")
+
     run = verbs.add_parser("run", help="run every analysis of a plan and write the record and reports")
     run.add_argument("plan", help="path to the plan (YAML)")
     run.add_argument("--out", help="folder under which the run folder is created (default: runs/ beside the plan)")
@@ -142,6 +150,11 @@ def _dispatch(args: argparse.Namespace, args_list: list[str]) -> int:
         return _check(args)
     if args.verb == "run":
         return _run(args, args_list)
+    if args.verb == "init":
+        from planrunner.pipeline.init import write_skeleton
+        written = write_skeleton(args.datafile, args.out, sheet=args.sheet, fmt=args.format)
+        print(f"plan skeleton written to {written}; fill in the analyses, then 'planrunner check {written}'")
+        return EXIT_OK
     if args.verb in AUDIT_VERBS:
         return AUDIT_VERBS[args.verb](args)
     if args.verb in SIGNING_VERBS:

@@ -13,6 +13,7 @@ import numpy as np
 
 from planrunner.compile import design
 from planrunner.data.formats import TEXT_FORMATS, in_rows
+from planrunner.data.sets import select
 from planrunner.data.tables import Table
 from planrunner.engines.bootstrap import BootstrapOptions
 from planrunner.engines.jackknife import JackknifeOptions
@@ -66,7 +67,7 @@ class Job:
 def compile_jobs(plan: Plan, tables: dict[str, Table]) -> list[Job]:
     jobs = []
     for analysis in plan.analyses:
-        table = tables[analysis.data]
+        table = select(tables[analysis.data], analysis.set)
         try:
             jobs.append(compile_job(plan, analysis, table))
         except DataError as exc:  # a typed file's rows are observations, not lines of text
@@ -136,7 +137,7 @@ def compile_job(plan: Plan, analysis: Analysis, table: Table) -> Job:
         if not mask.any():
             raise DataError(f"{where}: no rows are left in group '{label}'", where=table.file,
                             hint=f"check groups.compare against the values of '{analysis.groups.by}'"
-                                 " and the keep filter" if analysis.groups else "check the keep filter")
+                                 " and the rows_where filter" if analysis.groups else "check the rows_where filter")
     paired = analysis.pairs is not None and analysis.method == "bootstrap"
     if paired:
         masks = design.pair_order(table, str(analysis.pairs), masks, where)  # row i of each group is pair i

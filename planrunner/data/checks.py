@@ -16,6 +16,7 @@ from typing import Any
 import numpy as np
 
 from planrunner.data.formats import TEXT_FORMATS, in_rows
+from planrunner.data.sets import select
 from planrunner.data.tables import FLOAT_EXACT, SHOW_LINES, Table, group_value
 from planrunner.engines.statistics import MAGNITUDE_LIMIT, STATISTICS
 from planrunner.errors import DataError
@@ -34,7 +35,7 @@ def check_tables(plan: Plan, tables: dict[str, Table]) -> None:
     for analysis in plan.analyses:
         columns = dataset_columns(plan.datasets[analysis.data])
         by = analysis.groups.by if analysis.groups is not None else None
-        table = tables[analysis.data]
+        table = select(tables[analysis.data], analysis.set)
         try:
             check_analysis(analysis, table, declared=columns[by].levels if by in columns else None)
         except DataError as exc:  # a typed file's rows are observations, not lines of text
@@ -81,7 +82,8 @@ def check_analysis(analysis: Any, table: Table, declared: list[str] | None = Non
                                 hint=f"check groups.compare against the file (spelling, case), or use the "
                                      f"extract that holds group '{level}'")
             raise DataError(f"{who}: no rows of group '{level}' (column '{by}') are left; {_excluded(table)}",
-                            where=where, hint="check the keep filter and the missing-value handling")
+                            where=where,
+                            hint="check the rows_where filter, the analysis set and the missing-value handling")
     if analysis.groups is not None:
         _refuse_near_duplicates(analysis, table, column, labels, who, declared or [])
     minimum = MIN_ROWS_TWO_COLUMNS if two_columns else MIN_ROWS
@@ -89,13 +91,13 @@ def check_analysis(analysis: Any, table: Table, declared: list[str] | None = Non
         count = int(mask.sum())
         if count == 0:
             raise DataError(f"{who}: no rows are left; {_excluded(table)}", where=where,
-                            hint="check the keep filter and the missing-value handling")
+                            hint="check the rows_where filter, the analysis set and the missing-value handling")
         if count < minimum:
             group = f"group '{label}' has" if analysis.groups else "it has"
             raise DataError(f"{who}: {group} {count} row(s) (line(s) {_lines(table.lines[mask])}); "
                             f"{METHOD_WORDS.get(analysis.method, analysis.method)} needs at least {minimum}"
                             f"{' per group' if analysis.groups else ''}", where=where,
-                            hint="use more data, or relax the keep filter")
+                            hint="use more data, or relax the rows_where filter or the analysis set")
     used = np.logical_or.reduce(masks)
     for name in (analysis.outcome, analysis.predictor, *(getattr(analysis, "covariates", None) or ())):
         if name is not None:
@@ -226,7 +228,7 @@ def _check_strata(analysis: Any, table: Table, labels: tuple[str, ...], masks: l
                 others = used & (strata == stratum)
                 raise DataError(f"{who}: stratum '{stratum}' (column '{name}') has no rows in group '{label}'; "
                                 f"its rows are on line(s) {_lines(table.lines[others])}", where=table.file,
-                                hint="exclude that stratum with the keep filter, merge it with another, "
+                                hint="exclude that stratum with the rows_where filter, merge it with another, "
                                      "or check the file")
 
 
@@ -248,7 +250,7 @@ def _check_pairs(analysis: Any, table: Table, labels: tuple[str, ...], masks: li
                 problem = f"has {count} rows in group '{label}' (line(s) {_lines(table.lines[rows])})"
             raise DataError(f"{who}: pair '{pair}' (column '{name}') {problem}", where=table.file,
                             hint="every pair needs exactly one row in each group: fix the file, or exclude "
-                                 "incomplete pairs with the keep filter (a deviation to document)")
+                                 "incomplete pairs with the rows_where filter (a deviation to document)")
 
 
 def _check_clusters(analysis: Any, table: Table, labels: tuple[str, ...], masks: list[np.ndarray],
@@ -295,7 +297,7 @@ def _refuse_near_duplicates(analysis: Any, table: Table, column: np.ndarray, lab
                         f"level '{level}' ({code_points(level)}), on line(s) {_lines(table.lines[rows])}; they "
                         "differ only by case, Unicode form or invisible characters, and those rows would be "
                         "left out", where=table.file,
-                        hint="fix the values in the file, exclude those rows with the keep filter, or declare "
+                        hint="fix the values in the file, exclude those rows with the rows_where filter, or declare "
                              f"both as levels of '{by}' if they are different groups")
 
 

@@ -74,7 +74,8 @@ def read_cells(data: bytes, fmt: str, shown: str, name: str, spec: Dataset) -> C
     """The declared columns of a typed file as text, with the file's dictionary."""
     if not data:
         raise DataError("the file is empty", where=shown, hint=f"a {FORMAT_WORDS[fmt]} file with data rows is expected")
-    names, values, entries = _READERS[fmt](data, shown, name, spec)
+    names, values, entries = read_columns(data, fmt, shown, sheet=spec.sheet, key=f"datasets.{name}.sheet",
+                                          wanted=set(spec.columns))
     absent = [c for c in spec.columns if c not in names]
     if absent:
         raise DataError(f"declared column(s) missing from the file: {', '.join(absent)}", where=shown,
@@ -121,7 +122,7 @@ def _kind(value: object) -> str:
     return type(value).__name__
 
 
-def _text(value: object) -> str:
+def value_text(value: object) -> str:
     if isinstance(value, (bool, np.bool_)):
         return "true" if value else "false"
     if isinstance(value, (float, np.floating)):
@@ -146,10 +147,10 @@ def _as_text(values: list[object], column: str, kind: str, shown: str) -> np.nda
         rows = ", ".join(str(i + 1) for i in wrong[:SHOW]) + (f" and {len(wrong) - SHOW} more"
                                                               if len(wrong) > SHOW else "")
         raise DataError(f"column '{column}' ({kind}): {len(wrong)} value(s) are stored as {stored}, e.g. "
-                        f"'{_text(first)}' on row(s) {rows}", where=shown,
+                        f"'{value_text(first)}' on row(s) {rows}", where=shown,
                         hint=f"store the column as {KIND_WORDS['number' if kind == 'integer' else kind]} in the "
                              f"file, or declare its type as it is stored")
-    return np.array([NULL if _is_null(v) else _text(v) for v in values], dtype=object)
+    return np.array([NULL if _is_null(v) else value_text(v) for v in values], dtype=object)
 
 
 def _is_null(value: object) -> bool:
@@ -161,7 +162,14 @@ def _is_null(value: object) -> bool:
 Read = tuple[list[str], Mapping[str, list[object]], list[Entry]]
 
 
-def _xpt(data: bytes, shown: str, name: str, spec: Dataset) -> Read:
+def read_columns(data: bytes, fmt: str, shown: str, *, sheet: str | None, key: str,
+                 wanted: set[str] | None = None) -> Read:
+    """The file's column names, the values (Python objects, None where null) of the `wanted` columns
+    (every column when None), and its dictionary; `key` is the plan key that names a sheet."""
+    return _READERS[fmt](data, shown, sheet, key, wanted)
+
+
+def _xpt(data: bytes, shown: str, sheet: str | None, key: str, wanted: set[str] | None) -> Read:
     from planrunner.data.xpt import DAY_FORMATS, SECOND_FORMATS, read_xpt
 
     transport = read_xpt(data, shown)
@@ -188,7 +196,7 @@ def _sas_moment(value: float, *, seconds: bool) -> object:
     return SAS_EPOCH + dt.timedelta(days=int(days))
 
 
-def _dataset_json(data: bytes, shown: str, name: str, spec: Dataset) -> Read:
+def _dataset_json(data: bytes, shown: str, sheet: str | None, key: str, wanted: set[str] | None) -> Read:
     from planrunner.data.datasetjson import read_dataset_json
 
     document = read_dataset_json(data, shown)
@@ -196,7 +204,7 @@ def _dataset_json(data: bytes, shown: str, name: str, spec: Dataset) -> Read:
             [Entry(i.name, i.label, i.display_format, i.data_type) for i in document.items])
 
 
-def _parquet(data: bytes, shown: str, name: str, spec: Dataset) -> Read:
+def _parquet(data: bytes, shown: str, sheet: str | None, key: str, wanted: set[str] | None) -> Read:
     from planrunner.data.sheets import missing_package
 
     try:
@@ -210,8 +218,7 @@ def _parquet(data: bytes, shown: str, name: str, spec: Dataset) -> Read:
         raise DataError(f"the file cannot be read as Parquet: {exc}", where=shown,
                         hint="the file is damaged or truncated; write it again") from None
     names = list(table.column_names)
-    wanted = set(spec.columns)
-    columns = {n: table.column(i).to_pylist() for i, n in enumerate(names) if n in wanted}
+    columns = {n: table.column(i).to_pylist() for i, n in enumerate(names) if wanted is None or n in wanted}
     entries = []
     for field in table.schema:
         meta = {k.decode(): v.decode("utf-8", "replace") for k, v in (field.metadata or {}).items()}
@@ -219,11 +226,11 @@ def _parquet(data: bytes, shown: str, name: str, spec: Dataset) -> Read:
     return names, columns, entries
 
 
-def _xlsx(data: bytes, shown: str, name: str, spec: Dataset) -> Read:
+def _xlsx(data: bytes, shown: str, sheet: str | None, key: str, wanted: set[str] | None) -> Read:
     from planrunner.data.sheets import read_sheet
 
-    sheet = read_sheet(data, spec.sheet, shown, f"datasets.{name}.sheet")
-    return sheet.names, sheet.columns, [Entry(n, None, sheet.number_formats[n], "cells") for n in sheet.names]
+    found = read_sheet(data, sheet, shown, key)
+    return found.names, found.columns, [Entry(n, None, found.number_formats[n], "cells") for n in found.names]
 
 
 _READERS = {"xpt": _xpt, "dataset-json": _dataset_json, "parquet": _parquet, "xlsx": _xlsx}

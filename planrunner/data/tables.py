@@ -72,13 +72,14 @@ class Table:
     lines: np.ndarray  # file line of each kept row
     ignored_columns: tuple[str, ...] = ()  # header columns the plan does not declare
     # distinct values (as groups.compare names them) of each grouping-type column over every row
-    # read, before missing values and the keep filter: tells "absent from the file" apart from
+    # read, before missing values and the rows_where filter: tells "absent from the file" apart from
     # "removed by the filter"
     values_read: Mapping[str, tuple[str, ...]] = field(default_factory=dict)
     derived: tuple[tuple[str, str, str], ...] = ()  # (name, expression, type) of each derived column
     format: str = "csv"  # csv, tsv, xpt, dataset-json, parquet, xlsx
     dictionary: tuple[Entry, ...] = ()  # what the file says of each declared column (labels, formats)
     dropped: Dropped = NO_ROWS_DROPPED  # the rows not kept, for missing and excluded counts per group
+    sets: tuple[Any, ...] = ()  # the dataset's analysis sets (data/sets.py AnalysisSet), in the plan's order
 
     @property
     def rows_used(self) -> int:
@@ -234,20 +235,21 @@ def _checked_table(name: str, spec: Dataset, shown: str, raw: dict[str, np.ndarr
     if problems:
         raise DataError.of_all([problems[c] for c in spec.columns if c in problems], shown)
     table_columns = {c: v[keep] for c, v in columns.items()}  # the rows that missing values left
-    early = needed_by(spec, parse_expression(spec.keep).columns) if spec.keep is not None else set()
+    early = needed_by(spec, parse_expression(spec.rows_where).columns) if spec.rows_where is not None else set()
     table_columns.update(_derive(name, spec, early, table_columns, line_of[keep], shown))
-    if spec.keep is not None:
+    if spec.rows_where is not None:
         try:
-            kept = parse_expression(spec.keep).evaluate(table_columns)
+            kept = parse_expression(spec.rows_where).evaluate(table_columns)
         except ExpressionError as exc:
             lines = line_of[np.flatnonzero(keep)[list(exc.rows)]] if exc.rows else ()
             on = f" (line(s) {_list([int(n) for n in lines[:SHOW_LINES]], len(lines))} of {shown})" if exc.rows else ""
-            raise DataError(f"the keep filter cannot be applied: {exc.message}{on}", where=f"datasets.{name}.keep",
-                            hint=exc.hint) from None
+            raise DataError(f"the rows_where filter cannot be applied: {exc.message}{on}",
+                            where=f"datasets.{name}.rows_where", hint=exc.hint) from None
         dropped = np.zeros(rows_read, dtype=bool)
         dropped[np.flatnonzero(keep)[~kept]] = True
         if dropped.any():
-            excluded.append(Exclusion(f"keep: {spec.keep}", int(dropped.sum()), tuple(_lines(dropped, line_of))))
+            excluded.append(Exclusion(f"rows_where: {spec.rows_where}", int(dropped.sum()),
+                                      tuple(_lines(dropped, line_of))))
         keep &= ~dropped
         table_columns = {c: v[kept] for c, v in table_columns.items()}
     table_columns.update(_derive(name, spec, set(spec.derive) - early, table_columns, line_of[keep], shown))
@@ -301,7 +303,7 @@ def _derive(name: str, spec: Dataset, which: set[str], rows: dict[str, np.ndarra
             on = f" on line(s) {_list([int(n) for n in bad[:SHOW_LINES]], len(bad))} of {shown}" if exc.rows else ""
             raise DataError(f"derived column '{column}' cannot be computed: {exc.message}{on}",
                             where=f"{shown}:{int(bad[0])}" if exc.rows else shown,
-                            hint=f"exclude those rows with datasets.{name}.keep (a filter that does not use "
+                            hint=f"exclude those rows with datasets.{name}.rows_where (a filter that does not use "
                                  f"'{column}' is applied before it is computed), or change "
                                  f"datasets.{name}.derive.{column}") from None
         if spec.derived()[column].type == "number" and values.dtype == bool:
@@ -470,7 +472,7 @@ def _convert(values: np.ndarray, keep: np.ndarray, name: str, spec: Column, show
 
         text = np.where(keep, values, "1970-01-01")
         dates = pd.to_datetime(pd.Series(text), format="%Y-%m-%d", errors="coerce")
-        # the same strict form as a date in a keep filter: four, two and two digits
+        # the same strict form as a date in a rows_where filter: four, two and two digits
         padded = np.array([_ISO_DATE.fullmatch(str(v)) is not None for v in text], dtype=bool)
         bad = (dates.isna().to_numpy() | ~padded) & keep
         if bad.any():

@@ -20,6 +20,7 @@ from typing import Any
 from planrunner.compile import limits
 from planrunner.compile.jobs import Job, compile_jobs
 from planrunner.data.checks import check_tables
+from planrunner.data.sets import evaluate_sets
 from planrunner.data.tables import Table, read_table, resolve_data_path
 from planrunner.engines.maxt import MaxTResult
 from planrunner.errors import OutputError
@@ -97,7 +98,7 @@ def load_tables(loaded: LoadedPlan, data_root: str | Path | None = None) -> dict
         if path.is_file():  # a missing file is reported by read_table with its own message
             sizes.append((spec.file, path.stat().st_size))
     limits.check_files(sizes, available=available_memory())
-    return {name: read_table(name, spec, loaded.folder, data_root=root)
+    return {name: evaluate_sets(name, spec, read_table(name, spec, loaded.folder, data_root=root))
             for name, spec in loaded.plan.datasets.items()}
 
 

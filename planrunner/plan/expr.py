@@ -1,6 +1,6 @@
-"""Row filters: the small expression language behind a dataset's ``keep:`` field.
+"""Row filters: the small expression language behind a dataset's ``rows_where:``, ``sets:`` and ``derive:``.
 
-A plan may say ``keep: "minutes_above_8c < 1440 and liner in ['foam', 'standard']"``. Plans come
+A plan may say ``rows_where: "minutes_above_8c < 1440 and liner in ['foam', 'standard']"``. Plans come
 from other people, so a filter must never be able to run code. That is why the text is read by the
 hand-written tokenizer and recursive-descent parser below, into a tree of the few node types this
 language has, and evaluated by walking that tree with numpy. Nothing here hands the text to the

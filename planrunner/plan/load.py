@@ -24,7 +24,7 @@ from planrunner.plan.designrules import check_resampling_design
 from planrunner.plan.expr import parse_expression
 from planrunner.plan.params import parameter_problems
 from planrunner.plan.problems import Problem, did_you_mean
-from planrunner.plan.schema import DATA_SUFFIXES, METHOD_MODELS, METHODS, RENAMED_VALUES, Dataset, Plan
+from planrunner.plan.schema import DATA_SUFFIXES, METHOD_MODELS, METHODS, RENAMED_KEYS, RENAMED_VALUES, Dataset, Plan
 from planrunner.plan.survrules import censoring_checks
 from planrunner.plan.yamlsafe import MAX_PLAN_BYTES, LoadedYaml, Path_, dotted, load_yaml
 
@@ -183,6 +183,10 @@ def _from_pydantic(err: Mapping[str, Any], data: Any) -> Problem:
     kind = err["type"]
     ctx = err.get("ctx") or {}
     if kind == "extra_forbidden":
+        new_key = RENAMED_KEYS.get((str(path[0]), str(path[-1]))) if path else None
+        if new_key is not None:
+            return Problem(path, f"'{path[-1]}' is now written '{new_key}'",
+                           f"rename the key to {new_key}: same expression, same meaning", at_key=True)
         model = _model_at(path[:-1], data)
         allowed = sorted(model.model_fields) if model else []
         analysis_models = list(METHOD_MODELS.values())
@@ -238,8 +242,10 @@ def cross_check(plan: Plan) -> list[Problem]:
         problems += _check_dataset_file(name, ds.file)
         problems += derived_problems(name, ds)
         problems += _check_sheet(name, ds)
-        if ds.keep is not None:
-            problems += _check_expression(("datasets", name, "keep"), ds.keep, dataset_columns(ds))
+        if ds.rows_where is not None:
+            problems += _check_expression(("datasets", name, "rows_where"), ds.rows_where, dataset_columns(ds))
+        for set_name, condition in ds.sets.items():
+            problems += _check_expression(("datasets", name, "sets", set_name), condition, dataset_columns(ds))
     seen: dict[str, int] = {}
     for i, a in enumerate(plan.analyses):
         at = ("analyses", i)
@@ -315,6 +321,10 @@ def _check_analysis(at: Path_, a: Any, plan: Plan) -> list[Problem]:
         return [Problem(at + ("data",), f"no dataset is named '{a.data}'",
                         did_you_mean(a.data, plan.datasets) or f"declared: {', '.join(plan.datasets)}")]
     cols = dataset_columns(ds)
+    if a.set is not None and a.set not in ds.sets:
+        out.append(Problem(at + ("set",), f"dataset '{a.data}' declares no set '{a.set}'",
+                           did_you_mean(a.set, ds.sets) or (f"declared: {', '.join(ds.sets)}" if ds.sets else
+                                                           f"declare it under datasets.{a.data}.sets")))
 
     def column(path: Path_, name: str, allowed: tuple[str, ...], role: str) -> bool:
         if name not in cols:

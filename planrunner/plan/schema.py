@@ -25,6 +25,7 @@ DATA_SUFFIXES = {".csv": "csv", ".tsv": "tsv", ".tab": "tsv", ".xpt": "xpt", ".j
                  ".parquet": "parquet", ".xlsx": "xlsx"}
 MultiplicityMethod = Literal["bonferroni", "holm", "hochberg", "benjamini-hochberg", "benjamini-yekutieli", "max-t"]
 # earlier spellings of plan values, refused with the new one named (never read silently)
+RENAMED_KEYS = {("datasets", "keep"): "rows_where"}  # (first and last key of the path) → new key
 RENAMED_VALUES = {("multiplicity", "method"): {"bh": "benjamini-hochberg", "by": "benjamini-yekutieli"}}
 
 
@@ -78,7 +79,10 @@ class Dataset(Strict):
     columns: Annotated[dict[ColumnName, Column], Field(min_length=1)]
     missing: Literal["refuse", "drop"] = "refuse"
     missing_values: list[str] = Field(default_factory=lambda: ["", "NA"])
-    keep: Annotated[str, Field(min_length=1)] | None = None
+    # a row filter: the rows every analysis of the dataset uses (others are excluded and counted)
+    rows_where: Annotated[str, Field(min_length=1)] | None = None
+    # analysis sets: named row selections (conditions) of the rows kept, chosen per analysis by `set`
+    sets: dict[Identifier, Annotated[str, Field(min_length=1)]] = Field(default_factory=dict)
     # header columns the plan does not declare: ignored (and listed in the record), or refused by a
     # plan that wants the file to hold exactly the declared columns
     undeclared_columns: Literal["ignore", "refuse"] = "ignore"
@@ -121,6 +125,7 @@ class AnalysisBase(Strict):
     predictor: ColumnName | None = None
     groups: Groups | None = None
     strata: ColumnName | None = None
+    set: Identifier | None = None  # one of the dataset's `sets`: the analysis uses only its rows
     # the design, declared once; each method derives its resampling scheme from it
     pairs: ColumnName | None = None  # rows sharing a value are one unit measured under each group
     clusters: ColumnName | None = None  # rows sharing a value are one randomised/sampled unit

@@ -26,6 +26,7 @@ from typing import Any
 
 from planrunner import __version__
 from planrunner.compile.jobs import Job
+from planrunner.data.sets import set_entries
 from planrunner.data.tables import Table
 from planrunner.engines.bootstrap import BootstrapOptions
 from planrunner.engines.maxt import MaxTResult
@@ -156,6 +157,7 @@ def analysis_entry(loaded: LoadedPlan, analysis: Analysis, job: Job, result: Res
         "role": analysis.role,
         "question": question(analysis, job.statistic.label, unit),
         "data": analysis.data,
+        **({"set": analysis.set} if analysis.set is not None else {}),
         "outcome": analysis.outcome,
         "predictor": analysis.predictor,
         "unit": unit,
@@ -214,7 +216,9 @@ def build_record(loaded: LoadedPlan, tables: dict[str, Table], jobs: list[Job], 
                                    for e in t.excluded],
                       # only a dataset that derives columns lists them: older records stay as they were
                       **({"derived": [{"name": n, "expression": x, "type": k} for n, x, k in t.derived]}
-                         if t.derived else {})} for t in tables.values()],
+                         if t.derived else {}),
+                      # only a dataset with analysis sets lists them (each set's rows and exclusions)
+                      **({"sets": set_entries(t)} if t.sets else {})} for t in tables.values()],
         "environment": environment() if facts.environment is None else facts.environment,
         "seed": {"root": plan.seed, "generator": GENERATOR, "derivation": SEED_DERIVATION,
                  "draw_block": DRAW_BLOCK},

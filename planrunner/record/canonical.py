@@ -41,7 +41,7 @@ def record_sha256(record: dict) -> str:
 
 @dataclass(frozen=True)
 class Difference:
-    path: str  # dotted path, e.g. "analyses[0].resamples" or "datasets.shipments.keep"
+    path: str  # dotted path, e.g. "analyses[0].resamples" or "datasets.shipments.rows_where"
     before: Any  # None with `missing_before` when the path did not exist
     after: Any
     missing_before: bool = False

@@ -54,7 +54,7 @@ _interval = _obj({"method": {"type": "string"},
                   "lower": _num, "upper": _num, "note": _str}, required=["method", "level", "lower", "upper"])
 _analysis = _obj({
     "id": {"type": "string"}, "title": _str, "role": {"type": "string"}, "question": {"type": "string"},
-    "data": {"type": "string"}, "outcome": {"type": "string"}, "unit": _str,
+    "data": {"type": "string"}, "set": {"type": "string"}, "outcome": {"type": "string"}, "unit": _str,
     "groups": {"type": ["object", "null"]}, "strata": _str,
     "method": {"enum": ["bootstrap", "permutation", "jackknife"]}, "scheme": {"type": "string"},
     "statistic": {"type": "string"}, "statistic_label": {"type": "string"},
@@ -112,6 +112,10 @@ def record_schema() -> dict[str, Any]:
                                                             "type": {"enum": ["number", "boolean"]}},
                                                            required=["name", "expression", "type"])},
                 "format": {"enum": ["csv", "tsv", "xpt", "dataset-json", "parquet", "xlsx"]},
+                "sets": {"type": "array", "items": _obj({
+                    "name": {"type": "string"}, "condition": {"type": "string"}, "rows": _int0,
+                    "excluded": _obj({"reason": {"type": "string"}, "rows": _int0,
+                                      "first_lines": {"type": "array", "items": _int0}})})},
                 "dictionary": {"type": "array", "items": _obj({
                     "column": {"type": "string"}, "label": _str, "display_format": _str,
                     "stored_as": {"type": "string"}})},
