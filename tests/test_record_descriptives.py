@@ -34,7 +34,7 @@ datasets:
       hours: {type: number}
       improved: {type: boolean}
     missing: drop
-    keep: "hours < 900"
+    rows_where: "hours < 900"
 analyses:
   - id: hours
     data: d
@@ -56,7 +56,7 @@ analyses:
 
 def write(write_plan, scale=1.0, shift=0.0):
     lines = ["clinic,arm,site,hours,improved"]
-    for clinic, arm, site, hours, improved in ROWS:  # 999 marks a failed reading, removed by the keep filter
+    for clinic, arm, site, hours, improved in ROWS:  # 999 marks a failed reading, removed by the rows_where filter
         value = hours if hours in ("", "NA") else repr(float(hours) * scale + shift)
         lines.append(",".join((clinic, arm, site, value, improved)))
     plan = PLAN.replace("hours < 900", f"hours < {900.0 * scale + shift!r}")
@@ -103,7 +103,7 @@ def test_missing_and_excluded_counts_add_up_to_the_datasets(record):
     assert (rows[("usual", "east")]["missing"], rows[("usual", "west")]["missing"]) == (1, 0)
     excluded = {e["reason"]: e["rows"] for e in record["datasets"][0]["excluded"]}
     assert sum(rows[(g, None)]["missing"] for g in ("new", "usual")) == excluded["missing value in 'hours'"]
-    assert sum(rows[(g, None)]["excluded"] for g in ("new", "usual")) == excluded["keep: hours < 900.0"]
+    assert sum(rows[(g, None)]["excluded"] for g in ("new", "usual")) == excluded["rows_where: hours < 900.0"]
 
 
 def test_a_binary_outcome_gets_events_and_proportion(record):

@@ -90,6 +90,9 @@ def test_the_record_lists_each_sets_rows_and_exclusions(tmp_path: Path):
     assert pp["condition"] == PER_PROTOCOL and pp["rows"] == 8
     # patients 2, 3, 8, 10 leave the per-protocol set: file lines 3, 4, 9, 11
     assert pp["excluded"] == {"reason": f"not ({PER_PROTOCOL})", "rows": 4, "first_lines": [3, 4, 9, 11]}
+    # the analysis's descriptive table counts the set's rows and, per group, the rows the set left out
+    table = {row["group"]: row for row in record["analyses"][0]["descriptives"]["rows"]}
+    assert (table["new"]["n"], table["new"]["excluded"], table["old"]["n"], table["old"]["excluded"]) == (4, 2, 4, 2)
 
 
 def test_a_sets_condition_with_no_value_names_the_lines(tmp_path: Path):

@@ -13,7 +13,7 @@ from dataclasses import dataclass, replace
 
 import numpy as np
 
-from planrunner.data.tables import SHOW_LINES, Exclusion, Table
+from planrunner.data.tables import SHOW_LINES, Dropped, Exclusion, Table, group_value
 from planrunner.errors import DataError, ExpressionError
 from planrunner.plan.expr import parse_expression
 from planrunner.plan.schema import Dataset
@@ -54,8 +54,12 @@ def select(table: Table, set_name: str | None) -> Table:
     if out.any():
         excluded += (Exclusion(f"set {set_name}: not ({chosen.condition})", int(out.sum()),
                                tuple(int(n) for n in table.lines[out][:SHOW_LINES])),)
+    # the rows the set leaves out count as excluded (not missing) in the analysis's descriptive table
+    labels = {c: np.concatenate([v, np.array([group_value(x) for x in table.columns[c][out]], dtype=object)])
+              for c, v in table.dropped.labels.items() if c in table.columns}
+    dropped = Dropped(np.concatenate([table.dropped.missing, np.zeros(int(out.sum()), dtype=bool)]), labels)
     return replace(table, columns={c: v[chosen.rows] for c, v in table.columns.items()},
-                   lines=table.lines[chosen.rows], excluded=excluded)
+                   lines=table.lines[chosen.rows], excluded=excluded, dropped=dropped)
 
 
 def set_entries(table: Table) -> list[dict]:

@@ -26,7 +26,7 @@ from typing import Any
 
 from planrunner import __version__
 from planrunner.compile.jobs import Job
-from planrunner.data.sets import set_entries
+from planrunner.data.sets import select, set_entries
 from planrunner.data.tables import Table
 from planrunner.engines.bootstrap import BootstrapOptions
 from planrunner.engines.maxt import MaxTResult
@@ -224,7 +224,7 @@ def build_record(loaded: LoadedPlan, tables: dict[str, Table], jobs: list[Job], 
                  "draw_block": DRAW_BLOCK},
         "analyses": [{**analysis_entry(loaded, a, j, r, f, families),
                       # the descriptive table, from the dataset as read (record/describe.py)
-                      "descriptives": descriptives(a, plan.datasets[a.data], tables[a.data])}
+                      "descriptives": descriptives(a, plan.datasets[a.data], select(tables[a.data], a.set))}
                      for a, j, r, f in zip(plan.analyses, jobs, results, fields)],
         "multiplicity": [family.entry for family in families],
         "report": {"note": plan.report.note, "bins": plan.report.bins},

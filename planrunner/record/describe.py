@@ -4,7 +4,7 @@ Per group (and per stratum within a group, when the analysis has strata) and per
 outcome, then the predictor and covariates when the analysis has them): the rows used, the clusters
 (with a cluster design), mean, s.d. (divisor n − 1), median, quartiles, minimum and maximum; for a
 0/1 variable also the events and their proportion; and, from the rows read but not kept, how many
-of the group's rows had a missing value and how many the keep filter excluded. Computed once, from
+of the group's rows had a missing value and how many the rows_where filter excluded. Computed once, from
 the dataset as read, when the record is built; the reports only show it.
 """
 
@@ -54,7 +54,7 @@ def _summary(values: np.ndarray, clusters: np.ndarray | None, binary: bool) -> d
 
 def _dropped_counts(table: Table, by: dict[str, str | None]) -> dict[str, int | None]:
     """Rows of this cell (``by``: column -> label) that were read but not kept: with a missing value,
-    and excluded by the keep filter. None when a column's labels of dropped rows are not known."""
+    and excluded by the rows_where filter. None when a column's labels of dropped rows are not known."""
     dropped = table.dropped
     mask = np.ones(dropped.missing.size, dtype=bool)
     for column, label in by.items():
