@@ -460,3 +460,20 @@ analyses:
     assert km["censoring"] == "left" and km["flipped_at"] == largest
     values = [p[0] for p in km["groups"][0]["points"]]
     assert values == sorted(values) and values[-1] == largest and km["groups"][0]["points"][-1][1] == 1.0
+
+
+def test_shifting_times_shifts_quantiles_and_keeps_the_logrank() -> None:
+    # the curve depends on the order of the times only: a quantile moves with a shift, the log-rank
+    # statistic does not move (shifts by powers of two keep every time exact)
+    rng = np.random.default_rng(17)
+    x, y = random_censored(rng, 25), random_censored(rng, 25)
+    zero = np.zeros((25, 1))
+    for c in (0.5, 1024.0, 2.0 ** 40):
+        xs, ys = x + [c, 0], y + [c, 0]
+        assert value("km_median", xs) == value("km_median", x) + c
+        assert value("km_quantile", xs, parameter=0.25) == value("km_quantile", x, parameter=0.25) + c
+        assert value("logrank", np.hstack([xs, zero]), np.hstack([ys, zero])) == value(
+            "logrank", np.hstack([x, zero]), np.hstack([y, zero]))
+    # integer times at the edge of exact doubles (2^53) keep their order and their median
+    edge = np.column_stack([2.0 ** 53 - np.arange(10.0)[::-1] * 2, np.ones(10)])
+    assert value("km_median", edge) == 2.0 ** 53 - 10

@@ -892,7 +892,10 @@ def _bca_constants(data: tuple[np.ndarray, ...], statistic: Statistic, lay: sche
     else:
         if any(a.shape[0] < 2 for a in data):
             return z0, None, "a group has a single observation, so the jackknife acceleration is undefined"
-        replicates = jackknife_replicates(data, statistic, batch_elements=batch_elements)
+        try:
+            replicates = jackknife_replicates(data, statistic, batch_elements=batch_elements)
+        except EngineError as exc:  # e.g. a Kaplan–Meier median no longer reached when a row is deleted
+            return z0, None, f"the jackknife acceleration is undefined: {exc.message}"
         # each independently resampled cell is one sample of E&T eq. 15.36
         per_cell = [replicates[g][members] for g, members in lay.cells]
     acceleration = bca_acceleration(per_cell)
