@@ -178,6 +178,22 @@ def check_page(browser, page: Path, artefact: str) -> dict:
     return {"pictures": pictures}
 
 
+def test_index_page_loads_cleanly_and_fits(browser, tmp_path):
+    import shutil
+
+    from planrunner.cli.main import main
+
+    folder = tmp_path / "monthly-fill"
+    shutil.copytree(ROOT / "plans" / "monthly-fill", folder, ignore=shutil.ignore_patterns("runs"))
+    for month in ("2026-10", "2026-11"):
+        assert main(["run", str(folder / "plan.yaml"), "--quiet", "--param", f"month={month}",
+                     "--reason", f"<i>{month}</i> extract"]) == 0
+    facts = check_page(browser, folder / "runs" / "index.html", "index-demo.png")
+    assert len(facts["pictures"]) == 2  # one per analysis, each drawn
+    assert browser.evaluate("document.querySelectorAll('#runs tbody tr').length") == 2
+    assert "<i>2026-10</i> extract" in browser.evaluate("document.body.textContent")
+
+
 def test_comparison_page_loads_cleanly_and_fits(demo, browser, tmp_path):
     from planrunner.report import compare
 

@@ -60,6 +60,9 @@ def _add_audit_verbs(verbs: Any) -> None:
                               "appending their entry (they wait in the run folder)")
     history.add_argument("--signers", metavar="FILE",
                          help="the trusted signers (default: signers.yaml beside the runs folder or the plan)")
+    history.add_argument("--html", metavar="FILE",
+                         help="also write the index of the runs (every run, each analysis across runs) as a page")
+    history.add_argument("--markdown", metavar="FILE", help="also write the index of the runs as Markdown")
 
     compare = verbs.add_parser("compare", help="put two records side by side")
     compare.add_argument("record_a", help="the earlier record (record.json or run folder)")
@@ -107,6 +110,10 @@ def audit_summary(outcome: Any) -> str:
                      "after writing its folder and before appending its entry")
     if entry is not None:
         lines.append(f"run history: entry {entry['seq']} appended to {outcome.folder.parent / 'history.jsonl'}")
+    if getattr(outcome, "index", None) is not None:
+        lines.append(f"index of the runs: {outcome.index}")
+    if getattr(outcome, "index_problem", None):
+        lines.append(f"index of the runs NOT updated: {outcome.index_problem}")
     if getattr(outcome, "signed", False):
         lines.append("signed as executed: the record (signature file in the run folder)"
                      + (" and its history entry" if entry is not None else ""))
@@ -250,6 +257,13 @@ def _history(args: argparse.Namespace) -> int:
           else f"history chain: BROKEN ({len(report.problems)} problem(s))")
     for line in signature_lines(signatures):
         print(line)
+    if args.html or args.markdown:
+        from planrunner.audit.verbs import write_report
+        from planrunner.trail.index import render_index_of
+        for target, kind, what in ((args.html, "html", "HTML"), (args.markdown, "md", "Markdown")):
+            if target:
+                print(f"index of the runs ({what}) written to "
+                      f"{write_report(target, render_index_of(report.log.parent, kind))}")
     return EXIT_OK if not report.problems and signatures.passed else EXIT_DIFFERS
 
 

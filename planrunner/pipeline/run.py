@@ -23,7 +23,7 @@ from planrunner.data.checks import check_tables
 from planrunner.data.sets import evaluate_sets
 from planrunner.data.tables import Table, read_table, resolve_data_path
 from planrunner.engines.maxt import MaxTResult
-from planrunner.errors import OutputError
+from planrunner.errors import OutputError, PlanrunnerError
 from planrunner.execute.executors import Execution, Progress, execute_all
 from planrunner.execute.families import max_t_families, planned_family_computations
 from planrunner.execute.permutation import planned_computation
@@ -73,6 +73,8 @@ class RunOutcome:
     history_entry: dict | None = None
     signed: bool = False  # the record and its history entry carry the 'executed' signature
     recovered: tuple[dict, ...] = ()  # entries of earlier runs, killed before logging, appended first
+    index: Path | None = None  # the index page beside the run folders, rewritten after the run
+    index_problem: str | None = None  # why it could not be rewritten (the run itself is complete)
 
 
 def available_memory() -> int | None:
@@ -237,5 +239,20 @@ def write_run(out_root: Path, name: str, record: dict, extra: dict[str, str] | N
                                   f"{exc.strerror or exc}", where=str(out_root / HISTORY_FILE),
                                   hint=f"the entry waits in the run folder; 'planrunner history {out_root} --repair' "
                                        "or the next run there appends it") from None
-            return done(folder, entry, log.recovered)
+            outcome = done(folder, entry, log.recovered)
+            # still under the log's lock: two runs finishing together rewrite the index one after the other
+            return _with_index(outcome, out_root)
+
+
+def _with_index(outcome: RunOutcome, out_root: Path) -> RunOutcome:
+    """The outcome with the index page rewritten (trail/index.py); a failure to write it is told, not
+    raised: the run folder and its history entry are complete, and the next run writes the page."""
+    from planrunner.trail.index import refresh_index
+
+    try:
+        return replace(outcome, index=refresh_index(out_root))
+    except PlanrunnerError as exc:
+        return replace(outcome, index_problem=str(exc))
+    except OSError as exc:
+        return replace(outcome, index_problem=f"{out_root / HISTORY_FILE}: cannot read the run history: {exc}")
 

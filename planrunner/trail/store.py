@@ -3,7 +3,10 @@
 Every file planrunner leaves behind is created new: a run folder, a lock, a comparison or
 self-check report. Each is written in full beside its target, flushed to disk and only then put in
 place, so a name that exists always holds a complete file or folder, and a name that is taken is
-never written over. The history log is the one file appended to (`trail.files`).
+never written over. The history log is the one file appended to (`trail.files`), and the index
+page beside the run folders (`trail.index`) the one file replaced, by `replace_file`: it is a view
+of the log and the records, rewritten after each run, and the new page is written in full beside
+it and renamed over it, so that a reader sees the old page or the new one, never a part.
 
 Every JSON file planrunner reads back (a record, a lock, a self-check report) is read by
 `read_json`, whose errors say the file, the line and column, what is wrong and what to do.
@@ -51,6 +54,23 @@ def write_new_file(target: str | Path, text: str | bytes, *, what: str = "file",
                           hint="choose another place, or free space") from None
     finally:
         staging.unlink(missing_ok=True)
+    return target
+
+
+def replace_file(target: Path, text: str, *, what: str) -> Path:
+    """Write ``target`` anew, whether or not it exists: the text goes to a hidden file beside it,
+    is flushed to disk, and is renamed over it (atomic on POSIX and Windows). Only the index page is
+    written this way (see the module's docstring); every other file is created new."""
+    staging = target.with_name(f".{target.name}.{secrets.token_hex(4)}.tmp")
+    try:
+        write_synced(staging, text)
+        os.replace(staging, target)
+    except OSError as exc:
+        raise OutputError(f"cannot write the {what}: {exc.strerror or exc}", where=str(target),
+                          hint="free space or check the folder's permissions; the runs themselves are kept") from None
+    finally:
+        staging.unlink(missing_ok=True)
+    sync_folder(target.parent)
     return target
 
 
