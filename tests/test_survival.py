@@ -477,3 +477,31 @@ def test_shifting_times_shifts_quantiles_and_keeps_the_logrank() -> None:
     # integer times at the edge of exact doubles (2^53) keep their order and their median
     edge = np.column_stack([2.0 ** 53 - np.arange(10.0)[::-1] * 2, np.ones(10)])
     assert value("km_median", edge) == 2.0 ** 53 - 10
+
+
+def test_undefined_jackknife_makes_bca_undefined_not_an_error() -> None:
+    import dataclasses
+
+    # a statistic finite on every resample of n rows but not on n − 1 rows: the BCa acceleration
+    # cannot be formed, which is a note on the BCa interval, never a failed analysis
+    def only_full(x: np.ndarray) -> np.ndarray:
+        return np.mean(x, axis=-1) if x.shape[-1] == 12 else np.full(x.shape[:-1], np.inf)
+
+    statistic = dataclasses.replace(get_statistic("mean"), compute=only_full, form=None, se=None)
+    x = np.random.default_rng(3).normal(size=12)
+    result = bootstrap([x], statistic, BootstrapOptions(resamples=200, confidence=0.9,
+                                                         intervals=("percentile", "bca")),
+                       stream=stream_for(2, "bca"))
+    percentile, bca = result.intervals
+    assert percentile.lower is not None and bca.lower is None
+    assert any(w.code == "bca-undefined" and "jackknife acceleration is undefined" in w.message
+               for w in result.warnings)
+
+
+def test_permutation_refusal_of_a_censored_statistic_points_to_logrank() -> None:
+    x = sample([1, 2, 3, 4, 5, 6], [1, 1, 1, 1, 1, 1])
+    y = sample([1, 2, 3, 4, 9, 9, 9, 9], [1, 1, 1, 1, 0, 0, 0, 0])  # median 4, reached exactly at S = 1/2
+    with pytest.raises(EngineError) as caught:
+        permutation_test([x, y], get_statistic("km_median_difference"),
+                         PermutationOptions(resamples=999, alternative="two-sided"), stream=stream_for(1, "p"))
+    assert "not reached" in caught.value.message and "logrank" in (caught.value.hint or "")

@@ -78,6 +78,8 @@ TRACE: dict[str, tuple[str, ...]] = {
         "tests/test_survival.py::test_plan_runs_end_to_end",
         "tests/test_survival.py::test_record_holds_the_curves_and_the_report_draws_them",
         "tests/test_survival.py::test_left_censored_plan_reports_on_the_concentration_scale",
+        "tests/test_survival.py::test_shifting_times_shifts_quantiles_and_keeps_the_logrank",
+        "tests/test_survival.py::test_permutation_refusal_of_a_censored_statistic_points_to_logrank",
         "tests/test_bad_inputs.py::test_bad_input_gives_one_clear_message"),
     "One-sided bootstrap bounds": (
         "tests/test_bootstrap_bounds.py::test_percentile_and_basic_bounds_equal_scipy_on_the_same_replicates",

@@ -147,9 +147,13 @@ def check_null(null: np.ndarray, statistic: Statistic, space: str = "arrangement
     would count values that mean nothing."""
     bad = np.isnan(null) | ((null == np.inf) & (statistic.name not in INFINITE_ALLOWED)) | (null == -np.inf)
     if bad.any():
+        censored = statistic.outcome == "censored"
         raise EngineError(
-            f"the statistic {statistic.name!r} is not finite for {int(bad.sum())} {space}",
-            hint="the permutation test cannot be used with this statistic on these data")
+            f"the statistic {statistic.name!r} is not finite for {int(bad.sum())} {space}"
+            + (" (a Kaplan–Meier quantile not reached, or a curve read beyond a group's follow-up)"
+               if censored else ""),
+            hint="use logrank for a test of censored outcomes" if censored else
+            "the permutation test cannot be used with this statistic on these data")
 
 
 def all_ties(null: np.ndarray, observed: float, tolerance: float) -> bool:
