@@ -185,6 +185,7 @@ def test_null_value_from_a_plan_reaches_record_and_reports(tmp_path: Path) -> No
     for text in (md, html):
         assert "two-sided, mean ≠ 2 (null value)" in text and "one-sided, mean &lt; 4.5 (null value)" in text
         assert "by inverting the BCa bounds" in text
+        assert "dotted grey line marks the null value of the p-value (4.5)" in text  # the picture's text
     import jsonschema
 
     from planrunner.record.schemas import record_schema

@@ -276,6 +276,17 @@ def _reference_lines(ax: Any, entry: dict[str, Any], shape: Shape, fmt: Formatte
             said.append(f"a thin grey line marks no effect ({fmt(none_value)})")
         else:
             said.append(f"no effect ({fmt(none_value)}) lies outside the drawn range")
+    # a bootstrap's stated null value (its p-value's), when it is not the value of no effect already drawn
+    given = _finite(((entry.get("details") or {}).get("null_test") or {}).get("null_value"))
+    if given and given[0] != none_value:
+        stated = given[0]
+        if lo - width <= stated <= hi + width:
+            ax.axvline(stated, color=NULL_LINE, linewidth=1.0, linestyle=(0, (1, 2)),
+                       label=f"null value {fmt(stated)}")
+            drawn.append(stated)
+            said.append(f"a dotted grey line marks the null value of the p-value ({fmt(stated)})")
+        else:
+            said.append(f"the null value of the p-value ({fmt(stated)}) lies outside the drawn range")
     groups: dict[str, list[float]] = {}
     for label, value in decision_marks(entry):
         groups.setdefault(label, []).append(value)
