@@ -227,3 +227,22 @@ def test_bounds_from_a_plan_reach_record_and_reports(tmp_path: Path) -> None:
     from planrunner.record.schemas import record_schema
 
     jsonschema.validate(record, record_schema())
+
+
+def test_not_estimable_resamples_keep_the_side_of_a_bound() -> None:
+    # V-GEHAN: remission times in weeks (Freireich et al. 1963; as analysed by Gehan 1965), 6-MP and
+    # placebo; the 6-MP median is not reached in some resamples (+inf), sorted beyond every finite one
+    mp = np.column_stack([[6, 6, 6, 6, 7, 9, 10, 10, 11, 13, 16, 17, 19, 20, 22, 23, 25, 32, 32, 34, 35],
+                          [1, 1, 1, 0, 1, 0, 1, 0, 0, 1, 1, 0, 0, 0, 1, 1, 0, 0, 0, 0, 0]]).astype(float)
+    placebo = np.column_stack([[1, 1, 2, 2, 3, 4, 4, 5, 5, 8, 8, 8, 8, 11, 11, 12, 12, 15, 17, 22, 23],
+                               [1] * 21]).astype(float)
+    stat = get_statistic("km_median_difference")
+    options = BootstrapOptions(resamples=1000, confidence=0.95, intervals=("percentile",), alternative="greater",
+                               on_degenerate="percentile", null_value=0.0)
+    r = bootstrap((mp, placebo), stat, options, stream=stream_for(2026, "km-bound"))
+    assert "not_estimable" in r.details
+    (bound,) = r.intervals
+    ordered = np.sort(r.distribution)
+    # the lower bound reads rank ⌈0.05·1000⌉ = 50 only; the open upper end does not care about +inf
+    assert bound.side == "lower" and bound.upper == math.inf and bound.lower == ordered[49]
+    assert r.null_test is not None and r.null_test.p_value is None and "not estimable" in (r.null_test.note or "")
