@@ -12,11 +12,13 @@ from typing import Any
 import numpy as np
 
 from planrunner.compile import design
+from planrunner.compile.modeljobs import model_design, model_options
 from planrunner.data.formats import TEXT_FORMATS, in_rows
 from planrunner.data.sets import select
 from planrunner.data.tables import Table
 from planrunner.engines.bootstrap import BootstrapOptions
 from planrunner.engines.jackknife import JackknifeOptions
+from planrunner.engines.modelboot import ModelBootstrapOptions
 from planrunner.engines.permcore import PermutationOptions
 from planrunner.engines.statistics import Statistic, bind, get_statistic
 from planrunner.engines.streams import Stream, stream_for
@@ -25,7 +27,7 @@ from planrunner.engines.teststats import K_GROUP
 from planrunner.errors import DataError
 from planrunner.plan.schema import Analysis, BootstrapAnalysis, Defaults, PermutationAnalysis, Plan
 
-Options = BootstrapOptions | JackknifeOptions | PermutationOptions
+Options = BootstrapOptions | JackknifeOptions | PermutationOptions | ModelBootstrapOptions
 
 
 @dataclass(frozen=True)
@@ -162,11 +164,18 @@ def compile_job(plan: Plan, analysis: Analysis, table: Table) -> Job:
         values, statistic, censoring = censored_values(analysis, table, values, masks, statistic, codes)
     samples = tuple(values[m] for m in masks)
     permutation_design: dict[str, Any] = {}
-    if analysis.method == "permutation":  # the bootstrap's design is the fields above
+    options = _options(plan, analysis)
+    if statistic.form == "model" and isinstance(analysis, BootstrapAnalysis):
+        # a model statistic reads a design matrix, not the samples (those give the record's counts)
+        permutation_design = {"model": model_design(plan, analysis, table, masks)}
+        if clusters is not None:
+            permutation_design["clusters"], clusters = clusters, None
+        options = model_options(analysis, plan.defaults)
+    elif analysis.method == "permutation":  # the bootstrap's design is the fields above
         samples, permutation_design = compile_design(analysis, table, masks, samples)
     return Job(analysis_id=analysis.id, method=analysis.method, statistic=statistic, samples=samples,
                strata=strata, group_labels=labels, strata_labels=strata_labels,
-               options=_options(plan, analysis), stream=stream_for(plan.seed, analysis.id),
+               options=options, stream=stream_for(plan.seed, analysis.id),
                clusters=clusters, paired=paired, warnings=warnings, design=permutation_design,
                censoring=censoring)
 

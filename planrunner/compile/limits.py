@@ -24,6 +24,7 @@ from collections.abc import Iterable
 from typing import Any
 
 from planrunner.engines.bootstrap import BootstrapOptions
+from planrunner.engines.modelboot import ModelBootstrapOptions
 from planrunner.engines.permcore import ENUMERATION_LIMIT, PermutationOptions  # the engines' own limit
 from planrunner.errors import DataError
 
@@ -80,7 +81,7 @@ def draws_kept(job: Any) -> int:
     """How many values the analysis's distribution holds (at most: an exact null may be shorter)."""
     if job.method == "jackknife":
         return sum(int(s.shape[0]) for s in job.samples)
-    if isinstance(job.options, BootstrapOptions):
+    if isinstance(job.options, (BootstrapOptions, ModelBootstrapOptions)):
         return job.options.resamples
     if isinstance(job.options, PermutationOptions):
         resamples, exact = job.options.resamples, job.options.exact

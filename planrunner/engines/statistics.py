@@ -29,6 +29,7 @@ from planrunner.engines.lazy import rankdata
 from planrunner.errors import EngineError
 
 __all__ = [
+    "MODEL_STATISTICS",
     "PARAMETERS",
     "RATIOS",
     "comparison_word",
@@ -69,7 +70,7 @@ class Statistic:
     def __post_init__(self) -> None:
         if self.outcome not in ("numeric", "binary", "censored"):
             raise ValueError(f"outcome must be 'numeric', 'binary' or 'censored', got {self.outcome!r}")
-        if self.form not in (None, "mean", "median", "quantile", "survival"):
+        if self.form not in (None, "mean", "median", "quantile", "survival", "model"):
             raise ValueError(f"unknown form {self.form!r}")
         if self.samples < 0 or self.columns < 1:
             raise ValueError("samples must be >= 0 (0: two or more groups) and columns >= 1")
@@ -318,8 +319,28 @@ register(Statistic("risk_ratio", "risk ratio", 2, True, "binary", _ratio_of_mean
 register(Statistic("odds_ratio", "odds ratio", 2, True, "binary", _odds_ratio))
 register(Statistic("hodges_lehmann", "Hodges–Lehmann shift", 2, False, "numeric", _hodges_lehmann))
 
+
+
+def _model_only(*_: np.ndarray) -> np.ndarray:
+    raise EngineError("a model statistic is computed from its design matrix by the model engine",
+                      hint="use method: bootstrap (engines/modelboot.py)")
+
+
+# Model statistics (form "model"): a coefficient of a fitted regression, or its standardised
+# predictions; computed from a design matrix by `engines.models` / `engines.modelboot`, never by
+# reducing samples, so `compute` refuses.
+for _name, _label, _samples, _outcome, _columns in (
+        ("adjusted_mean_difference", "covariate-adjusted difference in means (least squares)", 2, "numeric", 1),
+        ("standardized_risk_difference", "standardised risk difference (logistic g-computation)", 2, "binary", 1),
+        ("standardized_risk_ratio", "standardised risk ratio (logistic g-computation)", 2, "binary", 1),
+        ("standardized_odds_ratio", "standardised odds ratio (logistic g-computation)", 2, "binary", 1),
+        ("coefficient", "regression coefficient of the predictor, adjusted for covariates", 1, "numeric", 2)):
+    register(Statistic(_name, _label, _samples, True, _outcome, _model_only, columns=_columns, form="model"))
+MODEL_STATISTICS = frozenset(name for name, s in STATISTICS.items() if s.form == "model")
+
 # two-group statistics that compare by a quotient (first over second), not a difference
-RATIOS = frozenset({"ratio_of_means", "risk_ratio", "odds_ratio", "rmst_ratio"})
+RATIOS = frozenset({"ratio_of_means", "risk_ratio", "odds_ratio", "rmst_ratio", "standardized_risk_ratio",
+                    "standardized_odds_ratio"})
 
 
 def comparison_word(name: str) -> str:

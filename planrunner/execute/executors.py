@@ -27,6 +27,7 @@ from planrunner.compile.jobs import Job
 from planrunner.engines.blocks import RangeTask, mapping_ranges, resample_ranges
 from planrunner.engines.bootstrap import BootstrapOptions, bootstrap
 from planrunner.engines.jackknife import JackknifeOptions, jackknife
+from planrunner.engines.modelboot import ModelBootstrapOptions, model_bootstrap
 from planrunner.engines.permcore import PermutationOptions
 from planrunner.engines.results import BootstrapResult, JackknifeResult, PermutationResult
 from planrunner.engines.statistics import STATISTICS, Statistic, bind, get_statistic
@@ -119,6 +120,9 @@ def execute(job: Job) -> EngineResult:
 
 
 def _run_engine(job: Job) -> EngineResult:
+    if isinstance(job.options, ModelBootstrapOptions):
+        return model_bootstrap(job.design["model"], job.statistic.name, job.options, stream=job.stream,
+                               what=f"analysis '{job.analysis_id}'")
     if isinstance(job.options, BootstrapOptions):
         return bootstrap(job.samples, job.statistic, job.options, stream=job.stream, strata=job.strata,
                          clusters=job.clusters, paired=job.paired)
@@ -131,7 +135,7 @@ def _run_engine(job: Job) -> EngineResult:
 
 def job_resamples(job: Job) -> int:
     """The resamples a job draws (its share of the progress total); the jackknife draws none."""
-    if isinstance(job.options, (BootstrapOptions, PermutationOptions)):
+    if isinstance(job.options, (BootstrapOptions, PermutationOptions, ModelBootstrapOptions)):
         return job.options.resamples
     return 0
 

@@ -22,6 +22,7 @@ from planrunner.plan import permrules as permcheck
 from planrunner.plan.derived import dataset_columns, derived_problems
 from planrunner.plan.designrules import check_resampling_design
 from planrunner.plan.expr import parse_expression
+from planrunner.plan.modelrules import model_checks
 from planrunner.plan.params import parameter_problems
 from planrunner.plan.problems import Problem, did_you_mean
 from planrunner.plan.schema import DATA_SUFFIXES, METHOD_MODELS, METHODS, RENAMED_KEYS, RENAMED_VALUES, Dataset, Plan
@@ -368,9 +369,10 @@ def _check_analysis(at: Path_, a: Any, plan: Plan) -> list[Problem]:
             if key not in SUPPORTED_DESIGNS[a.method]:
                 out.append(Problem(at + (key,), f"{key} are not yet supported with method {a.method}",
                                    "remove the key, or choose a method that supports this design"))
+    model = statistic is not None and statistic.form == "model"
     for k, name in enumerate(a.covariates or []):
-        column(at + ("covariates", k), name, NUMERIC_TYPES, "a covariate")
-    if a.covariates is not None and "covariates" not in SUPPORTED_DESIGNS[a.method]:
+        column(at + ("covariates", k), name, NUMERIC_TYPES + (("category",) if model else ()), "a covariate")
+    if a.covariates is not None and "covariates" not in SUPPORTED_DESIGNS[a.method] and not model:
         out.append(Problem(at + ("covariates",), f"covariates are not yet supported with method {a.method}",
                            "remove the key, or choose a method that supports this design"))
     if statistic is not None and a.groups is not None and statistic.samples == 2 and len(a.groups.compare) != 2:
@@ -405,7 +407,9 @@ def _check_analysis(at: Path_, a: Any, plan: Plan) -> list[Problem]:
         if statistic.outcome == "binary" and a.outcome in cols and cols[a.outcome].type not in ("boolean", "integer"):
             out.append(Problem(at + ("outcome",), f"'{a.statistic}' needs a 0/1 or true/false outcome",
                                "declare the outcome as boolean, or as integer holding 0 and 1"))
-        out += check_resampling_design(at, a, statistic)
+        out += model_checks(at, a, statistic)
+        if not model:
+            out += check_resampling_design(at, a, statistic)
         if statistic.samples == 0 and a.groups is None:
             out.append(Problem(at + ("statistic",), f"'{a.statistic}' compares two or more groups but the analysis "
                                "has no groups", "add groups: {by: COLUMN, compare: [FIRST, SECOND, ...]}"))

@@ -172,6 +172,12 @@ class BootstrapAnalysis(AnalysisBase):
     # a stated null value of the statistic: the record gets its p-value, by inverting the first
     # listed interval's one-sided bounds (consistent with `alternative`)
     null_value: Annotated[float, Field(allow_inf_nan=False)] | None = None
+    # model statistics only (engines/modelboot.py): how the model's data are resampled, the wild
+    # weights, whether the null is imposed (a p-value), and which regression `coefficient` reads
+    model_resampling: Literal["cases", "residual", "wild", "wild-cluster"] | None = None
+    weights: Literal["rademacher", "mammen"] | None = None
+    impose_null: bool | None = None
+    model: Literal["linear", "logistic"] | None = None
 
     @model_validator(mode="after")
     def _unique_intervals(self) -> BootstrapAnalysis:

@@ -21,7 +21,7 @@ import math
 import platform
 import sys
 from collections.abc import Callable
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import Any
 
 from planrunner import __version__
@@ -30,6 +30,7 @@ from planrunner.data.sets import select, set_entries
 from planrunner.data.tables import Table
 from planrunner.engines.bootstrap import BootstrapOptions
 from planrunner.engines.maxt import MaxTResult
+from planrunner.engines.modelboot import ModelBootstrapResult
 from planrunner.engines.results import BootstrapResult, JackknifeResult, PermutationResult
 from planrunner.engines.statistics import comparison_word
 from planrunner.engines.streams import DRAW_BLOCK, GENERATOR
@@ -117,6 +118,9 @@ def question(analysis: Analysis, statistic_label: str, unit: str | None) -> str:
 ADAPTERS: dict[type, Callable[[Any, Job, int], MethodFields]] = {
     BootstrapResult: lambda result, job, bins: bootstrap_fields(
         result, bins, save_distribution=isinstance(job.options, BootstrapOptions) and job.options.save_distribution),
+    ModelBootstrapResult: lambda result, job, bins: replace(
+        bootstrap_fields(result, bins, save_distribution=getattr(job.options, "save_distribution", False)),
+        p_value=result.p_value),
     JackknifeResult: lambda result, job, bins: jackknife_fields(result, bins),
     PermutationResult: lambda result, job, bins: permutation_fields(result, bins),
 }

@@ -1,0 +1,505 @@
+"""The bootstrap of a model statistic: cases, residual, wild and wild cluster resampling.
+
+Schemes (``model_resampling``; formulas in :mod:`planrunner.engines.models`):
+
+* ``cases``: whole rows (with clusters: whole clusters) drawn with replacement within each group ×
+  stratum cell, the model refitted on each resample. Least squares: the normal equations of a
+  resample are Σ c_i x_i x_iᵀ and Σ c_i x_i y_i with c_i the times row i is drawn, solved for a whole
+  batch at once. Logistic regression: batched Newton steps from the full-data fit (at most
+  ``NEWTON_STEPS``); a resample that does not converge, or shows separation, gives a non-finite
+  replicate, reported as such.
+* ``residual`` (least squares only): y* = Xβ̂ + e*, e* drawn with replacement from the residuals
+  rescaled by √(n/(n − p)) (Davison & Hinkley 1997, §6.2.3), so that E*[var] = s²(XᵀX)⁻¹.
+* ``wild`` (least squares only): y* = Xβ̂ + e_i·v_i with independent weights v of mean 0 and
+  variance 1: Rademacher (±1, each with probability 1/2) or Mammen's two-point weights
+  (−(√5 − 1)/2 with probability (√5 + 1)/(2√5), else (√5 + 1)/2). Its variance of a coefficient is
+  the HC0 variance exactly in expectation: var*(aᵀ(e∘v)) = Σ a_i²e_i².
+* ``wild-cluster``: one weight per cluster, shared by its rows (Cameron, Gelbach & Miller 2008,
+  REStat 90(3)). With Rademacher weights and at most ``ENUMERATE_CLUSTERS`` clusters the 2^G sign
+  vectors are enumerated exactly (each with weight 2^−G) instead of drawn.
+
+With ``impose_null`` (wild and wild cluster) the data are generated from the fit without the target
+column (the null of a zero coefficient), y* = X₀β̃ + ẽ∘v, and the p-value is the share of
+|t*| ≥ |t|, t = θ̂/ŝe and t* = θ*/se* with the robust standard errors below (CGM 2008's wild
+cluster bootstrap-t with the null imposed); Monte Carlo p = (1 + count)/(B + 1), enumerated p =
+count/2^G.
+
+Standard errors of a resample (studentized intervals, p-values), the same formula for the data's
+ŝe: residual: classical s·√((XᵀX)⁻¹_jj); wild and cases: HC1; wild cluster and cases with clusters:
+cluster-robust (CR1).
+
+Speed: no Python loop per resample. Resamples are computed in chunks of ``CHUNK`` consecutive
+resamples (chunk k holds resamples kC … kC + C − 1, whatever range a worker was given), each chunk
+by a few matrix products of fixed shape, so every resample's number is the same whatever the
+executor or the range split (a worker whose range starts inside a chunk computes the whole chunk
+and keeps its part). Draws come from the analysis stream through ``UniformRows`` (row r of resample r).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, fields, replace
+from typing import Any
+
+import numpy as np
+
+from planrunner.engines.blocks import bind as range_task
+from planrunner.engines.blocks import map_resamples
+from planrunner.engines.bootstrap import (
+    TIE_TOLERANCE,
+    _interval,
+    _moments,
+    _tail_warnings,
+    bca_acceleration,
+    percentile_of_score,
+)
+from planrunner.engines.intervals import Summary
+from planrunner.engines.lazy import ndtri
+from planrunner.engines.models import (
+    LINEAR,
+    Design,
+    Fit,
+    check_rank,
+    effect,
+    expit,
+    fit_logistic,
+    fit_ols,
+    robust_covariance,
+    standardized,
+)
+from planrunner.engines.results import BootstrapResult, EngineWarning, Interval, frozen_array
+from planrunner.engines.streams import Stream, UniformRows
+from planrunner.errors import EngineError
+
+__all__ = ["ModelBootstrapOptions", "ModelBootstrapResult", "model_bootstrap"]
+
+CHUNK = 32  # resamples per matrix product (fixed: see the module doc)
+ENUMERATE_CLUSTERS = 12  # Rademacher wild cluster weights are enumerated when G ≤ this (2^12 = 4096)
+MIN_WILD_CLUSTERS = 5  # fewer clusters are refused: 2^G sign vectors leave too few distinct t* (common practice)
+NEWTON_STEPS = 25  # batched Newton steps at most for a logistic resample
+MAMMEN_LOW = -(math.sqrt(5.0) - 1.0) / 2.0
+MAMMEN_HIGH = (math.sqrt(5.0) + 1.0) / 2.0
+MAMMEN_P_LOW = (math.sqrt(5.0) + 1.0) / (2.0 * math.sqrt(5.0))
+SCHEMES = ("cases", "residual", "wild", "wild-cluster")
+LEAST_SQUARES_ONLY = ("residual", "wild", "wild-cluster")
+
+
+@dataclass(frozen=True)
+class ModelBootstrapOptions:
+    """What a plan may set for the bootstrap of a model statistic (the field order is the record's)."""
+
+    resamples: int
+    confidence: float
+    intervals: tuple[str, ...]
+    model: str  # "linear" or "logistic"
+    model_resampling: str = "cases"
+    weights: str = "rademacher"  # wild schemes only
+    impose_null: bool = False
+    on_degenerate: str = "estimate-only"
+    save_distribution: bool = False
+
+    def settings(self) -> dict[str, Any]:
+        values = ((f.name, getattr(self, f.name)) for f in fields(self))
+        return {name: list(v) if isinstance(v, tuple) else v for name, v in values}
+
+
+@dataclass(frozen=True, eq=False)
+class ModelBootstrapResult(BootstrapResult):
+    """A bootstrap result with the p-value of a scheme that defines one (null imposed), else None."""
+
+    p_value: float | None = None
+
+
+@dataclass(frozen=True, eq=False)
+class _Prepared:
+    design: Design
+    statistic: str
+    options: ModelBootstrapOptions
+    fit: Fit
+    estimate: float
+    base: np.ndarray  # the fitted values the schemes add noise to (X₀β̃ under the null)
+    noise: np.ndarray  # the residuals they resample or weight
+    q: np.ndarray  # Q of the QR of X (least squares)
+    a: np.ndarray  # row `target` of (XᵀX)⁻¹Xᵀ
+    se_kind: str | None  # "classical", "HC1", "cluster" or None
+    groups: int  # clusters G (0 without clusters)
+
+
+def model_bootstrap(design: Design, statistic: str, options: ModelBootstrapOptions, *, stream: Stream,
+                    what: str = "the model") -> ModelBootstrapResult:
+    """Bootstrap a model statistic (``statistic`` a name of `models.LINEAR` or `models.STANDARDIZED`)."""
+    p = _prepare(design, statistic, options, what)
+    scheme = options.model_resampling
+    enumerate_all = scheme == "wild-cluster" and options.weights == "rademacher" and p.groups <= ENUMERATE_CLUSTERS
+    total = 2 ** p.groups if enumerate_all else options.resamples
+    studentized = "studentized" in options.intervals or options.impose_null
+    task = range_task(_range, p, stream, enumerate_all, studentized)
+    joined = map_resamples(task, total)
+    replicates = np.ascontiguousarray(joined[:, 0])
+    se_star = np.ascontiguousarray(joined[:, 1]) if studentized else None
+    weights = np.full(total, 1.0 / total) if enumerate_all else None
+    return _summarise(p, replicates, se_star, weights, stream, what)
+
+
+# ------------------------------------------------------------------ prepare
+
+
+def _prepare(design: Design, statistic: str, options: ModelBootstrapOptions, what: str) -> _Prepared:
+    scheme = options.model_resampling
+    if scheme not in SCHEMES:
+        raise EngineError(f"unknown model_resampling {scheme!r}", hint=f"one of: {', '.join(SCHEMES)}")
+    logistic = options.model == "logistic"
+    if logistic and scheme in LEAST_SQUARES_ONLY:
+        raise EngineError(f"{what}: model_resampling: {scheme} resamples residuals of a least-squares fit; a "
+                          "logistic regression has none that can be resampled", hint="use model_resampling: cases")
+    if scheme == "residual" and design.clusters is not None:
+        raise EngineError(f"{what}: a residual bootstrap treats the residuals as exchangeable across rows, which "
+                          "clusters contradict", hint="use model_resampling: wild-cluster or cases")
+    if scheme == "wild-cluster" and design.clusters is None:
+        raise EngineError(f"{what}: model_resampling: wild-cluster needs clusters", hint="declare clusters: COLUMN")
+    if options.impose_null and scheme not in ("wild", "wild-cluster"):
+        raise EngineError(f"{what}: impose_null applies to the wild and wild-cluster schemes",
+                          hint="remove impose_null, or use model_resampling: wild-cluster")
+    if "bca" in options.intervals and scheme != "cases":
+        raise EngineError(f"{what}: BCa is available for model_resampling: cases only (its acceleration is a "
+                          "delete-one jackknife of rows)", hint="use percentile, basic, normal or studentized")
+    if "studentized" in options.intervals and logistic:
+        raise EngineError(f"{what}: studentized intervals are available for least-squares statistics only",
+                          hint="use percentile, basic, normal or bca")
+    groups = 0 if design.clusters is None else int(design.clusters.max()) + 1
+    if scheme == "wild-cluster" and groups < MIN_WILD_CLUSTERS:
+        raise EngineError(f"{what}: {groups} clusters are too few for a wild cluster bootstrap (at least "
+                          f"{MIN_WILD_CLUSTERS}: {2 ** groups} sign vectors give too coarse a distribution)",
+                          hint="use more clusters, or report the analysis without resampling clusters")
+    check_rank(design, what)
+    x, y, target = design.x, design.y, design.target
+    if logistic:
+        fit = fit_logistic(x, y, what, design.names)
+        q = np.empty((0, 0))
+        a = np.empty(0)
+    else:
+        fit = fit_ols(x, y)
+        q = np.linalg.qr(x)[0]
+        a = (fit.bread @ x.T)[target]
+    estimate = _estimate(statistic, fit.beta, x, target)
+    if not math.isfinite(estimate):
+        raise EngineError(f"{what}: the {statistic.replace('_', ' ')} is not finite on the data")
+    base, noise = fit.fitted, fit.residuals
+    if options.impose_null:
+        restricted = fit_ols(np.delete(x, target, axis=1), y)
+        base, noise = restricted.fitted, restricted.residuals
+    elif scheme == "residual":
+        noise = fit.residuals * math.sqrt(design.n / (design.n - design.p))
+    se_kind = None if logistic else {"residual": "classical", "wild": "HC1", "wild-cluster": "cluster",
+                                     "cases": "cluster" if design.clusters is not None else "HC1"}[scheme]
+    return _Prepared(design, statistic, options, fit, estimate, base, noise, q, a, se_kind, groups)
+
+
+def _estimate(statistic: str, beta: np.ndarray, x: np.ndarray, target: int) -> float:
+    if statistic in LINEAR:
+        return float(beta[target])
+    p1, p0 = standardized(beta, x, target)
+    return float(effect(statistic, p1, p0))
+
+
+def data_standard_error(p: _Prepared) -> float:
+    """ŝe of the data, by the scheme's standard-error formula (module doc)."""
+    x, fit, target = p.design.x, p.fit, p.design.target
+    if p.se_kind == "classical":
+        s2 = float(fit.residuals @ fit.residuals) / (p.design.n - p.design.p)
+        return math.sqrt(s2 * fit.bread[target, target])
+    kind = "cluster" if p.se_kind == "cluster" else "HC1"
+    return math.sqrt(robust_covariance(x, fit, kind, p.design.clusters)[target, target])
+
+
+# ------------------------------------------------------------------ draw
+
+
+def _range(p: _Prepared, stream: Stream, enumerate_all: bool, studentized: bool, start: int, stop: int) -> np.ndarray:
+    """Replicates (and standard errors) of resamples [start, stop), computed chunk by chunk."""
+    out = np.empty((stop - start, 2))
+    first = start // CHUNK
+    for chunk in range(first, (stop + CHUNK - 1) // CHUNK):
+        lo = chunk * CHUNK
+        theta, se = _chunk(p, stream, enumerate_all, studentized, lo)
+        keep_lo, keep_hi = max(lo, start), min(lo + CHUNK, stop)
+        out[keep_lo - start:keep_hi - start, 0] = theta[keep_lo - lo:keep_hi - lo]
+        out[keep_lo - start:keep_hi - start, 1] = se[keep_lo - lo:keep_hi - lo]
+    return out
+
+
+def _chunk(p: _Prepared, stream: Stream, enumerate_all: bool, studentized: bool,
+           lo: int) -> tuple[np.ndarray, np.ndarray]:
+    scheme = p.options.model_resampling
+    if scheme == "cases":
+        return _cases(p, _case_counts(p, stream, lo), studentized)
+    design = p.design
+    if scheme == "residual":
+        u = UniformRows(stream, design.n, lo).take(CHUNK)
+        index = (u * design.n).astype(np.intp)
+        noise = p.noise[index]
+    elif scheme == "wild":
+        noise = p.noise * _weights(UniformRows(stream, design.n, lo).take(CHUNK), p.options.weights)
+    else:
+        assert design.clusters is not None
+        if enumerate_all:
+            numbers = np.arange(lo, lo + CHUNK)[:, None]
+            bits = (numbers >> np.arange(p.groups)[None, :]) & 1
+            v = np.where(bits == 1, 1.0, -1.0)
+        else:
+            v = _weights(UniformRows(stream, p.groups, lo).take(CHUNK), p.options.weights)
+        noise = p.noise * v[:, design.clusters]
+    return _linear_replicates(p, noise, studentized)
+
+
+def _weights(u: np.ndarray, kind: str) -> np.ndarray:
+    if kind == "rademacher":
+        return np.where(u < 0.5, -1.0, 1.0)
+    return np.where(u < MAMMEN_P_LOW, MAMMEN_LOW, MAMMEN_HIGH)
+
+
+def _linear_replicates(p: _Prepared, noise: np.ndarray, studentized: bool) -> tuple[np.ndarray, np.ndarray]:
+    """θ* = aᵀ(base + noise) for each row of ``noise``; se* from the refit's residuals M·noise."""
+    theta = float(p.a @ p.base) + noise @ p.a
+    if not studentized:
+        return theta, np.zeros_like(theta)
+    residuals = noise - (noise @ p.q) @ p.q.T  # base lies in the column space of X: M·base = 0
+    return theta, _se_from_residuals(p, residuals)
+
+
+def _se_from_residuals(p: _Prepared, residuals: np.ndarray) -> np.ndarray:
+    n, k = p.design.n, p.design.p
+    if p.se_kind == "classical":
+        s2 = np.sum(residuals * residuals, axis=1) / (n - k)
+        return np.sqrt(s2 * p.fit.bread[p.design.target, p.design.target])
+    if p.se_kind == "HC1":
+        return np.sqrt(n / (n - k) * ((residuals * residuals) @ (p.a * p.a)))
+    assert p.design.clusters is not None
+    summed = (residuals * p.a) @ _indicator(p.design.clusters, p.groups)
+    factor = p.groups / (p.groups - 1) * (n - 1) / (n - k)
+    return np.sqrt(factor * np.sum(summed * summed, axis=1))
+
+
+def _indicator(codes: np.ndarray, count: int) -> np.ndarray:
+    out = np.zeros((codes.shape[0], count))
+    out[np.arange(codes.shape[0]), codes] = 1.0
+    return out
+
+
+def _case_counts(p: _Prepared, stream: Stream, lo: int) -> np.ndarray:
+    """How often each row is drawn in each resample of the chunk (CHUNK, n): rows (or clusters)
+    drawn with replacement within their cell, one uniform per drawn unit."""
+    design = p.design
+    units, unit_cells = _units(design)
+    order = np.argsort(unit_cells, kind="stable")
+    cells, starts, sizes = np.unique(unit_cells[order], return_index=True, return_counts=True)
+    slot_start = np.repeat(starts, sizes)
+    slot_size = np.repeat(sizes, sizes)
+    u = UniformRows(stream, units, lo).take(CHUNK)
+    drawn = order[slot_start + (u * slot_size).astype(np.intp)]
+    flat = (drawn + (np.arange(CHUNK) * units)[:, None]).ravel()
+    counts = np.bincount(flat, minlength=CHUNK * units).reshape(CHUNK, units).astype(np.float64)
+    if design.clusters is None:
+        return counts
+    return counts[:, design.clusters]
+
+
+def _units(design: Design) -> tuple[int, np.ndarray]:
+    """The resampled units (rows, or clusters) and the cell of each; clusters that span cells are
+    resampled together, across cells."""
+    if design.clusters is None:
+        return design.n, design.cells
+    groups = int(design.clusters.max()) + 1
+    first = np.zeros(groups, dtype=np.intp)
+    first[design.clusters[::-1]] = design.cells[::-1]
+    nested = bool(np.all(first[design.clusters] == design.cells))
+    return groups, (first if nested else np.zeros(groups, dtype=np.intp))
+
+
+def _cases(p: _Prepared, counts: np.ndarray, studentized: bool) -> tuple[np.ndarray, np.ndarray]:
+    """Refit on each resample given by its row counts (CHUNK, n); see the module doc."""
+    x, y, target = p.design.x, p.design.y, p.design.target
+    k = x.shape[1]
+    outer = (x[:, :, None] * x[:, None, :]).reshape(x.shape[0], k * k)
+    if p.options.model == "linear":
+        gram = (counts @ outer).reshape(-1, k, k)
+        beta = _solve(gram, counts @ (x * y[:, None]))
+    else:
+        beta = np.repeat(p.fit.beta[None, :], counts.shape[0], axis=0)
+        for _ in range(NEWTON_STEPS):
+            mu = expit(beta @ x.T)
+            hessian = ((counts * mu * (1.0 - mu)) @ outer).reshape(-1, k, k)
+            step = _solve(hessian, (counts * (y - mu)) @ x)
+            beta = beta + step
+            if not np.any(np.abs(step) > 1e-10 * np.maximum(1.0, np.abs(beta))):
+                break
+        mu = expit(beta @ x.T)
+        unsettled = np.any(np.abs(step) > 1e-8 * np.maximum(1.0, np.abs(beta)), axis=1)
+        separated = np.any((counts > 0) & ((mu < 1e-8) | (mu > 1.0 - 1e-8)), axis=1)
+        beta[unsettled | separated] = np.nan
+    if p.statistic in LINEAR:
+        theta = beta[:, target]
+    else:
+        p1, p0 = standardized(beta, x, target, counts / counts.sum(axis=1, keepdims=True))
+        theta = effect(p.statistic, p1, p0)
+    if not studentized:
+        return theta, np.zeros_like(theta)
+    residuals = y[None, :] - beta @ x.T
+    a_rows = np.linalg.inv(gram)[:, target, :] @ x.T  # (CHUNK, n): row `target` of (XᵀCX)⁻¹Xᵀ per resample
+    n = p.design.n
+    if p.se_kind == "HC1":
+        return theta, np.sqrt(n / (n - k) * np.sum(counts * (residuals * a_rows) ** 2, axis=1))
+    assert p.design.clusters is not None
+    # each drawn copy of a cluster is a cluster of the resample: Σ_g (copies of g)·S_g²
+    copies = np.zeros((counts.shape[0], p.groups))
+    copies[:, p.design.clusters] = counts
+    sums = ((residuals * a_rows) @ _indicator(p.design.clusters, p.groups))
+    factor = p.groups / (p.groups - 1) * (n - 1) / (n - k)
+    return theta, np.sqrt(factor * np.sum(copies * sums * sums, axis=1))
+
+
+def _solve(matrices: np.ndarray, vectors: np.ndarray) -> np.ndarray:
+    """Solve each system; a singular one (a resample that lost a covariate level) gives NaN."""
+    try:
+        return np.linalg.solve(matrices, vectors[:, :, None])[:, :, 0]
+    except np.linalg.LinAlgError:
+        out = np.full(vectors.shape, np.nan)
+        for i in range(matrices.shape[0]):  # only a chunk that holds a singular system
+            try:
+                out[i] = np.linalg.solve(matrices[i], vectors[i])
+            except np.linalg.LinAlgError:
+                pass
+        return out
+
+
+# ------------------------------------------------------------------ summarise
+
+
+def _summarise(p: _Prepared, distribution: np.ndarray, se_star: np.ndarray | None, weights: np.ndarray | None,
+               stream: Stream, what: str) -> ModelBootstrapResult:
+    options = p.options
+    confidence, resamples = options.confidence, int(distribution.shape[0])
+    scheme_words = _scheme_words(p, weights is not None)
+    details: dict[str, Any] = {"model": options.model, "columns": list(p.design.names),
+                               "coefficients": [float(b) for b in p.fit.beta],
+                               "standard_error_formula": p.se_kind, "chunk": CHUNK}
+    if p.groups:
+        details["clusters"] = p.groups
+    warnings: list[EngineWarning] = []
+    result = ModelBootstrapResult(
+        estimate=p.estimate, standard_error=None, bias=None, intervals=(), resamples=resamples, scheme=scheme_words,
+        n=(p.design.n,), distribution=frozen_array(distribution), z0=None, acceleration=None,
+        conventions=_conventions(p), exact=weights is not None,
+        weights=None if weights is None else frozen_array(weights), details=details)
+    bad = ~np.isfinite(distribution)
+    if bad.any():
+        message = (f"the model could not be refitted on {int(bad.sum())} of {resamples} resamples (a covariate "
+                   "level or an outcome value lost, or separation in the resample); no standard error, bias or "
+                   "interval is reported")
+        if options.on_degenerate == "fail":
+            raise EngineError(f"{what}: {message}", hint="on_degenerate: fail was declared in the plan")
+        warnings.append(EngineWarning("non-finite-replicates", message))
+        return replace(result, warnings=tuple(warnings),
+                       intervals=tuple(Interval(m, confidence, None, None, note=message) for m in options.intervals))
+    moments = _moments(distribution, weights, p.estimate)
+    if options.impose_null:
+        se_hat = data_standard_error(p)
+        assert se_star is not None
+        t = p.estimate / se_hat
+        with np.errstate(divide="ignore", invalid="ignore"):
+            t_star = distribution / se_star
+        tolerance = 1e-10 * max(abs(t), 1.0)
+        hits = np.abs(t_star) >= abs(t) - tolerance
+        p_value = float(np.sum(weights[hits])) if weights is not None else (1.0 + float(hits.sum())) / (resamples + 1)
+        details.update(se_hat=se_hat, t=t, count_absolute=int(hits.sum()),
+                       p_value_rule="share of |t*| >= |t| (two-sided, symmetric); Monte Carlo (1 + count)/(B + 1), "
+                                    "enumerated count/2^G")
+        note = ("the null is imposed: the replicates are drawn under a zero coefficient, so they give a "
+                "p-value, not an interval")
+        return replace(result, warnings=tuple(warnings), p_value=min(1.0, p_value),
+                       standard_error=moments["standard_error"], standard_error_sd=moments["standard_error_sd"],
+                       intervals=tuple(Interval(m, confidence, None, None, note=note) for m in options.intervals))
+    order = np.argsort(distribution, kind="stable")
+    ordered = distribution[order]
+    cumulative = None if weights is None else np.cumsum(weights[order])
+    z0 = acceleration = bca_problem = None
+    if "bca" in options.intervals:
+        z0, acceleration, bca_problem = _bca(p, ordered, confidence)
+        if bca_problem:
+            warnings.append(EngineWarning("bca-undefined", f"no BCa interval: {bca_problem}"))
+    t_ordered = t_cumulative = se_hat_value = t_problem = None
+    if "studentized" in options.intervals:
+        assert se_star is not None
+        se_hat_value = data_standard_error(p)
+        details["se_hat"] = se_hat_value
+        if np.any(~(se_star > 0)):
+            t_problem = f"the standard error is zero on {int(np.sum(~(se_star > 0)))} resamples"
+            warnings.append(EngineWarning("studentized-undefined", f"no studentized interval: {t_problem}"))
+        else:
+            t = (distribution - p.estimate) / se_star
+            t_order = np.argsort(t, kind="stable")
+            t_ordered = t[t_order]
+            t_cumulative = None if weights is None else np.cumsum(weights[t_order])
+    exact = weights is not None
+    summary = Summary(p.estimate, ordered, cumulative, confidence, moments["standard_error"], moments["bias"],
+                      None if exact else moments["standard_error_sd"], None if exact else moments["bias_sd"],
+                      z0, acceleration, bca_problem, t_ordered, t_cumulative, se_hat_value, t_problem)
+    found = tuple(_interval(m, summary, options.on_degenerate) for m in options.intervals)
+    if not exact:
+        warnings += [w for w in _tail_warnings(found, ordered) if w not in warnings]
+    return replace(result, warnings=tuple(warnings), intervals=found, z0=z0, acceleration=acceleration,
+                   standard_error=moments["standard_error"], bias=moments["bias"],
+                   standard_error_sd=moments["standard_error_sd"], bias_sd=moments["bias_sd"])
+
+
+def _bca(p: _Prepared, ordered: np.ndarray, confidence: float) -> tuple[float | None, float | None, str | None]:
+    """z0 from the replicates; the acceleration from the delete-one (row or cluster) jackknife, each
+    cell of resampled units one sample of E&T eq. 15.36."""
+    tolerance = TIE_TOLERANCE * max(abs(p.estimate), 1.0)
+    z0 = float(ndtri(percentile_of_score(ordered, p.estimate, tolerance)))
+    if not math.isfinite(z0):
+        return None, None, "every replicate lies on one side of the estimate, so z0 is infinite"
+    units, unit_cells = _units(p.design)
+    replicates = np.empty(units)
+    for lo in range(0, units, CHUNK):
+        keep = np.ones((CHUNK, units))
+        rows = np.arange(lo, min(lo + CHUNK, units))
+        keep[np.arange(rows.size), rows] = 0.0
+        counts = keep if p.design.clusters is None else keep[:, p.design.clusters]
+        replicates[rows] = _cases(p, counts, False)[0][:rows.size]
+    if not np.all(np.isfinite(replicates)):
+        return z0, None, "the model cannot be refitted on every delete-one sample"
+    acceleration = bca_acceleration([replicates[unit_cells == c] for c in np.unique(unit_cells)])
+    if not math.isfinite(acceleration):
+        return z0, None, "the delete-one jackknife values do not vary, so the acceleration is undefined"
+    alpha = 1.0 - confidence
+    z = z0 + ndtri(np.array([alpha / 2, 1 - alpha / 2]))
+    if np.any(1.0 - acceleration * z <= 0.0):
+        return z0, acceleration, (f"the acceleration {acceleration:.4g} is so large that the level adjustment "
+                                  "is not monotone")
+    return z0, acceleration, None
+
+
+def _scheme_words(p: _Prepared, enumerated: bool) -> str:
+    scheme, options = p.options.model_resampling, p.options
+    fit = "logistic regression" if options.model == "logistic" else "least squares"
+    if scheme == "cases":
+        unit = "clusters" if p.design.clusters is not None else "rows"
+        return f"cases bootstrap ({unit} resampled within group × stratum cells; {fit} refitted on each)"
+    if scheme == "residual":
+        return "residual bootstrap (residuals rescaled by sqrt(n/(n-p)), drawn with replacement; least squares)"
+    null = ", null imposed" if options.impose_null else ""
+    if scheme == "wild":
+        return f"wild bootstrap ({options.weights} weights per row{null}; least squares)"
+    how = f"all 2^{p.groups} = {2 ** p.groups} sign vectors enumerated" if enumerated else f"{options.weights} weights"
+    return f"wild cluster bootstrap ({how}, one weight per cluster{null}; least squares)"
+
+
+def _conventions(p: _Prepared) -> dict[str, str]:
+    return {
+        "standard_error": "sd of the replicates, divisor B-1 (enumerated: exact weighted sd)",
+        "quantile": "inverse empirical CDF, as for every bootstrap",
+        "robust_se": "HC1 = n/(n-p) HC0; cluster = G/(G-1) (n-1)/(n-p) times the cluster sandwich",
+        "weights": "rademacher: -1 or 1, each 1/2; mammen: -(sqrt5-1)/2 w.p. (sqrt5+1)/(2 sqrt5), else (sqrt5+1)/2",
+        "chunks": f"resamples computed in fixed chunks of {CHUNK} (same numbers for any executor)",
+    }
