@@ -144,31 +144,36 @@ def model_bootstrap(design: Design, statistic: str, options: ModelBootstrapOptio
 # ------------------------------------------------------------------ prepare
 
 
+def check_model(design: Design, statistic: str, options: ModelBootstrapOptions) -> None:
+    """What a run would refuse (scheme, rank, separation, too few clusters), found without resampling."""
+    _prepare(design, statistic, options, "the model")
+
+
 def _prepare(design: Design, statistic: str, options: ModelBootstrapOptions, what: str) -> _Prepared:
     scheme = options.model_resampling
     if scheme not in SCHEMES:
         raise EngineError(f"unknown model_resampling {scheme!r}", hint=f"one of: {', '.join(SCHEMES)}")
     logistic = options.model == "logistic"
     if logistic and scheme in LEAST_SQUARES_ONLY:
-        raise EngineError(f"{what}: model_resampling: {scheme} resamples residuals of a least-squares fit; a "
+        raise EngineError(f"model_resampling: {scheme} resamples residuals of a least-squares fit; a "
                           "logistic regression has none that can be resampled", hint="use model_resampling: cases")
     if scheme == "residual" and design.clusters is not None:
-        raise EngineError(f"{what}: a residual bootstrap treats the residuals as exchangeable across rows, which "
+        raise EngineError("a residual bootstrap treats the residuals as exchangeable across rows, which "
                           "clusters contradict", hint="use model_resampling: wild-cluster or cases")
     if scheme == "wild-cluster" and design.clusters is None:
-        raise EngineError(f"{what}: model_resampling: wild-cluster needs clusters", hint="declare clusters: COLUMN")
+        raise EngineError("model_resampling: wild-cluster needs clusters", hint="declare clusters: COLUMN")
     if options.impose_null and scheme not in ("wild", "wild-cluster"):
-        raise EngineError(f"{what}: impose_null applies to the wild and wild-cluster schemes",
+        raise EngineError("impose_null applies to the wild and wild-cluster schemes",
                           hint="remove impose_null, or use model_resampling: wild-cluster")
     if "bca" in options.intervals and scheme != "cases":
-        raise EngineError(f"{what}: BCa is available for model_resampling: cases only (its acceleration is a "
+        raise EngineError("BCa is available for model_resampling: cases only (its acceleration is a "
                           "delete-one jackknife of rows)", hint="use percentile, basic, normal or studentized")
     if "studentized" in options.intervals and logistic:
-        raise EngineError(f"{what}: studentized intervals are available for least-squares statistics only",
+        raise EngineError("studentized intervals are available for least-squares statistics only",
                           hint="use percentile, basic, normal or bca")
     groups = 0 if design.clusters is None else int(design.clusters.max()) + 1
     if scheme == "wild-cluster" and groups < MIN_WILD_CLUSTERS:
-        raise EngineError(f"{what}: {groups} clusters are too few for a wild cluster bootstrap (at least "
+        raise EngineError(f"{groups} clusters are too few for a wild cluster bootstrap (at least "
                           f"{MIN_WILD_CLUSTERS}: {2 ** groups} sign vectors give too coarse a distribution)",
                           hint="use more clusters, or report the analysis without resampling clusters")
     check_rank(design, what)
@@ -183,7 +188,7 @@ def _prepare(design: Design, statistic: str, options: ModelBootstrapOptions, wha
         a = (fit.bread @ x.T)[target]
     estimate = _estimate(statistic, fit.beta, x, target)
     if not math.isfinite(estimate):
-        raise EngineError(f"{what}: the {statistic.replace('_', ' ')} is not finite on the data")
+        raise EngineError(f"the {statistic.replace('_', ' ')} is not finite on the data")
     base, noise = fit.fitted, fit.residuals
     if options.impose_null:
         restricted = fit_ols(np.delete(x, target, axis=1), y)
@@ -397,7 +402,7 @@ def _summarise(p: _Prepared, distribution: np.ndarray, se_star: np.ndarray | Non
                    "level or an outcome value lost, or separation in the resample); no standard error, bias or "
                    "interval is reported")
         if options.on_degenerate == "fail":
-            raise EngineError(f"{what}: {message}", hint="on_degenerate: fail was declared in the plan")
+            raise EngineError(f"{message}", hint="on_degenerate: fail was declared in the plan")
         warnings.append(EngineWarning("non-finite-replicates", message))
         return replace(result, warnings=tuple(warnings),
                        intervals=tuple(Interval(m, confidence, None, None, note=message) for m in options.intervals))

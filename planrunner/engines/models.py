@@ -89,14 +89,14 @@ def check_rank(design: Design, what: str) -> None:
     scale = np.max(np.abs(x), axis=0) * math.sqrt(design.n)
     length = np.linalg.norm(centred, axis=0)
     for constant in np.flatnonzero(length <= 1e-12 * np.maximum(scale, np.finfo(float).tiny)):
-        raise EngineError(f"{what}: {_column_words(design.names[int(constant) + 1])} is constant on the rows used",
+        raise EngineError(f"{_column_words(design.names[int(constant) + 1])} is constant on the rows used",
                           hint="remove it from covariates (it is absorbed by the intercept)")
     unit = centred / length
     r = np.asarray(np.linalg.qr(unit, mode="r"))
     for j in range(unit.shape[1]):
         if abs(r[j, j]) < RANK_TOLERANCE:
             before = [design.names[k + 1] for k in range(j)]
-            raise EngineError(f"{what}: {_column_words(design.names[j + 1])} is collinear with "
+            raise EngineError(f"{_column_words(design.names[j + 1])} is collinear with "
                               f"{', '.join(before)} (a linear combination of them on the rows used; "
                               f"rank tolerance {RANK_TOLERANCE:g} after centring and scaling)",
                               hint="remove it, or a covariate it repeats, from covariates")
@@ -145,7 +145,7 @@ def fit_logistic(x: np.ndarray, y: np.ndarray, what: str, names: Sequence[str] =
     extreme = (mu < SEPARATION_EPS) | (mu > 1.0 - SEPARATION_EPS)
     if not converged or extreme.any() or not np.all(np.isfinite(beta)):
         count = int(extreme.sum())
-        raise EngineError(f"{what}: the logistic regression shows separation: "
+        raise EngineError("the logistic regression shows separation: "
                           + (f"{count} row(s) are predicted with probability 0 or 1 (the outcome is perfectly "
                              "predicted there), " if count else "")
                           + ("its maximum-likelihood estimate does not exist (a coefficient grows without bound)"

@@ -121,8 +121,7 @@ def execute(job: Job) -> EngineResult:
 
 def _run_engine(job: Job) -> EngineResult:
     if isinstance(job.options, ModelBootstrapOptions):
-        return model_bootstrap(job.design["model"], job.statistic.name, job.options, stream=job.stream,
-                               what=f"analysis '{job.analysis_id}'")
+        return model_bootstrap(job.design["model"], job.statistic.name, job.options, stream=job.stream)
     if isinstance(job.options, BootstrapOptions):
         return bootstrap(job.samples, job.statistic, job.options, stream=job.stream, strata=job.strata,
                          clusters=job.clusters, paired=job.paired)

@@ -14,6 +14,7 @@ from planrunner.engines import association, clusters, inversion, permutation, si
 from planrunner.engines.association import association_test
 from planrunner.engines.clusters import cluster_test
 from planrunner.engines.inversion import shift_interval
+from planrunner.engines.modelboot import ModelBootstrapOptions, check_model
 from planrunner.engines.permcore import PermutationOptions
 from planrunner.engines.permutation import permutation_test
 from planrunner.engines.results import PermutationResult
@@ -27,6 +28,15 @@ def planned_computation(job: Job) -> str:
     (``check`` runs it for every permutation job)."""
     try:
         return _computation(job)
+    except EngineError as exc:
+        raise EngineError(f"{exc.message}", where=f"analysis '{job.analysis_id}'", hint=exc.hint) from None
+
+
+def planned_model(job: Job) -> None:
+    """A model statistic's refusal (rank, separation, scheme, clusters), as a run gives it, without resampling."""
+    assert isinstance(job.options, ModelBootstrapOptions)
+    try:
+        check_model(job.design["model"], job.statistic.name, job.options)
     except EngineError as exc:
         raise EngineError(f"{exc.message}", where=f"analysis '{job.analysis_id}'", hint=exc.hint) from None
 

@@ -23,10 +23,11 @@ from planrunner.data.checks import check_tables
 from planrunner.data.sets import evaluate_sets
 from planrunner.data.tables import Table, read_table, resolve_data_path
 from planrunner.engines.maxt import MaxTResult
+from planrunner.engines.modelboot import ModelBootstrapOptions
 from planrunner.errors import OutputError, PlanrunnerError
 from planrunner.execute.executors import Execution, Progress, execute_all
 from planrunner.execute.families import max_t_families, planned_family_computations
-from planrunner.execute.permutation import planned_computation
+from planrunner.execute.permutation import planned_computation, planned_model
 from planrunner.execute.signals import holding_interrupts
 from planrunner.plan.load import LoadedPlan, read_plan
 from planrunner.plan.params import apply as apply_parameters
@@ -127,6 +128,8 @@ def check_plan(path: str | Path, *, with_data: bool = True, params: dict[str, st
     for job in jobs:  # what a run would refuse, refused now, by the engines' own rule (no resampling)
         if job.method == "permutation":
             planned_computation(job)
+        elif isinstance(job.options, ModelBootstrapOptions):
+            planned_model(job)
     planned_family_computations(loaded.plan, jobs)
     return CheckOutcome(loaded, tables, jobs, values)
 
