@@ -74,7 +74,8 @@ def test_registry_has_the_five_statistics() -> None:
 
 
 def test_unknown_statistic_lists_known_names() -> None:
-    with pytest.raises(KeyError, match="known statistics: adjusted_mean_difference, coefficient, correlation, .*mean, mean_difference, median"):
+    with pytest.raises(KeyError, match="known statistics: adjusted_mean_difference, coefficient, correlation, "
+                                       ".*mean, mean_difference, median"):
         get_statistic("trimmed_mean_typo")
 
 
