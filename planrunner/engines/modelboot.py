@@ -67,7 +67,7 @@ from planrunner.engines.models import (
     robust_covariance,
     standardized,
 )
-from planrunner.engines.results import BootstrapResult, EngineWarning, Interval, frozen_array
+from planrunner.engines.results import EngineWarning, Interval, ModelBootstrapResult, frozen_array
 from planrunner.engines.streams import Stream, UniformRows
 from planrunner.errors import EngineError
 
@@ -101,13 +101,6 @@ class ModelBootstrapOptions:
     def settings(self) -> dict[str, Any]:
         values = ((f.name, getattr(self, f.name)) for f in fields(self))
         return {name: list(v) if isinstance(v, tuple) else v for name, v in values}
-
-
-@dataclass(frozen=True, eq=False)
-class ModelBootstrapResult(BootstrapResult):
-    """A bootstrap result with the p-value of a scheme that defines one (null imposed), else None."""
-
-    p_value: float | None = None
 
 
 @dataclass(frozen=True, eq=False)

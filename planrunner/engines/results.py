@@ -17,6 +17,7 @@ __all__ = [
     "EngineWarning",
     "Interval",
     "JackknifeResult",
+    "ModelBootstrapResult",
     "NullTest",
     "PermutationResult",
     "frozen_array",
@@ -115,6 +116,14 @@ class BootstrapResult:
     # "two-sided" intervals, or one-sided bounds: "greater" (lower bounds), "less" (upper bounds)
     alternative: str = "two-sided"
     null_test: NullTest | None = None  # with a stated null value: its p-value
+
+
+@dataclass(frozen=True, eq=False)
+class ModelBootstrapResult(BootstrapResult):
+    """The bootstrap of a model statistic (engines/modelboot.py): a bootstrap result with the p-value
+    of a scheme that defines one (wild or wild cluster with the null imposed), else None."""
+
+    p_value: float | None = None
 
 
 @dataclass(frozen=True, eq=False)

@@ -30,8 +30,7 @@ from planrunner.data.sets import select, set_entries
 from planrunner.data.tables import Table
 from planrunner.engines.bootstrap import BootstrapOptions
 from planrunner.engines.maxt import MaxTResult
-from planrunner.engines.modelboot import ModelBootstrapResult
-from planrunner.engines.results import BootstrapResult, JackknifeResult, PermutationResult
+from planrunner.engines.results import BootstrapResult, JackknifeResult, ModelBootstrapResult, PermutationResult
 from planrunner.engines.statistics import comparison_word
 from planrunner.engines.streams import DRAW_BLOCK, GENERATOR
 from planrunner.plan.derived import dataset_columns
