@@ -410,8 +410,11 @@ def _summarise(p: _Prepared, distribution: np.ndarray, se_star: np.ndarray | Non
         hits = np.abs(t_star) >= abs(t) - tolerance
         p_value = float(np.sum(weights[hits])) if weights is not None else (1.0 + float(hits.sum())) / (resamples + 1)
         details.update(se_hat=se_hat, t=t, count_absolute=int(hits.sum()),
-                       p_value_rule="share of |t*| >= |t| (two-sided, symmetric); Monte Carlo (1 + count)/(B + 1), "
-                                    "enumerated count/2^G")
+                       count_greater_equal=int(np.sum(t_star >= t - tolerance)),
+                       count_less_equal=int(np.sum(t_star <= t + tolerance)),
+                       p_value_rule="t = estimate / se_hat against t* = theta* / se* of the resamples drawn under the "
+                                    "null; Monte Carlo (1 + count)/(B + 1), enumerated count/2^G",
+                       two_sided_rule="absolute: share of |t*| >= |t| (symmetric, Cameron, Gelbach & Miller 2008)")
         note = ("the null is imposed: the replicates are drawn under a zero coefficient, so they give a "
                 "p-value, not an interval")
         return replace(result, warnings=tuple(warnings), p_value=min(1.0, p_value),

@@ -27,6 +27,11 @@ def model_checks(at: tuple, a: Any, statistic: Statistic) -> list[Problem]:
         out.append(Problem(at + ("method",), f"'{a.statistic}' is available with method: bootstrap only",
                            "use method: bootstrap (model_resampling: cases, residual, wild or wild-cluster)"))
         return out
+    for key in ("alternative", "null_value"):
+        if getattr(a, key, None) is not None:
+            out.append(Problem(at + (key,), f"{key} is not yet available for a model statistic",
+                               "remove the key; for a p-value use model_resampling: wild or wild-cluster with "
+                               "impose_null: true"))
     for key in ("pairs", "order", "blocks", "parametric", "trials", "studentized_se", "inner_resamples"):
         if getattr(a, key) is not None:
             out.append(Problem(at + (key,), f"{key} does not apply to a model statistic",
