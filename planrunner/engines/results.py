@@ -116,6 +116,7 @@ class BootstrapResult:
     # "two-sided" intervals, or one-sided bounds: "greater" (lower bounds), "less" (upper bounds)
     alternative: str = "two-sided"
     null_test: NullTest | None = None  # with a stated null value: its p-value
+    precision: object | None = None  # engines.precision.PrecisionOutcome: B chosen to a target accuracy
 
 
 @dataclass(frozen=True, eq=False)
@@ -182,9 +183,10 @@ class PermutationResult:
     null_weights: np.ndarray | None = None  # arrangements at each null value (exact DP); None: one each
     # the DP weights above are held as weight · 2**null_weight_exponent (beyond the float range; exactdist)
     null_weight_exponent: int = 0
-    # the null weights as exact Python integers (object array), where the DP counts pass 2**53
-    null_exact_weights: np.ndarray | None = None
+    # the null weights as exact Python integers, where the DP counts pass 2**53
+    null_exact_weights: tuple[int, ...] | None = None
     counts_exact: bool = True  # False: DP counts beyond 2**53 held in floating point (13 digits)
+    precision: object | None = None  # engines.precision.PrecisionOutcome: resamples drawn to a decision risk
     computation: str = "enumeration"  # enumeration | dynamic programming | Monte Carlo
     intervals: tuple[Interval, ...] = ()
     shift_estimate: float | None = None
