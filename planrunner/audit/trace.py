@@ -110,6 +110,13 @@ TRACE: dict[str, tuple[str, ...]] = {
                          "tests/test_bad_inputs.py::test_bad_input_gives_one_clear_message"),
     "Multiplicity": ("tests/test_engines_randomization.py::test_adjustments_match_statsmodels_bh95",
                      "tests/test_permutation_plans.py::test_max_t_family_end_to_end_and_order_free"),
+    "Resamples to a stated precision": (
+        "tests/test_precision.py::test_disagreement_rate_over_seeds_is_within_the_bound",
+        "tests/test_precision.py::test_sequential_decisions_agree_with_the_exact_mann_whitney_decision",
+        "tests/test_precision.py::test_p_near_one_half_stops_after_one_block_and_near_alpha_uses_many",
+        "tests/test_precision.py::test_bootstrap_resamples_match_the_andrews_buchinsky_formula",
+        "tests/test_precision.py::test_plan_records_the_rule_serially_and_on_two_workers_alike_and_verify_reproduces",
+        "tests/test_precision.py::test_a_test_stopped_at_the_maximum_says_unresolved"),
     "What planrunner refuses and why": ("tests/test_bad_inputs.py::test_bad_input_gives_one_clear_message",
                                         "tests/test_plan_corpus.py::test_invalid_plan_is_reported_where_and_what",
                                         "tests/test_permutation_plans.py::test_incomplete_pair_is_refused",

@@ -20,12 +20,13 @@ from planrunner.engines.bootstrap import BootstrapOptions
 from planrunner.engines.jackknife import JackknifeOptions
 from planrunner.engines.modelboot import ModelBootstrapOptions
 from planrunner.engines.permcore import PermutationOptions
+from planrunner.engines.precision import BootstrapPrecision, TestPrecision, family_levels
 from planrunner.engines.statistics import Statistic, bind, get_statistic
 from planrunner.engines.streams import Stream, stream_for
 from planrunner.engines.survival import flipped
 from planrunner.engines.teststats import K_GROUP
 from planrunner.errors import DataError
-from planrunner.plan.schema import Analysis, BootstrapAnalysis, Defaults, PermutationAnalysis, Plan
+from planrunner.plan.schema import Analysis, BootstrapAnalysis, Defaults, PermutationAnalysis, Plan, precision_of
 
 Options = BootstrapOptions | JackknifeOptions | PermutationOptions | ModelBootstrapOptions
 
@@ -83,8 +84,12 @@ def bootstrap_options(analysis: BootstrapAnalysis, defaults: Defaults) -> Bootst
     intervals = tuple(analysis.intervals)
     if "intervals" not in analysis.model_fields_set and (analysis.order or analysis.parametric):
         intervals = ("percentile",)  # the default BCa is not valid for dependent or parametric draws
+    target = precision_of(analysis, defaults)
     declared: dict[str, Any] = {
-        "resamples": analysis.resamples or defaults.resamples,
+        "resamples": target.max_resamples if target is not None else analysis.resamples or defaults.resamples,
+        "precision": None if target is None else BootstrapPrecision(
+            max_resamples=target.max_resamples, se_relative=target.se_relative,
+            interval_end_sd=target.interval_end_sd),
         "confidence": analysis.confidence or defaults.confidence,
         "intervals": intervals, "studentized_se": analysis.studentized_se,
         "inner_resamples": analysis.inner_resamples, "on_degenerate": analysis.on_degenerate,
@@ -101,19 +106,33 @@ def _options(plan: Plan, analysis: Analysis) -> Options:
     if analysis.method == "bootstrap":
         return bootstrap_options(analysis, d)
     if analysis.method == "permutation":
-        return permutation_options(analysis, d)
+        return permutation_options(analysis, d, plan)
     return JackknifeOptions()
 
 
-def permutation_options(analysis: PermutationAnalysis, defaults: Defaults) -> PermutationOptions:
-    """The options of a permutation-type test: what the analysis declares, else the plan's defaults."""
+def permutation_options(analysis: PermutationAnalysis, defaults: Defaults,
+                        plan: Plan | None = None) -> PermutationOptions:
+    """The options of a permutation-type test: what the analysis declares, else the plan's defaults.
+    With a precision target the test decides at alpha and, in a multiplicity family, at every level
+    the family's adjustment may compare its p-value with."""
     k_group = analysis.statistic in K_GROUP  # large F or H is the evidence: one-sided by construction
     confidence = analysis.confidence or defaults.confidence
-    return PermutationOptions(resamples=analysis.resamples or defaults.resamples,
+    alpha = round(1.0 - confidence, 12)
+    target = precision_of(analysis, defaults)
+    precision = None
+    if target is not None:
+        assert target.decision_risk is not None  # precision_of gives a test only a target with a risk
+        levels = [level for fam in (plan.multiplicity if plan is not None else [])
+                  if analysis.id in fam.family and fam.method != "max-t"
+                  for level in family_levels(fam.method, len(fam.family), alpha)]
+        precision = TestPrecision(risk=target.decision_risk, max_resamples=target.max_resamples, alpha=alpha,
+                                  levels=tuple(levels))
+    return PermutationOptions(resamples=target.max_resamples if target is not None
+                              else analysis.resamples or defaults.resamples,
                               alternative="greater" if k_group else (analysis.alternative or defaults.alternative),
                               exact=analysis.exact, two_sided=analysis.two_sided,
-                              alpha=round(1.0 - confidence, 12), intervals=tuple(analysis.intervals or ()),
-                              confidence=confidence)
+                              alpha=alpha, intervals=tuple(analysis.intervals or ()),
+                              confidence=confidence, precision=precision)
 
 
 def compile_job(plan: Plan, analysis: Analysis, table: Table) -> Job:

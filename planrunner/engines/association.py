@@ -23,15 +23,16 @@ from dataclasses import dataclass
 import numpy as np
 
 from planrunner.engines.blocks import bind as range_task
-from planrunner.engines.blocks import map_resamples
 from planrunner.engines.permcore import (
     ENUMERATION,
     ComputedNull,
     Description,
+    Judge,
     PermutationOptions,
     all_ties,
     check_null,
     choose_computation,
+    monte_carlo_null,
     observed_value,
     permutation_result,
     tie_tolerance,
@@ -49,7 +50,9 @@ def association_test(xy: np.ndarray, statistic: Statistic, options: PermutationO
     """Permutation test of a two-column statistic (predictor, outcome), or Freedman–Lane."""
     model, observed, scheme = _checked(xy, statistic, covariates)
     n = model.x.size
-    null = _null(model, statistic, options, stream, max(1, batch_elements // (2 * n)))
+    # the tie tolerance scales with the null's own values (the largest drawn so far, while drawing)
+    judge = Judge(observed, 0.0, lambda values: tie_tolerance(observed, float(np.max(np.abs(values)))))
+    null = _null(model, statistic, options, stream, max(1, batch_elements // (2 * n)), judge)
     check_null(null.values, statistic, "pairing(s)")
     tolerance = tie_tolerance(observed, float(np.max(np.abs(null.values))))
     warnings: tuple[EngineWarning, ...] = ()
@@ -128,7 +131,7 @@ def _choose(model: _Model, statistic: Statistic, options: PermutationOptions) ->
 
 
 def _null(model: _Model, statistic: Statistic, options: PermutationOptions, stream: Stream,
-          rows_per_batch: int) -> ComputedNull:
+          rows_per_batch: int, judge: Judge | None = None) -> ComputedNull:
     """The null over the n! pairings: listed in lexicographic order, or drawn (range tasks)."""
     n = model.x.size
     path, arrangements = _choose(model, statistic, options)
@@ -142,7 +145,7 @@ def _null(model: _Model, statistic: Statistic, options: PermutationOptions, stre
         return ComputedNull(null, path, arrangements)
     # ranges of resamples may run on other workers (engines.blocks); the same numbers
     task = range_task(_drawn_range, model, statistic, stream, rows_per_batch)
-    return ComputedNull(map_resamples(task, options.resamples), path, arrangements)
+    return monte_carlo_null(task, options, arrangements, judge)
 
 
 def _drawn_range(model: _Model, statistic: Statistic, stream: Stream, rows_per_batch: int,

@@ -68,10 +68,16 @@ from planrunner.engines.intervals import (
 )
 from planrunner.engines.jackknife import SMALL_SAMPLE, cluster_replicates, jackknife_replicates
 from planrunner.engines.lazy import ndtri
+from planrunner.engines.precision import (
+    ANDREWS_BUCHINSKY,
+    BootstrapPrecision,
+    PrecisionOutcome,
+    andrews_buchinsky_resamples,
+)
 from planrunner.engines.pvalues import P_INTERVAL_LEVEL, clopper_pearson
 from planrunner.engines.results import BootstrapResult, EngineWarning, Interval, NullTest, frozen_array
 from planrunner.engines.statistics import Statistic, check_samples, check_strata, to_compute_layout
-from planrunner.engines.streams import Stream
+from planrunner.engines.streams import DRAW_BLOCK, Stream
 from planrunner.errors import EngineError
 
 __all__ = [
@@ -211,11 +217,19 @@ class BootstrapOptions:
     alternative: str = "two-sided"
     # a stated null value: its p-value by inverting the first listed interval's one-sided bounds
     null_value: float | None = None
+    # resamples chosen to a target accuracy (engines.precision, Andrews & Buchinsky); ``resamples``
+    # then equals precision.max_resamples
+    precision: BootstrapPrecision | None = None
 
     def settings(self) -> dict[str, Any]:
         """The record's ``settings`` (JSON values: tuples become lists)."""
-        values = ((f.name, getattr(self, f.name)) for f in fields(self))
-        return {name: list(v) if isinstance(v, tuple) else v for name, v in values}
+        values = ((f.name, getattr(self, f.name)) for f in fields(self) if f.name != "precision")
+        out = {name: list(v) if isinstance(v, tuple) else v for name, v in values}
+        if self.precision is not None:
+            out["precision"] = {"se_relative": self.precision.se_relative,
+                                "interval_end_sd": self.precision.interval_end_sd,
+                                "max_resamples": self.precision.max_resamples}
+        return out
 
 
 def bootstrap(samples: Sequence[np.ndarray], statistic: Statistic, options: BootstrapOptions, *,
@@ -228,11 +242,58 @@ def bootstrap(samples: Sequence[np.ndarray], statistic: Statistic, options: Boot
     ``strata`` / ``clusters``: optional integer codes per group. ``paired``: the two groups are
     aligned pairs (row i of each). ``batch_elements``: about the most draws held at once.
     """
+    if options.precision is not None:
+        return _to_precision(samples, statistic, options, stream=stream, strata=strata, clusters=clusters,
+                             paired=paired, batch_elements=batch_elements)
     scheme = SCHEMES[_scheme_name(options, clusters is not None)]
     _check_options(options, scheme, strata is not None, clusters is not None, paired, batch_elements)
     prepared = _prepare(samples, statistic, options, scheme, strata, clusters, paired)
     drawn = scheme.draw(prepared, options, stream, batch_elements)
     return _summarise(prepared, options, drawn, batch_elements)
+
+
+def _to_precision(samples: Sequence[np.ndarray], statistic: Statistic, options: BootstrapOptions,
+                  **where: Any) -> BootstrapResult:
+    """The bootstrap with B chosen by the three-step rule of Andrews & Buchinsky (engines.precision):
+    a first stage of B₁ resamples, then the first B of the same stream (B₁ of them the same draws),
+    so the result equals a fixed-B run with that B."""
+    target = options.precision
+    assert target is not None
+    if options.exhaustive:
+        raise EngineError("an exhaustive bootstrap has no Monte Carlo error to choose resamples for",
+                          hint="remove precision, or exhaustive")
+
+    def run(resamples: int) -> BootstrapResult:
+        return bootstrap(samples, statistic, replace(options, resamples=resamples, precision=None), **where)
+
+    def se_and_kurtosis(result: BootstrapResult) -> tuple[float | None, float | None]:
+        return result.standard_error, _kurtosis(np.asarray(result.distribution))
+
+    def end_sds(result: BootstrapResult) -> list[float | None]:
+        first = result.intervals[0] if result.intervals else None
+        return list(first.monte_carlo_sd) if first is not None and first.monte_carlo_sd is not None else []
+
+    first_stage, resamples, facts = andrews_buchinsky_resamples(
+        target, first_stage=run, se_and_kurtosis=se_and_kurtosis, end_sds=end_sds)
+    result = run(resamples) if resamples != first_stage else run(first_stage)
+    achieved: dict[str, Any] = {}
+    if result.standard_error and result.standard_error_sd is not None:
+        achieved["se_relative"] = result.standard_error_sd / result.standard_error
+    sds = [s for s in end_sds(result) if s is not None]
+    if sds:
+        achieved["interval_end_sd"] = max(sds)
+    reached = all(achieved.get(key) is not None and achieved[key] <= goal * (1 + 1e-12)
+                  for key, goal in (("se_relative", target.se_relative), ("interval_end_sd", target.interval_end_sd))
+                  if goal is not None)
+    capped = facts["resamples_wanted"] > target.max_resamples
+    outcome = PrecisionOutcome(
+        rule=ANDREWS_BUCHINSKY,
+        parameters={"se_relative": target.se_relative, "interval_end_sd": target.interval_end_sd,
+                    "max_resamples": target.max_resamples, "block": DRAW_BLOCK, **facts},
+        resamples_used=resamples,
+        stopped_because="max_resamples" if capped else "target reached" if reached else "rule's B reached",
+        achieved=achieved)
+    return replace(result, precision=outcome)
 
 
 # ------------------------------------------------------------------ validate

@@ -26,14 +26,15 @@ from dataclasses import dataclass
 import numpy as np
 
 from planrunner.engines.blocks import bind as range_task
-from planrunner.engines.blocks import map_resamples
 from planrunner.engines.permcore import (
     ENUMERATION,
     ComputedNull,
     Description,
+    Judge,
     PermutationOptions,
     check_null,
     choose_computation,
+    monte_carlo_null,
     observed_value,
     permutation_result,
     tie_tolerance,
@@ -53,7 +54,8 @@ def cluster_test(x: np.ndarray, y: np.ndarray, x_clusters: np.ndarray, y_cluster
     x, y, clusters, observed = _checked(x, y, x_clusters, y_clusters, statistic)
     g, g1 = clusters.sums.size, clusters.first
     rows_per_batch = max(1, batch_elements // max(g, clusters.values.size))
-    null = _null(clusters, statistic, options, stream, rows_per_batch, fast)
+    tolerance = tie_tolerance(observed, float(np.max(np.abs(clusters.values))))
+    null = _null(clusters, statistic, options, stream, rows_per_batch, fast, Judge(observed, 0.0, lambda v: tolerance))
     check_null(null.values, statistic, "cluster arrangement(s)")
     about = Description(
         n=(x.size, y.size), scheme="cluster labels shuffled (whole clusters keep one group)",
@@ -61,7 +63,6 @@ def cluster_test(x: np.ndarray, y: np.ndarray, x_clusters: np.ndarray, y_cluster
                      "draws": "first group = clusters at the first G1 places of argsort(keys of row r)"},
         design={"clusters": g, "clusters_first_group": g1,
                 "observed_clusters_first_group": int(np.isin(clusters.levels, clusters.x_codes).sum())})
-    tolerance = tie_tolerance(observed, float(np.max(np.abs(clusters.values))))
     result = permutation_result(null, observed, options, tolerance=tolerance, about=about)
     level = 0.05 if options.alpha is None else options.alpha
     assert result.smallest_p is not None
@@ -129,7 +130,7 @@ def _choose(clusters: _Clusters, statistic: Statistic, options: PermutationOptio
 
 
 def _null(clusters: _Clusters, statistic: Statistic, options: PermutationOptions, stream: Stream,
-          rows_per_batch: int, fast: bool) -> ComputedNull:
+          rows_per_batch: int, fast: bool, judge: Judge | None = None) -> ComputedNull:
     """The null over the C(G, G1) cluster arrangements: listed, or drawn (range tasks)."""
     g, g1 = clusters.sums.size, clusters.first
     path, arrangements = _choose(clusters, statistic, options)
@@ -145,7 +146,7 @@ def _null(clusters: _Clusters, statistic: Statistic, options: PermutationOptions
         return ComputedNull(null, path, arrangements)
     # ranges of resamples may run on other workers (engines.blocks); the same numbers
     task = range_task(_drawn_range, clusters, statistic, stream, rows_per_batch, fast)
-    return ComputedNull(map_resamples(task, options.resamples), path, arrangements)
+    return monte_carlo_null(task, options, arrangements, judge)
 
 
 def _drawn_range(clusters: _Clusters, statistic: Statistic, stream: Stream, rows_per_batch: int, fast: bool,

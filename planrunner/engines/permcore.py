@@ -27,7 +27,9 @@ from typing import Any
 
 import numpy as np
 
+from planrunner.engines.blocks import map_resamples
 from planrunner.engines.exactdist import EXACT_FROM
+from planrunner.engines.precision import PrecisionOutcome, TestPrecision, draw_sequentially
 from planrunner.engines.pvalues import TWO_SIDED_RULES, summarize
 from planrunner.engines.results import EngineWarning, PermutationResult, frozen_array
 from planrunner.engines.statistics import Statistic
@@ -77,6 +79,9 @@ class PermutationOptions:
     alpha: float | None = None
     intervals: tuple[str, ...] = ()
     confidence: float | None = None
+    # resamples chosen to a decision risk (engines.precision): drawn block by block up to
+    # precision.max_resamples (``resamples`` then equals it, the bound for exact: auto)
+    precision: TestPrecision | None = None
 
     def __post_init__(self) -> None:
         _one_of("alternative", self.alternative, ALTERNATIVES)
@@ -96,9 +101,14 @@ class PermutationOptions:
 
     def settings(self) -> dict[str, Any]:
         """The options as the record states them (its ``settings``)."""
-        return {"resamples": self.resamples, "alternative": self.alternative, "exact": self.exact,
-                "two_sided": self.two_sided, "alpha": self.alpha, "intervals": list(self.intervals),
-                "confidence": self.confidence}
+        out = {"resamples": self.resamples, "alternative": self.alternative, "exact": self.exact,
+               "two_sided": self.two_sided, "alpha": self.alpha, "intervals": list(self.intervals),
+               "confidence": self.confidence}
+        if self.precision is not None:
+            out["precision"] = {"decision_risk": self.precision.risk,
+                                "max_resamples": self.precision.max_resamples,
+                                "levels": list(self.precision.all_levels())}
+        return out
 
 
 def tie_tolerance(observed: float, scale: float) -> float:
@@ -174,10 +184,51 @@ class ComputedNull:
     # the same weights as exact Python integers (an object array), where they pass 2**53 and the
     # exact programme was affordable; the counts and p-values are then taken from them
     exact_weights: np.ndarray | None = None
+    precision: PrecisionOutcome | None = None  # Monte Carlo drawn to a decision risk
 
     @property
     def exact(self) -> bool:
         return self.computation != MONTE_CARLO
+
+
+@dataclass(frozen=True)
+class Judge:
+    """What counts as extreme, known before drawing: the observed value, the centre of the null
+    and the tie tolerance (a function of the values drawn, since one engine scales it by them).
+    The same comparisons as :func:`~planrunner.engines.pvalues.summarize`."""
+
+    observed: float
+    centre: float
+    tolerance: Any  # Callable[[np.ndarray], float]
+
+    def counts(self, values: np.ndarray) -> dict[str, int]:
+        tol = float(self.tolerance(values))
+        return {"greater": int(np.count_nonzero(values >= self.observed - tol)),
+                "less": int(np.count_nonzero(values <= self.observed + tol)),
+                "absolute": int(np.count_nonzero(np.abs(values - self.centre)
+                                                 >= abs(self.observed - self.centre) - tol))}
+
+
+def monte_carlo_null(task: Any, options: PermutationOptions, arrangements: int, judge: Judge | None) -> ComputedNull:
+    """The Monte Carlo null: ``options.resamples`` draws, or (with ``options.precision``) blocks of
+    draws until the sequential test decides (``engines.precision``). ``task`` is the engine's range
+    task; ranges may run on other workers (``engines.blocks``), with the same numbers."""
+    if options.precision is None:
+        return ComputedNull(map_resamples(task, options.resamples), MONTE_CARLO, arrangements)
+    if judge is None:
+        raise EngineError("this test cannot draw its resamples to a decision risk", hint="give resamples instead")
+    values, outcome = draw_sequentially(task, options.precision, alternative=options.alternative,
+                                        two_sided=options.two_sided, counts=judge.counts)
+    return ComputedNull(values, MONTE_CARLO, arrangements, precision=outcome)
+
+
+def exact_precision(options: PermutationOptions, computation: str) -> PrecisionOutcome | None:
+    """The precision entry of a test asked for a decision risk but computed exactly: no draws."""
+    if options.precision is None or computation == MONTE_CARLO:
+        return None
+    return PrecisionOutcome(rule="none needed: the null was computed exactly", parameters={
+        "decision_risk": options.precision.risk, "max_resamples": options.precision.max_resamples},
+        resamples_used=0, stopped_because=f"exact ({computation})")
 
 
 @dataclass(frozen=True)
@@ -216,9 +267,11 @@ def permutation_result(null: ComputedNull, observed: float, options: Permutation
         p_greater=pv.p_greater, p_less=pv.p_less, count_absolute=unscaled(pv.count_absolute, scale), centre=centre,
         monte_carlo_se=pv.monte_carlo_se, p_interval=pv.p_interval, smallest_p=pv.smallest_p,
         null_weights=None if null.weights is None else frozen_array(null.weights),
-        null_weight_exponent=null.weight_exponent, null_exact_weights=null.exact_weights,
+        null_weight_exponent=null.weight_exponent,
+        null_exact_weights=None if null.exact_weights is None else tuple(int(c) for c in null.exact_weights),
         counts_exact=null.weights is None or exact_counts or null.arrangements <= EXACT_FROM,
-        computation=null.computation, design=dict(about.design))
+        computation=null.computation, design=dict(about.design),
+        precision=null.precision or exact_precision(options, null.computation))
 
 
 def unscaled(count: float | int, exponent: int) -> float | int | str:

@@ -50,7 +50,6 @@ from typing import Any
 import numpy as np
 
 from planrunner.engines.blocks import bind as range_task
-from planrunner.engines.blocks import map_resamples
 from planrunner.engines.exactdist import (
     EXACT_FROM,
     WORK_LIMIT,
@@ -65,10 +64,12 @@ from planrunner.engines.permcore import (
     ENUMERATION_LIMIT,
     ComputedNull,
     Description,
+    Judge,
     PermutationOptions,
     all_ties,
     check_null,
     choose_computation,
+    monte_carlo_null,
     observed_value,
     permutation_result,
     tie_tolerance,
@@ -145,11 +146,12 @@ def permutation_test(samples: Sequence[np.ndarray], statistic: Statistic, option
     pooled = _pool(data, codes)
     observed = observed_value(statistic, *[to_compute_layout(a) for a in data])
     rows_per_batch = max(1, batch_elements // (pooled.values.shape[0] * statistic.columns))
-    null = _null(pooled, statistic, options, stream, rows_per_batch, fast)
-    check_null(null.values, statistic)
-
     scale = max(float(np.max(np.abs(a))) for a in data)
     tolerance = tie_tolerance(observed, scale)  # observed is finite (checked above)
+    judge = Judge(observed, null_centre(pooled, statistic), lambda values: tolerance)
+    null = _null(pooled, statistic, options, stream, rows_per_batch, fast, judge)
+    check_null(null.values, statistic)
+
     warnings = []
     if null.arrangements < FEW_ARRANGEMENTS:
         warnings.append(EngineWarning(
@@ -197,7 +199,7 @@ def _choose(pooled: _Pooled, statistic: Statistic, options: PermutationOptions,
 
 
 def _null(pooled: _Pooled, statistic: Statistic, options: PermutationOptions, stream: Stream,
-          rows_per_batch: int, fast: bool) -> ComputedNull:
+          rows_per_batch: int, fast: bool, judge: Judge | None = None) -> ComputedNull:
     """The null by the cheapest exact way allowed, or by Monte Carlo (the label-shuffle space)."""
     path, arrangements, dp_plan = _choose(pooled, statistic, options, fast)
     if path == DYNAMIC_PROGRAMMING:
@@ -209,7 +211,7 @@ def _null(pooled: _Pooled, statistic: Statistic, options: PermutationOptions, st
         return ComputedNull(values, path, arrangements)
     # ranges of resamples may run on other workers (engines.blocks); the same numbers
     task = range_task(_random_range, pooled, statistic, stream, rows_per_batch, fast)
-    return ComputedNull(map_resamples(task, options.resamples), path, arrangements)
+    return monte_carlo_null(task, options, arrangements, judge)
 
 
 def null_centre(pooled: _Pooled, statistic: Statistic) -> float:

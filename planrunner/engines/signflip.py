@@ -26,7 +26,6 @@ from typing import Any
 import numpy as np
 
 from planrunner.engines.blocks import bind as range_task
-from planrunner.engines.blocks import map_resamples
 from planrunner.engines.exactdist import EXACT_FROM, RESCALE, exact_subset_sums_any_size, integer_scores
 from planrunner.engines.lazy import rankdata
 from planrunner.engines.permcore import (
@@ -34,9 +33,11 @@ from planrunner.engines.permcore import (
     ENUMERATION,
     ComputedNull,
     Description,
+    Judge,
     PermutationOptions,
     check_null,
     choose_computation,
+    monte_carlo_null,
     observed_value,
     permutation_result,
     tie_tolerance,
@@ -129,20 +130,21 @@ def signflip_test(x: np.ndarray, y: np.ndarray, statistic: Statistic, options: P
     """Sign-flip test of a two-group ``statistic`` on pairs (x[i], y[i])."""
     x, y, observed = _checked(x, y, statistic)
     pairs = _Pairs.of(x, y, statistic)
-    null = _null(pairs, statistic, options, stream, max(1, batch_elements // max(1, 2 * x.size)), fast)
+    centre = float(pairs.scores.sum()) / 2.0 if pairs.scores is not None and statistic.name == "signed_rank" else 0.0
+    tolerance = tie_tolerance(observed, float(np.max(np.abs(np.concatenate([x, y])))))
+    null = _null(pairs, statistic, options, stream, max(1, batch_elements // max(1, 2 * x.size)), fast,
+                 Judge(observed, centre, lambda values: tolerance))
     check_null(null.values, statistic, "sign pattern(s)")
     warnings: tuple[EngineWarning, ...] = ()
     if np.all(pairs.d == 0):
         warnings = (EngineWarning("degenerate-distribution",
                                   "every pair difference is zero: swaps change nothing and p = 1"),)
-    centre = float(pairs.scores.sum()) / 2.0 if pairs.scores is not None and statistic.name == "signed_rank" else 0.0
     about = Description(
         n=(x.size, x.size), scheme="sign-flip within pairs (the two labels swapped within each pair)",
         conventions={"p_value": "exact: count / 2^n sign patterns (duplicates counted); Monte Carlo: "
                                 "(count + 1) / (resamples + 1)",
                      "draws": "random bits: ceil(n/64) uint64 words per resample, pair i swapped when bit i is 1"},
         design={"pairs": x.size})
-    tolerance = tie_tolerance(observed, float(np.max(np.abs(np.concatenate([x, y])))))
     return permutation_result(null, observed, options, tolerance=tolerance, about=about, centre=centre,
                               warnings=warnings)
 
@@ -192,7 +194,7 @@ def _choose(pairs: _Pairs, statistic: Statistic, options: PermutationOptions) ->
 
 
 def _null(pairs: _Pairs, statistic: Statistic, options: PermutationOptions, stream: Stream,
-          rows_per_batch: int, fast: bool) -> ComputedNull:
+          rows_per_batch: int, fast: bool, judge: Judge | None = None) -> ComputedNull:
     """The null over the 2ⁿ sign patterns: listed, by subset-sum DP, or drawn (range tasks)."""
     path, arrangements, integer = _choose(pairs, statistic, options)
     n = pairs.d.size
@@ -207,7 +209,7 @@ def _null(pairs: _Pairs, statistic: Statistic, options: PermutationOptions, stre
         and n <= TABLE_PAIRS_LIMIT else None
     # ranges of resamples may run on other workers (engines.blocks); the same numbers
     task = range_task(_drawn_range, pairs, statistic, stream, rows_per_batch, fast, lookup)
-    return ComputedNull(map_resamples(task, options.resamples), path, arrangements)
+    return monte_carlo_null(task, options, arrangements, judge)
 
 
 def _subset_sum_null(pairs: _Pairs, statistic: Statistic, ints: np.ndarray,

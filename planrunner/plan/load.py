@@ -25,7 +25,16 @@ from planrunner.plan.expr import parse_expression
 from planrunner.plan.modelrules import model_checks
 from planrunner.plan.params import parameter_problems
 from planrunner.plan.problems import Problem, did_you_mean
-from planrunner.plan.schema import DATA_SUFFIXES, METHOD_MODELS, METHODS, RENAMED_KEYS, RENAMED_VALUES, Dataset, Plan
+from planrunner.plan.schema import (
+    DATA_SUFFIXES,
+    METHOD_MODELS,
+    METHODS,
+    RENAMED_KEYS,
+    RENAMED_VALUES,
+    Dataset,
+    Plan,
+    precision_of,
+)
 from planrunner.plan.survrules import censoring_checks
 from planrunner.plan.yamlsafe import MAX_PLAN_BYTES, LoadedYaml, Path_, dotted, load_yaml
 
@@ -275,8 +284,51 @@ def cross_check(plan: Plan) -> list[Problem]:
                 problems.append(Problem(("multiplicity", j, "family", k),
                                         f"analysis '{member}' is a jackknife and has no p-value",
                                         "adjust only bootstrap or permutation analyses"))
+    problems += precision_problems(plan)
     problems += [Problem(path, message, hint) for path, message, hint in parameter_problems(plan)]
     return problems
+
+
+def precision_problems(plan: Plan) -> list[Problem]:
+    """``precision`` rules: the target fits the method, replaces ``resamples`` rather than joining
+    it, and is not asked of a computation that cannot stop early (a shift interval, a max-t family's
+    joint run, an exhaustive bootstrap)."""
+    out: list[Problem] = []
+    in_max_t = {m for fam in plan.multiplicity if fam.method == "max-t" for m in fam.family}
+    for i, a in enumerate(plan.analyses):
+        if a.method == "jackknife":
+            continue
+        at = ("analyses", i, "precision")
+        own = a.precision
+        if own is not None and a.resamples is not None:
+            out.append(Problem(at, "give either resamples or precision, not both",
+                               "precision chooses the resamples (up to max_resamples)"))
+        if own is not None and a.method == "permutation" and own.decision_risk is None \
+                and not (own.se_relative or own.interval_end_sd):
+            out.append(Problem(at, "a permutation test's precision is its decision_risk",
+                               "give decision_risk, e.g. 0.001"))
+        if own is not None and a.method == "permutation" and (own.se_relative or own.interval_end_sd):
+            out.append(Problem(at, "se_relative and interval_end_sd apply to bootstrap analyses",
+                               "give a permutation test decision_risk only"))
+        if own is not None and a.method == "bootstrap" and own.se_relative is None and own.interval_end_sd is None \
+                and own.decision_risk is None:
+            out.append(Problem(at, "a bootstrap's precision is se_relative and/or interval_end_sd",
+                               "give se_relative, e.g. 0.01, or interval_end_sd in the statistic's units"))
+        if own is not None and a.method == "bootstrap" and own.decision_risk is not None:
+            out.append(Problem(at, "decision_risk applies to permutation tests",
+                               "give a bootstrap se_relative or interval_end_sd"))
+        if precision_of(a, plan.defaults) is None:
+            continue
+        if a.method == "bootstrap" and a.exhaustive:
+            out.append(Problem(at, "an exhaustive bootstrap has no Monte Carlo error to choose resamples for",
+                               "remove precision (or exhaustive)"))
+        if a.method == "permutation" and a.intervals:
+            out.append(Problem(at, "a shift interval needs a fixed number of resamples",
+                               "give resamples instead of precision, or drop intervals: [shift]"))
+        if a.id in in_max_t:
+            out.append(Problem(at, "a max-t family's joint run draws a fixed number of resamples",
+                               "give resamples instead of precision, or adjust the family with holm"))
+    return out
 
 
 def _check_dataset_file(name: str, file: str) -> list[Problem]:

@@ -108,12 +108,33 @@ class Groups(Strict):
         return self
 
 
+class Precision(Strict):
+    """Resamples chosen to a stated precision instead of a fixed number (engines.precision): a
+    permutation test draws blocks of 1000 until its decision at alpha has resampling risk at most
+    ``decision_risk``; a bootstrap draws the number of blocks Andrews & Buchinsky's rule gives for
+    ``se_relative`` and/or ``interval_end_sd``; never more than ``max_resamples``."""
+
+    decision_risk: Annotated[float, Field(gt=0.0, le=0.1)] | None = None
+    se_relative: Annotated[float, Field(gt=0.0, le=0.5)] | None = None
+    interval_end_sd: Annotated[float, Field(gt=0.0)] | None = None
+    max_resamples: Annotated[int, Field(ge=1000, le=10_000_000, multiple_of=1000)]
+
+    @model_validator(mode="after")
+    def _a_target(self) -> Precision:
+        if self.decision_risk is None and self.se_relative is None and self.interval_end_sd is None:
+            raise ValueError("give a target: decision_risk (tests), se_relative or interval_end_sd (bootstrap)")
+        return self
+
+
 class Defaults(Strict):
     """Settings that every analysis inherits unless it says otherwise."""
 
     resamples: Resamples = 9999
     confidence: Confidence = 0.95
     alternative: Alternative = "two-sided"
+    # inherited by every bootstrap (with se_relative or interval_end_sd) and permutation test (with
+    # decision_risk) that gives neither resamples nor precision itself
+    precision: Precision | None = None
 
 
 class AnalysisBase(Strict):
@@ -153,6 +174,7 @@ class Blocks(Strict):
 class BootstrapAnalysis(AnalysisBase):
     method: Literal["bootstrap"]
     resamples: Resamples | None = None
+    precision: Precision | None = None
     confidence: Confidence | None = None
     intervals: Annotated[list[IntervalMethod], Field(min_length=1)] = Field(
         default_factory=lambda: list[IntervalMethod](["percentile", "bca"]))
@@ -189,6 +211,7 @@ class BootstrapAnalysis(AnalysisBase):
 class PermutationAnalysis(AnalysisBase):
     method: Literal["permutation"]
     resamples: Resamples | None = None
+    precision: Precision | None = None
     alternative: Alternative | None = None
     exact: Literal["auto", "always", "never"] = "auto"
     two_sided: Literal["doubled", "absolute"] = "doubled"  # doubled: 2·min(p_greater, p_less)
@@ -245,3 +268,16 @@ class Plan(Strict):
     report: ReportOptions = Field(default_factory=ReportOptions)
     parameters: dict[Annotated[str, Field(pattern=r"^[A-Za-z_][A-Za-z0-9_]{0,63}$")], Parameter] = Field(
         default_factory=dict)
+
+
+def precision_of(analysis: BootstrapAnalysis | PermutationAnalysis, defaults: Defaults) -> Precision | None:
+    """The precision target an analysis runs to: its own, else the plan's default when the analysis
+    gives no resamples and the default has a target for its method; None: a fixed resamples."""
+    if analysis.precision is not None:
+        return analysis.precision
+    inherited = defaults.precision
+    if analysis.resamples is not None or inherited is None:
+        return None
+    own = (inherited.decision_risk is not None if analysis.method == "permutation"
+           else inherited.se_relative is not None or inherited.interval_end_sd is not None)
+    return inherited if own else None

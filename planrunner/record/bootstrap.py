@@ -12,7 +12,14 @@ from planrunner.engines.results import BootstrapResult, Interval, NullTest
 from planrunner.record.bands import RULE as MC_INTERVAL_RULE
 from planrunner.record.bands import interval_bands
 from planrunner.record.canonical import plain_number as _f
-from planrunner.record.fields import MethodFields, array_sha256, distribution_summary, jsonable, support
+from planrunner.record.fields import (
+    MethodFields,
+    array_sha256,
+    distribution_summary,
+    jsonable,
+    precision_fields,
+    support,
+)
 
 
 def bootstrap_fields(result: BootstrapResult, bins: int, *, save_distribution: bool = False) -> MethodFields:
@@ -29,6 +36,7 @@ def bootstrap_fields(result: BootstrapResult, bins: int, *, save_distribution: b
         intervals=tuple(_interval(i) for i in result.intervals),
         p_value=None if null is None else _f(null.p_value),
         resamples=int(result.resamples), exact=bool(result.exact), alternative=result.alternative,
+        precision=precision_fields(result.precision),
         monte_carlo={
             **({} if null is None else null_test_monte_carlo(null)),
             # MC s.d. of a B-replicate SE: SE·sqrt((κ−1)/(4B)) (V-TOL); of the bias: SE/√B

@@ -185,6 +185,7 @@ def analysis_entry(loaded: LoadedPlan, analysis: Analysis, job: Job, result: Res
         **{key: numbers[key] for key in ("alternative", "exact", "resamples", "monte_carlo")},
         "details": _with_curves(numbers["details"], job),
         "distribution": numbers["distribution"],
+        "precision": numbers["precision"],
     }
 
 

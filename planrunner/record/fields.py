@@ -34,13 +34,27 @@ class MethodFields:
     distribution: dict[str, Any] | None = None
     # for the multiplicity families: the smallest p-value the test can give (permutation-type only)
     smallest_p: float | None = None
+    # resamples chosen to a stated precision (engines.precision): rule, parameters, resamples used,
+    # why it stopped, and what was achieved; None with a fixed number of resamples
+    precision: dict[str, Any] | None = None
 
     def entry_fields(self) -> dict[str, Any]:
         """The fields in the record's order (`smallest_p` is in `details`, not a field of its own)."""
         return {"estimate": self.estimate, "standard_error": self.standard_error, "bias": self.bias,
                 "intervals": list(self.intervals), "p_value": self.p_value, "alternative": self.alternative,
                 "exact": self.exact, "resamples": self.resamples, "monte_carlo": self.monte_carlo,
-                "details": self.details, "distribution": self.distribution}
+                "details": self.details, "distribution": self.distribution, "precision": self.precision}
+
+
+def precision_fields(outcome: Any) -> dict[str, Any] | None:
+    """The record's ``precision`` entry of an engine's ``PrecisionOutcome`` (None: fixed resamples)."""
+    if outcome is None:
+        return None
+    return {"rule": outcome.rule, "parameters": {k: _f(v) if isinstance(v, float) else v
+                                                 for k, v in outcome.parameters.items()},
+            "resamples_used": int(outcome.resamples_used), "stopped_because": outcome.stopped_because,
+            "decisions": [dict(d) for d in outcome.decisions],
+            "achieved": {k: _f(v) for k, v in outcome.achieved.items()}}
 
 
 def histogram(values: np.ndarray, bins: int) -> dict[str, Any]:

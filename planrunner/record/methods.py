@@ -98,6 +98,40 @@ def _sentence(a: dict[str, Any]) -> str:
     return f"{lead} analysed {what} by the method '{a['method']}' (scheme: {a['scheme']})."
 
 
+def precision_sentence(a: dict[str, Any]) -> str:
+    """How the number of resamples was chosen, when the plan fixed a precision instead of a count."""
+    p = a.get("precision")
+    if not p:
+        return ""
+    par = p["parameters"]
+    if p["rule"].startswith("none needed"):
+        return (f" A decision risk of {par['decision_risk']:g} was pre-specified, but the null distribution was "
+                f"computed exactly, so no resampling was needed.")
+    if p["decisions"]:
+        alpha = next(d for d in p["decisions"] if d["is_alpha"])
+        levels = par["levels"]
+        at = ("alpha" if len(levels) == 1 else
+              f"alpha and at the family's levels {_list([f'{x:.4g}' for x in levels if x != par['alpha']])}")
+        decided = (f"the test stopped unresolved at the maximum of {par['max_resamples']:,} resamples"
+                   if alpha["decision"] == "unresolved" else
+                   f"at alpha = {alpha['level']:g} the hypothesis was {alpha['decision']} after "
+                   f"{alpha['resamples']:,} resamples")
+        return (f" The resamples were drawn in blocks of {par['look_every']} until a sequential Monte Carlo test "
+                f"with bounded resampling risk (Gandy 2009) decided at {at}, with a probability of at most "
+                f"{par['decision_risk']:g} that any decision differs from the one the exact p-value gives "
+                f"(at most {par['max_resamples']:,} resamples); {decided}.")
+    targets = []
+    if par.get("se_relative") is not None:
+        targets.append(f"a relative Monte Carlo standard deviation of the standard error of {par['se_relative']:g}")
+    if par.get("interval_end_sd") is not None:
+        targets.append(f"a Monte Carlo standard deviation of the pre-specified interval's ends of "
+                       f"{par['interval_end_sd']:g}")
+    capped = " (capped at the maximum)" if p["stopped_because"] == "max_resamples" else ""
+    return (f" The number of resamples, {p['resamples_used']:,}{capped}, was chosen for {_list(targets)} by the "
+            f"three-step method of Andrews and Buchinsky (2000) from a first stage of "
+            f"{par['first_stage_resamples']:,} resamples, rounded up to whole blocks of {par['block']}.")
+
+
 def methods_text(record: dict[str, Any]) -> str:
     """One paragraph describing every analysis, the multiplicity adjustment, seeds and software."""
     parts = [f"The analyses were pre-specified in the plan '{record['plan']['id']}' "
@@ -108,7 +142,7 @@ def methods_text(record: dict[str, Any]) -> str:
         parts.append(f"The plan was locked on {lock['locked_utc']} by {lock['operator']}; "
                      + ("the analysis ran as locked." if count == 0 else
                         f"the analysis that ran deviates from the lock in {count} place(s), listed in the record."))
-    parts += [_sentence(a) for a in record["analyses"]]
+    parts += [_sentence(a) + precision_sentence(a) for a in record["analyses"]]
     for fam in record.get("multiplicity", []):
         parts.append(f"The p-values of {_list([repr(i) for i in fam['family']])} were adjusted together by the "
                      f"{fam.get('method_label', fam['method'])} method.")

@@ -20,7 +20,7 @@ import numpy as np
 from planrunner.engines.permcore import power_of_ten_text, unscaled
 from planrunner.engines.results import PermutationResult
 from planrunner.record.canonical import plain_number as _f
-from planrunner.record.fields import MethodFields, support
+from planrunner.record.fields import MethodFields, precision_fields, support
 
 JSON_EXACT = 2 ** 53  # integers up to this are written as JSON numbers; every reader keeps them exact
 
@@ -52,7 +52,7 @@ def arrangements_count(count: int) -> int | str:
 
 
 def weighted_distribution(kind: str, values: np.ndarray, weights: np.ndarray | None, bins: int,
-                          weight_exponent: int = 0, exact_weights: np.ndarray | None = None) -> dict[str, Any]:
+                          weight_exponent: int = 0, exact_weights: tuple[int, ...] | None = None) -> dict[str, Any]:
     """Size, moments, range, histogram and hash of a null given by values (and exact weights).
 
     ``weights`` held as ``w · 2**weight_exponent`` (a DP null beyond the float range): the size is
@@ -86,8 +86,8 @@ def weighted_distribution(kind: str, values: np.ndarray, weights: np.ndarray | N
     size = _count(unscaled(total + infinite, weight_exponent)) if weights is not None else int(values.size + infinite)
     infinite_count = _count(unscaled(infinite, weight_exponent))
     if exact_weights is not None:
-        size = _count(int(np.sum(exact_weights)))
-        infinite_count = _count(int(np.sum(exact_weights[~np.isfinite(values_in)])))
+        size = _count(sum(exact_weights))
+        infinite_count = _count(sum(w for w, v in zip(exact_weights, values_in) if not math.isfinite(v)))
     return {"kind": kind, "size": size, "support_points": int(values.size), "mean": mean,
             # beyond the float range the divisor total − 1 is total itself
             "sd": math.sqrt(var) if rescaled else math.sqrt(var * total / (total - 1)) if total > 1 else None,
@@ -121,6 +121,7 @@ def permutation_fields(result: PermutationResult, bins: int) -> MethodFields:
     return MethodFields(
         estimate=_f(result.observed), p_value=_f(result.p_value), alternative=result.alternative,
         exact=exact, resamples=int(result.resamples), intervals=intervals,
+        precision=precision_fields(result.precision),
         monte_carlo={"p_value_sd": 0.0 if exact else _f(result.monte_carlo_se),
                      "p_value_interval": None if interval is None else
                      {"method": "Clopper–Pearson", "level": 0.99, "lower": interval[0], "upper": interval[1]}},

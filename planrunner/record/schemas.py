@@ -84,6 +84,14 @@ _analysis = _obj({
         "events": {"type": ["integer", "null"], "minimum": 0},
         "missing": {"type": ["integer", "null"], "minimum": 0}, "excluded": {"type": ["integer", "null"], "minimum": 0},
     })}}),
+    "precision": {"oneOf": [{"type": "null"}, _obj({
+        "rule": {"type": "string"}, "parameters": {"type": "object"},
+        "resamples_used": _int0,
+        "stopped_because": {"type": "string"},
+        "decisions": {"type": "array", "items": _obj({
+            "level": {"type": "number"}, "decision": {"enum": ["rejected", "not rejected", "unresolved"]},
+            "resamples": {"type": ["integer", "null"]}, "is_alpha": {"type": "boolean"}})},
+        "achieved": {"type": "object"}})]},
 }, required=["id", "method", "scheme", "statistic", "estimate", "standard_error", "bias", "intervals",
              "p_value", "alternative", "exact", "resamples", "n", "warnings", "settings", "stream"])
 _lock = {"oneOf": [{"type": "null"}, _obj({

@@ -120,3 +120,33 @@ def alpha(entry: dict[str, Any]) -> Any:
     if given is not None:
         return given
     return ((entry.get("details") or {}).get("null_test") or {}).get("alpha")
+def precision_line(entry: dict[str, Any]) -> str | None:
+    """The achieved precision of an analysis whose resamples were chosen to a stated precision, in
+    words: a test's decision with its bounded risk (or ``unresolved``), a bootstrap's achieved
+    Monte Carlo accuracy against its targets. None with a fixed number of resamples."""
+    p = entry.get("precision")
+    if not p:
+        return None
+    par = p["parameters"]
+    if p["rule"].startswith("none needed"):
+        return f"exact computation: no resampling needed for the decision risk {par['decision_risk']:g}"
+    if p["decisions"]:
+        parts = []
+        for d in p["decisions"]:
+            where = "alpha" if d["is_alpha"] else "family level"
+            if d["decision"] == "unresolved":
+                parts.append(f"unresolved at {where} {d['level']:.4g}: no decision within the maximum of "
+                             f"{par['max_resamples']:,} resamples")
+            else:
+                parts.append(f"{d['decision']} at {where} {d['level']:.4g} after {d['resamples']:,} resamples")
+        return (f"{'; '.join(parts)} (chance that a decision differs from the exact p-value's: at most "
+                f"{par['decision_risk']:g}; {p['resamples_used']:,} resamples drawn)")
+    achieved = p.get("achieved") or {}
+    parts = []
+    for key, words in (("se_relative", "relative Monte Carlo s.d. of the standard error"),
+                       ("interval_end_sd", "Monte Carlo s.d. of the pre-specified interval's ends")):
+        if par.get(key) is not None:
+            got = achieved.get(key)
+            parts.append(f"{words} {'—' if got is None else f'{got:.2g}'} (target {par[key]:g})")
+    capped = "; the target was not reached: stopped at max_resamples" if p["stopped_because"] == "max_resamples" else ""
+    return f"{p['resamples_used']:,} resamples: {'; '.join(parts)}{capped}"

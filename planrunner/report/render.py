@@ -182,7 +182,10 @@ def _analysis_view(index: int, entry: dict[str, Any]) -> dict[str, Any]:
     return {"figures": figures, "warnings": concerns, "direction": labels.direction(entry),
             "effect": {"value": value, "what": what, "statistic": statistic}, "sizes": labels.group_sizes(entry),
             "bands": [bands[i] if i < len(bands) else {} for i in range(len(entry.get("intervals") or []))],
-            "descriptives": tables}
+            "descriptives": tables,
+            "precision": labels.precision_line(entry),
+            "unresolved": any(d.get("decision") == "unresolved" and d.get("is_alpha")
+                              for d in (entry.get("precision") or {}).get("decisions", []))}
 
 
 def descriptive_tables(entry: dict[str, Any]) -> list[dict[str, Any]]:
