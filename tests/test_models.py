@@ -331,3 +331,59 @@ def test_the_orchard_demo_plan_locks_runs_and_verifies(tmp_path, capsys):
     assert all(not a["warnings"] for a in record["analyses"])
     assert record["datasets"][0]["derived"][0]["name"] == "gain"
     assert cli.main(["verify", str(run_folder / "record.json"), "--plan", str(plan)]) == 0
+
+
+# ------------------------------------------------------------------ Freedman–Lane for a group comparison
+
+
+FL_PLAN = """
+plan: freedman-lane
+title: Freedman–Lane for a group comparison
+seed: 21
+datasets:
+  d:
+    file: d.csv
+    columns:
+      arm: {{type: category, levels: [new, old]}}
+      base: {{type: number}}
+      y: {{type: number}}
+    derive:
+      is_new: "arm == 'new'"
+analyses:
+  - id: adjusted
+    data: d
+{body}
+    covariates: [base]
+    method: permutation
+    resamples: 1999
+"""
+
+
+def test_freedman_lane_of_the_group_coefficient_is_the_partial_slope_of_its_indicator(write_plan, tmp_path):
+    # identity: the adjusted mean difference is the partial slope of the 0/1 indicator of the first
+    # group (Frisch–Waugh–Lovell), so with the same analysis id (the same stream) the Freedman–Lane
+    # test of each gives the same null and the same p-value; the observed value equals statsmodels OLS
+    y, group, covariate = _heteroskedastic(60, 8)
+    csv = "arm,base,y\n" + "".join(f"{'new' if g else 'old'},{float(c)!r},{float(v)!r}\n"
+                                    for g, c, v in zip(group, covariate, y))
+    grouped = write_plan(FL_PLAN.format(body="    outcome: y\n    groups: {by: arm, compare: [new, old]}\n"
+                                             "    statistic: adjusted_mean_difference"), {"d.csv": csv})
+    first = run_plan(grouped, out=tmp_path / "a", clock=fixed_clock).record["analyses"][0]
+    sloped = write_plan(FL_PLAN.format(body="    outcome: y\n    predictor: is_new\n    statistic: slope"),
+                        name="slope.yaml")
+    second = run_plan(sloped, out=tmp_path / "b", clock=fixed_clock).record["analyses"][0]
+    reference = sm.OLS(y, np.column_stack([np.ones(60), group, covariate])).fit().params[1]  # statsmodels
+    assert first["estimate"] == pytest.approx(reference, rel=1e-10)
+    assert first["estimate"] == pytest.approx(second["estimate"], rel=1e-12)
+    assert first["p_value"] == second["p_value"]
+    assert "Freedman–Lane" in first["scheme"]
+
+
+def test_freedman_lane_refuses_what_it_cannot_honour(write_plan, tmp_path):
+    from planrunner.errors import PlanError
+    from planrunner.plan.load import read_plan
+    plan = write_plan(FL_PLAN.format(body="    outcome: y\n    groups: {by: arm, compare: [new, old]}\n"
+                                          "    strata: arm\n    statistic: adjusted_mean_difference"),
+                      {"d.csv": "arm,base,y\nnew,1,2\nold,2,3\n"})
+    with pytest.raises(PlanError, match="strata are not supported"):
+        read_plan(plan)

@@ -107,6 +107,7 @@ TRACE: dict[str, tuple[str, ...]] = {
                          "tests/test_models.py::test_the_numbers_do_not_depend_on_how_resamples_are_split",
                          "tests/test_models.py::test_constant_and_collinear_covariates_are_refused_whatever_their_scale",
                          "tests/test_models.py::test_separation_is_refused_never_a_huge_coefficient",
+                         "tests/test_models.py::test_freedman_lane_of_the_group_coefficient_is_the_partial_slope_of_its_indicator",
                          "tests/test_bad_inputs.py::test_bad_input_gives_one_clear_message"),
     "Multiplicity": ("tests/test_engines_randomization.py::test_adjustments_match_statsmodels_bh95",
                      "tests/test_permutation_plans.py::test_max_t_family_end_to_end_and_order_free"),

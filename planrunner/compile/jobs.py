@@ -184,7 +184,10 @@ def compile_job(plan: Plan, analysis: Analysis, table: Table) -> Job:
     samples = tuple(values[m] for m in masks)
     permutation_design: dict[str, Any] = {}
     options = _options(plan, analysis)
-    if statistic.form == "model" and isinstance(analysis, BootstrapAnalysis):
+    if statistic.form == "model" and isinstance(analysis, PermutationAnalysis):
+        # Freedman–Lane: the group coefficient's residual permutation reads the model's design matrix
+        permutation_design = {"model": model_design(plan, analysis, table, masks)}
+    elif statistic.form == "model" and isinstance(analysis, BootstrapAnalysis):
         # a model statistic reads a design matrix, not the samples (those give the record's counts)
         permutation_design = {"model": model_design(plan, analysis, table, masks)}
         if clusters is not None:

@@ -10,12 +10,12 @@ from planrunner.data.tables import Table
 from planrunner.engines.modelboot import ModelBootstrapOptions
 from planrunner.engines.models import Design
 from planrunner.plan.derived import dataset_columns
-from planrunner.plan.schema import BootstrapAnalysis, Defaults, Plan
+from planrunner.plan.schema import Analysis, BootstrapAnalysis, Defaults, Plan
 
 LOGISTIC = ("standardized_risk_difference", "standardized_risk_ratio", "standardized_odds_ratio")
 
 
-def model_design(plan: Plan, analysis: BootstrapAnalysis, table: Table, masks: list[np.ndarray]) -> Design:
+def model_design(plan: Plan, analysis: Analysis, table: Table, masks: list[np.ndarray]) -> Design:
     """The model's arrays over the rows the analysis uses (the compared groups, or every row)."""
     used = np.logical_or.reduce(masks)
     y = np.asarray(table.columns[analysis.outcome], dtype=float)[used]

@@ -9,16 +9,20 @@ from __future__ import annotations
 
 import dataclasses
 
+import numpy as np
+
 from planrunner.compile.jobs import Job
 from planrunner.engines import association, clusters, inversion, permutation, signflip
 from planrunner.engines.association import association_test
 from planrunner.engines.clusters import cluster_test
 from planrunner.engines.inversion import shift_interval
 from planrunner.engines.modelboot import ModelBootstrapOptions, check_model
+from planrunner.engines.models import check_rank
 from planrunner.engines.permcore import PermutationOptions
 from planrunner.engines.permutation import permutation_test
 from planrunner.engines.results import PermutationResult
 from planrunner.engines.signflip import signflip_test
+from planrunner.engines.statistics import get_statistic
 from planrunner.errors import EngineError
 
 
@@ -41,9 +45,21 @@ def planned_model(job: Job) -> None:
         raise EngineError(f"{exc.message}", where=f"analysis '{job.analysis_id}'", hint=exc.hint) from None
 
 
+def _freedman_lane(job: Job) -> tuple[np.ndarray, np.ndarray | None]:
+    """(group indicator, outcome) and the covariate columns of an adjusted_mean_difference, checked for
+    constant or collinear covariates: its Freedman–Lane test is the partial slope of the indicator."""
+    model = job.design["model"]
+    check_rank(model, "the model")
+    covariates = model.x[:, 2:] if model.x.shape[1] > 2 else None
+    return np.column_stack([model.x[:, 1], model.y]), covariates
+
+
 def _computation(job: Job) -> str:
     options = job.options
     assert isinstance(options, PermutationOptions)
+    if "model" in job.design:
+        xy, covariates = _freedman_lane(job)
+        return association.computation(xy, get_statistic("slope"), options, covariates=covariates)
     if "pairs" in job.design:
         return signflip.computation(job.samples[0], job.samples[1], job.statistic, options)
     if "clusters" in job.design:
@@ -60,6 +76,9 @@ def _computation(job: Job) -> str:
 def run_permutation(job: Job) -> PermutationResult:
     options = job.options
     assert isinstance(options, PermutationOptions)  # compile builds it for every permutation job
+    if "model" in job.design:
+        xy, covariates = _freedman_lane(job)
+        return association_test(xy, get_statistic("slope"), options, stream=job.stream, covariates=covariates)
     if "pairs" in job.design:
         return signflip_test(job.samples[0], job.samples[1], job.statistic, options, stream=job.stream)
     if "clusters" in job.design:

@@ -23,8 +23,11 @@ def model_checks(at: tuple, a: Any, statistic: Statistic) -> list[Problem]:
                                    "remove the key, or use adjusted_mean_difference, a standardized_* statistic "
                                    "or coefficient"))
         return out
+    if a.method == "permutation" and a.statistic == "adjusted_mean_difference":
+        return out  # Freedman–Lane (plan/permrules.py holds its rules)
     if a.method != "bootstrap":
-        out.append(Problem(at + ("method",), f"'{a.statistic}' is available with method: bootstrap only",
+        out.append(Problem(at + ("method",), f"'{a.statistic}' is available with method: bootstrap only"
+                           + (" (and adjusted_mean_difference with permutation)" if a.method == "permutation" else ""),
                            "use method: bootstrap (model_resampling: cases, residual, wild or wild-cluster)"))
         return out
     for key in ("alternative", "null_value"):

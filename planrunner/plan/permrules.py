@@ -51,12 +51,22 @@ def permutation_checks(at: tuple, a: Any, statistic: Statistic) -> list[Problem]
         out.append(Problem(at + ("strata",), "an association test shuffles the outcome over all rows; "
                            "shuffling within strata is not supported",
                            "remove strata, or adjust for numeric covariates with Freedman–Lane (statistic: slope)"))
-    if a.covariates is not None:
+    if a.statistic == "adjusted_mean_difference":
+        for key in ("strata", "pairs", "clusters"):
+            if getattr(a, key) is not None:
+                out.append(Problem(at + (key,), f"the Freedman–Lane test of adjusted_mean_difference permutes "
+                                   f"residuals over all rows; {key} are not supported",
+                                   "remove the key, or bootstrap the statistic (method: bootstrap honours "
+                                   "strata and clusters)"))
+        if a.intervals:
+            out.append(Problem(at + ("intervals",), "the shift interval inverts a test of labels, not of an "
+                               "adjusted difference", "remove intervals, or bootstrap the statistic"))
+    elif a.covariates is not None:
         if a.groups is not None:
             out.append(Problem(at + ("covariates",), "covariates with a group comparison would need a naive shuffle "
                                "of the labels that ignores them, which is not a valid test; it is refused",
-                               "code the group as a 0/1 predictor column and use statistic: slope "
-                               "(Freedman–Lane residual permutation)"))
+                               "use statistic: adjusted_mean_difference (Freedman–Lane residual "
+                               "permutation of the group coefficient)"))
         elif a.statistic != "slope":
             out.append(Problem(at + ("covariates",), f"with covariates the test is Freedman–Lane on the partial "
                                f"slope; '{a.statistic}' cannot be adjusted by shuffling",
