@@ -229,6 +229,11 @@ TRACE: dict[str, tuple[str, ...]] = {
         "test_permutation_designs_identical_serial_threads_processes_and_dask"),
     "Start-up": ("tests/test_startup.py::test_version_loads_no_heavy_library",
                  "tests/test_startup.py::test_plan_only_check_loads_no_heavy_library"),
+    "Large files": ("tests/test_columnar.py::test_edge_decimals_are_the_correctly_rounded_doubles",
+                    "tests/test_columnar.py::test_hard_decimals_at_random_agree_with_the_correct_rounding",
+                    "tests/test_columnar.py::test_random_files_read_the_same_both_ways",
+                    "tests/test_columnar.py::test_bad_input_corpus_reads_the_same_both_ways",
+                    "tests/test_columnar.py::test_a_plain_file_is_read_by_the_fast_path"),
     "Standing caution": ("tests/test_report.py::test_provenance_lists_plan_data_exclusions_seed_environment",),
 }
 

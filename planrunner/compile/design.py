@@ -7,7 +7,7 @@ from typing import Any
 
 import numpy as np
 
-from planrunner.data.tables import Table, group_value
+from planrunner.data.tables import Table, group_values
 from planrunner.engines.results import EngineWarning
 from planrunner.errors import DataError
 
@@ -15,7 +15,7 @@ from planrunner.errors import DataError
 def labels_of(table: Table, column: str) -> np.ndarray:
     """A column's values as group, stratum, pair and cluster labels: named exactly as the data checks
     and ``groups.compare`` name them (booleans as true/false), the one rule for every design column."""
-    return np.array([group_value(v) for v in table.columns[column]], dtype=object)
+    return group_values(table.columns[column])
 
 
 def cluster_codes(table: Table, column: str, masks: list[np.ndarray]) -> tuple[tuple[np.ndarray, ...], tuple[str, ...]]:

@@ -17,7 +17,7 @@ import numpy as np
 
 from planrunner.data.formats import TEXT_FORMATS, in_rows
 from planrunner.data.sets import select
-from planrunner.data.tables import FLOAT_EXACT, SHOW_LINES, Table, group_value
+from planrunner.data.tables import FLOAT_EXACT, SHOW_LINES, Table, group_values
 from planrunner.engines.statistics import MAGNITUDE_LIMIT, STATISTICS
 from planrunner.errors import DataError
 from planrunner.plan.derived import dataset_columns
@@ -65,7 +65,7 @@ def check_analysis(analysis: Any, table: Table, declared: list[str] | None = Non
         masks = [np.ones(table.rows_used, dtype=bool)]
     else:
         by = analysis.groups.by
-        column = np.array([group_value(v) for v in table.columns[by]], dtype=object)
+        column = group_values(table.columns[by])
         labels = tuple(analysis.groups.compare)
         masks = [column == level for level in labels]
         for level, mask in zip(labels, masks):
@@ -220,7 +220,7 @@ def _check_strata(analysis: Any, table: Table, labels: tuple[str, ...], masks: l
     """Every stratum used must hold rows of every compared group: a stratum seen in one group only
     cannot be compared within (permutation) and distorts a stratified bootstrap comparison."""
     name = analysis.strata
-    strata = np.array([group_value(v) for v in table.columns[name]], dtype=object)
+    strata = group_values(table.columns[name])
     used = np.logical_or.reduce(masks)
     for stratum in sorted(set(strata[used])):
         for label, mask in zip(labels, masks):
@@ -235,7 +235,7 @@ def _check_strata(analysis: Any, table: Table, labels: tuple[str, ...], masks: l
 def _check_pairs(analysis: Any, table: Table, labels: tuple[str, ...], masks: list[np.ndarray], who: str) -> None:
     """A pair is one unit measured once under each of the two groups."""
     name = analysis.pairs
-    pairs = np.array([group_value(v) for v in table.columns[name]], dtype=object)
+    pairs = group_values(table.columns[name])
     used = np.logical_or.reduce(masks)
     for pair in sorted(set(pairs[used])):
         for label, mask in zip(labels, masks):
@@ -257,7 +257,7 @@ def _check_clusters(analysis: Any, table: Table, labels: tuple[str, ...], masks:
                     who: str) -> None:
     """A cluster is one randomised or sampled unit, so all its rows belong to one group."""
     name = analysis.clusters
-    clusters = np.array([group_value(v) for v in table.columns[name]], dtype=object)
+    clusters = group_values(table.columns[name])
     seen: dict[str, str] = {}
     for label, mask in zip(labels, masks):
         for cluster in sorted(set(clusters[mask])):

@@ -16,12 +16,14 @@ import stat
 import unicodedata
 from collections.abc import Mapping
 from dataclasses import dataclass, field
+from datetime import date
 from decimal import Decimal, InvalidOperation
 from pathlib import Path
 from typing import Any
 
 import numpy as np
 
+from planrunner.data.columnar import Parsed
 from planrunner.data.formats import NULL, TEXT_FORMATS, Entry, format_of, in_rows, read_cells, text_dictionary
 from planrunner.errors import DataError, ExpressionError
 from planrunner.plan.derived import dataset_columns, derivations, needed_by
@@ -35,6 +37,7 @@ GROUPING_TYPES = ("category", "boolean", "integer", "text")
 INT64_MAX = 2**63 - 1  # an integer column holds 64-bit integers: beyond this it is refused
 FLOAT_EXACT = 2**53  # a double holds every whole number up to here, and not every one above
 _ISO_DATE = re.compile(r"\d{4}-\d{2}-\d{2}")
+_PLAIN_DATE = re.compile(r"[0-9]{4}-[0-9]{2}-[0-9]{2}")
 
 
 @dataclass(frozen=True)
@@ -181,6 +184,15 @@ def read_table(name: str, spec: Dataset, plan_folder: Path, *, data_root: Path |
                                           "(a deviation to document)")
     fmt = format_of(spec, path)
     if fmt in TEXT_FORMATS:
+        fast = _columnar(data, fmt, spec, name, shown)
+        if fast is not None:
+            parsed, line_of, ignored = fast
+            try:
+                return _checked_table(name, spec, shown, {}, line_of, set(), parsed=parsed, path=path, sha256=sha,
+                                      bytes=size, ignored_columns=ignored, format=fmt,
+                                      dictionary=text_dictionary(spec))
+            except (DataError, _Unvouched):
+                pass  # read again line by line: that reader locates every problem, all at once
         header, rows, line_of = _read_rows(data, fmt, shown)
         index = _column_index(header, spec, name, fmt, shown)
         raw = {c: np.array([row[index[c]].strip() for row in rows], dtype=object) for c in spec.columns}
@@ -199,20 +211,67 @@ def read_table(name: str, spec: Dataset, plan_folder: Path, *, data_root: Path |
         raise (exc if fmt in TEXT_FORMATS else in_rows(exc)) from None
 
 
+class _Unvouched(Exception):
+    """The columnar reader met something only the line-by-line reader may judge."""
+
+
+def _columnar(data: bytes, fmt: str, spec: Dataset, name: str,
+              shown: str) -> tuple[dict[str, Parsed], np.ndarray, tuple[str, ...]] | None:
+    """A large plain file's declared columns from pyarrow's vectorised parser (data/columnar.py),
+    each row's line and the ignored header columns; None when the file is small or not plain, or
+    pyarrow finds a problem."""
+    from planrunner.data import columnar
+
+    delimiter = "\t" if fmt == "tsv" else ","
+    if len(data) < columnar.COLUMNAR_FROM_BYTES:
+        return None
+    body = columnar.plain_body(data, delimiter)
+    if body is None:
+        return None
+    header = [h.strip() for h in columnar.header_fields(body, delimiter)]
+    try:
+        index = _column_index(header, spec, name, fmt, shown)
+    except DataError:
+        return None
+    kinds: dict[str, columnar.Kind] = {c: "number" if spec.columns[c].type == "number" else
+                                       "integer" if spec.columns[c].type == "integer" else "text"
+                                       for c in spec.columns}
+    parsed_at = columnar.read_columns(body, delimiter, len(header), {index[c]: kinds[c] for c in spec.columns},
+                                      list(spec.missing_values))
+    if parsed_at is None:
+        return None
+    parsed = {c: parsed_at[index[c]] for c in spec.columns}
+    rows_read = int(parsed[next(iter(spec.columns))].missing.size)
+    line_of = np.arange(2, rows_read + 2, dtype=np.int64)  # no blank line, no quoted line break
+    ignored = tuple(h or f"(unnamed column {i + 1})" for i, h in enumerate(header) if h not in spec.columns)
+    return parsed, line_of, ignored
+
+
 def _checked_table(name: str, spec: Dataset, shown: str, raw: dict[str, np.ndarray], line_of: np.ndarray,
-                   nulls: set[str], **facts: Any) -> Table:
+                   nulls: set[str], parsed: Mapping[str, Parsed] | None = None, **facts: Any) -> Table:
     """Missing values, types, levels and ranges of the declared columns, the derived columns and the
-    row filter; `facts` are the file's (path, hash, size, format, dictionary, ignored columns)."""
+    row filter; `facts` are the file's (path, hash, size, format, dictionary, ignored columns).
+
+    `parsed` holds the columnar reader's columns instead of `raw` (text-like ones as their distinct
+    texts); a value it cannot vouch for raises _Unvouched, and the caller reads the file line by line
+    instead."""
     rows_read = int(line_of.size)
     keep = np.ones(rows_read, dtype=bool)
     excluded: list[Exclusion] = []
+    parsed = parsed or {}
 
     markers = set(spec.missing_values) | nulls
-    values_read = {c: _distinct(raw[c], spec.columns[c].type, markers) for c in spec.columns
-                   if spec.columns[c].type in GROUPING_TYPES}
+    # a columnar-read integer column's distinct values are named only when asked for (ValuesRead)
+    values_read = {c: _distinct(_texts_read(parsed[c]) if c in parsed else raw[c], spec.columns[c].type, markers)
+                   for c in spec.columns if spec.columns[c].type in GROUPING_TYPES
+                   and (c not in parsed or parsed[c].uniques is not None)}
+    integers = {c: (p.integers, p.missing) for c, p in parsed.items() if p.integers is not None}
     problems: dict[str, DataError] = {}  # every column's first problem, reported together
     for column in spec.columns:
-        missing = np.isin(raw[column], list(markers)) & keep if markers else np.zeros(rows_read, bool)
+        if column in parsed:
+            missing = parsed[column].missing & keep
+        else:
+            missing = np.isin(raw[column], list(markers)) & keep if markers else np.zeros(rows_read, bool)
         if missing.any():
             count = int(missing.sum())
             if spec.missing == "refuse":
@@ -229,12 +288,14 @@ def _checked_table(name: str, spec: Dataset, shown: str, raw: dict[str, np.ndarr
         if c in problems:
             continue
         try:
-            columns[c] = _convert(raw[c], keep, c, spec.columns[c], shown, line_of)
+            columns[c] = (_vouched(parsed[c], keep, c, spec.columns[c], shown) if c in parsed
+                          else _convert(raw[c], keep, c, spec.columns[c], shown, line_of))
         except DataError as exc:
             problems[c] = exc
     if problems:
         raise DataError.of_all([problems[c] for c in spec.columns if c in problems], shown)
-    table_columns = {c: v[keep] for c, v in columns.items()}  # the rows that missing values left
+    # the rows that missing values left (no copy when they left every row: a large file's columns are big)
+    table_columns = columns if keep.all() else {c: v[keep] for c, v in columns.items()}
     early = needed_by(spec, parse_expression(spec.rows_where).columns) if spec.rows_where is not None else set()
     table_columns.update(_derive(name, spec, early, table_columns, line_of[keep], shown))
     if spec.rows_where is not None:
@@ -256,19 +317,102 @@ def _checked_table(name: str, spec: Dataset, shown: str, raw: dict[str, np.ndarr
     derived = {c: table_columns[c] for c in spec.derive if table_columns[c].dtype == bool}
     return Table(name=name, file=shown, **facts, rows_read=rows_read,
                  excluded=tuple(excluded), columns=table_columns, lines=line_of[keep],
-                 values_read={**values_read, **{c: tuple(sorted({group_value(v) for v in values}))
-                                                for c, values in derived.items()}},
+                 values_read=ValuesRead({**values_read, **{c: tuple(sorted({group_value(v) for v in values}))
+                                                           for c, values in derived.items()}}, integers),
                  derived=tuple((c, d.expression, dataset_columns(spec)[c].type) for c, d in spec.derived().items()),
-                 dropped=_dropped(raw, keep, markers, spec))
+                 dropped=_dropped(raw, keep, markers, spec, parsed))
 
 
-def _dropped(raw: Mapping[str, np.ndarray], keep: np.ndarray, markers: set[str], spec: Dataset) -> Dropped:
+def _vouched(column: Parsed, keep: np.ndarray, name: str, declared: Column, shown: str) -> np.ndarray:
+    """A columnar-read column typed as `_convert` types it, or _Unvouched where `_convert` must judge."""
+    whole = column.integers
+    numbers = whole.astype(float) if whole is not None else column.numbers
+    if numbers is not None:
+        low = declared.min if declared.min is not None else -np.inf
+        high = declared.max if declared.max is not None else np.inf
+        if not (np.isfinite(numbers) & (numbers >= low) & (numbers <= high) | ~keep).all():
+            raise _Unvouched(name)
+        # pandas reads '-0' as +0.0 in a column of whole numbers and as -0.0 beside a decimal: the
+        # line-by-line reader decides, so that the sign of a zero is as it always was
+        if declared.type == "number" and (np.signbit(numbers) & (numbers == 0) & keep).any():
+            raise _Unvouched(name)
+        return numbers if whole is None else whole
+    assert column.uniques is not None and column.codes is not None
+    used = np.zeros(column.uniques.size, dtype=bool)
+    used[column.codes[keep]] = True
+    if declared.type == "date":
+        dates = _plain_dates(column.uniques, used)
+        if dates is None:
+            raise _Unvouched(name)
+        return dates[column.codes]
+    try:  # elementwise, so converting each distinct text once gives the same array
+        typed = _convert(column.uniques, used, name, declared, shown, np.zeros(used.size, dtype=np.int64))
+    except DataError:
+        raise _Unvouched(name) from None
+    return typed[column.codes]
+
+
+def _plain_dates(texts: np.ndarray, used: np.ndarray) -> np.ndarray | None:
+    """The dates of the used texts, without pandas, when each is a calendar date of ASCII digits
+    whose year pandas reads whatever its time resolution (1678 to 2261); None otherwise (then
+    `_convert` decides, through pandas, as it always has)."""
+    dates = np.zeros(texts.size, dtype="datetime64[D]")
+    for i in np.flatnonzero(used):
+        text = texts[i]
+        if _PLAIN_DATE.fullmatch(text) is None or not 1678 <= int(text[:4]) <= 2261:
+            return None
+        try:
+            date(int(text[:4]), int(text[5:7]), int(text[8:]))
+        except ValueError:
+            return None
+        dates[i] = np.datetime64(text, "D")
+    return dates
+
+
+def _texts_read(column: Parsed) -> np.ndarray:
+    """The distinct texts of a columnar-read text-like column, over every row read."""
+    assert column.uniques is not None and column.codes is not None
+    return column.uniques[np.unique(column.codes[~column.missing])]
+
+
+class ValuesRead(Mapping[str, tuple[str, ...]]):
+    """`Table.values_read`, where a columnar-read integer column's distinct values (up to one per
+    row, and only ever shown in a message) are named on first use rather than on every read."""
+
+    def __init__(self, named: dict[str, tuple[str, ...]],
+                 integers: dict[str, tuple[np.ndarray, np.ndarray]]) -> None:
+        self._named = dict(named)
+        self._integers = {c: v for c, v in integers.items() if c not in named}  # values, missing rows
+
+    def __getitem__(self, key: str) -> tuple[str, ...]:
+        if key not in self._named and key in self._integers:
+            values, missing = self._integers.pop(key)
+            self._named[key] = tuple(sorted(str(v) for v in np.unique(values[~missing]).tolist()))
+        return self._named[key]
+
+    def __iter__(self):
+        return iter([*self._named, *self._integers])
+
+    def __len__(self) -> int:
+        return len(self._named) + len(self._integers)
+
+
+def _dropped(raw: Mapping[str, np.ndarray], keep: np.ndarray, markers: set[str], spec: Dataset,
+             parsed: Mapping[str, Parsed]) -> Dropped:
     """The rows not kept, each with why and with its grouping-type columns as labels."""
     rows = np.flatnonzero(~keep)
     missing = np.zeros(rows.size, dtype=bool)
     labels = {}
     for column, declared in spec.columns.items():
-        values = raw[column][rows]
+        if column in parsed and parsed[column].uniques is None:  # a columnar-read number or integer column
+            absent = parsed[column].missing[rows]
+            missing |= absent
+            whole = parsed[column].integers
+            if whole is not None and declared.type in GROUPING_TYPES:  # exact integers: named as _label names them
+                labels[column] = np.array([None if gone else str(v) for v, gone in zip(whole[rows].tolist(), absent)],
+                                          dtype=object)
+            continue
+        values = raw[column][rows] if column not in parsed else parsed[column].texts(rows)
         absent = np.isin(values, list(markers)) if markers else np.zeros(rows.size, dtype=bool)
         missing |= absent
         if declared.type in GROUPING_TYPES:
@@ -320,6 +464,19 @@ def _distinct(values: np.ndarray, kind: str, markers: set[str]) -> tuple[str, ..
 def group_value(value: object) -> str:
     """A column value as groups.compare and strata name it (booleans as true/false)."""
     return str(value).lower() if isinstance(value, (bool, np.bool_)) else str(value)
+
+
+def group_values(values: np.ndarray) -> np.ndarray:
+    """`group_value` of every element (an object array), without a Python call per row where the
+    column's type allows: a million group labels are named in milliseconds, not a second."""
+    if values.dtype == bool:
+        return np.where(values, "true", "false").astype(object)
+    if values.dtype.kind in "iu":  # each distinct whole number named once
+        distinct, inverse = np.unique(values, return_inverse=True)
+        return np.array([str(v) for v in distinct.tolist()], dtype=object)[inverse.reshape(-1)]
+    if values.dtype == object and all(type(v) is str for v in values.tolist()):
+        return values.copy()  # text and category columns: already their own names
+    return np.array([group_value(v) for v in values], dtype=object)
 
 
 def _read_rows(data: bytes, fmt: str, shown: str) -> tuple[list[str], list[list[str]], np.ndarray]:
