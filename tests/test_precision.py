@@ -251,3 +251,5 @@ def test_a_test_stopped_at_the_maximum_says_unresolved(monkeypatch) -> None:
     from planrunner.report.labels import precision_line
     line = precision_line({"precision": precision_fields(outcome)})
     assert line is not None and line.startswith("unresolved at alpha 0.05")
+    from planrunner.report.labels import unresolved
+    assert unresolved({"precision": precision_fields(outcome)}) and not unresolved({"precision": None})

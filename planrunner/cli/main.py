@@ -270,6 +270,7 @@ def summary_table(record: dict) -> str:
         side = labels.direction(a)
         shown = digits.p_value(a["p_value"], (a.get("monte_carlo") or {}).get("p_value_sd"), labels.alpha(a))
         p = "" if a["p_value"] is None else shown + (f" ({side})" if side else "")
+        p += ", unresolved at alpha" if labels.unresolved(a) else ""
         rows.append((a["id"], a["method"], estimate, interval, p, ", ".join(labels.group_sizes(a)),
                      str(len(a["warnings"]))))
     widths = [max(len(r[i]) for r in rows) for i in range(len(header))]

@@ -150,3 +150,9 @@ def precision_line(entry: dict[str, Any]) -> str | None:
             parts.append(f"{words} {'—' if got is None else f'{got:.2g}'} (target {par[key]:g})")
     capped = "; the target was not reached: stopped at max_resamples" if p["stopped_because"] == "max_resamples" else ""
     return f"{p['resamples_used']:,} resamples: {'; '.join(parts)}{capped}"
+
+
+def unresolved(entry: dict[str, Any]) -> bool:
+    """A test drawn to a decision risk that reached its maximum resamples without deciding at alpha."""
+    decisions = (entry.get("precision") or {}).get("decisions") or []
+    return any(d.get("decision") == "unresolved" and d.get("is_alpha") for d in decisions)

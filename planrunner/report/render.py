@@ -184,8 +184,7 @@ def _analysis_view(index: int, entry: dict[str, Any]) -> dict[str, Any]:
             "bands": [bands[i] if i < len(bands) else {} for i in range(len(entry.get("intervals") or []))],
             "descriptives": tables,
             "precision": labels.precision_line(entry),
-            "unresolved": any(d.get("decision") == "unresolved" and d.get("is_alpha")
-                              for d in (entry.get("precision") or {}).get("decisions", []))}
+            "unresolved": labels.unresolved(entry)}
 
 
 def descriptive_tables(entry: dict[str, Any]) -> list[dict[str, Any]]:
