@@ -44,7 +44,6 @@ from __future__ import annotations
 import math
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
-from functools import lru_cache
 from typing import Any
 
 import numpy as np
@@ -136,11 +135,20 @@ def family_levels(method: str, size: int, alpha: float) -> tuple[float, ...]:
     raise EngineError(f"no sequential levels for the multiplicity method {method!r}")
 
 
-@lru_cache(maxsize=64)
+_BOUNDARIES: dict[tuple[float, float, int], tuple[tuple[int, ...], tuple[int, ...]]] = {}
+
+
 def boundaries(level: float, risk: float, looks: int) -> tuple[tuple[int, ...], tuple[int, ...]]:
     """(U, L) at the looks n = 1000, 2000, ..., 1000·looks (Gandy's recursion under p = ``level``):
     stop with "p > level" when S_n ≥ U_n, with "p ≤ level" when S_n ≤ L_n. An unreachable
-    boundary is n + 1 (upper) or −1 (lower)."""
+    boundary is n + 1 (upper) or −1 (lower). Computed once per (level, risk, looks)."""
+    key = (level, risk, looks)
+    if key not in _BOUNDARIES:
+        _BOUNDARIES[key] = _boundaries(level, risk, looks)
+    return _BOUNDARIES[key]
+
+
+def _boundaries(level: float, risk: float, looks: int) -> tuple[tuple[int, ...], tuple[int, ...]]:
     pmf = stats.binom.pmf(np.arange(DRAW_BLOCK + 1), DRAW_BLOCK, level)
     keep = np.flatnonzero(pmf > _NEGLIGIBLE * pmf.max())
     step_offset, step = int(keep[0]), pmf[keep[0]:keep[-1] + 1]
