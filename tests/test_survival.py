@@ -372,6 +372,10 @@ def test_plan_runs_end_to_end(write_plan, tmp_path) -> None:
                  parameter=20.0)
     assert entries["rmst"]["estimate"] == entries["jack"]["estimate"] == pytest.approx(area, rel=1e-15)
     assert entries["rmst"]["intervals"][0]["lower"] < area < entries["rmst"]["intervals"][0]["upper"]
+    text = record["methods_text"]
+    assert "The outcome weeks was right-censored; survival was estimated by Kaplan–Meier" in text
+    assert f"In {share['resamples']} of 999 resamples ({share['share'] * 100:.1f}%) the statistic was not " \
+           "estimable" in text and "on_degenerate: percentile declares" in text
 
 
 def test_flipped_statistics_travel_to_workers_with_their_limit() -> None:

@@ -330,16 +330,16 @@ def _survival(name: str, label: str, samples: int, smooth: bool, kind: str, comb
 
 _survival("km_median", "Kaplan–Meier median", 1, False, "quantile", value=0.5)
 _survival("km_quantile", "Kaplan–Meier {value} quantile", 1, False, "quantile", parameter="quantile")
-_survival("survival_at", "Kaplan–Meier survival at {value}", 1, True, "at", parameter="at")
-_survival("rmst", "restricted mean survival time to {value}", 1, True, "rmst", parameter="horizon")
+_survival("survival_at", "Kaplan–Meier survival (at {value})", 1, True, "at", parameter="at")
+_survival("rmst", "restricted mean survival time (horizon {value})", 1, True, "rmst", parameter="horizon")
 _survival("km_mean", "Kaplan–Meier mean (restricted to the largest time)", 1, True, "mean")
 _survival("km_median_difference", "difference in Kaplan–Meier medians", 2, False, "quantile", "difference",
           value=0.5)
-_survival("survival_difference", "difference in Kaplan–Meier survival at {value}", 2, True, "at", "difference",
+_survival("survival_difference", "difference in Kaplan–Meier survival (at {value})", 2, True, "at", "difference",
           parameter="at")
-_survival("rmst_difference", "difference in restricted mean survival time to {value}", 2, True, "rmst",
+_survival("rmst_difference", "difference in restricted mean survival time (horizon {value})", 2, True, "rmst",
           "difference", parameter="horizon")
-_survival("rmst_ratio", "ratio of restricted mean survival times to {value}", 2, True, "rmst", "ratio",
+_survival("rmst_ratio", "ratio of restricted mean survival times (horizon {value})", 2, True, "rmst", "ratio",
           parameter="horizon")
 _survival("km_mean_difference", "difference in Kaplan–Meier means (restricted to the largest time)", 2, True,
           "mean", "difference")

@@ -67,7 +67,32 @@ def _comparison(a: dict[str, Any]) -> str:
     return ""
 
 
+def _censoring(a: dict[str, Any]) -> str:
+    """What a censored analysis adds: the estimator, its conventions, resamples not estimable."""
+    details = a.get("details") or {}
+    km = details.get("kaplan_meier")
+    if not km:
+        return ""
+    if km.get("censoring") == "left":
+        text = (f" The values of {a['outcome']} were left-censored at their detection limits; the Kaplan–Meier "
+                f"estimator was applied to the flipped values M − x (M = {km.get('flipped_at')!r}) and its results "
+                "mapped back.")
+    else:
+        text = (f" The outcome {a['outcome']} was right-censored; survival was estimated by Kaplan–Meier (events "
+                "before censorings at tied times; a q-quantile is the smallest time with S(t) ≤ 1 − q).")
+    missing = details.get("not_estimable")
+    if missing:
+        text += (f" In {missing['resamples']} of {a['resamples']} resamples ({missing['share'] * 100:.1f}%) the "
+                 "statistic was not estimable (a quantile not reached, or a curve read beyond the follow-up); "
+                 f"they were handled as on_degenerate: {(a.get('settings') or {}).get('on_degenerate')} declares.")
+    return text
+
+
 def _sentence(a: dict[str, Any]) -> str:
+    return _method_sentence(a) + _censoring(a)
+
+
+def _method_sentence(a: dict[str, Any]) -> str:
     what = f"the {a['statistic_label']} of {a['outcome']}{_comparison(a)}"
     settings = a.get("settings") or {}
     lead = f"Analysis '{a['id']}' ({a['role']})"
