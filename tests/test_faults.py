@@ -26,7 +26,7 @@ from planrunner.cli import main as cli
 from planrunner.errors import DataError
 from planrunner.execute import signals
 from planrunner.pipeline import run as runner
-from planrunner.trail import files, history, store
+from planrunner.trail import files, history, index, store
 
 ROOT = Path(__file__).resolve().parent.parent
 PLAN = """
@@ -58,9 +58,10 @@ def plan(write_plan) -> Path:
 
 
 def visible(folder: Path) -> list[Path]:
-    """What a reader of the output folder sees, less the run history log that successful runs append to."""
-    return sorted(p for p in folder.iterdir() if not p.name.startswith(".") and p.name != "history.jsonl"
-                  ) if folder.exists() else []
+    """What a reader of the output folder sees, less the run history log that successful runs append to
+    and the index page they rewrite (a view of that log and the records)."""
+    return sorted(p for p in folder.iterdir() if not p.name.startswith(".")
+                  and p.name not in ("history.jsonl", "index.html")) if folder.exists() else []
 
 
 def assert_next_run_works(plan: Path, out: Path, capsys) -> Path:
@@ -355,6 +356,7 @@ def test_an_interrupt_at_every_step_of_writing_leaves_folder_message_and_history
     seed = _seeded_output(plan, tmp_path)
     # the reports are a stand-in: what is tested is how the files reach the disk, not their content
     monkeypatch.setattr(runner.report, "render_all", lambda record: {"report.md": "# run\n"})
+    monkeypatch.setattr(index, "render_index_of", lambda out_root, kind: "<p>index</p>\n")  # replace_file still runs
     real_write_run = runner.write_run
     outcomes: dict[str, int] = {}
     at = 1 - stride
