@@ -322,6 +322,11 @@ def precision_problems(plan: Plan) -> list[Problem]:
         if a.method == "bootstrap" and a.exhaustive:
             out.append(Problem(at, "an exhaustive bootstrap has no Monte Carlo error to choose resamples for",
                                "remove precision (or exhaustive)"))
+        model = STATISTICS.get(a.statistic)
+        if a.method == "bootstrap" and model is not None and model.form == "model":
+            out.append(Problem(at, "the bootstrap of a model statistic draws a fixed number of resamples "
+                               "(precision is not yet available for it)",
+                               "give resamples: N for this analysis"))
         if a.method == "permutation" and a.intervals:
             out.append(Problem(at, "a shift interval needs a fixed number of resamples",
                                "give resamples instead of precision, or drop intervals: [shift]"))
