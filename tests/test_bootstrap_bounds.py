@@ -222,6 +222,9 @@ def test_bounds_from_a_plan_reach_record_and_reports(tmp_path: Path) -> None:
         assert "BCa, one-sided lower 95% bound" in text and "normal, one-sided upper 90% bound" in text
         assert "percentile 95%" in text  # the two-sided interval keeps its wording
     assert "one-sided lower 95% confidence bounds" in record["methods_text"]
+    # the index of runs names the pre-specified bound as a bound, with its one end
+    index = (tmp_path / "runs" / "index.html").read_text()
+    assert "BCa, one-sided lower 95% bound" in index and "BCa one-sided lower bound" in index
     import jsonschema
 
     from planrunner.record.schemas import record_schema

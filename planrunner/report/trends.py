@@ -18,13 +18,18 @@ from typing import Any
 from markupsafe import Markup
 
 from planrunner.report import digits as precision
-from planrunner.report.labels import interval_name
+from planrunner.report.labels import interval_name, one_sided
 
 
 def _number(value: Any) -> float | None:
     if isinstance(value, (int, float)) and not isinstance(value, bool) and math.isfinite(value):
         return float(value)
     return None
+
+
+def _bound(interval: dict[str, Any]) -> float | None:
+    """The one end of a one-sided bound (its lower end for a lower bound, upper for an upper one)."""
+    return interval["lower"] if interval.get("side") == "lower" else interval["upper"]
 
 
 def analysis_series(runs: list[dict[str, Any]]) -> list[dict[str, Any]]:
@@ -39,6 +44,8 @@ def analysis_series(runs: list[dict[str, Any]]) -> list[dict[str, Any]]:
                                 "estimate": _number(entry.get("estimate")),
                                 "interval": None if not first else {
                                     "method": interval_name(first.get("method")), "level": first.get("level"),
+                                    # a one-sided bound ("lower" / "upper") has its other end open (null)
+                                    "side": one_sided(first),
                                     "lower": _number(first.get("lower")), "upper": _number(first.get("upper"))},
                                 "p_value": _number(entry.get("p_value")), "changed": run.get("changed", False)})
     return list(series.values())
@@ -67,14 +74,22 @@ def trend_svg(series: dict[str, Any], runs: list[dict[str, Any]], fmt: Any = pre
             if interval and interval["lower"] is not None and interval["upper"] is not None:
                 ax.plot([p["position"], p["position"]], [interval["lower"], interval["upper"]], color=style.colour,
                         linestyle=style.line, linewidth=1.6)
+            elif interval and interval.get("side") and (bound := _bound(interval)) is not None:
+                # a one-sided bound: a line from the bound to the estimate, a caret pointing to the open side
+                ax.plot([p["position"], p["position"]], [bound, p["estimate"]], color=style.colour,
+                        linestyle=style.line, linewidth=1.6)
+                ax.plot([p["position"]], [bound], marker="^" if interval["side"] == "lower" else "v",
+                        markersize=6, color=style.colour, linestyle="none")
             ax.plot([p["position"]], [p["estimate"]], marker="o", markersize=5, color="black",
                     markerfacecolor=marker_face, linestyle="none")
         ax.plot([q["position"] for q in kept], [q["estimate"] for q in kept], color="black", linewidth=0.8)
         ax.plot([], [], marker="o", color="black", linestyle="-", linewidth=0.8, label="estimate")
         if method:
             level = next((p["interval"]["level"] for p in points if p["interval"]), None)
-            ax.plot([], [], color=style.colour, linestyle=style.line, linewidth=1.6,
-                    label=f"{method} {precision.significant((level or 0) * 100)}% interval")
+            side = next((p["interval"].get("side") for p in points if p["interval"]), None)
+            percent = precision.significant((level or 0) * 100)
+            name = f"{method} {percent}% interval" if not side else f"{method}, one-sided {side} {percent}% bound"
+            ax.plot([], [], color=style.colour, linestyle=style.line, linewidth=1.6, label=name)
         if any(p["changed"] for p in points):
             ax.plot([], [], marker="o", markerfacecolor="white", color="black", linestyle="none",
                     label="plan or lock changed")
@@ -104,7 +119,9 @@ def trend_svg(series: dict[str, Any], runs: list[dict[str, Any]], fmt: Any = pre
     for p in points:
         interval = p["interval"]
         text = f"run #{p['seq']}: estimate {fmt(p['estimate'])}"
-        if interval and interval["lower"] is not None:
+        if interval and interval.get("side") and _bound(interval) is not None:
+            text += (f", {interval['method']} one-sided {interval['side']} bound {fmt(_bound(interval))}")
+        elif interval and interval["lower"] is not None:
             text += f", {interval['method']} interval {fmt(interval['lower'])} to {fmt(interval['upper'])}"
         if p["p_value"] is not None:
             text += f", p = {fmt(p['p_value'])}"
