@@ -31,7 +31,8 @@ def run_demo(tmp_path: Path, capsys) -> tuple[Path, dict, str]:
 
 def test_demo_plan_runs_and_writes_three_files(tmp_path, capsys):
     folder, record, out = run_demo(tmp_path, capsys)
-    assert sorted(p.name for p in folder.iterdir()) == ["figures", "record.json", "report.html", "report.md"]
+    assert sorted(p.name for p in folder.iterdir()) == ["figures", "record.json", "report.html", "report.md",
+                                                       "results.csv", "results.parquet"]
     assert sorted(p.name for p in (folder / "figures").iterdir()) == [
         "excursion-rate-test-null.svg", "mean-jackknife-pseudo-values.svg", "mean-shift-test-null.svg",
         "primary-resampling.svg"]

@@ -49,7 +49,8 @@ analyses:
     resamples: 199
 """
 DATA = "g,y\na,1.5\na,2.5\na,3.0\na,2.0\nb,0.5\nb,4.0\nb,2.0\nb,1.0\n"
-FILES = ["figures", "record.json", "report.html", "report.md"]  # figures/ holds the Markdown report's pictures
+# figures/ holds the Markdown report's pictures; results.csv and results.parquet the results dataset
+FILES = ["figures", "record.json", "report.html", "report.md", "results.csv", "results.parquet"]
 
 
 @pytest.fixture

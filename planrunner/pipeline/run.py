@@ -34,6 +34,7 @@ from planrunner.plan.params import apply as apply_parameters
 from planrunner.plan.params import resolve_values
 from planrunner.plan.schema import Plan
 from planrunner.record.build import RunFacts, build_record, to_json
+from planrunner.record.results import results_csv, results_parquet
 from planrunner.report import render as report
 from planrunner.trail.files import HistoryLog, lock_for_run
 from planrunner.trail.history import HISTORY_FILE
@@ -228,7 +229,11 @@ def write_run(out_root: Path, name: str, record: dict, extra: dict[str, str] | N
     done = done or (lambda folder, entry, recovered: RunOutcome(folder, record, entry, False, tuple(recovered)))
     # report.html, report.md and the figures/*.svg files the Markdown report links to
     files = {"record.json": to_json(record), **report.render_all(record), **(extra or {})}
-    with staged_folder(out_root, name, files) as staging:
+    # the results dataset: the record's numbers as one flat table (record/results.py)
+    files["results.csv"] = results_csv(record)
+    parquet = results_parquet(record)
+    with staged_folder(out_root, name, {**files, **({"results.parquet": parquet} if parquet is not None else {})}) \
+            as staging:
         if not history:
             with holding_interrupts():  # put in place and known to be, or neither
                 return done(place_folder(staging, out_root, name), None, [])

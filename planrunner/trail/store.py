@@ -20,7 +20,7 @@ import json
 import os
 import secrets
 import shutil
-from collections.abc import Callable, Iterator
+from collections.abc import Callable, Iterator, Mapping
 from pathlib import Path
 from typing import Any
 
@@ -87,7 +87,7 @@ def write_new_folder(root: Path, name: str, files: dict[str, str]) -> Path:
 
 
 @contextlib.contextmanager
-def staged_folder(root: Path, name: str, files: dict[str, str]) -> Iterator[Path]:
+def staged_folder(root: Path, name: str, files: Mapping[str, str | bytes]) -> Iterator[Path]:
     """A hidden staging folder under ``root`` holding ``files``, each flushed to disk, for the body
     to put in place with `place_folder`. On leaving, whatever happened (an interrupt included), a
     staging folder that was not put in place is removed."""

@@ -1,0 +1,114 @@
+"""The results dataset: the record's numbers as one flat table, for pooling runs and loading them
+into another program (`results.csv`, and `results.parquet` when pyarrow is installed).
+
+One row per analysis × quantity, built from the record alone (never from the engines), so it can
+say nothing the record does not. Quantities: `estimate`, `standard_error`, `bias`, `interval`
+(one row per interval: `lower`, `upper`, `interval_method`, `level`, `side`), `p_value` and
+`p_value_adjusted` (one row per adjustment: `adjustment`). Every row carries the run id, the plan's
+id and hash, the analysis's dataset and that file's hash, and `n` (the rows the analysis used).
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+from typing import Any
+
+# the columns, in order, with their type and meaning (README, "Results dataset"; tests/test_results.py)
+COLUMNS: tuple[tuple[str, str, str], ...] = (
+    ("run_id", "string", "the run's id (record run_id)"),
+    ("plan_id", "string", "the plan's id"),
+    ("plan_sha256", "string", "SHA-256 of the plan file as read"),
+    ("analysis", "string", "the analysis id"),
+    ("role", "string", "primary, secondary, sensitivity or supplementary"),
+    ("data", "string", "the dataset the analysis uses"),
+    ("data_sha256", "string", "SHA-256 of that data file"),
+    ("set", "string", "the analysis set, empty without one"),
+    ("method", "string", "bootstrap, permutation, jackknife"),
+    ("statistic", "string", "the statistic's name"),
+    ("quantity", "string", "estimate, standard_error, bias, interval, p_value or p_value_adjusted"),
+    ("value", "double", "the number (empty for an interval, or where the record holds null)"),
+    ("lower", "double", "an interval's lower end (empty when open)"),
+    ("upper", "double", "an interval's upper end (empty when open)"),
+    ("interval_method", "string", "an interval's method (percentile, bca, ..., shift)"),
+    ("level", "double", "an interval's confidence level"),
+    ("side", "string", "an interval's side: two-sided, lower or upper"),
+    ("adjustment", "string", "the multiplicity method of an adjusted p-value"),
+    ("alternative", "string", "a p-value's alternative"),
+    ("monte_carlo_sd", "double", "Monte Carlo standard deviation of the value (empty when exact or not known)"),
+    ("lower_monte_carlo_sd", "double", "Monte Carlo standard deviation of an interval's lower end"),
+    ("upper_monte_carlo_sd", "double", "Monte Carlo standard deviation of an interval's upper end"),
+    # decimal text: an exact count of arrangements can exceed any 64-bit integer
+    ("resamples", "string", "resamples or arrangements behind the analysis, in decimal digits"),
+    ("n", "int64", "rows the analysis used"),
+)
+NAMES = tuple(name for name, _, _ in COLUMNS)
+
+
+def result_rows(record: dict[str, Any]) -> list[dict[str, Any]]:
+    """The record's numbers, one dict per analysis × quantity, with every column (None where empty)."""
+    hashes = {d["name"]: d["sha256"] for d in record["datasets"]}
+    rows: list[dict[str, Any]] = []
+    for a in record["analyses"]:
+        base = {name: None for name in NAMES} | {
+            "run_id": record["run_id"], "plan_id": record["plan"]["id"], "plan_sha256": record["plan"]["sha256"],
+            "analysis": a["id"], "role": a.get("role"), "data": a.get("data"), "data_sha256": hashes.get(a.get("data")),
+            "set": a.get("set"), "method": a["method"], "statistic": a["statistic"],
+            "resamples": None if a.get("resamples") is None else str(a["resamples"]),
+            "n": sum((a.get("n") or {}).get("groups", {}).values()) or None}
+        carlo = a.get("monte_carlo") or {}
+        for quantity, sd in (("estimate", None), ("standard_error", carlo.get("standard_error_sd")),
+                             ("bias", carlo.get("bias_sd"))):
+            if a.get(quantity) is not None:
+                rows.append(base | {"quantity": quantity, "value": a[quantity], "monte_carlo_sd": sd})
+        bands = {b.get("method"): b for b in carlo.get("intervals", [])}
+        for interval in a.get("intervals", []):
+            band = bands.get(interval["method"], {})
+            rows.append(base | {"quantity": "interval", "lower": interval.get("lower"), "upper": interval.get("upper"),
+                                "interval_method": interval["method"], "level": interval.get("level"),
+                                "side": interval.get("side", "two-sided"),
+                                "lower_monte_carlo_sd": band.get("lower_sd"),
+                                "upper_monte_carlo_sd": band.get("upper_sd")})
+        if a.get("p_value") is not None:
+            rows.append(base | {"quantity": "p_value", "value": a["p_value"], "alternative": a.get("alternative"),
+                                "monte_carlo_sd": carlo.get("p_value_sd")})
+        for adjusted in a.get("adjusted_p_values", []):
+            rows.append(base | {"quantity": "p_value_adjusted", "value": adjusted["p_value"],
+                                "adjustment": adjusted["method"], "alternative": a.get("alternative")})
+    return rows
+
+
+def _cell(value: Any) -> str:
+    if value is None:
+        return ""
+    if isinstance(value, float):
+        return repr(value)  # every digit: the text reads back to the same double
+    return str(value)
+
+
+def results_csv(record: dict[str, Any]) -> str:
+    """results.csv: a header of the column names, then one line per row (empty cell = no value)."""
+    out = io.StringIO()
+    writer = csv.writer(out, lineterminator="\n")
+    writer.writerow(NAMES)
+    for row in result_rows(record):
+        writer.writerow([_cell(row[name]) for name in NAMES])
+    return out.getvalue()
+
+
+def results_parquet(record: dict[str, Any]) -> bytes | None:
+    """results.parquet with the typed columns of COLUMNS; None when pyarrow is not installed."""
+    try:
+        import pyarrow as pa
+        import pyarrow.parquet as pq
+    except ImportError:
+        return None
+    kinds = {"string": pa.string(), "double": pa.float64(), "int64": pa.int64()}
+    rows = result_rows(record)
+    schema = pa.schema([pa.field(name, kinds[kind], metadata={"description": meaning})
+                        for name, kind, meaning in COLUMNS])
+    table = pa.table({name: pa.array([row[name] for row in rows], type=kinds[kind]) for name, kind, _ in COLUMNS},
+                     schema=schema)
+    sink = io.BytesIO()
+    pq.write_table(table, sink)
+    return sink.getvalue()
