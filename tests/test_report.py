@@ -48,7 +48,7 @@ def article(html: str, analysis_id: str) -> str:
 
 def test_run_folder_holds_the_reports_and_the_figures_the_markdown_links_to(demo, files):
     on_disk = {str(p.relative_to(demo.folder)) for p in demo.folder.rglob("*") if p.is_file()}
-    assert on_disk == set(files) | {"record.json"}
+    assert on_disk == set(files) | {"record.json", "results.csv", "results.parquet"}  # and the results dataset
     md = (demo.folder / "report.md").read_text(encoding="utf-8")
     linked = re.findall(r"\]\((figures/[^)]+\.svg)\)", md)
     assert sorted(linked) == sorted(k for k in files if k.startswith("figures/")) and len(linked) == 4
