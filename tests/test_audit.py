@@ -444,7 +444,7 @@ def test_compare_shows_a_changed_estimate(project, capsys, tmp_path):
     est_a, est_b = rec_a["analyses"][0]["estimate"], rec_b["analyses"][0]["estimate"]
     assert est_a != est_b
     from planrunner.report.render import number
-    line = next(line for line in out.splitlines() if line.startswith("head-difference  both"))
+    line = next(line for line in out.splitlines() if line.split()[:2] == ["head-difference", "both"])
     assert number(est_a) in line and number(est_b) in line and number(est_b - est_a).lstrip("-") in line
     assert "month=2026-10" in out and "month=2026-11" in out and "changed" in out
     assert md.read_text(encoding="utf-8").startswith("# Comparison of two runs")

@@ -178,6 +178,7 @@ analyses:
     alternative: greater
     intervals: [bca, percentile]
   - id: upper
+    role: secondary
     data: d
     outcome: y
     statistic: mean
@@ -186,6 +187,7 @@ analyses:
     confidence: 0.9
     intervals: [normal]
   - id: inherits-nothing
+    role: secondary
     data: d
     outcome: y
     statistic: mean

@@ -36,6 +36,7 @@ analyses:
     exact: always
 {more}
   - id: second
+    role: secondary
     data: d
     outcome: w
     groups: {{by: g, compare: [a, b]}}

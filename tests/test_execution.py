@@ -91,7 +91,8 @@ def _scheme_plan(write_plan) -> Path:
         "  d:", "    file: d.csv", "    columns:", "      day: {type: integer}", "      reading: {type: number}",
         "      arm: {type: category, levels: [a, b]}", "      pair: {type: integer}", "      site: {type: integer}",
         "  six:", "    file: six.csv", "    columns:", "      reading: {type: number}", "analyses:",
-        *(f"  - {{id: {name}, data: {data}, outcome: reading, statistic: {statistic}, method: bootstrap, {rest}}}"
+        *(f"  - {{id: {name}, role: secondary, data: {data}, outcome: reading, statistic: {statistic}, "
+          f"method: bootstrap, {rest}}}"
           for name, data, statistic, rest in analyses)])
     return write_plan(text, {"d.csv": "\n".join(rows) + "\n", "six.csv": "reading\n3.1\n4.7\n2.2\n5.9\n4.4\n3.8\n"})
 

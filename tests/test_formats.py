@@ -51,6 +51,7 @@ analyses:
     method: bootstrap
     resamples: 299
   - id: visits
+    role: secondary
     data: d
     outcome: visits
     groups: {{by: arm, compare: [drug, placebo]}}

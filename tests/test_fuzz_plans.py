@@ -32,8 +32,8 @@ VALID = {
                        "rows_where": "y < 100"}},
     "analyses": [{"id": "one", "data": "d", "outcome": "y", "groups": {"by": "g", "compare": ["a", "b"]},
                   "strata": "s", "statistic": "mean_difference", "method": "jackknife"},
-                 {"id": "two", "data": "d", "outcome": "y", "statistic": "mean", "method": "bootstrap",
-                  "resamples": 49}],
+                 {"id": "two", "role": "secondary", "data": "d", "outcome": "y", "statistic": "mean",
+                  "method": "bootstrap", "resamples": 49}],
     "multiplicity": [],
 }
 DATA = "g,y,s\na,1,p\na,2,q\na,4,p\na,3,q\nb,3,p\nb,5,q\nb,9,p\nb,7,q\n"

@@ -83,6 +83,7 @@ analyses:
     intervals: [shift]
     resamples: 999
   - id: ratio
+    role: secondary
     data: d
     outcome: y
     groups: {by: g, compare: [foam, standard]}
@@ -90,6 +91,7 @@ analyses:
     method: bootstrap
     resamples: 200
   - id: wards
+    role: secondary
     data: d
     outcome: y
     groups: {by: g, compare: [foam, standard]}

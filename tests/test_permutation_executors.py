@@ -56,15 +56,15 @@ analyses:
   - {id: clusters-mean, data: sessions, outcome: compliance, groups: {by: arm, compare: [dispenser, usual]},
      clusters: ward, statistic: mean_difference, method: permutation, exact: never}
   - {id: clusters-median, data: sessions, outcome: compliance, groups: {by: arm, compare: [dispenser, usual]},
-     clusters: ward, statistic: median_difference, method: permutation, exact: never}
+     role: secondary, clusters: ward, statistic: median_difference, method: permutation, exact: never}
   - {id: pairs-signed-rank, data: wards, outcome: compliance, groups: {by: period, compare: [after, before]},
-     pairs: ward, statistic: signed_rank, method: permutation, exact: never}
+     role: secondary, pairs: ward, statistic: signed_rank, method: permutation, exact: never}
   - {id: pairs-median, data: wards, outcome: compliance, groups: {by: period, compare: [after, before]},
-     pairs: ward, statistic: median_difference, method: permutation, exact: never}
+     role: secondary, pairs: ward, statistic: median_difference, method: permutation, exact: never}
   - {id: freedman-lane, data: wards_after, outcome: compliance, predictor: staff_per_bed,
-     covariates: [beds], statistic: slope, method: permutation, exact: never}
+     role: secondary, covariates: [beds], statistic: slope, method: permutation, exact: never}
   - {id: shuffled-outcome, data: wards_after, outcome: compliance, predictor: staff_per_bed, statistic: spearman,
-     method: permutation, exact: never}
+     role: secondary, method: permutation, exact: never}
 """
 
 

@@ -75,6 +75,7 @@ def pairs_csv(first: list[float], second: list[float]) -> str:
 def analysis(aid: str, statistic: str, *, more: str = "", groups: str = "[a, b]") -> str:
     return f"""
   - id: {aid}
+    role: secondary
     data: d
     outcome: y
     groups: {{by: g, compare: {groups}}}
@@ -90,6 +91,7 @@ PAIRED = ("      pair: {type: text}\n      arm: {type: category, levels: [a, b]}
 def paired(aid: str, statistic: str, more: str = "") -> str:
     return f"""
   - id: {aid}
+    role: secondary
     data: d
     outcome: y
     groups: {{by: arm, compare: [a, b]}}
@@ -325,6 +327,7 @@ def law_csv(rows=LAW7, z=None) -> str:
 def association(aid: str, statistic: str, more: str = "") -> str:
     return f"""
   - id: {aid}
+    role: secondary
     data: d
     outcome: y
     predictor: x
@@ -395,6 +398,7 @@ WARDS = {  # invented cluster-randomized data: 8 wards, 4 per arm, unequal sizes
 def test_cluster_shuffle_by_definition_and_few_clusters_warning(write_plan, tmp_path):
     body = "".join(f"""
   - id: {aid}
+    role: secondary
     data: d
     outcome: y
     groups: {{by: g, compare: [a, b]}}
@@ -405,6 +409,7 @@ def test_cluster_shuffle_by_definition_and_few_clusters_warning(write_plan, tmp_
 """ for aid, s in (("mean", "mean_difference"), ("median", "median_difference")))
     body += """
   - id: two-sided
+    role: secondary
     data: d
     outcome: y
     groups: {by: g, compare: [a, b]}
@@ -434,6 +439,7 @@ def test_too_few_clusters_warns(write_plan, tmp_path):
     few = {k: WARDS[k] for k in ("w1", "w2", "w3", "w5", "w6", "w7")}  # C(6, 3) = 20: smallest two-sided p 0.1
     body = """
   - id: few
+    role: secondary
     data: d
     outcome: y
     groups: {by: g, compare: [a, b]}
@@ -456,6 +462,7 @@ def test_cluster_split_across_groups_is_refused(write_plan, tmp_path):
     with pytest.raises(DataError, match=r"cluster 'w9' \(column 'ward'\) has rows in group 'a'"):
         run(write_plan, tmp_path, CLUSTER_COLUMNS, csv, """
   - id: x
+    role: secondary
     data: d
     outcome: y
     groups: {by: g, compare: [a, b]}
@@ -559,6 +566,7 @@ def two_outcome_csv() -> str:
 def endpoint(aid: str, outcome: str, statistic: str, alternative: str) -> str:
     return f"""
   - id: {aid}
+    role: secondary
     data: d
     outcome: {outcome}
     groups: {{by: g, compare: [a, b]}}

@@ -74,6 +74,7 @@ def test_bs_mouse_exhaustive_from_a_plan(write_plan, tmp_path):
     confidence: 0.9
     intervals: [percentile, basic, normal, bca]
   - id: median
+    role: secondary
     data: d
     outcome: days
     statistic: median
@@ -99,12 +100,14 @@ def test_jk_patch_and_ideal_bootstrap_from_a_plan(write_plan, tmp_path):
     csv = "z,y\n" + "".join(f"{o - p},{n - o}\n" for p, o, n in zip(PLACEBO, OLD, NEW))
     result = run(write_plan, tmp_path, "      z: {type: number}\n      y: {type: number}", csv, """
   - id: jack
+    role: secondary
     data: d
     outcome: y
     predictor: z
     statistic: ratio
     method: jackknife
   - id: ideal
+    role: secondary
     data: d
     outcome: y
     predictor: z
@@ -132,6 +135,7 @@ def test_bs_law_intervals_spearman_and_slope(write_plan, tmp_path):
     csv = "lsat,gpa\n" + "".join(f"{x},{y}\n" for x, y in LAW)
     result = run(write_plan, tmp_path, "      lsat: {type: number}\n      gpa: {type: number}", csv, """
   - id: r
+    role: secondary
     data: d
     outcome: gpa
     predictor: lsat
@@ -141,12 +145,14 @@ def test_bs_law_intervals_spearman_and_slope(write_plan, tmp_path):
     confidence: 0.9
     intervals: [percentile, bca]
   - id: rho
+    role: secondary
     data: d
     outcome: gpa
     predictor: lsat
     statistic: spearman
     method: jackknife
   - id: slope
+    role: secondary
     data: d
     outcome: gpa
     predictor: lsat
@@ -175,6 +181,7 @@ def test_bs_spatial_five_intervals_from_a_plan(write_plan, tmp_path):
     csv = "a\n" + "\n".join(map(str, SPATIAL_A)) + "\n"
     result = run(write_plan, tmp_path, "      a: {type: number}", csv, """
   - id: var
+    role: secondary
     data: d
     outcome: a
     statistic: plugin_variance
@@ -211,6 +218,7 @@ def test_percentile_basic_bca_agree_with_scipy_for_pairs_of_columns(write_plan, 
     csv = "lsat,gpa\n" + "".join(f"{x},{y}\n" for x, y in LAW)
     result = run(write_plan, tmp_path, "      lsat: {type: number}\n      gpa: {type: number}", csv, f"""
   - id: r
+    role: secondary
     data: d
     outcome: gpa
     predictor: lsat
@@ -236,6 +244,7 @@ def test_pairs_from_a_plan_give_the_ideal_paired_se(write_plan, tmp_path):
     cols = VISIT_COLS
     result = run(write_plan, tmp_path, cols, csv, """
   - id: paired
+    role: secondary
     data: d
     outcome: score
     groups: {by: visit, compare: [first, second]}
@@ -245,6 +254,7 @@ def test_pairs_from_a_plan_give_the_ideal_paired_se(write_plan, tmp_path):
     exhaustive: true
     intervals: [percentile]
   - id: unpaired
+    role: secondary
     data: d
     outcome: score
     groups: {by: visit, compare: [first, second]}
@@ -272,6 +282,7 @@ def test_incomplete_pairs_are_refused(write_plan, tmp_path):
     with pytest.raises(DataError, match=r"pair .p3. \(column .patient.\) has no row in group .second."):
         run(write_plan, tmp_path, cols, csv, """
   - id: paired
+    role: secondary
     data: d
     outcome: score
     groups: {by: visit, compare: [first, second]}
@@ -300,6 +311,7 @@ def test_clusters_from_a_plan(write_plan, tmp_path):
     csv = clinic_csv()
     result = run(write_plan, tmp_path, CLINIC_COLS, csv, """
   - id: boot
+    role: secondary
     data: d
     outcome: hours
     groups: {by: arm, compare: [new, usual]}
@@ -309,6 +321,7 @@ def test_clusters_from_a_plan(write_plan, tmp_path):
     resamples: 2000
     intervals: [percentile, bca, normal]
   - id: jack
+    role: secondary
     data: d
     outcome: hours
     groups: {by: arm, compare: [new, usual]}
@@ -316,6 +329,7 @@ def test_clusters_from_a_plan(write_plan, tmp_path):
     statistic: mean_difference
     method: jackknife
   - id: naive
+    role: secondary
     data: d
     outcome: hours
     groups: {by: arm, compare: [new, usual]}
@@ -348,6 +362,7 @@ def test_blocks_and_parametric_from_a_plan(write_plan, tmp_path):
     csv = "day,reading\n" + "".join(f"{i},{level[i]:.3f}\n" for i in order)
     result = run(write_plan, tmp_path, "      day: {type: integer}\n      reading: {type: number}", csv, """
   - id: moving
+    role: secondary
     data: d
     outcome: reading
     order: day
@@ -356,6 +371,7 @@ def test_blocks_and_parametric_from_a_plan(write_plan, tmp_path):
     method: bootstrap
     resamples: 500
   - id: stationary
+    role: secondary
     data: d
     outcome: reading
     order: day
@@ -365,6 +381,7 @@ def test_blocks_and_parametric_from_a_plan(write_plan, tmp_path):
     resamples: 500
     intervals: [percentile, basic, normal]
   - id: expo
+    role: secondary
     data: d
     outcome: reading
     parametric: exponential
@@ -395,6 +412,7 @@ def test_on_degenerate_fail_from_a_plan(write_plan, tmp_path):
         # bootstrap proportion is then 0
         run(write_plan, tmp_path, "      y: {type: boolean}", "y\n" + "no\n" * 12, """
   - id: flat
+    role: secondary
     data: d
     outcome: y
     statistic: proportion
@@ -407,12 +425,14 @@ def test_on_degenerate_fail_from_a_plan(write_plan, tmp_path):
 def test_statistic_parameters_reach_the_record(write_plan, tmp_path):
     result = run(write_plan, tmp_path, "      days: {type: number}", DAYS_CSV, """
   - id: q90
+    role: secondary
     data: d
     outcome: days
     statistic: quantile
     quantile: 0.9
     method: jackknife
   - id: trimmed
+    role: secondary
     data: d
     outcome: days
     statistic: trimmed_mean
@@ -432,6 +452,7 @@ def test_bs_law_parametric_bivariate_normal(write_plan, tmp_path):
     b = 2000
     result = run(write_plan, tmp_path, "      lsat: {type: number}\n      gpa: {type: number}", csv, f"""
   - id: param
+    role: secondary
     data: d
     outcome: gpa
     predictor: lsat
@@ -453,6 +474,7 @@ def test_saved_distribution_matches_its_hash(write_plan, tmp_path):
     import hashlib
     result = run(write_plan, tmp_path, "      days: {type: number}", DAYS_CSV, """
   - id: kept
+    role: secondary
     data: d
     outcome: days
     statistic: mean
@@ -461,6 +483,7 @@ def test_saved_distribution_matches_its_hash(write_plan, tmp_path):
     intervals: [percentile]
     save_distribution: true
   - id: plain
+    role: secondary
     data: d
     outcome: days
     statistic: mean

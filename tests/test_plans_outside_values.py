@@ -51,6 +51,7 @@ def test_pt_mouse_exact_permutation_from_a_plan(write_plan, tmp_path):
     alternative: greater
     resamples: 20000
   - id: both
+    role: secondary
     data: mice
     outcome: days
     groups: {by: group, compare: [treatment, control]}
@@ -77,6 +78,7 @@ def test_pt_mouse_monte_carlo_within_tolerance(write_plan, tmp_path):
     m = 4000
     result = run(write_plan, tmp_path, f"""
   - id: mc
+    role: secondary
     data: mice
     outcome: days
     groups: {{by: group, compare: [treatment, control]}}
@@ -96,6 +98,7 @@ def test_bs_mouse_standard_errors_from_a_plan(write_plan, tmp_path):
     b = 2000
     result = run(write_plan, tmp_path, f"""
   - id: mean-se
+    role: secondary
     data: mice
     outcome: days
     groups: {{by: group, compare: [treatment, control]}}
@@ -127,6 +130,7 @@ analyses:
     method: bootstrap
     resamples: 2000
   - id: median
+    role: secondary
     data: treated
     outcome: days
     statistic: median
@@ -143,6 +147,7 @@ analyses:
 def test_jackknife_two_sample_se_from_a_plan(write_plan, tmp_path):
     result = run(write_plan, tmp_path, """
   - id: jack
+    role: secondary
     data: mice
     outcome: days
     groups: {by: group, compare: [treatment, control]}
@@ -210,6 +215,7 @@ analyses:
     statistic: correlation
     method: jackknife
   - id: boot
+    role: secondary
     data: law
     outcome: gpa
     predictor: lsat

@@ -45,6 +45,7 @@ analyses:
     statistic: mean_difference
     method: jackknife
   - id: improved
+    role: secondary
     data: d
     outcome: improved
     groups: {by: arm, compare: [new, usual]}

@@ -99,7 +99,7 @@ def test_summary_table_comes_first_and_labels_p_values(files, demo):
     # 0/1 scores), so it carries no Monte Carlo warning
     assert summary.count("⚠ 1") == 1
     md = files["report.md"]
-    assert "| Analysis | Role | Estimate | Interval(s) | p-value | n | Warnings |" in md
+    assert "| Analysis | Role | Estimate | Interval(s) | p-value | Decision | n | Warnings |" in md
     assert md.count("adjusted (holm)") == 2
 
 
@@ -193,9 +193,9 @@ def test_script_in_a_title_is_neutralised_in_markdown(demo):
 def test_markdown_table_rows_keep_their_cell_count(demo):
     md = report.render(hostile_record(demo), "md")
     lines = md.splitlines()
-    header = lines.index("| Analysis | Role | Estimate | Interval(s) | p-value | n | Warnings |")
+    header = lines.index("| Analysis | Role | Estimate | Interval(s) | p-value | Decision | n | Warnings |")
     for row in lines[header + 2: header + 6]:
-        assert len(re.findall(r"(?<!\\)\|", row)) == 8, row
+        assert len(re.findall(r"(?<!\\)\|", row)) == 9, row  # the demo's primary analysis carries a decision
 
 
 # --- digits (planrunner/precision.py) -----------------------------------------------------------
@@ -359,7 +359,7 @@ def test_markdown_renders_without_live_html_links_or_images(demo):
     summary = html[html.index("Results at a glance"):]
     summary = summary[:summary.index("</table>")]
     assert summary.count("<tr>") == 1 + len(record["analyses"])
-    assert all(row.count("<td") == 7 for row in summary.split("<tr>")[2:])
+    assert all(row.count("<td") == 8 for row in summary.split("<tr>")[2:])  # with the Decision column
 
 
 def test_bands_and_figures_do_not_depend_on_order_other_analyses_or_batch_size(write_plan, tmp_path, monkeypatch):

@@ -76,7 +76,7 @@ def test_demo_report_loads_cleanly_with_every_section_and_plot(demo, browser):
     ids = [a["id"] for a in demo.record["analyses"]]
     assert [a["id"] for a in facts["articles"]] == [f"a-{i}" for i in ids]
     assert facts["summaryRows"] == len(ids)
-    assert facts["sections"] == ["summary", "analyses", "families", "methods", "provenance", "digits"]
+    assert facts["sections"] == ["summary", "estimands", "analyses", "families", "methods", "provenance", "digits"]
     assert facts["scripts"] == 0 and facts["images"] == 0
     for article, entry in zip(facts["articles"], demo.record["analyses"]):
         assert entry["id"] in article["heading"]

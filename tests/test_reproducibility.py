@@ -23,6 +23,7 @@ ANALYSES = {
 """,
     "perm": """
   - id: perm
+    role: secondary
     data: mice
     outcome: days
     groups: {by: group, compare: [treatment, control]}
@@ -33,6 +34,7 @@ ANALYSES = {
 """,
     "extra": """
   - id: extra
+    role: secondary
     data: mice
     outcome: days
     groups: {by: group, compare: [treatment, control]}

@@ -309,6 +309,7 @@ analyses:
     intervals: [percentile]
     on_degenerate: percentile
   - id: rmst
+    role: secondary
     data: d
     outcome: weeks
     event: relapse
@@ -319,6 +320,7 @@ analyses:
     method: bootstrap
     resamples: 999
   - id: logrank
+    role: secondary
     data: d
     outcome: weeks
     event: relapse
@@ -327,6 +329,7 @@ analyses:
     method: permutation
     resamples: 999
   - id: logrank-by-centre
+    role: secondary
     data: d
     outcome: weeks
     event: relapse
@@ -336,6 +339,7 @@ analyses:
     method: permutation
     resamples: 999
   - id: jack
+    role: secondary
     data: d
     outcome: weeks
     event: relapse

@@ -364,6 +364,7 @@ analyses:
     alternative: greater
     resamples: 20000
   - id: jackknife-difference
+    role: secondary
     data: mouse
     outcome: days
     groups: {by: group, compare: [treatment, control]}

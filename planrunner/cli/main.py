@@ -258,25 +258,31 @@ def progress_bar(quiet: bool) -> ProgressBar:
 
 def summary_table(record: dict) -> str:
     """A compact terminal table: one row per analysis."""
-    header = ("analysis", "method", "estimate", "interval", "p-value", "n", "warnings")
-    rows = [header]
+    any_decision = any(isinstance(a.get("decision"), dict) for a in record["analyses"])
+    header = ("analysis", "method", "estimate", "interval", "p-value", *(("decision",) if any_decision else ()),
+              "n", "warnings")
+    rows: list[tuple[str, ...]] = [header]
     for a in record["analyses"]:
-        first = a["intervals"][0] if a["intervals"] else None
-        interval = (f"{labels.interval_label(first, format(first['level'] * 100, 'g'))}: "
-                    f"{labels.interval_ends(first, number(first['lower']), number(first['upper']))}"
-                    if first else "")
+        shown_intervals = [f"{labels.interval_label(i, format(i['level'] * 100, 'g'))}: "
+                           f"{labels.interval_ends(i, number(i['lower']), number(i['upper']))}" for i in a["intervals"]]
+        # the first is the pre-specified interval; the others are labelled, never mistaken for it
+        interval = "; ".join(shown_intervals[:1] + [f"supplementary {text}" for text in shown_intervals[1:]])
         value, what, statistic = labels.effect(a)
         estimate = number(value) + (f" ({what})" if what else "") + (f"; {statistic}" if statistic else "")
         side = labels.direction(a)
         shown = digits.p_value(a["p_value"], (a.get("monte_carlo") or {}).get("p_value_sd"), labels.alpha(a))
         p = "" if a["p_value"] is None else shown + (f" ({side})" if side else "")
         p += ", unresolved at alpha" if labels.unresolved(a) else ""
-        rows.append((a["id"], a["method"], estimate, interval, p, ", ".join(labels.group_sizes(a)),
-                     str(len(a["warnings"]))))
+        decision = a.get("decision")
+        verdict = f"{decision.get('verdict')} ({decision.get('rule')})" if isinstance(decision, dict) else ""
+        rows.append((a["id"], a["method"], estimate, interval, p, *((verdict,) if any_decision else ()),
+                     ", ".join(labels.group_sizes(a)), str(len(a["warnings"]))))
     widths = [max(len(r[i]) for r in rows) for i in range(len(header))]
     lines = ["  ".join(cell.ljust(w) for cell, w in zip(r, widths)).rstrip() for r in rows]
     lines.insert(1, "  ".join("-" * w for w in widths))
-    return f"{record['plan']['title']}\n" + "\n".join(lines)
+    caution = ("\nA verdict is the plan's rule applied to these numbers: a computation, not a decision "
+               "(see the caution in the report)." if any_decision else "")
+    return f"{record['plan']['title']}\n" + "\n".join(lines) + caution
 
 
 if __name__ == "__main__":  # pragma: no cover

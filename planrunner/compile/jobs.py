@@ -26,6 +26,8 @@ from planrunner.engines.streams import Stream, stream_for
 from planrunner.engines.survival import flipped
 from planrunner.engines.teststats import K_GROUP
 from planrunner.errors import DataError
+from planrunner.plan.decisions import null_shifts
+from planrunner.plan.roles import planned_intervals
 from planrunner.plan.schema import Analysis, BootstrapAnalysis, Defaults, PermutationAnalysis, Plan, precision_of
 
 Options = BootstrapOptions | JackknifeOptions | PermutationOptions | ModelBootstrapOptions
@@ -49,6 +51,7 @@ class Job:
     design: dict[str, Any] = field(default_factory=dict)  # permutation designs (see compile_design)
     # a censored outcome: ("right", None), or ("left", M) when the samples hold times M − x
     censoring: tuple[str, float | None] | None = None
+    null_shifts: tuple[float, ...] = ()  # a permutation decision's shifted nulls (plan/decisions.py)
 
     def settings(self) -> dict[str, Any]:
         """The options as the record states them (JSON values)."""
@@ -81,9 +84,7 @@ def compile_jobs(plan: Plan, tables: dict[str, Table]) -> list[Job]:
 def bootstrap_options(analysis: BootstrapAnalysis, defaults: Defaults) -> BootstrapOptions:
     """The bootstrap's options: what the analysis declares, else the plan's defaults, else the
     engine's own (a key the plan leaves as None is omitted, so `BootstrapOptions` supplies it)."""
-    intervals = tuple(analysis.intervals)
-    if "intervals" not in analysis.model_fields_set and (analysis.order or analysis.parametric):
-        intervals = ("percentile",)  # the default BCa is not valid for dependent or parametric draws
+    intervals = planned_intervals(analysis)  # the pre-specified one first (plan/roles.py)
     target = precision_of(analysis, defaults)
     declared: dict[str, Any] = {
         "resamples": target.max_resamples if target is not None else analysis.resamples or defaults.resamples,
@@ -199,7 +200,7 @@ def compile_job(plan: Plan, analysis: Analysis, table: Table) -> Job:
                strata=strata, group_labels=labels, strata_labels=strata_labels,
                options=options, stream=stream_for(plan.seed, analysis.id),
                clusters=clusters, paired=paired, warnings=warnings, design=permutation_design,
-               censoring=censoring)
+               censoring=censoring, null_shifts=null_shifts(analysis, plan))
 
 
 def censored_values(analysis: Analysis, table: Table, values: np.ndarray, masks: list[np.ndarray],

@@ -23,12 +23,12 @@ import numpy as np
 
 from planrunner.engines.permcore import ENUMERATION, PermutationOptions, choose_computation, tie_tolerance
 from planrunner.engines.permutation import _enumerate, _evaluate, _pool, _random, null_centre
-from planrunner.engines.results import Interval
+from planrunner.engines.results import Interval, ShiftedTest
 from planrunner.engines.statistics import Statistic, check_samples
 from planrunner.engines.streams import Stream
 from planrunner.errors import EngineError
 
-__all__ = ["computation", "shift_interval"]
+__all__ = ["ShiftedNulls", "computation", "shift_interval", "shifted_tests"]
 
 HALVINGS = 60
 CACHE_ELEMENTS = 5_000_000
@@ -66,6 +66,62 @@ def computation(x: np.ndarray, y: np.ndarray, statistic: Statistic, options: Per
     return _choose(math.comb(x.size + y.size, x.size), options)
 
 
+class ShiftedNulls:
+    """The permutation test of x − δ against y for any δ, every δ on the SAME arrangements: all of
+    them when they are few enough for ``options.exact``, else ``options.resamples`` random ones
+    from ``stream`` (kept in memory when small, else drawn again from the same blocks)."""
+
+    def __init__(self, x: np.ndarray, y: np.ndarray, statistic: Statistic, options: PermutationOptions, *,
+                 stream: Stream, method: str = "the shift interval") -> None:
+        x, y = check_samples([x, y], statistic, method=method)
+        self.x, self.y, self.statistic = x, y, statistic
+        self.pooled = pooled = _pool((x, y), None)
+        n1, n2 = x.size, y.size
+        arrangements = math.comb(n1 + n2, n1)
+        self.exact = enumerate_all = _choose(arrangements, options) == ENUMERATION
+        rows = max(1, 2_000_000 // (n1 + n2))
+        self.total = arrangements if enumerate_all else options.resamples
+
+        def fresh() -> Iterator[tuple[np.ndarray, ...]]:
+            return _enumerate(pooled, rows) if enumerate_all else _random(pooled, stream, options.resamples, rows)
+
+        self._fresh = fresh
+        self._cached = list(fresh()) if self.total * (n1 + n2) <= CACHE_ELEMENTS else None
+        self.adjust = 0 if enumerate_all else 1
+        self._is_x = np.zeros(n1 + n2)
+        self._is_x[pooled.slots[0]] = 1.0  # without strata the first n1 pooled positions hold x
+
+    def counts(self, delta: float) -> tuple[int, int, int]:
+        """(arrangements with T* ≥ t, with T* ≤ t, arrangements tested) for the data x − δ, y."""
+        pooled = self.pooled
+        shifted = pooled.values - delta * self._is_x
+        moved = type(pooled)(shifted, pooled.stratum, pooled.slots, pooled.blocks)
+        arrangements = iter(self._cached) if self._cached is not None else self._fresh()
+        null = _evaluate(moved, self.statistic, arrangements, self.total, fast=False)
+        t = float(self.statistic.compute(self.x - delta, self.y))
+        tol = tie_tolerance(t, float(np.max(np.abs(shifted))))
+        return int(np.count_nonzero(null >= t - tol)), int(np.count_nonzero(null <= t + tol)), int(null.size)
+
+    def pvalues(self, delta: float) -> tuple[float, float]:
+        """(p_greater, p_less) of the test at δ: count/m exact, (count + 1)/(m + 1) Monte Carlo."""
+        greater, less, m = self.counts(delta)
+        return (greater + self.adjust) / (m + self.adjust), (less + self.adjust) / (m + self.adjust)
+
+
+def shifted_tests(x: np.ndarray, y: np.ndarray, statistic: Statistic, options: PermutationOptions, *,
+                  stream: Stream, shifts: tuple[float, ...]) -> tuple[ShiftedTest, ...]:
+    """The test of H0: the first group is the second shifted by δ₀, for each δ₀ in ``shifts`` (on the
+    arrangements of the shift interval: the same stream gives the same ones), with its counts."""
+    nulls = ShiftedNulls(x, y, statistic, options, stream=stream, method="a decision's shifted-null test")
+    out = []
+    for shift in shifts:
+        greater, less, m = nulls.counts(shift)
+        a = nulls.adjust
+        out.append(ShiftedTest(shift=float(shift), count_greater=greater, count_less=less, total=m,
+                               exact=nulls.exact, p_greater=(greater + a) / (m + a), p_less=(less + a) / (m + a)))
+    return tuple(out)
+
+
 def shift_interval(x: np.ndarray, y: np.ndarray, statistic: Statistic, options: PermutationOptions, *,
                    stream: Stream) -> tuple[Interval, float]:
     """(interval, shift estimate) for x = y + δ by inverting the permutation test of ``statistic``
@@ -73,36 +129,12 @@ def shift_interval(x: np.ndarray, y: np.ndarray, statistic: Statistic, options: 
     else ``options.resamples`` random ones)."""
     if options.confidence is None:
         raise EngineError("the shift interval needs a confidence level", hint="give confidence, e.g. 0.95")
-    confidence, resamples = options.confidence, options.resamples
-    x, y = check_samples([x, y], statistic, method="the shift interval")
-    pooled = _pool((x, y), None)
-    n1, n2 = x.size, y.size
-    arrangements = math.comb(n1 + n2, n1)
-    enumerate_all = _choose(arrangements, options) == ENUMERATION
-    rows = max(1, 2_000_000 // (n1 + n2))
-    total = arrangements if enumerate_all else resamples
-
-    def fresh() -> Iterator[tuple[np.ndarray, ...]]:
-        return _enumerate(pooled, rows) if enumerate_all else _random(pooled, stream, resamples, rows)
-
-    # keep the arrangements in memory when small (tens of MB); otherwise draw them again for each δ,
-    # which gives the same arrangements because every draw comes from the stream's blocks
-    cached = list(fresh()) if total * (n1 + n2) <= CACHE_ELEMENTS else None
-    adjust = 0 if enumerate_all else 1
-    is_x = np.zeros(n1 + n2)
-    is_x[pooled.slots[0]] = 1.0  # without strata the first n1 pooled positions hold x
+    confidence = options.confidence
+    nulls = ShiftedNulls(x, y, statistic, options, stream=stream)
+    x, y, pooled = nulls.x, nulls.y, nulls.pooled
     spread = float(np.ptp(np.concatenate([x, y]))) or 1.0
     centre = null_centre(pooled, statistic)
-
-    def pvalues(delta: float) -> tuple[float, float]:
-        shifted = pooled.values - delta * is_x
-        moved = type(pooled)(shifted, pooled.stratum, pooled.slots, pooled.blocks)
-        null = _evaluate(moved, statistic, iter(cached) if cached is not None else fresh(), total, fast=False)
-        t = float(statistic.compute(x - delta, y))
-        tol = tie_tolerance(t, float(np.max(np.abs(shifted))))
-        m = null.size
-        return ((np.count_nonzero(null >= t - tol) + adjust) / (m + adjust),
-                (np.count_nonzero(null <= t + tol) + adjust) / (m + adjust))
+    pvalues = nulls.pvalues
 
     estimate = _shift_estimate(x, y, statistic, centre, spread)
     alpha = 1.0 - confidence

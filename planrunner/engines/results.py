@@ -20,6 +20,7 @@ __all__ = [
     "ModelBootstrapResult",
     "NullTest",
     "PermutationResult",
+    "ShiftedTest",
     "frozen_array",
 ]
 
@@ -147,6 +148,23 @@ class JackknifeResult:
     conventions: dict[str, str] = field(default_factory=dict)
 
 
+@dataclass(frozen=True)
+class ShiftedTest:
+    """The two-group permutation test at a shifted null, H0: x = y + shift (x − shift against y).
+
+    ``p_greater`` = count_greater / total when exact, (count_greater + 1) / (total + 1) by Monte
+    Carlo; likewise ``p_less``.
+    """
+
+    shift: float
+    count_greater: int
+    count_less: int
+    total: int
+    exact: bool
+    p_greater: float
+    p_less: float
+
+
 @dataclass(frozen=True, eq=False)
 class PermutationResult:
     """Permutation test of one statistic; ``count_*`` and ``null`` let anyone recompute ``p_value``.
@@ -190,4 +208,5 @@ class PermutationResult:
     computation: str = "enumeration"  # enumeration | dynamic programming | Monte Carlo
     intervals: tuple[Interval, ...] = ()
     shift_estimate: float | None = None
+    shifted_tests: tuple[ShiftedTest, ...] = ()  # a decision's tests at shifted nulls (margin, limits)
     design: dict[str, object] = field(default_factory=dict)

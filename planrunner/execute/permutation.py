@@ -15,7 +15,7 @@ from planrunner.compile.jobs import Job
 from planrunner.engines import association, clusters, inversion, permutation, signflip
 from planrunner.engines.association import association_test
 from planrunner.engines.clusters import cluster_test
-from planrunner.engines.inversion import shift_interval
+from planrunner.engines.inversion import shift_interval, shifted_tests
 from planrunner.engines.modelboot import ModelBootstrapOptions, check_model
 from planrunner.engines.models import check_rank
 from planrunner.engines.permcore import PermutationOptions
@@ -68,7 +68,7 @@ def _computation(job: Job) -> str:
     if job.statistic.samples == 1:
         return association.computation(job.samples[0], job.statistic, options, covariates=job.design.get("covariates"))
     found = permutation.computation(job.samples, job.statistic, options, strata=job.strata)
-    if "shift" in options.intervals:  # the interval's own choice: enumeration or Monte Carlo
+    if "shift" in options.intervals or job.null_shifts:  # their own choice: enumeration or Monte Carlo
         inversion.computation(job.samples[0], job.samples[1], job.statistic, options)
     return found
 
@@ -93,4 +93,8 @@ def run_permutation(job: Job) -> PermutationResult:
         interval, estimate = shift_interval(job.samples[0], job.samples[1], job.statistic, options,
                                             stream=job.stream.child(1))
         result = dataclasses.replace(result, intervals=(interval,), shift_estimate=estimate)
+    if job.null_shifts:  # the same stream as the shift interval: the same arrangements
+        tests = shifted_tests(job.samples[0], job.samples[1], job.statistic, options, stream=job.stream.child(1),
+                              shifts=job.null_shifts)
+        result = dataclasses.replace(result, shifted_tests=tests)
     return result

@@ -8,6 +8,7 @@ from typing import Any
 
 from planrunner.engines.statistics import Statistic
 from planrunner.plan.problems import Problem
+from planrunner.plan.roles import planned_intervals
 
 
 def check_resampling_design(at: tuple, a: Any, statistic: Statistic) -> list[Problem]:
@@ -22,7 +23,7 @@ def check_resampling_design(at: tuple, a: Any, statistic: Statistic) -> list[Pro
     if a.method != "bootstrap":
         return out
     explicit = "intervals" in a.model_fields_set
-    intervals = list(a.intervals)
+    intervals = list(planned_intervals(a))
 
     def refuse_interval(name: str, why: str, hint: str) -> None:
         if name in intervals and (explicit or name != "bca"):

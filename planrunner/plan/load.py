@@ -19,12 +19,14 @@ from pydantic import BaseModel
 from planrunner.engines.statistics import PARAMETERS, STATISTICS
 from planrunner.errors import ExpressionError, PlanError
 from planrunner.plan import permrules as permcheck
+from planrunner.plan.decisions import decision_problems
 from planrunner.plan.derived import dataset_columns, derived_problems
 from planrunner.plan.designrules import check_resampling_design
 from planrunner.plan.expr import parse_expression
 from planrunner.plan.modelrules import model_checks
 from planrunner.plan.params import parameter_problems
 from planrunner.plan.problems import Problem, did_you_mean
+from planrunner.plan.roles import estimand_problems
 from planrunner.plan.schema import (
     DATA_SUFFIXES,
     METHOD_MODELS,
@@ -286,6 +288,8 @@ def cross_check(plan: Plan) -> list[Problem]:
                                         "adjust only bootstrap or permutation analyses"))
     problems += precision_problems(plan)
     problems += [Problem(path, message, hint) for path, message, hint in parameter_problems(plan)]
+    problems += estimand_problems(plan)
+    problems += decision_problems(plan)
     return problems
 
 

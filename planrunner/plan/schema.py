@@ -27,6 +27,11 @@ MultiplicityMethod = Literal["bonferroni", "holm", "hochberg", "benjamini-hochbe
 # earlier spellings of plan values, refused with the new one named (never read silently)
 RENAMED_KEYS = {("datasets", "keep"): "rows_where"}  # (first and last key of the path) → new key
 RENAMED_VALUES = {("multiplicity", "method"): {"bh": "benjamini-hochberg", "by": "benjamini-yekutieli"}}
+# the intercurrent-event strategies of ICH E9(R1) (2019), section A.3.2
+Strategy = Literal["treatment policy", "hypothetical", "composite variable", "while on treatment",
+                   "principal stratum"]
+DecisionRule = Literal["superiority", "non-inferiority", "equivalence", "below-limit", "above-limit"]
+Text = Annotated[str, Field(min_length=1, max_length=2000)]
 
 
 class Strict(BaseModel):
@@ -137,10 +142,58 @@ class Defaults(Strict):
     precision: Precision | None = None
 
 
+class IntercurrentEvent(Strict):
+    """An event after treatment starts that affects the endpoint, and how the estimand handles it."""
+
+    event: Text
+    strategy: Strategy
+
+
+class Estimand(Strict):
+    """What is to be estimated, by the five attributes of ICH E9(R1) (free text, as written)."""
+
+    population: Text
+    treatment: Text
+    endpoint: Text
+    intercurrent_events: list[IntercurrentEvent] = Field(default_factory=list)
+    summary: Text
+
+
+class Decision(Strict):
+    """The pre-specified rule that turns the analysis's numbers into a verdict.
+
+    ``margin`` for superiority (default 0) and non-inferiority, ``limits: [low, high]`` for
+    equivalence, ``limit`` for below-limit and above-limit; the direction of benefit comes from the
+    analysis (``planrunner.plan.decisions``).
+    """
+
+    rule: DecisionRule
+    margin: float | None = None
+    limits: Annotated[list[float], Field(min_length=2, max_length=2)] | None = None
+    limit: float | None = None
+
+    @model_validator(mode="after")
+    def _keys_of_the_rule(self) -> Decision:
+        wanted = {"superiority": "margin", "non-inferiority": "margin", "equivalence": "limits",
+                  "below-limit": "limit", "above-limit": "limit"}[self.rule]
+        for key in ("margin", "limits", "limit"):
+            if key != wanted and getattr(self, key) is not None:
+                raise ValueError(f"{key} does not apply to rule {self.rule} (it takes {wanted})")
+        if self.rule != "superiority" and getattr(self, wanted) is None:
+            raise ValueError(f"rule {self.rule} needs {wanted}"
+                             + (": [LOW, HIGH]" if wanted == "limits" else ": VALUE"))
+        if self.limits is not None and not self.limits[0] < self.limits[1]:
+            raise ValueError("limits must be [LOW, HIGH] with LOW below HIGH")
+        return self
+
+
 class AnalysisBase(Strict):
     id: Identifier
     title: str | None = None
+    # left out: primary, as before estimands existed (plan/roles.py: at most one primary per estimand)
     role: Role = "primary"
+    estimand: Identifier | None = None  # a name under the plan's estimands
+    decision: Decision | None = None  # the pre-specified rule (plan/decisions.py)
     data: Identifier
     outcome: ColumnName
     predictor: ColumnName | None = None
@@ -268,6 +321,7 @@ class Plan(Strict):
     report: ReportOptions = Field(default_factory=ReportOptions)
     parameters: dict[Annotated[str, Field(pattern=r"^[A-Za-z_][A-Za-z0-9_]{0,63}$")], Parameter] = Field(
         default_factory=dict)
+    estimands: dict[Identifier, Estimand] = Field(default_factory=dict)
 
 
 def precision_of(analysis: BootstrapAnalysis | PermutationAnalysis, defaults: Defaults) -> Precision | None:

@@ -38,6 +38,7 @@ from planrunner.plan.load import LoadedPlan
 from planrunner.plan.schema import Analysis, Plan
 from planrunner.record.bootstrap import bootstrap_fields
 from planrunner.record.canonical import RECORD_HASH_FIELD, record_sha256
+from planrunner.record.decisions import decision_entry
 from planrunner.record.describe import descriptives
 from planrunner.record.families import FamilyFields, Member, adjusted_family_fields, max_t_family_fields
 from planrunner.record.fields import MethodFields
@@ -158,6 +159,7 @@ def analysis_entry(loaded: LoadedPlan, analysis: Analysis, job: Job, result: Res
         "id": analysis.id,
         "title": analysis.title,
         "role": analysis.role,
+        "estimand": analysis.estimand,
         "question": question(analysis, job.statistic.label, unit),
         "data": analysis.data,
         **({"set": analysis.set} if analysis.set is not None else {}),
@@ -180,8 +182,10 @@ def analysis_entry(loaded: LoadedPlan, analysis: Analysis, job: Job, result: Res
         else {job.statistic.parameter: job.statistic.value},
         "design": {"pairs": analysis.pairs, "clusters": analysis.clusters, "order": analysis.order},
         # fields that a method does not produce keep their defaults, so every entry has the same shape
-        **{key: numbers[key] for key in ("estimate", "standard_error", "bias", "intervals", "p_value")},
+        **{key: numbers[key] for key in ("estimate", "standard_error", "bias", "p_value")},
+        "intervals": prespecified(numbers["intervals"]),
         "adjusted_p_values": adjusted,
+        "decision": decision_entry(analysis, plan, fields, result),
         **{key: numbers[key] for key in ("alternative", "exact", "resamples", "monte_carlo")},
         "details": _with_curves(numbers["details"], job),
         "distribution": numbers["distribution"],
@@ -193,6 +197,20 @@ def _with_curves(details: Any, job: Job) -> Any:
     """A censored analysis's details gain the Kaplan–Meier curve of each group (the report draws it)."""
     curves = kaplan_meier_details(job)
     return details if curves is None else {**details, "kaplan_meier": curves}
+
+
+def prespecified(intervals: list[dict[str, Any]]) -> list[dict[str, Any]]:
+    """The intervals with their flag: the first listed in the plan is the pre-specified one, the
+    others are supplementary (README: Estimands, roles and the pre-specified interval)."""
+    return [{**interval, "prespecified": k == 0} for k, interval in enumerate(intervals)]
+
+
+def estimands_entry(plan: Plan) -> dict[str, Any]:
+    """The plan's estimands with their five attributes, as written."""
+    return {name: {"population": e.population, "treatment": e.treatment, "endpoint": e.endpoint,
+                   "intercurrent_events": [{"event": ev.event, "strategy": ev.strategy}
+                                           for ev in e.intercurrent_events],
+                   "summary": e.summary} for name, e in plan.estimands.items()}
 
 
 def build_record(loaded: LoadedPlan, tables: dict[str, Table], jobs: list[Job], results: list[Result],
@@ -211,6 +229,7 @@ def build_record(loaded: LoadedPlan, tables: dict[str, Table], jobs: list[Job], 
         "command": list(facts.command),
         "plan": {"id": plan.plan, "title": plan.title, "description": plan.description,
                  "file": loaded.file.name, "sha256": loaded.sha256, "text": loaded.text, "lock": None},
+        "estimands": estimands_entry(plan),
         "datasets": [{"name": t.name, "file": t.file, "sha256": t.sha256, "bytes": t.bytes,
                       "format": t.format, "dictionary": [
                           {"column": e.name, "label": e.label, "display_format": e.display_format,

@@ -88,6 +88,10 @@ def _censoring(a: dict[str, Any]) -> str:
     return text
 
 
+def _of_estimand(a: dict[str, Any]) -> str:
+    return f", estimand '{a['estimand']}'" if a.get("estimand") else ""
+
+
 def _sentence(a: dict[str, Any]) -> str:
     return _method_sentence(a) + _censoring(a)
 
@@ -95,15 +99,18 @@ def _sentence(a: dict[str, Any]) -> str:
 def _method_sentence(a: dict[str, Any]) -> str:
     what = f"the {a['statistic_label']} of {a['outcome']}{_comparison(a)}"
     settings = a.get("settings") or {}
-    lead = f"Analysis '{a['id']}' ({a['role']})"
+    lead = f"Analysis '{a['id']}' ({a['role']}{_of_estimand(a)})"
     if a["method"] == "bootstrap":
-        methods = _list([INTERVAL_WORDS.get(m, m) for m in settings.get("intervals", [])])
+        listed = settings.get("intervals", [])
+        methods = _list([INTERVAL_WORDS.get(m, m) for m in listed])
         level = settings.get("confidence")
         intervals = f"{level * 100:g}% {methods} intervals" if level is not None else f"{methods} intervals"
         side = {"greater": "lower", "less": "upper"}.get(settings.get("alternative", ""))
         if side is not None:  # one-sided confidence bounds
             intervals = (f"one-sided {side} {level * 100:g}% confidence bounds ({methods})" if level is not None
                          else f"one-sided {side} confidence bounds ({methods})")
+        chosen = (f" (the {INTERVAL_WORDS.get(listed[0], listed[0])} interval pre-specified, the others "
+                  "supplementary)" if len(listed) > 1 else "")
         null = (a.get("details") or {}).get("null_test")
         tested = "" if not null else (
             f" The {'two-sided' if a.get('alternative') == 'two-sided' else 'one-sided'} p-value of the null value "
@@ -113,7 +120,7 @@ def _method_sentence(a: dict[str, Any]) -> str:
             + (", doubling the smaller one-sided p-value." if a.get("alternative") == "two-sided" else "."))
         return (f"{lead} estimated {what} and its uncertainty by the nonparametric bootstrap "
                 f"(scheme: {a['scheme']}) with {a['resamples']} resamples; the standard error is the standard "
-                f"deviation of the replicates, and {intervals} were computed.{tested}")
+                f"deviation of the replicates, and {intervals} were computed{chosen}.{tested}")
     if a["method"] == "permutation":
         return (f"{lead} tested {what} by a permutation test (scheme: {a['scheme']}); the p-value, obtained "
                 f"{_p_computation(a)}, is {_sidedness(a)}.")

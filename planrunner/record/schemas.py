@@ -51,9 +51,17 @@ _warning = _obj({"code": {"type": "string"}, "message": {"type": "string"}})
 _interval = _obj({"method": {"type": "string"},
                   "level": {"type": "number", "exclusiveMinimum": 0, "exclusiveMaximum": 1},
                   "side": {"enum": ["two-sided", "lower", "upper"]},
-                  "lower": _num, "upper": _num, "note": _str}, required=["method", "level", "lower", "upper"])
+                  "lower": _num, "upper": _num, "note": _str, "prespecified": {"type": "boolean"}},
+                 required=["method", "level", "lower", "upper", "prespecified"])
+_text = {"type": "string", "minLength": 1}
+_estimand = _obj({"population": _text, "treatment": _text, "endpoint": _text, "summary": _text,
+                  "intercurrent_events": {"type": "array", "items": _obj({
+                      "event": _text,
+                      "strategy": {"enum": ["treatment policy", "hypothetical", "composite variable",
+                                            "while on treatment", "principal stratum"]}})}})
 _analysis = _obj({
-    "id": {"type": "string"}, "title": _str, "role": {"type": "string"}, "question": {"type": "string"},
+    "id": {"type": "string"}, "title": _str, "role": {"type": "string"}, "estimand": _str,
+    "question": {"type": "string"},
     "data": {"type": "string"}, "set": {"type": "string"}, "outcome": {"type": "string"}, "unit": _str,
     "groups": {"type": ["object", "null"]}, "strata": _str,
     "method": {"enum": ["bootstrap", "permutation", "jackknife"]}, "scheme": {"type": "string"},
@@ -92,8 +100,19 @@ _analysis = _obj({
             "level": {"type": "number"}, "decision": {"enum": ["rejected", "not rejected", "unresolved"]},
             "resamples": {"type": ["integer", "null"]}, "is_alpha": {"type": "boolean"}})},
         "achieved": {"type": "object"}})]},
-}, required=["id", "method", "scheme", "statistic", "estimate", "standard_error", "bias", "intervals",
-             "p_value", "alternative", "exact", "resamples", "n", "warnings", "settings", "stream"])
+    "decision": {"oneOf": [{"type": "null"}, _obj({
+        "rule": {"enum": ["superiority", "non-inferiority", "equivalence", "below-limit", "above-limit"]},
+        "margin": _num, "limit": _num,
+        "limits": {"oneOf": [{"type": "null"}, {"type": "array", "items": {"type": "number"}, "minItems": 2,
+                                                 "maxItems": 2}]},
+        "benefit": {"enum": ["greater", "less", None]},
+        "alpha": {"type": "number", "exclusiveMinimum": 0, "exclusiveMaximum": 1},
+        "compared": _obj({"quantity": {"type": "string"}, "value": {}}, required=["quantity", "value"]),
+        "verdict": {"enum": ["met", "not met", "unresolved"]},
+        "reason": {"type": "string"},
+        "resamples_to_resolve": {"type": ["integer", "null"], "minimum": 1}})]},
+}, required=["id", "role", "estimand", "method", "scheme", "statistic", "estimate", "standard_error", "bias",
+             "intervals", "p_value", "alternative", "exact", "resamples", "n", "warnings", "settings", "stream"])
 _lock = {"oneOf": [{"type": "null"}, _obj({
     "file": {"type": "string"}, "sha256": _sha, "canonical_sha256": _sha, "locked_utc": {"type": "string"},
     "operator": {"type": "string"}, "note": _str,
@@ -136,6 +155,7 @@ def record_schema() -> dict[str, Any]:
                                  "planrunner": {"type": "string"}}),
             "seed": _obj({"root": _int0, "generator": {"type": "string"}, "derivation": {"type": "string"},
                           "draw_block": {"type": "integer", "minimum": 1}}),
+            "estimands": {"type": "object", "additionalProperties": _estimand},
             "analyses": {"type": "array", "items": _analysis, "minItems": 1},
             "multiplicity": {"type": "array", "items": _obj({"method": {"type": "string"},
                                                              "family": {"type": "array", "items": {"type": "string"}},
@@ -147,6 +167,6 @@ def record_schema() -> dict[str, Any]:
             "nonfinite": {"type": "array", "items": {"type": "string"}},
             "record_sha256": _sha,
         }, required=["format", "run_id", "started_utc", "finished_utc", "operator", "command", "plan",
-                     "parameters", "datasets", "environment", "seed", "analyses", "multiplicity",
+                     "parameters", "estimands", "datasets", "environment", "seed", "analyses", "multiplicity",
                      "methods_text", "caution", "nonfinite", "record_sha256"]),
     }

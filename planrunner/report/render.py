@@ -70,6 +70,8 @@ def _environment(kind: str) -> jinja2.Environment:
     env.filters["exactness"] = exactness
     env.filters["compares"] = comparison_word
     env.filters["interval"] = labels.interval_name
+    env.filters["interval_status"] = interval_status
+    env.filters["rule"] = decision_rule
     env.globals["fence"] = markdown_fence
     env.globals["interval_label"] = labels.interval_label
     env.globals["interval_heading"] = labels.interval_heading
@@ -142,6 +144,43 @@ def exactness(entry: dict[str, Any]) -> str:
     if entry.get("method") == "bootstrap":
         return "every distinct resample enumerated with its probability: no Monte Carlo error"
     return "every arrangement enumerated: no Monte Carlo error"
+
+
+def interval_status(interval: dict[str, Any]) -> str:
+    """'pre-specified' or 'supplementary' (a record from before the flag existed: no label)."""
+    flag = interval.get("prespecified")
+    return "" if flag is None else "pre-specified" if flag else "supplementary"
+
+
+VERDICT_CAUTION = ("A verdict is the plan's rule applied to these numbers under the plan's assumptions; it is a "
+                   "computation, not a decision (see the caution above).")
+
+
+def decision_rule(decision: dict[str, Any]) -> str:
+    """The rule and its threshold in words, e.g. 'non-inferiority, margin −3 (larger is better)'."""
+    rule = decision.get("rule", "")
+    if decision.get("limits") is not None:
+        low, high = decision["limits"]
+        threshold = f"limits {significant(low)} and {significant(high)}"
+    elif decision.get("limit") is not None:
+        threshold = f"limit {significant(decision['limit'])}"
+    else:
+        threshold = f"margin {significant(decision.get('margin'))}"
+    side = {"greater": " (larger is better)", "less": " (smaller is better)"}.get(decision.get("benefit") or "", "")
+    return f"{rule}, {threshold}{side}"
+
+
+def estimand_groups(record: dict[str, Any]) -> list[dict[str, Any]]:
+    """The analyses grouped by the estimand they target, in the plan's order of estimands, then
+    those that name none (only when there are any)."""
+    estimands = record.get("estimands") or {}
+    groups = [{"name": name, "attributes": attributes,
+               "analyses": [a for a in record["analyses"] if a.get("estimand") == name]}
+              for name, attributes in estimands.items()]
+    loose = [a for a in record["analyses"] if a.get("estimand") is None]
+    if loose:
+        groups.append({"name": None, "attributes": None, "analyses": loose})
+    return groups
 
 
 def markdown_fence(text: str) -> str:
@@ -254,7 +293,9 @@ def _escape_text(text: str) -> str:
 
 
 def _context(record: dict[str, Any]) -> dict[str, Any]:
-    return {"record": record,
+    return {"record": record, "estimand_groups": estimand_groups(record), "verdict_caution": VERDICT_CAUTION,
+            "any_decision": any(isinstance(a.get("decision"), dict) and a["decision"].get("verdict")
+                                for a in record["analyses"]),
             "views": {a["id"]: _analysis_view(i, a) for i, a in enumerate(record["analyses"])},
             "adjusted": _adjusted_view(record),
             "p_sd": {a["id"]: (a.get("monte_carlo") or {}).get("p_value_sd") for a in record["analyses"]},
