@@ -150,6 +150,7 @@ analyses:
     null_value: 2
     intervals: [percentile, bca]
   - id: upper
+    role: secondary
     data: d
     outcome: y
     statistic: mean

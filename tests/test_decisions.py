@@ -62,7 +62,7 @@ def scipy_exact_p(shift: float, alternative: str) -> float:
 
 @pytest.mark.parametrize("low, high", [(-40.0, 80.0), (-10.0, 80.0), (-40.0, 40.0), (-60.0, 100.0)])
 def test_permutation_equivalence_is_two_one_sided_tests_at_alpha(write_plan, tmp_path, low, high):
-    """TOST identity (identity 21): met ⇔ both one-sided tests at the shifted nulls reject at α = (1 − c)/2; the
+    """TOST identity (identity 22): met ⇔ both one-sided tests at the shifted nulls reject at α = (1 − c)/2; the
     two p-values are scipy's exact permutation p-values of the shifted data (scipy reference)."""
     entry = run(write_plan, tmp_path, analysis(
         "eq", "    confidence: 0.90\n    resamples: 20000\n"
@@ -108,7 +108,7 @@ def test_monte_carlo_permutation_decision_unresolved_when_alpha_is_in_the_p_valu
 
 
 def test_bootstrap_equivalence_equals_two_one_sided_percentile_tests_on_the_same_replicates(write_plan, tmp_path):
-    """TOST identity on the saved replicates (identity 21): the 1 − 2α percentile interval lies inside (low, high)
+    """TOST identity on the saved replicates (identity 22): the 1 − 2α percentile interval lies inside (low, high)
     ⇔ at most αB replicates fall at or below low and at most αB at or above high. Limits inside an
     end's Monte Carlo band give 'unresolved'; elsewhere the verdict equals the independent count."""
     more = "    method: bootstrap\n    confidence: 0.90\n    intervals: [percentile]\n    resamples: 20000\n" \

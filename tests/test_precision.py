@@ -184,6 +184,7 @@ analyses:
     method: permutation
     exact: never
   - id: other
+    role: secondary
     data: d
     outcome: w
     groups: {{by: g, compare: [a, b]}}
@@ -191,6 +192,7 @@ analyses:
     method: permutation
     exact: never
   - id: spread
+    role: secondary
     data: d
     outcome: y
     groups: {{by: g, compare: [a, b]}}

@@ -189,7 +189,7 @@ def test_index_page_loads_cleanly_and_fits(browser, tmp_path):
         assert main(["run", str(folder / "plan.yaml"), "--quiet", "--param", f"month={month}",
                      "--reason", f"<i>{month}</i> extract"]) == 0
     facts = check_page(browser, folder / "runs" / "index.html", "index-demo.png")
-    assert len(facts["pictures"]) == 2  # one per analysis, each drawn
+    assert len(facts["pictures"]) == 4  # one per analysis of the monthly demo, each drawn
     assert browser.evaluate("document.querySelectorAll('#runs tbody tr').length") == 2
     assert "<i>2026-10</i> extract" in browser.evaluate("document.body.textContent")
 

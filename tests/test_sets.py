@@ -45,6 +45,7 @@ datasets:
     method: bootstrap
     resamples: 499
   - id: new-arm-mean
+    role: secondary
     data: trial{set}
     outcome: change
     statistic: mean
