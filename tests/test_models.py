@@ -105,16 +105,16 @@ def test_estimates_from_a_plan_equal_statsmodels(write_plan, tmp_path):
         analyses:
           - {id: amd, data: d, outcome: gpa, groups: {by: method, compare: [psi, classic]}, covariates: [tuce, band],
              statistic: adjusted_mean_difference, method: bootstrap, resamples: 200, intervals: [percentile]}
-          - {id: srd, role: secondary, data: d, outcome: grade, groups: {by: method, compare: [psi, classic]}, covariates: [gpa, tuce],
-             statistic: standardized_risk_difference, method: bootstrap, resamples: 200, intervals: [percentile]}
-          - {id: srr, role: secondary, data: d, outcome: grade, groups: {by: method, compare: [psi, classic]}, covariates: [gpa, tuce],
-             statistic: standardized_risk_ratio, method: bootstrap, resamples: 200, intervals: [percentile]}
-          - {id: sor, role: secondary, data: d, outcome: grade, groups: {by: method, compare: [psi, classic]}, covariates: [gpa, tuce],
-             statistic: standardized_odds_ratio, method: bootstrap, resamples: 200, intervals: [percentile]}
+          - {id: srd, data: d, outcome: grade, groups: {by: method, compare: [psi, classic]}, covariates: [gpa, tuce],
+             role: secondary, statistic: standardized_risk_difference, method: bootstrap, resamples: 200, intervals: [percentile]}
+          - {id: srr, data: d, outcome: grade, groups: {by: method, compare: [psi, classic]}, covariates: [gpa, tuce],
+             role: secondary, statistic: standardized_risk_ratio, method: bootstrap, resamples: 200, intervals: [percentile]}
+          - {id: sor, data: d, outcome: grade, groups: {by: method, compare: [psi, classic]}, covariates: [gpa, tuce],
+             role: secondary, statistic: standardized_odds_ratio, method: bootstrap, resamples: 200, intervals: [percentile]}
           - {id: lin, role: secondary, data: d, outcome: gpa, predictor: tuce, statistic: coefficient, model: linear,
              method: bootstrap, resamples: 200, intervals: [percentile]}
-          - {id: logit, role: secondary, data: d, outcome: grade, predictor: gpa, covariates: [tuce], statistic: coefficient,
-             model: logistic, method: bootstrap, resamples: 200, intervals: [percentile]}
+          - {id: logit, data: d, outcome: grade, predictor: gpa, covariates: [tuce], statistic: coefficient,
+             role: secondary, model: logistic, method: bootstrap, resamples: 200, intervals: [percentile]}
         """, {"d.csv": "method,gpa,tuce,band,grade\n" + rows + "\n"})
     entries = {a["id"]: a for a in run_plan(plan, out=tmp_path / "out", clock=fixed_clock).record["analyses"]}
     bands = np.column_stack([band == "mid", band == "high"]).astype(float)
