@@ -106,11 +106,14 @@ def test_estimates_from_a_plan_equal_statsmodels(write_plan, tmp_path):
           - {id: amd, data: d, outcome: gpa, groups: {by: method, compare: [psi, classic]}, covariates: [tuce, band],
              statistic: adjusted_mean_difference, method: bootstrap, resamples: 200, intervals: [percentile]}
           - {id: srd, data: d, outcome: grade, groups: {by: method, compare: [psi, classic]}, covariates: [gpa, tuce],
-             role: secondary, statistic: standardized_risk_difference, method: bootstrap, resamples: 200, intervals: [percentile]}
+             role: secondary, statistic: standardized_risk_difference, method: bootstrap, resamples: 200,
+             intervals: [percentile]}
           - {id: srr, data: d, outcome: grade, groups: {by: method, compare: [psi, classic]}, covariates: [gpa, tuce],
-             role: secondary, statistic: standardized_risk_ratio, method: bootstrap, resamples: 200, intervals: [percentile]}
+             role: secondary, statistic: standardized_risk_ratio, method: bootstrap, resamples: 200,
+             intervals: [percentile]}
           - {id: sor, data: d, outcome: grade, groups: {by: method, compare: [psi, classic]}, covariates: [gpa, tuce],
-             role: secondary, statistic: standardized_odds_ratio, method: bootstrap, resamples: 200, intervals: [percentile]}
+             role: secondary, statistic: standardized_odds_ratio, method: bootstrap, resamples: 200,
+             intervals: [percentile]}
           - {id: lin, role: secondary, data: d, outcome: gpa, predictor: tuce, statistic: coefficient, model: linear,
              method: bootstrap, resamples: 200, intervals: [percentile]}
           - {id: logit, data: d, outcome: grade, predictor: gpa, covariates: [tuce], statistic: coefficient,
