@@ -62,7 +62,11 @@ def trend_svg(series: dict[str, Any], runs: list[dict[str, Any]], fmt: Any = pre
     points = series["points"]
     has_p = any(p["p_value"] is not None for p in points)
     with matplotlib.rc_context(plots.RC):
-        fig = Figure(figsize=(7.0, 4.6 if has_p else 2.8), layout="constrained")
+        # fixed margins instead of a layout engine: an index holds a picture per analysis and is drawn
+        # after every run, and the constrained layout drew each figure twice
+        height = 4.6 if has_p else 2.8
+        fig = Figure(figsize=(7.0, height))
+        fig.subplots_adjust(left=0.13, right=0.98, top=1 - 0.42 / height, bottom=0.72 / height, hspace=0.12)
         axes = fig.subplots(2, 1, sharex=True) if has_p else [fig.add_subplot()]
         ax = axes[0]
         kept = [p for p in points if p["estimate"] is not None]
