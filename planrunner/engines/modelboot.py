@@ -116,6 +116,7 @@ class _Prepared:
     a: np.ndarray  # row `target` of (XᵀX)⁻¹Xᵀ
     se_kind: str | None  # "classical", "HC1", "cluster" or None
     groups: int  # clusters G (0 without clusters)
+    slots: tuple[int, np.ndarray, np.ndarray, np.ndarray]  # cases: units, their cell order, slot starts and sizes
 
 
 def model_bootstrap(design: Design, statistic: str, options: ModelBootstrapOptions, *, stream: Stream,
@@ -190,7 +191,16 @@ def _prepare(design: Design, statistic: str, options: ModelBootstrapOptions, wha
         noise = fit.residuals * math.sqrt(design.n / (design.n - design.p))
     se_kind = None if logistic else {"residual": "classical", "wild": "HC1", "wild-cluster": "cluster",
                                      "cases": "cluster" if design.clusters is not None else "HC1"}[scheme]
-    return _Prepared(design, statistic, options, fit, estimate, base, noise, q, a, se_kind, groups)
+    return _Prepared(design, statistic, options, fit, estimate, base, noise, q, a, se_kind, groups, _slots(design))
+
+
+def _slots(design: Design) -> tuple[int, np.ndarray, np.ndarray, np.ndarray]:
+    """The cases draw's layout, found once: the units (rows or clusters) sorted by cell, and for each
+    drawn slot the first position and the size of its cell in that order."""
+    units, unit_cells = _units(design)
+    order = np.argsort(unit_cells, kind="stable")
+    _, starts, sizes = np.unique(unit_cells[order], return_index=True, return_counts=True)
+    return units, order, np.repeat(starts, sizes), np.repeat(sizes, sizes)
 
 
 def _estimate(statistic: str, beta: np.ndarray, x: np.ndarray, target: int) -> float:
@@ -288,11 +298,7 @@ def _case_counts(p: _Prepared, stream: Stream, lo: int) -> np.ndarray:
     """How often each row is drawn in each resample of the chunk (CHUNK, n): rows (or clusters)
     drawn with replacement within their cell, one uniform per drawn unit."""
     design = p.design
-    units, unit_cells = _units(design)
-    order = np.argsort(unit_cells, kind="stable")
-    cells, starts, sizes = np.unique(unit_cells[order], return_index=True, return_counts=True)
-    slot_start = np.repeat(starts, sizes)
-    slot_size = np.repeat(sizes, sizes)
+    units, order, slot_start, slot_size = p.slots
     u = UniformRows(stream, units, lo).take(CHUNK)
     drawn = order[slot_start + (u * slot_size).astype(np.intp)]
     flat = (drawn + (np.arange(CHUNK) * units)[:, None]).ravel()
