@@ -593,7 +593,9 @@ def test_max_t_family_end_to_end_and_order_free(write_plan, tmp_path):
     for aid in ("days", "score"):
         assert fam_a["adjusted"][aid] >= fam_a["unadjusted"][aid] - 1e-12
         assert a[aid]["adjusted_p_values"] == [{"method": "max-t", "p_value": fam_a["adjusted"][aid]}]
-    report = (next((tmp_path / "one" / "out").iterdir()) / "report.md").read_text(encoding="utf-8")
+    # the output folder also holds history.jsonl and index.html: take the run folder
+    run_folder = next(p for p in (tmp_path / "one" / "out").iterdir() if p.is_dir())
+    report = (run_folder / "report.md").read_text(encoding="utf-8")
     assert "unadjusted" in report and "max-t" in report
 
 
