@@ -269,3 +269,58 @@ def test_statistics_with_a_parameter_travel_to_workers() -> None:
     x = np.arange(11.0)
     assert again.name == "quantile" and again.value == 0.9
     assert float(again.compute(x)) == float(np.quantile(x, 0.9))  # numpy reference (type 7)
+
+
+def _children() -> list[tuple[int, str]]:
+    """(pid, state) of this process's children, from /proc (state Z: a zombie nobody reaped)."""
+    import os
+
+    found = []
+    for entry in Path("/proc").iterdir():
+        if not entry.name.isdigit():
+            continue
+        try:
+            fields = (entry / "stat").read_text().rsplit(")", 1)[1].split()
+        except OSError:
+            continue
+        if int(fields[1]) == os.getpid():
+            found.append((int(entry.name), fields[0]))
+    return found
+
+
+@pytest.mark.skipif(not Path("/proc/self/stat").exists(), reason="reads /proc")
+@pytest.mark.parametrize("executor", ["processes", "dask"])
+def test_worker_processes_are_reaped_when_the_run_ends(demo: Path, executor: str) -> None:
+    """No zombie and no worker is left behind by the processes executor or a local dask cluster of
+    worker processes: each worker's exit is collected before execute_all returns."""
+    if executor == "dask":
+        pytest.importorskip("distributed")
+    jobs = check_plan(demo).jobs
+    assert jobs is not None
+    before = {pid for pid, _ in _children()}
+    execute_all(jobs, execution=Execution(executor, 2))
+    left = [(pid, state) for pid, state in _children() if pid not in before]
+    # the spawn context's resource tracker lives as long as this interpreter (one per interpreter)
+    import multiprocessing.resource_tracker as tracker
+
+    tracker_pid = getattr(tracker._resource_tracker, "_pid", None)
+    assert [(pid, state) for pid, state in left if pid != tracker_pid] == []
+
+
+def test_a_worker_is_sent_each_task_once_and_asks_for_it_when_missing() -> None:
+    import pickle
+
+    from planrunner.execute import executors
+
+    from planrunner.engines.blocks import bind
+
+    def_range = bind(np.arange)  # np.arange(start, stop): a picklable task of (start, stop)
+    key = "test-key"
+    executors._TASKS.pop(key, None)
+    assert executors._call_cached_range(key, None, 0, 3) == executors._NEEDS_TASK
+    payload = pickle.dumps(def_range)
+    assert executors._call_cached_range(key, payload, 0, 3).tolist() == [0, 1, 2]
+    assert executors._call_cached_range(key, None, 5, 7).tolist() == [5, 6]  # kept: no second sending
+    for other in range(executors._TASKS_KEPT):  # only the last few tasks are kept
+        executors._call_cached_range(f"other-{other}", payload, 0, 1)
+    assert executors._call_cached_range(key, None, 0, 3) == executors._NEEDS_TASK

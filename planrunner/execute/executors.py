@@ -12,9 +12,12 @@ from __future__ import annotations
 
 import copyreg
 import functools
+import itertools
 import logging
 import math
 import multiprocessing
+import os
+import pickle
 import signal
 import warnings
 from collections.abc import Callable
@@ -47,6 +50,7 @@ EngineResult = BootstrapResult | JackknifeResult | PermutationResult
 # (resamples done, resamples in total) after every finished range and job
 Progress = Callable[[int, int], None]
 RANGES_PER_WORKER = 4  # a few ranges per worker keep them busy while one finishes early
+MIN_RANGE = DRAW_BLOCK  # ... but none shorter than a draw block: a range's fixed cost stays small beside its work
 SERIAL_RANGE = 5  # draw blocks per progress step in a serial run
 SCHEDULER_TIMEOUT = 30.0  # seconds to reach a dask scheduler before giving up
 
@@ -214,6 +218,26 @@ def _call_range(task: RangeTask, start: int, stop: int) -> np.ndarray:
     return task(start, stop)
 
 
+# A worker process keeps the last few range tasks it was sent (their arrays, streams and statistic),
+# so a job's data cross the pipe about once per worker rather than once per range.
+_TASKS: dict[str, RangeTask] = {}
+_TASKS_KEPT = 4
+_NEEDS_TASK = "needs the task"  # what a worker answers for a range whose task it has not been sent
+_task_keys = itertools.count()
+
+
+def _call_cached_range(key: str, payload: bytes | None, start: int, stop: int) -> np.ndarray | str:
+    task = _TASKS.get(key)
+    if task is None:
+        if payload is None:
+            return _NEEDS_TASK
+        task = pickle.loads(payload)
+        while len(_TASKS) >= _TASKS_KEPT:
+            del _TASKS[next(iter(_TASKS))]
+        _TASKS[key] = task
+    return task(start, stop)
+
+
 def _execute_caught(job: Job) -> tuple[Any, tuple | None]:
     """``execute`` in a worker, with a planrunner error sent back whole (pickling an exception
     keeps only its message, not where it happened or what to do)."""
@@ -241,12 +265,18 @@ def _future_result(pending: Any) -> Any:
     return _result_of(pending.result())
 
 
+def _ranges(total: int, workers: int) -> list[tuple[int, int]]:
+    """A few ranges per worker, none shorter than MIN_RANGE resamples (so a small job is not cut
+    into pieces that cost more to send and start than to compute)."""
+    return resample_ranges(total, max(1, min(RANGES_PER_WORKER * workers, total // MIN_RANGE)))
+
+
 def _spreading(submit: Callable[[RangeTask, int, int], Any], result: Callable[[Any], np.ndarray], workers: int,
                tally: _Tally) -> Callable[[RangeTask, int], list[np.ndarray]]:
     """A range mapper that hands a few equal ranges per worker to ``submit`` at once, then collects
     them in order with ``result``, counting each finished range for the progress bar."""
     def mapper(task: RangeTask, total: int) -> list[np.ndarray]:
-        ranges = resample_ranges(total, RANGES_PER_WORKER * workers)
+        ranges = _ranges(total, workers)
         waiting = [submit(task, start, stop) for start, stop in ranges]
         parts = []
         for (start, stop), pending in zip(ranges, waiting):
@@ -279,8 +309,7 @@ def _on_processes(jobs: list[Job], execution: Execution, tally: _Tally) -> list[
         pending = {i: pool.apply_async(_execute_caught, (job,)) for i, job in enumerate(jobs)
                    if job.method == "jackknife"}
 
-        mapper = _spreading(lambda task, start, stop: pool.apply_async(_call_range, (task, start, stop)),
-                            lambda r: r.get(), execution.workers, tally)
+        mapper = _cached_spreading(pool, execution.workers, tally)
 
         results = _run_jobs(jobs, tally, mapper, {i: functools.partial(_pool_result, r) for i, r in pending.items()})
         pool.close()
@@ -288,6 +317,30 @@ def _on_processes(jobs: list[Job], execution: Execution, tally: _Tally) -> list[
         return results
     finally:
         pool.terminate()  # after an error or an interrupt: no worker outlives the run
+        pool.join()  # and every worker is reaped: none is left a zombie after the run
+        multiprocessing.active_children()  # reaps any other finished child (the pool's helpers)
+
+
+def _cached_spreading(pool: Any, workers: int, tally: _Tally) -> Callable[[RangeTask, int], list[np.ndarray]]:
+    """`_spreading` for a process pool that sends each task's data about once per worker: the
+    pickled task rides with the first range of each worker; a worker that gets a later range
+    first answers that it needs the task, and that range is sent again with it."""
+    def mapper(task: RangeTask, total: int) -> list[np.ndarray]:
+        key = f"{os.getpid()}-{next(_task_keys)}"
+        payload = pickle.dumps(task, protocol=pickle.HIGHEST_PROTOCOL)
+        ranges = _ranges(total, workers)
+        waiting = [pool.apply_async(_call_cached_range, (key, payload if i < workers else None, start, stop))
+                   for i, (start, stop) in enumerate(ranges)]
+        parts = []
+        for (start, stop), pending in zip(ranges, waiting):
+            part = pending.get()
+            if isinstance(part, str):  # that worker had not been sent the task yet
+                part = pool.apply_async(_call_cached_range, (key, payload, start, stop)).get()
+            parts.append(part)
+            tally.add(stop - start)
+        return parts
+
+    return mapper
 
 
 def _on_dask(jobs: list[Job], execution: Execution, tally: _Tally) -> list[Any]:
@@ -322,8 +375,13 @@ def _on_dask(jobs: list[Job], execution: Execution, tally: _Tally) -> list[Any]:
                    if job.method == "jackknife"}
         futures.extend(pending.values())
 
+        scattered: dict[int, Any] = {}  # each task's data go to every worker once (by id: tasks are not hashable)
+
         def submit(task: RangeTask, start: int, stop: int) -> Any:
-            futures.append(client.submit(_call_range, task, start, stop, pure=False))
+            if id(task) not in scattered:
+                scattered.clear()  # the previous job's task is finished with
+                scattered[id(task)] = (task, client.scatter(task, broadcast=True, hash=False))
+            futures.append(client.submit(_call_range, scattered[id(task)][1], start, stop, pure=False))
             return futures[-1]
 
         mapper = _spreading(submit, lambda f: f.result(), execution.workers, tally)
@@ -334,3 +392,4 @@ def _on_dask(jobs: list[Job], execution: Execution, tally: _Tally) -> list[Any]:
         client.close()
         if cluster is not None:
             cluster.close()
+            multiprocessing.active_children()  # reap the local cluster's worker processes now, not at exit
