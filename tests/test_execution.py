@@ -310,15 +310,14 @@ def test_worker_processes_are_reaped_when_the_run_ends(demo: Path, executor: str
 def test_a_worker_is_sent_each_task_once_and_asks_for_it_when_missing() -> None:
     import pickle
 
+    from planrunner.engines.blocks import bind
     from planrunner.execute import executors
 
-    from planrunner.engines.blocks import bind
-
-    def_range = bind(np.arange)  # np.arange(start, stop): a picklable task of (start, stop)
+    task = bind(np.arange)  # np.arange(start, stop): a picklable task of (start, stop)
     key = "test-key"
     executors._TASKS.pop(key, None)
     assert executors._call_cached_range(key, None, 0, 3) == executors._NEEDS_TASK
-    payload = pickle.dumps(def_range)
+    payload = pickle.dumps(task)
     assert executors._call_cached_range(key, payload, 0, 3).tolist() == [0, 1, 2]
     assert executors._call_cached_range(key, None, 5, 7).tolist() == [5, 6]  # kept: no second sending
     for other in range(executors._TASKS_KEPT):  # only the last few tasks are kept
