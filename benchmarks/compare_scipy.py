@@ -7,6 +7,8 @@ Run from the repository root (not part of the test suite; it takes a few minutes
     python benchmarks/compare_scipy.py --skip-large    # without L1 (n = 1e6)
     python benchmarks/compare_scipy.py --workers 2     # our resample ranges on 2 worker processes
     python benchmarks/compare_scipy.py --workers 2 --threads   # ... or on 2 threads
+    python benchmarks/compare_scipy.py --end-to-end    # the command line: check and run, wall time and peak RSS
+    python benchmarks/compare_scipy.py --scaling       # a bootstrap of the mean over a grid of n and B
 
 For each workload the two computations are timed alternately (ours, scipy, ours, scipy, ...) so
 that a busy machine slows both alike; the table shows the median time of each, their ratio
@@ -27,6 +29,7 @@ from __future__ import annotations
 import argparse
 import concurrent.futures
 import dataclasses
+import functools
 import gc
 import math
 import multiprocessing
@@ -279,6 +282,105 @@ def _cell(value: float | None, fmt: str) -> str:
     return "n/a" if value is None else format(value, fmt)
 
 
+def _command(argv: list[str]) -> tuple[float, float]:
+    """Wall seconds and peak RSS (MB) of one planrunner command in a fresh interpreter."""
+    import os
+    import subprocess
+
+    start = time.perf_counter()
+    child = subprocess.Popen([sys.executable, "-m", "planrunner", *argv], stdout=subprocess.DEVNULL,
+                             stderr=subprocess.DEVNULL)
+    _, status, usage = os.wait4(child.pid, 0)  # this child's own resource use (ru_maxrss in KB on Linux)
+    wall = time.perf_counter() - start
+    child.returncode = os.waitstatus_to_exitcode(status)
+    if child.returncode not in (0, 1):  # 1: a run whose warnings ask for attention
+        raise RuntimeError(f"planrunner {' '.join(argv)} exited with {child.returncode}")
+    return wall, usage.ru_maxrss / 1024
+
+
+def _large_plan(folder: Path, rows: int = 1_000_000) -> Path:
+    """A plan on a CSV of `rows` rows and 6 columns (about 50 MB): integer id, category, two numbers,
+    a boolean and a date; one bootstrap of a difference of means (B = 1000)."""
+    rng = np.random.default_rng(7)
+    data = folder / "large.csv"
+    site = np.where(rng.random(rows) < 0.5, "north", "south")
+    days = np.array([f"2026-01-{d:02d}" for d in range(1, 29)])[rng.integers(0, 28, rows)]
+    with data.open("w") as out:
+        out.write("id,site,y,x,flag,day\n")
+        for i, (s, y, x, f, d) in enumerate(zip(site, rng.normal(10, 2, rows).tolist(),
+                                                 rng.exponential(1, rows).tolist(), rng.random(rows) < 0.3, days)):
+            out.write(f"{i},{s},{y!r},{x:.6f},{'yes' if f else 'no'},{d}\n")
+    plan = folder / "large.yaml"
+    plan.write_text("""plan: large-file
+title: A large file, read, checked and resampled
+seed: 7
+datasets:
+  d:
+    file: large.csv
+    columns:
+      id: {type: integer}
+      site: {type: category, levels: [north, south]}
+      y: {type: number}
+      x: {type: number, min: 0}
+      flag: {type: boolean}
+      day: {type: date}
+analyses:
+  - id: difference
+    data: d
+    outcome: y
+    groups: {by: site, compare: [north, south]}
+    statistic: mean_difference
+    method: bootstrap
+    resamples: 1000
+""")
+    return plan
+
+
+def end_to_end(repeats: int) -> int:
+    """`check` and `run` from the command line, each in a fresh interpreter, repeated alternately;
+    median wall time and the largest peak RSS."""
+    import tempfile
+
+    demo = Path(__file__).resolve().parent.parent / "plans" / "liner-trial" / "plan.yaml"
+    with tempfile.TemporaryDirectory() as tmp:
+        folder = Path(tmp)
+        plans = {"demo": demo, "1e6 rows": _large_plan(folder)}
+        commands = [(f"{verb} {name}", [verb, str(plan)] + (["--out", str(folder / "runs")] if verb == "run" else []))
+                    for name, plan in plans.items() for verb in ("check", "run")]
+        times: dict[str, list[float]] = {label: [] for label, _ in commands}
+        peaks: dict[str, float] = dict.fromkeys(times, 0.0)
+        for _ in range(repeats):
+            for label, argv in commands:
+                wall, peak = _command(argv)
+                times[label].append(wall)
+                peaks[label] = max(peaks[label], peak)
+    print(f"planrunner {__version__}, Python {sys.version.split()[0]}, repeats {repeats}")
+    print(f"{'command':<16} {'wall s (median)':>16} {'peak RSS MB':>12}")
+    for label in times:
+        print(f"{label:<16} {statistics.median(times[label]):>16.2f} {peaks[label]:>12.0f}")
+    return 0
+
+
+def scaling(repeats: int, seed: int) -> int:
+    """A bootstrap of the mean (percentile interval) over n and B: seconds per call, median of the
+    repeats; the time should grow as n × B."""
+    rng = np.random.default_rng(seed)
+    sizes, counts = (1_000, 10_000, 100_000), (1_000, 10_000)
+    print(f"bootstrap of the mean, seconds (median of {repeats}); ns per draw in brackets")
+    print(f"{'n':>8} " + " ".join(f"{'B = ' + format(b, ','):>22}" for b in counts))
+    for n in sizes:
+        data = rng.normal(0, 1, n)
+        cells = []
+        for b in counts:
+            options = BootstrapOptions(b, 0.95, ("percentile",))
+            call = functools.partial(bootstrap, [data], get_statistic("mean"), options,
+                                     stream=stream_for(seed, f"scaling-{n}-{b}"))
+            seconds = statistics.median(_timed(call)[0] for _ in range(repeats))
+            cells.append(f"{seconds:>10.3f} [{seconds / (n * b) * 1e9:5.2f} ns]")
+        print(f"{n:>8,} " + " ".join(f"{c:>22}" for c in cells))
+    return 0
+
+
 def main(argv: list[str] | None = None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
     parser.add_argument("--repeats", type=int, default=5, help="timed runs of each side (median reported)")
@@ -288,7 +390,16 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--workers", type=int, default=1, help="workers for planrunner's side")
     parser.add_argument("--threads", action="store_true",
                         help="the workers are threads of this process (planrunner run --executor threads)")
+    parser.add_argument("--end-to-end", action="store_true",
+                        help="time `planrunner check` and `planrunner run` on the demo plan and a 1e6-row plan "
+                             "(wall time and peak RSS of each command), then stop")
+    parser.add_argument("--scaling", action="store_true",
+                        help="time a bootstrap of the mean over a grid of n and B, then stop")
     args = parser.parse_args(argv)
+    if args.end_to_end:
+        return end_to_end(args.repeats)
+    if args.scaling:
+        return scaling(args.repeats, args.seed)
     pool: Any = None  # a thread pool or a process pool
     if args.workers > 1 and args.threads:
         pool = concurrent.futures.ThreadPoolExecutor(args.workers)
