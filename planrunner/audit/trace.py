@@ -251,6 +251,10 @@ TRACE: dict[str, tuple[str, ...]] = {
         "test_permutation_designs_identical_serial_threads_processes_and_dask"),
     "Start-up": ("tests/test_startup.py::test_version_loads_no_heavy_library",
                  "tests/test_startup.py::test_plan_only_check_loads_no_heavy_library"),
+    "Scaling in n and B, and the command line end to end": (
+        "tests/test_columnar.py::test_a_plain_file_is_read_by_the_fast_path",
+        "tests/test_startup.py::test_version_loads_no_heavy_library",
+        "tests/test_execution.py::test_worker_processes_are_reaped_when_the_run_ends"),
     "Large files": ("tests/test_columnar.py::test_edge_decimals_are_the_correctly_rounded_doubles",
                     "tests/test_columnar.py::test_hard_decimals_at_random_agree_with_the_correct_rounding",
                     "tests/test_columnar.py::test_random_files_read_the_same_both_ways",
