@@ -45,6 +45,7 @@ TRACE: dict[str, tuple[str, ...]] = {
                       "tests/test_plan_corpus.py::test_invalid_plan_is_reported_where_and_what"),
     "Results dataset": ("tests/test_results.py::test_results_csv_has_the_documented_columns_and_the_records_numbers",
                         "tests/test_results.py::test_results_parquet_has_the_documented_types",
+                        "tests/test_results.py::test_results_carry_the_estimand_the_prespecified_interval_and_the_decision",
                         "tests/test_results.py::test_every_documented_column_is_in_the_readme_table"),
     "Python API": ("tests/test_api.py::test_the_readme_example_runs",
                    "tests/test_api.py::test_api_numbers_equal_the_command_lines_on_any_executor",

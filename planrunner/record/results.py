@@ -3,9 +3,11 @@ into another program (`results.csv`, and `results.parquet` when pyarrow is insta
 
 One row per analysis × quantity, built from the record alone (never from the engines), so it can
 say nothing the record does not. Quantities: `estimate`, `standard_error`, `bias`, `interval`
-(one row per interval: `lower`, `upper`, `interval_method`, `level`, `side`), `p_value` and
-`p_value_adjusted` (one row per adjustment: `adjustment`). Every row carries the run id, the plan's
-id and hash, the analysis's dataset and that file's hash, and `n` (the rows the analysis used).
+(one row per interval: `lower`, `upper`, `interval_method`, `level`, `side`, `prespecified`),
+`p_value`, `p_value_adjusted` (one row per adjustment: `adjustment`) and `decision` (one row when the
+analysis has a pre-specified rule: `decision_rule`, its threshold(s) and `verdict`). Every row carries
+the run id, the plan's id and hash, the analysis's estimand, dataset and that file's hash, and `n`
+(the rows the analysis used).
 """
 
 from __future__ import annotations
@@ -21,20 +23,29 @@ COLUMNS: tuple[tuple[str, str, str], ...] = (
     ("plan_sha256", "string", "SHA-256 of the plan file as read"),
     ("analysis", "string", "the analysis id"),
     ("role", "string", "primary, secondary, sensitivity or supplementary"),
+    ("estimand", "string", "the estimand the analysis targets, empty without one"),
     ("data", "string", "the dataset the analysis uses"),
     ("data_sha256", "string", "SHA-256 of that data file"),
     ("set", "string", "the analysis set, empty without one"),
     ("method", "string", "bootstrap, permutation, jackknife"),
     ("statistic", "string", "the statistic's name"),
-    ("quantity", "string", "estimate, standard_error, bias, interval, p_value or p_value_adjusted"),
-    ("value", "double", "the number (empty for an interval, or where the record holds null)"),
+    ("quantity", "string", "estimate, standard_error, bias, interval, p_value, p_value_adjusted or decision"),
+    ("value", "double", "the number (empty for an interval or a decision, or where the record holds null)"),
     ("lower", "double", "an interval's lower end (empty when open)"),
     ("upper", "double", "an interval's upper end (empty when open)"),
     ("interval_method", "string", "an interval's method (percentile, bca, ..., shift)"),
     ("level", "double", "an interval's confidence level"),
     ("side", "string", "an interval's side: two-sided, lower or upper"),
+    ("prespecified", "bool", "an interval: true for the pre-specified one (listed first), false if supplementary"),
     ("adjustment", "string", "the multiplicity method of an adjusted p-value"),
     ("alternative", "string", "a p-value's alternative"),
+    ("decision_rule", "string",
+     "a decision's rule: superiority, non-inferiority, equivalence, below-limit or above-limit"),
+    ("margin", "double", "a superiority or non-inferiority decision's margin"),
+    ("limit", "double", "a below-limit or above-limit decision's limit"),
+    ("lower_limit", "double", "an equivalence decision's lower limit"),
+    ("upper_limit", "double", "an equivalence decision's upper limit"),
+    ("verdict", "string", "a decision's verdict: met, not met or unresolved"),
     ("monte_carlo_sd", "double", "Monte Carlo standard deviation of the value (empty when exact or not known)"),
     ("lower_monte_carlo_sd", "double", "Monte Carlo standard deviation of an interval's lower end"),
     ("upper_monte_carlo_sd", "double", "Monte Carlo standard deviation of an interval's upper end"),
@@ -52,7 +63,8 @@ def result_rows(record: dict[str, Any]) -> list[dict[str, Any]]:
     for a in record["analyses"]:
         base = {name: None for name in NAMES} | {
             "run_id": record["run_id"], "plan_id": record["plan"]["id"], "plan_sha256": record["plan"]["sha256"],
-            "analysis": a["id"], "role": a.get("role"), "data": a.get("data"), "data_sha256": hashes.get(a.get("data")),
+            "analysis": a["id"], "role": a.get("role"), "estimand": a.get("estimand"),
+            "data": a.get("data"), "data_sha256": hashes.get(a.get("data")),
             "set": a.get("set"), "method": a["method"], "statistic": a["statistic"],
             "resamples": None if a.get("resamples") is None else str(a["resamples"]),
             "n": sum((a.get("n") or {}).get("groups", {}).values()) or None}
@@ -67,6 +79,7 @@ def result_rows(record: dict[str, Any]) -> list[dict[str, Any]]:
             rows.append(base | {"quantity": "interval", "lower": interval.get("lower"), "upper": interval.get("upper"),
                                 "interval_method": interval["method"], "level": interval.get("level"),
                                 "side": interval.get("side", "two-sided"),
+                                "prespecified": interval.get("prespecified"),
                                 "lower_monte_carlo_sd": band.get("lower_sd"),
                                 "upper_monte_carlo_sd": band.get("upper_sd")})
         if a.get("p_value") is not None:
@@ -75,12 +88,21 @@ def result_rows(record: dict[str, Any]) -> list[dict[str, Any]]:
         for adjusted in a.get("adjusted_p_values", []):
             rows.append(base | {"quantity": "p_value_adjusted", "value": adjusted["p_value"],
                                 "adjustment": adjusted["method"], "alternative": a.get("alternative")})
+        decision = a.get("decision")
+        if isinstance(decision, dict):
+            lower_limit, upper_limit = decision.get("limits") or (None, None)
+            rows.append(base | {"quantity": "decision", "decision_rule": decision["rule"],
+                                "margin": decision.get("margin"), "limit": decision.get("limit"),
+                                "lower_limit": lower_limit, "upper_limit": upper_limit,
+                                "verdict": decision.get("verdict")})
     return rows
 
 
 def _cell(value: Any) -> str:
     if value is None:
         return ""
+    if isinstance(value, bool):
+        return "true" if value else "false"
     if isinstance(value, float):
         return repr(value)  # every digit: the text reads back to the same double
     return str(value)
@@ -103,7 +125,7 @@ def results_parquet(record: dict[str, Any]) -> bytes | None:
         import pyarrow.parquet as pq
     except ImportError:
         return None
-    kinds = {"string": pa.string(), "double": pa.float64(), "int64": pa.int64()}
+    kinds = {"string": pa.string(), "double": pa.float64(), "int64": pa.int64(), "bool": pa.bool_()}
     rows = result_rows(record)
     schema = pa.schema([pa.field(name, kinds[kind], metadata={"description": meaning})
                         for name, kind, meaning in COLUMNS])
