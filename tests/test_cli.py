@@ -107,3 +107,48 @@ def test_python_dash_m_entry_point(tmp_path):
     done = subprocess.run([sys.executable, "-m", "planrunner", "check", "--plan-only", str(DEMO)],
                           capture_output=True, text=True, cwd=ROOT)
     assert done.returncode == 0, done.stderr
+
+
+def _piped_into_a_reader_that_closes(args: list[str], lines_read: int) -> subprocess.CompletedProcess:
+    """The CLI in a subprocess whose stdout reader reads `lines_read` lines and closes the pipe (`| true`)."""
+    child = subprocess.Popen([sys.executable, "-m", "planrunner", *args], stdout=subprocess.PIPE,
+                             stderr=subprocess.PIPE, cwd=ROOT)
+    assert child.stdout is not None and child.stderr is not None
+    for _ in range(lines_read):
+        child.stdout.readline()
+    child.stdout.close()  # before the child prints (lines_read 0) or while it still prints
+    err = child.stderr.read().decode()
+    return subprocess.CompletedProcess(child.args, child.wait(timeout=120), "", err)
+
+
+def test_a_closed_stdout_is_no_failure_and_the_run_folder_is_complete(tmp_path):
+    # `planrunner check PLAN | true`: the reader is gone before the first line
+    done = _piped_into_a_reader_that_closes(["check", "--plan-only", str(DEMO)], 0)
+    assert (done.returncode, done.stderr) == (0, "")
+    # a run whose table nobody reads: the folder, its results and the history entry are all written
+    plan = tmp_path / "liner-trial"
+    shutil.copytree(DEMO.parent, plan)
+    done = _piped_into_a_reader_that_closes(["run", str(plan / "plan.yaml"), "--out", str(tmp_path / "runs"),
+                                             "--operator", "tester"], 0)
+    assert (done.returncode, done.stderr) == (0, "")
+    [folder] = [f for f in (tmp_path / "runs").iterdir() if f.is_dir()]
+    for name in ("record.json", "report.html", "report.md", "results.csv", "results.parquet"):
+        assert (folder / name).is_file(), name
+    record = json.loads((folder / "record.json").read_text(encoding="utf-8"))
+    history = (tmp_path / "runs" / "history.jsonl").read_text(encoding="utf-8").splitlines()
+    assert [json.loads(line)["run_id"] for line in history] == [record["run_id"]]
+
+
+def test_a_stdout_that_refuses_every_write_changes_no_exit_code(monkeypatch, capsys):
+    # the verb's print meets BrokenPipeError; main's stdout drops the rest and keeps the verb's code
+    class Closed:
+        def write(self, text):
+            raise BrokenPipeError(32, "Broken pipe")
+
+        def flush(self):
+            raise BrokenPipeError(32, "Broken pipe")
+
+    monkeypatch.setattr(sys, "stdout", Closed())
+    assert cli.main(["check", "--plan-only", str(DEMO)]) == 0
+    assert isinstance(sys.stdout, Closed)  # put back as it was
+    assert capsys.readouterr().err == ""

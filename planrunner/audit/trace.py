@@ -27,6 +27,8 @@ TRACE: dict[str, tuple[str, ...]] = {
                  CLI + "test_check_valid_plan_exit_0", CLI + "test_check_invalid_plan_exit_2_without_traceback",
                  CLI + "test_missing_plan_and_bad_arguments_exit_2",
                  CLI + "test_unexpected_failure_exit_1_with_versions",
+                 CLI + "test_a_closed_stdout_is_no_failure_and_the_run_folder_is_complete",
+                 CLI + "test_a_stdout_that_refuses_every_write_changes_no_exit_code",
                  CLI + "test_python_dash_m_entry_point", "tests/test_faults.py::test_data_root_option",
                  "tests/test_bad_inputs.py::test_bad_input_gives_one_clear_message",
                  "tests/test_history_text.py::test_a_name_with_a_control_character_is_refused_before_anything_is_written"),

@@ -3,16 +3,19 @@
 Exit codes: 0 success; 2 the plan, data, arguments or a file read back are wrong, or an output
 cannot be written (EXIT_FOR_ERROR); 3 verify, history or selfcheck found a difference; 1 an
 unexpected failure (with versions, and a request to report it); 130 interrupted.
+A reader that closes stdout early (`planrunner check PLAN | head -1`) is no failure: the rest of the
+output is dropped, the verb finishes its work and exits with its usual code.
 """
 
 from __future__ import annotations
 
 import argparse
+import os
 import shutil
 import sys
 import traceback
 from collections.abc import Sequence
-from typing import TYPE_CHECKING, Any, NoReturn
+from typing import TYPE_CHECKING, Any, NoReturn, TextIO, cast
 
 from planrunner import __version__
 from planrunner.cli.audit import (
@@ -104,7 +107,64 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
+class _StdoutForAnyReader:
+    """sys.stdout for a verb: once the reader has closed the pipe, the rest of the output is dropped.
+
+    A verb may print before it writes a file (verify's list of differences, selfcheck's report, the
+    index of the runs), so a closed stdout must not stop it: the error would lose that file.
+    """
+
+    def __init__(self, stream: TextIO):
+        self._stream = stream
+        self.reader_gone = False
+
+    def write(self, text: str) -> int:
+        if not self.reader_gone:
+            try:
+                self._stream.write(text)
+            except BrokenPipeError:
+                self._drop_the_rest()
+        return len(text)
+
+    def flush(self) -> None:
+        if not self.reader_gone:
+            try:
+                self._stream.flush()
+            except BrokenPipeError:
+                self._drop_the_rest()
+
+    def _drop_the_rest(self) -> None:
+        self.reader_gone = True
+        # what is still buffered goes to the null device, so that the flush at exit does not fail again
+        try:
+            null = os.open(os.devnull, os.O_WRONLY)
+        except OSError:
+            return
+        try:
+            os.dup2(null, self._stream.fileno())
+        except (OSError, ValueError, AttributeError):  # a stream with no file descriptor (tests capture it)
+            pass
+        finally:
+            os.close(null)
+
+    def __getattr__(self, name: str) -> Any:  # isatty, fileno, encoding, ...: the real stream's
+        return getattr(self._stream, name)
+
+
 def main(argv: Sequence[str] | None = None) -> int:
+    """Run one verb and return its exit code; a closed stdout does not change it (see the module note)."""
+    stdout = sys.stdout
+    forgiving = _StdoutForAnyReader(stdout)
+    sys.stdout = cast(TextIO, forgiving)
+    try:
+        code = _main(argv)
+        forgiving.flush()  # output still buffered meets a closed reader here, not at interpreter exit
+    finally:
+        sys.stdout = stdout
+    return code
+
+
+def _main(argv: Sequence[str] | None) -> int:
     args_list = list(sys.argv[1:] if argv is None else argv)
     try:
         args = build_parser().parse_args(args_list)
