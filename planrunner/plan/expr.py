@@ -1035,20 +1035,29 @@ def parse_expression(text: str) -> Expression:
     Raises `ExpressionError` (with the 0-based character position of the problem) for anything
     that is not a valid filter; never any other exception, and never runs any code from `text`.
     """
-    if not isinstance(text, str):
-        raise ExpressionError(f"the filter must be text, not {type(text).__name__}",
-                              position=0, text=str(text), hint="put the condition in quotes")
-    try:
-        if len(text) > MAX_LENGTH:
-            raise _Problem(f"the filter is longer than {MAX_LENGTH} characters", MAX_LENGTH,
-                           "shorten it; long lists of values may belong in a derived column")
-        parser = _Parser(_tokenize(text))
-        root = parser.parse()
-        _check_root(root, root.infer({}))
-    except _Problem as problem:
-        raise problem.to_error(text) from None
+    parser, root = _parse(text, "filter", "condition",
+                          "shorten it; long lists of values may belong in a derived column",
+                          lambda root: _check_root(root, root.infer({})))
     return Expression(text, frozenset(parser.first_seen), root,
                       tuple(parser.first_seen.items()))
+
+
+def _parse(text: object, what: str, quoted: str, too_long_hint: str,
+           check: Callable[[_Node], None]) -> tuple[_Parser, _Node]:
+    """Tokenize and parse `text` (a `what`: filter or expression), then run `check` on the tree;
+    every problem becomes an `ExpressionError` carrying the text."""
+    if not isinstance(text, str):
+        raise ExpressionError(f"the {what} must be text, not {type(text).__name__}",
+                              position=0, text=str(text), hint=f"put the {quoted} in quotes")
+    try:
+        if len(text) > MAX_LENGTH:
+            raise _Problem(f"the {what} is longer than {MAX_LENGTH} characters", MAX_LENGTH, too_long_hint)
+        parser = _Parser(_tokenize(text))
+        root = parser.parse()
+        check(root)
+    except _Problem as problem:
+        raise problem.to_error(text) from None
+    return parser, root
 
 
 def _unknown_column(name: str, position: int, columns: Mapping[str, Any]) -> _Problem:
@@ -1150,22 +1159,17 @@ class ValueExpression:
 def parse_value_expression(text: str) -> ValueExpression:
     """Parse a derivation, checking everything that does not depend on the data (as
     `parse_expression` does, without requiring a condition)."""
-    if not isinstance(text, str):
-        raise ExpressionError(f"the expression must be text, not {type(text).__name__}",
-                              position=0, text=str(text), hint="put the expression in quotes")
-    try:
-        if len(text) > MAX_LENGTH:
-            raise _Problem(f"the expression is longer than {MAX_LENGTH} characters", MAX_LENGTH,
-                           "split it into several derived columns")
-        parser = _Parser(_tokenize(text))
-        root = parser.parse()
-        kind = root.infer({})
-        if kind is not None and kind not in _NUMERIC:
-            raise _Problem(f"a derived column must be a number or true/false, but this gives {_KIND_PHRASE[kind]}",
-                           root.position, "compute a number (e.g. after - before) or a condition (e.g. dose > 0)")
-    except _Problem as problem:
-        raise problem.to_error(text) from None
+    parser, root = _parse(text, "expression", "expression", "split it into several derived columns",
+                          _check_value_root)
     return ValueExpression(text, frozenset(parser.first_seen), root, tuple(parser.first_seen.items()))
+
+
+def _check_value_root(root: _Node) -> None:
+    """A derivation must give a number or true/false (a derived column is never text or a date)."""
+    kind = root.infer({})
+    if kind is not None and kind not in _NUMERIC:
+        raise _Problem(f"a derived column must be a number or true/false, but this gives {_KIND_PHRASE[kind]}",
+                       root.position, "compute a number (e.g. after - before) or a condition (e.g. dose > 0)")
 
 
 def _environment(first_seen: tuple[tuple[str, int], ...],
