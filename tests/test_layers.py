@@ -12,10 +12,10 @@ from pathlib import Path
 
 PACKAGE = Path(__file__).resolve().parent.parent / "planrunner"
 
-# the data flow, lowest first: plan → data → compile → execute → record → report → trail → pipeline → api → audit
-# → cli
-STAGES = ["errors", "engines", "plan", "data", "compile", "execute", "record", "report", "trail", "pipeline", "api",
-          "audit", "cli"]
+# the data flow, lowest first: plan → data → compile → execute → record → report → trail → pipeline → simulate
+# → api → audit → cli
+STAGES = ["errors", "engines", "plan", "data", "compile", "execute", "record", "report", "trail", "pipeline",
+          "simulate", "api", "audit", "cli"]
 TOP_LEVEL = {"__init__": -1, "__main__": len(STAGES)}
 
 

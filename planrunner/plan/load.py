@@ -65,44 +65,53 @@ def read_plan(path: str | Path) -> LoadedPlan:
     """Read, parse, validate and cross-check a plan; raise one PlanError listing every problem."""
     file = Path(path)
     shown = str(path)
-    try:
-        with file.open("rb") as handle:  # read no more than the limit: a plan may be a huge file
-            raw = handle.read(MAX_PLAN_BYTES + 1)
-    except FileNotFoundError:
-        raise PlanError("plan file not found", where=shown,
-                        hint="check the path; plans are YAML files such as plans/liner-trial/plan.yaml") from None
-    except IsADirectoryError:
-        raise PlanError("this is a folder, not a plan file", where=shown,
-                        hint="name the YAML file inside it") from None
-    except OSError as exc:
-        raise PlanError(f"cannot read the plan: {exc.strerror}", where=shown) from None
-    if len(raw) > MAX_PLAN_BYTES:
-        raise PlanError(f"the plan is larger than {MAX_PLAN_BYTES} bytes", where=shown,
-                        hint="a plan holds settings, not data; put data in the files it names")
-    try:
-        text = raw.decode("utf-8")
-    except UnicodeDecodeError as exc:
-        line = raw.count(b"\n", 0, exc.start) + 1
-        raise PlanError(f"the plan is not UTF-8 text (byte 0x{raw[exc.start]:02x} at offset {exc.start})",
-                        where=f"{shown}:{line}",
-                        hint="save the plan as UTF-8") from None
-    loaded = load_yaml(text, shown)
+    raw, text, loaded = read_yaml_file(path, kind="plan", example="plans/liner-trial/plan.yaml")
     if not isinstance(loaded.data, dict):
         raise PlanError("a plan must be a mapping of keys (plan, title, seed, datasets, analyses)",
                         where=f"{shown}:1:1")
     try:
         plan = Plan.model_validate(loaded.data)
     except pydantic.ValidationError as exc:
-        problems = [_from_pydantic(err, loaded.data) for err in exc.errors()]
-        raise PlanError("the plan is not valid", problems=_format(problems, loaded, shown)) from None
+        problems = [problem_from_pydantic(err, loaded.data) for err in exc.errors()]
+        raise PlanError("the plan is not valid", problems=format_problems(problems, loaded, shown)) from None
     problems = cross_check(plan)
     if problems:
-        raise PlanError("the plan is not valid", problems=_format(problems, loaded, shown))
+        raise PlanError("the plan is not valid", problems=format_problems(problems, loaded, shown))
     return LoadedPlan(plan=plan, file=file.resolve(), text=text,
                       sha256=hashlib.sha256(raw).hexdigest(), yaml=loaded)
 
 
-def _format(problems: list[Problem], loaded: LoadedYaml, shown: str) -> list[str]:
+def read_yaml_file(path: str | Path, *, kind: str, example: str) -> tuple[bytes, str, LoadedYaml]:
+    """The bytes, text and positioned YAML of a settings file (a plan, a scenarios file), under the
+    plan's rules: at most MAX_PLAN_BYTES, UTF-8, and the narrow YAML of `yamlsafe`."""
+    file = Path(path)
+    shown = str(path)
+    try:
+        with file.open("rb") as handle:  # read no more than the limit: a plan may be a huge file
+            raw = handle.read(MAX_PLAN_BYTES + 1)
+    except FileNotFoundError:
+        raise PlanError(f"{kind} file not found", where=shown,
+                        hint=f"check the path; {kind}s are YAML files such as {example}") from None
+    except IsADirectoryError:
+        raise PlanError(f"this is a folder, not a {kind} file", where=shown,
+                        hint="name the YAML file inside it") from None
+    except OSError as exc:
+        raise PlanError(f"cannot read the {kind}: {exc.strerror}", where=shown) from None
+    if len(raw) > MAX_PLAN_BYTES:
+        raise PlanError(f"the {kind} is larger than {MAX_PLAN_BYTES} bytes", where=shown,
+                        hint=f"a {kind} holds settings, not data; put data in the files it names")
+    try:
+        text = raw.decode("utf-8")
+    except UnicodeDecodeError as exc:
+        line = raw.count(b"\n", 0, exc.start) + 1
+        raise PlanError(f"the {kind} is not UTF-8 text (byte 0x{raw[exc.start]:02x} at offset {exc.start})",
+                        where=f"{shown}:{line}",
+                        hint=f"save the {kind} as UTF-8") from None
+    return raw, text, load_yaml(text, shown)
+
+
+def format_problems(problems: list[Problem], loaded: LoadedYaml, shown: str) -> list[str]:
+    """Each problem as FILE:LINE:COL: dotted.path: what (hint), sorted by place, duplicates once."""
     lines = []
     for p in problems:
         pos = loaded.position(p.path, key=p.at_key)
@@ -136,9 +145,9 @@ def _strip_union_tags(loc: tuple, data: Any) -> Path_:
     return tuple(path)
 
 
-def _model_at(path: Path_, data: Any) -> type[BaseModel] | None:
+def _model_at(path: Path_, data: Any, root: type[BaseModel] = Plan) -> type[BaseModel] | None:
     """The model whose fields apply at `path`, so that unknown keys get a 'did you mean'."""
-    annotation: Any = Plan
+    annotation: Any = root
     node = data
     for part in path:
         annotation = _resolve(annotation, node)
@@ -190,7 +199,8 @@ _TYPE_WORDS = {
 }
 
 
-def _from_pydantic(err: Mapping[str, Any], data: Any) -> Problem:
+def problem_from_pydantic(err: Mapping[str, Any], data: Any, root: type[BaseModel] = Plan) -> Problem:
+    """One pydantic error of a file whose top model is `root`, in plain words at its path."""
     path = _strip_union_tags(tuple(err["loc"]), data)
     kind = err["type"]
     ctx = err.get("ctx") or {}
@@ -199,7 +209,7 @@ def _from_pydantic(err: Mapping[str, Any], data: Any) -> Problem:
         if new_key is not None:
             return Problem(path, f"'{path[-1]}' is now written '{new_key}'",
                            f"rename the key to {new_key}: same expression, same meaning", at_key=True)
-        model = _model_at(path[:-1], data)
+        model = _model_at(path[:-1], data, root)
         allowed = sorted(model.model_fields) if model else []
         analysis_models = list(METHOD_MODELS.values())
         owners = [m for m in analysis_models if model in analysis_models and str(path[-1]) in m.model_fields]
