@@ -9,8 +9,9 @@ from planrunner.compile import design as designs
 from planrunner.data.tables import Table
 from planrunner.engines.modelboot import ModelBootstrapOptions
 from planrunner.engines.models import Design
+from planrunner.engines.precision import BootstrapPrecision
 from planrunner.plan.derived import dataset_columns
-from planrunner.plan.schema import Analysis, BootstrapAnalysis, Defaults, Plan
+from planrunner.plan.schema import Analysis, BootstrapAnalysis, Defaults, Plan, precision_of
 
 LOGISTIC = ("standardized_risk_difference", "standardized_risk_ratio", "standardized_odds_ratio")
 
@@ -61,7 +62,13 @@ def model_options(analysis: BootstrapAnalysis, defaults: Defaults) -> ModelBoots
     intervals = tuple(analysis.intervals)
     if "intervals" not in analysis.model_fields_set and scheme != "cases":
         intervals = ("percentile",)  # the default BCa needs the cases jackknife
-    declared = {"resamples": analysis.resamples or defaults.resamples,
+    target = precision_of(analysis, defaults)
+    declared = {"resamples": target.max_resamples if target is not None else analysis.resamples or defaults.resamples,
+                "precision": None if target is None else BootstrapPrecision(
+                    max_resamples=target.max_resamples, se_relative=target.se_relative,
+                    interval_end_sd=target.interval_end_sd),
+                # the analysis's own key only: defaults.alternative is for the permutation-type tests
+                "alternative": analysis.alternative, "null_value": analysis.null_value,
                 "confidence": analysis.confidence or defaults.confidence, "intervals": intervals,
                 "model": "logistic" if analysis.statistic in LOGISTIC else (analysis.model or "linear"),
                 "model_resampling": scheme, "weights": analysis.weights, "impose_null": analysis.impose_null,

@@ -49,7 +49,7 @@ from __future__ import annotations
 import math
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, fields, replace
-from typing import Any
+from typing import Any, Protocol, TypeVar
 
 import numpy as np
 
@@ -257,14 +257,20 @@ def _to_precision(samples: Sequence[np.ndarray], statistic: Statistic, options: 
     """The bootstrap with B chosen by the three-step rule of Andrews & Buchinsky (engines.precision):
     a first stage of B₁ resamples, then the first B of the same stream (B₁ of them the same draws),
     so the result equals a fixed-B run with that B."""
-    target = options.precision
-    assert target is not None
+    assert options.precision is not None
     if options.exhaustive:
         raise EngineError("an exhaustive bootstrap has no Monte Carlo error to choose resamples for",
                           hint="remove precision, or exhaustive")
+    return run_to_precision(options.precision, lambda resamples: bootstrap(
+        samples, statistic, replace(options, resamples=resamples, precision=None), **where))
 
-    def run(resamples: int) -> BootstrapResult:
-        return bootstrap(samples, statistic, replace(options, resamples=resamples, precision=None), **where)
+
+_Result = TypeVar("_Result", bound=BootstrapResult)
+
+
+def run_to_precision(target: BootstrapPrecision, run: Callable[[int], _Result]) -> _Result:
+    """``run(B)`` (a fixed-B bootstrap) at the B of the three-step rule for ``target``, with the
+    precision outcome (the rule's facts, what was achieved, why it stopped) attached."""
 
     def se_and_kurtosis(result: BootstrapResult) -> tuple[float | None, float | None]:
         return result.standard_error, _kurtosis(np.asarray(result.distribution))
@@ -664,15 +670,28 @@ def _with_intervals(result: BootstrapResult, p: Prepared, options: BootstrapOpti
                 warnings.append(w)
     extra: dict[str, Any] = {}
     if options.null_value is not None:
-        extra["null_test"] = _null_test(options, summary, found[0], weights, warnings)
+        extra["null_test"] = null_test(options, summary, found[0], weights, warnings)
     return finish(intervals=found, z0=z0, acceleration=acceleration, details=details, **moments, **extra)
 
 
 P_Z = 2.5758293035489004  # 99.5% normal point: the p-value's Monte Carlo interval is about 99%, as the permutation one
 
 
-def _null_test(options: BootstrapOptions, summary: Summary, first: Interval, weights: np.ndarray | None,
-               warnings: list[EngineWarning]) -> NullTest:
+class NullTestOptions(Protocol):
+    """What the p-value of a null value reads from an engine's options (the bootstrap's, a model's)."""
+
+    @property
+    def null_value(self) -> float | None: ...
+    @property
+    def intervals(self) -> tuple[str, ...]: ...
+    @property
+    def alternative(self) -> str: ...
+    @property
+    def confidence(self) -> float: ...
+
+
+def null_test(options: NullTestOptions, summary: Summary, first: Interval, weights: np.ndarray | None,
+              warnings: list[EngineWarning]) -> NullTest:
     """The p-value of the stated null value by inverting the pre-specified (first) interval's bounds."""
     assert options.null_value is not None
     null, method = options.null_value, options.intervals[0]
@@ -711,18 +730,25 @@ def _null_test(options: BootstrapOptions, summary: Summary, first: Interval, wei
         elif sd is not None:
             interval = (max(0.0, p - P_Z * sd), min(1.0, p + P_Z * sd))
             interval_rule = f"p -/+ {P_Z:.3f} Monte Carlo s.d. (about {P_INTERVAL_LEVEL:.0%}), cut to [0, 1]"
-        alpha = round(1.0 - options.confidence, 12)
-        if interval is not None and interval[0] <= alpha <= interval[1]:
-            warnings.append(EngineWarning(
-                "mc-interval-contains-alpha",
-                f"alpha = {alpha:g} (1 - confidence) lies inside the Monte Carlo interval ({interval[0]:.4g}, "
-                f"{interval[1]:.4g}) of the p-value of the null value {null:g}: {ordered.shape[0]} resamples "
-                "cannot settle the test at this alpha; use more resamples"))
+        warnings += alpha_inside(options.confidence, interval, null, ordered.shape[0])
     return NullTest(null, method, rule, float(p), found.p_greater, found.p_less, sd, interval, interval_rule,
                     floored, None if not floored else
                     "no replicate lies on the far side of the null value: p is reported as the smallest value "
                     "the replicates can resolve (1/B, doubled when two-sided; exhaustive: the smallest resample "
                     "probability)")
+
+
+def alpha_inside(confidence: float, interval: tuple[float, float] | None, null: float,
+                 resamples: int) -> list[EngineWarning]:
+    """The warning that alpha (1 − confidence) lies inside the p-value's Monte Carlo interval."""
+    alpha = round(1.0 - confidence, 12)
+    if interval is None or not interval[0] <= alpha <= interval[1]:
+        return []
+    return [EngineWarning(
+        "mc-interval-contains-alpha",
+        f"alpha = {alpha:g} (1 - confidence) lies inside the Monte Carlo interval ({interval[0]:.4g}, "
+        f"{interval[1]:.4g}) of the p-value of the null value {null:g}: {resamples} resamples "
+        "cannot settle the test at this alpha; use more resamples")]
 
 
 def _not_estimable(result: BootstrapResult, p: Prepared, options: BootstrapOptions, distribution: np.ndarray,

@@ -46,14 +46,18 @@ import numpy as np
 from planrunner.engines.blocks import bind as range_task
 from planrunner.engines.blocks import map_resamples
 from planrunner.engines.bootstrap import (
+    ALTERNATIVES,
     TIE_TOLERANCE,
     _interval,
     _moments,
     _tail_warnings,
+    alpha_inside,
     bca_acceleration,
+    null_test,
     percentile_of_score,
+    run_to_precision,
 )
-from planrunner.engines.intervals import Summary
+from planrunner.engines.intervals import INVERSION_RULES, Summary, tail_levels
 from planrunner.engines.lazy import ndtri
 from planrunner.engines.models import (
     LINEAR,
@@ -67,7 +71,9 @@ from planrunner.engines.models import (
     robust_covariance,
     standardized,
 )
-from planrunner.engines.results import EngineWarning, Interval, ModelBootstrapResult, frozen_array
+from planrunner.engines.precision import BootstrapPrecision
+from planrunner.engines.pvalues import P_INTERVAL_LEVEL, clopper_pearson
+from planrunner.engines.results import EngineWarning, Interval, ModelBootstrapResult, NullTest, frozen_array
 from planrunner.engines.streams import Stream, UniformRows
 from planrunner.errors import EngineError
 
@@ -97,10 +103,22 @@ class ModelBootstrapOptions:
     impose_null: bool = False
     on_degenerate: str = "estimate-only"
     save_distribution: bool = False
+    # "two-sided" intervals, or one-sided bounds ("greater": lower, "less": upper); with the null
+    # imposed, the side of the bootstrap-t p-value
+    alternative: str = "two-sided"
+    # the value the p-value tests: imposed on the data (impose_null), else found by inverting the
+    # pre-specified interval (as for every bootstrap)
+    null_value: float | None = None
+    precision: BootstrapPrecision | None = None  # resamples chosen to a target (Andrews & Buchinsky)
 
     def settings(self) -> dict[str, Any]:
-        values = ((f.name, getattr(self, f.name)) for f in fields(self))
-        return {name: list(v) if isinstance(v, tuple) else v for name, v in values}
+        values = ((f.name, getattr(self, f.name)) for f in fields(self) if f.name != "precision")
+        out = {name: list(v) if isinstance(v, tuple) else v for name, v in values}
+        if self.precision is not None:
+            out["precision"] = {"se_relative": self.precision.se_relative,
+                                "interval_end_sd": self.precision.interval_end_sd,
+                                "max_resamples": self.precision.max_resamples}
+        return out
 
 
 @dataclass(frozen=True, eq=False)
@@ -116,15 +134,20 @@ class _Prepared:
     a: np.ndarray  # row `target` of (XᵀX)⁻¹Xᵀ
     se_kind: str | None  # "classical", "HC1", "cluster" or None
     groups: int  # clusters G (0 without clusters)
+    enumerated: bool  # wild cluster with Rademacher weights and G ≤ ENUMERATE_CLUSTERS: all 2^G vectors
+    null: float  # the value imposed (impose_null) or tested; 0 when the plan states none
     slots: tuple[int, np.ndarray, np.ndarray, np.ndarray]  # cases: units, their cell order, slot starts and sizes
 
 
 def model_bootstrap(design: Design, statistic: str, options: ModelBootstrapOptions, *, stream: Stream,
                     what: str = "the model") -> ModelBootstrapResult:
     """Bootstrap a model statistic (``statistic`` a name of `models.LINEAR` or `models.STANDARDIZED`)."""
+    if options.precision is not None:
+        _prepare(design, statistic, options, what)  # refusals before the first stage
+        return run_to_precision(options.precision, lambda resamples: model_bootstrap(
+            design, statistic, replace(options, resamples=resamples, precision=None), stream=stream, what=what))
     p = _prepare(design, statistic, options, what)
-    scheme = options.model_resampling
-    enumerate_all = scheme == "wild-cluster" and options.weights == "rademacher" and p.groups <= ENUMERATE_CLUSTERS
+    enumerate_all = p.enumerated
     total = 2 ** p.groups if enumerate_all else options.resamples
     studentized = "studentized" in options.intervals or options.impose_null
     task = range_task(_range, p, stream, enumerate_all, studentized)
@@ -162,14 +185,18 @@ def _prepare(design: Design, statistic: str, options: ModelBootstrapOptions, wha
     if "bca" in options.intervals and scheme != "cases":
         raise EngineError("BCa is available for model_resampling: cases only (its acceleration is a "
                           "delete-one jackknife of rows)", hint="use percentile, basic, normal or studentized")
-    if "studentized" in options.intervals and logistic:
-        raise EngineError("studentized intervals are available for least-squares statistics only",
-                          hint="use percentile, basic, normal or bca")
+    if options.alternative not in ALTERNATIVES:
+        raise EngineError(f"alternative must be one of {', '.join(ALTERNATIVES)}, got {options.alternative!r}")
     groups = 0 if design.clusters is None else int(design.clusters.max()) + 1
     if scheme == "wild-cluster" and groups < MIN_WILD_CLUSTERS:
         raise EngineError(f"{groups} clusters are too few for a wild cluster bootstrap (at least "
                           f"{MIN_WILD_CLUSTERS}: {2 ** groups} sign vectors give too coarse a distribution)",
                           hint="use more clusters, or report the analysis without resampling clusters")
+    enumerated = scheme == "wild-cluster" and options.weights == "rademacher" and groups <= ENUMERATE_CLUSTERS
+    if enumerated and options.precision is not None:
+        raise EngineError(f"with {groups} clusters the wild cluster bootstrap enumerates all 2^{groups} sign "
+                          "vectors exactly: there is no Monte Carlo error to choose resamples for",
+                          hint="remove precision (the enumeration is exact), or use weights: mammen")
     check_rank(design, what)
     x, y, target = design.x, design.y, design.target
     if logistic:
@@ -184,14 +211,17 @@ def _prepare(design: Design, statistic: str, options: ModelBootstrapOptions, wha
     if not math.isfinite(estimate):
         raise EngineError(f"the {statistic.replace('_', ' ')} is not finite on the data")
     base, noise = fit.fitted, fit.residuals
-    if options.impose_null:
-        restricted = fit_ols(np.delete(x, target, axis=1), y)
-        base, noise = restricted.fitted, restricted.residuals
+    null = 0.0 if options.null_value is None else float(options.null_value)
+    if options.impose_null:  # the restricted fit: target coefficient fixed at the null value
+        offset = null * x[:, target]
+        restricted = fit_ols(np.delete(x, target, axis=1), y - offset)
+        base, noise = restricted.fitted + offset, restricted.residuals
     elif scheme == "residual":
         noise = fit.residuals * math.sqrt(design.n / (design.n - design.p))
     se_kind = None if logistic else {"residual": "classical", "wild": "HC1", "wild-cluster": "cluster",
                                      "cases": "cluster" if design.clusters is not None else "HC1"}[scheme]
-    return _Prepared(design, statistic, options, fit, estimate, base, noise, q, a, se_kind, groups, _slots(design))
+    return _Prepared(design, statistic, options, fit, estimate, base, noise, q, a, se_kind, groups, enumerated,
+                     null, _slots(design))
 
 
 def _slots(design: Design) -> tuple[int, np.ndarray, np.ndarray, np.ndarray]:
@@ -390,11 +420,17 @@ def _summarise(p: _Prepared, distribution: np.ndarray, se_star: np.ndarray | Non
     if p.groups:
         details["clusters"] = p.groups
     warnings: list[EngineWarning] = []
+    side = {"greater": "lower", "less": "upper"}.get(options.alternative, "two-sided")
     result = ModelBootstrapResult(
         estimate=p.estimate, standard_error=None, bias=None, intervals=(), resamples=resamples, scheme=scheme_words,
         n=(p.design.n,), distribution=frozen_array(distribution), z0=None, acceleration=None,
         conventions=_conventions(p), exact=weights is not None,
-        weights=None if weights is None else frozen_array(weights), details=details)
+        weights=None if weights is None else frozen_array(weights), details=details,
+        alternative=options.alternative)
+
+    def no_intervals(note: str) -> tuple[Interval, ...]:
+        return tuple(Interval(m, confidence, None, None, note=note, side=side) for m in options.intervals)
+
     bad = ~np.isfinite(distribution)
     if bad.any():
         message = (f"the model could not be refitted on {int(bad.sum())} of {resamples} resamples (a covariate "
@@ -403,29 +439,19 @@ def _summarise(p: _Prepared, distribution: np.ndarray, se_star: np.ndarray | Non
         if options.on_degenerate == "fail":
             raise EngineError(f"{message}", hint="on_degenerate: fail was declared in the plan")
         warnings.append(EngineWarning("non-finite-replicates", message))
-        return replace(result, warnings=tuple(warnings),
-                       intervals=tuple(Interval(m, confidence, None, None, note=message) for m in options.intervals))
+        no_p = None if options.null_value is None or options.impose_null else NullTest(
+            options.null_value, options.intervals[0], INVERSION_RULES[options.intervals[0]], None,
+            note=f"no p-value: {int(bad.sum())} of {resamples} replicates are not finite")
+        return replace(result, warnings=tuple(warnings), intervals=no_intervals(message), null_test=no_p)
     moments = _moments(distribution, weights, p.estimate)
     if options.impose_null:
-        se_hat = data_standard_error(p)
         assert se_star is not None
-        t = p.estimate / se_hat
-        with np.errstate(divide="ignore", invalid="ignore"):
-            t_star = distribution / se_star
-        tolerance = 1e-10 * max(abs(t), 1.0)
-        hits = np.abs(t_star) >= abs(t) - tolerance
-        p_value = float(np.sum(weights[hits])) if weights is not None else (1.0 + float(hits.sum())) / (resamples + 1)
-        details.update(se_hat=se_hat, t=t, count_absolute=int(hits.sum()),
-                       count_greater_equal=int(np.sum(t_star >= t - tolerance)),
-                       count_less_equal=int(np.sum(t_star <= t + tolerance)),
-                       p_value_rule="t = estimate / se_hat against t* = theta* / se* of the resamples drawn under the "
-                                    "null; Monte Carlo (1 + count)/(B + 1), enumerated count/2^G",
-                       two_sided_rule="absolute: share of |t*| >= |t| (symmetric, Cameron, Gelbach & Miller 2008)")
-        note = ("the null is imposed: the replicates are drawn under a zero coefficient, so they give a "
+        test = _imposed_null_test(p, distribution, se_star, weights, details, warnings)
+        note = ("the null is imposed: the replicates are drawn under the null value, so they give a "
                 "p-value, not an interval")
-        return replace(result, warnings=tuple(warnings), p_value=min(1.0, p_value),
+        return replace(result, warnings=tuple(warnings), p_value=test.p_value, null_test=test,
                        standard_error=moments["standard_error"], standard_error_sd=moments["standard_error_sd"],
-                       intervals=tuple(Interval(m, confidence, None, None, note=note) for m in options.intervals))
+                       intervals=no_intervals(note))
     order = np.argsort(distribution, kind="stable")
     ordered = distribution[order]
     cumulative = None if weights is None else np.cumsum(weights[order])
@@ -439,8 +465,10 @@ def _summarise(p: _Prepared, distribution: np.ndarray, se_star: np.ndarray | Non
         assert se_star is not None
         se_hat_value = data_standard_error(p)
         details["se_hat"] = se_hat_value
-        if np.any(~(se_star > 0)):
-            t_problem = f"the standard error is zero on {int(np.sum(~(se_star > 0)))} resamples"
+        unusable = ~(se_star > 0) | ~np.isfinite(se_star)
+        if unusable.any() or not (math.isfinite(se_hat_value) and se_hat_value > 0):
+            t_problem = (f"the standard error is zero or not finite on {int(unusable.sum())} resamples"
+                         if unusable.any() else "the standard error of the data is zero or not finite")
             warnings.append(EngineWarning("studentized-undefined", f"no studentized interval: {t_problem}"))
         else:
             t = (distribution - p.estimate) / se_star
@@ -450,13 +478,72 @@ def _summarise(p: _Prepared, distribution: np.ndarray, se_star: np.ndarray | Non
     exact = weights is not None
     summary = Summary(p.estimate, ordered, cumulative, confidence, moments["standard_error"], moments["bias"],
                       None if exact else moments["standard_error_sd"], None if exact else moments["bias_sd"],
-                      z0, acceleration, bca_problem, t_ordered, t_cumulative, se_hat_value, t_problem)
+                      z0, acceleration, bca_problem, t_ordered, t_cumulative, se_hat_value, t_problem,
+                      options.alternative)
     found = tuple(_interval(m, summary, options.on_degenerate) for m in options.intervals)
     if not exact:
         warnings += [w for w in _tail_warnings(found, ordered) if w not in warnings]
+    inverted = None if options.null_value is None else null_test(options, summary, found[0], weights, warnings)
     return replace(result, warnings=tuple(warnings), intervals=found, z0=z0, acceleration=acceleration,
                    standard_error=moments["standard_error"], bias=moments["bias"],
-                   standard_error_sd=moments["standard_error_sd"], bias_sd=moments["bias_sd"])
+                   standard_error_sd=moments["standard_error_sd"], bias_sd=moments["bias_sd"],
+                   null_test=inverted, p_value=None if inverted is None else inverted.p_value)
+
+
+IMPOSED_NULL_RULES = {
+    "two-sided": "share of |t*| >= |t| (symmetric, as Cameron, Gelbach & Miller 2008)",
+    "greater": "share of t* >= t (evidence that the coefficient exceeds the null value)",
+    "less": "share of t* <= t (evidence that the coefficient is below the null value)",
+}
+
+
+def _imposed_null_test(p: _Prepared, distribution: np.ndarray, se_star: np.ndarray, weights: np.ndarray | None,
+                       details: dict[str, Any], warnings: list[EngineWarning]) -> NullTest:
+    """The bootstrap-t p-value with the null imposed: t = (θ̂ − V)/ŝe against t* = (θ* − V)/se* of
+    resamples drawn from the restricted fit; Monte Carlo (1 + count)/(B + 1), enumerated Σ of the
+    weights of the vectors counted (never 0: at least the smallest vector's weight, `floored`)."""
+    options, null = p.options, p.null
+    se_hat = data_standard_error(p)
+    t = (p.estimate - null) / se_hat
+    with np.errstate(divide="ignore", invalid="ignore"):
+        t_star = (distribution - null) / se_star
+    tolerance = 1e-10 * max(abs(t), 1.0)
+    hits = {"two-sided": np.abs(t_star) >= abs(t) - tolerance, "greater": t_star >= t - tolerance,
+            "less": t_star <= t + tolerance}
+    resamples = int(distribution.shape[0])
+
+    def share(mask: np.ndarray) -> float:
+        if weights is not None:
+            return float(np.sum(weights[mask]))
+        return (1.0 + float(mask.sum())) / (resamples + 1)
+
+    counted = hits[options.alternative]
+    p_value = min(1.0, share(counted))
+    floored = False
+    if weights is not None and p_value <= 0.0:
+        floored, p_value = True, float(np.min(weights))
+    sd: float | None = None
+    interval: tuple[float, float] | None = None
+    interval_rule: str | None = None
+    if weights is None:
+        count = int(counted.sum())
+        sd = math.sqrt(p_value * (1.0 - p_value) / resamples)
+        interval = clopper_pearson(count, resamples)
+        interval_rule = f"{P_INTERVAL_LEVEL:.0%} Clopper-Pearson interval of the count of t* behind the p-value"
+        warnings += alpha_inside(options.confidence, interval, null, resamples)
+    details.update(se_hat=se_hat, t=t, count_absolute=int(hits["two-sided"].sum()),
+                   count_greater_equal=int(hits["greater"].sum()), count_less_equal=int(hits["less"].sum()),
+                   imposed_null={"null_value": null, "alternative": options.alternative,
+                                 "rule": IMPOSED_NULL_RULES[options.alternative],
+                                 "statistic": "t = (estimate - null value) / se_hat against t* = (theta* - null "
+                                              "value) / se* of the resamples drawn from the fit with the target "
+                                              "coefficient fixed at the null value",
+                                 "p_value_rule": "Monte Carlo (1 + count)/(B + 1); enumerated: the share of the "
+                                                 "2^G sign vectors counted"})
+    return NullTest(null, "imposed-null bootstrap-t", IMPOSED_NULL_RULES[options.alternative], p_value,
+                    share(hits["greater"]), share(hits["less"]), sd, interval, interval_rule, floored,
+                    None if not floored else "no sign vector gives a t* as extreme as t: p is reported as the "
+                                             "weight of one vector, 1/2^G")
 
 
 def _bca(p: _Prepared, ordered: np.ndarray, confidence: float) -> tuple[float | None, float | None, str | None]:
@@ -479,8 +566,8 @@ def _bca(p: _Prepared, ordered: np.ndarray, confidence: float) -> tuple[float | 
     acceleration = bca_acceleration([replicates[unit_cells == c] for c in np.unique(unit_cells)])
     if not math.isfinite(acceleration):
         return z0, None, "the delete-one jackknife values do not vary, so the acceleration is undefined"
-    alpha = 1.0 - confidence
-    z = z0 + ndtri(np.array([alpha / 2, 1 - alpha / 2]))
+    levels = [q for q in tail_levels(confidence, p.options.alternative) if q is not None]  # the ends read
+    z = z0 + ndtri(np.array(levels))
     if np.any(1.0 - acceleration * z <= 0.0):
         return z0, acceleration, (f"the acceleration {acceleration:.4g} is so large that the level adjustment "
                                   "is not monotone")

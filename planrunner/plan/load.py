@@ -287,7 +287,8 @@ def cross_check(plan: Plan) -> list[Problem]:
             problems += permcheck.max_t_checks(("multiplicity", j), [plan.analyses[seen[m]] for m in fam.family])
         for k, member in enumerate(fam.family):
             if member in seen and plan.analyses[seen[member]].method == "bootstrap" \
-                    and getattr(plan.analyses[seen[member]], "null_value", None) is None:
+                    and getattr(plan.analyses[seen[member]], "null_value", None) is None \
+                    and not getattr(plan.analyses[seen[member]], "impose_null", None):
                 problems.append(Problem(("multiplicity", j, "family", k),
                                         f"analysis '{member}' is a bootstrap without null_value and has no p-value",
                                         f"add null_value: V to analysis '{member}' (its p-value inverts its "
@@ -336,11 +337,6 @@ def precision_problems(plan: Plan) -> list[Problem]:
         if a.method == "bootstrap" and a.exhaustive:
             out.append(Problem(at, "an exhaustive bootstrap has no Monte Carlo error to choose resamples for",
                                "remove precision (or exhaustive)"))
-        model = STATISTICS.get(a.statistic)
-        if a.method == "bootstrap" and model is not None and model.form == "model":
-            out.append(Problem(at, "the bootstrap of a model statistic draws a fixed number of resamples "
-                               "(precision is not yet available for it)",
-                               "give resamples: N for this analysis"))
         if a.method == "permutation" and a.intervals:
             out.append(Problem(at, "a shift interval needs a fixed number of resamples",
                                "give resamples instead of precision, or drop intervals: [shift]"))

@@ -30,11 +30,15 @@ def model_checks(at: tuple, a: Any, statistic: Statistic) -> list[Problem]:
                            + (" (and adjusted_mean_difference with permutation)" if a.method == "permutation" else ""),
                            "use method: bootstrap (model_resampling: cases, residual, wild or wild-cluster)"))
         return out
-    for key in ("alternative", "null_value"):
-        if getattr(a, key, None) is not None:
-            out.append(Problem(at + (key,), f"{key} is not yet available for a model statistic",
-                               "remove the key; for a p-value use model_resampling: wild or wild-cluster with "
-                               "impose_null: true"))
+    if a.impose_null and getattr(a, "decision", None) is not None:
+        out.append(Problem(at + ("decision",), "a decision reads the pre-specified interval, and with "
+                           "impose_null the replicates are drawn under the null, so they give a p-value and no "
+                           "interval", "remove impose_null (the interval of the same scheme is then read), or "
+                           "move the decision to an analysis without it"))
+    precision = getattr(a, "precision", None)
+    if a.impose_null and precision is not None and precision.interval_end_sd is not None:
+        out.append(Problem(at + ("precision", "interval_end_sd"), "with impose_null there is no interval whose "
+                           "ends a precision target could read", "give se_relative, or a fixed resamples"))
     for key in ("pairs", "order", "blocks", "parametric", "trials", "studentized_se", "inner_resamples"):
         if getattr(a, key) is not None:
             out.append(Problem(at + (key,), f"{key} does not apply to a model statistic",
@@ -76,9 +80,6 @@ def model_checks(at: tuple, a: Any, statistic: Statistic) -> list[Problem]:
         out.append(Problem(at + ("intervals", intervals.index("bca")), "BCa is available for model_resampling: "
                            "cases only (its acceleration is a delete-one jackknife of rows)",
                            "use percentile, basic, normal or studentized"))
-    if "studentized" in intervals and logistic:
-        out.append(Problem(at + ("intervals", intervals.index("studentized")), "studentized intervals are "
-                           "available for least-squares statistics only", "use percentile, basic, normal or bca"))
     for k, name in enumerate(a.covariates or []):
         if name in (a.outcome, a.predictor, a.groups.by if a.groups else None, a.clusters, a.strata):
             out.append(Problem(at + ("covariates", k), f"'{name}' is already the outcome, predictor, groups, "

@@ -108,10 +108,22 @@ NULL_TEST_SOURCE = ("Efron & Tibshirani (1993), An Introduction to the Bootstrap
                     "their Application, section 4.4 (tests from confidence limits)")
 
 
+IMPOSED_NULL = "imposed-null bootstrap-t"  # the NullTest.method of a wild (cluster) bootstrap with the null imposed
+IMPOSED_NULL_METHOD = ("bootstrap-t with the null imposed: resamples drawn from the fit whose target coefficient is "
+                       "fixed at the null value; t = (estimate - null value)/se_hat against t* = (theta* - null "
+                       "value)/se* (robust standard errors); p_greater the share of t* >= t, p_less of t* <= t, "
+                       "two-sided the share of |t*| >= |t|")
+IMPOSED_NULL_SOURCE = ("Cameron, Gelbach & Miller (2008), Bootstrap-based improvements for inference with clustered "
+                       "errors, Review of Economics and Statistics 90(3)")
+
+
 def null_test_details(null: NullTest, result: BootstrapResult) -> dict[str, Any]:
-    """`details.null_test`: the null value, the interval family inverted, both one-sided p-values."""
-    return {"null_value": _f(null.null_value), "method": NULL_TEST_METHOD, "source": NULL_TEST_SOURCE,
-            "interval_inverted": null.method, "rule": null.rule, "alternative": result.alternative,
+    """`details.null_test`: the null value, the interval family inverted (or the imposed null's
+    bootstrap-t), both one-sided p-values."""
+    imposed = null.method == IMPOSED_NULL
+    return {"null_value": _f(null.null_value), "method": IMPOSED_NULL_METHOD if imposed else NULL_TEST_METHOD,
+            "source": IMPOSED_NULL_SOURCE if imposed else NULL_TEST_SOURCE,
+            "interval_inverted": None if imposed else null.method, "rule": null.rule, "alternative": result.alternative,
             "p_greater": _f(null.p_greater), "p_less": _f(null.p_less), "floored": null.floored, "note": null.note,
             # the alpha whose side of the p-value the reports never round across: 1 - confidence
             "alpha": round(1.0 - (result.intervals[0].level if result.intervals else 0.95), 12)}

@@ -112,15 +112,23 @@ def _method_sentence(a: dict[str, Any]) -> str:
         chosen = (f" (the {INTERVAL_WORDS.get(listed[0], listed[0])} interval pre-specified, the others "
                   "supplementary)" if len(listed) > 1 else "")
         null = (a.get("details") or {}).get("null_test")
+        sided = "two-sided" if a.get("alternative") == "two-sided" else "one-sided"
+        imposed = null is not None and null.get("interval_inverted") is None
         tested = "" if not null else (
-            f" The {'two-sided' if a.get('alternative') == 'two-sided' else 'one-sided'} p-value of the null value "
+            f" The {sided} p-value of the null value {null['null_value']:g} was obtained by the bootstrap-t with "
+            f"the null imposed (resamples drawn from the fit whose target coefficient is fixed at the null value, "
+            f"each studentized by its robust standard error; Cameron, Gelbach & Miller 2008): the {null['rule']}."
+            if imposed else
+            f" The {sided} p-value of the null value "
             f"{null['null_value']:g} was obtained by inverting the one-sided "
             f"{INTERVAL_WORDS.get(null['interval_inverted'], null['interval_inverted'])} bounds "
             "(the smallest alpha at which the bound excludes the null value; Efron & Tibshirani 1993, section 15.4)"
             + (", doubling the smaller one-sided p-value." if a.get("alternative") == "two-sided" else "."))
+        computed = ("no interval was computed, since the replicates are drawn under the null" if imposed
+                    else f"{intervals} were computed{chosen}")
         return (f"{lead} estimated {what} and its uncertainty by the nonparametric bootstrap "
                 f"(scheme: {a['scheme']}) with {a['resamples']} resamples; the standard error is the standard "
-                f"deviation of the replicates, and {intervals} were computed{chosen}.{tested}")
+                f"deviation of the replicates, and {computed}.{tested}")
     if a["method"] == "permutation":
         return (f"{lead} tested {what} by a permutation test (scheme: {a['scheme']}); the p-value, obtained "
                 f"{_p_computation(a)}, is {_sidedness(a)}.")
