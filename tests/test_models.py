@@ -386,7 +386,7 @@ def test_freedman_lane_refuses_what_it_cannot_honour(write_plan, tmp_path):
     from planrunner.errors import PlanError
     from planrunner.plan.load import read_plan
     plan = write_plan(FL_PLAN.format(body="    outcome: y\n    groups: {by: arm, compare: [new, old]}\n"
-                                          "    strata: arm\n    statistic: adjusted_mean_difference"),
+                                          "    pairs: base\n    statistic: adjusted_mean_difference"),
                       {"d.csv": "arm,base,y\nnew,1,2\nold,2,3\n"})
-    with pytest.raises(PlanError, match="strata are not supported"):
+    with pytest.raises(PlanError, match="pairs are not supported"):
         read_plan(plan)

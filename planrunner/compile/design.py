@@ -8,6 +8,7 @@ from typing import Any
 import numpy as np
 
 from planrunner.data.tables import Table, group_values
+from planrunner.engines.association import FREEDMAN_LANE, ResidualScheme
 from planrunner.engines.results import EngineWarning
 from planrunner.errors import DataError
 
@@ -16,6 +17,19 @@ def labels_of(table: Table, column: str) -> np.ndarray:
     """A column's values as group, stratum, pair and cluster labels: named exactly as the data checks
     and ``groups.compare`` name them (booleans as true/false), the one rule for every design column."""
     return group_values(table.columns[column])
+
+
+def residual_scheme(analysis: Any, table: Table, masks: list[np.ndarray]) -> ResidualScheme:
+    """How a test with covariates permutes residuals: the plan's method and the stratum or cluster
+    code of every row the analysis uses (rows in file order, as the model's and the samples' rows)."""
+    used = np.logical_or.reduce(masks)
+    found: dict[str, Any] = {}
+    for key in ("strata", "clusters"):
+        column = getattr(analysis, key)
+        if column is not None:
+            labels, codes = np.unique(labels_of(table, column)[used], return_inverse=True)
+            found[key], found["labels"] = codes.astype(np.int64), tuple(str(v) for v in labels)
+    return ResidualScheme(method=analysis.covariate_permutation or FREEDMAN_LANE, **found)
 
 
 def cluster_codes(table: Table, column: str, masks: list[np.ndarray]) -> tuple[tuple[np.ndarray, ...], tuple[str, ...]]:

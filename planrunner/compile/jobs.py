@@ -54,8 +54,12 @@ class Job:
     null_shifts: tuple[float, ...] = ()  # a permutation decision's shifted nulls (plan/decisions.py)
 
     def settings(self) -> dict[str, Any]:
-        """The options as the record states them (JSON values)."""
-        return self.options.settings()
+        """The options as the record states them (JSON values); a test with covariates adds whose
+        residuals it permutes."""
+        out = self.options.settings()
+        if "residuals" in self.design:
+            out["covariate_permutation"] = self.design["residuals"].method
+        return out
 
     def counts(self) -> dict[str, Any]:
         """Observations per group and, where declared, per stratum within group and clusters per group."""
@@ -187,7 +191,10 @@ def compile_job(plan: Plan, analysis: Analysis, table: Table) -> Job:
     options = _options(plan, analysis)
     if statistic.form == "model" and isinstance(analysis, PermutationAnalysis):
         # Freedman–Lane: the group coefficient's residual permutation reads the model's design matrix
-        permutation_design = {"model": model_design(plan, analysis, table, masks)}
+        permutation_design = {"model": model_design(plan, analysis, table, masks),
+                              "residuals": design.residual_scheme(analysis, table, masks)}
+        if analysis.clusters is not None:  # the record's counts: clusters per group
+            permutation_design["clusters"] = design.cluster_codes(table, analysis.clusters, masks)[0]
     elif statistic.form == "model" and isinstance(analysis, BootstrapAnalysis):
         # a model statistic reads a design matrix, not the samples (those give the record's counts)
         permutation_design = {"model": model_design(plan, analysis, table, masks)}
@@ -239,4 +246,5 @@ def compile_design(analysis: Analysis, table: Table, masks: list[np.ndarray],
     if analysis.covariates:
         found["covariates"] = np.column_stack([table.columns[c].astype(float) for c in analysis.covariates])
         found["covariate_names"] = tuple(analysis.covariates)
+        found["residuals"] = design.residual_scheme(analysis, table, masks)
     return samples, found

@@ -1,8 +1,9 @@
 """Choose the permutation scheme a job's design implies and run its engine (called by `execute`).
 
 groups → labels shuffled (within strata); pairs → sign-flip within pairs; clusters → cluster labels
-shuffled; a two-column statistic → outcome shuffled against the predictor, or Freedman–Lane with
-covariates. The shift interval (``intervals: [shift]``) is added by inverting the two-group test.
+shuffled; a two-column statistic → outcome shuffled against the predictor; covariates → residuals
+permuted (Freedman–Lane or ter Braak, over all rows, within strata or as whole clusters). The shift
+interval (``intervals: [shift]``) is added by inverting the two-group test.
 """
 
 from __future__ import annotations
@@ -45,28 +46,36 @@ def planned_model(job: Job) -> None:
         raise EngineError(f"{exc.message}", where=f"analysis '{job.analysis_id}'", hint=exc.hint) from None
 
 
-def _freedman_lane(job: Job) -> tuple[np.ndarray, np.ndarray | None]:
-    """(group indicator, outcome) and the covariate columns of an adjusted_mean_difference, checked for
-    constant or collinear covariates: its Freedman–Lane test is the partial slope of the indicator."""
-    model = job.design["model"]
-    check_rank(model, "the model")
-    covariates = model.x[:, 2:] if model.x.shape[1] > 2 else None
-    return np.column_stack([model.x[:, 1], model.y]), covariates
+def _residual_test(job: Job) -> tuple[np.ndarray, np.ndarray | None] | None:
+    """(predictor, outcome) and the covariates of a test that permutes residuals (Freedman–Lane or
+    ter Braak), or None for another design. For adjusted_mean_difference the predictor is the 0/1
+    indicator of the first group (its partial slope is the adjusted difference), its design checked
+    for constant or collinear covariates first."""
+    if "residuals" not in job.design:
+        return None
+    if "model" in job.design:
+        model = job.design["model"]
+        check_rank(model, "the model")
+        covariates = model.x[:, 2:] if model.x.shape[1] > 2 else None
+        return np.column_stack([model.x[:, 1], model.y]), covariates
+    return job.samples[0], job.design["covariates"]
 
 
 def _computation(job: Job) -> str:
     options = job.options
     assert isinstance(options, PermutationOptions)
-    if "model" in job.design:
-        xy, covariates = _freedman_lane(job)
-        return association.computation(xy, get_statistic("slope"), options, covariates=covariates)
+    residual = _residual_test(job)
+    if residual is not None:
+        xy, covariates = residual
+        return association.computation(xy, get_statistic("slope"), options, covariates=covariates,
+                                       residuals=job.design["residuals"])
     if "pairs" in job.design:
         return signflip.computation(job.samples[0], job.samples[1], job.statistic, options)
     if "clusters" in job.design:
         x_codes, y_codes = job.design["clusters"]
         return clusters.computation(job.samples[0], job.samples[1], x_codes, y_codes, job.statistic, options)
     if job.statistic.samples == 1:
-        return association.computation(job.samples[0], job.statistic, options, covariates=job.design.get("covariates"))
+        return association.computation(job.samples[0], job.statistic, options)
     found = permutation.computation(job.samples, job.statistic, options, strata=job.strata)
     if "shift" in options.intervals or job.null_shifts:  # their own choice: enumeration or Monte Carlo
         inversion.computation(job.samples[0], job.samples[1], job.statistic, options)
@@ -76,9 +85,11 @@ def _computation(job: Job) -> str:
 def run_permutation(job: Job) -> PermutationResult:
     options = job.options
     assert isinstance(options, PermutationOptions)  # compile builds it for every permutation job
-    if "model" in job.design:
-        xy, covariates = _freedman_lane(job)
-        return association_test(xy, get_statistic("slope"), options, stream=job.stream, covariates=covariates)
+    residual = _residual_test(job)
+    if residual is not None:
+        xy, covariates = residual
+        return association_test(xy, get_statistic("slope"), options, stream=job.stream, covariates=covariates,
+                                residuals=job.design["residuals"])
     if "pairs" in job.design:
         return signflip_test(job.samples[0], job.samples[1], job.statistic, options, stream=job.stream)
     if "clusters" in job.design:
@@ -86,8 +97,7 @@ def run_permutation(job: Job) -> PermutationResult:
         return cluster_test(job.samples[0], job.samples[1], x_codes, y_codes, job.statistic, options,
                             stream=job.stream)
     if job.statistic.samples == 1:
-        return association_test(job.samples[0], job.statistic, options, stream=job.stream,
-                                covariates=job.design.get("covariates"))
+        return association_test(job.samples[0], job.statistic, options, stream=job.stream)
     result = permutation_test(job.samples, job.statistic, options, stream=job.stream, strata=job.strata)
     if "shift" in options.intervals:
         interval, estimate = shift_interval(job.samples[0], job.samples[1], job.statistic, options,

@@ -2,8 +2,10 @@
 
 The design decides the scheme: groups → labels shuffled (within strata); pairs → sign-flip within
 pairs; clusters → cluster labels shuffled; predictor without groups → outcome shuffled against the
-predictor; covariates → Freedman–Lane. A combination without a valid scheme is refused here, before
-any data are read.
+predictor; covariates → Freedman–Lane or ter Braak (``covariate_permutation``), residuals permuted
+over all rows, within strata or as whole clusters' blocks. A combination without a valid scheme is
+refused here, before any data are read (what only the data show, e.g. unequal cluster sizes, the
+engine refuses; ``check`` runs that refusal too).
 """
 
 from __future__ import annotations
@@ -40,24 +42,24 @@ def permutation_checks(at: tuple, a: Any, statistic: Statistic) -> list[Problem]
         if statistic.samples != 2:
             out.append(Problem(at + ("pairs",), "pairs need a two-group statistic (first minus second)",
                                "use mean_difference or signed_rank"))
+    residuals = a.covariates is not None  # Freedman–Lane or ter Braak: residuals permuted
     if a.clusters is not None:
         if a.strata is not None:
             out.append(Problem(at + ("clusters",), "clusters within strata are not supported by the permutation test",
                                "remove strata, or analyse each stratum separately"))
-        if statistic.samples != 2 or statistic.columns != 1:
+        if (statistic.samples != 2 or statistic.columns != 1) and not residuals:
             out.append(Problem(at + ("clusters",), "clusters need a two-group statistic of one column",
                                "use e.g. mean_difference"))
-    if statistic.columns == 2 and a.strata is not None and statistic.outcome != "censored":
+    if statistic.columns == 2 and a.strata is not None and statistic.outcome != "censored" and not residuals:
         out.append(Problem(at + ("strata",), "an association test shuffles the outcome over all rows; "
                            "shuffling within strata is not supported",
                            "remove strata, or adjust for numeric covariates with Freedman–Lane (statistic: slope)"))
+    out += _covariate_permutation_checks(at, a)
     if a.statistic == "adjusted_mean_difference":
-        for key in ("strata", "pairs", "clusters"):
-            if getattr(a, key) is not None:
-                out.append(Problem(at + (key,), f"the Freedman–Lane test of adjusted_mean_difference permutes "
-                                   f"residuals over all rows; {key} are not supported",
-                                   "remove the key, or bootstrap the statistic (method: bootstrap honours "
-                                   "strata and clusters)"))
+        if a.pairs is not None:
+            out.append(Problem(at + ("pairs",), "the residual permutation of adjusted_mean_difference permutes "
+                               "residuals over rows, strata or clusters; pairs are not supported",
+                               "remove pairs, or bootstrap the statistic"))
         if a.intervals:
             out.append(Problem(at + ("intervals",), "the shift interval inverts a test of labels, not of an "
                                "adjusted difference", "remove intervals, or bootstrap the statistic"))
@@ -71,8 +73,9 @@ def permutation_checks(at: tuple, a: Any, statistic: Statistic) -> list[Problem]
             out.append(Problem(at + ("covariates",), f"with covariates the test is Freedman–Lane on the partial "
                                f"slope; '{a.statistic}' cannot be adjusted by shuffling",
                                "use statistic: slope"))
-        if a.strata is not None or a.pairs is not None or a.clusters is not None:
-            out.append(Problem(at + ("covariates",), "covariates cannot be combined with strata, pairs or clusters"))
+        if a.pairs is not None:
+            out.append(Problem(at + ("covariates",), "covariates cannot be combined with pairs",
+                               "remove pairs (residuals are permuted over rows, strata or whole clusters)"))
     if a.statistic in K_GROUP and a.alternative not in (None, "greater"):
         out.append(Problem(at + ("alternative",), f"'{a.statistic}' is large when groups differ; its test is "
                            "one-sided by construction", "remove alternative, or write alternative: greater"))
@@ -85,6 +88,22 @@ def permutation_checks(at: tuple, a: Any, statistic: Statistic) -> list[Problem]
                                "without strata, pairs or clusters",
                                f"use one of {', '.join(SHIFT_STATISTICS)} on two plain groups"))
     return out
+
+
+def _covariate_permutation_checks(at: tuple, a: Any) -> list[Problem]:
+    """``covariate_permutation`` needs covariates; ter Braak has no exact null (engines/association.py)."""
+    method = getattr(a, "covariate_permutation", None)
+    if method is None:
+        return []
+    if a.covariates is None:
+        return [Problem(at + ("covariate_permutation",), "covariate_permutation chooses whose residuals a test "
+                        "with covariates permutes, but the analysis declares no covariates",
+                        "add covariates: [..], or remove covariate_permutation")]
+    if method == "ter-braak" and a.exact == "always":
+        return [Problem(at + ("exact",), "ter Braak permutes the full model's residuals, whose identity "
+                        "arrangement is not the observed one: it has no exact null distribution",
+                        "use exact: auto or never (Monte Carlo), or covariate_permutation: freedman-lane")]
+    return []
 
 
 def max_t_checks(at: tuple, members: list) -> list[Problem]:

@@ -270,6 +270,8 @@ class PermutationAnalysis(AnalysisBase):
     two_sided: Literal["doubled", "absolute"] = "doubled"  # doubled: 2·min(p_greater, p_less)
     intervals: Annotated[list[Literal["shift"]], Field(min_length=1, max_length=1)] | None = None
     confidence: Confidence | None = None
+    # with covariates: whose residuals are permuted (engines/association.py); None: freedman-lane
+    covariate_permutation: Literal["freedman-lane", "ter-braak"] | None = None
 
 
 class JackknifeAnalysis(AnalysisBase):
