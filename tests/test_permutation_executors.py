@@ -1,4 +1,5 @@
-"""Sign-flip, cluster and association draws go through the executors' resample ranges: serial,
+"""Sign-flip, cluster, association and residual-permutation (ter Braak within strata, Freedman–Lane
+of whole clusters) draws go through the executors' resample ranges: serial,
 threads, processes and dask give the same record, bit for bit."""
 
 from __future__ import annotations
@@ -65,6 +66,12 @@ analyses:
      role: secondary, covariates: [beds], statistic: slope, method: permutation, exact: never}
   - {id: shuffled-outcome, data: wards_after, outcome: compliance, predictor: staff_per_bed, statistic: spearman,
      role: secondary, method: permutation, exact: never}
+  - {id: ter-braak-strata, data: wards, outcome: compliance, groups: {by: arm, compare: [dispenser, usual]},
+     role: secondary, strata: period, covariates: [beds], statistic: adjusted_mean_difference, method: permutation,
+     covariate_permutation: ter-braak}
+  - {id: freedman-lane-clusters, data: wards, outcome: compliance, groups: {by: arm, compare: [dispenser, usual]},
+     role: secondary, clusters: ward, covariates: [staff_per_bed], statistic: adjusted_mean_difference,
+     method: permutation, exact: never}
 """
 
 
@@ -97,8 +104,8 @@ def test_permutation_designs_identical_serial_threads_processes_and_dask(plan: P
                for e in executions]
     analyses = records[0]["analyses"]
     # every analysis drew its 2500 resamples (none enumerated), so every one was cut into ranges
-    assert [a["exact"] for a in analyses] == [False] * 6 and {a["resamples"] for a in analyses} == {2500}
-    assert [a["details"]["computation"] for a in analyses] == ["Monte Carlo"] * 6
+    assert [a["exact"] for a in analyses] == [False] * 8 and {a["resamples"] for a in analyses} == {2500}
+    assert [a["details"]["computation"] for a in analyses] == ["Monte Carlo"] * 8
     for other, execution in zip(records[1:], executions[1:]):
         assert other["execution"]["executor"] == execution.executor
         _compare(records[0], other)

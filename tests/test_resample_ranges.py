@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from planrunner.engines.association import association_test
+from planrunner.engines.association import ResidualScheme, association_test
 from planrunner.engines.blocks import map_resamples, mapping_ranges, resample_ranges
 from planrunner.engines.bootstrap import BootstrapOptions, bootstrap
 from planrunner.engines.clusters import cluster_test
@@ -131,3 +131,18 @@ def test_association_split_ranges_are_bit_identical(covariates):
     options = PermutationOptions(4321, "two-sided", exact="never")
     _split_equals_whole(lambda: association_test(xy, statistic, options, stream=stream_for(9, "assoc"),
                                                  covariates=z if covariates else None, batch_elements=999))
+
+
+@pytest.mark.parametrize("method", ["freedman-lane", "ter-braak"])
+@pytest.mark.parametrize("design", ["rows", "strata", "clusters"])
+def test_residual_permutation_split_ranges_are_bit_identical(method, design):
+    # ter Braak and the residuals permuted within strata or as whole clusters' blocks read their
+    # draws from the range's start like every other scheme
+    x = np.repeat(RNG.integers(0, 2, size=10), 4).astype(float)  # constant within the 10 clusters
+    z = RNG.normal(size=(40, 2))
+    xy = np.column_stack([x, 0.4 * x + z @ [0.5, -0.2] + RNG.normal(size=40)])
+    scheme = ResidualScheme(method, strata=np.arange(40) % 3 if design == "strata" else None,
+                            clusters=np.repeat(np.arange(10), 4) if design == "clusters" else None)
+    options = PermutationOptions(4321, "two-sided", exact="never")
+    _split_equals_whole(lambda: association_test(xy, get_statistic("slope"), options, stream=stream_for(9, design),
+                                                 covariates=z, residuals=scheme, batch_elements=999))

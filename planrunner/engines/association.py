@@ -72,7 +72,7 @@ __all__ = ["FREEDMAN_LANE", "RESIDUAL_PERMUTATIONS", "TER_BRAAK", "ResidualSchem
 FREEDMAN_LANE = "freedman-lane"
 TER_BRAAK = "ter-braak"
 RESIDUAL_PERMUTATIONS = (FREEDMAN_LANE, TER_BRAAK)
-_NAMES = {FREEDMAN_LANE: "Freedman–Lane", TER_BRAAK: "ter Braak"}
+_NAMES = {FREEDMAN_LANE: "Freedman–Lane (Freedman & Lane 1983)", TER_BRAAK: "ter Braak (ter Braak 1992)"}
 
 
 @dataclass(frozen=True, eq=False)
@@ -151,7 +151,8 @@ def _residual_model(x: np.ndarray, y: np.ndarray, statistic: Statistic, covariat
     if statistic.name != "slope":
         raise EngineError("with covariates only the partial slope is tested (Freedman–Lane or ter Braak)",
                           hint="use statistic: slope")
-    z = np.column_stack([np.ones(n), np.asarray(covariates, dtype=np.float64).reshape(n, -1)])
+    given = np.asarray(covariates, dtype=np.float64)
+    z = np.column_stack([np.ones(n), given.reshape(n, given.size // n)])  # no columns: the intercept alone
     if not np.all(np.isfinite(z)):
         raise EngineError("a covariate has a non-finite value", hint="declare missing values or fix the data")
     if np.linalg.matrix_rank(np.column_stack([z, x])) < z.shape[1] + 1:
