@@ -5,7 +5,7 @@ Definitions: Freedman & Lane (1983) permute the residuals of the reduced model (
 alone) and refit; ter Braak (1992) permutes the residuals of the full model and compares b* − b̂
 with b̂; both as stated by Anderson & Legendre (1999, J. Statist. Comput. Simul. 62, 271–303) and
 Winkler et al. (2014, NeuroImage 92, 381–397, Table 2). Within strata (exchangeability blocks) and
-whole-block permutation as in Winkler et al. (2014, section 2.5).
+whole-block permutation as in Winkler et al. (2014).
 """
 
 from __future__ import annotations

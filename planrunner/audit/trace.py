@@ -134,6 +134,15 @@ TRACE: dict[str, tuple[str, ...]] = {
                          "tests/test_models.py::test_separation_is_refused_never_a_huge_coefficient",
                          "tests/test_models.py::test_freedman_lane_of_the_group_coefficient_is_the_partial_slope_of_its_indicator",
                          "tests/test_bad_inputs.py::test_bad_input_gives_one_clear_message"),
+    "Permutation with covariates: Freedman–Lane and ter Braak": (
+        "tests/test_covariate_permutation.py::test_without_covariates_freedman_lane_is_the_label_shuffle_exactly",
+        "tests/test_covariate_permutation.py::test_without_covariates_freedman_lane_draws_the_label_shuffle_of_the_same_stream",
+        "tests/test_covariate_permutation.py::test_exact_freedman_lane_equals_a_brute_force_enumeration",
+        "tests/test_covariate_permutation.py::test_ter_braak_null_is_the_refitted_full_model_by_definition",
+        "tests/test_covariate_permutation.py::test_stratified_type_one_error_is_alpha_within_monte_carlo_error",
+        "tests/test_covariate_permutation.py::test_plan_names_the_scheme_and_reports_the_statsmodels_coefficient",
+        "tests/test_resample_ranges.py::test_residual_permutation_split_ranges_are_bit_identical",
+        "tests/test_bad_inputs.py::test_bad_input_gives_one_clear_message"),
     "Multiplicity": ("tests/test_engines_randomization.py::test_adjustments_match_statsmodels_bh95",
                      "tests/test_permutation_plans.py::test_max_t_family_end_to_end_and_order_free"),
     "Resamples to a stated precision": (
