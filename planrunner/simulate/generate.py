@@ -18,6 +18,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from planrunner.engines.streams import analysis_key
+from planrunner.errors import PlanError
 from planrunner.plan.schema import Column, Dataset
 from planrunner.simulate.families import FAMILIES, Family
 from planrunner.simulate.schema import ColumnModel, DatasetModel, Rows
@@ -47,7 +48,7 @@ def generate(model: DatasetModel, dataset: Dataset, rng: np.random.Generator) ->
     out: dict[str, np.ndarray] = {}
     for name in draw_order(model):
         spec = model.columns[name]
-        values, event = draw_column(spec, layout, model.rows, out, _column_generator(entropy, name))
+        values, event = draw_column(name, spec, layout, model.rows, out, _column_generator(entropy, name))
         out[name] = _typed(values, dataset.columns[name])
         if spec.event is not None and event is not None:
             out[spec.event] = _typed(event, dataset.columns[spec.event])
@@ -213,7 +214,7 @@ def _moved(family: Family, location: np.ndarray, predictor: np.ndarray) -> np.nd
         return expit(logit(location) + predictor)
 
 
-def draw_column(spec: ColumnModel, layout: Layout, rows: Rows, drawn: Mapping[str, np.ndarray],
+def draw_column(name: str, spec: ColumnModel, layout: Layout, rows: Rows, drawn: Mapping[str, np.ndarray],
                 rng: np.random.Generator) -> tuple[np.ndarray, np.ndarray | None]:
     """The column's values, and (with censoring) whether each time was observed."""
     family = FAMILIES[spec.model.family]
@@ -226,7 +227,9 @@ def draw_column(spec: ColumnModel, layout: Layout, rows: Rows, drawn: Mapping[st
     else:
         values = _independent(family, parameters, layout.rows, rng)
     if not np.isfinite(values).all():  # e.g. a covariate effect that overflows exp()
-        raise ValueError("the model gives values that are not finite numbers")
+        raise PlanError(f"the model of column '{name}' gives values that are not finite numbers",
+                        where=f"scenarios: columns.{name}",
+                        hint="check its parameters and covariate effects (a location far beyond the data's scale)")
     if spec.censoring is None:
         return values, None
     c = spec.censoring.parameters()
