@@ -109,3 +109,130 @@ def test_every_problem_is_located_and_reported_at_once(tmp_path, plan):
     assert re.search(r":11:44: datasets\.trial\.columns\.flag\.model\.p: p is a probability", text)
     assert re.search(r":15:14: .*the change names 'scor', .*did you mean 'score'", text)
     assert len(problems) == 5, text
+
+
+FULL = textwrap.dedent("""\
+    scenarios_for: sim-check
+    title: Checks
+    seed: 7
+    datasets:
+      trial:
+        rows:
+          groups: {column: arm, sizes: {control: 30, active: 30}}
+          clusters: {column: centre, count: 5, icc: 0.1}
+        columns:
+          score: {model: {family: normal, mean: 10, sd: 2}, by_group: {active: {mean: 11}}}
+          flag: {model: {family: bernoulli, p: 0.3}}
+          level: {model: {family: lognormal, meanlog: 1, sdlog: 0.5}, covariates: {score: 0.1}}
+          hits: {model: {family: poisson, mean: 2}}
+          time:
+            model: {family: weibull, shape: 1.2, scale: 100}
+            icc: 0
+            censoring: {family: uniform, low: 10, high: 300}
+            event: seen
+    scenarios:
+      - name: no-difference
+        replicates: 200
+        change: {trial.columns.score.by_group.active.mean: 10}
+      - name: shift
+        replicates: 200
+    search: {scenario: shift, analysis: primary, power: 0.8, sizes: [20, 40]}
+    """)
+PAIRS = GOOD.replace("      strata: {column: site, shares: {a: 0.5, b: 0.25, c: 0.25}}\n",
+                     "      pairs: {column: pair, correlation: 0.5}\n")
+
+# (base, text replaced, its replacement, text on the line the message points at, expected message part)
+CASES = [
+    (FULL, "title: Checks", "title: &t Checks", "title:", "YAML anchors (&...) are not allowed"),
+    (FULL, "seed: 7\n", "seed: 7\nseed: 8\n", "seed: 8", "duplicate key 'seed'"),
+    (FULL, "mean: 10, sd: 2", "meen: 10, sd: 2", "meen", "unknown key 'meen' (did you mean 'mean'?)"),
+    (FULL, "family: normal", "family: normall", "normall", "'normall' is not allowed; one of: normal"),
+    (FULL, "{family: poisson, mean: 2}", "{family: poisson}", "poisson", "a poisson model needs mean"),
+    (FULL, "{family: poisson, mean: 2}", "{family: poisson, mean: 2, sd: 1}", "poisson",
+     "a poisson model takes no sd"),
+    (FULL, "by_group: {active:", "by_group: {activ:", "by_group: {activ",
+     "'activ' is not a group of rows.groups (did you mean 'active'?)"),
+    (FULL, "{active: {mean: 11}}", "{active: {meen: 11}}", "meen", "takes no meen (did you mean 'mean'?)"),
+    (FULL, "covariates: {score: 0.1}", "covariates: {scor: 0.1}", "covariates: {scor",
+     "'scor' is not a modelled column of the dataset (did you mean 'score'?)"),
+    (FULL, "by_group: {active: {mean: 11}}}", "by_group: {active: {mean: 11}}, covariates: {level: 1}}", "level: 1",
+     "the covariates go round in a circle"),
+    (FULL, "        event: seen\n", "", "censoring:", "censoring needs the event column it fills"),
+    (FULL, "event: seen", "event: unit", "event: unit", "column 'unit' is of type text, which cannot hold an event "
+     "indicator"),
+    (FULL, "{family: bernoulli, p: 0.3}}", "{family: bernoulli, p: 0.3}, censoring: {family: exponential, rate: 1}}",
+     "censoring", "censoring cuts a positive time"),
+    (FULL, "count: 5, icc: 0.1", "count: 5, icc: 1.0", "icc: 1.0", "icc must lie in [0, 1)"),
+    (FULL, "        icc: 0\n", "", "weibull", "a cluster effect is defined for normal, lognormal, bernoulli, poisson "
+     "columns, not weibull (give this column icc: 0)"),
+    (FULL, "family: lognormal, meanlog: 1, sdlog: 0.5", "family: normal, mean: 1, sd: 0.5", "level:",
+     "a normal model can give values below column 'level''s declared min 0"),
+    (FULL, "      hits:", "      site: {model: {family: bernoulli, p: 0.5}}\n      hits:", "site:",
+     "a bernoulli model cannot fill column 'site' of type category"),
+    (FULL, "      hits:", "      scores: {model: {family: normal, mean: 0, sd: 1}}\n      hits:", "scores:",
+     "the plan's dataset declares no column 'scores' (did you mean 'score'?)"),
+    (FULL, "      hits:", "      arm: {model: {family: bernoulli, p: 0.5}}\n      hits:", "arm: {model",
+     "column 'arm' is filled from rows.groups"),
+    (FULL, "      flag: {model: {family: bernoulli, p: 0.3}}\n", "", "columns:",
+     "analysis 'flags' uses column 'flag' (outcome), which has no model"),
+    (FULL, "search: {scenario: shift,", "search: {scenario: shfit,", "search:", "no scenario is named 'shfit' (did "
+     "you mean 'shift'?)"),
+    (FULL, "analysis: primary", "analysis: primery", "search:", "the plan has no analysis 'primery'"),
+    (FULL, "sizes: [20, 40]", "sizes: [3, 40]", "search:", "3 rows per group cannot fill the 5 clusters"),
+    (FULL, "  - name: no-difference", "  - name: shift", "name: shift\n    replicates: 200\nsearch",
+     "scenario name 'shift' is used twice"),
+    (FULL, "replicates: 200\n    change", "replicates: 0\n    change", "replicates: 0", "must be at least 1"),
+    (FULL, "replicates: 200\n    change", "replicates: 1000000\n    change", "replicates: 1000000",
+     "must be at most 100000"),
+    (FULL, "trial.columns.score.by_group.active.mean: 10", "trial.columns.score.model.mean.x: 1", "change:",
+     "'trial.columns.score.model.mean' is a value, so 'x' cannot be below it"),
+    (FULL, "trial.columns.score.by_group.active.mean: 10", "trial.columns.score.model.sd: -1", "change:",
+     "in scenario 'no-difference', datasets.trial.columns.score.model.sd: sd must be more than 0"),
+    (FULL, "column: centre", "column: site", "column: site", "column 'site' is of type category, which cannot hold "
+     "cluster identifiers"),
+    (FULL, "      clusters:", "      count: 60\n      clusters:", "count: 60", "give either count (rows in all) or "
+     "groups"),
+    (GOOD, "c: 0.25}", "c: 0.15}", "strata:", "the shares add up to 0.9, not 1"),
+    (GOOD, "  trial:\n", "  trail:\n", "trail:", "the plan has no dataset 'trail' (did you mean 'trial'?)"),
+    (PAIRS, "active: 30}", "active: 31}", "pairs:", "pairs need exactly two groups of the same size"),
+    (PAIRS, "correlation: 0.5", "correlation: 1", "correlation: 1", "correlation must lie in (-1, 1)"),
+]
+
+
+@pytest.mark.parametrize(("base", "old", "new", "line_text", "expected"), CASES,
+                         ids=[f"{i}-{c[4][:30]}" for i, c in enumerate(CASES)])
+def test_each_problem_gets_one_located_message(tmp_path, plan, base, old, new, line_text, expected):
+    assert old in base
+    text = base.replace(old, new, 1)
+    line = text[:text.index(line_text)].count("\n") + 1
+    with pytest.raises(PlanError) as info:
+        _load(tmp_path, plan, text)
+    messages = info.value.problems or [str(info.value)]
+    found = [m for m in messages if expected in m]
+    assert found, "\n".join(messages)
+    assert re.search(rf"scenarios\.yaml:{line}:\d+: ", found[0]), found[0]
+    assert len(messages) == 1 or "trail" in text, "\n".join(messages)
+
+
+def test_the_full_base_reads(tmp_path, plan):
+    file = _load(tmp_path, plan, FULL)
+    assert file.search is not None and file.search.sizes == [20, 40]
+    assert file.scenario("shift").with_group_sizes(20).datasets["trial"].rows.clusters.count == 5
+    assert _load(tmp_path, plan, PAIRS).scenarios[0].datasets["trial"].rows.pairs.correlation == 0.5
+
+
+def test_a_change_may_add_a_group_level_override_and_new_keys_are_checked(tmp_path, plan):
+    text = FULL.replace("trial.columns.score.by_group.active.mean: 10",
+                        "trial.columns.hits.by_group.active.mean: 3, trial.columns.flag.by_group.active: {p: 0.5}")
+    shift = _load(tmp_path, plan, text).scenario("no-difference").datasets["trial"]
+    assert shift.columns["hits"].by_group == {"active": {"mean": 3}}
+    assert shift.columns["flag"].by_group == {"active": {"p": 0.5}}
+    text = FULL.replace("trial.columns.score.by_group.active.mean: 10", "trial.columns.hits.by_group.active.sd: 3")
+    assert any("a poisson model takes no sd" in m and ":22:" in m for m in _problems(tmp_path, plan, text))
+
+
+def test_the_file_must_be_a_mapping_and_not_empty(tmp_path, plan):
+    with pytest.raises(PlanError, match="a scenarios file must be a mapping"):
+        _load(tmp_path, plan, "- a\n- b\n")
+    with pytest.raises(PlanError, match="scenarios file not found"):
+        load_scenarios(tmp_path / "missing.yaml", plan)

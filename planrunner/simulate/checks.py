@@ -329,7 +329,7 @@ def _censoring_problems(at: Path_, family: Family, cm: ColumnModel, columns: Map
         problem = censoring_problem(cm.censoring.family, given)
         if problem is not None:
             out.append(Problem(at + ("censoring", problem[0]), problem[1], problem[2]))
-        if cm.event is None:
+        if cm.event is None and family.survival:
             out.append(Problem(at + ("censoring",), "censoring needs the event column it fills",
                                "add event: COLUMN (the plan's true/false or 0/1 column)", at_key=True))
     if cm.event is not None:

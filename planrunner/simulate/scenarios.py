@@ -24,6 +24,7 @@ from planrunner.plan.problems import Problem, did_you_mean
 from planrunner.plan.schema import Plan
 from planrunner.plan.yamlsafe import LoadedYaml, Path_, dotted
 from planrunner.simulate.checks import file_problems, scenario_problems
+from planrunner.simulate.families import PARAMETER_NAMES
 from planrunner.simulate.schema import DatasetModel, ScenarioSpec, ScenariosSchema, Search
 
 __all__ = ["DatasetModel", "Scenario", "ScenarioFile", "Search", "load_scenarios"]
@@ -149,12 +150,22 @@ def _resolve_path(datasets: dict, key: str) -> tuple[Path_, tuple[str, str | Non
         head, _, tail = rest.partition(".")
         if not tail:  # a new key at the end: the schema and the checks judge it
             return (*path, head), None
-        if path and path[-1] == "by_group":  # a new group level with its parameter
-            level, _, parameter = rest.rpartition(".")
-            return (*path, level, parameter), None
+        if path and path[-1] == "by_group":  # a new group level (with its parameter)
+            return (*path, *_level_and_parameter(rest)), None
+        if head == "by_group":  # a column's first group override
+            return (*path, head, *_level_and_parameter(tail)), None
+        if head == "covariates":  # a column's first covariate
+            return (*path, head, tail), None
         where = f"'{dotted(tuple(path))}'" if path else "datasets"
         hint = did_you_mean(head, node) or (f"{where} holds: {', '.join(node)}" if node else None)
         return (), (f"the change names '{head}', which is not in {where} of the base", hint)
+
+
+def _level_and_parameter(text: str) -> tuple[str, ...]:
+    """'LEVEL.PARAMETER' → both when the last part names a parameter, else the whole text is the level
+    (a level may hold dots)."""
+    level, _, parameter = text.rpartition(".")
+    return (level, parameter) if level and parameter in PARAMETER_NAMES else (text,)
 
 
 def _located_in_scenario(problems: list[Problem], changed: dict[Path_, str], at: Path_, name: str,
