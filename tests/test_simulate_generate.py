@@ -1,4 +1,4 @@
-"""Simulated data sets against the families' exact distributions (scipy.stats as the reference), the
+"""Simulated data sets against the families' exact distributions (V-SIMGEN; scipy.stats as the reference), the
 dependence the scenarios file states (intraclass and pair correlation, by their definitions), censoring
 shares against their exact integrals, covariate effects on each family's scale, and the draw contract
 (same generator, same bytes; the file's column order changes nothing)."""
@@ -132,7 +132,7 @@ def test_pair_correlation_is_the_stated_one_on_the_location_scale(family, parame
     first, second = scale(out["y"][out["arm"] == "a"]), scale(out["y"][out["arm"] == "b"])
     assert (out["pair"][out["arm"] == "a"] == out["pair"][out["arm"] == "b"]).all()
     r = np.corrcoef(first, second)[0, 1]
-    # V-TOL: sd of Pearson's r for a bivariate normal is (1 − ρ²)/sqrt(n) (Fisher 1921)
+    # V-TOL: sd of Pearson's r for a bivariate normal is (1 − ρ²)/sqrt(n) (Fisher 1915, V-SIMGEN)
     assert abs(r - 0.6) < 4 * (1 - 0.6**2) / np.sqrt(first.size)
 
 
@@ -180,7 +180,7 @@ def test_clustered_bernoulli_keeps_p_and_poisson_is_negative_binomial():
     _assert_distribution(flags[0::2], "bernoulli", stats.bernoulli(0.3))
     mean, icc = 3.0, 0.25
     counts = _clustered("poisson", {"mean": mean}, "integer", icc)[:, 0]  # one row per cluster: independent
-    k = mean * (1 - icc) / icc
+    k = mean * (1 - icc) / icc  # the gamma–Poisson mixture (V-SIMGEN)
     reference = stats.nbinom(k, k / (k + mean))
     assert reference.var() == pytest.approx(mean / (1 - icc))  # identity
     _assert_distribution(counts, "poisson", reference)
@@ -242,7 +242,7 @@ def test_covariates_move_the_location_on_each_familys_scale():
     x, y = out["x"], out["y"]
     p1, p0 = y[x].mean(), y[~x].mean()
     log_or = np.log(p1 / (1 - p1)) - np.log(p0 / (1 - p0))
-    se = np.sqrt(1 / (x.sum() * p1 * (1 - p1)) + 1 / ((~x).sum() * p0 * (1 - p0)))  # Woolf's standard error
+    se = np.sqrt(1 / (x.sum() * p1 * (1 - p1)) + 1 / ((~x).sum() * p0 * (1 - p0)))  # Woolf's standard error (V-SIMGEN)
     assert abs(log_or - np.log(2.0)) < 4 * se
 
 

@@ -193,6 +193,8 @@ CASES = [
     (FULL, "      clusters:", "      count: 60\n      clusters:", "count: 60", "give either count (rows in all) or "
      "groups"),
     (GOOD, "c: 0.25}", "c: 0.15}", "strata:", "the shares add up to 0.9, not 1"),
+    (GOOD, "{control: 30, active: 30}", "{control: 600000, active: 600000}", "groups:",
+     "1,200,000 rows in all, more than a simulated data set may have (1,000,000)"),
     (GOOD, "  trial:\n", "  trail:\n", "trail:", "the plan has no dataset 'trail' (did you mean 'trial'?)"),
     (PAIRS, "active: 30}", "active: 31}", "pairs:", "pairs need exactly two groups of the same size"),
     (PAIRS, "correlation: 0.5", "correlation: 1", "correlation: 1", "correlation must lie in (-1, 1)"),
@@ -236,3 +238,12 @@ def test_the_file_must_be_a_mapping_and_not_empty(tmp_path, plan):
         _load(tmp_path, plan, "- a\n- b\n")
     with pytest.raises(PlanError, match="scenarios file not found"):
         load_scenarios(tmp_path / "missing.yaml", plan)
+
+
+def test_the_demo_scenarios_file_reads_against_its_plan():
+    plan = read_plan(ROOT / "plans" / "liner-trial" / "plan.yaml").plan
+    file = load_scenarios(ROOT / "plans" / "liner-trial" / "scenarios.yaml", plan)
+    assert [s.name for s in file.scenarios] == ["no-difference", "foam-shortens"]
+    null = file.scenario("no-difference").datasets["shipments"].columns["minutes_above_8c"]
+    assert null.by_group["foam"]["meanlog"] == null.model.meanlog == 3.2
+    assert file.search is not None and file.search.analysis == "primary"

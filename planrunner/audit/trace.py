@@ -12,6 +12,7 @@ import re
 
 AUDIT, SIGN, CLI = "tests/test_audit.py::", "tests/test_signatures.py::", "tests/test_cli.py::"
 QUALIFY = "tests/test_qualify.py::"
+SIMFILE, SIMGEN = "tests/test_simulate_scenarios.py::", "tests/test_simulate_generate.py::"
 
 TRACE: dict[str, tuple[str, ...]] = {
     "planrunner": (CLI + "test_demo_plan_runs_and_writes_three_files",
@@ -273,6 +274,27 @@ TRACE: dict[str, tuple[str, ...]] = {
                     "tests/test_columnar.py::test_bad_input_corpus_reads_the_same_both_ways",
                     "tests/test_columnar.py::test_a_plain_file_is_read_by_the_fast_path"),
     "Standing caution": ("tests/test_report.py::test_provenance_lists_plan_data_exclusions_seed_environment",),
+    "Simulating the plan before the data": (
+        SIMFILE + "test_the_demo_scenarios_file_reads_against_its_plan",
+        SIMGEN + "test_same_generator_gives_the_same_bytes_and_column_order_changes_nothing"),
+    "The scenarios file": (
+        SIMFILE + "test_each_problem_gets_one_located_message",
+        SIMFILE + "test_every_problem_is_located_and_reported_at_once",
+        SIMFILE + "test_a_change_may_add_a_group_level_override_and_new_keys_are_checked",
+        SIMFILE + "test_with_group_sizes_sets_every_group",
+        SIMGEN + "test_each_family_matches_its_exact_moments_and_shape",
+        SIMGEN + "test_paired_rows_keep_each_familys_distribution",
+        SIMGEN + "test_pair_correlation_is_the_stated_one_on_the_location_scale",
+        SIMGEN + "test_pair_correlation_of_a_bernoulli_is_that_of_its_normal_scores",
+        SIMGEN + "test_intraclass_correlation_is_the_stated_one",
+        SIMGEN + "test_clustered_normal_keeps_the_stated_total_sd",
+        SIMGEN + "test_clustered_bernoulli_keeps_p_and_poisson_is_negative_binomial",
+        SIMGEN + "test_weibull_censoring_share_is_its_exact_integral",
+        SIMGEN + "test_covariates_move_the_location_on_each_familys_scale",
+        SIMGEN + "test_rows_layout_groups_strata_clusters_and_pairs",
+        SIMGEN + "test_largest_remainder_keeps_each_count_within_one_of_its_quota",
+        SIMGEN + "test_unused_columns_get_documented_fillers",
+        SIMGEN + "test_same_generator_gives_the_same_bytes_and_column_order_changes_nothing"),
 }
 
 NO_PROMISE: dict[str, str] = {

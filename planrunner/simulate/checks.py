@@ -24,7 +24,7 @@ from planrunner.simulate.families import (
     highest,
     parameter_problem,
 )
-from planrunner.simulate.schema import ColumnModel, DatasetModel, Rows, ScenariosSchema
+from planrunner.simulate.schema import MAX_ROWS, ColumnModel, DatasetModel, Rows, ScenariosSchema
 
 ID_TYPES = ("text", "integer")  # cluster and pair identifiers
 DESIGN_ROLES = ("groups", "strata", "pairs", "clusters", "order")  # a text column here cannot be an id
@@ -172,6 +172,9 @@ def _rows_problems(at: Path_, rows: Rows, columns: Mapping[str, Column]) -> list
                                "fill each column once"))
     if rows.groups is not None:
         out += _declared(at + ("groups", "column"), rows.groups.column, columns, GROUPING_TYPES, "groups")
+        if sum(rows.groups.sizes.values()) > MAX_ROWS:
+            out.append(Problem(at + ("groups", "sizes"), f"{sum(rows.groups.sizes.values()):,} rows in all, more "
+                               f"than a simulated data set may have ({MAX_ROWS:,})", "simulate smaller groups"))
         out += _levels_problems(at + ("groups", "sizes"), rows.groups.sizes, rows.groups.column, columns)
     if rows.strata is not None:
         strata = rows.strata
