@@ -10,9 +10,10 @@ import numpy as np
 import pytest
 import statsmodels.api as sm
 from conftest import fixed_clock
-from test_models import _heteroskedastic, design, grunfeld, options
+from test_models import _heteroskedastic, design, grunfeld, options, spector
 
 from planrunner.engines.modelboot import model_bootstrap
+from planrunner.engines.models import robust_covariance
 from planrunner.engines.precision import BootstrapPrecision
 from planrunner.engines.streams import stream_for
 from planrunner.errors import EngineError, PlanError
@@ -266,3 +267,177 @@ def test_check_refuses_precision_on_enumerated_sign_vectors_as_run_does(write_pl
     with pytest.raises(Exception, match="enumerates all 2\\^8 sign vectors") as ran:
         run_plan(plan, out=tmp_path / "r", clock=fixed_clock)
     assert "analysis 'a'" in str(checked.value) and "analysis 'a'" in str(ran.value)
+
+
+# ------------------------------------------------------------------ studentized logistic statistics
+
+
+def fair(every: int = 4) -> tuple[np.ndarray, ...]:
+    """statsmodels.datasets.fair (Fair 1978, shipped in statsmodels; its rows are sorted by affairs), every
+    `every`-th row: any affair (0/1), children > 0 (0/1), age, years married, occupation (1–6, the clusters)."""
+    d = sm.datasets.fair.load_pandas().data.iloc[::every]
+    occupation = d["occupation"].to_numpy(int)
+    return ((d["affairs"] > 0).to_numpy(float), (d["children"] > 0).to_numpy(float), d["age"].to_numpy(float),
+            d["yrs_married"].to_numpy(float), np.unique(occupation, return_inverse=True)[1].astype(np.intp))
+
+
+def _prepared(d, statistic: str, **kw):
+    from planrunner.engines.modelboot import _prepare
+    return _prepare(d, statistic, options(model="logistic", intervals=("studentized",), **kw), "test")
+
+
+def test_logistic_coefficient_se_equals_statsmodels_hc1_and_cluster():
+    # V-MODEL-GLM-SE; Source: statsmodels GLM(Binomial) with cov_type='HC0' and cov_type='cluster'
+    # (groups: occupation) on statsmodels.datasets.fair (reference functions). planrunner's HC1 is
+    # HC0·n/(n − p), the OLS definition; statsmodels 0.15 gives a GLM's cov_type='HC1' no such factor
+    # (its HC1 equals its HC0 there), so the check is HC0 times the stated factor
+    from planrunner.engines.modelboot import data_standard_error
+    from planrunner.engines.models import fit_logistic
+    y, kids, age, years, occupation = fair()
+    x = np.column_stack([np.ones(y.size), kids, age, years])
+    glm = sm.GLM(y, x, family=sm.families.Binomial())
+    hc0 = glm.fit(tol=1e-14, cov_type="HC0").bse[1]
+    assert np.sqrt(robust_covariance(x, fit_logistic(x, y, "test"), "HC0")[1, 1]) == pytest.approx(hc0, rel=1e-8)
+    hc1 = hc0 * np.sqrt(y.size / (y.size - 4))
+    cluster = glm.fit(tol=1e-14, cov_type="cluster", cov_kwds={"groups": occupation}).bse[1]
+    assert data_standard_error(_prepared(design(y, kids, age, years), "coefficient")) == pytest.approx(hc1, rel=1e-8)
+    clustered = design(y, kids, age, years, clusters=occupation)
+    assert data_standard_error(_prepared(clustered, "coefficient")) == pytest.approx(cluster, rel=1e-8)
+
+
+def test_logistic_resample_se_equals_a_statsmodels_refit_of_the_same_rows():
+    # the batched Newton refit of a cases resample and its HC1 SE equal statsmodels GLM(Binomial)
+    # refitted on the rows drawn (cov_type='HC0' times sqrt(n/(n - p)), as above; reference function)
+    from planrunner.engines.modelboot import CHUNK, _case_counts, _cases
+    y, kids, age, years, _ = fair(16)
+    d = design(y, kids, age, years, cells=kids.astype(np.intp))
+    p = _prepared(d, "coefficient")
+    counts = _case_counts(p, stream_for(3, "logit"), 0)
+    theta, se = _cases(p, counts, True)
+    for r in range(0, CHUNK, 8):
+        rows = np.repeat(np.arange(d.n), counts[r].astype(int))
+        refit = sm.GLM(y[rows], d.x[rows], family=sm.families.Binomial()).fit(tol=1e-14, cov_type="HC0")
+        assert theta[r] == pytest.approx(refit.params[1], rel=1e-8)
+        assert se[r] == pytest.approx(refit.bse[1] * np.sqrt(d.n / (d.n - 4)), rel=1e-7)
+
+
+def _stacked_sandwich_variance(name: str, x: np.ndarray, y: np.ndarray, beta: np.ndarray) -> float:
+    """The HC0 sandwich variance of a standardised effect from the stacked estimating equations
+    U_i(β, p₁, p₀) = [x_i(y_i − μ_i), μ¹_i − p₁, μ⁰_i − p₀] (M-estimation: A⁻¹BA⁻ᵀ/n, Stefanski & Boos
+    2002, The American Statistician 56(1)), every derivative by central differences (written here,
+    independently of planrunner's closed form)."""
+    from planrunner.engines.models import effect, expit
+    n, k = x.shape
+    x1, x0 = x.copy(), x.copy()
+    x1[:, 1], x0[:, 1] = 1.0, 0.0
+
+    def u(theta: np.ndarray) -> np.ndarray:
+        b, p1, p0 = theta[:k], theta[k], theta[k + 1]
+        return np.column_stack([x * (y - expit(x @ b))[:, None], expit(x1 @ b) - p1, expit(x0 @ b) - p0])
+
+    theta = np.concatenate([beta, [expit(x1 @ beta).mean(), expit(x0 @ beta).mean()]])
+    h = 1e-6
+    a = np.empty((k + 2, k + 2))
+    for j in range(k + 2):
+        step = np.zeros(k + 2)
+        step[j] = h
+        a[:, j] = -(u(theta + step).mean(axis=0) - u(theta - step).mean(axis=0)) / (2 * h)
+    scores = u(theta)
+    b_meat = scores.T @ scores / n
+    a_inv = np.linalg.inv(a)
+    covariance = a_inv @ b_meat @ a_inv.T / n
+    p = theta[k:]
+    grad = np.array([(effect(name, np.array(p[0] + h), np.array(p[1])) - effect(name, np.array(p[0] - h),
+                      np.array(p[1]))) / (2 * h),
+                     (effect(name, np.array(p[0]), np.array(p[1] + h)) - effect(name, np.array(p[0]),
+                      np.array(p[1] - h))) / (2 * h)])
+    return float(grad @ covariance[k:, k:] @ grad)
+
+
+@pytest.mark.parametrize("name", ["standardized_risk_difference", "standardized_risk_ratio",
+                                  "standardized_odds_ratio"])
+def test_delta_method_se_of_a_standardized_effect_equals_a_numerical_stacked_sandwich(name):
+    # V-MODEL-DELTA: Σψᵢ² (HC0) against the numerical-derivative sandwich above, on statsmodels' spector data
+    from planrunner.engines.models import fit_logistic, standardized_influence
+    gpa, tuce, psi, grade = spector()
+    x = np.column_stack([np.ones(grade.size), psi, gpa, tuce])
+    fit = fit_logistic(x, grade, "test")
+    psi_cov, psi_beta = standardized_influence(name, fit.beta[None, :], x, grade, 1, np.ones((1, grade.size)))
+    variance = float(np.sum((psi_cov + psi_beta) ** 2))
+    assert variance == pytest.approx(_stacked_sandwich_variance(name, x, grade, fit.beta), rel=1e-6)
+
+
+def test_standardized_risk_difference_equals_statsmodels_average_discrete_change():
+    # V-MODEL-MARGEFF; Source: statsmodels Logit.get_margeff(at='overall', method='dydx', dummy=True) on
+    # statsmodels.datasets.spector: for the 0/1 regressor PSI the average discrete change is the
+    # g-computation risk difference (to 1e-10), and its delta-method SE (statsmodels: numerical Jacobian
+    # with the HC0 covariance of the fit) is the coefficient part √Σψ_β² of planrunner's SE (1e-6,
+    # the accuracy of a numerical derivative)
+    from planrunner.engines.models import fit_logistic, standardized, standardized_influence
+    gpa, tuce, psi, grade = spector()
+    x = np.column_stack([np.ones(grade.size), psi, gpa, tuce])
+    fit = fit_logistic(x, grade, "test")
+    p1, p0 = standardized(fit.beta, x, 1)
+    margins = sm.Logit(grade, x).fit(disp=0, tol=1e-14, cov_type="HC0").get_margeff(
+        at="overall", method="dydx", dummy=True)
+    assert p1 - p0 == pytest.approx(margins.margeff[0], rel=1e-10, abs=1e-12)
+    _, psi_beta = standardized_influence("standardized_risk_difference", fit.beta[None, :], x, grade, 1,
+                                         np.ones((1, grade.size)))
+    assert np.sqrt(np.sum(psi_beta ** 2)) == pytest.approx(margins.margeff_se[0], rel=1e-6)
+
+
+def test_studentized_interval_of_a_standardized_risk_difference_from_a_plan(write_plan, tmp_path):
+    # end to end: a studentized interval of a logistic statistic; its se_hat is the HC1 delta method
+    y, kids, age, years, occupation = fair(10)
+    rows = "".join(f"{'yes' if k else 'no'},{float(a)!r},{float(v)!r},{int(o)},{int(r)}\n"
+                   for k, a, v, o, r in zip(kids, age, years, occupation, y))
+    plan = write_plan("""
+        plan: fair
+        title: Standardised risk difference, studentized
+        seed: 3
+        datasets:
+          d:
+            file: d.csv
+            columns:
+              kids: {type: category, levels: ['yes', 'no']}
+              age: {type: number}
+              years: {type: number}
+              occupation: {type: category}
+              affair: {type: integer}
+        analyses:
+          - id: srd
+            data: d
+            outcome: affair
+            groups: {by: kids, compare: ['yes', 'no']}
+            statistic: standardized_risk_difference
+            covariates: [age, years]
+            method: bootstrap
+            resamples: 200
+            intervals: [studentized, percentile]
+          - id: logit
+            role: secondary
+            data: d
+            outcome: affair
+            predictor: age
+            statistic: coefficient
+            model: logistic
+            covariates: [years]
+            clusters: occupation
+            method: bootstrap
+            resamples: 200
+            intervals: [studentized]
+    """, {"d.csv": "kids,age,years,occupation,affair\n" + rows})
+    record = run_plan(plan, out=tmp_path / "runs", clock=fixed_clock).record
+    entries = {a["id"]: a for a in record["analyses"]}
+    srd = entries["srd"]
+    assert srd["intervals"][0]["method"] == "studentized" and srd["intervals"][0]["lower"] is not None
+    from planrunner.engines.models import fit_logistic, standardized_influence
+    x = np.column_stack([np.ones(y.size), kids, age, years])
+    fit = fit_logistic(x, y, "test")
+    parts = standardized_influence("standardized_risk_difference", fit.beta[None, :], x, y, 1, np.ones((1, y.size)))
+    hc1 = np.sqrt(y.size / (y.size - 4) * np.sum((parts[0] + parts[1]) ** 2))
+    assert srd["details"]["se_hat"] == pytest.approx(hc1, rel=1e-10)
+    glm = sm.GLM(y, np.column_stack([np.ones(y.size), age, years]), family=sm.families.Binomial())
+    cluster = glm.fit(tol=1e-14, cov_type="cluster", cov_kwds={"groups": occupation}).bse[1]
+    assert entries["logit"]["details"]["se_hat"] == pytest.approx(cluster, rel=1e-8)
+    assert entries["logit"]["intervals"][0]["lower"] is not None

@@ -26,7 +26,10 @@ count/2^G.
 
 Standard errors of a resample (studentized intervals, p-values), the same formula for the data's
 ŝe: residual: classical s·√((XᵀX)⁻¹_jj); wild and cases: HC1; wild cluster and cases with clusters:
-cluster-robust (CR1).
+cluster-robust (CR1). A logistic coefficient (cases): the same sandwich with the logistic bread
+(XᵀWX)⁻¹ and residuals y − μ. A standardised effect (cases): the delta method on the sandwich of the
+stacked estimating equations of (β, p₁, p₀) (`models.standardized_influence`), with the HC1 or CR1
+factor.
 
 Speed: no Python loop per resample. Resamples are computed in chunks of ``CHUNK`` consecutive
 resamples (chunk k holds resamples kC … kC + C − 1, whatever range a worker was given), each chunk
@@ -69,7 +72,9 @@ from planrunner.engines.models import (
     fit_logistic,
     fit_ols,
     robust_covariance,
+    solve_each,
     standardized,
+    standardized_influence,
 )
 from planrunner.engines.precision import BootstrapPrecision
 from planrunner.engines.pvalues import P_INTERVAL_LEVEL, clopper_pearson
@@ -218,8 +223,8 @@ def _prepare(design: Design, statistic: str, options: ModelBootstrapOptions, wha
         base, noise = restricted.fitted + offset, restricted.residuals
     elif scheme == "residual":
         noise = fit.residuals * math.sqrt(design.n / (design.n - design.p))
-    se_kind = None if logistic else {"residual": "classical", "wild": "HC1", "wild-cluster": "cluster",
-                                     "cases": "cluster" if design.clusters is not None else "HC1"}[scheme]
+    se_kind = {"residual": "classical", "wild": "HC1", "wild-cluster": "cluster",
+               "cases": "cluster" if design.clusters is not None else "HC1"}[scheme]
     return _Prepared(design, statistic, options, fit, estimate, base, noise, q, a, se_kind, groups, enumerated,
                      null, _slots(design))
 
@@ -246,6 +251,8 @@ def data_standard_error(p: _Prepared) -> float:
     if p.se_kind == "classical":
         s2 = float(fit.residuals @ fit.residuals) / (p.design.n - p.design.p)
         return math.sqrt(s2 * fit.bread[target, target])
+    if p.options.model == "logistic":  # the resamples' formula on the data (every row counted once)
+        return float(_case_standard_errors(p, fit.beta[None, :], np.ones((1, p.design.n)))[0])
     kind = "cluster" if p.se_kind == "cluster" else "HC1"
     return math.sqrt(robust_covariance(x, fit, kind, p.design.clusters)[target, target])
 
@@ -357,13 +364,13 @@ def _cases(p: _Prepared, counts: np.ndarray, studentized: bool) -> tuple[np.ndar
     outer = (x[:, :, None] * x[:, None, :]).reshape(x.shape[0], k * k)
     if p.options.model == "linear":
         gram = (counts @ outer).reshape(-1, k, k)
-        beta = _solve(gram, counts @ (x * y[:, None]))
+        beta = solve_each(gram, counts @ (x * y[:, None]))
     else:
         beta = np.repeat(p.fit.beta[None, :], counts.shape[0], axis=0)
         for _ in range(NEWTON_STEPS):
             mu = expit(beta @ x.T)
             hessian = ((counts * mu * (1.0 - mu)) @ outer).reshape(-1, k, k)
-            step = _solve(hessian, (counts * (y - mu)) @ x)
+            step = solve_each(hessian, (counts * (y - mu)) @ x)
             beta = beta + step
             if not np.any(np.abs(step) > 1e-10 * np.maximum(1.0, np.abs(beta))):
                 break
@@ -378,32 +385,36 @@ def _cases(p: _Prepared, counts: np.ndarray, studentized: bool) -> tuple[np.ndar
         theta = effect(p.statistic, p1, p0)
     if not studentized:
         return theta, np.zeros_like(theta)
-    residuals = y[None, :] - beta @ x.T
-    a_rows = np.linalg.inv(gram)[:, target, :] @ x.T  # (CHUNK, n): row `target` of (XᵀCX)⁻¹Xᵀ per resample
-    n = p.design.n
-    if p.se_kind == "HC1":
-        return theta, np.sqrt(n / (n - k) * np.sum(counts * (residuals * a_rows) ** 2, axis=1))
-    assert p.design.clusters is not None
-    # each drawn copy of a cluster is a cluster of the resample: Σ_g (copies of g)·S_g²
+    return theta, _case_standard_errors(p, beta, counts)
+
+
+def _case_standard_errors(p: _Prepared, beta: np.ndarray, counts: np.ndarray) -> np.ndarray:
+    """The robust standard error of each refit (``beta`` (R, p) on rows counted ``counts`` (R, n)):
+    √(factor·Σᵢ cᵢuᵢ²), or with clusters √(factor·Σ_g (copies of g)·(Σ_{i∈g} uᵢ)²), each drawn copy
+    of a cluster a cluster of the resample. uᵢ is row i's share of the error: the coefficient's
+    [(XᵀCWX)⁻¹xᵢ]_target·(yᵢ − μᵢ) (W = 1 for least squares, so HC1/CR1 of the refit), or a
+    standardised effect's ψ_cov,i + ψ_β,i (`models.standardized_influence`); factor n/(n − p), or
+    G/(G − 1)·(n − 1)/(n − p) with clusters."""
+    x, y, target = p.design.x, p.design.y, p.design.target
+    n, k = x.shape
+    if p.statistic in LINEAR:
+        mu = beta @ x.T if p.options.model == "linear" else expit(beta @ x.T)
+        w = counts if p.options.model == "linear" else counts * mu * (1.0 - mu)
+        outer = (x[:, :, None] * x[:, None, :]).reshape(n, k * k)
+        unit = np.zeros((beta.shape[0], k))
+        unit[:, target] = 1.0
+        a_rows = solve_each((w @ outer).reshape(-1, k, k), unit) @ x.T  # row `target` of (XᵀCWX)⁻¹Xᵀ
+        shares = a_rows * (y[None, :] - mu)
+    else:
+        psi_cov, psi_beta = standardized_influence(p.statistic, beta, x, y, target, counts)
+        shares = psi_cov + psi_beta
+    if p.design.clusters is None:
+        return np.sqrt(n / (n - k) * np.sum(counts * shares * shares, axis=1))
     copies = np.zeros((counts.shape[0], p.groups))
     copies[:, p.design.clusters] = counts
-    sums = ((residuals * a_rows) @ _indicator(p.design.clusters, p.groups))
+    sums = shares @ _indicator(p.design.clusters, p.groups)
     factor = p.groups / (p.groups - 1) * (n - 1) / (n - k)
-    return theta, np.sqrt(factor * np.sum(copies * sums * sums, axis=1))
-
-
-def _solve(matrices: np.ndarray, vectors: np.ndarray) -> np.ndarray:
-    """Solve each system; a singular one (a resample that lost a covariate level) gives NaN."""
-    try:
-        return np.linalg.solve(matrices, vectors[:, :, None])[:, :, 0]
-    except np.linalg.LinAlgError:
-        out = np.full(vectors.shape, np.nan)
-        for i in range(matrices.shape[0]):  # only a chunk that holds a singular system
-            try:
-                out[i] = np.linalg.solve(matrices[i], vectors[i])
-            except np.linalg.LinAlgError:
-                pass
-        return out
+    return np.sqrt(factor * np.sum(copies * sums * sums, axis=1))
 
 
 # ------------------------------------------------------------------ summarise
@@ -416,7 +427,7 @@ def _summarise(p: _Prepared, distribution: np.ndarray, se_star: np.ndarray | Non
     scheme_words = _scheme_words(p, weights is not None)
     details: dict[str, Any] = {"model": options.model, "columns": list(p.design.names),
                                "coefficients": [float(b) for b in p.fit.beta],
-                               "standard_error_formula": p.se_kind, "chunk": CHUNK}
+                               "standard_error_formula": _se_words(p), "chunk": CHUNK}
     if p.groups:
         details["clusters"] = p.groups
     warnings: list[EngineWarning] = []
@@ -587,6 +598,16 @@ def _scheme_words(p: _Prepared, enumerated: bool) -> str:
         return f"wild bootstrap ({options.weights} weights per row{null}; least squares)"
     how = f"all 2^{p.groups} = {2 ** p.groups} sign vectors enumerated" if enumerated else f"{options.weights} weights"
     return f"wild cluster bootstrap ({how}, one weight per cluster{null}; least squares)"
+
+
+def _se_words(p: _Prepared) -> str:
+    """The standard-error formula of the data's ŝe and of each resample's se* (studentized, p-values)."""
+    kind = {"classical": "classical s*sqrt((X'X)^-1_jj)", "HC1": "HC1", "cluster": "CR1 (cluster-robust)"}[
+        p.se_kind or "HC1"]
+    if p.statistic not in LINEAR:
+        return (f"delta method on the sandwich of the stacked estimating equations (coefficients, p1, p0), {kind} "
+                "factor")
+    return f"{kind} sandwich of the logistic fit" if p.options.model == "logistic" else kind
 
 
 def _conventions(p: _Prepared) -> dict[str, str]:

@@ -16,7 +16,10 @@ Formulas (n rows, p columns, e = y − Xβ̂, A = (XᵀX)⁻¹Xᵀ so that β̂ 
   H⁻¹(Σ s_i s_iᵀ)H⁻¹ with H = XᵀWX, W = diag(μ(1 − μ)), s_i = x_i(y_i − μ_i) (HC1 and cluster with the
   factors above);
 * g-computation (standardisation): p₁ = mean over all rows of μ(x_i with target = 1), p₀ likewise with
-  target = 0; risk difference p₁ − p₀, risk ratio p₁/p₀, odds ratio [p₁/(1 − p₁)]/[p₀/(1 − p₀)].
+  target = 0; risk difference p₁ − p₀, risk ratio p₁/p₀, odds ratio [p₁/(1 − p₁)]/[p₀/(1 − p₀)];
+* its standard error (studentized intervals): the delta method on the sandwich of the stacked estimating
+  equations of (β, p₁, p₀), var = Σ_i (ψ_cov,i + ψ_β,i)² (`standardized_influence`), with the HC1 or
+  cluster factor above.
 
 Checks (each a refusal with a message naming the column, before any resampling):
 
@@ -37,7 +40,8 @@ import numpy as np
 
 from planrunner.errors import EngineError
 
-__all__ = ["Design", "Fit", "RANK_TOLERANCE", "check_rank", "fit_logistic", "fit_ols", "robust_covariance"]
+__all__ = ["Design", "Fit", "RANK_TOLERANCE", "check_rank", "fit_logistic", "fit_ols", "robust_covariance",
+           "solve_each", "standardized_influence"]
 
 RANK_TOLERANCE = 1e-8
 """A centred, unit-length column whose residual length after the earlier columns is below this is
@@ -198,3 +202,61 @@ def effect(name: str, p1: np.ndarray, p0: np.ndarray) -> np.ndarray:
         if name == "standardized_risk_ratio":
             return p1 / p0
         return (p1 / (1.0 - p1)) / (p0 / (1.0 - p0))
+
+
+def effect_gradient(name: str, p1: np.ndarray, p0: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """∂θ/∂p₁ and ∂θ/∂p₀ of the standardised effect: difference (1, −1); ratio (1/p₀, −p₁/p₀²);
+    odds ratio (θ/(p₁(1 − p₁)), −θ/(p₀(1 − p₀)))."""
+    with np.errstate(divide="ignore", invalid="ignore"):
+        if name == "standardized_risk_difference":
+            return np.ones_like(p1), -np.ones_like(p0)
+        if name == "standardized_risk_ratio":
+            return 1.0 / p0, -p1 / (p0 * p0)
+        theta = effect(name, p1, p0)
+        return theta / (p1 * (1.0 - p1)), -theta / (p0 * (1.0 - p0))
+
+
+def standardized_influence(name: str, beta: np.ndarray, x: np.ndarray, y: np.ndarray, target: int,
+                           counts: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Each row's share of a standardised effect's error, for a batch of R fits (``beta`` (R, p)) on
+    rows counted ``counts`` (R, n) times (the data: one row of ones): (ψ_cov, ψ_β), both (R, n).
+
+    With N = Σc, wᵢ = cᵢ/N, μᵈᵢ = μ(xᵢ with target = d), p_d = Σ wᵢμᵈᵢ and g = ∂θ/∂β =
+    f₁ Σ wᵢμ¹ᵢ(1 − μ¹ᵢ)x¹ᵢ + f₀ Σ wᵢμ⁰ᵢ(1 − μ⁰ᵢ)x⁰ᵢ (f_d of `effect_gradient`):
+    ψ_cov,i = [f₁(μ¹ᵢ − p₁) + f₀(μ⁰ᵢ − p₀)]/N, the averaging over the rows' covariates, and
+    ψ_β,i = gᵀ(XᵀCWX)⁻¹xᵢ(yᵢ − μᵢ), the coefficients' error (delta method on the sandwich). The
+    sandwich variance of the stacked estimating equations (β, p₁, p₀) is Σ cᵢ(ψ_cov,i + ψ_β,i)²
+    (HC0); Σ cᵢψ²_β,i alone is the delta method on the HC0 covariance of β̂, which statsmodels'
+    marginal effects use."""
+    x1 = x.copy()
+    x1[:, target] = 1.0
+    x0 = x.copy()
+    x0[:, target] = 0.0
+    total = counts.sum(axis=1, keepdims=True)
+    w = counts / total
+    mu1, mu0, mu = expit(beta @ x1.T), expit(beta @ x0.T), expit(beta @ x.T)
+    p1, p0 = np.sum(w * mu1, axis=1), np.sum(w * mu0, axis=1)
+    f1, f0 = effect_gradient(name, p1, p0)
+    g = f1[:, None] * ((w * mu1 * (1.0 - mu1)) @ x1) + f0[:, None] * ((w * mu0 * (1.0 - mu0)) @ x0)
+    k = x.shape[1]
+    outer = (x[:, :, None] * x[:, None, :]).reshape(x.shape[0], k * k)
+    hessian = ((counts * mu * (1.0 - mu)) @ outer).reshape(-1, k, k)
+    direction = solve_each(hessian, g)  # (XᵀCWX)⁻¹g, one per fit
+    psi_cov = (f1[:, None] * (mu1 - p1[:, None]) + f0[:, None] * (mu0 - p0[:, None])) / total
+    psi_beta = (direction @ x.T) * (y[None, :] - mu)
+    return psi_cov, psi_beta
+
+
+def solve_each(matrices: np.ndarray, vectors: np.ndarray) -> np.ndarray:
+    """Solve each system (``matrices`` (R, p, p), ``vectors`` (R, p)); a singular one (a resample that
+    lost a covariate level) gives NaN."""
+    try:
+        return np.linalg.solve(matrices, vectors[:, :, None])[:, :, 0]
+    except np.linalg.LinAlgError:
+        out = np.full(vectors.shape, np.nan)
+        for i in range(matrices.shape[0]):  # only a chunk that holds a singular system
+            try:
+                out[i] = np.linalg.solve(matrices[i], vectors[i])
+            except np.linalg.LinAlgError:
+                pass
+        return out
