@@ -49,7 +49,7 @@ import scipy.stats as st
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))  # run from a checkout without installing
 
 from planrunner import __version__  # noqa: E402
-from planrunner.engines.association import association_test  # noqa: E402
+from planrunner.engines.association import TER_BRAAK, ResidualScheme, association_test  # noqa: E402
 from planrunner.engines.blocks import mapping_ranges, resample_ranges  # noqa: E402
 from planrunner.engines.bootstrap import BootstrapOptions, bootstrap  # noqa: E402
 from planrunner.engines.clusters import cluster_test  # noqa: E402
@@ -217,6 +217,7 @@ def design_workloads(seed: int) -> list[Workload]:
     first = clusters < 50
     predictor, covariates = rng.normal(size=2000), rng.normal(size=(2000, 2))
     outcome = 0.1 * predictor + covariates @ [0.5, -0.3] + rng.normal(size=2000)
+    strata = np.arange(2000) % 20  # 20 strata of 100 rows (residuals permuted within each)
     B = 10_000
 
     def options(alternative: str) -> PermutationOptions:
@@ -237,6 +238,16 @@ def design_workloads(seed: int) -> list[Workload]:
                  lambda: association_test(np.column_stack([predictor, outcome]), get_statistic("slope"),
                                           options("two-sided"), stream=stream_for(seed, "benchmark"),
                                           covariates=covariates), None, p_only, None, 200),
+        Workload("D3T", "association, ter Braak partial slope, n = 2000, 2 covariates, 1e4 resamples",
+                 lambda: association_test(np.column_stack([predictor, outcome]), get_statistic("slope"),
+                                          options("two-sided"), stream=stream_for(seed, "benchmark"),
+                                          covariates=covariates, residuals=ResidualScheme(TER_BRAAK)),
+                 None, p_only, None, 200),
+        Workload("D3S", "association, Freedman–Lane within 20 strata, n = 2000, 2 covariates, 1e4 resamples",
+                 lambda: association_test(np.column_stack([predictor, outcome]), get_statistic("slope"),
+                                          options("two-sided"), stream=stream_for(seed, "benchmark"),
+                                          covariates=covariates, residuals=ResidualScheme(strata=strata)),
+                 None, p_only, None, 200),
         Workload("D4", "association, Spearman correlation, n = 500, 1e4 resamples",
                  lambda: association_test(np.column_stack([predictor[:500], outcome[:500]]), get_statistic("spearman"),
                                           options("two-sided"), stream=stream_for(seed, "benchmark")),

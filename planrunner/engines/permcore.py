@@ -4,7 +4,7 @@ tolerance and the step from a null distribution to a result.
 Four engines test a null of exchangeability: :mod:`~planrunner.engines.permutation` (labels
 shuffled, within strata), :mod:`~planrunner.engines.signflip` (labels swapped within pairs),
 :mod:`~planrunner.engines.clusters` (labels shuffled between whole clusters) and
-:mod:`~planrunner.engines.association` (outcome shuffled against a predictor; Freedman–Lane). Each
+:mod:`~planrunner.engines.association` (outcome shuffled against a predictor; Freedman–Lane, ter Braak). Each
 keeps only what is its own: its arrangement space (how many arrangements, how to list them, an
 exact shortcut if any) and its Monte Carlo draw, a picklable range task that the executors may
 spread over workers (:mod:`~planrunner.engines.blocks`). Everything else is here, written once:
