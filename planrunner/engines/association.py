@@ -66,12 +66,15 @@ from planrunner.engines.statistics import Statistic, check_samples
 from planrunner.engines.streams import Stream, UniformRows
 from planrunner.errors import EngineError
 
-__all__ = ["FREEDMAN_LANE", "RESIDUAL_PERMUTATIONS", "TER_BRAAK", "ResidualScheme", "association_test",
-           "computation"]
+__all__ = ["FREEDMAN_LANE", "RESIDUAL_PERMUTATIONS", "TER_BRAAK", "TER_BRAAK_NOT_EXACT", "ResidualScheme",
+           "association_test", "computation"]
 
 FREEDMAN_LANE = "freedman-lane"
 TER_BRAAK = "ter-braak"
 RESIDUAL_PERMUTATIONS = (FREEDMAN_LANE, TER_BRAAK)
+TER_BRAAK_NOT_EXACT = ("ter Braak permutes the full model's residuals, whose identity arrangement is not the "
+                       "observed one: it has no exact null distribution",
+                       "use exact: auto or never (Monte Carlo), or covariate_permutation: freedman-lane")
 _NAMES = {FREEDMAN_LANE: "Freedman–Lane (Freedman & Lane 1983)", TER_BRAAK: "ter Braak (ter Braak 1992)"}
 
 
@@ -301,10 +304,7 @@ def _choose(model: _Model, statistic: Statistic, options: PermutationOptions) ->
     arrangements = _arrangements(model)
     if model.method == TER_BRAAK:
         if options.exact == "always":
-            raise EngineError("ter Braak permutes the full model's residuals, whose identity arrangement is not "
-                              "the observed one: it has no exact null distribution",
-                              hint="use exact: auto or never (Monte Carlo), or covariate_permutation: "
-                                   "freedman-lane for an exact test")
+            raise EngineError(TER_BRAAK_NOT_EXACT[0], hint=TER_BRAAK_NOT_EXACT[1])
         return MONTE_CARLO, arrangements
     return choose_computation(arrangements, options, shortcut=False, space="pairings",
                               statistic=statistic.name), arrangements

@@ -12,6 +12,7 @@ from __future__ import annotations
 
 from typing import Any
 
+from planrunner.engines.association import TER_BRAAK, TER_BRAAK_NOT_EXACT
 from planrunner.engines.statistics import Statistic
 from planrunner.engines.teststats import K_GROUP, PAIRED_ONLY
 from planrunner.plan.problems import Problem
@@ -99,10 +100,8 @@ def _covariate_permutation_checks(at: tuple, a: Any) -> list[Problem]:
         return [Problem(at + ("covariate_permutation",), "covariate_permutation chooses whose residuals a test "
                         "with covariates permutes, but the analysis declares no covariates",
                         "add covariates: [..], or remove covariate_permutation")]
-    if method == "ter-braak" and a.exact == "always":
-        return [Problem(at + ("exact",), "ter Braak permutes the full model's residuals, whose identity "
-                        "arrangement is not the observed one: it has no exact null distribution",
-                        "use exact: auto or never (Monte Carlo), or covariate_permutation: freedman-lane")]
+    if method == TER_BRAAK and a.exact == "always":
+        return [Problem(at + ("exact",), *TER_BRAAK_NOT_EXACT)]
     return []
 
 
