@@ -62,3 +62,22 @@ def test_the_probe_sees_the_libraries_a_run_needs(tmp_path):
     code, packages = loaded_by(tmp_path, "run", str(plan), "--out", str(tmp_path / "out"), "--quiet")
     assert code == 0
     assert {"jinja2", "matplotlib", "numpy"} <= packages
+
+
+# The numbers of the demo records (tests/record_digest.py), computed on main before the import diet
+# and the pictures' rewrite: start-up work must change no number. A change that means to change a
+# demo's numbers (a new method, a fixed bug) updates its digest here and says so in its commit.
+DEMO_DIGESTS = {
+    "liner-trial": "3e2c3364bdb18d0711873da7559ff40fb48876fa94ac19d5ff63203a6ee826a1",
+    "monthly-fill": "bcbd1d77264f264e966f7ee0714dba0704008da94a790353dbbe1cd97ae0c32a",
+    "orchard-irrigation": "99883e217ca932d201c5d7c593f9d49dd9b1adba61f5558670c4bad8704c64a4",
+    "seal-endurance": "af03d378adc6fd3ec48ecbd1d1b88fa3934272791ed49ca482607206617e164b",
+    "ward-hygiene": "79eb5f2be3269e1ddfa17d8494ba90e8334b919b3f4e516737db9edce71cf45d",
+}
+
+
+@pytest.mark.parametrize("plan", sorted(DEMO_DIGESTS))
+def test_demo_record_numbers_are_unchanged(plan):
+    from record_digest import demo_record, numbers_digest
+
+    assert numbers_digest(demo_record(plan)) == DEMO_DIGESTS[plan]
