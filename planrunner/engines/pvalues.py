@@ -26,7 +26,7 @@ from typing import Any
 
 import numpy as np
 
-from planrunner.engines.lazy import stats
+from planrunner.engines.lazy import betaincinv
 from planrunner.engines.results import EngineWarning
 
 __all__ = ["P_INTERVAL_LEVEL", "TWO_SIDED_RULES", "PValues", "clopper_pearson", "monte_carlo_sd", "summarize"]
@@ -53,8 +53,8 @@ class PValues:
 def clopper_pearson(count: int, trials: int, level: float = P_INTERVAL_LEVEL) -> tuple[float, float]:
     """Exact binomial interval for a proportion (Clopper & Pearson 1934), from beta quantiles."""
     tail = (1.0 - level) / 2.0
-    lower = 0.0 if count == 0 else float(stats.beta.ppf(tail, count, trials - count + 1))
-    upper = 1.0 if count == trials else float(stats.beta.ppf(1.0 - tail, count + 1, trials - count))
+    lower = 0.0 if count == 0 else float(betaincinv(count, trials - count + 1, tail))
+    upper = 1.0 if count == trials else float(betaincinv(count + 1, trials - count, 1.0 - tail))
     return lower, upper
 
 

@@ -27,7 +27,6 @@ import numpy as np
 
 from planrunner.engines.blocks import bind as range_task
 from planrunner.engines.exactdist import EXACT_FROM, RESCALE, exact_subset_sums_any_size, integer_scores
-from planrunner.engines.lazy import rankdata
 from planrunner.engines.permcore import (
     DYNAMIC_PROGRAMMING,
     ENUMERATION,
@@ -42,6 +41,7 @@ from planrunner.engines.permcore import (
     permutation_result,
     tie_tolerance,
 )
+from planrunner.engines.ranks import rankdata
 from planrunner.engines.results import EngineWarning, PermutationResult
 from planrunner.engines.statistics import Statistic, check_samples
 from planrunner.engines.streams import DRAW_BLOCK, Stream

@@ -25,7 +25,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from planrunner.engines.lazy import rankdata
+from planrunner.engines.ranks import rankdata
 from planrunner.errors import EngineError
 
 __all__ = [

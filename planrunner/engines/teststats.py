@@ -22,7 +22,7 @@ from typing import Any
 
 import numpy as np
 
-from planrunner.engines.lazy import stats
+from planrunner.engines.ranks import rankdata
 from planrunner.engines.statistics import Statistic, register
 
 __all__ = ["K_GROUP", "PAIRED_ONLY", "SUM_SCORES", "rank_scores"]
@@ -45,7 +45,7 @@ def _t_welch(x: np.ndarray, y: np.ndarray) -> np.ndarray:
 
 
 def _ranks(a: np.ndarray) -> np.ndarray:
-    return stats.rankdata(a, axis=-1)  # mid-ranks for ties
+    return rankdata(a, axis=-1)  # mid-ranks for ties
 
 
 def _rank_sum(x: np.ndarray, y: np.ndarray) -> np.ndarray:
@@ -225,7 +225,7 @@ INFINITE_ALLOWED = frozenset({"risk_ratio"})  # large values are evidence: teste
 
 
 def rank_scores(pooled: np.ndarray) -> np.ndarray:
-    return stats.rankdata(pooled)
+    return rankdata(pooled)
 
 
 def _identity(pooled: np.ndarray) -> np.ndarray:
