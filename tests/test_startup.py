@@ -70,9 +70,9 @@ def test_the_probe_sees_the_libraries_a_run_needs(tmp_path):
 DEMO_DIGESTS = {
     "liner-trial": "3e2c3364bdb18d0711873da7559ff40fb48876fa94ac19d5ff63203a6ee826a1",
     "monthly-fill": "bcbd1d77264f264e966f7ee0714dba0704008da94a790353dbbe1cd97ae0c32a",
-    "orchard-irrigation": "99883e217ca932d201c5d7c593f9d49dd9b1adba61f5558670c4bad8704c64a4",
+    "orchard-irrigation": "433c26307956f2638ade629718c0910b6506a71dd47ceec8c99cbc2ba48eea15",
     "seal-endurance": "af03d378adc6fd3ec48ecbd1d1b88fa3934272791ed49ca482607206617e164b",
-    "ward-hygiene": "79eb5f2be3269e1ddfa17d8494ba90e8334b919b3f4e516737db9edce71cf45d",
+    "ward-hygiene": "090737b21a180537084ef529bef37f492c774623d5baf22e78180b07386a396c",
 }
 
 
