@@ -27,6 +27,7 @@ from planrunner.cli.audit import (
 )
 from planrunner.cli.options import DATA_ROOT_HELP, add_execution_options, execution_of
 from planrunner.cli.signing import SIGNING_VERBS, add_run_signing_options, add_signing_verbs, run_signing
+from planrunner.cli.simulate import add_simulate_verb
 from planrunner.errors import (
     DataError,
     EngineError,
@@ -104,6 +105,7 @@ def build_parser() -> argparse.ArgumentParser:
     add_run_signing_options(run)
     _add_audit_verbs(verbs)
     add_signing_verbs(verbs)
+    add_simulate_verb(verbs)
     return parser
 
 
@@ -193,6 +195,7 @@ def _main(argv: Sequence[str] | None) -> int:
 
 # what an interrupt of a verb left undone (only `run` writes what must exist whole or not at all)
 STOPPED_BEFORE = {"run": "; no record was written (any workers were stopped)",
+                  "simulate": "; nothing was written (any workers were stopped)",
                   "verify": " (any workers were stopped)", "selfcheck": "; no report was written"}
 
 
@@ -215,6 +218,9 @@ def _dispatch(args: argparse.Namespace, args_list: list[str]) -> int:
         written = write_skeleton(args.datafile, args.out, sheet=args.sheet, fmt=args.format)
         print(f"plan skeleton written to {written}; fill in the analyses, then 'planrunner check {written}'")
         return EXIT_OK
+    if args.verb == "simulate":
+        from planrunner.cli.simulate import simulate
+        return simulate(args, args_list)
     if args.verb in AUDIT_VERBS:
         return AUDIT_VERBS[args.verb](args)
     if args.verb in SIGNING_VERBS:

@@ -33,6 +33,7 @@ __all__ = [
     "PARAMETERS",
     "RATIOS",
     "comparison_word",
+    "null_value",
     "STATISTICS",
     "Statistic",
     "bind",
@@ -341,6 +342,19 @@ MODEL_STATISTICS = frozenset(name for name, s in STATISTICS.items() if s.form ==
 # two-group statistics that compare by a quotient (first over second), not a difference
 RATIOS = frozenset({"ratio_of_means", "risk_ratio", "odds_ratio", "rmst_ratio", "standardized_risk_ratio",
                     "standardized_odds_ratio"})
+
+NO_EFFECT_ZERO = frozenset({"mean_difference", "median_difference", "quantile_difference", "risk_difference",
+                            "hodges_lehmann", "correlation", "spearman", "kendall", "slope",
+                            "t_pooled", "t_welch"})
+
+
+def null_value(statistic: object) -> float | None:
+    """The statistic's value when there is no effect, from its kind (0 for a difference or an
+    association, 1 for a ratio); None when it has none (a mean, a rank sum, an F statistic)."""
+    if statistic in RATIOS:
+        return 1.0
+    return 0.0 if statistic in NO_EFFECT_ZERO else None
+
 
 
 def comparison_word(name: str) -> str:

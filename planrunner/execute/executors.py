@@ -209,7 +209,7 @@ def _serial(jobs: list[Job], tally: _Tally) -> list[Any]:
     return _run_jobs(jobs, tally, mapper, {})
 
 
-def _ignore_interrupts() -> None:
+def ignore_interrupts() -> None:
     # Ctrl-C reaches the whole process group; the parent alone handles it and stops the workers
     signal.signal(signal.SIGINT, signal.SIG_IGN)
 
@@ -304,7 +304,7 @@ def _on_threads(jobs: list[Job], execution: Execution, tally: _Tally) -> list[An
 
 def _on_processes(jobs: list[Job], execution: Execution, tally: _Tally) -> list[Any]:
     # spawn: a clean interpreter per worker (forking a process that holds threads is unsafe)
-    pool = multiprocessing.get_context("spawn").Pool(execution.workers, initializer=_ignore_interrupts)
+    pool = multiprocessing.get_context("spawn").Pool(execution.workers, initializer=ignore_interrupts)
     try:
         pending = {i: pool.apply_async(_execute_caught, (job,)) for i, job in enumerate(jobs)
                    if job.method == "jackknife"}
@@ -343,7 +343,8 @@ def _cached_spreading(pool: Any, workers: int, tally: _Tally) -> Callable[[Range
     return mapper
 
 
-def _on_dask(jobs: list[Job], execution: Execution, tally: _Tally) -> list[Any]:
+def dask_client(execution: Execution) -> tuple[Any, Any]:
+    """A dask client for ``execution`` and the local cluster it started (None with a scheduler address)."""
     try:
         from distributed import Client, LocalCluster
     except ImportError:
@@ -369,6 +370,11 @@ def _on_dask(jobs: list[Job], execution: Execution, tally: _Tally) -> list[Any]:
             cluster.close()
         raise ExecutorError(f"cannot reach the dask scheduler {execution.scheduler or 'local cluster'}: {exc}",
                             hint="check the address (e.g. tcp://host:8786) and that the scheduler runs") from None
+    return client, cluster
+
+
+def _on_dask(jobs: list[Job], execution: Execution, tally: _Tally) -> list[Any]:
+    client, cluster = dask_client(execution)
     futures: list[Any] = []
     try:
         pending = {i: client.submit(_execute_caught, job, pure=False) for i, job in enumerate(jobs)

@@ -15,22 +15,24 @@ from planrunner.compile.jobs import Job
 from planrunner.engines import maxt
 from planrunner.engines.maxt import Endpoint, MaxTResult
 from planrunner.engines.permcore import PermutationOptions
-from planrunner.engines.streams import stream_for
+from planrunner.engines.streams import Stream, stream_for
 from planrunner.errors import EngineError
 from planrunner.plan.schema import Plan
 
 Found = TypeVar("Found")
 
 
-def max_t_families(plan: Plan, jobs: list[Job]) -> dict[int, MaxTResult]:
+def max_t_families(plan: Plan, jobs: list[Job], *, salt: tuple[int, ...] = ()) -> dict[int, MaxTResult]:
     """Westfall–Young max-T for every ``max-t`` family: one joint run on the same permutations.
 
     The family's stream is keyed by ``"max-t:" + the member ids joined by ","``, so it never shares
-    draws with any analysis and does not depend on the order of the analyses in the plan.
+    draws with any analysis and does not depend on the order of the analyses in the plan. ``salt``
+    extends that key (a simulated data set's, so that each data set draws its own permutations).
     """
     def run(family: list[str], endpoints: list[Endpoint], first: Job, options: PermutationOptions) -> MaxTResult:
+        stream = stream_for(plan.seed, "max-t:" + ",".join(family))
         return maxt.max_t(endpoints, strata=first.strata, resamples=options.resamples, exact=options.exact,
-                          stream=stream_for(plan.seed, "max-t:" + ",".join(family)))
+                          stream=Stream(stream.root_seed, stream.key + salt))
     return _each_family(plan, jobs, run)
 
 

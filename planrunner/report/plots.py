@@ -33,7 +33,7 @@ from matplotlib.figure import Figure
 from matplotlib.ticker import Formatter as TickFormatter
 from matplotlib.ticker import MaxNLocator
 
-from planrunner.engines.statistics import RATIOS, STATISTICS
+from planrunner.engines.statistics import STATISTICS, null_value
 from planrunner.report import digits as precision
 from planrunner.report import labels
 from planrunner.report.labels import INTERVAL_NAMES
@@ -77,19 +77,6 @@ def method_name(method: Any) -> str:
 
 
 # statistics whose value of no effect is 0 (a difference, a correlation, a slope, a centred t) or 1 (a ratio)
-NO_EFFECT_ZERO = frozenset({"mean_difference", "median_difference", "quantile_difference", "risk_difference",
-                            "hodges_lehmann", "correlation", "spearman", "kendall", "slope",
-                            "t_pooled", "t_welch"})
-
-
-def null_value(statistic: Any) -> float | None:
-    """The statistic's value when there is no effect, from its kind (0 for a difference or an
-    association, 1 for a ratio); None when it has none (a mean, a rank sum, an F statistic)."""
-    if statistic in RATIOS:
-        return 1.0
-    return 0.0 if statistic in NO_EFFECT_ZERO else None
-
-
 def decision_marks(entry: dict[str, Any]) -> list[tuple[str, float]]:
     """(label, value) of the decision's margin, limit or limits, read defensively: a record without
     ``decision``, or with one whose values are missing or not finite numbers, gives none."""

@@ -1,0 +1,296 @@
+"""Run a plan's analyses on simulated data sets and keep, per data set, only what the operating
+characteristics need (README: Simulating the plan before the data).
+
+Each simulated data set is an independent task. Its data come from the generator of draw stream
+(simulation seed, key of the scenario's label, data-set index); its analyses run exactly as a run
+runs them (`check_tables`, `compile_jobs`, the engines through `execute.executors.execute`, every
+max-t family, the record's own adapters, multiplicity adjustment and decision rule), each analysis
+on its plan stream salted by (scenario key, data-set index), so the data sets are independent of
+each other and of the plan's own run. Nothing about a data set depends on which worker ran it or
+in which order, so the numbers are the same serially, on threads, processes or dask.
+
+A data set whose data cannot carry an analysis (a group left empty, an engine's refusal) is kept
+as a failure with its located message, never dropped.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Callable, Iterator, Mapping, Sequence
+from dataclasses import dataclass, replace
+from typing import Any
+
+import numpy as np
+
+from planrunner.compile.jobs import Job, compile_jobs
+from planrunner.data.checks import check_tables
+from planrunner.data.tables import Table, table_from_columns
+from planrunner.engines.statistics import null_value
+from planrunner.engines.streams import Stream, analysis_key
+from planrunner.errors import PlanrunnerError
+from planrunner.execute.executors import Execution, execute
+from planrunner.execute.families import max_t_families
+from planrunner.plan.schema import Plan
+from planrunner.record.build import family_fields, method_fields
+from planrunner.record.decisions import decision_entry
+
+# columns per dataset of one simulated data set, from that data set's generator
+Columns = Mapping[str, Mapping[str, np.ndarray]]
+DataMaker = Callable[[np.random.Generator], Columns]
+# (data sets done, data sets in total), after every finished chunk
+Progress = Callable[[int, int], None]
+CHUNKS_PER_WORKER = 8  # a few chunks per worker keep them busy while one finishes early
+MAX_CHUNK = 50  # data sets per chunk at most: an interrupt or a progress step waits for one chunk
+
+
+@dataclass(frozen=True)
+class IntervalOutcome:
+    method: str
+    level: float
+    side: str  # two-sided, lower (an upper end of +inf), upper (a lower end of -inf)
+    lower: float | None  # None: open (side) or not formed
+    upper: float | None
+    formed: bool  # False when the engine could not form the interval (its note says why)
+
+
+@dataclass(frozen=True)
+class AnalysisOutcome:
+    """What one analysis gave on one simulated data set."""
+
+    estimate: float | None = None
+    intervals: tuple[IntervalOutcome, ...] = ()
+    p_value: float | None = None
+    adjusted_p_value: float | None = None  # in a multiplicity family: its adjusted p-value
+    rejected: bool | None = None  # None: the analysis gives no test of its null (see `rejects`)
+    verdict: str | None = None  # met, not met, unresolved; None without a decision rule
+    warnings: tuple[str, ...] = ()  # codes of the job's, the engine's and the family's warnings
+    failure: str | None = None  # the located message of a data set this analysis could not be run on
+
+
+@dataclass(frozen=True)
+class DatasetOutcome:
+    index: int
+    analyses: tuple[AnalysisOutcome, ...]  # in plan order
+
+
+@dataclass(frozen=True)
+class SimulationTask:
+    """Everything a worker needs for the data sets of one scenario (sent once per chunk)."""
+
+    plan: Plan
+    seed: int  # the simulation's master seed
+    label: str  # the scenario's name, with the group size in a sample-size search ("name n=40")
+    make: DataMaker
+    used: tuple[str, ...]  # the plan datasets the analyses read
+
+    def data_stream(self, index: int) -> np.random.Generator:
+        """The data generator of data set ``index``: SeedSequence(seed, spawn_key=(label key, index))."""
+        sequence = np.random.SeedSequence(entropy=self.seed, spawn_key=(analysis_key(self.label), index))
+        return np.random.Generator(np.random.PCG64(sequence))
+
+    def salt(self, index: int) -> tuple[int, int]:
+        """What an analysis stream of data set ``index`` adds to its plan key."""
+        return analysis_key(self.label), index
+
+
+def used_datasets(plan: Plan) -> tuple[str, ...]:
+    return tuple(dict.fromkeys(a.data for a in plan.analyses))
+
+
+def source_name(label: str, dataset: str) -> str:
+    """How messages name a simulated dataset (in place of its file)."""
+    return f"simulated {dataset} ({label})"
+
+
+def simulated_tables(task: SimulationTask, index: int) -> dict[str, Table]:
+    columns = task.make(task.data_stream(index))
+    return {name: table_from_columns(name, task.plan.datasets[name], columns[name],
+                                     source=source_name(task.label, name)) for name in task.used}
+
+
+def salted(job: Job, salt: tuple[int, ...]) -> Job:
+    return replace(job, stream=Stream(job.stream.root_seed, job.stream.key + salt))
+
+
+def run_dataset(task: SimulationTask, index: int) -> DatasetOutcome:
+    """Every analysis of the plan on simulated data set ``index``."""
+    plan = task.plan
+    failed = _failed_whole(plan, index)
+    try:
+        tables = simulated_tables(task, index)
+        check_tables(plan, tables)
+        jobs = [salted(job, task.salt(index)) for job in compile_jobs(plan, tables)]
+    except PlanrunnerError as exc:
+        return failed(str(exc))
+    results: list[Any] = []
+    failures: list[str | None] = []
+    for job in jobs:
+        try:
+            results.append(execute(job))
+            failures.append(None)
+        except PlanrunnerError as exc:
+            results.append(None)
+            failures.append(str(exc))
+    try:
+        max_t = max_t_families(plan, jobs, salt=task.salt(index)) if not any(failures) else {}
+    except PlanrunnerError as exc:
+        return failed(str(exc))
+    return DatasetOutcome(index, outcomes_of(plan, jobs, results, failures, max_t))
+
+
+def _failed_whole(plan: Plan, index: int) -> Callable[[str], DatasetOutcome]:
+    return lambda message: DatasetOutcome(index, tuple(AnalysisOutcome(failure=message) for _ in plan.analyses))
+
+
+def outcomes_of(plan: Plan, jobs: Sequence[Job], results: Sequence[Any], failures: Sequence[str | None],
+                max_t: Mapping[int, Any]) -> tuple[AnalysisOutcome, ...]:
+    """Each analysis's numbers as the record states them (its adapter, families and decision),
+    without building the record: the estimate, the intervals, the p-value, the verdict."""
+    bins = plan.report.bins
+    fields = {a.id: method_fields(r, j, bins) for a, j, r in zip(plan.analyses, jobs, results) if r is not None}
+    families = (family_fields(plan, fields, dict(max_t))
+                if all(f is None for f in failures) and plan.multiplicity else [])
+    out = []
+    for analysis, job, result, failure in zip(plan.analyses, jobs, results, failures):
+        if failure is not None:
+            out.append(AnalysisOutcome(failure=failure))
+            continue
+        mine = fields[analysis.id]
+        adjusted = [a["p_value"] for family in families for a in family.for_member(analysis.id)[0]]
+        family_warnings = [w["code"] for family in families for w in family.for_member(analysis.id)[1]]
+        decision = decision_entry(analysis, plan, mine, result)
+        out.append(AnalysisOutcome(
+            estimate=mine.estimate,
+            intervals=tuple(_interval(i) for i in mine.intervals),
+            p_value=mine.p_value,
+            adjusted_p_value=adjusted[0] if adjusted else None,
+            rejected=rejects(analysis, plan, mine.p_value, mine.intervals),
+            verdict=None if decision is None else decision["verdict"],
+            warnings=tuple(w.code for w in (*job.warnings, *result.warnings)) + tuple(family_warnings)))
+    return tuple(out)
+
+
+def _interval(entry: Mapping[str, Any]) -> IntervalOutcome:
+    side = entry["side"]
+    lower, upper = entry["lower"], entry["upper"]
+    formed = (lower is not None or side == "upper") and (upper is not None or side == "lower")
+    return IntervalOutcome(entry["method"], float(entry["level"]), side, lower, upper, formed)
+
+
+def alpha_of(analysis: Any, plan: Plan) -> float:
+    """The level at which an analysis rejects its null: 1 − its confidence (or the plan's)."""
+    return round(1.0 - (getattr(analysis, "confidence", None) or plan.defaults.confidence), 12)
+
+
+def tested_null(analysis: Any) -> float | None:
+    """The null an interval is read against: the analysis's `null_value`, else the statistic's
+    no-effect value (0 for a difference, 1 for a ratio); None when it has none."""
+    own = getattr(analysis, "null_value", None)
+    return float(own) if own is not None else null_value(analysis.statistic)
+
+
+def rejects(analysis: Any, plan: Plan, p_value: float | None,
+            intervals: Sequence[Mapping[str, Any]]) -> bool | None:
+    """Whether the analysis rejects its null at α = 1 − confidence: p ≤ α when it gives a p-value;
+    else when its pre-specified interval (or one-sided bound) leaves out the null value (the
+    interval at confidence c is the set of nulls a test at α = 1 − c keeps). None when it gives
+    neither (a jackknife, a statistic with no null value) or the interval was not formed."""
+    if p_value is not None:
+        return p_value <= alpha_of(analysis, plan)
+    null = tested_null(analysis)
+    if null is None or not intervals:
+        return None
+    first = _interval(intervals[0])
+    if not first.formed:
+        return None
+    below = first.upper is not None and first.upper < null
+    above = first.lower is not None and first.lower > null
+    return below or above
+
+
+# --- spreading the data sets over workers ----------------------------------------------------------
+
+def chunks(total: int, workers: int) -> list[tuple[int, int]]:
+    """Consecutive index ranges: a few per worker, none longer than MAX_CHUNK (they only group the
+    work; every data set is computed alone, so the ranges never change a number)."""
+    count = max(1, min(total, max(CHUNKS_PER_WORKER * workers, math.ceil(total / MAX_CHUNK))))
+    edges = np.linspace(0, total, count + 1).round().astype(int)
+    return [(int(a), int(b)) for a, b in zip(edges[:-1], edges[1:]) if b > a]
+
+
+def run_chunk(task: SimulationTask, start: int, stop: int) -> list[DatasetOutcome]:
+    with np.errstate(all="ignore"):
+        return [run_dataset(task, index) for index in range(start, stop)]
+
+
+def run_scenario(task: SimulationTask, replicates: int, *, execution: Execution | None = None,
+                 progress: Progress | None = None, pool: Any = None) -> list[DatasetOutcome]:
+    """Every data set of one scenario, in index order. ``pool`` is an open `WorkerPool` (made by
+    `worker_pool` for the whole simulation, so workers start once); None runs serially here."""
+    execution = execution or Execution()
+    done = 0
+    out: list[DatasetOutcome] = []
+    if progress is not None:
+        progress(0, replicates)
+    for part in (pool.map(task, chunks(replicates, execution.workers)) if pool is not None
+                 else (run_chunk(task, a, b) for a, b in chunks(replicates, 1))):
+        out.extend(part)
+        done += len(part)
+        if progress is not None:
+            progress(done, replicates)
+    return out
+
+
+class WorkerPool:
+    """The chunks of a scenario on threads, processes or dask; results in chunk order."""
+
+    def __init__(self, execution: Execution):
+        self.execution = execution
+        self._pool: Any = None
+        self._client: Any = None
+        self._cluster: Any = None
+
+    def __enter__(self) -> WorkerPool:
+        kind = self.execution.executor
+        if kind == "threads":
+            from concurrent.futures import ThreadPoolExecutor
+            self._pool = ThreadPoolExecutor(max_workers=self.execution.workers, thread_name_prefix="planrunner-sim")
+        elif kind == "processes":
+            import multiprocessing
+
+            from planrunner.execute.executors import ignore_interrupts
+            self._pool = multiprocessing.get_context("spawn").Pool(self.execution.workers,
+                                                                   initializer=ignore_interrupts)
+        elif kind == "dask":
+            from planrunner.execute.executors import dask_client
+            self._client, self._cluster = dask_client(self.execution)
+        return self
+
+    def map(self, task: SimulationTask, ranges: list[tuple[int, int]]) -> Iterator[list[DatasetOutcome]]:
+        kind = self.execution.executor
+        if kind == "threads":
+            futures = [self._pool.submit(run_chunk, task, a, b) for a, b in ranges]
+            return (f.result() for f in futures)
+        if kind == "processes":
+            waiting = [self._pool.apply_async(run_chunk, (task, a, b)) for a, b in ranges]
+            return (w.get() for w in waiting)
+        if kind == "dask":
+            shared = self._client.scatter(task, broadcast=True, hash=False)
+            futures = [self._client.submit(run_chunk, shared, a, b, pure=False) for a, b in ranges]
+            return (f.result() for f in futures)
+        return (run_chunk(task, a, b) for a, b in ranges)
+
+    def __exit__(self, *exc: object) -> None:
+        if self._pool is not None and self.execution.executor == "threads":
+            self._pool.shutdown(wait=True, cancel_futures=True)
+        elif self._pool is not None:
+            self._pool.terminate()  # after an error or an interrupt: no worker outlives the simulation
+            self._pool.join()
+            import multiprocessing
+            multiprocessing.active_children()
+        if self._client is not None:
+            self._client.close()
+        if self._cluster is not None:
+            self._cluster.close()
+            import multiprocessing
+            multiprocessing.active_children()
