@@ -1,4 +1,4 @@
-"""Simulated operating characteristics against outside values (docs/VALIDATION.md, V-SIM-*).
+"""Simulated operating characteristics against outside values (docs/VALIDATION.md: the simulation cases).
 
 Each check runs the plan's own analyses on data sets drawn in the test (the runner of
 planrunner/simulate/run.py, as `planrunner simulate` runs them) and compares the simulated share

@@ -8,7 +8,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from planrunner.data.tables import table_from_columns
+from planrunner.data.columns import table_from_columns
 from planrunner.errors import DataError
 from planrunner.execute.executors import Execution
 from planrunner.pipeline.run import load_plan

@@ -24,7 +24,8 @@ import numpy as np
 
 from planrunner.compile.jobs import Job, compile_jobs
 from planrunner.data.checks import check_tables
-from planrunner.data.tables import Table, table_from_columns
+from planrunner.data.columns import table_from_columns
+from planrunner.data.tables import Table
 from planrunner.engines.statistics import null_value
 from planrunner.engines.streams import Stream, analysis_key
 from planrunner.errors import PlanrunnerError

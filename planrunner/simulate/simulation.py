@@ -112,7 +112,7 @@ def simulate_plan(plan_path: str | Path, scenarios_path: str | Path, *, out: str
         results = [_scenario_entry(plan, scenarios.seed, s, execution, pool, progress) for s in scenarios.scenarios]
         search = None if scenarios.search is None else _search(plan, scenarios, execution, pool, progress)
     finished = clock()
-    body = {
+    body: dict[str, Any] = {
         "format": FORMAT,
         "title": scenarios.title,
         "started_utc": _stamp(started),
@@ -129,9 +129,10 @@ def simulate_plan(plan_path: str | Path, scenarios_path: str | Path, *, out: str
         "search": search,
         "caution": CAUTION,
     }
-    document = {**body, HASH_FIELD: self_hash(body, HASH_FIELD)}
+    digest = self_hash(body, HASH_FIELD)
+    document = {**body, HASH_FIELD: digest}
     root = Path(out) if out is not None else loaded.folder / "simulations"
-    name = f"{plan.plan}-simulation-{started.strftime('%Y%m%dT%H%M%SZ')}-{document[HASH_FIELD][:8]}"
+    name = f"{plan.plan}-simulation-{started.strftime('%Y%m%dT%H%M%SZ')}-{digest[:8]}"
     return SimulationOutcome(write_simulation(root, name, document), document)
 
 
