@@ -117,7 +117,7 @@ def _method_sentence(a: dict[str, Any]) -> str:
         tested = "" if not null else (
             f" The {sided} p-value of the null value {null['null_value']:g} was obtained by the bootstrap-t with "
             f"the null imposed (resamples drawn from the fit whose target coefficient is fixed at the null value, "
-            f"each studentized by its robust standard error; Cameron, Gelbach & Miller 2008): the {null['rule']}."
+            f"each studentized by its robust standard error): the {null['rule']}."
             if imposed else
             f" The {sided} p-value of the null value "
             f"{null['null_value']:g} was obtained by inverting the one-sided "
@@ -126,7 +126,12 @@ def _method_sentence(a: dict[str, Any]) -> str:
             + (", doubling the smaller one-sided p-value." if a.get("alternative") == "two-sided" else "."))
         computed = ("no interval was computed, since the replicates are drawn under the null" if imposed
                     else f"{intervals} were computed{chosen}")
-        return (f"{lead} estimated {what} and its uncertainty by the nonparametric bootstrap "
+        formula = (a.get("details") or {}).get("standard_error_formula")
+        model = "model" in (a.get("details") or {}) and formula is not None
+        if model and "studentized" in listed and not imposed:
+            computed += f" (each resample, and the data, studentized by the {formula} standard error)"
+        kind = "the bootstrap of the fitted model" if model else "the nonparametric bootstrap"
+        return (f"{lead} estimated {what} and its uncertainty by {kind} "
                 f"(scheme: {a['scheme']}) with {a['resamples']} resamples; the standard error is the standard "
                 f"deviation of the replicates, and {computed}.{tested}")
     if a["method"] == "permutation":
