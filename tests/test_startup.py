@@ -70,7 +70,7 @@ def test_the_probe_sees_the_libraries_a_run_needs(tmp_path):
 DEMO_DIGESTS = {
     "liner-trial": "3e2c3364bdb18d0711873da7559ff40fb48876fa94ac19d5ff63203a6ee826a1",
     "monthly-fill": "bcbd1d77264f264e966f7ee0714dba0704008da94a790353dbbe1cd97ae0c32a",
-    "orchard-irrigation": "433c26307956f2638ade629718c0910b6506a71dd47ceec8c99cbc2ba48eea15",
+    "orchard-irrigation": "1b06df03ac88daac4fd08d9d92e78bd56c2c5049521db9c1289c82444d6fcea3",
     "seal-endurance": "af03d378adc6fd3ec48ecbd1d1b88fa3934272791ed49ca482607206617e164b",
     "ward-hygiene": "090737b21a180537084ef529bef37f492c774623d5baf22e78180b07386a396c",
 }
