@@ -242,7 +242,8 @@ def _column_problems(at: Path_, name: str, cm: ColumnModel, model: DatasetModel,
     base = cm.model.parameters()
     out += _parameter_problems(at + ("model",), family, base, complete=True)
     out += _by_group_problems(at + ("by_group",), family, cm, model, levels_ok)
-    out += _support_problems(at + ("model", "family"), family, base, column, name)
+    out += _support_problems(at + ("model", "family"), family, [base, *({**base, **g} for g in cm.by_group.values())],
+                             column, name)
     for covariate in cm.covariates:
         if covariate == name:
             out.append(Problem(at + ("covariates", covariate), "a column cannot be its own covariate", at_key=True))
@@ -299,9 +300,11 @@ def _by_group_problems(at: Path_, family: Family, cm: ColumnModel, model: Datase
     return out
 
 
-def _support_problems(at: Path_, family: Family, base: dict[str, float], column: Column, name: str) -> list[Problem]:
-    """A family whose values can leave the column's declared [min, max] would make data the plan refuses."""
-    low, high = family.lowest, highest(family, base)
+def _support_problems(at: Path_, family: Family, parameters: list[dict[str, float]], column: Column,
+                      name: str) -> list[Problem]:
+    """A family whose values can leave the column's declared [min, max] would make data the plan refuses
+    (`parameters`: the model's, and each group's)."""
+    low, high = family.lowest, max(highest(family, p) for p in parameters)
     out = []
     if column.min is not None and low < column.min:
         out.append(Problem(at, f"a {family.name} model can give values below column '{name}''s declared min "
