@@ -159,6 +159,10 @@ CASES = [
     (FULL, "by_group: {active: {mean: 11}}}", "by_group: {active: {mean: 11}}, covariates: {level: 1}}", "level: 1",
      "the covariates go round in a circle"),
     (FULL, "        event: seen\n", "", "censoring:", "censoring needs the event column it fills"),
+    (FULL, "low: 10, high: 300", "low: 10, hihg: 300", "hihg", "unknown key 'hihg' (did you mean 'high'?)"),
+    (FULL, "low: 10, high: 300", "low: 10, high: 300, rate: 1", "rate", "uniform censoring takes no rate"),
+    (FULL, "low: 10, high: 300", "low: 10", "censoring:", "uniform censoring needs high"),
+    (FULL, "low: 10, high: 300", "low: 300, high: 10", "high: 10", "high (10) must be above low (300)"),
     (FULL, "event: seen", "event: unit", "event: unit", "column 'unit' is of type text, which cannot hold an event "
      "indicator"),
     (FULL, "{family: bernoulli, p: 0.3}}", "{family: bernoulli, p: 0.3}, censoring: {family: exponential, rate: 1}}",

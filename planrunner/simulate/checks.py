@@ -266,19 +266,22 @@ def _column_problems(at: Path_, name: str, cm: ColumnModel, model: DatasetModel,
 
 def _parameter_problems(at: Path_, family: Family, parameters: Mapping[str, float], *,
                         complete: bool) -> list[Problem]:
-    out = []
+    out = _keys_problems(at, f"a {family.name} model", family.parameters, parameters, complete=complete)
     for key, value in parameters.items():
-        if key not in family.parameters:
-            out.append(Problem(at + (key,), f"a {family.name} model takes no {key}",
-                               did_you_mean(key, family.parameters) or f"it takes {', '.join(family.parameters)}",
-                               at_key=True))
-            continue
-        problem = parameter_problem(family, key, value)
+        problem = parameter_problem(family, key, value) if key in family.parameters else None
         if problem is not None:
             out.append(Problem(at + (key,), *problem))
-    missing = [k for k in family.parameters if k not in parameters]
+    return out
+
+
+def _keys_problems(at: Path_, owner: str, wanted: tuple[str, ...], given: Mapping[str, float], *,
+                   complete: bool) -> list[Problem]:
+    """Parameters that `owner` does not take, and (when `complete`) those it needs but lacks."""
+    out = [Problem(at + (key,), f"{owner} takes no {key}", did_you_mean(key, wanted) or f"it takes {', '.join(wanted)}",
+                   at_key=True) for key in given if key not in wanted]
+    missing = [k for k in wanted if k not in given]
     if complete and missing:
-        out.append(Problem(at, f"a {family.name} model needs {' and '.join(missing)}",
+        out.append(Problem(at, f"{owner} needs {' and '.join(missing)}",
                            f"add {', '.join(f'{k}: VALUE' for k in missing)}"))
     return out
 
@@ -323,15 +326,9 @@ def _censoring_problems(at: Path_, family: Family, cm: ColumnModel, columns: Map
         if not family.survival:
             out.append(Problem(at + ("censoring",), f"censoring cuts a positive time ({survival}), not a "
                                f"{family.name} value", "remove censoring", at_key=True))
-        wanted = CENSORING_PARAMETERS[cm.censoring.family]
         given = cm.censoring.parameters()
-        for key in given:
-            if key not in wanted:
-                out.append(Problem(at + ("censoring", key), f"{cm.censoring.family} censoring takes no {key}",
-                                   f"it takes {' and '.join(wanted)}", at_key=True))
-        missing = [k for k in wanted if k not in given]
-        if missing:
-            out.append(Problem(at + ("censoring",), f"{cm.censoring.family} censoring needs {' and '.join(missing)}"))
+        out += _keys_problems(at + ("censoring",), f"{cm.censoring.family} censoring",
+                              CENSORING_PARAMETERS[cm.censoring.family], given, complete=True)
         problem = censoring_problem(cm.censoring.family, given)
         if problem is not None:
             out.append(Problem(at + ("censoring", problem[0]), problem[1], problem[2]))
