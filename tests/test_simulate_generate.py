@@ -307,3 +307,18 @@ def test_a_location_beyond_the_numbers_range_is_refused_by_name():
              "y": ColumnModel(model=Distribution(family="lognormal", meanlog=0, sdlog=1), covariates={"x": 1.0})}
     with pytest.raises(PlanError, match="column 'y' gives values that are not finite"):
         _generate(Rows(count=10), model, _dataset(x="number", y="number"))
+
+
+def test_effects_per_stratum_move_the_location_of_their_rows():
+    rows = Rows(groups=GroupRows(column="arm", sizes={"a": 20_000, "b": 20_000}),
+                strata=StrataRows(column="depot", shares={"north": 0.5, "south": 0.5}))
+    dataset = Dataset(file="x.csv", columns={"arm": Column(type="category", levels=["a", "b"]),
+                                             "depot": Column(type="category", levels=["north", "south"]),
+                                             "y": Column(type="number")})
+    model = {"y": ColumnModel(model=Distribution(family="normal", mean=10, sd=2), by_group={"b": {"mean": 11}},
+                              covariates={"depot": {"south": -3.0}})}
+    out = _generate(rows, model, dataset)
+    for arm, mean in (("a", 10.0), ("b", 11.0)):
+        for depot, shift in (("north", 0.0), ("south", -3.0)):
+            cell = out["y"][(out["arm"] == arm) & (out["depot"] == depot)]
+            assert abs(cell.mean() - (mean + shift)) < 4 * 2 / np.sqrt(cell.size)  # V-TOL

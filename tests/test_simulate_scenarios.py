@@ -89,6 +89,12 @@ def test_a_good_file_reads_with_each_scenarios_changes_applied(tmp_path, plan):
     assert null.replicates == 200 and len(file.sha256) == 64
 
 
+def test_effects_per_level_of_strata_read(tmp_path, plan):
+    text = GOOD.replace("mean: 11}}}", "mean: 11}}, covariates: {site: {b: 1.5}, arm: {active: 0.5}}}")
+    score = _load(tmp_path, plan, text).scenarios[1].datasets["trial"].columns["score"]
+    assert score.covariates == {"site": {"b": 1.5}, "arm": {"active": 0.5}}
+
+
 def test_with_group_sizes_sets_every_group(tmp_path, plan):
     scenario = _load(tmp_path, plan, GOOD).scenarios[1].with_group_sizes(45)
     assert scenario.datasets["trial"].rows.groups.sizes == {"control": 45, "active": 45}
@@ -201,6 +207,9 @@ CASES = [
     (FULL, "      clusters:", "      count: 60\n      clusters:", "count: 60", "give either count (rows in all) or "
      "groups"),
     (GOOD, "c: 0.25}", "c: 0.15}", "strata:", "the shares add up to 0.9, not 1"),
+    (GOOD, "mean: 11}}}", "mean: 11}}, covariates: {site: {d: 1}}}", "covariates", "'d' is not a level of rows.strata"),
+    (GOOD, "mean: 11}}}", "mean: 11}}, covariates: {flag: {a: 1}}}", "covariates",
+     "effects per level apply to the column of rows.groups or rows.strata, not 'flag'"),
     (GOOD, "{control: 30, active: 30}", "{control: 600000, active: 600000}", "groups:",
      "1,200,000 rows in all, more than a simulated data set may have (1,000,000)"),
     (GOOD, "  trial:\n", "  trail:\n", "trail:", "the plan has no dataset 'trail' (did you mean 'trial'?)"),

@@ -301,6 +301,7 @@ TRACE: dict[str, tuple[str, ...]] = {
         SIMGEN + "test_clustered_bernoulli_keeps_p_and_poisson_is_negative_binomial",
         SIMGEN + "test_weibull_censoring_share_is_its_exact_integral",
         SIMGEN + "test_covariates_move_the_location_on_each_familys_scale",
+        SIMGEN + "test_effects_per_stratum_move_the_location_of_their_rows",
         SIMGEN + "test_rows_layout_groups_strata_clusters_and_pairs",
         SIMGEN + "test_largest_remainder_keeps_each_count_within_one_of_its_quota",
         SIMGEN + "test_unused_columns_get_documented_fillers",

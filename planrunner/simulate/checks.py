@@ -24,7 +24,7 @@ from planrunner.simulate.families import (
     highest,
     parameter_problem,
 )
-from planrunner.simulate.schema import MAX_ROWS, ColumnModel, DatasetModel, Rows, ScenariosSchema
+from planrunner.simulate.schema import MAX_ROWS, ColumnModel, DatasetModel, GroupRows, Rows, ScenariosSchema
 
 ID_TYPES = ("text", "integer")  # cluster and pair identifiers
 DESIGN_ROLES = ("groups", "strata", "pairs", "clusters", "order")  # a text column here cannot be an id
@@ -244,13 +244,7 @@ def _column_problems(at: Path_, name: str, cm: ColumnModel, model: DatasetModel,
     out += _by_group_problems(at + ("by_group",), family, cm, model, levels_ok)
     out += _support_problems(at + ("model", "family"), family, [base, *({**base, **g} for g in cm.by_group.values())],
                              column, name)
-    for covariate in cm.covariates:
-        if covariate == name:
-            out.append(Problem(at + ("covariates", covariate), "a column cannot be its own covariate", at_key=True))
-        elif covariate not in model.columns:
-            out.append(Problem(at + ("covariates", covariate), f"'{covariate}' is not a modelled column of the dataset",
-                               did_you_mean(covariate, model.columns) or "a covariate must have a model itself",
-                               at_key=True))
+    out += _covariate_problems(at + ("covariates",), name, cm, model)
     out += _censoring_problems(at, family, cm, columns, filled, model)
     icc = cm.icc if cm.icc is not None else (model.rows.clusters.icc if model.rows.clusters else 0.0)
     if cm.icc is not None and model.rows.clusters is None:
@@ -261,6 +255,32 @@ def _column_problems(at: Path_, name: str, cm: ColumnModel, model: DatasetModel,
         clustered = ", ".join(f.name for f in FAMILIES.values() if f.clustered)
         out.append(Problem(at + ("model", "family"), f"a cluster effect is defined for {clustered} columns, "
                            f"not {family.name}", "give this column icc: 0"))
+    return out
+
+
+def _covariate_problems(at: Path_, name: str, cm: ColumnModel, model: DatasetModel) -> list[Problem]:
+    """A number effect needs a modelled column; effects per level need the column of groups or strata."""
+    out = []
+    filled = rows_columns(model.rows)
+    for covariate, effect in cm.covariates.items():
+        if isinstance(effect, dict):
+            part = filled.get(covariate)
+            rows_part = model.rows.groups if part == "groups" else model.rows.strata if part == "strata" else None
+            if rows_part is None:
+                out.append(Problem(at + (covariate,), f"effects per level apply to the column of rows.groups or "
+                                   f"rows.strata, not '{covariate}'", "give a modelled column one effect",
+                                   at_key=True))
+                continue
+            levels = rows_part.sizes if isinstance(rows_part, GroupRows) else rows_part.shares
+            out += [Problem(at + (covariate, level), f"'{level}' is not a level of rows.{part}",
+                            did_you_mean(level, levels) or f"levels: {', '.join(levels)}", at_key=True)
+                    for level in effect if level not in levels]
+        elif covariate == name:
+            out.append(Problem(at + (covariate,), "a column cannot be its own covariate", at_key=True))
+        elif covariate not in model.columns:
+            out.append(Problem(at + (covariate,), f"'{covariate}' is not a modelled column of the dataset",
+                               did_you_mean(covariate, model.columns) or "a covariate must have a model itself",
+                               at_key=True))
     return out
 
 
@@ -347,7 +367,7 @@ def _censoring_problems(at: Path_, family: Family, cm: ColumnModel, columns: Map
 
 def _cycle_problems(at: Path_, model: DatasetModel) -> list[Problem]:
     """Covariates must not depend on each other in a circle (a column is drawn after its covariates)."""
-    graph = {name: [c for c in cm.covariates if c in model.columns and c != name]
+    graph = {name: [c for c, e in cm.covariates.items() if c in model.columns and c != name and not isinstance(e, dict)]
              for name, cm in model.columns.items()}
     state: dict[str, int] = {}
     out: list[Problem] = []

@@ -69,7 +69,7 @@ def draw_order(model: DatasetModel) -> list[str]:
     done: list[str] = []
     pending = sorted(model.columns)
     while pending:
-        ready = [n for n in pending if all(c in done for c in model.columns[n].covariates)]
+        ready = [n for n in pending if all(c in done for c in model.columns[n].covariates if c in model.columns)]
         if not ready:  # a circle, which the checks refuse before any draw
             raise ValueError(f"the covariates of {', '.join(pending)} go round in a circle")
         done.append(ready[0])
@@ -186,7 +186,7 @@ def _typed(values: np.ndarray, column: Column) -> np.ndarray:
 
 # --- one column -----------------------------------------------------------------------------------
 
-def row_parameters(spec: ColumnModel, layout: Layout, drawn: Mapping[str, np.ndarray]) -> Parameters:
+def row_parameters(spec: ColumnModel, layout: Layout, rows: Rows, drawn: Mapping[str, np.ndarray]) -> Parameters:
     """Each parameter per row: the model's, a group's override, then the covariates on the location."""
     family = FAMILIES[spec.model.family]
     parameters = {k: np.full(layout.rows, v) for k, v in spec.model.parameters().items()}
@@ -197,9 +197,20 @@ def row_parameters(spec: ColumnModel, layout: Layout, drawn: Mapping[str, np.nda
     if spec.covariates:
         predictor = np.zeros(layout.rows)
         for name, effect in sorted(spec.covariates.items()):
-            predictor += effect * drawn[name].astype(float)
+            predictor += (_level_effects(name, effect, layout, rows) if isinstance(effect, dict)
+                          else effect * drawn[name].astype(float))
         parameters[family.location] = _moved(family, parameters[family.location], predictor)
     return parameters
+
+
+def _level_effects(column: str, effects: Mapping[str, float], layout: Layout, rows: Rows) -> np.ndarray:
+    """Each row's effect of its group's or stratum's level (0 for a level not listed)."""
+    if rows.groups is not None and rows.groups.column == column:
+        levels, index = layout.group_levels, layout.group
+    else:
+        levels, index = layout.strata_levels, layout.stratum
+    assert index is not None
+    return np.array([effects.get(level, 0.0) for level in levels])[index]
 
 
 def _moved(family: Family, location: np.ndarray, predictor: np.ndarray) -> np.ndarray:
@@ -218,7 +229,7 @@ def draw_column(name: str, spec: ColumnModel, layout: Layout, rows: Rows, drawn:
                 rng: np.random.Generator) -> tuple[np.ndarray, np.ndarray | None]:
     """The column's values, and (with censoring) whether each time was observed."""
     family = FAMILIES[spec.model.family]
-    parameters = row_parameters(spec, layout, drawn)
+    parameters = row_parameters(spec, layout, rows, drawn)
     icc = spec.icc if spec.icc is not None else (rows.clusters.icc if rows.clusters is not None else 0.0)
     if rows.pairs is not None and rows.pairs.correlation != 0:
         values = from_scores(family, parameters, _paired_scores(layout, rows.pairs.correlation, rng))

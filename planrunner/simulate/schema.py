@@ -46,7 +46,9 @@ class Censoring(Strict):
 class ColumnModel(Strict):
     model: Distribution
     by_group: dict[str, dict[str, Number]] = Field(default_factory=dict)  # level → parameters that differ
-    covariates: dict[ColumnName, Number] = Field(default_factory=dict)  # column → effect on the location
+    # column → effect on the location: a number (times a modelled column's value), or per level
+    # {LEVEL: EFFECT} of the column rows.groups or rows.strata fills (levels left out: 0)
+    covariates: dict[ColumnName, Number | dict[str, Number]] = Field(default_factory=dict)
     censoring: Censoring | None = None
     event: ColumnName | None = None  # the plan's 0/1 column saying whether the time was observed
     icc: Number | None = None  # this column's own intraclass correlation (else rows.clusters.icc)
