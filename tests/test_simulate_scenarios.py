@@ -207,6 +207,12 @@ CASES = [
     (FULL, "      clusters:", "      count: 60\n      clusters:", "count: 60", "give either count (rows in all) or "
      "groups"),
     (GOOD, "c: 0.25}", "c: 0.15}", "strata:", "the shares add up to 0.9, not 1"),
+    (GOOD, "mean: 11}}}", "mean: 11}}, covariates: {flag: x}}", "covariates",
+     "datasets.trial.columns.score.covariates.flag: must be a number (got 'x')"),
+    (GOOD, "mean: 11}}}", "mean: 11}}, covariates: {site: {b: x}}}", "covariates",
+     "datasets.trial.columns.score.covariates.site.b: must be a number (got 'x')"),
+    (GOOD, "active.mean: 10}", "active.mean: ten}", "change:",
+     "in scenario 'no-difference', datasets.trial.columns.score.by_group.active.mean: must be a number"),
     (GOOD, "mean: 11}}}", "mean: 11}}, covariates: {site: {d: 1}}}", "covariates", "'d' is not a level of rows.strata"),
     (GOOD, "mean: 11}}}", "mean: 11}}, covariates: {flag: {a: 1}}}", "covariates",
      "effects per level apply to the column of rows.groups or rows.strata, not 'flag'"),

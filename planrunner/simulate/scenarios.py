@@ -83,11 +83,11 @@ def load_scenarios(path: str | Path, plan: Plan) -> ScenarioFile:
             continue
         at = ("scenarios", i)
         try:
-            models = {n: DatasetModel.model_validate(d) for n, d in datasets.items()}
+            models = _DATASETS.validate_python(datasets)
         except pydantic.ValidationError as exc:
-            errors = [problem_from_pydantic(e, {"datasets": datasets}, ScenariosSchema) for e in exc.errors()]
-            problems += _located_in_scenario(
-                [replace(p, path=("datasets", *p.path)) for p in errors], changed, at, spec.name, in_base)
+            errors = [{**e, "loc": ("datasets", *e["loc"])} for e in exc.errors()]
+            problems += _located_in_scenario(_pydantic_problems(errors, {"datasets": datasets}), changed, at,
+                                             spec.name, in_base)
             continue
         problems += _located_in_scenario(scenario_problems(models, plan), changed, at, spec.name, in_base)
         scenarios.append(Scenario(name=spec.name, replicates=spec.replicates, datasets=models,
@@ -103,8 +103,34 @@ def _validated(data: dict, loaded: LoadedYaml, shown: str) -> ScenariosSchema:
     try:
         return ScenariosSchema.model_validate(data)
     except pydantic.ValidationError as exc:
-        problems = [problem_from_pydantic(err, data, ScenariosSchema) for err in exc.errors()]
+        problems = _pydantic_problems(list(exc.errors()), data)
         raise PlanError("the scenarios file is not valid", problems=format_problems(problems, loaded, shown)) from None
+
+
+_DATASETS = pydantic.TypeAdapter(dict[str, DatasetModel])
+
+
+def _pydantic_problems(errors: list[Any], data: dict) -> list[Problem]:
+    """pydantic's errors in the plan's words. A covariate's effect is a number or a mapping of levels
+    to numbers; pydantic tries both and names each try in the location (`float`, `dict[str,float]`):
+    only the try that matches what was written is kept, without its name."""
+    problems = []
+    for err in errors:
+        loc = tuple(err["loc"])
+        if "covariates" in loc[:-2]:
+            cut = loc.index("covariates") + 2
+            written = _value_at(data, loc[:cut])
+            if (loc[cut] == "float") == isinstance(written, dict):
+                continue
+            err = {**err, "loc": loc[:cut] + loc[cut + 1:]}
+        problems.append(problem_from_pydantic(err, data, ScenariosSchema))
+    return problems
+
+
+def _value_at(data: Any, path: tuple) -> Any:
+    for part in path:
+        data = data.get(part) if isinstance(data, dict) else None
+    return data
 
 
 # --- a scenario's changes -------------------------------------------------------------------------
