@@ -92,6 +92,12 @@ def test_simulate_writes_a_hashed_document_and_both_reports(files, tmp_path, cap
     assert sum(v["count"] for v in primary["verdicts"].values()) == 6
     search = document["search"]
     assert [p["size"] for p in search["points"]] == [5, 15]
+    # the stated rule: the smallest size whose point estimate (and, apart, whose lower bound) reaches the target
+    rates = {p["size"]: p["power"] for p in search["points"]}
+    assert all(p["power"]["of"] == 6 for p in search["points"])
+    assert search["smallest_size"] == min((n for n, p in rates.items() if p["rate"] >= 0.5), default=None)
+    assert search["smallest_size_lower_bound"] == min((n for n, p in rates.items() if p["interval"][0] >= 0.5),
+                                                      default=None)
     html = (folder / "simulation.html").read_text(encoding="utf-8")
     assert "Caution." in html and "<svg" in html and "regulations" in html
     assert (folder / "figures" / "power.svg").read_text(encoding="utf-8").startswith("<?xml")

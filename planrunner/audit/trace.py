@@ -13,6 +13,8 @@ import re
 AUDIT, SIGN, CLI = "tests/test_audit.py::", "tests/test_signatures.py::", "tests/test_cli.py::"
 QUALIFY = "tests/test_qualify.py::"
 SIMFILE, SIMGEN = "tests/test_simulate_scenarios.py::", "tests/test_simulate_generate.py::"
+SIMRUN, SIMCLI, SIMCHECK = ("tests/test_simulate_run.py::", "tests/test_simulate_cli.py::",
+                            "tests/test_simulate_checks.py::")
 
 TRACE: dict[str, tuple[str, ...]] = {
     "planrunner": (CLI + "test_demo_plan_runs_and_writes_three_files",
@@ -306,12 +308,35 @@ TRACE: dict[str, tuple[str, ...]] = {
         SIMGEN + "test_largest_remainder_keeps_each_count_within_one_of_its_quota",
         SIMGEN + "test_unused_columns_get_documented_fillers",
         SIMGEN + "test_same_generator_gives_the_same_bytes_and_column_order_changes_nothing"),
+    "Running a simulation": (
+        SIMCLI + "test_simulate_writes_a_hashed_document_and_both_reports",
+        SIMCLI + "test_every_executor_writes_the_same_numbers",
+        SIMCLI + "test_an_interrupt_leaves_no_folder",
+        SIMCLI + "test_bad_input_gets_one_located_message",
+        SIMCLI + "test_the_scenarios_file_is_required",
+        SIMRUN + "test_a_table_from_columns_passes_through_derive_rows_where_and_sets",
+        SIMRUN + "test_a_column_outside_its_declaration_is_refused_with_its_rows",
+        SIMRUN + "test_a_data_set_an_analysis_cannot_use_is_counted_with_its_message",
+        SIMRUN + "test_every_executor_gives_the_same_outcomes",
+        SIMRUN + "test_data_sets_differ_and_repeat"),
+    "What a simulation reports": (
+        SIMCHECK + "test_power_of_a_permutation_test_matches_the_noncentral_t",
+        SIMCHECK + "test_type_i_error_of_a_permutation_test_is_alpha",
+        SIMCHECK + "test_coverage_of_the_percentile_interval_for_a_normal_mean",
+        SIMCHECK + "test_binomial_power_equals_the_exact_power_of_fisher_s_test",
+        SIMCHECK + "test_shares_carry_the_exact_clopper_pearson_interval",
+        "tests/test_simulate_truth.py::test_differences_and_ratios_of_each_family_equal_scipy",
+        "tests/test_simulate_truth.py::test_discrete_means_equal_scipy_and_their_medians_are_not_defined",
+        "tests/test_simulate_truth.py::test_a_filter_on_the_outcome_or_covariates_leave_the_true_value_undefined"),
+    "The sample-size search": (SIMCLI + "test_simulate_writes_a_hashed_document_and_both_reports",),
 }
 
 NO_PROMISE: dict[str, str] = {
     "Measured": "timings of one machine on one day; tests never assert timings "
                 "(benchmarks/compare_scipy.py measures them again)",
     "Development": "points to DEVELOPERS.md",
+    "Simulation speed": "timings of one machine under a stated load; tests never assert timings "
+                        "(benchmarks/simulate.py measures them again)",
 }
 
 _HEADING = re.compile(r"^(#{1,3}) (.+?)\s*$")

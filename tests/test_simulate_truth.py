@@ -1,0 +1,110 @@
+"""True values of a statistic under a scenario's model (planrunner/simulate/truth.py) against
+scipy.stats' own means and medians of each family, and the cases where none is defined."""
+
+from __future__ import annotations
+
+import math
+from pathlib import Path
+
+import pytest
+
+from planrunner.pipeline.run import load_plan
+from planrunner.simulate.scenarios import DatasetModel
+from planrunner.simulate.truth import true_value
+
+PLAN = """\
+plan: truth
+title: True values
+seed: 1
+datasets:
+  d:
+    file: d.csv
+    columns:
+      g: {type: category, levels: [a, b]}
+      y: {type: number, min: 0}
+      k: {type: integer, min: 0}
+      x: {type: number}
+    ROWS_WHERE
+analyses:
+  - {id: t, data: d, outcome: OUTCOME, groups: {by: g, compare: [a, b]}, statistic: STATISTIC,
+     method: jackknife, role: primary}
+"""
+
+
+def scipy_law(family: str, p: dict):
+    from scipy import stats
+
+    return {"normal": lambda: stats.norm(p["mean"], p["sd"]),
+            "lognormal": lambda: stats.lognorm(p["sdlog"], scale=math.exp(p["meanlog"])),
+            "gamma": lambda: stats.gamma(p["shape"], scale=p["scale"]),
+            "exponential": lambda: stats.expon(scale=p["mean"]),
+            "weibull": lambda: stats.weibull_min(p["shape"], scale=p["scale"]),
+            "bernoulli": lambda: stats.bernoulli(p["p"]),
+            "binomial": lambda: stats.binom(p["size"], p["p"]),
+            "poisson": lambda: stats.poisson(p["mean"])}[family]()
+
+
+def setup(tmp_path: Path, statistic: str, outcome: str = "y", rows_where: str = ""):
+    path = tmp_path / "plan.yaml"
+    text = PLAN.replace("STATISTIC", statistic).replace("OUTCOME", outcome)
+    path.write_text(text.replace("ROWS_WHERE", f'rows_where: "{rows_where}"' if rows_where else ""), encoding="utf-8")
+    return load_plan(path)[0].plan
+
+
+def model(column: str, family: dict, first: dict, **extra) -> dict:
+    return {"d": DatasetModel.model_validate({
+        "rows": {"groups": {"column": "g", "sizes": {"a": 10, "b": 30}}},
+        "columns": {column: {"model": family, "by_group": {"a": first}, **extra}}})}
+
+
+CASES = [
+    ({"family": "normal", "mean": 5.0, "sd": 2.0}, {"mean": 6.5}),
+    ({"family": "lognormal", "meanlog": 1.0, "sdlog": 0.7}, {"meanlog": 1.4}),
+    ({"family": "gamma", "shape": 2.5, "scale": 3.0}, {"scale": 2.0}),
+    ({"family": "exponential", "mean": 4.0}, {"mean": 6.0}),
+    ({"family": "weibull", "shape": 1.3, "scale": 200.0}, {"scale": 150.0}),
+]
+
+
+@pytest.mark.parametrize(("family", "first"), CASES)
+@pytest.mark.parametrize("statistic", ["mean_difference", "median_difference", "ratio_of_means"])
+def test_differences_and_ratios_of_each_family_equal_scipy(tmp_path, family, first, statistic):
+    plan = setup(tmp_path, statistic, outcome="x" if family["family"] == "normal" else "y")
+    column = "x" if family["family"] == "normal" else "y"
+    found = true_value(plan.analyses[0], plan, model(column, family, first))
+    law_a, law_b = scipy_law(family["family"], {**family, **first}), scipy_law(family["family"], family)
+    if statistic == "median_difference":
+        expected = law_a.median() - law_b.median()  # scipy reference
+    elif statistic == "ratio_of_means":
+        expected = law_a.mean() / law_b.mean()  # scipy reference
+    else:
+        expected = law_a.mean() - law_b.mean()  # scipy reference
+    assert found["value"] == pytest.approx(expected, rel=1e-12, abs=1e-12)
+
+
+@pytest.mark.parametrize(("family", "first"), [({"family": "binomial", "size": 12, "p": 0.3}, {"p": 0.5}),
+                                               ({"family": "poisson", "mean": 3.0}, {"mean": 4.5})])
+def test_discrete_means_equal_scipy_and_their_medians_are_not_defined(tmp_path, family, first):
+    plan = setup(tmp_path, "mean_difference", outcome="k")
+    found = true_value(plan.analyses[0], plan, model("k", family, first))
+    expected = scipy_law(family["family"], {**family, **first}).mean() - scipy_law(family["family"], family).mean()
+    assert found["value"] == pytest.approx(expected, rel=1e-12)  # scipy reference
+    median = setup(tmp_path, "median_difference", outcome="k")
+    assert true_value(median.analyses[0], median, model("k", family, first))["value"] is None
+
+
+def test_a_filter_on_the_outcome_or_covariates_leave_the_true_value_undefined(tmp_path):
+    lognormal = {"family": "lognormal", "meanlog": 1.0, "sdlog": 0.7}
+    plan = setup(tmp_path, "mean_difference", rows_where="y < 100")
+    found = true_value(plan.analyses[0], plan, model("y", lognormal, {"meanlog": 1.2}))
+    assert found["value"] is None and "rows_where reads y" in found["reason"]
+    plan = setup(tmp_path, "mean_difference", rows_where="x < 100")  # x has no model: independent of y
+    assert true_value(plan.analyses[0], plan, model("y", lognormal, {"meanlog": 1.2}))["value"] is not None
+    plan = setup(tmp_path, "mean_difference")
+    with_covariate = {"d": DatasetModel.model_validate({
+        "rows": {"groups": {"column": "g", "sizes": {"a": 10, "b": 30}}},
+        "columns": {"x": {"model": {"family": "normal", "mean": 0.0, "sd": 1.0}},
+                    "y": {"model": lognormal, "covariates": {"x": 0.1}}}})}
+    assert "covariates" in true_value(plan.analyses[0], plan, with_covariate)["reason"]
+    plan = setup(tmp_path, "hodges_lehmann")
+    assert true_value(plan.analyses[0], plan, model("y", lognormal, {}))["value"] is None
