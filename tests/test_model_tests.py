@@ -153,6 +153,19 @@ analyses:
 """
 
 
+ADJUSTED = """    data: d
+    outcome: y
+    groups: {by: arm, compare: [new, old]}
+    statistic: adjusted_mean_difference
+    covariates: [base]
+"""
+
+
+def adjusted(analyses: str) -> str:
+    """The analyses with each {adjusted} replaced by the adjusted mean difference's common keys."""
+    return analyses.replace("{adjusted}", ADJUSTED)
+
+
 def _data(n: int = 120) -> str:
     """Invented data: eight sites, the first four on the new arm (a cluster lies within one arm)."""
     rng = np.random.default_rng(14)
@@ -165,14 +178,9 @@ def _data(n: int = 120) -> str:
 
 
 def test_a_plan_with_bounds_a_null_value_an_imposed_null_and_a_margin(write_plan, tmp_path, capsys):
-    plan = write_plan(PLAN.format(analyses="""
+    plan = write_plan(PLAN.format(analyses=adjusted("""
   - id: ni
-    data: d
-    outcome: y
-    groups: {by: arm, compare: [new, old]}
-    statistic: adjusted_mean_difference
-    covariates: [base]
-    method: bootstrap
+{adjusted}    method: bootstrap
     resamples: 999
     intervals: [studentized, percentile]
     alternative: greater
@@ -180,12 +188,7 @@ def test_a_plan_with_bounds_a_null_value_an_imposed_null_and_a_margin(write_plan
     decision: {rule: non-inferiority, margin: -0.5}
   - id: wcb
     role: secondary
-    data: d
-    outcome: y
-    groups: {by: arm, compare: [new, old]}
-    statistic: adjusted_mean_difference
-    covariates: [base]
-    clusters: site
+{adjusted}    clusters: site
     method: bootstrap
     model_resampling: wild-cluster
     impose_null: true
@@ -193,19 +196,14 @@ def test_a_plan_with_bounds_a_null_value_an_imposed_null_and_a_margin(write_plan
     alternative: less
   - id: prec
     role: secondary
-    data: d
-    outcome: y
-    groups: {by: arm, compare: [new, old]}
-    statistic: adjusted_mean_difference
-    covariates: [base]
-    method: bootstrap
+{adjusted}    method: bootstrap
     model_resampling: wild
     intervals: [percentile]
     precision: {interval_end_sd: 0.02, max_resamples: 5000}
 multiplicity:
   - family: [ni, wcb]
     method: holm
-"""), {"d.csv": _data()})
+""")), {"d.csv": _data()})
     record = run_plan(plan, out=tmp_path / "runs", clock=fixed_clock).record
     entries = {a["id"]: a for a in record["analyses"]}
     ni, wcb, prec = entries["ni"], entries["wcb"], entries["prec"]
@@ -233,15 +231,10 @@ multiplicity:
      "    precision: {interval_end_sd: 0.1, max_resamples: 5000}\n", "no interval whose ends a precision"),
 ])
 def test_what_a_model_test_cannot_read_is_refused_where_it_is_written(write_plan, extra, message):
-    plan = write_plan(PLAN.format(analyses="""
+    plan = write_plan(PLAN.format(analyses=adjusted("""
   - id: a
-    data: d
-    outcome: y
-    groups: {by: arm, compare: [new, old]}
-    statistic: adjusted_mean_difference
-    covariates: [base]
-    method: bootstrap
-""" + extra), {"d.csv": _data()})
+{adjusted}    method: bootstrap
+""" + extra)), {"d.csv": _data()})
     with pytest.raises(PlanError, match=message) as caught:
         read_plan(plan)
     assert "plan.yaml:" in str(caught.value)
@@ -249,19 +242,14 @@ def test_what_a_model_test_cannot_read_is_refused_where_it_is_written(write_plan
 
 def test_check_refuses_precision_on_enumerated_sign_vectors_as_run_does(write_plan, tmp_path):
     from planrunner.api.session import check as check_plan
-    plan = write_plan(PLAN.format(analyses="""
+    plan = write_plan(PLAN.format(analyses=adjusted("""
   - id: a
-    data: d
-    outcome: y
-    groups: {by: arm, compare: [new, old]}
-    statistic: adjusted_mean_difference
-    covariates: [base]
-    clusters: site
+{adjusted}    clusters: site
     method: bootstrap
     model_resampling: wild-cluster
     intervals: [percentile]
     precision: {se_relative: 0.05, max_resamples: 5000}
-"""), {"d.csv": _data()})
+""")), {"d.csv": _data()})
     with pytest.raises(Exception, match="enumerates all 2\\^8 sign vectors") as checked:
         check_plan(plan)
     with pytest.raises(Exception, match="enumerates all 2\\^8 sign vectors") as ran:

@@ -223,13 +223,19 @@ class BootstrapOptions:
 
     def settings(self) -> dict[str, Any]:
         """The record's ``settings`` (JSON values: tuples become lists)."""
-        values = ((f.name, getattr(self, f.name)) for f in fields(self) if f.name != "precision")
-        out = {name: list(v) if isinstance(v, tuple) else v for name, v in values}
-        if self.precision is not None:
-            out["precision"] = {"se_relative": self.precision.se_relative,
-                                "interval_end_sd": self.precision.interval_end_sd,
-                                "max_resamples": self.precision.max_resamples}
-        return out
+        return record_settings(self)
+
+
+def record_settings(options: Any) -> dict[str, Any]:
+    """A bootstrap engine's options (a dataclass with ``precision``) as the record's ``settings``, in
+    field order: tuples become lists, the precision target a mapping."""
+    values = ((f.name, getattr(options, f.name)) for f in fields(options) if f.name != "precision")
+    out = {name: list(v) if isinstance(v, tuple) else v for name, v in values}
+    precision: BootstrapPrecision | None = options.precision
+    if precision is not None:
+        out["precision"] = {"se_relative": precision.se_relative, "interval_end_sd": precision.interval_end_sd,
+                            "max_resamples": precision.max_resamples}
+    return out
 
 
 def bootstrap(samples: Sequence[np.ndarray], statistic: Statistic, options: BootstrapOptions, *,

@@ -41,7 +41,7 @@ and keeps its part). Draws come from the analysis stream through ``UniformRows``
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, fields, replace
+from dataclasses import dataclass, replace
 from typing import Any
 
 import numpy as np
@@ -58,6 +58,7 @@ from planrunner.engines.bootstrap import (
     bca_acceleration,
     null_test,
     percentile_of_score,
+    record_settings,
     run_to_precision,
 )
 from planrunner.engines.intervals import INVERSION_RULES, Summary, tail_levels
@@ -117,13 +118,7 @@ class ModelBootstrapOptions:
     precision: BootstrapPrecision | None = None  # resamples chosen to a target (Andrews & Buchinsky)
 
     def settings(self) -> dict[str, Any]:
-        values = ((f.name, getattr(self, f.name)) for f in fields(self) if f.name != "precision")
-        out = {name: list(v) if isinstance(v, tuple) else v for name, v in values}
-        if self.precision is not None:
-            out["precision"] = {"se_relative": self.precision.se_relative,
-                                "interval_end_sd": self.precision.interval_end_sd,
-                                "max_resamples": self.precision.max_resamples}
-        return out
+        return record_settings(self)
 
 
 @dataclass(frozen=True, eq=False)
