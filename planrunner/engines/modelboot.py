@@ -18,11 +18,15 @@ Schemes (``model_resampling``; formulas in :mod:`planrunner.engines.models`):
   REStat 90(3)). With Rademacher weights and at most ``ENUMERATE_CLUSTERS`` clusters the 2^G sign
   vectors are enumerated exactly (each with weight 2^−G) instead of drawn.
 
-With ``impose_null`` (wild and wild cluster) the data are generated from the fit without the target
-column (the null of a zero coefficient), y* = X₀β̃ + ẽ∘v, and the p-value is the share of
-|t*| ≥ |t|, t = θ̂/ŝe and t* = θ*/se* with the robust standard errors below (CGM 2008's wild
-cluster bootstrap-t with the null imposed); Monte Carlo p = (1 + count)/(B + 1), enumerated p =
-count/2^G.
+With ``impose_null`` (wild and wild cluster) the data are generated from the fit whose target
+coefficient is fixed at the null value V (``null_value``, else 0): y* = X₀β̃ + V·target + ẽ∘v, β̃
+the least squares of y − V·target on the other columns. With t = (θ̂ − V)/ŝe and t* = (θ* − V)/se*
+(the robust standard errors below) the p-value is, by ``alternative``, the share of |t*| ≥ |t|
+(two-sided, CGM 2008's symmetric wild cluster bootstrap-t), of t* ≥ t (greater) or of t* ≤ t (less);
+Monte Carlo p = (1 + count)/(B + 1), enumerated p = count/2^G (a count of 0 floored at 2^−G).
+Without it, ``alternative`` makes one-sided bounds and ``null_value`` is tested by inverting the
+pre-specified interval, as for every bootstrap (`bootstrap.null_test`); ``precision`` chooses B by
+`bootstrap.run_to_precision` (refused where the sign vectors are enumerated: no Monte Carlo error).
 
 Standard errors of a resample (studentized intervals, p-values), the same formula for the data's
 ŝe: residual: classical s·√((XᵀX)⁻¹_jj); wild and cases: HC1; wild cluster and cases with clusters:
