@@ -7,10 +7,13 @@ Rows (invented data, seed fixed):
 * M2 the same with the wild bootstrap (one precomputed projection) against statsmodels OLS refitted on
   each y*;
 * M3 standardised risk difference, n = 1e4, 5 covariates, B = 1e4, cases bootstrap (batched Newton
-  steps) against statsmodels GLM(Binomial) refitted and predicted on each resample.
+  steps) against statsmodels GLM(Binomial) refitted and predicted on each resample;
+* M4 the same with a studentized interval (each resample's delta-method standard error) against
+  statsmodels Logit refitted on each resample with its average discrete change and that change's
+  standard error (``get_margeff(at='overall', dummy=True)``, cov_type='HC0').
 
 The statsmodels loop is timed on ``--loop`` resamples and scaled to B (its cost is linear in B; the
-scaling is stated in the output). Run: ``python benchmarks/models_vs_statsmodels.py [--quick]``.
+scaling is stated in the output). Run: ``python benchmarks/models_vs_statsmodels.py [--quick] [--rows M3,M4]``.
 """
 
 from __future__ import annotations
@@ -47,6 +50,7 @@ def main(argv: list[str] | None = None) -> int:
     parser = argparse.ArgumentParser(description=__doc__)
     parser.add_argument("--quick", action="store_true", help="n = 2000, B = 1000")
     parser.add_argument("--loop", type=int, default=200, help="resamples the statsmodels loop is timed on")
+    parser.add_argument("--rows", default="M1,M2,M3,M4", help="the rows to time, e.g. M3,M4")
     args = parser.parse_args(argv)
     import statsmodels.api as sm
 
@@ -83,8 +87,16 @@ def main(argv: list[str] | None = None) -> int:
             fit = sm.GLM(event[rows], x[rows], family=sm.families.Binomial()).fit()
             float(fit.predict(x1[rows]).mean() - fit.predict(x0[rows]).mean())
 
-    def ours(design: Design, statistic: str, model: str, scheme: str) -> Callable[[], Any]:
-        options = ModelBootstrapOptions(resamples=resamples, confidence=0.95, intervals=("percentile",),
+    def margeff_loop() -> None:
+        for _ in range(args.loop):
+            rows = cases_rows()
+            margins = sm.Logit(event[rows], x[rows]).fit(disp=0, cov_type="HC0").get_margeff(
+                at="overall", method="dydx", dummy=True)
+            float(margins.margeff[0]), float(margins.margeff_se[0])
+
+    def ours(design: Design, statistic: str, model: str, scheme: str,
+             intervals: tuple[str, ...] = ("percentile",)) -> Callable[[], Any]:
+        options = ModelBootstrapOptions(resamples=resamples, confidence=0.95, intervals=intervals,
                                         model=model, model_resampling=scheme)
         return lambda: model_bootstrap(design, statistic, options, stream=stream_for(7, statistic + scheme))
 
@@ -93,7 +105,12 @@ def main(argv: list[str] | None = None) -> int:
             ("M2 adjusted mean difference, wild", ours(linear, "adjusted_mean_difference", "linear", "wild"),
              wild_loop),
             ("M3 standardised risk difference, cases",
-             ours(binary, "standardized_risk_difference", "logistic", "cases"), glm_loop)]
+             ours(binary, "standardized_risk_difference", "logistic", "cases"), glm_loop),
+            ("M4 standardised risk difference, cases, studentized (delta-method SE per resample)",
+             ours(binary, "standardized_risk_difference", "logistic", "cases", ("percentile", "studentized")),
+             margeff_loop)]
+    chosen = set(args.rows.split(","))
+    rows = [row for row in rows if row[0].split()[0] in chosen]
     print(f"n = {n}, 5 covariates, B = {resamples}; statsmodels timed on {args.loop} resamples and scaled to B")
     print("| work | planrunner s | statsmodels loop s (scaled) | ratio |")
     print("|---|---|---|---|")
