@@ -11,8 +11,11 @@ import json
 from dataclasses import dataclass
 from pathlib import Path
 
+from planrunner.record.rehearsal import STAMP as REHEARSAL_STAMP
+from planrunner.record.rehearsal import is_rehearsal
 from planrunner.trail.signatures import Finding, Signers, check_signature, history_entry_subject, missing_meanings
 from planrunner.trail.signfiles import (
+    REHEARSAL_MEANINGS,
     SIGNERS_FILE,
     check_files,
     file_subject,
@@ -44,6 +47,9 @@ def record_signatures(record_file: Path, plan_file: Path, signers_file: str | Pa
                      "was rewritten after it was signed)"
                      for m in missing_meanings(findings, signers.require["record"])]
     record = json.loads(target.read_text(encoding="utf-8"))
+    if is_rehearsal(record):  # a signature made before the refusal, or by hand: never accepted
+        unsigned += [f"{f.where}: a rehearsal's record signed as {f.meaning}; a rehearsal is never a result "
+                     f"({REHEARSAL_STAMP})" for f in findings if f.meaning not in REHEARSAL_MEANINGS]
     lock = (record.get("plan") or {}).get("lock")
     if isinstance(lock, dict) and isinstance(lock.get("file"), str):
         lock_file = plan_file.parent / lock["file"]

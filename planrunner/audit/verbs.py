@@ -11,6 +11,7 @@ import json
 import math
 import re
 import tempfile
+from contextlib import ExitStack
 from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any
@@ -27,6 +28,8 @@ from planrunner.plan.params import resolve_values
 from planrunner.plan.yamlsafe import load_yaml
 from planrunner.record.build import FORMAT, RunFacts, build_record, environment
 from planrunner.record.canonical import RECORD_HASH_FIELD, differences, record_sha256
+from planrunner.record.rehearsal import STAMP as REHEARSAL_STAMP
+from planrunner.record.rehearsal import is_rehearsal
 from planrunner.trail.store import read_json, write_new_file
 
 # Differences no larger than this (relative to the larger magnitude) are floating-point noise:
@@ -63,6 +66,7 @@ class VerifyReport:
     plan_changes: list[str] = field(default_factory=list)
     causes: list[str] = field(default_factory=list)  # what changed under the run (data files), said first
     basis: Basis | None = None  # how the re-run was compared (None when there was no re-run)
+    rehearsal: bool = False  # a rehearsal's record: re-run on dummy data made again from its seed, never a result
 
     def kinds(self) -> list[tuple[str, int]]:
         """Differing fields counted by kind (the path with its list positions left out), most first."""
@@ -241,6 +245,46 @@ def verify_record(path: str | Path, *, plan: str | Path | None = None, execution
         problems.append(("plan.text", f"this installation cannot re-run the recorded plan: {message}"))
         return VerifyReport(record_file, plan_file, problems, notes, [], 0, False, plan_changes)
     loaded = replace(loaded, plan=apply_parameters(loaded.plan, values))
+    with ExitStack() as stack:
+        rehearsal = None
+        if is_rehearsal(recorded):  # its data are dummy files, made again from the recorded seed and sizes
+            rehearsal, data_root = _rehearsal_data(stack, loaded, recorded, record_file, data_root, problems)
+            if rehearsal is None:
+                return VerifyReport(record_file, plan_file, problems, notes, [], 0, False, plan_changes, rehearsal=True)
+        report = _rerun(record_file, plan_file, recorded, loaded, values, problems, notes, plan_changes, basis,
+                        execution, data_root, rehearsal)
+    return report
+
+
+def _rehearsal_data(stack: ExitStack, loaded: Any, recorded: dict, record_file: Path, data_root: str | Path | None,
+                    problems: list[tuple[str, str]]) -> tuple[dict | None, Path | None]:
+    """A rehearsal's dummy files made again from its recorded seed and sizes (in a temporary data root
+    that ``stack`` removes), and the `rehearsal` field they give; the copies kept in the rehearsal
+    folder are checked against the record too. (None, None) when they cannot be made."""
+    from planrunner.pipeline.rehearse import dummy_root, regenerated
+    entry = recorded["rehearsal"]
+    if data_root is not None:
+        problems.append(("rehearsal", "a rehearsal's data are made again from its seed; --data-root does not apply"))
+        return None, None
+    try:
+        files, rehearsal = regenerated(loaded, int(entry["seed"]), int(entry["units"]))
+    except (PlanrunnerError, KeyError, TypeError, ValueError) as exc:
+        problems.append(("rehearsal", f"the dummy data cannot be made again from the recorded seed and sizes: {exc}"))
+        return None, None
+    kept = record_file.parent / str(entry.get("folder") or "")
+    for i, f in enumerate(files):
+        copy = kept / f.file
+        if copy.is_file() and file_sha256(copy)[0] != f.sha256:
+            problems.append((f"rehearsal.datasets[{i}].sha256", f"the dummy file kept at {copy} is not the one the "
+                                                                "recorded seed makes (changed after the rehearsal)"))
+    return rehearsal, stack.enter_context(dummy_root(files))
+
+
+def _rerun(record_file: Path, plan_file: Path, recorded: dict, loaded: Any, values: dict[str, str],
+           problems: list[tuple[str, str]], notes: list[str], plan_changes: list[str], basis: Basis,
+           execution: Execution | None, data_root: str | Path | None, rehearsal: dict | None) -> VerifyReport:
+    """Hash the data files, re-run every analysis on them and compare the record built again."""
+    is_rehearsal_record = rehearsal is not None
     changed: dict[str, tuple[str, str]] = {}  # file -> (recorded sha256, current sha256)
     for i, ds in enumerate(recorded["datasets"]):
         try:
@@ -258,28 +302,29 @@ def verify_record(path: str | Path, *, plan: str | Path | None = None, execution
     except PlanrunnerError as exc:
         problems.append(("datasets", f"the analyses cannot be re-run on the data as they are now: {exc}"))
         return VerifyReport(record_file, plan_file, problems, notes, [], 0, False, plan_changes,
-                            data_causes(recorded, changed, {}))
+                            data_causes(recorded, changed, {}), rehearsal=is_rehearsal_record)
     causes = data_causes(recorded, changed, tables)
     try:
         jobs = compile_jobs(loaded.plan, tables)
         results, max_t = execute_plan(loaded.plan, jobs, execution=execution)
     except PlanrunnerError as exc:
         problems.append(("datasets", f"the analyses cannot be re-run on the data as they are now: {exc}"))
-        return VerifyReport(record_file, plan_file, problems, notes, [], 0, False, plan_changes, causes)
+        return VerifyReport(record_file, plan_file, problems, notes, [], 0, False, plan_changes, causes,
+                            rehearsal=is_rehearsal_record)
     # who, when, on what machine and on which executor are facts of the original run, not results
     # to reproduce (the executor never changes a number: the re-run checks that too)
     facts = RunFacts(run_id=recorded["run_id"], started_utc=recorded["started_utc"],
                      finished_utc=recorded["finished_utc"], operator=recorded["operator"],
                      command=tuple(recorded["command"]), execution=recorded.get("execution"),
                      environment=recorded.get("environment"), lock=(recorded.get("plan") or {}).get("lock"),
-                     parameters=values)
+                     parameters=values, rehearsal=rehearsal)
     rerun = build_record(loaded, tables, jobs, results, max_t, facts)
     found = [_judge(d.path, d.before, d.after, recorded, basis)
              for d in differences({k: v for k, v in recorded.items() if k != RECORD_HASH_FIELD},
                                   {k: v for k, v in rerun.items() if k != RECORD_HASH_FIELD})]
     found.sort(key=lambda d: HEADLINE.match(d.path) is None)  # the reported numbers first (stable sort)
     return VerifyReport(record_file, plan_file, problems, notes, found, _numbers(recorded), True, plan_changes,
-                        causes, basis)
+                        causes, basis, is_rehearsal_record)
 
 
 def data_causes(recorded: dict, changed: dict[str, tuple[str, str]], tables: dict[str, Any]) -> list[str]:
@@ -452,11 +497,12 @@ def write_pdf(run: str | Path, paper: str = "A4", out: str | Path | None = None)
     folder = record_file.parent
     target = Path(out) if out is not None else folder / f"report-{paper}.pdf"
     page = folder / "report.html"
+    stamp = REHEARSAL_STAMP if is_rehearsal(record) else None  # on every page of a rehearsal's PDF
     if page.is_file():
-        data = print_pdf(page, str(record["run_id"]), paper, browser=browser)
+        data = print_pdf(page, str(record["run_id"]), paper, browser=browser, stamp=stamp)
     else:
         with tempfile.TemporaryDirectory(prefix="planrunner-pdf-page-") as scratch:
             page = Path(scratch) / "report.html"
             page.write_text(render(record, "html"), encoding="utf-8")
-            data = print_pdf(page, str(record["run_id"]), paper, browser=browser)
+            data = print_pdf(page, str(record["run_id"]), paper, browser=browser, stamp=stamp)
     return write_new_file(target, data, what="PDF", hint="choose another name with --out, or remove the old PDF")

@@ -14,11 +14,15 @@ from pathlib import Path
 from typing import Any
 
 from planrunner.cli.options import DATA_ROOT_HELP, add_execution_options, execution_of
+from planrunner.record.rehearsal import STAMP
 
 # the exit codes of planrunner.cli.main (README: Commands), repeated so that this module imports on its own
 EXIT_OK, EXIT_INPUT, EXIT_DIFFERS = 0, 2, 3
 MAX_ROWS = 10  # differing fields shown in the terminal; the full list goes to a file
 MAX_KINDS = 8  # kinds of differing fields counted in the terminal
+# what verify says first and last about a rehearsal's record (planrunner rehearse)
+REHEARSAL_WORDS = (f"{STAMP}: this record is a rehearsal; its dummy data were made again from the recorded seed "
+                   "and sizes and the plan re-run on them")
 
 
 def _add_audit_run_options(run: argparse.ArgumentParser) -> None:
@@ -157,6 +161,8 @@ def _verify(args: argparse.Namespace) -> int:
     signatures = record_signatures(record_file, find_plan(record_file, recorded, args.plan), args.signers)
     report = verify_record(args.record, plan=args.plan, execution=execution_of(args), data_root=args.data_root)
     print(f"verifying {report.record_file} against the plan folder {report.plan_file.parent}")
+    if report.rehearsal:
+        print(f"*** {REHEARSAL_WORDS} ***")
     for cause in report.causes:  # the cause first: every number below follows from it
         print(f"  CAUSE {cause}")
     for line in signature_lines(signatures):
@@ -190,7 +196,12 @@ def _verify(args: argparse.Namespace) -> int:
                   "vector instructions can round the last bits differently; verify on the machine that made "
                   "the run to tell this from a change")
     passed = report.passed and signatures.passed
-    print("verify: PASSED" if passed else "verify: FAILED" + ("" if signatures.passed else " (signatures)"))
+    print(("verify: PASSED" if passed else "verify: FAILED" + ("" if signatures.passed else " (signatures)"))
+          + (" (a rehearsal: never a valid result)" if report.rehearsal else ""))
+    if report.rehearsal:
+        outcome = ("it re-ran to the same numbers, which proves the pipeline" if passed
+                   else "it did not re-run to the same numbers")
+        print(f"*** {REHEARSAL_WORDS}; {outcome}, and it is never a valid result ***")
     return EXIT_OK if passed else EXIT_DIFFERS
 
 

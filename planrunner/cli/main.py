@@ -26,6 +26,7 @@ from planrunner.cli.audit import (
     check_lock_summary,
 )
 from planrunner.cli.options import DATA_ROOT_HELP, add_execution_options, execution_of
+from planrunner.cli.rehearse import add_rehearse_verb, rehearse_command
 from planrunner.cli.signing import SIGNING_VERBS, add_run_signing_options, add_signing_verbs, run_signing
 from planrunner.cli.simulate import add_simulate_verb
 from planrunner.errors import (
@@ -103,6 +104,7 @@ def build_parser() -> argparse.ArgumentParser:
     run.add_argument("--data-root", metavar="DIR", help=DATA_ROOT_HELP)
     _add_audit_run_options(run)
     add_run_signing_options(run)
+    add_rehearse_verb(verbs)
     _add_audit_verbs(verbs)
     add_signing_verbs(verbs)
     add_simulate_verb(verbs)
@@ -196,6 +198,7 @@ def _main(argv: Sequence[str] | None) -> int:
 # what an interrupt of a verb left undone (only `run` writes what must exist whole or not at all)
 STOPPED_BEFORE = {"run": "; no record was written (any workers were stopped)",
                   "simulate": "; nothing was written (any workers were stopped)",
+                  "rehearse": "; no rehearsal was written (any workers were stopped)",
                   "verify": " (any workers were stopped)", "selfcheck": "; no report was written"}
 
 
@@ -213,6 +216,8 @@ def _dispatch(args: argparse.Namespace, args_list: list[str]) -> int:
         return _check(args)
     if args.verb == "run":
         return _run(args, args_list)
+    if args.verb == "rehearse":
+        return rehearse_command(args, args_list, progress_bar, summary_table)
     if args.verb == "init":
         from planrunner.pipeline.init import write_skeleton
         written = write_skeleton(args.datafile, args.out, sheet=args.sheet, fmt=args.format)

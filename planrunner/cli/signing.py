@@ -133,7 +133,13 @@ def _keygen(args: argparse.Namespace) -> int:
 def _sign(args: argparse.Namespace) -> int:
     from planrunner.pipeline.run import _stamp, utc_now
     from planrunner.trail.signatures import make_signature
-    from planrunner.trail.signfiles import entry_subject, file_subject, is_history, write_signature
+    from planrunner.trail.signfiles import (
+        entry_subject,
+        file_subject,
+        is_history,
+        refuse_rehearsal_signature,
+        write_signature,
+    )
     if is_history(args.file):
         if args.entry is None:
             raise SigningError("name the history entry to sign", where=args.file, hint="give --entry N")
@@ -142,6 +148,7 @@ def _sign(args: argparse.Namespace) -> int:
         if args.entry is not None:
             raise SigningError("--entry is only for a history.jsonl", where=args.file)
         target, subject = file_subject(args.file)
+        refuse_rehearsal_signature(target, subject, args.meaning)  # before a passphrase is asked for
     key = signing_key(args.key, args.name, args)
     document = make_signature(key, meaning=args.meaning, signed_utc=_stamp(utc_now()), subject=subject)
     written = write_signature(target, subject, document)

@@ -12,7 +12,7 @@ import datetime as dt
 import getpass
 import hashlib
 import os
-from collections.abc import Callable
+from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any
@@ -20,6 +20,7 @@ from typing import Any
 from planrunner.compile import limits
 from planrunner.compile.jobs import Job, compile_jobs
 from planrunner.data.checks import check_tables
+from planrunner.data.dummy import refuse_dummy_data
 from planrunner.data.sets import evaluate_sets
 from planrunner.data.tables import Table, read_table, resolve_data_path
 from planrunner.engines.maxt import MaxTResult
@@ -97,8 +98,9 @@ def available_memory() -> int | None:
 def load_tables(loaded: LoadedPlan, data_root: str | Path | None = None) -> dict[str, Table]:
     root = Path(data_root) if data_root is not None else None
     sizes = []
-    for spec in loaded.plan.datasets.values():
-        path = resolve_data_path(loaded.folder, spec.file, data_root=root)
+    paths = [resolve_data_path(loaded.folder, spec.file, data_root=root) for spec in loaded.plan.datasets.values()]
+    refuse_dummy_data(paths)  # a rehearsal's dummy files are never a run's data
+    for spec, path in zip(loaded.plan.datasets.values(), paths):
         if path.is_file():  # a missing file is reported by read_table with its own message
             sizes.append((spec.file, path.stat().st_size))
     limits.check_files(sizes, available=available_memory())
@@ -210,7 +212,7 @@ def _run_id(loaded: LoadedPlan, tables: dict[str, Table], started: dt.datetime) 
     return digest.hexdigest()[:16]
 
 
-def write_run(out_root: Path, name: str, record: dict, extra: dict[str, str] | None = None, *,
+def write_run(out_root: Path, name: str, record: dict, extra: Mapping[str, str | bytes] | None = None, *,
               history: bool = False, reason: str | None = None, sign: Callable[[dict], dict] | None = None,
               done: Callable[[Path, dict | None, list[dict]], RunOutcome] | None = None) -> RunOutcome:
     """Render the reports, then write the record, both reports and their figures as a new run folder
@@ -228,7 +230,7 @@ def write_run(out_root: Path, name: str, record: dict, extra: dict[str, str] | N
     require_plain_name(name)  # before rendering, so that a bad name never costs a render
     done = done or (lambda folder, entry, recovered: RunOutcome(folder, record, entry, False, tuple(recovered)))
     # report.html, report.md and the figures/*.svg files the Markdown report links to
-    files = {"record.json": to_json(record), **report.render_all(record), **(extra or {})}
+    files: dict[str, str | bytes] = {"record.json": to_json(record), **report.render_all(record), **(extra or {})}
     # the results dataset: the record's numbers as one flat table (record/results.py)
     files["results.csv"] = results_csv(record)
     parquet = results_parquet(record)

@@ -45,6 +45,7 @@ from planrunner.record.fields import MethodFields
 from planrunner.record.jackknife import jackknife_fields
 from planrunner.record.methods import methods_text
 from planrunner.record.permutation import permutation_fields
+from planrunner.record.rehearsal import STAMP as REHEARSAL_STAMP
 from planrunner.record.survival import kaplan_meier_details
 
 FORMAT = "planrunner.record/1"
@@ -81,6 +82,8 @@ class RunFacts:
     environment: dict[str, Any] | None = None
     lock: dict[str, Any] | None = None  # the record's plan.lock entry (deviations), None without a lock
     parameters: dict[str, str] = field(default_factory=dict)
+    # a rehearsal on dummy data (pipeline/rehearse.py): its seed, sizes and files; None for a real run
+    rehearsal: dict[str, Any] | None = None
 
 
 def environment() -> dict[str, Any]:
@@ -257,7 +260,12 @@ def build_record(loaded: LoadedPlan, tables: dict[str, Table], jobs: list[Job], 
     })
     # the audit fields come after `nonfinite`: the lock and the parameters are stated as they are
     audited = {**record, "plan": {**record["plan"], "lock": facts.lock}, "parameters": dict(facts.parameters)}
-    described = {**audited, "methods_text": methods_text(audited)}
+    if facts.rehearsal is not None:  # only a rehearsal has the field: a real run's record is as before
+        audited["rehearsal"] = facts.rehearsal
+    methods = methods_text(audited)
+    # a methods paragraph is copied into papers: a rehearsal's says what it is in its first words
+    described = {**audited, "methods_text": methods if facts.rehearsal is None
+                 else f"{REHEARSAL_STAMP}. {methods}"}
     return {**described, RECORD_HASH_FIELD: record_sha256(described)}
 
 

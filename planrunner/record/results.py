@@ -6,8 +6,8 @@ say nothing the record does not. Quantities: `estimate`, `standard_error`, `bias
 (one row per interval: `lower`, `upper`, `interval_method`, `level`, `side`, `prespecified`),
 `p_value`, `p_value_adjusted` (one row per adjustment: `adjustment`) and `decision` (one row when the
 analysis has a pre-specified rule: `decision_rule`, its threshold(s) and `verdict`). Every row carries
-the run id, the plan's id and hash, the analysis's estimand, dataset and that file's hash, and `n`
-(the rows the analysis used).
+the run id, the plan's id and hash, whether the run is a rehearsal, the analysis's estimand, dataset and
+that file's hash, and `n` (the rows the analysis used).
 """
 
 from __future__ import annotations
@@ -16,11 +16,14 @@ import csv
 import io
 from typing import Any
 
+from planrunner.record.rehearsal import is_rehearsal
+
 # the columns, in order, with their type and meaning (README, "Results dataset"; tests/test_results.py)
 COLUMNS: tuple[tuple[str, str, str], ...] = (
     ("run_id", "string", "the run's id (record run_id)"),
     ("plan_id", "string", "the plan's id"),
     ("plan_sha256", "string", "SHA-256 of the plan file as read"),
+    ("rehearsal", "bool", "true on every row of a rehearsal (planrunner rehearse: dummy data, never a result)"),
     ("analysis", "string", "the analysis id"),
     ("role", "string", "primary, secondary, sensitivity or supplementary"),
     ("estimand", "string", "the estimand the analysis targets, empty without one"),
@@ -63,6 +66,7 @@ def result_rows(record: dict[str, Any]) -> list[dict[str, Any]]:
     for a in record["analyses"]:
         base = {name: None for name in NAMES} | {
             "run_id": record["run_id"], "plan_id": record["plan"]["id"], "plan_sha256": record["plan"]["sha256"],
+            "rehearsal": is_rehearsal(record),
             "analysis": a["id"], "role": a.get("role"), "estimand": a.get("estimand"),
             "data": a.get("data"), "data_sha256": hashes.get(a.get("data")),
             "set": a.get("set"), "method": a["method"], "statistic": a["statistic"],

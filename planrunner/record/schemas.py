@@ -12,6 +12,7 @@ from typing import Any
 
 from planrunner.plan.schema import Plan
 from planrunner.record.build import FORMAT
+from planrunner.record.rehearsal import STAMP as REHEARSAL_STAMP
 
 DRAFT = "https://json-schema.org/draft/2020-12/schema"
 PLAN_SCHEMA_ID = "urn:planrunner:schema:plan:1"
@@ -120,6 +121,16 @@ _lock = {"oneOf": [{"type": "null"}, _obj({
 }, required=["file", "sha256", "canonical_sha256", "locked_utc", "operator", "note", "deviations"])]}
 
 
+# a rehearsal's record only (planrunner rehearse): what was dummied, enough to make the same files again
+_rehearsal = _obj({
+    "stamp": {"const": REHEARSAL_STAMP}, "seed": _int0, "units": {"type": "integer", "minimum": 1},
+    "generator": {"type": "string"}, "rules": {"type": "string"}, "stream": {"type": "string"},
+    "folder": {"type": "string"},
+    "datasets": {"type": "array", "minItems": 1, "items": _obj({
+        "name": {"type": "string"}, "file": {"type": "string"}, "sha256": _sha, "rows": _int0, "units": _int0,
+        "columns": {"type": "object", "additionalProperties": {"type": "string"}}})}})
+
+
 def record_schema() -> dict[str, Any]:
     return {
         "$schema": DRAFT, "$id": RECORD_SCHEMA_ID, "title": f"planrunner record ({FORMAT})",
@@ -131,6 +142,7 @@ def record_schema() -> dict[str, Any]:
             "plan": _obj({"id": {"type": "string"}, "title": {"type": "string"}, "description": _str,
                           "file": {"type": "string"}, "sha256": _sha, "text": {"type": "string"}, "lock": _lock}),
             "parameters": {"type": "object", "additionalProperties": {"type": "string"}},
+            "rehearsal": _rehearsal,
             "datasets": {"type": "array", "items": _obj({
                 "name": {"type": "string"}, "file": {"type": "string"}, "sha256": _sha, "bytes": _int0,
                 "rows_read": _int0, "rows_used": _int0,

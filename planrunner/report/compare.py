@@ -13,6 +13,7 @@ from typing import Any
 from planrunner.errors import PlanError
 from planrunner.plan.yamlsafe import load_yaml
 from planrunner.record.canonical import differences
+from planrunner.record.rehearsal import STAMP, is_rehearsal
 from planrunner.report import labels
 from planrunner.report.labels import interval_name
 from planrunner.report.render import number, pvalue
@@ -103,7 +104,18 @@ def compare_records(a: dict[str, Any], b: dict[str, Any]) -> dict[str, Any]:
         "environment_changes": env_changes,
         "datasets": datasets,
         "analyses": analyses,
+        "rehearsal": rehearsal_warning(a, b),
     }
+
+
+def rehearsal_warning(a: dict[str, Any], b: dict[str, Any]) -> str | None:
+    """The sentence every view of a comparison opens with when either record is a rehearsal's."""
+    sides = [label for label, record in (("A", a), ("B", b)) if is_rehearsal(record)]
+    if not sides:
+        return None
+    which = "both records are rehearsals" if len(sides) == 2 else f"record {sides[0]} is a rehearsal"
+    return (f"{STAMP}: {which} (planrunner rehearse, dummy data made from the plan's declarations); its numbers, "
+            "and every change computed from them, are not results")
 
 
 def _signed(x: float | None, p: bool = False) -> str:
@@ -174,6 +186,9 @@ def render_text(c: dict[str, Any]) -> str:
         lines = ["  ".join(cell.ljust(w) for cell, w in zip(r, widths)).rstrip() for r in table]
         lines.insert(1, "  ".join("-" * w for w in widths))
         blocks.append(f"{heading}\n" + "\n".join(lines))
+    warning = c.get("rehearsal")
+    if warning:  # first and last, so that neither end of a long listing hides it
+        blocks = [f"*** {warning} ***", *blocks, f"*** {STAMP} ***"]
     return "\n\n".join(blocks) + "\n"
 
 
@@ -185,10 +200,14 @@ def render_markdown(c: dict[str, Any]) -> str:
     ra, rb = c["runs"]
     parts = [f"# Comparison of two runs\n\nA: `{ra['run_id']}` ({ra['finished_utc']}); "
              f"B: `{rb['run_id']}` ({rb['finished_utc']}). Changes are B minus A.\n"]
+    if c.get("rehearsal"):
+        parts.insert(0, f"> **{_md(c['rehearsal'])}**\n")
     for heading, header, rows in _sections(c):
         lines = ["| " + " | ".join(_md(h) for h in header) + " |", "|" + "---|" * len(header)]
         lines += ["| " + " | ".join(_md(cell) for cell in r) + " |" for r in rows]
         parts.append(f"## {heading}\n\n" + "\n".join(lines) + "\n")
+    if c.get("rehearsal"):
+        parts.append(f"**{STAMP}.**\n")
     return "\n".join(parts)
 
 
@@ -215,4 +234,4 @@ def render_html(c: dict[str, Any]) -> str:
                          "hashes": [k in hashes for k in range(len(header))]})
     template = environment("html").get_template("compare.html.j2")
     return template.render(runs=c["runs"], sections=sections, plan_same_bytes=c["plan_same_bytes"],
-                           plan_changes=c["plan_changes"])
+                           plan_changes=c["plan_changes"], rehearsal=c.get("rehearsal"), stamp=STAMP)

@@ -75,9 +75,18 @@ def footer(run_id: str) -> str:
             '<span>page <span class="pageNumber"></span> of <span class="totalPages"></span></span></div>')
 
 
+def header(stamp: str | None) -> str:
+    """The header template: empty, or a stamp (a rehearsal's) in bold red type on every page."""
+    if stamp is None:
+        return "<span></span>"
+    return ('<div style="font-family: sans-serif; font-size: 10px; font-weight: bold; color: #b00020; width: 100%; '
+            f'margin: 0 12mm; text-align: center;">{html.escape(stamp)}</div>')
+
+
 def print_pdf(page: Path, run_id: str, paper: str = "A4", *, browser: str | None = None,
-              timeout: float = 120.0) -> bytes:
-    """The PDF of the HTML file ``page``, printed by headless Chromium on ``paper`` (A4 or Letter)."""
+              timeout: float = 120.0, stamp: str | None = None) -> bytes:
+    """The PDF of the HTML file ``page``, printed by headless Chromium on ``paper`` (A4 or Letter);
+    ``stamp`` (a rehearsal's) is printed at the top of every page."""
     size = PAPERS[paper]
     binary = browser or find_browser()
     with _session(binary, timeout) as session:
@@ -88,7 +97,7 @@ def print_pdf(page: Path, run_id: str, paper: str = "A4", *, browser: str | None
         session.wait_for("Page.loadEventFired", page_session)
         answer = session.call("Page.printToPDF", session=page_session, paperWidth=size.width_in,
                               paperHeight=size.height_in, printBackground=True, displayHeaderFooter=True,
-                              headerTemplate="<span></span>", footerTemplate=footer(run_id),
+                              headerTemplate=header(stamp), footerTemplate=footer(run_id),
                               marginTop=14 / 25.4, marginBottom=16 / 25.4, marginLeft=12 / 25.4,
                               marginRight=12 / 25.4, preferCSSPageSize=False)
     return base64.b64decode(answer["data"])

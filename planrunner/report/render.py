@@ -22,6 +22,8 @@ from markupsafe import Markup, escape
 
 from planrunner.engines.multiplicity import adjust
 from planrunner.engines.statistics import comparison_word
+from planrunner.record.rehearsal import STAMP as REHEARSAL_STAMP
+from planrunner.record.rehearsal import is_rehearsal
 from planrunner.report import digits as precision
 from planrunner.report import labels
 from planrunner.report.digits import significant
@@ -294,6 +296,7 @@ def _escape_text(text: str) -> str:
 
 def _context(record: dict[str, Any]) -> dict[str, Any]:
     return {"record": record, "estimand_groups": estimand_groups(record), "verdict_caution": VERDICT_CAUTION,
+            "rehearsal_stamp": REHEARSAL_STAMP if is_rehearsal(record) else None,
             "any_decision": any(isinstance(a.get("decision"), dict) and a["decision"].get("verdict")
                                 for a in record["analyses"]),
             "views": {a["id"]: _analysis_view(i, a) for i, a in enumerate(record["analyses"])},

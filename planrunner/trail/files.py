@@ -13,6 +13,7 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
+from planrunner.data.dummy import refuse_dummy_data
 from planrunner.data.tables import Table, file_sha256, resolve_data_path
 from planrunner.errors import OutputError, PlanError, RecordError
 from planrunner.plan.load import LoadedPlan, read_plan
@@ -47,6 +48,7 @@ def lock_plan(path: str | Path, *, operator: str, locked_utc: str, note: str | N
         entry: dict[str, Any] = {"name": name, "file": file, "present": False, "sha256": None, "bytes": None}
         if PLACEHOLDER.search(file) is None:
             target = resolve_data_path(loaded.folder, file)
+            refuse_dummy_data([target])  # a rehearsal's dummy file is never the data a lock records
             if target.is_file():
                 entry["sha256"], entry["bytes"] = file_sha256(target)
                 entry["present"] = True

@@ -24,6 +24,8 @@ from typing import Any
 from planrunner.errors import PlanrunnerError, SigningError
 from planrunner.plan.yamlsafe import dotted, load_yaml
 from planrunner.record.build import FORMAT as RECORD_FORMAT
+from planrunner.record.rehearsal import STAMP as REHEARSAL_STAMP
+from planrunner.record.rehearsal import is_rehearsal
 from planrunner.trail.history import HISTORY_FILE, parse_lines
 from planrunner.trail.lock import LOCK_FORMAT, LOCK_HASH_FIELD
 from planrunner.trail.names import require_person_name
@@ -169,6 +171,23 @@ def file_subject(path: str | Path) -> tuple[Path, Subject]:
     if kind == QUALIFICATION_FORMAT and isinstance(document.get(QUALIFICATION_HASH_FIELD), str):
         return file, Subject("qualification", file.name, digest, str(document.get("created_utc")))
     raise SigningError("not a record, a lock, a history or a qualification pack", where=str(file), hint=hint)
+
+
+# the meanings a rehearsal's record may be signed with: reviewing a rehearsal is sound; authoring,
+# approving or executing it would present dummy data as a result
+REHEARSAL_MEANINGS = ("reviewed",)
+
+
+def refuse_rehearsal_signature(target: Path, subject: Subject, meaning: str) -> None:
+    """A rehearsal's record (planrunner rehearse) is signed as reviewed only, never as executed or
+    approved: nothing may present its numbers as a result."""
+    if subject.kind != "record" or meaning in REHEARSAL_MEANINGS:
+        return
+    if is_rehearsal(read_json(target, "file to sign", error=SigningError)):
+        raise SigningError(f"this record is a rehearsal ({REHEARSAL_STAMP}); it cannot be signed as {meaning}",
+                           where=str(target),
+                           hint="a rehearsal may be signed as reviewed; sign the record of a real run as "
+                                f"{meaning}")
 
 
 def history_entries(log: Path) -> list[dict]:
