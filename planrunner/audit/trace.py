@@ -15,6 +15,7 @@ QUALIFY = "tests/test_qualify.py::"
 SIMFILE, SIMGEN = "tests/test_simulate_scenarios.py::", "tests/test_simulate_generate.py::"
 SIMRUN, SIMCLI, SIMCHECK = ("tests/test_simulate_run.py::", "tests/test_simulate_cli.py::",
                             "tests/test_simulate_checks.py::")
+REHEARSE = "tests/test_rehearse.py::"
 
 TRACE: dict[str, tuple[str, ...]] = {
     "planrunner": (CLI + "test_demo_plan_runs_and_writes_three_files",
@@ -238,6 +239,19 @@ TRACE: dict[str, tuple[str, ...]] = {
                       "tests/test_index.py::test_history_writes_the_same_view_as_html_and_markdown",
                       "tests/test_index.py::test_a_run_is_complete_even_when_the_index_cannot_be_written",
                       "tests/test_report_browser.py::test_index_page_loads_cleanly_and_fits"),
+    "Rehearsing a plan on dummy data": tuple(REHEARSE + name for name in (
+        "test_every_demo_plan_rehearses_end_to_end_into_rehearsals_and_never_into_runs",
+        "test_the_stamp_is_on_every_page_and_every_results_row",
+        "test_dummy_data_respect_the_declarations_and_balance_the_groups",
+        "test_verify_re_runs_a_rehearsal_bit_for_bit_and_says_it_is_never_a_result",
+        "test_compare_names_the_rehearsal_first_and_last",
+        "test_a_rehearsal_is_never_signed_as_executed_or_approved",
+        "test_a_run_or_a_lock_refuses_a_rehearsals_dummy_files_as_data",
+        "test_balanced_allocation_counts_are_n_div_k_plus_one_for_the_first_n_mod_k_levels",
+        "test_strata_balanced_groups_balanced_within_strata_events_three_in_four",
+        "test_a_columns_values_do_not_depend_on_the_other_columns",
+        "test_a_filter_dummy_data_cannot_meet_is_one_located_message",
+        "test_a_rehearsal_never_enters_a_run_history_and_a_log_naming_one_is_flagged")),
     "Comparing runs": (AUDIT + "test_compare_shows_a_changed_estimate", AUDIT + "test_compare_lists_plan_differences",
                        "tests/test_report_layout.py::test_comparison_page_is_the_report_look_escaped_and_self_contained",
                        "tests/test_report_browser.py::test_comparison_page_loads_cleanly_and_fits"),

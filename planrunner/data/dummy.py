@@ -11,7 +11,8 @@ with the same numpy. The rules, each stated in `RULES` (and in the record):
   `clusters` a cluster of `ROWS_PER_CLUSTER` rows; a column whose type is category gives as many
   units as it has levels when it is the pairs or clusters column;
 * strata are allocated balanced over the units, then each groups column balanced within every
-  stratum (counts of two levels differ by at most one); every other category and boolean column is
+  stratum and overall (counts of two levels differ by at most one: the cycle of levels goes on
+  from one stratum to the next); every other category and boolean column is
   allocated balanced over the units (unit-level) or rows (row-level), then shuffled;
 * an event column holds 1 on `n - n // 4` rows (three in four events), shuffled;
 * numbers and integers are uniform on [min, max]; a side the plan leaves open is `SPAN` away from
@@ -126,7 +127,7 @@ def _roles(plan: Plan, dataset: str) -> _Roles:
 
 def _where(loaded: LoadedPlan, path: tuple[Any, ...]) -> str:
     pos = loaded.yaml.position(path)
-    return f"{loaded.file.name}:{pos.line}:{pos.column}"
+    return f"{loaded.file}:{pos.line}:{pos.column}"
 
 
 @dataclass(frozen=True)
@@ -155,9 +156,11 @@ def _layout(loaded: LoadedPlan, name: str, spec: Dataset, roles: _Roles, units: 
     return _Layout(column, None, count, ROWS_PER_CLUSTER)
 
 
-def _balanced(levels: list[Any], n: int, gen: np.random.Generator) -> np.ndarray:
-    """n values cycling through the levels (counts differ by at most one), then shuffled."""
-    return gen.permutation(np.resize(np.array(levels, dtype=object), n))
+def _balanced(levels: list[Any], n: int, gen: np.random.Generator, start: int = 0) -> np.ndarray:
+    """n values cycling through the levels from level ``start`` (counts differ by at most one), then
+    shuffled. Strata continue the cycle where the stratum before stopped, so the groups stay
+    balanced overall as well as within every stratum."""
+    return gen.permutation(np.resize(np.roll(np.array(levels, dtype=object), -start), n))
 
 
 def _as_kind(values: np.ndarray, column: Column) -> np.ndarray:
@@ -264,9 +267,11 @@ def _allocated(column: Column, name: str, count: int, gen: np.random.Generator, 
         return _as_kind(_balanced(levels, count, gen), column)
     values = np.empty(count, dtype=object)
     by_stratum = done[strata]
+    start = 0
     for level in _levels(spec.columns[strata], strata, roles) or []:
         here = np.flatnonzero(by_stratum == level)
-        values[here] = _balanced(levels, here.size, gen)
+        values[here] = _balanced(levels, here.size, gen, start % len(levels))
+        start += here.size
     return _as_kind(values, column)
 
 

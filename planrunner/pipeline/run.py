@@ -35,6 +35,7 @@ from planrunner.plan.params import apply as apply_parameters
 from planrunner.plan.params import resolve_values
 from planrunner.plan.schema import Plan
 from planrunner.record.build import RunFacts, build_record, to_json
+from planrunner.record.rehearsal import is_rehearsal
 from planrunner.record.results import results_csv, results_parquet
 from planrunner.report import render as report
 from planrunner.trail.files import HistoryLog, lock_for_run
@@ -228,6 +229,9 @@ def write_run(out_root: Path, name: str, record: dict, extra: Mapping[str, str |
     'history --repair') to append.
     """
     require_plain_name(name)  # before rendering, so that a bad name never costs a render
+    if history and is_rehearsal(record):
+        raise OutputError("a rehearsal's record is never appended to a run history", where=str(out_root),
+                          hint="a rehearsal is written without history by 'planrunner rehearse'")
     done = done or (lambda folder, entry, recovered: RunOutcome(folder, record, entry, False, tuple(recovered)))
     # report.html, report.md and the figures/*.svg files the Markdown report links to
     files: dict[str, str | bytes] = {"record.json": to_json(record), **report.render_all(record), **(extra or {})}

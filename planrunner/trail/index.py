@@ -19,6 +19,8 @@ from typing import Any
 
 from planrunner.errors import RecordError
 from planrunner.record.canonical import RECORD_HASH_FIELD, record_sha256
+from planrunner.record.rehearsal import STAMP as REHEARSAL_STAMP
+from planrunner.record.rehearsal import is_rehearsal
 from planrunner.trail.history import HISTORY_FILE, check_chain, parse_lines
 from planrunner.trail.store import read_json, replace_file
 
@@ -59,6 +61,8 @@ def gather_runs(out_root: Path) -> tuple[list[dict[str, Any]], str]:
             logged = e.get("record_sha256")
             if record.get(RECORD_HASH_FIELD) != logged or record_sha256(record) != logged:
                 integrity = "the record is not the one logged"
+            if is_rehearsal(record):  # never logged by planrunner: a log edited by hand names one
+                integrity = f"{REHEARSAL_STAMP} (a rehearsal's record, never a run)"
             run["parameters"] = dict(record.get("parameters") or {})
             run["datasets"] = [{"name": d.get("name"), "file": d.get("file"), "sha256": d.get("sha256")}
                                for d in record.get("datasets") or [] if isinstance(d, dict)]
