@@ -407,3 +407,9 @@ def test_a_rehearsal_never_enters_a_run_history_and_a_log_naming_one_is_flagged(
     runner.write_run(tmp_path / "runs", "logged", outcome.record, history=True)
     [run], _ = gather_runs(tmp_path / "runs")
     assert run["integrity"].startswith(STAMP)
+
+
+def test_no_dummy_value_is_one_the_plan_declares_missing(write_plan):
+    # count: integer up to 5 with no min, i.e. uniform on -95..5; 2 and 3 are declared missing markers
+    d = _dummy(write_plan, 60, extra='    missing_values: ["", "NA", "2", "3"]\n')
+    assert not {"2", "3"} & set(d["count"]) and len(d["count"]) == 60

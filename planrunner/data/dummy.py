@@ -20,7 +20,8 @@ with the same numpy. The rules, each stated in `RULES` (and in the record):
   `at` or `horizon`; numbers are rounded to `DECIMALS` decimals;
 * text columns number their units or rows (`column-0001`); dates are uniform over `DATE_DAYS`
   days from `DATE_START`;
-* rows that fail the dataset's `rows_where` (or a derivation) have their free columns (neither
+* rows that hold a value the plan declares missing (`missing_values`), fail a derivation or the
+  dataset's `rows_where` have their free columns (neither
   unit, groups, strata, events nor text) drawn again, up to `REDRAWS` times; rows still failing are an
   error naming the filter.
 """
@@ -42,7 +43,7 @@ from planrunner.errors import DataError, ExpressionError, PlanError
 from planrunner.plan.derived import derivations
 from planrunner.plan.expr import parse_expression
 from planrunner.plan.load import LoadedPlan
-from planrunner.plan.schema import Column, Dataset, Plan
+from planrunner.plan.schema import DATA_SUFFIXES, Column, Dataset, Plan
 
 GENERATOR_ID = "planrunner.dummy/1"  # changes with any change of the rules below (they fix every byte)
 DEFAULT_UNITS = 40
@@ -191,8 +192,7 @@ def _draw(column: Column, name: str, n: int, gen: np.random.Generator, roles: _R
         values = gen.permutation(np.arange(n) < ones)
         return values if kind == "boolean" else values.astype(np.int64)
     if kind == "text":
-        width = max(4, len(str(n)))
-        return np.array([f"{name}-{k + 1:0{width}d}" for k in range(n)], dtype=object)
+        return _numbered(name, n)
     if kind == "date":
         return DATE_START + gen.integers(0, DATE_DAYS, size=n).astype("timedelta64[D]")
     lo, hi = _bounds(column, roles.reach.get(name, 0.0))
@@ -253,7 +253,13 @@ def _unit_ids(column: Column, name: str, units: int) -> np.ndarray:
         return np.array(column.levels or [], dtype=object)
     if column.type in ("integer", "number"):
         return np.arange(1, units + 1, dtype=np.int64 if column.type == "integer" else np.float64)
-    return _draw(column, name, units, np.random.default_rng(0), _Roles())  # text: numbered, no draw
+    return _numbered(name, units)
+
+
+def _numbered(name: str, n: int) -> np.ndarray:
+    """Text values that number the units or rows: name-0001, name-0002, ..."""
+    width = max(4, len(str(n)))
+    return np.array([f"{name}-{k + 1:0{width}d}" for k in range(n)], dtype=object)
 
 
 def _allocated(column: Column, name: str, count: int, gen: np.random.Generator, roles: _Roles,
@@ -327,9 +333,13 @@ def _redrawn(name: str, spec: Dataset, roles: _Roles, layout: _Layout, seed: int
 
 
 def _failing(name: str, spec: Dataset, columns: dict[str, np.ndarray], where: str) -> np.ndarray:
-    """Rows a derivation cannot compute or the rows_where filter drops."""
+    """Rows that hold a value the reader would take as missing (the plan's missing_values), that a
+    derivation cannot compute or that the rows_where filter drops."""
     n = next(iter(columns.values())).size
+    markers = set(spec.missing_values)
     bad = np.zeros(n, dtype=bool)
+    for column, declared in spec.columns.items():
+        bad |= np.array([_text(v, declared.type) in markers for v in columns[column]], dtype=bool)
     typed = dict(columns)
     for column, expression in derivations(spec).items():
         try:
@@ -363,6 +373,10 @@ def dummy_dataset(loaded: LoadedPlan, name: str, *, seed: int, units: int) -> Du
         raise PlanError(f"rehearse writes dummy data as CSV or TSV; dataset '{name}' is read as {fmt}",
                         where=_where(loaded, ("datasets", name, "file")),
                         hint="rehearse a copy of the plan whose file names a .csv (the analyses are the same)")
+    if spec.sha256 is not None:
+        raise PlanError(f"dataset '{name}' pins its file's SHA-256, which no dummy file can have",
+                        where=_where(loaded, ("datasets", name, "sha256")),
+                        hint="rehearse a copy of the plan without the sha256 pin (the analyses are the same)")
     roles = _roles(loaded.plan, name)
     layout = _layout(loaded, name, spec, roles, units)
     columns = _columns(name, spec, roles, layout, seed)
@@ -376,9 +390,10 @@ def dummy_dataset(loaded: LoadedPlan, name: str, *, seed: int, units: int) -> Du
     else:
         bad = _failing(name, spec, columns, rule_where)
     if bad.any():
-        raise PlanError(f"rehearse cannot make rows of dataset '{name}' that pass its rows_where filter and "
-                        f"derivations: {int(bad.sum())} of {bad.size} still fail after {REDRAWS} redraws of the "
-                        "columns it may vary (units, groups, strata and events are kept)", where=rule_where,
+        raise PlanError(f"rehearse cannot make rows of dataset '{name}' that pass its rows_where filter, "
+                        f"derivations and missing values: {int(bad.sum())} of {bad.size} still fail after {REDRAWS} "
+                        "redraws of the columns it may vary (units, groups, strata and events are kept)",
+                        where=rule_where,
                         hint="a filter on the groups, strata, pairs, clusters or event columns, or on a value "
                              "outside the declared range, cannot be met by dummy data; declare min/max that the "
                              "filter keeps")
@@ -389,7 +404,6 @@ def dummy_dataset(loaded: LoadedPlan, name: str, *, seed: int, units: int) -> Du
 
 
 def _format_of(file: str) -> str:
-    from planrunner.plan.schema import DATA_SUFFIXES
     dot = file.rfind(".")
     return DATA_SUFFIXES.get(file[dot:].lower(), "csv") if dot >= 0 else "csv"
 
