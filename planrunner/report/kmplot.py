@@ -14,7 +14,7 @@ from typing import Any
 import matplotlib
 from matplotlib.figure import Figure
 
-from planrunner.report.plots import BLUE, ORANGE, PURPLE, RC, VERMILLION, Plot
+from planrunner.report.plots import BLUE, ORANGE, PURPLE, RC, VERMILLION, Plot, fit_margins
 
 GROUP_STYLES = [(BLUE, "-", "|"), (VERMILLION, "--", "x"), (PURPLE, "-.", "+"), (ORANGE, ":", "1")]
 
@@ -27,7 +27,7 @@ def curve_plot(entry: dict[str, Any]) -> Plot | None:
         return None
     left = km.get("censoring") == "left"
     with matplotlib.rc_context(RC):
-        fig = Figure(figsize=(7.0, 3.2), layout="constrained")
+        fig = Figure(figsize=(7.0, 3.2))
         ax = fig.add_subplot()
         said = []
         for k, group in enumerate(km["groups"]):
@@ -55,6 +55,7 @@ def curve_plot(entry: dict[str, Any]) -> Plot | None:
         ax.set_xlabel(f"{entry.get('outcome', 'time')}{unit}")
         ax.set_ylabel("proportion at or below" if left else "Kaplan–Meier survival")
         ax.legend(loc="lower left", bbox_to_anchor=(0.0, 1.0), ncol=4, frameon=False, fontsize=8, handlelength=2.6)
+        fit_margins(ax, 4)
         buffer = io.StringIO()
         fig.savefig(buffer, format="svg", metadata={"Date": None})
     what = ("estimated proportion of values at or below each value (Kaplan–Meier on the flipped scale)" if left
