@@ -2,7 +2,9 @@
 
 `planrunner --version` and `planrunner check --plan-only` run in a fresh interpreter, and the test
 reads that interpreter's `sys.modules` after the command: no scipy, pandas, matplotlib, jinja2 or
-dask may have been imported (they load only in the stage that uses them).
+dask may have been imported (they load only in the stage that uses them). A demo run imports neither
+scipy.stats nor pandas. Every demo record's numbers are those main computed before this work (a digest
+of each, `record_digest.py`), and compiled templates from jinja2's cache render the same pages.
 """
 
 from __future__ import annotations
@@ -31,20 +33,26 @@ with open(os.environ["PLANRUNNER_MODULES_OUT"], "w", encoding="utf-8") as out:
 
 def loaded_by(tmp_path: Path, *args: str) -> tuple[int, set[str]]:
     """Exit code of `planrunner ARGS` in a fresh interpreter, and the top-level packages it imported."""
+    code, modules = modules_loaded_by(tmp_path, *args)
+    return code, {name.split(".")[0] for name in modules}
+
+
+def modules_loaded_by(tmp_path: Path, *args: str) -> tuple[int, set[str]]:
+    """Exit code of `planrunner ARGS` in a fresh interpreter, and every module it imported."""
     out = tmp_path / "modules.json"
     env = {**os.environ, "PLANRUNNER_MODULES_OUT": str(out)}
     done = subprocess.run([sys.executable, "-c", PROBE, *args], cwd=ROOT, env=env, capture_output=True,
                           text=True, timeout=120)
     assert out.is_file(), done.stderr[-2000:]
     found = json.loads(out.read_text(encoding="utf-8"))
-    return found["code"], {name.split(".")[0] for name in found["modules"]}
+    return found["code"], set(found["modules"])
 
 
 def test_version_loads_no_heavy_library(tmp_path):
     code, packages = loaded_by(tmp_path, "--version")
     assert code == 0
     assert "planrunner" in packages
-    assert not packages & set(HEAVY), sorted(packages & set(HEAVY))
+    assert not packages & {*HEAVY, "numpy"}, sorted(packages & {*HEAVY, "numpy"})  # nor numpy: a tenth of a second
 
 
 @pytest.mark.parametrize("plan", sorted(p.name for p in (ROOT / "plans").iterdir() if (p / "plan.yaml").is_file()))
@@ -55,13 +63,17 @@ def test_plan_only_check_loads_no_heavy_library(tmp_path, plan):
     assert not packages & set(HEAVY), sorted(packages & set(HEAVY))
 
 
-def test_the_probe_sees_the_libraries_a_run_needs(tmp_path):
+def test_the_probe_sees_the_libraries_a_run_needs_and_no_more(tmp_path):
     # the same probe on a run, which writes reports, must see jinja2 and matplotlib: else the tests above
     # would prove nothing
     plan = ROOT / "plans" / "liner-trial" / "plan.yaml"
-    code, packages = loaded_by(tmp_path, "run", str(plan), "--out", str(tmp_path / "out"), "--quiet")
+    code, modules = modules_loaded_by(tmp_path, "run", str(plan), "--out", str(tmp_path / "out"), "--quiet")
     assert code == 0
-    assert {"jinja2", "matplotlib", "numpy"} <= packages
+    assert {"jinja2", "matplotlib", "numpy", "scipy.special"} <= modules
+    # ... and a demo run needs neither scipy.stats (our mid-ranks, scipy.special's beta quantiles) nor
+    # pandas (plain decimals and dates read without it, results.parquet laid out from buffers)
+    assert "scipy.stats" not in modules
+    assert not {name for name in modules if name.split(".")[0] == "pandas"}
 
 
 # The numbers of the demo records (tests/record_digest.py), computed on main before the import diet
@@ -81,3 +93,26 @@ def test_demo_record_numbers_are_unchanged(plan):
     from record_digest import demo_record, numbers_digest
 
     assert numbers_digest(demo_record(plan)) == DEMO_DIGESTS[plan]
+
+
+def test_compiled_templates_from_the_cache_render_the_same_pages(tmp_path):
+    from record_digest import demo_record
+
+    from planrunner.report import render
+
+    record = demo_record("liner-trial")
+    pages = {}
+    for attempt in ("compiled", "from the cache", "without a cache"):
+        compiled = render._compiled_templates(str(tmp_path)) if attempt != "without a cache" else None
+        for kind, name in (("html", "report.html.j2"), ("md", "report.md.j2")):
+            template = render.new_environment(kind, compiled).get_template(name)
+            pages[attempt, kind] = template.render(**render._context(record))
+        if attempt == "compiled":
+            assert len(list(tmp_path.glob("planrunner-*.cache"))) >= 2  # written for the next process
+    for kind in ("html", "md"):
+        assert pages["compiled", kind] == pages["from the cache", kind] == pages["without a cache", kind]
+    # a folder that cannot be written to costs the cache, never the report
+    (tmp_path / "ro").mkdir(mode=0o500)
+    template = render.new_environment("md", render._compiled_templates(str(tmp_path / "ro"))).get_template(
+        "report.md.j2")
+    assert template.render(**render._context(record)) == pages["compiled", "md"]

@@ -40,8 +40,6 @@ from planrunner.errors import (
     SigningError,
     Terminated,
 )
-from planrunner.report import digits, labels
-from planrunner.report.render import number
 
 if TYPE_CHECKING:
     pass
@@ -170,6 +168,9 @@ def main(argv: Sequence[str] | None = None) -> int:
 
 def _main(argv: Sequence[str] | None) -> int:
     args_list = list(sys.argv[1:] if argv is None else argv)
+    if args_list == ["--version"]:  # argparse's own answer, without building every verb's parser first
+        print(f"planrunner {__version__}")
+        return EXIT_OK
     try:
         args = build_parser().parse_args(args_list)
     except SystemExit as exc:
@@ -329,6 +330,10 @@ def progress_bar(quiet: bool) -> ProgressBar:
 
 def summary_table(record: dict) -> str:
     """A compact terminal table: one row per analysis."""
+    # imported here: the report's number formats load numpy, which `--version` and `--help` never need
+    from planrunner.report import digits, labels
+    from planrunner.report.render import number
+
     any_decision = any(isinstance(a.get("decision"), dict) for a in record["analyses"])
     header = ("analysis", "method", "estimate", "interval", "p-value", *(("decision",) if any_decision else ()),
               "n", "warnings")
