@@ -98,6 +98,26 @@ def test_the_pdf_header_carries_the_stamp_on_every_page_and_a_run_has_none():
     assert STAMP in header(STAMP) and header(None) == "<span></span>"
 
 
+def _browser() -> bool:
+    from planrunner.report.pdf import find_browser
+    try:
+        find_browser()
+    except OutputError:
+        return False
+    return True
+
+
+@pytest.mark.skipif(not _browser(), reason="no Chromium or Chrome here (see test_report_browser)")
+def test_every_page_of_a_rehearsals_pdf_carries_the_stamp(rehearsed, tmp_path):
+    pypdf = pytest.importorskip("pypdf")
+    out = tmp_path / "rehearsal.pdf"
+    assert cli.main(["pdf", str(rehearsed["ward-hygiene"]), "--out", str(out)]) == 0
+    pages = [page.extract_text() for page in pypdf.PdfReader(io.BytesIO(out.read_bytes())).pages]
+    assert len(pages) > 1
+    for page in pages:
+        assert "REHEARSAL" in page and "dummy data, not a result" in page
+
+
 @pytest.mark.parametrize("name", DEMOS)
 def test_dummy_data_respect_the_declarations_and_balance_the_groups(rehearsed, name):
     folder = rehearsed[name]
@@ -271,7 +291,7 @@ def _dummy(write_plan, units: int, extra: str = "", seed: int = 11) -> dict[str,
 def test_balanced_allocation_counts_are_n_div_k_plus_one_for_the_first_n_mod_k_levels(n, k):
     levels = [f"L{i}" for i in range(k)]
     counts = Counter(_balanced(levels, n, stream_of(1, "d", "c").generator(0)))
-    # exact identity: level i appears n // k + (i < n % k) times
+    # exact identity (identity 23): level i appears n // k + (i < n % k) times
     assert [counts[level] for level in levels] == [n // k + (i < n % k) for i in range(k)]
 
 
@@ -289,7 +309,7 @@ def test_strata_balanced_groups_balanced_within_strata_events_three_in_four(writ
     assert Counter(d["colour"]).most_common()[-1][1] == units // 3  # balanced over rows
     assert Counter(d["flag"]) == {"true": units // 2, "false": units - units // 2} or \
         Counter(d["flag"]) == {"false": units // 2, "true": units - units // 2}
-    assert int((d["dead"] == "1").sum()) == units - units // 4  # events on n - n // 4 rows
+    assert int((d["dead"] == "1").sum()) == units - units // 4  # events on n - n // 4 rows (identity 23)
 
 
 def test_ranges_open_sides_and_survival_reach(write_plan):

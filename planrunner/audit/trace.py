@@ -242,6 +242,7 @@ TRACE: dict[str, tuple[str, ...]] = {
     "Rehearsing a plan on dummy data": tuple(REHEARSE + name for name in (
         "test_every_demo_plan_rehearses_end_to_end_into_rehearsals_and_never_into_runs",
         "test_the_stamp_is_on_every_page_and_every_results_row",
+        "test_every_page_of_a_rehearsals_pdf_carries_the_stamp",
         "test_dummy_data_respect_the_declarations_and_balance_the_groups",
         "test_verify_re_runs_a_rehearsal_bit_for_bit_and_says_it_is_never_a_result",
         "test_compare_names_the_rehearsal_first_and_last",
