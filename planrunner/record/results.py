@@ -6,8 +6,8 @@ say nothing the record does not. Quantities: `estimate`, `standard_error`, `bias
 (one row per interval: `lower`, `upper`, `interval_method`, `level`, `side`, `prespecified`),
 `p_value`, `p_value_adjusted` (one row per adjustment: `adjustment`) and `decision` (one row when the
 analysis has a pre-specified rule: `decision_rule`, its threshold(s) and `verdict`). Every row carries
-the run id, the plan's id and hash, whether the run is a rehearsal, the analysis's estimand, dataset and
-that file's hash, and `n` (the rows the analysis used).
+the run id, the plan's id and hash, the analysis's estimand, dataset and that file's hash, `n` (the rows
+the analysis used) and, last, `rehearsal` (true for a rehearsal's record: dummy data, never a result).
 """
 
 from __future__ import annotations
@@ -23,7 +23,6 @@ COLUMNS: tuple[tuple[str, str, str], ...] = (
     ("run_id", "string", "the run's id (record run_id)"),
     ("plan_id", "string", "the plan's id"),
     ("plan_sha256", "string", "SHA-256 of the plan file as read"),
-    ("rehearsal", "bool", "true on every row of a rehearsal (planrunner rehearse: dummy data, never a result)"),
     ("analysis", "string", "the analysis id"),
     ("role", "string", "primary, secondary, sensitivity or supplementary"),
     ("estimand", "string", "the estimand the analysis targets, empty without one"),
@@ -55,6 +54,7 @@ COLUMNS: tuple[tuple[str, str, str], ...] = (
     # decimal text: an exact count of arrangements can exceed any 64-bit integer
     ("resamples", "string", "resamples or arrangements behind the analysis, in decimal digits"),
     ("n", "int64", "rows the analysis used"),
+    ("rehearsal", "bool", "true on every row of a rehearsal (planrunner rehearse: dummy data, never a result)"),
 )
 NAMES = tuple(name for name, _, _ in COLUMNS)
 
