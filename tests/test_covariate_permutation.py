@@ -242,3 +242,20 @@ def test_plan_names_the_scheme_and_reports_the_statsmodels_coefficient(write_pla
     method = "ter-braak" if "ter-braak" in extra else "freedman-lane"
     assert entry["settings"]["covariate_permutation"] == method
     assert f"(scheme: {entry['scheme']})" in outcome.record["methods_text"]  # the methods paragraph
+
+
+@pytest.mark.parametrize("case, words", [
+    ("covariate-permutation-unequal-clusters", "clusters differ in size"),
+    ("covariate-permutation-stratum-of-one-row", "stratum 'c9' has 1 row(s)"),
+    ("covariate-permutation-predictor-varies-within-cluster", "varies within cluster 'a1'"),
+])
+def test_run_refuses_what_check_refuses(tmp_path, case, words):
+    # the bad-input corpus runs these cases through `check` (test_bad_inputs); a run gives the same message
+    import shutil
+    from pathlib import Path
+
+    folder = tmp_path / case
+    shutil.copytree(Path(__file__).resolve().parent / "bad_inputs" / case, folder)
+    plan = folder / "plan.yaml"
+    with pytest.raises(EngineError, match=words.replace("(", r"\(").replace(")", r"\)")):
+        run_plan(plan, out=tmp_path / "runs", clock=fixed_clock)
