@@ -261,6 +261,12 @@ def test_the_file_must_be_a_mapping_and_not_empty(tmp_path, plan):
         _load(tmp_path, plan, "- a\n- b\n")
     with pytest.raises(PlanError, match="scenarios file not found"):
         load_scenarios(tmp_path / "missing.yaml", plan)
+    (tmp_path / "latin1.yaml").write_bytes("title: caf\xe9\n".encode("latin-1"))
+    with pytest.raises(PlanError, match=r"latin1\.yaml:1: the scenarios file is not UTF-8 text"):
+        load_scenarios(tmp_path / "latin1.yaml", plan)
+    (tmp_path / "huge.yaml").write_text("# " + "x" * 1_000_001, encoding="utf-8")
+    with pytest.raises(PlanError, match="the scenarios file is larger than 1000000 bytes"):
+        load_scenarios(tmp_path / "huge.yaml", plan)
 
 
 def test_the_demo_scenarios_file_reads_against_its_plan():

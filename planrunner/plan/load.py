@@ -82,18 +82,19 @@ def read_plan(path: str | Path) -> LoadedPlan:
 
 
 def read_yaml_file(path: str | Path, *, kind: str, example: str) -> tuple[bytes, str, LoadedYaml]:
-    """The bytes, text and positioned YAML of a settings file (a plan, a scenarios file), under the
-    plan's rules: at most MAX_PLAN_BYTES, UTF-8, and the narrow YAML of `yamlsafe`."""
+    """The bytes, text and positioned YAML of a settings file (`kind`: "plan", "scenarios file"), under
+    the plan's rules: at most MAX_PLAN_BYTES, UTF-8, and the narrow YAML of `yamlsafe`."""
     file = Path(path)
     shown = str(path)
+    file_kind = kind if kind.endswith(" file") else f"{kind} file"
     try:
         with file.open("rb") as handle:  # read no more than the limit: a plan may be a huge file
             raw = handle.read(MAX_PLAN_BYTES + 1)
     except FileNotFoundError:
-        raise PlanError(f"{kind} file not found", where=shown,
+        raise PlanError(f"{file_kind} not found", where=shown,
                         hint=f"check the path; {kind}s are YAML files such as {example}") from None
     except IsADirectoryError:
-        raise PlanError(f"this is a folder, not a {kind} file", where=shown,
+        raise PlanError(f"this is a folder, not a {file_kind}", where=shown,
                         hint="name the YAML file inside it") from None
     except OSError as exc:
         raise PlanError(f"cannot read the {kind}: {exc.strerror}", where=shown) from None

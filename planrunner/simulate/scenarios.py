@@ -68,7 +68,7 @@ class ScenarioFile:
 def load_scenarios(path: str | Path, plan: Plan) -> ScenarioFile:
     """Read a scenarios file and check it against `plan`; one PlanError lists every problem."""
     shown = str(path)
-    raw, text, loaded = read_yaml_file(path, kind="scenarios", example=EXAMPLE)
+    raw, text, loaded = read_yaml_file(path, kind="scenarios file", example=EXAMPLE)
     if not isinstance(loaded.data, dict):
         raise PlanError("a scenarios file must be a mapping of keys (scenarios_for, title, seed, datasets, "
                         "scenarios)", where=f"{shown}:1:1")
