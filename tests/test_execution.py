@@ -311,15 +311,59 @@ def test_a_worker_is_sent_each_task_once_and_asks_for_it_when_missing() -> None:
     import pickle
 
     from planrunner.engines.blocks import bind
-    from planrunner.execute import executors
+    from planrunner.execute import rangework
 
     task = bind(np.arange)  # np.arange(start, stop): a picklable task of (start, stop)
     key = "test-key"
-    executors._TASKS.pop(key, None)
-    assert executors._call_cached_range(key, None, 0, 3) == executors._NEEDS_TASK
+    rangework.TASKS.pop(key, None)
+    assert rangework.call_cached_range(key, None, 0, 3) == rangework.NEEDS_TASK
     payload = pickle.dumps(task)
-    assert executors._call_cached_range(key, payload, 0, 3).tolist() == [0, 1, 2]
-    assert executors._call_cached_range(key, None, 5, 7).tolist() == [5, 6]  # kept: no second sending
-    for other in range(executors._TASKS_KEPT):  # only the last few tasks are kept
-        executors._call_cached_range(f"other-{other}", payload, 0, 1)
-    assert executors._call_cached_range(key, None, 0, 3) == executors._NEEDS_TASK
+    assert rangework.call_cached_range(key, payload, 0, 3).tolist() == [0, 1, 2]
+    assert rangework.call_cached_range(key, None, 5, 7).tolist() == [5, 6]  # kept: no second sending
+    for other in range(rangework.TASKS_KEPT):  # only the last few tasks are kept
+        rangework.call_cached_range(f"other-{other}", payload, 0, 1)
+    assert rangework.call_cached_range(key, None, 0, 3) == rangework.NEEDS_TASK
+
+
+def _aligned_flags(x: np.ndarray, y: np.ndarray, start: int, stop: int) -> np.ndarray:
+    return np.array([x.flags.aligned, y.flags.aligned])
+
+
+def test_a_task_reaches_a_worker_with_aligned_arrays_and_a_light_import() -> None:
+    """A task travels as pickled bytes and is unpickled in the worker: an array that reached this
+    process unaligned (as a dask message frame can leave it) is aligned there, and a worker process
+    imports the engines it runs but none of the plan, data or compile stages."""
+    import multiprocessing
+
+    from planrunner.engines.blocks import bind
+    from planrunner.execute import executors, rangework
+
+    raw = bytearray(8 * 1001)
+    unaligned = np.frombuffer(raw, dtype=np.float64, count=1000, offset=3)
+    assert not unaligned.flags.aligned
+    payload = executors._pickled(bind(_aligned_flags, unaligned, np.arange(5.0)))
+    assert rangework.call_cached_range("aligned-test", payload, 0, 1).tolist() == [True, True]
+    # a worker process as the processes executor starts it; its task and the module listing come from
+    # numpy and the standard library, so that unpickling them imports no test module
+    with multiprocessing.get_context("spawn").Pool(1, initializer=rangework.ignore_interrupts) as pool:
+        ranged = pool.apply(rangework.call_cached_range, ("light", executors._pickled(bind(np.arange)), 2, 5))
+        imported = pool.apply(eval, ("sorted(__import__('sys').modules)",))
+    assert ranged.tolist() == [2, 3, 4]
+    assert "planrunner.engines.blocks" in imported
+    heavy = [name for name in imported if name.split(".")[1:2] in (["plan"], ["data"], ["compile"], ["pipeline"])
+             or name == "planrunner.execute.executors"]
+    assert heavy == []
+
+
+def test_a_local_dask_cluster_keeps_the_adaptive_malloc_threshold() -> None:
+    """dask's MALLOC_TRIM_THRESHOLD_ for its worker processes is dropped for the run's own cluster
+    (it turns off glibc's adaptive mmap threshold: every batch buffer faulted in afresh)."""
+    dask = pytest.importorskip("dask")
+    pytest.importorskip("distributed")
+    from planrunner.execute import executors
+
+    setting = "distributed.nanny.pre-spawn-environ.MALLOC_TRIM_THRESHOLD_"
+    assert dask.config.get(setting, None) is not None  # dask's own default, which the cluster drops
+    with executors._dask_worker_environment():
+        assert dask.config.get(setting) is None
+    assert dask.config.get(setting, None) is not None
