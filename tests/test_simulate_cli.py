@@ -163,3 +163,14 @@ def test_the_demo_scenarios_file_fits_the_demo_plan():
     scenarios = load_scenarios(demo / "scenarios.yaml", loaded.plan)
     assert [s.name for s in scenarios.scenarios] == ["no-difference", "foam-shortens"]
     assert scenarios.search is not None and scenarios.search.analysis == "primary"
+
+
+def test_a_scenario_that_would_not_fit_in_memory_is_refused_before_computing(files, tmp_path, monkeypatch, capsys):
+    from planrunner.pipeline import run as pipeline_run
+
+    plan, scenarios = files
+    monkeypatch.setattr(pipeline_run, "available_memory", lambda: 1000)
+    assert main(["simulate", str(plan), "--scenarios", str(scenarios), "--out", str(tmp_path / "out")]) == 2
+    err = capsys.readouterr().err
+    assert "resources" in err and "memory" in err and "analysis 'primary'" in err
+    assert not (tmp_path / "out").exists()

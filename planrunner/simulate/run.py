@@ -22,6 +22,7 @@ from typing import Any
 
 import numpy as np
 
+from planrunner.compile import limits
 from planrunner.compile.jobs import Job, compile_jobs
 from planrunner.data.checks import check_tables
 from planrunner.data.columns import table_from_columns
@@ -137,6 +138,17 @@ def run_dataset(task: SimulationTask, index: int) -> DatasetOutcome:
     except PlanrunnerError as exc:
         return failed(str(exc))
     return DatasetOutcome(index, outcomes_of(plan, jobs, results, failures, max_t))
+
+
+def check_memory(task: SimulationTask, workers: int, available: int | None) -> None:
+    """Refuse a scenario whose data sets would not fit, as a run refuses a plan (compile/limits.py):
+    the jobs of data set 0, against the memory each of the ``workers`` may use (each holds one data
+    set at a time). A data set 0 the analyses cannot use says nothing about memory: it is skipped."""
+    try:
+        jobs = compile_jobs(task.plan, simulated_tables(task, 0))
+    except PlanrunnerError:
+        return
+    limits.check_jobs(jobs, available=None if available is None else available // max(1, workers))
 
 
 def _failed_whole(plan: Plan, index: int) -> Callable[[str], DatasetOutcome]:

@@ -31,6 +31,7 @@ from planrunner.simulate.run import (
     SimulationTask,
     WorkerPool,
     alpha_of,
+    check_memory,
     run_scenario,
     used_datasets,
 )
@@ -153,8 +154,11 @@ def _scenario_entry(plan: Plan, seed: int, scenario: Any, execution: Execution, 
 
 def _run(plan: Plan, seed: int, label: str, scenario: Any, replicates: int, execution: Execution,
          pool: WorkerPool, progress: Callable[[str], Progress] | None) -> list[DatasetOutcome]:
+    from planrunner.pipeline.run import available_memory
+
     used = used_datasets(plan)
     task = SimulationTask(plan, seed, label, ModelData(dict(scenario.datasets), plan, used), used)
+    check_memory(task, execution.workers, available_memory())
     hook = progress(label) if progress is not None else None
     return run_scenario(task, replicates, execution=execution, progress=hook,
                         pool=pool if execution.executor != "serial" else None)
