@@ -174,3 +174,16 @@ def test_a_scenario_that_would_not_fit_in_memory_is_refused_before_computing(fil
     err = capsys.readouterr().err
     assert "resources" in err and "memory" in err and "analysis 'primary'" in err
     assert not (tmp_path / "out").exists()
+
+
+def test_replicates_from_the_command_line_replace_every_scenario_s_and_are_recorded(files, tmp_path, capsys):
+    plan, scenarios = files
+    assert main(["simulate", str(plan), "--scenarios", str(scenarios), "--out", str(tmp_path / "out"),
+                 "--replicates", "2", "--quiet"]) == 0
+    folder = Path(capsys.readouterr().out.strip())
+    document = json.loads((folder / "simulation.json").read_text(encoding="utf-8"))
+    assert document["scenarios_file"]["replicates_replaced_by"] == 2
+    assert [s["replicates"] for s in document["scenarios"]] == [2, 2]
+    assert all(p["power"]["of"] == 2 for p in document["search"]["points"])
+    assert main(["simulate", str(plan), "--scenarios", str(scenarios), "--replicates", "0"]) == 2
+    assert "--replicates: --replicates must be at least 1" in capsys.readouterr().err

@@ -329,6 +329,7 @@ TRACE: dict[str, tuple[str, ...]] = {
         SIMCLI + "test_an_interrupt_leaves_no_folder",
         SIMCLI + "test_bad_input_gets_one_located_message",
         SIMCLI + "test_the_scenarios_file_is_required",
+        SIMCLI + "test_replicates_from_the_command_line_replace_every_scenario_s_and_are_recorded",
         SIMCLI + "test_a_scenario_that_would_not_fit_in_memory_is_refused_before_computing",
         SIMRUN + "test_a_table_from_columns_passes_through_derive_rows_where_and_sets",
         SIMRUN + "test_a_column_outside_its_declaration_is_refused_with_its_rows",

@@ -25,6 +25,9 @@ def add_simulate_verb(verbs: Any) -> None:
     simulate.add_argument("--refuse-deviations", action="store_true",
                           help="stop before simulating if the plan deviates from its lock, or has none")
     simulate.add_argument("--param", action="append", metavar="NAME=VALUE", help="a value for a plan parameter")
+    simulate.add_argument("--replicates", type=int, metavar="N",
+                          help="data sets of every scenario and search size instead of the file's (a quick look; "
+                               "written into simulation.json)")
     add_execution_options(simulate)
 
 
@@ -64,7 +67,8 @@ def simulate(args: argparse.Namespace, argv: list[str]) -> int:
     try:
         outcome = simulate_plan(args.plan, args.scenarios, out=args.out, execution=execution,
                                 progress=bar.for_scenario, command=["planrunner", *argv], lock=args.lock,
-                                refuse_deviations=args.refuse_deviations, params=parse_assignments(args.param))
+                                refuse_deviations=args.refuse_deviations, params=parse_assignments(args.param),
+                                replicates=args.replicates)
     finally:
         bar.close()
     if args.quiet:

@@ -12,13 +12,14 @@ from __future__ import annotations
 
 import datetime as dt
 from collections.abc import Callable, Mapping
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from pathlib import Path
 from typing import Any
 
 import numpy as np
 
 from planrunner.engines.streams import DRAW_BLOCK, GENERATOR
+from planrunner.errors import PlanError
 from planrunner.execute.executors import Execution
 from planrunner.execute.signals import stopping_on_termination
 from planrunner.plan.schema import Plan
@@ -94,10 +95,11 @@ def simulate_plan(plan_path: str | Path, scenarios_path: str | Path, *, out: str
                   execution: Execution | None = None, progress: Callable[[str], Progress] | None = None,
                   command: list[str] | None = None, clock: Callable[[], dt.datetime] = utc_now,
                   lock: str | Path | None = None, refuse_deviations: bool = False,
-                  params: dict[str, str] | None = None) -> SimulationOutcome:
+                  params: dict[str, str] | None = None, replicates: int | None = None) -> SimulationOutcome:
     """Simulate every scenario (and the search) and write a new folder. ``progress(label)`` gives
-    the progress hook of each scenario's data sets. An interrupt leaves nothing behind: the folder
-    is written only when every number is in (trail/store.py)."""
+    the progress hook of each scenario's data sets. ``replicates`` replaces every scenario's number
+    of data sets (a quick look; the document says so). An interrupt leaves nothing behind: the
+    folder is written only when every number is in (trail/store.py)."""
     from planrunner.pipeline.run import load_plan
     from planrunner.simulate.scenarios import load_scenarios
     from planrunner.trail.files import lock_for_run
@@ -107,6 +109,12 @@ def simulate_plan(plan_path: str | Path, scenarios_path: str | Path, *, out: str
     # simulated data have no files: the lock is compared for the plan only
     lock_entry = lock_for_run(loaded, {}, lock, refuse_deviations=refuse_deviations)
     scenarios = load_scenarios(Path(scenarios_path), loaded.plan)
+    if replicates is not None:
+        if replicates < 1:
+            raise PlanError(f"--replicates must be at least 1, got {replicates}", where="--replicates",
+                            hint="give the number of data sets of every scenario, e.g. --replicates 100")
+        scenarios = replace(scenarios, scenarios=tuple(replace(s, replicates=replicates)
+                                                       for s in scenarios.scenarios))
     execution = execution or Execution()
     plan = loaded.plan
     with stopping_on_termination(), WorkerPool(execution) as pool:
@@ -122,7 +130,9 @@ def simulate_plan(plan_path: str | Path, scenarios_path: str | Path, *, out: str
         "plan": {"id": plan.plan, "title": plan.title, "file": loaded.file.name, "sha256": loaded.sha256,
                  "lock": lock_entry, "parameters": dict(values)},
         "scenarios_file": {"file": Path(scenarios_path).name, "sha256": scenarios.sha256,
-                           "title": scenarios.title, "description": scenarios.description, "text": scenarios.text},
+                           "title": scenarios.title, "description": scenarios.description, "text": scenarios.text,
+                           # None: every scenario ran the data sets the file gives it
+                           "replicates_replaced_by": replicates},
         "seed": {"simulation": scenarios.seed, "plan": plan.seed, "derivation": STREAMS},
         "environment": _environment(),
         "execution": execution.describe(),
