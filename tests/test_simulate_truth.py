@@ -1,5 +1,5 @@
 """True values of a statistic under a scenario's model (planrunner/simulate/truth.py) against
-scipy.stats' own means and medians of each family, and the cases where none is defined."""
+scipy.stats' own means and medians of each family (V-SIM-TRUTH), and the cases where none is defined."""
 
 from __future__ import annotations
 
@@ -95,7 +95,7 @@ def test_discrete_means_equal_scipy_and_their_medians_are_not_defined(tmp_path, 
 
 def test_a_filter_on_the_outcome_or_covariates_leave_the_true_value_undefined(tmp_path):
     lognormal = {"family": "lognormal", "meanlog": 1.0, "sdlog": 0.7}
-    plan = setup(tmp_path, "mean_difference", rows_where="y < 100")
+    plan = setup(tmp_path, "mean_difference", rows_where="y * 2 < 100")
     found = true_value(plan.analyses[0], plan, model("y", lognormal, {"meanlog": 1.2}))
     assert found["value"] is None and "rows_where reads y" in found["reason"]
     plan = setup(tmp_path, "mean_difference", rows_where="x < 100")  # x has no model: independent of y
@@ -108,3 +108,29 @@ def test_a_filter_on_the_outcome_or_covariates_leave_the_true_value_undefined(tm
     assert "covariates" in true_value(plan.analyses[0], plan, with_covariate)["reason"]
     plan = setup(tmp_path, "hodges_lehmann")
     assert true_value(plan.analyses[0], plan, model("y", lognormal, {}))["value"] is None
+
+
+@pytest.mark.parametrize(("family", "first"), CASES)
+@pytest.mark.parametrize("rows_where", ["y < 7.5", "y >= 2.5"])
+def test_a_filter_of_the_outcome_against_a_number_gives_the_truncated_law(tmp_path, family, first, rows_where):
+    """The mean of the kept rows against scipy's numerical conditional expectation; the median is the
+    point that halves the kept probability."""
+    column = "x" if family["family"] == "normal" else "y"
+    condition = rows_where.replace("y", column)
+    plan = setup(tmp_path, "mean_difference", outcome=column, rows_where=condition)
+    low, high = (-math.inf, 7.5) if "<" in rows_where else (2.5, math.inf)
+    laws = [scipy_law(family["family"], {**family, **first}), scipy_law(family["family"], family)]
+    found = true_value(plan.analyses[0], plan, model(column, family, first))
+    expected = [law.expect(lambda v: v, lb=low, ub=high, conditional=True) for law in laws]  # scipy reference
+    # quad (inside expect) works to about 1.5e-8 of each integral: abs 1e-7 on their difference
+    assert found["value"] == pytest.approx(expected[0] - expected[1], rel=1e-7, abs=1e-7)
+    assert "rows kept" in found["formula"]
+    median = setup(tmp_path, "median_difference", outcome=column, rows_where=condition)
+    found = true_value(median.analyses[0], median, model(column, family, first))
+    halves = []
+    for law in laws:
+        def excess(m, law=law):
+            return law.cdf(m) - (law.cdf(low) + law.cdf(high)) / 2.0
+        from scipy import optimize
+        halves.append(optimize.brentq(excess, -1e3, 1e4, xtol=1e-12))  # scipy reference
+    assert found["value"] == pytest.approx(halves[0] - halves[1], rel=1e-8, abs=1e-9)

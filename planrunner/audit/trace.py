@@ -344,7 +344,8 @@ TRACE: dict[str, tuple[str, ...]] = {
         SIMCHECK + "test_shares_carry_the_exact_clopper_pearson_interval",
         "tests/test_simulate_truth.py::test_differences_and_ratios_of_each_family_equal_scipy",
         "tests/test_simulate_truth.py::test_discrete_means_equal_scipy_and_their_medians_are_not_defined",
-        "tests/test_simulate_truth.py::test_a_filter_on_the_outcome_or_covariates_leave_the_true_value_undefined"),
+        "tests/test_simulate_truth.py::test_a_filter_on_the_outcome_or_covariates_leave_the_true_value_undefined",
+        "tests/test_simulate_truth.py::test_a_filter_of_the_outcome_against_a_number_gives_the_truncated_law"),
     "The sample-size search": (SIMCLI + "test_simulate_writes_a_hashed_document_and_both_reports",),
 }
 

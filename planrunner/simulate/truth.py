@@ -17,15 +17,21 @@ changes), the population mean and median are
 and the statistic's true value follows from them: a difference of the two groups' means or
 medians (first minus second, as `groups.compare` orders them), a ratio of means, or the mean of one
 group; an analysis without groups on a dataset with groups has the size-weighted mean of the group
-means. Anything else is "not defined", with the reason, rather than a guess: covariates, a cluster
-effect, pairs or censoring (their marginal distributions depend on how they are drawn), a
-rows_where filter or analysis set that reads the outcome or a column with covariates (it truncates
-the outcome), a derived outcome, a statistic without a formula here.
+means. A rows_where filter or set that keeps the outcome on one side of a number (`y < 1440`) truncates
+a continuous family to (low, high): its median is the quantile at F(low) + (F(high) − F(low))/2 and its
+mean (E[X; X ≤ high] − E[X; X ≤ low]) / (F(high) − F(low)), with the partial expectations in closed
+form (normal: μΦ(z) − σφ(z); lognormal: e^(μ+σ²/2)Φ((ln x − μ − σ²)/σ); gamma and exponential:
+kθ·P(k + 1, x/θ); Weibull: λΓ(1 + 1/k)·P(1 + 1/k, (x/λ)^k), P the regularised lower incomplete
+gamma function). Anything else is "not defined", with the reason, rather than a guess: covariates, a
+cluster effect, pairs or censoring (their marginal distributions depend on how they are drawn), any
+other filter or set that reads the outcome or a column with covariates, a derived outcome, a
+statistic without a formula here.
 """
 
 from __future__ import annotations
 
 import math
+import re
 from typing import Any
 
 from planrunner.plan.derived import derivations, needed_by
@@ -72,6 +78,63 @@ def family_median(family: str, p: dict[str, float]) -> float | None:
     return None  # a discrete family: a sample median of ties has no single population value
 
 
+CONTINUOUS = ("normal", "lognormal", "gamma", "exponential", "weibull")
+# a row filter a closed form can follow: the outcome against one number ("y < 1440")
+_BOUND = re.compile(r"^\s*([A-Za-z_][A-Za-z0-9_]*)\s*(<=|>=|<|>)\s*([-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?)\s*$")
+
+
+def _law(family: str, p: dict[str, float]) -> Any:
+    from scipy import stats
+
+    return {"normal": lambda: stats.norm(p["mean"], p["sd"]),
+            "lognormal": lambda: stats.lognorm(p["sdlog"], scale=math.exp(p["meanlog"])),
+            "gamma": lambda: stats.gamma(p["shape"], scale=p["scale"]),
+            "exponential": lambda: stats.expon(scale=p["mean"]),
+            "weibull": lambda: stats.weibull_min(p["shape"], scale=p["scale"])}[family]()
+
+
+def _partial_mean(family: str, p: dict[str, float], x: float) -> float:
+    """E[X · 1(X ≤ x)] in closed form (x may be ±inf)."""
+    from scipy import special, stats
+
+    if x == -math.inf or (x <= 0 and family != "normal"):
+        return 0.0
+    if family == "normal":
+        z = (x - p["mean"]) / p["sd"]
+        return p["mean"] * float(stats.norm.cdf(z)) - p["sd"] * float(stats.norm.pdf(z))
+    if family == "lognormal":
+        mu, sigma = p["meanlog"], p["sdlog"]
+        return math.exp(mu + sigma ** 2 / 2.0) * float(stats.norm.cdf((math.log(x) - mu - sigma ** 2) / sigma))
+    if family in ("gamma", "exponential"):
+        shape, scale = (p["shape"], p["scale"]) if family == "gamma" else (1.0, p["mean"])
+        return shape * scale * float(special.gammainc(shape + 1.0, x / scale))
+    shape, scale = p["shape"], p["scale"]  # weibull
+    return scale * math.gamma(1.0 + 1.0 / shape) * float(special.gammainc(1.0 + 1.0 / shape, (x / scale) ** shape))
+
+
+def truncated(of: str, family: str, p: dict[str, float], low: float, high: float) -> float | None:
+    """The mean or median of the family's law restricted to (low, high): the median is the quantile at
+    F(low) + (F(high) − F(low))/2, the mean (E[X; X ≤ high] − E[X; X ≤ low]) / (F(high) − F(low))."""
+    if family not in CONTINUOUS:
+        return None
+    law = _law(family, p)
+    f_low, f_high = float(law.cdf(low)), float(law.cdf(high))
+    if not f_high > f_low:
+        return None
+    if of == "median":
+        return float(law.ppf(f_low + (f_high - f_low) / 2.0))
+    return (_partial_mean(family, p, high) - _partial_mean(family, p, low)) / (f_high - f_low)
+
+
+def outcome_bounds(condition: str, outcome: str) -> tuple[float, float] | None:
+    """(low, high) when a filter keeps the rows whose outcome is on one side of a number, else None."""
+    found = _BOUND.match(condition)
+    if found is None or found.group(1) != outcome:
+        return None
+    value = float(found.group(3))
+    return (-math.inf, value) if found.group(2) in ("<", "<=") else (value, math.inf)
+
+
 def group_parameters(column: Any, level: str | None) -> dict[str, float]:
     """The column's family parameters in one group: the model's, with the group's changes."""
     written = {k: v for k, v in column.model.model_dump().items() if k != "family" and v is not None}
@@ -89,12 +152,27 @@ def true_value(analysis: Any, plan: Plan, datasets: Any) -> dict[str, Any]:
     column = None if model is None else model.columns.get(outcome)
     if column is None:
         return not_defined(f"'{outcome}' has no model in the scenario (it is derived or filled from rows)")
+    conditions = [c for c in (spec.rows_where, spec.sets.get(analysis.set) if analysis.set is not None else None)
+                  if c is not None]
+    bounds = [b for b in (outcome_bounds(c, outcome) for c in conditions) if b is not None]
     why = _blocking(analysis, spec, model, column)
     if why is not None:
         return not_defined(why)
-    of = family_mean if analysis.statistic in MEAN_STATISTICS else family_median
-    what = "mean" if of is family_mean else "median"
+    what = "mean" if analysis.statistic in MEAN_STATISTICS else "median"
     family = column.model.family
+    low, high = max([-math.inf, *(b[0] for b in bounds)]), min([math.inf, *(b[1] for b in bounds)])
+    if bounds and family not in CONTINUOUS:
+        return not_defined(f"a filter on the outcome of a {family} column")
+
+    summary = what
+
+    def of(family: str, p: dict[str, float]) -> float | None:
+        if not bounds:
+            return family_mean(family, p) if summary == "mean" else family_median(family, p)
+        return truncated(summary, family, p, low, high)
+
+    if bounds:
+        what = f"{what} of the rows kept ({' and '.join(c for c in conditions if outcome_bounds(c, outcome))})"
     groups = model.rows.groups
     if analysis.groups is not None:
         first, second = analysis.groups.compare[:2] if len(analysis.groups.compare) == 2 else (None, None)
@@ -115,8 +193,8 @@ def true_value(analysis: Any, plan: Plan, datasets: Any) -> dict[str, Any]:
         return not_defined(f"the {family} family's {what} is not used (discrete)")
     if len(set(values)) == 1:
         return {"value": values[0], "formula": f"{what} ({family})"}
-    if what == "median":
-        return not_defined("the median of a mixture of groups has no closed form")
+    if what != "mean":
+        return not_defined("the median of a mixture of groups (or a filtered mean) has no closed form here")
     sizes = [groups.sizes[level] for level in levels]
     return {"value": sum(v * n for v, n in zip(values, sizes)) / sum(sizes),
             "formula": f"group-size-weighted mean of the group means ({family})"}
@@ -136,8 +214,8 @@ def _blocking(analysis: Any, spec: Any, model: Any, column: Any) -> str | None:
     linked = {analysis.outcome} | {name for name, c in model.columns.items() if c.covariates}
     for what, condition in (("rows_where", spec.rows_where),
                             ("set", spec.sets.get(analysis.set) if analysis.set is not None else None)):
-        if condition is None:
-            continue
+        if condition is None or outcome_bounds(condition, analysis.outcome) is not None:
+            continue  # none, or the outcome on one side of a number: the truncated law has a closed form
         named = parse_expression(condition).columns
         derived = derivations(spec)
         read = set(named) | {c for d in needed_by(spec, named) for c in derived[d].columns}
