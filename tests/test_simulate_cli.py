@@ -101,6 +101,11 @@ def test_simulate_writes_a_hashed_document_and_both_reports(files, tmp_path, cap
     html = (folder / "simulation.html").read_text(encoding="utf-8")
     assert "Caution." in html and "<svg" in html and "regulations" in html
     assert (folder / "figures" / "power.svg").read_text(encoding="utf-8").startswith("<?xml")
+    # the reports are views of the document: drawn again, the same bytes (byte-stable SVG)
+    from planrunner.simulate.report import render_simulation
+    again = render_simulation(document)
+    assert again["simulation.html"] == html
+    assert again["figures/coverage.svg"] == (folder / "figures" / "coverage.svg").read_text(encoding="utf-8")
 
 
 def compared(document: dict) -> dict:
