@@ -67,6 +67,7 @@ def coverage_plot(document: dict[str, Any]) -> Any:
     ax.set_yticks(ys, [p[0] for p in points], fontsize=7)
     ax.set_xlabel("coverage (dot: simulated, bar: 95% Monte Carlo interval, tick: nominal level)")
     fig.set_size_inches(7.0, 1.0 + 0.3 * len(points))
+    plots.fit_margins(ax, 1)  # room for the long tick labels (the figures have no layout engine)
     alt = "Coverage against nominal level: " + "; ".join(
         f"{label}: {percent(rate)} (nominal {percent(nominal)})" for label, nominal, rate, _, _ in points)
     return plots.Plot("coverage", plots._svg(fig), alt)

@@ -11,6 +11,7 @@ The document is built once and nothing edits it afterwards; the reports are view
 from __future__ import annotations
 
 import datetime as dt
+import json
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass, replace
 from pathlib import Path
@@ -23,6 +24,7 @@ from planrunner.errors import PlanError
 from planrunner.execute.executors import Execution
 from planrunner.execute.signals import stopping_on_termination
 from planrunner.plan.schema import Plan
+from planrunner.record.build import to_json
 from planrunner.record.canonical import self_hash
 from planrunner.simulate.metrics import analysis_metrics, share
 from planrunner.simulate.run import (
@@ -141,7 +143,8 @@ def simulate_plan(plan_path: str | Path, scenarios_path: str | Path, *, out: str
         "caution": CAUTION,
     }
     digest = self_hash(body, HASH_FIELD)
-    document = {**body, HASH_FIELD: digest}
+    # as simulation.json holds it (keys sorted), so that the reports are views of the file itself
+    document = json.loads(to_json({**body, HASH_FIELD: digest}))
     root = Path(out) if out is not None else loaded.folder / "simulations"
     name = f"{plan.plan}-simulation-{started.strftime('%Y%m%dT%H%M%SZ')}-{digest[:8]}"
     return SimulationOutcome(write_simulation(root, name, document), document)
@@ -231,7 +234,6 @@ def _search(plan: Plan, scenarios: Any, execution: Execution, pool: WorkerPool,
 def write_simulation(root: Path, name: str, document: dict) -> Path:
     """simulation.json, simulation.html, simulation.md and its figures as a new folder (never
     over an existing one: trail/store.py)."""
-    from planrunner.record.build import to_json
     from planrunner.simulate.report import render_simulation
     from planrunner.trail.store import write_new_folder
 
