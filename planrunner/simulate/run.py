@@ -271,7 +271,7 @@ class WorkerPool:
         elif kind == "processes":
             import multiprocessing
 
-            from planrunner.execute.executors import ignore_interrupts
+            from planrunner.execute.rangework import ignore_interrupts
             self._pool = multiprocessing.get_context("spawn").Pool(self.execution.workers,
                                                                    initializer=ignore_interrupts)
         elif kind == "dask":
