@@ -192,3 +192,18 @@ def test_replicates_from_the_command_line_replace_every_scenario_s_and_are_recor
     assert all(p["power"]["of"] == 2 for p in document["search"]["points"])
     assert main(["simulate", str(plan), "--scenarios", str(scenarios), "--replicates", "0"]) == 2
     assert "--replicates: --replicates must be at least 1" in capsys.readouterr().err
+
+
+def test_the_lock_is_checked_as_a_run_checks_it(files, tmp_path, capsys):
+    plan, scenarios = files
+    assert main(["lock", str(plan), "--operator", "A. Tester"]) == 0
+    plan.write_text(PLAN.replace("defaults: {resamples: 199}", "defaults: {resamples: 99}"), encoding="utf-8")
+    capsys.readouterr()
+    assert main(["simulate", str(plan), "--scenarios", str(scenarios), "--out", str(tmp_path / "out"),
+                 "--replicates", "1", "--quiet"]) == 0
+    folder = Path(capsys.readouterr().out.strip())
+    lock = json.loads((folder / "simulation.json").read_text(encoding="utf-8"))["plan"]["lock"]
+    assert [d["path"] for d in lock["deviations"]] == ["defaults.resamples"]
+    assert "1 deviation(s) from the locked plan" in (folder / "simulation.md").read_text(encoding="utf-8")
+    assert main(["simulate", str(plan), "--scenarios", str(scenarios), "--refuse-deviations"]) == 2
+    assert "defaults.resamples: locked 199, now 99" in capsys.readouterr().err

@@ -331,6 +331,7 @@ TRACE: dict[str, tuple[str, ...]] = {
         SIMCLI + "test_the_scenarios_file_is_required",
         SIMCLI + "test_replicates_from_the_command_line_replace_every_scenario_s_and_are_recorded",
         SIMCLI + "test_a_scenario_that_would_not_fit_in_memory_is_refused_before_computing",
+        SIMCLI + "test_the_lock_is_checked_as_a_run_checks_it",
         SIMRUN + "test_a_table_from_columns_passes_through_derive_rows_where_and_sets",
         SIMRUN + "test_a_column_outside_its_declaration_is_refused_with_its_rows",
         SIMRUN + "test_a_data_set_an_analysis_cannot_use_is_counted_with_its_message",
