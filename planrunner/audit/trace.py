@@ -290,7 +290,15 @@ TRACE: dict[str, tuple[str, ...]] = {
         "tests/test_permutation_executors.py::"
         "test_permutation_designs_identical_serial_threads_processes_and_dask"),
     "Start-up": ("tests/test_startup.py::test_version_loads_no_heavy_library",
-                 "tests/test_startup.py::test_plan_only_check_loads_no_heavy_library"),
+                 "tests/test_startup.py::test_plan_only_check_loads_no_heavy_library",
+                 "tests/test_startup.py::test_the_probe_sees_the_libraries_a_run_needs_and_no_more",
+                 "tests/test_startup.py::test_demo_record_numbers_are_unchanged",
+                 "tests/test_startup.py::test_compiled_templates_from_the_cache_render_the_same_pages",
+                 "tests/test_light_paths.py::test_ranks_equal_scipy_on_edges",
+                 "tests/test_light_paths.py::test_clopper_pearson_is_scipy_beta_quantiles_bit_for_bit",
+                 "tests/test_light_paths.py::test_plain_decimals_read_as_pandas_reads_them",
+                 "tests/test_light_paths.py::test_plain_dates_read_as_pandas_reads_them",
+                 "tests/test_light_paths.py::test_results_parquet_is_the_file_pyarrow_writes_from_lists"),
     "Scaling in n and B, and the command line end to end": (
         "tests/test_columnar.py::test_a_plain_file_is_read_by_the_fast_path",
         "tests/test_startup.py::test_version_loads_no_heavy_library",
