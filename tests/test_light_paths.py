@@ -12,7 +12,7 @@ import pandas as pd
 import pytest
 from scipy import stats
 
-from planrunner.data.tables import _plain_dates, _plain_numbers
+from planrunner.data.tables import PLAIN_VALUES_UP_TO, _plain_dates, _plain_numbers
 from planrunner.engines.pvalues import clopper_pearson
 from planrunner.engines.ranks import rankdata
 
@@ -92,6 +92,9 @@ def test_plain_decimals_read_as_pandas_reads_them():
     assert fast > 300  # many columns took the fast path
     # a leading "+" is left to pandas: there it reads this decimal one unit in the last place off
     assert _plain_numbers(np.array(["+78.22757975010367114"])) is None
+    # a long column goes to pandas, whose parser repays its import there
+    assert _plain_numbers(np.array(["1.5"] * PLAIN_VALUES_UP_TO)) is not None
+    assert _plain_numbers(np.array(["1.5"] * (PLAIN_VALUES_UP_TO + 1))) is None
 
 
 def test_plain_dates_read_as_pandas_reads_them():

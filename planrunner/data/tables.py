@@ -38,6 +38,9 @@ INT64_MAX = 2**63 - 1  # an integer column holds 64-bit integers: beyond this it
 FLOAT_EXACT = 2**53  # a double holds every whole number up to here, and not every one above
 _ISO_DATE = re.compile(r"\d{4}-\d{2}-\d{2}")
 _PLAIN_DATE = re.compile(r"[0-9]{4}-[0-9]{2}-[0-9]{2}")
+# a column of plain decimals or dates up to this many values is read without pandas (a value costs
+# about half again as much as in pandas' parser, importing pandas half a second)
+PLAIN_VALUES_UP_TO = 200_000
 # a decimal that pandas' to_numeric and Python's float read as the same double (no "+": pandas then
 # reads some decimals one unit in the last place off; tests/test_light_paths.py compares them)
 _PLAIN_NUMBER = re.compile(r"-?(?:[0-9]+(?:\.[0-9]*)?|\.[0-9]+)(?:[eE][+-]?[0-9]{1,4})?")
@@ -641,7 +644,8 @@ def _convert(values: np.ndarray, keep: np.ndarray, name: str, spec: Column, show
             raise refuse(bad, "are not true/false", "use true/false, yes/no or 1/0")
         return truth
     if kind == "date":
-        plain = _plain_dates(values, keep)  # 1970-01-01 for the rows not kept, as below
+        # 1970-01-01 for the rows not kept, as below
+        plain = _plain_dates(values, keep) if values.size <= PLAIN_VALUES_UP_TO else None
         if plain is not None:
             return plain
         import pandas as pd
@@ -667,16 +671,20 @@ def _convert(values: np.ndarray, keep: np.ndarray, name: str, spec: Column, show
 def _plain_numbers(text: np.ndarray) -> np.ndarray | None:
     """The column as doubles without pandas, when every text is a plain ASCII decimal of at most 40
     characters that pandas' `to_numeric` reads as Python's correctly rounded `float` does (see
-    `_PLAIN_NUMBER`); None otherwise (then
-    pandas decides, as it always has). pandas reads a column of integers alone (none with a point or
-    an exponent, each within 64 bits) as integers first, so '-0' there is +0.0: that path is kept."""
-    if any(len(v) > 40 or _PLAIN_NUMBER.fullmatch(v) is None for v in text.tolist()):
+    `_PLAIN_NUMBER`); None otherwise (then pandas decides, as it always has), and for a column of
+    more than `PLAIN_VALUES_UP_TO` values, where pandas' parser repays its import. pandas reads a column
+    of integers alone (none with a point or an exponent, each within 64 bits) as integers first, so
+    '-0' there is +0.0: that path is kept."""
+    if text.size > PLAIN_VALUES_UP_TO:
         return None
-    if any(("." in v or "e" in v or "E" in v) for v in text.tolist()):
-        return np.array([float(v) for v in text.tolist()], dtype=np.float64)
-    if any(len(v.lstrip("-")) > 18 for v in text.tolist()):
+    values = text.tolist()
+    if any(len(v) > 40 or _PLAIN_NUMBER.fullmatch(v) is None for v in values):
+        return None
+    if any(("." in v or "e" in v or "E" in v) for v in values):
+        return np.array([float(v) for v in values], dtype=np.float64)
+    if any(len(v.lstrip("-")) > 18 for v in values):
         return None  # beyond int64, pandas' own conversions decide
-    return np.array([int(v) for v in text.tolist()], dtype=np.int64).astype(np.float64)
+    return np.array([int(v) for v in values], dtype=np.int64).astype(np.float64)
 
 
 def _exact_integer(text: str) -> int | None:
