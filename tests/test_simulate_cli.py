@@ -113,12 +113,14 @@ def compared(document: dict) -> dict:
 
 
 def test_every_executor_writes_the_same_numbers(files, tmp_path):
+    """serial and threads here; processes and dask give the runner's same outcomes
+    (test_simulate_run::test_every_executor_gives_the_same_outcomes), from which the document is made"""
     plan, scenarios = files
     documents = [simulate_plan(plan, scenarios, out=tmp_path / execution.executor, execution=execution,
                                clock=fixed_clock).document
-                 for execution in (Execution(), Execution("threads", 2), Execution("processes", 2))]
+                 for execution in (Execution(), Execution("threads", 2))]
     assert compared(documents[1]) == compared(documents[0])
-    assert compared(documents[2]) == compared(documents[0])
+    assert documents[1]["execution"]["executor"] == "threads"
 
 
 def test_an_interrupt_leaves_no_folder(files, tmp_path, monkeypatch, capsys):
