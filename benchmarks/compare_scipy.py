@@ -9,6 +9,8 @@ Run from the repository root (not part of the test suite; it takes a few minutes
     python benchmarks/compare_scipy.py --workers 2 --threads   # ... or on 2 threads
     python benchmarks/compare_scipy.py --end-to-end    # the command line: check and run, wall time and peak RSS
     python benchmarks/compare_scipy.py --scaling       # a bootstrap of the mean over a grid of n and B
+    python benchmarks/compare_scipy.py --executors     # serial, threads, processes, dask side by side
+                                                       # (benchmarks/executors.py, in a fresh interpreter)
 
 For each workload the two computations are timed alternately (ours, scipy, ours, scipy, ...) so
 that a busy machine slows both alike; the table shows the median time of each, their ratio
@@ -397,6 +399,16 @@ def scaling(repeats: int, seed: int) -> int:
     return 0
 
 
+def executors_section(repeats: int) -> int:
+    """benchmarks/executors.py in a fresh interpreter: its worker processes are spawned, and a
+    spawned worker runs its parent's main module's imports again (this module's scipy.stats among
+    them), which a `planrunner run` worker never pays."""
+    import subprocess
+
+    script = Path(__file__).resolve().parent / "executors.py"
+    return subprocess.run([sys.executable, str(script), "--repeats", str(repeats)]).returncode
+
+
 def main(argv: list[str] | None = None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
     parser.add_argument("--repeats", type=int, default=5, help="timed runs of each side (median reported)")
@@ -411,7 +423,12 @@ def main(argv: list[str] | None = None) -> int:
                              "(wall time and peak RSS of each command), then stop")
     parser.add_argument("--scaling", action="store_true",
                         help="time a bootstrap of the mean over a grid of n and B, then stop")
+    parser.add_argument("--executors", action="store_true",
+                        help="run benchmarks/executors.py (the issue's bootstrap and permutation workloads on "
+                             "serial, 2 threads, 2 processes and dask, wall and CPU time), then stop")
     args = parser.parse_args(argv)
+    if args.executors:
+        return executors_section(args.repeats)
     if args.end_to_end:
         return end_to_end(args.repeats)
     if args.scaling:

@@ -156,6 +156,24 @@ def test_interrupt_stops_cleanly_without_a_record(demo: Path, tmp_path: Path, mo
     assert not out.exists() or list(out.iterdir()) == []
 
 
+@pytest.mark.parametrize(("options", "expected"), [
+    ([], ("serial", 1)), (["--workers", "2"], ("processes", 2)), (["--workers", "3"], ("processes", 3)),
+    (["--executor", "threads"], ("threads", 2)), (["--executor", "dask"], ("dask", 2)),
+    (["--scheduler", "tcp://127.0.0.1:8786"], ("dask", 2))])
+def test_workers_default_to_processes_the_executor_that_scales_on_every_design(options, expected) -> None:
+    """`--workers N` alone runs processes (README, "Executors side by side": threads scale poorly on
+    the permutation workload and not at all on the cluster permutation); an executor named without
+    --workers has two workers."""
+    import argparse
+
+    from planrunner.cli.options import add_execution_options, execution_of
+
+    parser = argparse.ArgumentParser()
+    add_execution_options(parser)
+    execution = execution_of(parser.parse_args(options))
+    assert (execution.executor, execution.workers) == expected
+
+
 def test_executor_choices_are_checked(demo: Path, capsys) -> None:
     assert cli.main(["run", str(demo), "--executor", "serial", "--workers", "3"]) == 2
     assert "serial executor runs one worker" in capsys.readouterr().err

@@ -278,6 +278,13 @@ TRACE: dict[str, tuple[str, ...]] = {
         "tests/test_engines_designs.py::test_order_fast_path_equals_plain_on_large_groups",
         "tests/test_engines_permutation.py::test_key_window_path_is_range_invariant_and_equals_plain",
         "tests/test_engines_randomization.py::test_sign_flip_byte_tables_equal_plain"),
+    # the timings are of one machine; the promises are the same numbers on every executor, light
+    # workers, dask ranges as cheap as a process's, and processes as the default of --workers N
+    "Executors side by side": (
+        "tests/test_execution.py::test_demo_plan_identical_serial_threads_processes_and_dask",
+        "tests/test_execution.py::test_a_task_reaches_a_worker_with_aligned_arrays_and_a_light_import",
+        "tests/test_execution.py::test_a_local_dask_cluster_keeps_the_adaptive_malloc_threshold",
+        "tests/test_execution.py::test_workers_default_to_processes_the_executor_that_scales_on_every_design"),
     # the timings are of one machine; the promise is that the replicates are the same on any executor
     "Schemes scipy does not offer: one worker against two": (
         "tests/test_resample_ranges.py::test_bootstrap_split_ranges_are_bit_identical",

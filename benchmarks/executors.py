@@ -1,0 +1,164 @@
+"""Serial, 2 threads, 2 processes and a 2-worker dask cluster side by side, in one process.
+
+Run from the repository root (not part of the test suite; about 2 minutes per repeat on an idle
+2-core machine):
+
+    python benchmarks/executors.py --repeats 3
+    python benchmarks/compare_scipy.py --executors --repeats 3     # the same, started from there
+
+Each workload is a plan whose jobs go through `execute_all` exactly as `planrunner run` sends them,
+so every executor pays its own start-up and tear-down (the pool's interpreters, the dask cluster)
+in every call, as a run does. The executors are run in turn within each repeat, so that a busy
+machine slows them alike; the table shows the median wall time, the median CPU time of this
+process and of every worker process it started (user + system, from getrusage: workers are
+counted once they are collected, which every executor does before it returns), the speed-up
+over the serial run (serial wall / wall), the CPU used beside the serial run's, and whether the
+results are the serial run's bit for bit (a SHA-256 of the pickled engine results).
+
+Wall-time speed-ups need an idle machine (`uptime` is printed before and after); the CPU columns
+show the overheads (start-up, copying, contention) on a busy one too.
+
+This module's own imports are light on purpose: worker processes are started with `spawn`, which
+runs the main module's imports again in every worker (a `planrunner run` worker imports only the
+command line's entry module), so the heavy imports are made inside `main`.
+"""
+
+from __future__ import annotations
+
+import argparse
+import hashlib
+import os
+import pickle
+import resource
+import statistics
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+EXECUTORS = ("serial", "threads", "processes", "dask")
+
+# name, words, rows, plan text, resamples; the data are invented (a skewed outcome), written to a temporary folder
+BOOTSTRAP_PLAN = """plan: executors-bootstrap
+title: Bootstrap of the mean on each executor
+seed: 7
+datasets:
+  d:
+    file: d.csv
+    columns:
+      g: {type: category, levels: [a, b]}
+      y: {type: number}
+analyses:
+  - id: mean
+    data: d
+    outcome: y
+    statistic: mean
+    method: bootstrap
+    resamples: RESAMPLES
+    intervals: [percentile]
+"""
+PERMUTATION_PLAN = """plan: executors-permutation
+title: Permutation test of a mean difference on each executor
+seed: 7
+datasets:
+  d:
+    file: d.csv
+    columns:
+      g: {type: category, levels: [a, b]}
+      y: {type: number}
+analyses:
+  - id: difference
+    data: d
+    outcome: y
+    groups: {by: g, compare: [b, a]}
+    statistic: mean_difference
+    method: permutation
+    resamples: RESAMPLES
+"""
+WORKLOADS = (
+    ("E0", "start-up and tear-down alone: bootstrap of the mean, n = 100, B = 1000", 100, BOOTSTRAP_PLAN, 1000),
+    ("E1", "bootstrap of the mean, n = 1e5, B = 2e4, percentile", 100_000, BOOTSTRAP_PLAN, 20_000),
+    ("E2", "permutation test, mean difference, 5000 + 5000 rows, 1e4 resamples", 10_000, PERMUTATION_PLAN, 10_000),
+)
+
+
+def _cpu_seconds() -> float:
+    """User + system CPU of this process and of its collected children (worker processes)."""
+    own, children = resource.getrusage(resource.RUSAGE_SELF), resource.getrusage(resource.RUSAGE_CHILDREN)
+    return own.ru_utime + own.ru_stime + children.ru_utime + children.ru_stime
+
+
+def _write_plan(folder: Path, rows: int, text: str, resamples: int) -> Path:
+    import numpy as np
+
+    folder.mkdir()
+    rng = np.random.default_rng(20261203)
+    values = rng.gamma(2.0, 10.0, rows)  # a skewed outcome
+    groups = np.where(np.arange(rows) % 2 == 0, "a", "b")
+    with (folder / "d.csv").open("w") as out:
+        out.write("g,y\n")
+        out.writelines(f"{g},{y!r}\n" for g, y in zip(groups, values.tolist()))
+    plan = folder / "plan.yaml"
+    plan.write_text(text.replace("RESAMPLES", str(resamples)))
+    return plan
+
+
+def _load() -> str:
+    return "load average " + " ".join(f"{x:.2f}" for x in os.getloadavg())
+
+
+def main(argv: list[str] | None = None) -> int:
+    parser = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
+    parser.add_argument("--repeats", type=int, default=3, help="runs of each executor (median reported)")
+    parser.add_argument("--workers", type=int, default=2, help="workers of the parallel executors")
+    parser.add_argument("--only", help="comma-separated workload names, e.g. E1")
+    parser.add_argument("--executors", default=",".join(EXECUTORS),
+                        help="comma-separated executors to compare (serial first: the reference)")
+    args = parser.parse_args(argv)
+
+    from planrunner import __version__
+    from planrunner.execute.executors import Execution, execute_all
+    from planrunner.pipeline.run import check_plan
+
+    names = args.executors.split(",")
+    if names[0] != "serial":
+        names.insert(0, "serial")
+    executions = {name: Execution() if name == "serial" else Execution(name, args.workers) for name in names}
+    chosen = None if args.only is None else set(args.only.upper().split(","))
+    print(f"planrunner {__version__}, Python {sys.version.split()[0]}, {os.cpu_count()} CPUs, "
+          f"repeats {args.repeats}, {args.workers} workers; {_load()}")
+    print(f"{'work':<4}  {'executor':<10} {'wall s':>7} {'CPU s':>7} {'speed-up':>9} {'CPU/serial':>10}  same numbers")
+    with tempfile.TemporaryDirectory() as tmp:
+        for name, words, rows, text, resamples in WORKLOADS:
+            if chosen is not None and name not in chosen:
+                continue
+            jobs = check_plan(_write_plan(Path(tmp) / name, rows, text, resamples)).jobs
+            assert jobs is not None
+            walls: dict[str, list[float]] = {n: [] for n in names}
+            cpus: dict[str, list[float]] = {n: [] for n in names}
+            digests: dict[str, set[str]] = {n: set() for n in names}
+            for _ in range(args.repeats):  # in turn: a busy machine slows every executor alike
+                for executor, execution in executions.items():
+                    cpu, start = _cpu_seconds(), time.perf_counter()
+                    results = execute_all(jobs, execution=execution)
+                    walls[executor].append(time.perf_counter() - start)
+                    cpus[executor].append(_cpu_seconds() - cpu)
+                    digests[executor].add(hashlib.sha256(pickle.dumps(results)).hexdigest())
+            serial_wall, serial_cpu = statistics.median(walls["serial"]), statistics.median(cpus["serial"])
+            for executor in names:
+                wall, cpu = statistics.median(walls[executor]), statistics.median(cpus[executor])
+                same = "yes" if digests[executor] == digests["serial"] and len(digests["serial"]) == 1 else "NO"
+                print(f"{name:<4}  {executor:<10} {wall:7.2f} {cpu:7.2f} {serial_wall / wall:8.2f}x "
+                      f"{cpu / serial_cpu:9.2f}x  {same}")
+            if "dask" in walls and "processes" in walls:
+                ratio = statistics.median(walls["dask"]) / statistics.median(walls["processes"])
+                print(f"{name:<4}  dask / processes wall: {ratio:.2f}x   ({words})")
+            else:
+                print(f"{name:<4}  ({words})")
+            sys.stdout.flush()
+    print(_load())
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
