@@ -39,9 +39,7 @@ from pathlib import Path
 EXECUTORS = ("serial", "threads", "processes", "dask")
 
 # name, words, rows, plan text, resamples; the data are invented (a skewed outcome), written to a temporary folder
-BOOTSTRAP_PLAN = """plan: executors-bootstrap
-title: Bootstrap of the mean on each executor
-seed: 7
+_DATA = """seed: 7
 datasets:
   d:
     file: d.csv
@@ -49,7 +47,10 @@ datasets:
       g: {type: category, levels: [a, b]}
       y: {type: number}
 analyses:
-  - id: mean
+"""
+BOOTSTRAP_PLAN = """plan: executors-bootstrap
+title: Bootstrap of the mean on each executor
+""" + _DATA + """  - id: mean
     data: d
     outcome: y
     statistic: mean
@@ -59,15 +60,7 @@ analyses:
 """
 PERMUTATION_PLAN = """plan: executors-permutation
 title: Permutation test of a mean difference on each executor
-seed: 7
-datasets:
-  d:
-    file: d.csv
-    columns:
-      g: {type: category, levels: [a, b]}
-      y: {type: number}
-analyses:
-  - id: difference
+""" + _DATA + """  - id: difference
     data: d
     outcome: y
     groups: {by: g, compare: [b, a]}
