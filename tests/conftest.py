@@ -3,10 +3,20 @@
 from __future__ import annotations
 
 import datetime as dt
+import os
 import textwrap
 from pathlib import Path
 
 import pytest
+from hypothesis import settings
+
+# The property tests draw the same examples on every run, so that the suite that gates a landing
+# cannot pass on one machine and fail on another by the luck of the draw; set
+# PLANRUNNER_HYPOTHESIS=explore to search new examples (and add any failure found as an @example).
+settings.register_profile("planrunner-fixed", derandomize=True, database=None)
+settings.register_profile("planrunner-explore")
+settings.load_profile("planrunner-explore" if os.environ.get("PLANRUNNER_HYPOTHESIS") == "explore"
+                      else "planrunner-fixed")
 
 FIXED_TIME = dt.datetime(2026, 12, 1, 9, 30, tzinfo=dt.UTC)
 
