@@ -359,12 +359,12 @@ def test_a_task_reaches_a_worker_with_aligned_arrays_and_a_light_import() -> Non
     raw = bytearray(8 * 1001)
     unaligned = np.frombuffer(raw, dtype=np.float64, count=1000, offset=3)
     assert not unaligned.flags.aligned
-    payload = executors._pickled(bind(_aligned_flags, unaligned, np.arange(5.0)))
+    payload = executors.pickled(bind(_aligned_flags, unaligned, np.arange(5.0)))
     assert rangework.call_cached_range("aligned-test", payload, 0, 1).tolist() == [True, True]
     # a worker process as the processes executor starts it; its task and the module listing come from
     # numpy and the standard library, so that unpickling them imports no test module
     with multiprocessing.get_context("spawn").Pool(1, initializer=rangework.ignore_interrupts) as pool:
-        ranged = pool.apply(rangework.call_cached_range, ("light", executors._pickled(bind(np.arange)), 2, 5))
+        ranged = pool.apply(rangework.call_cached_range, ("light", executors.pickled(bind(np.arange)), 2, 5))
         imported = pool.apply(eval, ("sorted(__import__('sys').modules)",))
     assert ranged.tolist() == [2, 3, 4]
     assert "planrunner.engines.blocks" in imported

@@ -126,3 +126,30 @@ def test_data_sets_differ_and_repeat(plan):
     assert first == again
     estimates = [o.analyses[1].estimate for o in first]
     assert len(set(estimates)) == 3
+
+
+class AlignedOnly(Shipments):
+    """Shipments that refuse to draw unless the array they carry is aligned where they run."""
+
+    def __init__(self, n: int, carried: np.ndarray):
+        super().__init__(n)
+        self.carried = carried
+
+    def __call__(self, rng: np.random.Generator) -> dict[str, dict[str, np.ndarray]]:
+        if not self.carried.flags.aligned:
+            raise DataError(f"the task's array arrived unaligned (address mod 8 = {self.carried.ctypes.data % 8})")
+        return super().__call__(rng)
+
+
+def test_a_simulation_task_reaches_a_dask_worker_as_pickled_bytes(plan):
+    """The dask path sends the task as pickled bytes, unpickled once per worker (execute/rangework), so
+    an array it carries gets an aligned buffer of its own, whatever the framework did to the message;
+    the same task run in place keeps its unaligned array and fails."""
+    unaligned = np.frombuffer(bytearray(8 * 11), dtype=np.float64, count=10, offset=3)
+    assert not unaligned.flags.aligned
+    task = SimulationTask(plan, 5, "foam", AlignedOnly(10, unaligned), used_datasets(plan))
+    assert "unaligned" in (run_scenario(task, 1)[0].analyses[0].failure or "")
+    execution = Execution("dask", 1, local_processes=False)
+    with WorkerPool(execution) as pool:
+        outcomes = run_scenario(task, 2, execution=execution, pool=pool)
+    assert [a.failure for o in outcomes for a in o.analyses] == [None] * 2 * len(plan.analyses)

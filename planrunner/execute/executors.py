@@ -205,11 +205,11 @@ def _serial(jobs: list[Job], tally: _Tally) -> list[Any]:
 _task_keys = itertools.count()  # tasks are known to workers by key (see rangework)
 
 
-def _new_task_key() -> str:
+def new_task_key() -> str:
     return f"{os.getpid()}-{next(_task_keys)}"
 
 
-def _pickled(value: Any) -> bytes:
+def pickled(value: Any) -> bytes:
     """What a worker process is sent: unpickled there with `pickle.loads`, each array in an aligned
     buffer of its own (see `rangework`)."""
     return pickle.dumps(value, protocol=pickle.HIGHEST_PROTOCOL)
@@ -307,7 +307,7 @@ def _cached_spreading(pool: Any, workers: int, tally: _Tally) -> Callable[[Range
     pickled task rides with the first range of each worker; a worker that gets a later range
     first answers that it needs the task, and that range is sent again with it."""
     def mapper(task: RangeTask, total: int) -> list[np.ndarray]:
-        key, payload = _new_task_key(), _pickled(task)
+        key, payload = new_task_key(), pickled(task)
         ranges = _ranges(total, workers)
         waiting = [pool.apply_async(call_cached_range, (key, payload if i < workers else None, start, stop))
                    for i, (start, stop) in enumerate(ranges)]
@@ -375,7 +375,7 @@ def _on_dask(jobs: list[Job], execution: Execution, tally: _Tally) -> list[Any]:
     client, cluster = dask_client(execution)
     futures: list[Any] = []
     try:
-        pending = {i: client.submit(_execute_pickled, _pickled(job), pure=False) for i, job in enumerate(jobs)
+        pending = {i: client.submit(_execute_pickled, pickled(job), pure=False) for i, job in enumerate(jobs)
                    if job.method == "jackknife"}
         futures.extend(pending.values())
 
@@ -385,8 +385,8 @@ def _on_dask(jobs: list[Job], execution: Execution, tally: _Tally) -> list[Any]:
         def submit(task: RangeTask, start: int, stop: int) -> Any:
             if id(task) not in scattered:
                 scattered.clear()  # the previous job's task is finished with
-                scattered[id(task)] = (task, _new_task_key(),
-                                       client.scatter(_pickled(task), broadcast=True, hash=False))
+                scattered[id(task)] = (task, new_task_key(),
+                                       client.scatter(pickled(task), broadcast=True, hash=False))
             _, key, payload = scattered[id(task)]
             futures.append(client.submit(call_cached_range, key, payload, start, stop, pure=False))
             return futures[-1]

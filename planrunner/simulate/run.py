@@ -288,8 +288,16 @@ class WorkerPool:
             waiting = [self._pool.apply_async(run_chunk, (task, a, b)) for a, b in ranges]
             return (w.get() for w in waiting)
         if kind == "dask":
-            shared = self._client.scatter(task, broadcast=True, hash=False)
-            futures = [self._client.submit(run_chunk, shared, a, b, pure=False) for a, b in ranges]
+            # as the run's dask ranges (execute/rangework): the task travels as pickled bytes, unpickled
+            # once per worker, so that its arrays get aligned buffers rather than places in a message frame
+            import functools
+
+            from planrunner.execute.executors import new_task_key, pickled
+            from planrunner.execute.rangework import call_cached_range
+
+            key = new_task_key()
+            payload = self._client.scatter(pickled(functools.partial(run_chunk, task)), broadcast=True, hash=False)
+            futures = [self._client.submit(call_cached_range, key, payload, a, b, pure=False) for a, b in ranges]
             return (f.result() for f in futures)
         return (run_chunk(task, a, b) for a, b in ranges)
 
