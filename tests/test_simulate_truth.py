@@ -134,3 +134,126 @@ def test_a_filter_of_the_outcome_against_a_number_gives_the_truncated_law(tmp_pa
         from scipy import optimize
         halves.append(optimize.brentq(excess, -1e3, 1e4, xtol=1e-12))  # scipy reference
     assert found["value"] == pytest.approx(halves[0] - halves[1], rel=1e-8, abs=1e-9)
+
+
+def designed(column: str, family: dict, first: dict, design: dict, **extra) -> dict:
+    """A model of two groups of 20 rows, paired or clustered as `design` says."""
+    return {"d": DatasetModel.model_validate({
+        "rows": {"groups": {"column": "g", "sizes": {"a": 20, "b": 20}}, **design},
+        "columns": {column: {"model": family, "by_group": {"a": first}, **extra}}})}
+
+
+PAIRED = {"pairs": {"column": "x", "correlation": 0.6}}
+CLUSTERED = {"clusters": {"column": "x", "count": 4, "icc": 0.3}}
+DISCRETE = [({"family": "bernoulli", "p": 0.3}, {"p": 0.45}), ({"family": "binomial", "size": 12, "p": 0.3},
+                                                               {"p": 0.5}),
+            ({"family": "poisson", "mean": 3.0}, {"mean": 4.5})]
+
+
+@pytest.mark.parametrize(("family", "first"), CASES + DISCRETE)
+def test_pairs_keep_each_rows_law_so_the_true_values_are_the_familys(tmp_path, family, first):
+    """Paired rows are correlated normal scores through each family's quantile function (generate.py),
+    so each row keeps its family's law: a difference of means (and, continuous, of medians) is scipy's."""
+    continuous = family["family"] not in ("bernoulli", "binomial", "poisson")
+    column = "y" if continuous else "k"
+    laws = [scipy_law(family["family"], {**family, **first}), scipy_law(family["family"], family)]
+    for statistic, expected in [("mean_difference", laws[0].mean() - laws[1].mean()),  # scipy reference
+                                ("median_difference", laws[0].median() - laws[1].median())]:  # scipy reference
+        plan = setup(tmp_path, statistic, outcome=column)
+        found = true_value(plan.analyses[0], plan, designed(column, family, first, PAIRED))
+        if statistic == "median_difference" and not continuous:
+            assert found["value"] is None and "discrete" in found["reason"]
+            continue
+        assert found["value"] == pytest.approx(expected, rel=1e-12, abs=1e-12)
+        assert "pairs" in found["formula"]
+
+
+@pytest.mark.parametrize(("family", "first"), [CASES[0], CASES[1], DISCRETE[0]])
+def test_clusters_of_normal_lognormal_and_bernoulli_keep_each_rows_law(tmp_path, family, first):
+    column = "y" if family["family"] != "bernoulli" else "k"
+    laws = [scipy_law(family["family"], {**family, **first}), scipy_law(family["family"], family)]
+    plan = setup(tmp_path, "mean_difference", outcome=column)
+    found = true_value(plan.analyses[0], plan, designed(column, family, first, CLUSTERED))
+    assert found["value"] == pytest.approx(laws[0].mean() - laws[1].mean(), rel=1e-12)  # scipy reference
+    assert "clusters" in found["formula"]
+    plan = setup(tmp_path, "ratio_of_means", outcome=column)
+    found = true_value(plan.analyses[0], plan, designed(column, family, first, CLUSTERED, icc=0.1))
+    assert found["value"] == pytest.approx(laws[0].mean() / laws[1].mean(), rel=1e-12)  # scipy reference
+    if family["family"] != "bernoulli":
+        plan = setup(tmp_path, "median_difference", outcome=column)
+        found = true_value(plan.analyses[0], plan, designed(column, family, first, CLUSTERED))
+        assert found["value"] == pytest.approx(laws[0].median() - laws[1].median(), rel=1e-12)  # scipy reference
+
+
+def test_a_clustered_poisson_count_is_negative_binomial_with_the_same_mean(tmp_path):
+    """The gamma–Poisson mixture of generate.py (rate multiplier Gamma(k, 1/k), k = mean·(1 − icc)/icc)
+    gives each row scipy's nbinom(k, k/(k + mean)): its mean is the poisson mean; its median is
+    discrete, so not used."""
+    from scipy import stats
+
+    icc = 0.3
+    means = {"a": 4.5, "b": 3.0}
+    laws = {g: stats.nbinom(m * (1 - icc) / icc, (m * (1 - icc) / icc) / (m * (1 - icc) / icc + m))
+            for g, m in means.items()}
+    assert laws["a"].mean() == pytest.approx(4.5, rel=1e-12)  # the construction keeps the mean
+    family = {"family": "poisson", "mean": 3.0}
+    plan = setup(tmp_path, "mean_difference", outcome="k")
+    found = true_value(plan.analyses[0], plan, designed("k", family, {"mean": 4.5}, CLUSTERED))
+    assert found["value"] == pytest.approx(laws["a"].mean() - laws["b"].mean(), rel=1e-12)  # scipy reference
+    assert "negative binomial" in found["formula"]
+    plan = setup(tmp_path, "median_difference", outcome="k")
+    found = true_value(plan.analyses[0], plan, designed("k", family, {"mean": 4.5}, CLUSTERED))
+    assert found["value"] is None and "negative binomial" in found["reason"]
+    plan = setup(tmp_path, "mean_difference", outcome="y")
+    gamma = {"family": "gamma", "shape": 2.0, "scale": 1.0}
+    found = true_value(plan.analyses[0], plan, designed("y", gamma, {}, CLUSTERED))
+    assert found["value"] is None and "no cluster effect" in found["reason"]
+
+
+PAIRED_PLAN = """\
+plan: paired-truth
+title: Paired coverage
+seed: 3
+datasets:
+  d:
+    file: d.csv
+    columns:
+      pair: {type: integer}
+      g: {type: category, levels: [a, b]}
+      y: {type: number}
+analyses:
+  - {id: t, data: d, outcome: y, groups: {by: g, compare: [a, b]}, pairs: pair, statistic: mean_difference,
+     method: bootstrap, resamples: 399, intervals: [percentile], role: primary}
+"""
+
+PAIRED_SCENARIOS = """\
+scenarios_for: paired-truth
+title: Paired normal scenario
+seed: 21
+datasets:
+  d:
+    rows:
+      groups: {column: g, sizes: {a: 60, b: 60}}
+      pairs: {column: pair, correlation: 0.7}
+    columns:
+      y: {model: {family: normal, mean: 10.0, sd: 2.0}, by_group: {a: {mean: 10.5}}}
+scenarios:
+  - {name: shifted, replicates: 200}
+"""
+
+
+def test_coverage_of_a_paired_mean_difference_is_nominal(tmp_path):
+    """V-SIM-TRUTH-PAIRED: the simulation reports the true value of a paired mean difference (0.5) and the
+    percentile interval's coverage of it is within 4 Monte Carlo s.d. of 95% (V-TOL)."""
+    from planrunner.simulate.simulation import simulate_plan
+
+    (tmp_path / "plan.yaml").write_text(PAIRED_PLAN, encoding="utf-8")
+    (tmp_path / "scenarios.yaml").write_text(PAIRED_SCENARIOS, encoding="utf-8")
+    document = simulate_plan(tmp_path / "plan.yaml", tmp_path / "scenarios.yaml", out=tmp_path / "out").document
+    found = document["scenarios"][0]["analyses"][0]
+    assert found["true_value"]["value"] == pytest.approx(0.5, rel=1e-12)  # 10.5 − 10.0, the scenario's means
+    assert found["failed"]["count"] == 0
+    coverage = found["intervals"][0]["coverage"]
+    assert coverage["of"] == 200
+    assert abs(coverage["rate"] - 0.95) <= 4 * math.sqrt(0.95 * 0.05 / 200), coverage
+    assert found["bias"] is not None and found["rmse"] is not None

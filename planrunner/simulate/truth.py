@@ -22,10 +22,15 @@ a continuous family to (low, high): its median is the quantile at F(low) + (F(hi
 mean (E[X; X ≤ high] − E[X; X ≤ low]) / (F(high) − F(low)), with the partial expectations in closed
 form (normal: μΦ(z) − σφ(z); lognormal: e^(μ+σ²/2)Φ((ln x − μ − σ²)/σ); gamma and exponential:
 kθ·P(k + 1, x/θ); Weibull: λΓ(1 + 1/k)·P(1 + 1/k, (x/λ)^k), P the regularised lower incomplete
-gamma function). Anything else is "not defined", with the reason, rather than a guess: covariates, a
-cluster effect, pairs or censoring (their marginal distributions depend on how they are drawn), any
-other filter or set that reads the outcome or a column with covariates, a derived outcome, a
-statistic without a formula here.
+gamma function). Pairs and cluster effects leave these values as they are: every statistic here is a
+mean or median of each group's rows, which depends on the rows' own laws only, not on their joint law,
+and the generator keeps each row's law (paired rows: correlated normal scores mapped through the
+family's own quantile function; clusters: normal and lognormal a random intercept that keeps the total
+sd, bernoulli a beta-distributed cluster probability with mean p, poisson a gamma cluster rate with mean
+1, so each row is negative binomial with the same mean; its median is discrete, so not used).
+Anything else is "not defined", with the reason, rather than a guess: covariates or censoring (their
+marginal distributions depend on how they are drawn), any other filter or set that reads the outcome or
+a column with covariates, a derived outcome, a statistic without a formula here.
 """
 
 from __future__ import annotations
@@ -173,6 +178,9 @@ def true_value(analysis: Any, plan: Plan, datasets: Any) -> dict[str, Any]:
 
     if bounds:
         what = f"{what} of the rows kept ({' and '.join(c for c in conditions if outcome_bounds(c, outcome))})"
+    note = design_note(model, column)
+    if note and family == "poisson" and summary == "median":
+        return not_defined("the median of a clustered poisson column (negative binomial rows) is not used (discrete)")
     groups = model.rows.groups
     if analysis.groups is not None:
         first, second = analysis.groups.compare[:2] if len(analysis.groups.compare) == 2 else (None, None)
@@ -182,9 +190,9 @@ def true_value(analysis: Any, plan: Plan, datasets: Any) -> dict[str, Any]:
         if a is None or b is None:
             return not_defined(f"the {family} family's {what} is not used (discrete)")
         if kind == "ratio":
-            return ({"value": a / b, "formula": f"{what} in {first} / {what} in {second} ({family})"}
+            return ({"value": a / b, "formula": f"{what} in {first} / {what} in {second} ({family}){note}"}
                     if b != 0 else not_defined(f"the {what} in {second} is 0"))
-        return {"value": a - b, "formula": f"{what} in {first} − {what} in {second} ({family})"}
+        return {"value": a - b, "formula": f"{what} in {first} − {what} in {second} ({family}){note}"}
     if kind != "one":
         return not_defined("a two-group statistic without groups")
     levels = list(groups.sizes) if groups is not None else [None]
@@ -192,12 +200,36 @@ def true_value(analysis: Any, plan: Plan, datasets: Any) -> dict[str, Any]:
     if any(v is None for v in values):
         return not_defined(f"the {family} family's {what} is not used (discrete)")
     if len(set(values)) == 1:
-        return {"value": values[0], "formula": f"{what} ({family})"}
+        return {"value": values[0], "formula": f"{what} ({family}){note}"}
     if what != "mean":
         return not_defined("the median of a mixture of groups (or a filtered mean) has no closed form here")
     sizes = [groups.sizes[level] for level in levels]
     return {"value": sum(v * n for v, n in zip(values, sizes)) / sum(sizes),
-            "formula": f"group-size-weighted mean of the group means ({family})"}
+            "formula": f"group-size-weighted mean of the group means ({family}){note}"}
+
+
+# How a cluster effect leaves each row's own law (simulate/generate.py, `_clustered`): the statistics
+# here depend on the rows' laws only (a mean or median of each group, not of pairs or clusters)
+CLUSTERED_ROW_LAW = {"normal": "a random intercept that keeps the total sd: each row the family's law",
+                     "lognormal": "a random intercept on the log scale that keeps the total sdlog: each row the "
+                                  "family's law",
+                     "bernoulli": "a beta-distributed cluster probability with mean p: each row Bernoulli(p)",
+                     "poisson": "a gamma cluster rate with mean 1: each row negative binomial with the same mean"}
+
+
+def _cluster_icc(model: Any, column: Any) -> float:
+    clusters = model.rows.clusters
+    return column.icc if column.icc is not None else (clusters.icc if clusters is not None else 0.0)
+
+
+def design_note(model: Any, column: Any) -> str:
+    """Why a pairing or cluster effect leaves the true value as for independent rows ("" without one)."""
+    if model.rows.pairs is not None and model.rows.pairs.correlation != 0:
+        return ("; pairs: correlated normal scores through the family's own quantile function keep each row's "
+                "law")
+    if _cluster_icc(model, column) > 0:
+        return f"; clusters: {CLUSTERED_ROW_LAW[column.model.family]}"
+    return ""
 
 
 def _blocking(analysis: Any, spec: Any, model: Any, column: Any) -> str | None:
@@ -206,11 +238,8 @@ def _blocking(analysis: Any, spec: Any, model: Any, column: Any) -> str | None:
         return "the outcome's model has covariates"
     if column.censoring is not None:
         return "the outcome is censored"
-    clusters = model.rows.clusters
-    if (column.icc or 0) > 0 or (column.icc is None and clusters is not None and clusters.icc > 0):
-        return "the outcome has a cluster effect"
-    if model.rows.pairs is not None:
-        return "the rows are paired"
+    if _cluster_icc(model, column) > 0 and column.model.family not in CLUSTERED_ROW_LAW:
+        return f"no cluster effect is modelled for the {column.model.family} family"
     linked = {analysis.outcome} | {name for name, c in model.columns.items() if c.covariates}
     for what, condition in (("rows_where", spec.rows_where),
                             ("set", spec.sets.get(analysis.set) if analysis.set is not None else None)):
