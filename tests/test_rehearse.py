@@ -433,3 +433,21 @@ def test_no_dummy_value_is_one_the_plan_declares_missing(write_plan):
     # count: integer up to 5 with no min, i.e. uniform on -95..5; 2 and 3 are declared missing markers
     d = _dummy(write_plan, 60, extra='    missing_values: ["", "NA", "2", "3"]\n')
     assert not {"2", "3"} & set(d["count"]) and len(d["count"]) == 60
+
+
+def test_a_parquet_dataset_rehearses_through_the_parquet_reader_and_verify_makes_the_same_bytes(write_plan, capsys):
+    import pyarrow.parquet as pq  # an outside reader of the written file
+
+    plan = write_plan(PLAN.format(extra="").replace("file: d.csv", "file: d.parquet"))
+    outcome = rehearse_plan(plan, units=12, seed=5, clock=fixed_clock)
+    kept = outcome.folder / DUMMY_FOLDER / "d.parquet"
+    table = pq.read_table(kept)
+    loaded, _ = load_plan(plan)
+    assert table.column_names == list(loaded.plan.datasets["d"].columns)
+    assert [str(table.schema.field(c).type) for c in ("site", "flag", "dead", "t")] == \
+        ["string", "bool", "double", "double"]
+    assert table.num_rows == outcome.record["rehearsal"]["datasets"][0]["rows"]
+    [again] = dummy_data(loaded, seed=5, units=12)
+    assert again.data == kept.read_bytes()  # the same bytes from the seed
+    assert cli.main(["verify", str(outcome.folder)]) == 0
+    assert "verify: PASSED (a rehearsal: never a valid result)" in capsys.readouterr().out

@@ -56,7 +56,7 @@ DATE_DAYS = 365
 REDRAWS = 50
 STRATA_WITHOUT_LEVELS = 4  # a text or integer strata column gets this many values
 MIN_UNITS, MAX_UNITS = 4, 1_000_000
-WRITABLE_FORMATS = {"csv": ",", "tsv": "\t"}
+WRITABLE_FORMATS = {"csv": ",", "tsv": "\t", "parquet": ""}  # the delimiter of each text format
 # in a rehearsal's folder of dummy files: the note that marks them; a run refuses data under it
 MARKER = "REHEARSAL-DUMMY-DATA.txt"
 RULES = (
@@ -370,7 +370,7 @@ def dummy_dataset(loaded: LoadedPlan, name: str, *, seed: int, units: int) -> Du
     spec = loaded.plan.datasets[name]
     fmt = spec.format or _format_of(spec.file)
     if fmt not in WRITABLE_FORMATS:
-        raise PlanError(f"rehearse writes dummy data as CSV or TSV; dataset '{name}' is read as {fmt}",
+        raise PlanError(f"rehearse writes dummy data as CSV, TSV or Parquet; dataset '{name}' is read as {fmt}",
                         where=_where(loaded, ("datasets", name, "file")),
                         hint="rehearse a copy of the plan whose file names a .csv (the analyses are the same)")
     if spec.sha256 is not None:
@@ -399,7 +399,7 @@ def dummy_dataset(loaded: LoadedPlan, name: str, *, seed: int, units: int) -> Du
                              "filter keeps")
     rules = {c: _rule(spec.columns[c], c, roles, layout, _unit_level(spec.columns[c], c, roles, layout))
              for c in spec.columns}
-    data = _write(spec, columns, WRITABLE_FORMATS[fmt])
+    data = _parquet(spec, columns) if fmt == "parquet" else _write(spec, columns, WRITABLE_FORMATS[fmt])
     return DummyFile(name, spec.file, data, int(unit_of_row.size), layout.units, rules)
 
 
@@ -425,6 +425,26 @@ def _write(spec: Dataset, columns: dict[str, np.ndarray], delimiter: str) -> byt
     for row in zip(*(columns[c] for c in names)):
         writer.writerow([_text(v, k) for v, k in zip(row, kinds)])
     return buffer.getvalue().encode("utf-8")
+
+
+def _parquet(spec: Dataset, columns: dict[str, np.ndarray]) -> bytes:
+    """A Parquet file: numbers as doubles, true/false as booleans, every other column as the same text
+    the CSV writer would write (the reader takes each storage its declared type accepts). Same pyarrow,
+    same bytes: no time stamp goes into the file."""
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    arrays = []
+    for column, declared in spec.columns.items():
+        if declared.type in ("number", "integer"):
+            arrays.append(pa.array(np.asarray(columns[column], dtype=np.float64), type=pa.float64()))
+        elif declared.type == "boolean":
+            arrays.append(pa.array([bool(v) for v in columns[column]], type=pa.bool_()))
+        else:
+            arrays.append(pa.array([_text(v, declared.type) for v in columns[column]], type=pa.string()))
+    sink = pa.BufferOutputStream()
+    pq.write_table(pa.table(arrays, names=list(spec.columns)), sink)
+    return bytes(sink.getvalue().to_pybytes())
 
 
 def dummy_data(loaded: LoadedPlan, *, seed: int, units: int = DEFAULT_UNITS) -> list[DummyFile]:
