@@ -451,3 +451,19 @@ def test_a_parquet_dataset_rehearses_through_the_parquet_reader_and_verify_makes
     assert again.data == kept.read_bytes()  # the same bytes from the seed
     assert cli.main(["verify", str(outcome.folder)]) == 0
     assert "verify: PASSED (a rehearsal: never a valid result)" in capsys.readouterr().out
+
+
+def test_a_dataset_json_dataset_rehearses_through_its_reader_and_verify_makes_the_same_bytes(write_plan, capsys):
+    plan = write_plan(PLAN.format(extra="").replace("file: d.csv", "file: d.json"))
+    outcome = rehearse_plan(plan, units=12, seed=5, clock=fixed_clock)
+    kept = outcome.folder / DUMMY_FOLDER / "d.json"
+    document = json.loads(kept.read_bytes())  # the v1.1 shape of the CDISC Dataset-JSON specification
+    loaded, _ = load_plan(plan)
+    assert [c["name"] for c in document["columns"]] == list(loaded.plan.datasets["d"].columns)
+    assert {c["name"]: c["dataType"] for c in document["columns"]}["t"] == "double"
+    assert document["records"] == len(document["rows"]) == outcome.record["rehearsal"]["datasets"][0]["rows"]
+    assert all(len(row) == len(document["columns"]) for row in document["rows"])
+    [again] = dummy_data(loaded, seed=5, units=12)
+    assert again.data == kept.read_bytes()
+    assert cli.main(["verify", str(outcome.folder)]) == 0
+    assert "verify: PASSED (a rehearsal: never a valid result)" in capsys.readouterr().out

@@ -31,6 +31,7 @@ from __future__ import annotations
 import csv
 import hashlib
 import io
+import json
 import math
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -56,7 +57,9 @@ DATE_DAYS = 365
 REDRAWS = 50
 STRATA_WITHOUT_LEVELS = 4  # a text or integer strata column gets this many values
 MIN_UNITS, MAX_UNITS = 4, 1_000_000
-WRITABLE_FORMATS = {"csv": ",", "tsv": "\t", "parquet": ""}  # the delimiter of each text format
+# the delimiter of each text format ("" for the typed formats, which have their own writers)
+WRITABLE_FORMATS = {"csv": ",", "tsv": "\t", "parquet": "", "dataset-json": ""}
+DATASET_JSON_VERSION = "1.1.0"
 # in a rehearsal's folder of dummy files: the note that marks them; a run refuses data under it
 MARKER = "REHEARSAL-DUMMY-DATA.txt"
 RULES = (
@@ -370,7 +373,8 @@ def dummy_dataset(loaded: LoadedPlan, name: str, *, seed: int, units: int) -> Du
     spec = loaded.plan.datasets[name]
     fmt = spec.format or _format_of(spec.file)
     if fmt not in WRITABLE_FORMATS:
-        raise PlanError(f"rehearse writes dummy data as CSV, TSV or Parquet; dataset '{name}' is read as {fmt}",
+        raise PlanError(f"rehearse writes dummy data as CSV, TSV, Parquet or Dataset-JSON; dataset '{name}' is "
+                        f"read as {fmt}",
                         where=_where(loaded, ("datasets", name, "file")),
                         hint="rehearse a copy of the plan whose file names a .csv (the analyses are the same)")
     if spec.sha256 is not None:
@@ -399,7 +403,8 @@ def dummy_dataset(loaded: LoadedPlan, name: str, *, seed: int, units: int) -> Du
                              "filter keeps")
     rules = {c: _rule(spec.columns[c], c, roles, layout, _unit_level(spec.columns[c], c, roles, layout))
              for c in spec.columns}
-    data = _parquet(spec, columns) if fmt == "parquet" else _write(spec, columns, WRITABLE_FORMATS[fmt])
+    data = (_parquet(spec, columns) if fmt == "parquet" else _dataset_json(name, spec, columns)
+            if fmt == "dataset-json" else _write(spec, columns, WRITABLE_FORMATS[fmt]))
     return DummyFile(name, spec.file, data, int(unit_of_row.size), layout.units, rules)
 
 
@@ -445,6 +450,27 @@ def _parquet(spec: Dataset, columns: dict[str, np.ndarray]) -> bytes:
     sink = pa.BufferOutputStream()
     pq.write_table(pa.table(arrays, names=list(spec.columns)), sink)
     return bytes(sink.getvalue().to_pybytes())
+
+
+def _dataset_json(name: str, spec: Dataset, columns: dict[str, np.ndarray]) -> bytes:
+    """A CDISC Dataset-JSON v1.1 file (numbers as `double`, true/false as `boolean`, the others as
+    `string` holding the text the CSV writer would write). No creation time stamp goes into it, so
+    the seed alone makes the same bytes."""
+    kinds = {c: "double" if d.type in ("number", "integer") else "boolean" if d.type == "boolean" else "string"
+             for c, d in spec.columns.items()}
+
+    def value(v: Any, column: str) -> object:
+        kind = kinds[column]
+        return float(v) if kind == "double" else bool(v) if kind == "boolean" else _text(v, spec.columns[column].type)
+
+    names = list(spec.columns)
+    rows = [[value(v, c) for v, c in zip(row, names)] for row in zip(*(columns[c] for c in names))]
+    document = {"datasetJSONVersion": DATASET_JSON_VERSION, "itemGroupOID": f"IG.{name}", "records": len(rows),
+                "name": name, "label": f"{name} (rehearsal dummy data)",
+                "columns": [{"itemOID": f"IT.{name}.{c}", "name": c, "label": c, "dataType": kinds[c]}
+                            for c in names],
+                "rows": rows}
+    return (json.dumps(document, ensure_ascii=False, allow_nan=False) + "\n").encode("utf-8")
 
 
 def dummy_data(loaded: LoadedPlan, *, seed: int, units: int = DEFAULT_UNITS) -> list[DummyFile]:
