@@ -10,9 +10,8 @@ from pathlib import Path
 import numpy as np
 
 from planrunner.data.sets import evaluate_sets
-from planrunner.data.tables import Exclusion, Table, _lines, _list, filtered_and_derived
+from planrunner.data.tables import Exclusion, Table, _lines, _list, derived_facts, filtered_and_derived
 from planrunner.errors import DataError
-from planrunner.plan.derived import dataset_columns
 from planrunner.plan.schema import Column, Dataset
 
 
@@ -44,7 +43,7 @@ def table_from_columns(name: str, spec: Dataset, columns: Mapping[str, np.ndarra
     return evaluate_sets(name, spec, Table(
         name=name, file=source, path=Path(source), sha256="", bytes=0, rows_read=rows_read,
         excluded=tuple(excluded), columns=typed, lines=line_of[keep],
-        derived=tuple((c, d.expression, dataset_columns(spec)[c].type) for c, d in spec.derived().items()),
+        derived=derived_facts(spec),
         format="columns"))
 
 

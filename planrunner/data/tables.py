@@ -308,8 +308,14 @@ def _checked_table(name: str, spec: Dataset, shown: str, raw: dict[str, np.ndarr
                  excluded=tuple(excluded), columns=table_columns, lines=line_of[keep],
                  values_read=ValuesRead({**values_read, **{c: tuple(sorted({group_value(v) for v in values}))
                                                            for c, values in derived.items()}}, integers),
-                 derived=tuple((c, d.expression, dataset_columns(spec)[c].type) for c, d in spec.derived().items()),
+                 derived=derived_facts(spec),
                  dropped=_dropped(raw, keep, markers, spec, parsed))
+
+
+def derived_facts(spec: Dataset) -> tuple[tuple[str, str, str], ...]:
+    """(name, expression, type) of each derived column, as a `Table` records them."""
+    types = dataset_columns(spec)
+    return tuple((c, d.expression, types[c].type) for c, d in spec.derived().items())
 
 
 def filtered_and_derived(name: str, spec: Dataset, shown: str, table_columns: dict[str, np.ndarray],

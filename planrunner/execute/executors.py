@@ -283,9 +283,28 @@ def _on_threads(jobs: list[Job], execution: Execution, tally: _Tally) -> list[An
         pool.shutdown(wait=True, cancel_futures=True)
 
 
+def process_pool(workers: int) -> Any:
+    """A pool of ``workers`` worker processes that leave Ctrl-C to this process. spawn: a clean
+    interpreter per worker (forking a process that holds threads is unsafe)."""
+    return multiprocessing.get_context("spawn").Pool(workers, initializer=ignore_interrupts)
+
+
+def stop_process_pool(pool: Any) -> None:
+    pool.terminate()  # after an error or an interrupt: no worker outlives the run
+    pool.join()  # and every worker is reaped: none is left a zombie after the run
+    multiprocessing.active_children()  # reaps any other finished child (the pool's helpers)
+
+
+def stop_dask(client: Any, cluster: Any) -> None:
+    """Close the client, and the local cluster started for it (None with a scheduler address)."""
+    client.close()
+    if cluster is not None:
+        cluster.close()
+        multiprocessing.active_children()  # reap the local cluster's worker processes now, not at exit
+
+
 def _on_processes(jobs: list[Job], execution: Execution, tally: _Tally) -> list[Any]:
-    # spawn: a clean interpreter per worker (forking a process that holds threads is unsafe)
-    pool = multiprocessing.get_context("spawn").Pool(execution.workers, initializer=ignore_interrupts)
+    pool = process_pool(execution.workers)
     try:
         pending = {i: pool.apply_async(_execute_caught, (job,)) for i, job in enumerate(jobs)
                    if job.method == "jackknife"}
@@ -297,9 +316,7 @@ def _on_processes(jobs: list[Job], execution: Execution, tally: _Tally) -> list[
         pool.join()
         return results
     finally:
-        pool.terminate()  # after an error or an interrupt: no worker outlives the run
-        pool.join()  # and every worker is reaped: none is left a zombie after the run
-        multiprocessing.active_children()  # reaps any other finished child (the pool's helpers)
+        stop_process_pool(pool)
 
 
 def _cached_spreading(pool: Any, workers: int, tally: _Tally) -> Callable[[RangeTask, int], list[np.ndarray]]:
@@ -396,7 +413,4 @@ def _on_dask(jobs: list[Job], execution: Execution, tally: _Tally) -> list[Any]:
         return _run_jobs(jobs, tally, mapper, {i: functools.partial(_future_result, f) for i, f in pending.items()})
     finally:
         client.cancel([f for f in futures if not f.done()])
-        client.close()
-        if cluster is not None:
-            cluster.close()
-            multiprocessing.active_children()  # reap the local cluster's worker processes now, not at exit
+        stop_dask(client, cluster)

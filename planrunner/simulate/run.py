@@ -27,10 +27,11 @@ from planrunner.compile.jobs import Job, compile_jobs
 from planrunner.data.checks import check_tables
 from planrunner.data.columns import table_from_columns
 from planrunner.data.tables import Table
+from planrunner.engines.blocks import resample_ranges
 from planrunner.engines.statistics import null_value
 from planrunner.engines.streams import Stream, analysis_key
 from planrunner.errors import PlanrunnerError
-from planrunner.execute.executors import Execution, execute
+from planrunner.execute.executors import Execution, dask_client, execute, process_pool, stop_dask, stop_process_pool
 from planrunner.execute.families import max_t_families
 from planrunner.plan.schema import Plan
 from planrunner.record.build import family_fields, method_fields
@@ -226,9 +227,7 @@ def rejects(analysis: Any, plan: Plan, p_value: float | None,
 def chunks(total: int, workers: int) -> list[tuple[int, int]]:
     """Consecutive index ranges: a few per worker, none longer than MAX_CHUNK (they only group the
     work; every data set is computed alone, so the ranges never change a number)."""
-    count = max(1, min(total, max(CHUNKS_PER_WORKER * workers, math.ceil(total / MAX_CHUNK))))
-    edges = np.linspace(0, total, count + 1).round().astype(int)
-    return [(int(a), int(b)) for a, b in zip(edges[:-1], edges[1:]) if b > a]
+    return resample_ranges(total, max(CHUNKS_PER_WORKER * workers, math.ceil(total / MAX_CHUNK)))
 
 
 def run_chunk(task: SimulationTask, start: int, stop: int) -> list[DatasetOutcome]:
@@ -269,13 +268,8 @@ class WorkerPool:
             from concurrent.futures import ThreadPoolExecutor
             self._pool = ThreadPoolExecutor(max_workers=self.execution.workers, thread_name_prefix="planrunner-sim")
         elif kind == "processes":
-            import multiprocessing
-
-            from planrunner.execute.rangework import ignore_interrupts
-            self._pool = multiprocessing.get_context("spawn").Pool(self.execution.workers,
-                                                                   initializer=ignore_interrupts)
+            self._pool = process_pool(self.execution.workers)
         elif kind == "dask":
-            from planrunner.execute.executors import dask_client
             self._client, self._cluster = dask_client(self.execution)
         return self
 
@@ -305,13 +299,6 @@ class WorkerPool:
         if self._pool is not None and self.execution.executor == "threads":
             self._pool.shutdown(wait=True, cancel_futures=True)
         elif self._pool is not None:
-            self._pool.terminate()  # after an error or an interrupt: no worker outlives the simulation
-            self._pool.join()
-            import multiprocessing
-            multiprocessing.active_children()
+            stop_process_pool(self._pool)  # after an error or an interrupt: no worker outlives the simulation
         if self._client is not None:
-            self._client.close()
-        if self._cluster is not None:
-            self._cluster.close()
-            import multiprocessing
-            multiprocessing.active_children()
+            stop_dask(self._client, self._cluster)
