@@ -71,9 +71,11 @@ def test_the_probe_sees_the_libraries_a_run_needs_and_no_more(tmp_path):
     assert code == 0
     assert {"jinja2", "matplotlib", "numpy", "scipy.special"} <= modules
     # ... and a demo run needs neither scipy.stats (our mid-ranks, scipy.special's beta quantiles) nor
-    # pandas (plain decimals and dates read without it, results.parquet laid out from buffers)
+    # pandas (plain decimals and dates read without it)
     assert "scipy.stats" not in modules
     assert not {name for name in modules if name.split(".")[0] == "pandas"}
+    # nor pyarrow: results.parquet comes from planrunner's own writer (data/parquet.py)
+    assert not {name for name in modules if name.split(".")[0] == "pyarrow"}
 
 
 # The numbers of the demo records (tests/record_digest.py), computed on main before the import diet

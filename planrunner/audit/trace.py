@@ -51,6 +51,8 @@ TRACE: dict[str, tuple[str, ...]] = {
                       "tests/test_plan_corpus.py::test_invalid_plan_is_reported_where_and_what"),
     "Results dataset": ("tests/test_results.py::test_results_csv_has_the_documented_columns_and_the_records_numbers",
                         "tests/test_results.py::test_results_parquet_has_the_documented_types",
+                        "tests/test_parquet.py::test_pyarrow_reads_every_value_back_bit_for_bit",
+                        "tests/test_parquet.py::test_the_metadata_is_what_the_parquet_specification_says",
                         "tests/test_results.py::test_results_carry_the_estimand_the_prespecified_interval_and_the_decision",
                         "tests/test_results.py::test_every_documented_column_is_in_the_readme_table"),
     "Python API": ("tests/test_api.py::test_the_readme_example_runs",
@@ -305,7 +307,7 @@ TRACE: dict[str, tuple[str, ...]] = {
                  "tests/test_light_paths.py::test_clopper_pearson_is_scipy_beta_quantiles_bit_for_bit",
                  "tests/test_light_paths.py::test_plain_decimals_read_as_pandas_reads_them",
                  "tests/test_light_paths.py::test_plain_dates_read_as_pandas_reads_them",
-                 "tests/test_light_paths.py::test_results_parquet_is_the_file_pyarrow_writes_from_lists"),
+                 "tests/test_light_paths.py::test_results_parquet_reads_back_as_the_table_pyarrow_writes"),
     "Scaling in n and B, and the command line end to end": (
         "tests/test_columnar.py::test_a_plain_file_is_read_by_the_fast_path",
         "tests/test_startup.py::test_version_loads_no_heavy_library",

@@ -237,9 +237,8 @@ def write_run(out_root: Path, name: str, record: dict, extra: Mapping[str, str |
     files: dict[str, str | bytes] = {"record.json": to_json(record), **report.render_all(record), **(extra or {})}
     # the results dataset: the record's numbers as one flat table (record/results.py)
     files["results.csv"] = results_csv(record)
-    parquet = results_parquet(record)
-    with staged_folder(out_root, name, {**files, **({"results.parquet": parquet} if parquet is not None else {})}) \
-            as staging:
+    files["results.parquet"] = results_parquet(record)
+    with staged_folder(out_root, name, files) as staging:
         if not history:
             with holding_interrupts():  # put in place and known to be, or neither
                 return done(place_folder(staging, out_root, name), None, [])

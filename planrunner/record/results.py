@@ -1,5 +1,5 @@
 """The results dataset: the record's numbers as one flat table, for pooling runs and loading them
-into another program (`results.csv`, and `results.parquet` when pyarrow is installed).
+into another program (`results.csv` and `results.parquet`).
 
 One row per analysis × quantity, built from the record alone (never from the engines), so it can
 say nothing the record does not. Quantities: `estimate`, `standard_error`, `bias`, `interval`
@@ -16,10 +16,11 @@ import csv
 import io
 from typing import Any
 
+from planrunner.data.parquet import Kind, ParquetColumn, parquet_bytes
 from planrunner.record.rehearsal import is_rehearsal
 
 # the columns, in order, with their type and meaning (README, "Results dataset"; tests/test_results.py)
-COLUMNS: tuple[tuple[str, str, str], ...] = (
+COLUMNS: tuple[tuple[str, Kind, str], ...] = (
     ("run_id", "string", "the run's id (record run_id)"),
     ("plan_id", "string", "the plan's id"),
     ("plan_sha256", "string", "SHA-256 of the plan file as read"),
@@ -122,41 +123,10 @@ def results_csv(record: dict[str, Any]) -> str:
     return out.getvalue()
 
 
-def results_parquet(record: dict[str, Any]) -> bytes | None:
-    """results.parquet with the typed columns of COLUMNS; None when pyarrow is not installed."""
-    try:
-        import pyarrow as pa
-        import pyarrow.parquet as pq
-    except ImportError:
-        return None
-    kinds = {"string": pa.string(), "double": pa.float64(), "int64": pa.int64(), "bool": pa.bool_()}
+def results_parquet(record: dict[str, Any]) -> bytes:
+    """results.parquet with the typed columns of COLUMNS (every one nullable), written by planrunner's
+    own Parquet writer (data/parquet.py); each column's meaning is a key-value pair of the file's
+    metadata, `description:COLUMN`."""
     rows = result_rows(record)
-    schema = pa.schema([pa.field(name, kinds[kind], metadata={"description": meaning})
-                        for name, kind, meaning in COLUMNS])
-    table = pa.Table.from_arrays([_arrow_column(pa, kinds[kind], kind, [row[name] for row in rows])
-                                  for name, kind, _ in COLUMNS], schema=schema)
-    sink = io.BytesIO()
-    pq.write_table(table, sink)
-    return sink.getvalue()
-
-
-def _arrow_column(pa: Any, arrow_type: Any, kind: str, values: list[Any]) -> Any:
-    """One column as an Arrow array laid out from its buffers (None = null). `pa.array` would give the
-    same array (tests/test_light_paths.py compares the files), but it asks whether its argument is a
-    pandas object first, which imports pandas (half a second) in a run that has no other use for it."""
-    import numpy as np
-
-    present = np.array([v is not None for v in values], dtype=bool)
-    validity = None if present.all() else pa.py_buffer(np.packbits(present, bitorder="little"))
-    if kind == "string":
-        encoded = [v.encode("utf-8") if v is not None else b"" for v in values]
-        offsets = np.zeros(len(values) + 1, dtype=np.int32)
-        offsets[1:] = np.cumsum([len(b) for b in encoded])
-        buffers = [validity, pa.py_buffer(offsets), pa.py_buffer(b"".join(encoded))]
-    elif kind == "bool":
-        bits = np.packbits(np.array([bool(v) for v in values], dtype=bool), bitorder="little")
-        buffers = [validity, pa.py_buffer(bits)]
-    else:
-        dtype = np.float64 if kind == "double" else np.int64
-        buffers = [validity, pa.py_buffer(np.array([v if v is not None else 0 for v in values], dtype=dtype))]
-    return pa.Array.from_buffers(arrow_type, len(values), buffers)
+    columns = [ParquetColumn(name, kind, [row[name] for row in rows]) for name, kind, _ in COLUMNS]
+    return parquet_bytes(columns, {f"description:{name}": meaning for name, _, meaning in COLUMNS})
