@@ -453,6 +453,32 @@ def test_a_parquet_dataset_rehearses_through_the_parquet_reader_and_verify_makes
     assert "verify: PASSED (a rehearsal: never a valid result)" in capsys.readouterr().out
 
 
+def test_the_parquet_dummy_file_reads_as_pyarrow_would_write_the_csv_dummys_values(write_plan):
+    # planrunner's own Parquet writer (data/parquet.py) against pyarrow: the same seed's CSV dummy file
+    # holds the same values as text; pyarrow writing them with the declared storage (numbers as doubles,
+    # true/false as booleans, the rest as text) gives a table equal to ours, schema and nullability too
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    csv_plan = write_plan(PLAN.format(extra=""))
+    [as_csv] = dummy_data(load_plan(csv_plan)[0], seed=5, units=12)
+    loaded, _ = load_plan(write_plan(PLAN.format(extra="").replace("file: d.csv", "file: d.parquet")))
+    [ours] = dummy_data(loaded, seed=5, units=12)
+    rows = list(csv.DictReader(io.StringIO(as_csv.data.decode("utf-8"))))
+    arrays = {}
+    for name, declared in loaded.plan.datasets["d"].columns.items():
+        texts = [row[name] for row in rows]
+        arrays[name] = (pa.array([float(t) for t in texts], type=pa.float64()) if declared.type in ("number", "integer")
+                        else pa.array([t == "true" for t in texts], type=pa.bool_()) if declared.type == "boolean"
+                        else pa.array(texts, type=pa.string()))
+    sink = io.BytesIO()
+    pq.write_table(pa.table(arrays), sink)
+    theirs = pq.read_table(io.BytesIO(sink.getvalue())).replace_schema_metadata(None)
+    read = pq.read_table(io.BytesIO(ours.data))
+    assert [(f.name, f.type, f.nullable) for f in read.schema] == [(f.name, f.type, f.nullable) for f in theirs.schema]
+    assert read.equals(theirs)
+
+
 def test_a_dataset_json_dataset_rehearses_through_its_reader_and_verify_makes_the_same_bytes(write_plan, capsys):
     plan = write_plan(PLAN.format(extra="").replace("file: d.csv", "file: d.json"))
     outcome = rehearse_plan(plan, units=12, seed=5, clock=fixed_clock)

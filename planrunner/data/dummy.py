@@ -39,6 +39,7 @@ from typing import Any
 
 import numpy as np
 
+from planrunner.data.parquet import ParquetColumn, parquet_bytes
 from planrunner.engines.streams import Stream, analysis_key
 from planrunner.errors import DataError, ExpressionError, PlanError
 from planrunner.plan.derived import derivations
@@ -434,22 +435,18 @@ def _write(spec: Dataset, columns: dict[str, np.ndarray], delimiter: str) -> byt
 
 def _parquet(spec: Dataset, columns: dict[str, np.ndarray]) -> bytes:
     """A Parquet file: numbers as doubles, true/false as booleans, every other column as the same text
-    the CSV writer would write (the reader takes each storage its declared type accepts). Same pyarrow,
-    same bytes: no time stamp goes into the file."""
-    import pyarrow as pa
-    import pyarrow.parquet as pq
-
-    arrays = []
+    the CSV writer would write (the reader takes each storage its declared type accepts). Written by
+    planrunner's own writer (data/parquet.py): the seed alone makes the bytes, whatever pyarrow is
+    installed (no time stamp, no version goes into the file)."""
+    written = []
     for column, declared in spec.columns.items():
         if declared.type in ("number", "integer"):
-            arrays.append(pa.array(np.asarray(columns[column], dtype=np.float64), type=pa.float64()))
+            written.append(ParquetColumn(column, "double", np.asarray(columns[column], dtype=np.float64)))
         elif declared.type == "boolean":
-            arrays.append(pa.array([bool(v) for v in columns[column]], type=pa.bool_()))
+            written.append(ParquetColumn(column, "bool", np.array([bool(v) for v in columns[column]], dtype=bool)))
         else:
-            arrays.append(pa.array([_text(v, declared.type) for v in columns[column]], type=pa.string()))
-    sink = pa.BufferOutputStream()
-    pq.write_table(pa.table(arrays, names=list(spec.columns)), sink)
-    return bytes(sink.getvalue().to_pybytes())
+            written.append(ParquetColumn(column, "string", [_text(v, declared.type) for v in columns[column]]))
+    return parquet_bytes(written)
 
 
 def _dataset_json(name: str, spec: Dataset, columns: dict[str, np.ndarray]) -> bytes:
