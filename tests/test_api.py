@@ -77,3 +77,98 @@ def test_errors_are_raised_with_the_command_lines_message_and_nothing_printed(tm
         api.run(tmp_path / "case" / "plan.yaml", out=tmp_path / "runs")
     assert not (tmp_path / "runs").exists()
     assert capsys.readouterr() == ("", "")
+
+
+# --- what `run` can do besides computing: progress, signing, the PDF (the command line's own code) --------
+
+TINY = """
+    plan: tiny
+    title: tiny
+    seed: 1
+    datasets:
+      d: {file: d.csv, columns: {g: {type: category, levels: [a, b]}, y: {type: number}}}
+    analyses:
+      - id: diff
+        data: d
+        outcome: y
+        groups: {by: g, compare: [a, b]}
+        statistic: mean_difference
+        method: bootstrap
+        resamples: 2000
+    """
+TINY_DATA = {"d.csv": "g,y\na,1\na,2\na,4\na,7\nb,3\nb,5\nb,6\nb,9\n"}
+
+
+def test_progress_is_heard_by_a_function_and_the_bar_prints_nothing_off_a_terminal(write_plan, tmp_path, capsys):
+    plan = write_plan(TINY, TINY_DATA)
+    heard: list[tuple[int, int]] = []
+    heard_run = api.run(plan, out=tmp_path / "runs", history=False,
+                        progress=lambda done, total: heard.append((done, total)))
+    assert heard and heard[-1] == (2000, 2000)  # every resample of the one analysis, as the bar counts them
+    assert [done for done, _ in heard] == sorted(done for done, _ in heard)
+    shown = api.run(plan, out=tmp_path / "runs", history=False, progress=True)
+    assert capsys.readouterr() == ("", "")  # the command line's bar: silent when stderr is not a terminal
+    assert shown.record["analyses"][0]["estimate"] == heard_run.record["analyses"][0]["estimate"]
+
+
+def test_a_signed_api_run_writes_the_files_a_signed_cli_run_writes(write_plan, tmp_path, monkeypatch, capsys):
+    from planrunner.errors import SigningError
+    from planrunner.trail.signfiles import generate_key
+
+    plan = write_plan(TINY, TINY_DATA)
+    generate_key(tmp_path / "ana.key", passphrase=b"correct horse", name="ana")  # invented for the test
+    monkeypatch.setenv("PR_PASS", "correct horse")
+    signed = api.run(plan, out=tmp_path / "api", sign_key=tmp_path / "ana.key", signer="Ana Lima",
+                     passphrase_env="PR_PASS")
+    assert cli.main(["run", str(plan), "--out", str(tmp_path / "cli"), "--quiet", "--sign-key",
+                     str(tmp_path / "ana.key"), "--signer", "Ana Lima", "--passphrase-env", "PR_PASS"]) == 0
+    (by_cli,) = [p for p in (tmp_path / "cli").iterdir() if p.is_dir()]
+
+    def signature_files(folder: Path) -> list[str]:
+        return sorted(p.name for p in folder.iterdir() if p.name.endswith(".sig.json"))
+
+    assert signed.signed and signature_files(signed.folder) == signature_files(by_cli) != []
+    assert signed.history_entry is not None and signed.history_entry["signature"]["meaning"] == "executed"
+    capsys.readouterr()
+    assert cli.main(["history", str(tmp_path / "api")]) == 0  # the chain holds, the entry's signature checks
+    assert "executed by Ana Lima" in capsys.readouterr().out
+
+    # the command line's refusals, with its messages, before anything is computed
+    with pytest.raises(SigningError) as no_key:
+        api.run(plan, out=tmp_path / "refused", signer="Ana Lima")
+    assert cli.main(["run", str(plan), "--out", str(tmp_path / "refused"), "--signer", "Ana Lima"]) == 2
+    assert str(no_key.value) in capsys.readouterr().err
+    with pytest.raises(SigningError, match="protected by a passphrase"):  # nobody is asked for it
+        api.run(plan, out=tmp_path / "refused", sign_key=tmp_path / "ana.key", signer="Ana Lima")
+    monkeypatch.setenv("PR_PASS", "wrong horse")
+    with pytest.raises(SigningError, match="cannot unlock the key: wrong passphrase"):
+        api.run(plan, out=tmp_path / "refused", sign_key=tmp_path / "ana.key", signer="Ana Lima",
+                passphrase_env="PR_PASS")
+    assert not (tmp_path / "refused").exists()
+
+
+def test_pdf_without_a_browser_or_on_unknown_paper_is_refused_before_computing(write_plan, tmp_path, monkeypatch):
+    from planrunner.errors import OutputError
+    from planrunner.report import pdf
+
+    plan = write_plan(TINY, TINY_DATA)
+    with pytest.raises(PlanError, match="paper must be one of A4, Letter"):
+        api.run(plan, out=tmp_path / "runs", pdf=True, paper="A3")
+    monkeypatch.delenv(pdf.ENVIRONMENT_VARIABLE, raising=False)
+    monkeypatch.setenv("PATH", str(tmp_path / "no-bin"))
+    monkeypatch.setattr(pdf, "CANDIDATES", tuple(n for n in pdf.CANDIDATES if "/" not in n))
+    with pytest.raises(OutputError) as info:
+        api.run(plan, out=tmp_path / "runs", pdf=True)
+    assert pdf.ENVIRONMENT_VARIABLE in str(info.value)
+    assert not (tmp_path / "runs").exists()
+
+
+def test_pdf_is_written_in_the_run_folder(write_plan, tmp_path):
+    from planrunner.report import pdf
+
+    try:
+        pdf.find_browser()
+    except Exception:
+        pytest.skip("no Chromium or Chrome here (see test_report_browser)")
+    done = api.run(write_plan(TINY, TINY_DATA), out=tmp_path / "runs", history=False, pdf=True, paper="Letter")
+    assert done.pdf == done.folder / "report-Letter.pdf" and done.pdf.read_bytes()[:5] == b"%PDF-"

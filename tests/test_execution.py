@@ -238,7 +238,7 @@ def test_engine_errors_from_workers_keep_where_and_hint() -> None:
 
 def test_progress_bar_is_silent_off_a_terminal_and_when_quiet(capsys) -> None:
     for quiet in (False, True):
-        bar = cli.ProgressBar(quiet)
+        bar = cli.progress_bar(quiet)
         for done in (0, 500, 1000):
             bar(done, 1000)
         bar.close()

@@ -2,13 +2,15 @@
 
 from __future__ import annotations
 
-from collections.abc import Mapping
+from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
+from planrunner.api.progress import ProgressBar
 from planrunner.errors import PlanError
 from planrunner.execute.executors import Execution
+from planrunner.pipeline.printing import write_pdf
 from planrunner.pipeline.run import check_plan, run_plan
 from planrunner.plan.schema import Plan
 from planrunner.record.results import NAMES, result_rows
@@ -72,6 +74,9 @@ class RunResult:
     folder: Path
     record: Mapping[str, Any]
     analyses: Mapping[str, AnalysisResult] = field(default_factory=dict)
+    history_entry: Mapping[str, Any] | None = None  # the entry appended to the run history (None: not appended)
+    signed: bool = False  # the record and its history entry were signed as executed
+    pdf: Path | None = None  # report-PAPER.pdf, when asked for
 
     def __getitem__(self, analysis_id: str) -> AnalysisResult:
         try:
@@ -107,18 +112,45 @@ def _checked(path: str | Path, outcome: Any) -> CheckedPlan:
 def run(path: str | Path, *, out: str | Path | None = None, executor: str = "serial", workers: int = 1,
         scheduler: str | None = None, params: Mapping[str, str] | None = None, operator: str | None = None,
         lock: str | Path | None = None, refuse_deviations: bool = False, reason: str | None = None,
-        history: bool = True, data_root: str | Path | None = None) -> RunResult:
+        history: bool = True, data_root: str | Path | None = None,
+        progress: bool | Callable[[int, int], None] = False, pdf: bool = False, paper: str = "A4",
+        sign_key: str | Path | None = None, signer: str | None = None, signers: str | Path | None = None,
+        passphrase_env: str | None = None, passphrase_file: str | Path | None = None) -> RunResult:
     """Run every analysis and write the run folder: `planrunner run` with the same options.
 
-    The numbers do not depend on `executor` or `workers`. The record's `command` says the run came
-    from this function.
+    The numbers do not depend on `executor` or `workers`. ``progress=True`` shows the command
+    line's bar on stderr (on a terminal, for runs over a second); a function ``progress(done,
+    total)`` hears of finished resamples instead. ``pdf`` prints the report to report-PAPER.pdf in
+    the run folder (`run --pdf --paper`); without a browser it raises before computing.
+    ``sign_key`` and ``signer`` sign the record and its history entry as executed (`run --sign-key
+    --signer`), the key unlocked with the passphrase in the environment variable ``passphrase_env``
+    or on the first line of ``passphrase_file`` (nobody is asked for one). The record's `command`
+    says the run came from this function.
     """
+    from planrunner.report.pdf import PAPERS
+    from planrunner.trail.signfiles import run_signing_key
+
     if workers < 1:
         raise PlanError(f"workers must be at least 1, got {workers}", where="planrunner.api.run")
+    if paper not in PAPERS:
+        raise PlanError(f"paper must be one of {', '.join(PAPERS)}, got {paper!r}", where="planrunner.api.run")
     execution = Execution(executor=executor, workers=workers, scheduler=scheduler)
+    if pdf:  # no browser: say so before computing anything, as `run --pdf` does
+        from planrunner.report.pdf import find_browser
+        find_browser()
+    signing = run_signing_key(sign_key, signer, passphrase_env=passphrase_env, passphrase_file=passphrase_file)
     command = ["planrunner.api.run", str(path)] + [f"{k}={v}" for k, v in (params or {}).items()]
-    outcome = run_plan(path, out=out, operator=operator, command=command, params=dict(params or {}), lock=lock,
-                       refuse_deviations=refuse_deviations, reason=reason, history=history, data_root=data_root,
-                       execution=execution)
+    bar = ProgressBar() if progress is True else None
+    hook = bar if bar is not None else progress if callable(progress) else None
+    try:
+        outcome = run_plan(path, out=out, operator=operator, command=command, params=dict(params or {}), lock=lock,
+                           refuse_deviations=refuse_deviations, reason=reason, history=history,
+                           data_root=data_root, execution=execution, progress=hook, signing=signing,
+                           signers=signers)
+    finally:
+        if bar is not None:
+            bar.close()
+    written = write_pdf(outcome.folder, paper) if pdf else None
     record = outcome.record
-    return RunResult(outcome.folder, record, {a["id"]: AnalysisResult.of(a) for a in record["analyses"]})
+    return RunResult(outcome.folder, record, {a["id"]: AnalysisResult.of(a) for a in record["analyses"]},
+                     history_entry=outcome.history_entry, signed=outcome.signed, pdf=written)

@@ -21,14 +21,14 @@ from planrunner.data.tables import file_sha256, resolve_data_path
 from planrunner.engines.streams import REFERENCE_DRAWS_SHA256, draws_sha256
 from planrunner.errors import PlanError, PlanrunnerError, RecordError
 from planrunner.execute.executors import Execution
+from planrunner.pipeline.printing import read_record
 from planrunner.pipeline.run import execute_plan, load_tables
 from planrunner.plan.load import read_plan
 from planrunner.plan.params import apply as apply_parameters
 from planrunner.plan.params import resolve_values
 from planrunner.plan.yamlsafe import load_yaml
-from planrunner.record.build import FORMAT, RunFacts, build_record, environment
+from planrunner.record.build import RunFacts, build_record, environment
 from planrunner.record.canonical import RECORD_HASH_FIELD, differences, record_sha256
-from planrunner.record.rehearsal import STAMP as REHEARSAL_STAMP
 from planrunner.record.rehearsal import is_rehearsal
 from planrunner.trail.store import read_json, write_new_file
 
@@ -84,31 +84,6 @@ class VerifyReport:
     def largest(self) -> FieldDifference | None:
         numeric = [d for d in self.differences if d.difference is not None]
         return max(numeric, key=lambda d: d.difference or 0.0) if numeric else None
-
-
-REQUIRED: dict[str, type | tuple[type, ...]] = {
-    "run_id": str, "started_utc": str, "finished_utc": str, "operator": str, "command": list, "plan": dict,
-    "datasets": list, "analyses": list, "seed": dict, "environment": dict}
-
-
-def read_record(path: str | Path) -> tuple[Path, dict]:
-    """A record from record.json or from its run folder; refuse what is not a record."""
-    file = Path(path)
-    if file.is_dir():
-        file = file / "record.json"
-    record = read_json(file, "record", hint="name a record.json or its run folder")
-    if not isinstance(record, dict) or record.get("format") != FORMAT:
-        raise RecordError(f"not a planrunner record (format {FORMAT} expected)", where=str(file))
-    missing = [key for key, kind in REQUIRED.items() if not isinstance(record.get(key), kind)]
-    plan = record["plan"] if isinstance(record.get("plan"), dict) else {}
-    missing += [f"plan.{key}" for key in ("file", "sha256", "text") if not isinstance(plan.get(key), str)]
-    for i, ds in enumerate(record["datasets"] if isinstance(record.get("datasets"), list) else []):
-        if not (isinstance(ds, dict) and isinstance(ds.get("file"), str) and isinstance(ds.get("sha256"), str)):
-            missing.append(f"datasets[{i}]")
-    if missing:
-        raise RecordError(f"the record is incomplete or damaged: {', '.join(missing)} missing or of the wrong kind",
-                          where=str(file), hint="verify the record.json that the run wrote")
-    return file, record
 
 
 def find_plan(record_file: Path, record: dict, plan: str | Path | None) -> Path:
@@ -480,29 +455,3 @@ def check_selfcheck_report(path: str | Path) -> tuple[dict, bool]:
     if not isinstance(report, dict) or report.get("format") != SELFCHECK_FORMAT:
         raise RecordError(f"not a self-check report (format {SELFCHECK_FORMAT} expected)", where=str(path))
     return report, report.get(SELFCHECK_HASH_FIELD) == self_hash(report, SELFCHECK_HASH_FIELD)
-
-
-def write_pdf(run: str | Path, paper: str = "A4", out: str | Path | None = None) -> Path:
-    """Print a run's HTML report to PDF (A4 or Letter) with headless Chromium and write it as a new
-    file: ``out``, or report-PAPER.pdf in the run folder. A folder without report.html gets the page
-    rendered from its record first. Raises OutputError, saying how to get one, without a browser."""
-    import tempfile
-
-    from planrunner.report.pdf import find_browser, print_pdf
-    from planrunner.report.render import render
-    from planrunner.trail.store import write_new_file
-
-    browser = find_browser()  # before anything else: the one message when there is none
-    record_file, record = read_record(run)
-    folder = record_file.parent
-    target = Path(out) if out is not None else folder / f"report-{paper}.pdf"
-    page = folder / "report.html"
-    stamp = REHEARSAL_STAMP if is_rehearsal(record) else None  # on every page of a rehearsal's PDF
-    if page.is_file():
-        data = print_pdf(page, str(record["run_id"]), paper, browser=browser, stamp=stamp)
-    else:
-        with tempfile.TemporaryDirectory(prefix="planrunner-pdf-page-") as scratch:
-            page = Path(scratch) / "report.html"
-            page.write_text(render(record, "html"), encoding="utf-8")
-            data = print_pdf(page, str(record["run_id"]), paper, browser=browser, stamp=stamp)
-    return write_new_file(target, data, what="PDF", hint="choose another name with --out, or remove the old PDF")

@@ -295,7 +295,7 @@ def add_pdf_options(parser: Any) -> None:
 
 
 def _pdf(args: argparse.Namespace) -> int:
-    from planrunner.audit.verbs import write_pdf
+    from planrunner.pipeline.printing import write_pdf
     print(f"PDF written to {write_pdf(args.run, args.paper, args.out)}")
     return EXIT_OK
 

@@ -11,7 +11,6 @@ from __future__ import annotations
 
 import argparse
 import os
-import shutil
 import sys
 import traceback
 from collections.abc import Sequence
@@ -42,7 +41,7 @@ from planrunner.errors import (
 )
 
 if TYPE_CHECKING:
-    pass
+    from planrunner.api.progress import ProgressBar
 
 EXIT_OK, EXIT_FAILURE, EXIT_INPUT, EXIT_DIFFERS = 0, 1, 2, 3
 
@@ -258,29 +257,6 @@ def _check(args: argparse.Namespace) -> int:
     return EXIT_OK
 
 
-class ProgressBar:
-    """Resamples done / total and the time left, on stderr; only for a terminal and long runs."""
-
-    def __init__(self, quiet: bool):
-        self._quiet = quiet
-        self._bar: Any = None
-
-    def __call__(self, done: int, total: int) -> None:
-        if self._bar is None:
-            from tqdm import tqdm
-            # a terminal that reports no size (0 × 0) would hide the bar
-            size = shutil.get_terminal_size((80, 24))
-            # disable=None: silent when stderr is not a terminal; delay: short runs show nothing
-            self._bar = tqdm(total=total, unit=" resamples", unit_scale=True, file=sys.stderr, delay=1.0,
-                             disable=True if self._quiet else None, leave=False,
-                             ncols=min(size.columns or 80, 100), nrows=size.lines or 24)
-        self._bar.update(done - self._bar.n)
-
-    def close(self) -> None:
-        if self._bar is not None:
-            self._bar.close()
-
-
 def _run(args: argparse.Namespace, argv: list[str]) -> int:
     from planrunner.pipeline.run import run_plan
     from planrunner.plan.params import parse_assignments
@@ -302,7 +278,7 @@ def _run(args: argparse.Namespace, argv: list[str]) -> int:
             bar.close()  # before any message, so that it does not land on the bar's line
         pdf = None
         if args.pdf:
-            from planrunner.audit.verbs import write_pdf
+            from planrunner.pipeline.printing import write_pdf
             pdf = write_pdf(outcome.folder, args.paper)
         if args.quiet:
             print(outcome.folder)  # only the folder, so that a script can use it as it is
@@ -324,7 +300,9 @@ def _run(args: argparse.Namespace, argv: list[str]) -> int:
 
 
 def progress_bar(quiet: bool) -> ProgressBar:
-    """The progress hook of a run (tests replace it to inject an interrupt)."""
+    """The progress hook of a run, the bar `api.run(progress=True)` shows too (tests replace it to
+    inject an interrupt); imported here, since the API's package loads the whole pipeline."""
+    from planrunner.api.progress import ProgressBar
     return ProgressBar(quiet)
 
 

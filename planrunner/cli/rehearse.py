@@ -73,7 +73,7 @@ def rehearse_command(args: argparse.Namespace, argv: list[str], progress_bar: Ca
         bar.close()
     pdf = None
     if args.pdf:
-        from planrunner.audit.verbs import write_pdf
+        from planrunner.pipeline.printing import write_pdf
         pdf = write_pdf(outcome.folder, args.paper)
     if args.quiet:
         print(outcome.folder)

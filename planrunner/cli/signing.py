@@ -9,7 +9,6 @@ from __future__ import annotations
 
 import argparse
 import getpass
-import os
 import sys
 from collections.abc import Callable
 from pathlib import Path
@@ -62,48 +61,31 @@ def add_run_signing_options(run: argparse.ArgumentParser) -> None:
 
 
 def _passphrase_given(args: argparse.Namespace) -> bytes | None:
-    if args.passphrase_env and args.passphrase_file:
-        raise SigningError("give the passphrase one way only", hint="--passphrase-env or --passphrase-file")
-    if args.passphrase_env:
-        value = os.environ.get(args.passphrase_env)
-        if value is None:
-            raise SigningError(f"the environment variable {args.passphrase_env} is not set",
-                               hint="set it, or use --passphrase-file")
-        return value.encode("utf-8")
-    if args.passphrase_file:
-        try:
-            text = Path(args.passphrase_file).read_text(encoding="utf-8")
-        except (OSError, UnicodeDecodeError) as exc:
-            raise SigningError(f"cannot read the passphrase file: {exc}", where=args.passphrase_file) from None
-        return text.splitlines()[0].encode("utf-8") if text else b""
-    return None
+    from planrunner.trail.signfiles import passphrase_from
+    return passphrase_from(args.passphrase_env, args.passphrase_file)
 
 
 def _ask(prompt: str) -> bytes:
     return getpass.getpass(prompt).encode("utf-8")
 
 
+def _terminal_prompt() -> Callable[[str], bytes] | None:
+    """Ask for a passphrase only where someone can answer."""
+    return _ask if sys.stdin.isatty() else None
+
+
 def signing_key(key: str, name: str | None, args: argparse.Namespace) -> Any:
     """Unlock the key; ask for the passphrase on a terminal when it needs one and none was given."""
-    from planrunner.trail.signfiles import load_signing_key
-    if not name:
-        raise SigningError("a signature needs the signer's printed name", hint="give it with --signer NAME")
-    passphrase = _passphrase_given(args)
-    try:
-        return load_signing_key(key, passphrase, name)
-    except SigningError as exc:
-        if passphrase is None and "protected by a passphrase" in exc.message and sys.stdin.isatty():
-            return load_signing_key(key, _ask(f"passphrase for {key}: "), name)
-        raise
+    from planrunner.trail.signfiles import unlock_key
+    return unlock_key(key, name, passphrase_env=args.passphrase_env, passphrase_file=args.passphrase_file,
+                      ask=_terminal_prompt())
 
 
 def run_signing(args: argparse.Namespace) -> Any:
     """The run's signing key, or None when the run is not signed."""
-    if args.sign_key is None:
-        if args.signer:
-            raise SigningError("--signer needs --sign-key KEY")
-        return None
-    return signing_key(args.sign_key, args.signer, args)
+    from planrunner.trail.signfiles import run_signing_key
+    return run_signing_key(args.sign_key, args.signer, passphrase_env=args.passphrase_env,
+                           passphrase_file=args.passphrase_file, ask=_terminal_prompt())
 
 
 def _keygen(args: argparse.Namespace) -> int:

@@ -151,6 +151,53 @@ def load_signing_key(path: str | Path, passphrase: bytes | None, signer: str) ->
     return SigningKey(key, signer.strip())
 
 
+def passphrase_from(env: str | None, file: str | Path | None) -> bytes | None:
+    """The passphrase named by an environment variable or held on a file's first line; None when
+    neither is given. Never taken as text on a command line: a run's command is kept in its record."""
+    if env and file:
+        raise SigningError("give the passphrase one way only", hint="--passphrase-env or --passphrase-file")
+    if env:
+        value = os.environ.get(env)
+        if value is None:
+            raise SigningError(f"the environment variable {env} is not set", hint="set it, or use --passphrase-file")
+        return value.encode("utf-8")
+    if file:
+        try:
+            text = Path(file).read_text(encoding="utf-8")
+        except (OSError, UnicodeDecodeError) as exc:
+            raise SigningError(f"cannot read the passphrase file: {exc}", where=str(file)) from None
+        return text.splitlines()[0].encode("utf-8") if text else b""
+    return None
+
+
+def unlock_key(key: str | Path, signer: str | None, *, passphrase_env: str | None = None,
+               passphrase_file: str | Path | None = None,
+               ask: Callable[[str], bytes] | None = None) -> SigningKey:
+    """Unlock ``key`` for ``signer``; when it needs a passphrase and none was given, ``ask`` (the
+    terminal's prompt, or None where nobody can answer) is asked once."""
+    if not signer:
+        raise SigningError("a signature needs the signer's printed name", hint="give it with --signer NAME")
+    passphrase = passphrase_from(passphrase_env, passphrase_file)
+    try:
+        return load_signing_key(key, passphrase, signer)
+    except SigningError as exc:
+        if passphrase is None and ask is not None and "protected by a passphrase" in exc.message:
+            return load_signing_key(key, ask(f"passphrase for {key}: "), signer)
+        raise
+
+
+def run_signing_key(sign_key: str | Path | None, signer: str | None, *, passphrase_env: str | None = None,
+                    passphrase_file: str | Path | None = None,
+                    ask: Callable[[str], bytes] | None = None) -> SigningKey | None:
+    """The key a run signs its record and history entry with, or None when the run is not signed
+    (`run --sign-key KEY --signer NAME`, `api.run(sign_key=..., signer=...)`)."""
+    if sign_key is None:
+        if signer:
+            raise SigningError("--signer needs --sign-key KEY", hint="give both, or neither")
+        return None
+    return unlock_key(sign_key, signer, passphrase_env=passphrase_env, passphrase_file=passphrase_file, ask=ask)
+
+
 # --- what is signed --------------------------------------------------------------------------------
 
 def file_subject(path: str | Path) -> tuple[Path, Subject]:
