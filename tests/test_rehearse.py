@@ -171,7 +171,24 @@ def test_verify_fails_when_a_kept_dummy_file_was_changed(rehearsed, capsys, tmp_
     kept.write_text(kept.read_text(encoding="utf-8").replace(",A,", ",B,", 1), encoding="utf-8")
     assert cli.main(["verify", str(run)]) == 3
     out = capsys.readouterr().out
-    assert "is not the one the recorded seed makes" in out and "verify: FAILED" in out
+    assert "is not the one the recorded seed makes (changed after the rehearsal)" in out and "verify: FAILED" in out
+
+
+def test_verify_names_the_generator_when_an_older_one_made_the_dummy_files(rehearsed, capsys, tmp_path):
+    # a rehearsal made before Parquet dummy files came from our own writer (dummy-data generator /1)
+    # has other Parquet bytes from the same seed: verify says so instead of "changed after"
+    folder = tmp_path / "copy"
+    shutil.copytree(rehearsed["monthly-fill"].parent.parent, folder)
+    [run] = (folder / "rehearsals").iterdir()
+    [kept] = (run / DUMMY_FOLDER / "data").iterdir()
+    kept.write_bytes(kept.read_bytes() + b"\n")
+    record = json.loads((run / "record.json").read_text(encoding="utf-8"))
+    record["rehearsal"]["generator"] = "planrunner.dummy/1"
+    (run / "record.json").write_text(json.dumps(record), encoding="utf-8")
+    assert cli.main(["verify", str(run)]) == 3
+    out = capsys.readouterr().out
+    assert ("made by dummy-data generator planrunner.dummy/1, this planrunner has planrunner.dummy/2: "
+            "rehearse again") in out
 
 
 def test_compare_names_the_rehearsal_first_and_last(rehearsed, capsys, tmp_path):

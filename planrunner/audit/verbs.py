@@ -247,11 +247,15 @@ def _rehearsal_data(stack: ExitStack, loaded: Any, recorded: dict, record_file: 
         problems.append(("rehearsal", f"the dummy data cannot be made again from the recorded seed and sizes: {exc}"))
         return None, None
     kept = record_file.parent / str(entry.get("folder") or "")
+    # another generator (an older planrunner) may write other bytes from the same seed
+    cause = ("changed after the rehearsal" if entry.get("generator") == rehearsal["generator"] else
+             f"made by dummy-data generator {entry.get('generator')}, this planrunner has {rehearsal['generator']}: "
+             "rehearse again")
     for i, f in enumerate(files):
         copy = kept / f.file
         if copy.is_file() and file_sha256(copy)[0] != f.sha256:
             problems.append((f"rehearsal.datasets[{i}].sha256", f"the dummy file kept at {copy} is not the one the "
-                                                                "recorded seed makes (changed after the rehearsal)"))
+                                                                f"recorded seed makes ({cause})"))
     return rehearsal, stack.enter_context(dummy_root(files))
 
 

@@ -47,7 +47,9 @@ from planrunner.plan.expr import parse_expression
 from planrunner.plan.load import LoadedPlan
 from planrunner.plan.schema import DATA_SUFFIXES, Column, Dataset, Plan
 
-GENERATOR_ID = "planrunner.dummy/1"  # changes with any change of the rules below (they fix every byte)
+# changes with any change of the rules below or of the file writers (they fix every byte);
+# /2: Parquet dummy files from planrunner's own writer (data/parquet.py) instead of pyarrow's
+GENERATOR_ID = "planrunner.dummy/2"
 DEFAULT_UNITS = 40
 ROWS_PER_CLUSTER = 4
 SPAN = 100.0
