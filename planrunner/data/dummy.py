@@ -20,6 +20,8 @@ with the same numpy. The rules, each stated in `RULES` (and in the record):
   `at` or `horizon`; numbers are rounded to `DECIMALS` decimals;
 * text columns number their units or rows (`column-0001`); dates are uniform over `DATE_DAYS`
   days from `DATE_START`;
+* each file is written in its dataset's own format: CSV, TSV, Parquet and Dataset-JSON here, XPT
+  (version 5) and .xlsx by `dummyformats.py`; no file holds the clock, so the seed fixes every byte;
 * rows that hold a value the plan declares missing (`missing_values`), fail a derivation or the
   dataset's `rows_where` have their free columns (neither
   unit, groups, strata, events nor text) drawn again, up to `REDRAWS` times; rows still failing are an
@@ -60,8 +62,8 @@ DATE_DAYS = 365
 REDRAWS = 50
 STRATA_WITHOUT_LEVELS = 4  # a text or integer strata column gets this many values
 MIN_UNITS, MAX_UNITS = 4, 1_000_000
-# the delimiter of each text format ("" for the typed formats, which have their own writers)
-WRITABLE_FORMATS = {"csv": ",", "tsv": "\t", "parquet": "", "dataset-json": ""}
+# the delimiter of each text format (the typed formats have their own writers)
+DELIMITERS = {"csv": ",", "tsv": "\t"}
 DATASET_JSON_VERSION = "1.1.0"
 # in a rehearsal's folder of dummy files: the note that marks them; a run refuses data under it
 MARKER = "REHEARSAL-DUMMY-DATA.txt"
@@ -375,11 +377,6 @@ def dummy_dataset(loaded: LoadedPlan, name: str, *, seed: int, units: int) -> Du
     """The dummy file of one dataset (see the module note for the rules)."""
     spec = loaded.plan.datasets[name]
     fmt = spec.format or _format_of(spec.file)
-    if fmt not in WRITABLE_FORMATS:
-        raise PlanError(f"rehearse writes dummy data as CSV, TSV, Parquet or Dataset-JSON; dataset '{name}' is "
-                        f"read as {fmt}",
-                        where=_where(loaded, ("datasets", name, "file")),
-                        hint="rehearse a copy of the plan whose file names a .csv (the analyses are the same)")
     if spec.sha256 is not None:
         raise PlanError(f"dataset '{name}' pins its file's SHA-256, which no dummy file can have",
                         where=_where(loaded, ("datasets", name, "sha256")),
@@ -406,9 +403,24 @@ def dummy_dataset(loaded: LoadedPlan, name: str, *, seed: int, units: int) -> Du
                              "filter keeps")
     rules = {c: _rule(spec.columns[c], c, roles, layout, _unit_level(spec.columns[c], c, roles, layout))
              for c in spec.columns}
-    data = (_parquet(spec, columns) if fmt == "parquet" else _dataset_json(name, spec, columns)
-            if fmt == "dataset-json" else _write(spec, columns, WRITABLE_FORMATS[fmt]))
+    data = _file(loaded, name, fmt, columns)
     return DummyFile(name, spec.file, data, int(unit_of_row.size), layout.units, rules)
+
+
+def _file(loaded: LoadedPlan, name: str, fmt: str, columns: dict[str, np.ndarray]) -> bytes:
+    """The bytes of a dataset's dummy file in its own format."""
+    from planrunner.data.dummyformats import dummy_xlsx, dummy_xpt
+
+    spec = loaded.plan.datasets[name]
+    if fmt == "parquet":
+        return _parquet(spec, columns)
+    if fmt == "dataset-json":
+        return _dataset_json(name, spec, columns)
+    if fmt == "xpt":
+        return dummy_xpt(loaded, name, spec, columns)
+    if fmt == "xlsx":
+        return dummy_xlsx(loaded, name, spec, columns)
+    return _write(spec, columns, DELIMITERS[fmt])
 
 
 def _format_of(file: str) -> str:

@@ -4,17 +4,34 @@ Only values typed into cells are data: a formula is refused (its cached result d
 program that last saved the file, and openpyxl may hold none), and so are merged cells and
 hidden rows or columns (what the reader of the sheet sees is then not what the analysis would
 use). The first row is the header; observation 1 is the row under it.
+
+`write_sheet` writes a workbook of one sheet (what `planrunner rehearse` writes for an .xlsx
+dataset) whose bytes depend on nothing but the values: openpyxl stamps the workbook's created and
+modified times with the clock and zipfile each entry's date, so the document properties are
+replaced by fixed ones (`FIXED_TIME`, creator `CREATOR`) and the package is zipped again, in
+openpyxl's order, with every entry dated `FIXED_TIME` and stored (no compression, so the bytes
+do not depend on the zlib build either).
 """
 
 from __future__ import annotations
 
+import datetime as dt
 import io
+import re
 import warnings
+import zipfile
 from dataclasses import dataclass
 
 from planrunner.errors import DataError
 
 SHOW = 5
+# the earliest moment a zip entry can carry (MS-DOS dates start in 1980): never the clock
+FIXED_TIME = dt.datetime(1980, 1, 1)
+CREATOR = "planrunner"
+CORE_PART = "docProps/core.xml"  # the document properties (Office Open XML, part 2)
+# Excel's limits: rows and columns of a sheet, characters of a cell, a sheet's name
+MAX_ROWS, MAX_COLUMNS, MAX_CELL, MAX_TITLE = 1_048_576, 16_384, 32_767, 31
+BAD_TITLE = re.compile(r"[\\*?:/\[\]]")
 
 
 @dataclass(frozen=True)
@@ -102,3 +119,70 @@ def read_sheet(data: bytes, sheet: str | None, shown: str, key: str) -> Sheet:
         cell = ws.cell(row=2, column=i + 1) if len(rows) > 1 else None
         formats[name] = cell.number_format if cell is not None and cell.number_format != "General" else None
     return Sheet(names_, columns, formats)
+
+
+def title_problems(sheet: str) -> list[tuple[str, str]]:
+    """What keeps ``sheet`` from naming a sheet: (what, what to do)."""
+    if len(sheet) > MAX_TITLE or BAD_TITLE.search(sheet) or sheet.startswith("'") or sheet.endswith("'"):
+        return [(f"'{sheet}' cannot name a sheet (at most {MAX_TITLE} characters, none of \\ / ? * : [ ], "
+                 "no quote at either end)", "name the sheet as its tab is labelled in the workbook")]
+    return []
+
+
+def cell_problems(values: list[object]) -> list[tuple[str, str]]:
+    """What keeps a column's values out of a sheet (text too long, control characters)."""
+    from openpyxl.cell.cell import ILLEGAL_CHARACTERS_RE
+
+    texts = [v for v in values if isinstance(v, str)]
+    problems = []
+    if any(len(v) > MAX_CELL for v in texts):
+        problems.append((f"a value longer than {MAX_CELL:,} characters, the most a cell holds",
+                         "shorten the values"))
+    if any(ILLEGAL_CHARACTERS_RE.search(v) for v in texts):
+        problems.append(("a value holds a control character, which a workbook cannot hold",
+                         "remove the control characters from the levels"))
+    return problems
+
+
+def write_sheet(sheet: str, names: list[str], columns: list[list[object]]) -> bytes:
+    """An .xlsx workbook of one sheet: the names in row 1, then one row per value (None: an empty
+    cell). Numbers, booleans, dates and text are typed cells; a text that starts with '=' stays text."""
+    try:
+        import openpyxl
+        from openpyxl.packaging.core import DocumentProperties
+        from openpyxl.xml.functions import tostring
+    except ImportError:
+        raise missing_package("openpyxl", "Excel workbooks (.xlsx)", sheet) from None
+    rows = len(columns[0]) if columns else 0
+    problems = title_problems(sheet) + [p for c in columns for p in cell_problems(c)]
+    if rows + 1 > MAX_ROWS or len(names) > MAX_COLUMNS:
+        problems.append((f"{rows:,} rows and {len(names)} columns; a sheet holds {MAX_ROWS - 1:,} rows under its "
+                         f"header and {MAX_COLUMNS:,} columns", "write fewer rows"))
+    if problems:
+        raise DataError.of_all([DataError(what, where=sheet, hint=hint) for what, hint in problems], sheet)
+    book = openpyxl.Workbook()
+    ws = book.active
+    ws.title = sheet
+    for j, values in enumerate([names, *zip(*columns)] if columns else [names]):
+        for i, value in enumerate(values):
+            cell = ws.cell(row=j + 1, column=i + 1, value=value)
+            if cell.data_type == "f":  # openpyxl takes text starting with '=' for a formula
+                cell.data_type = "s"
+    buffer = io.BytesIO()
+    book.save(buffer)
+    core = tostring(DocumentProperties(creator=CREATOR, created=FIXED_TIME, modified=FIXED_TIME).to_tree())
+    return _fixed_zip(buffer.getvalue(), {CORE_PART: core})
+
+
+def _fixed_zip(data: bytes, replaced: dict[str, bytes]) -> bytes:
+    """The same zip entries in the same order, every one dated `FIXED_TIME` and stored, with no
+    file attributes from the machine that wrote it; ``replaced`` entries get the bytes given."""
+    out = io.BytesIO()
+    with zipfile.ZipFile(io.BytesIO(data)) as source, zipfile.ZipFile(out, "w") as target:
+        for info in source.infolist():
+            entry = zipfile.ZipInfo(info.filename, date_time=FIXED_TIME.timetuple()[:6])
+            entry.compress_type = zipfile.ZIP_STORED
+            entry.create_system = 0  # else 3 on Unix and 0 on Windows: the same bytes everywhere
+            entry.external_attr = 0
+            target.writestr(entry, replaced.get(info.filename, source.read(info)))
+    return out.getvalue()
