@@ -15,7 +15,7 @@ from test_permutation_plans import BINARY, analysis, binary_csv, run
 
 from planrunner.pipeline.run import run_plan
 from planrunner.record.methods import readable_count
-from planrunner.record.permutation import arrangements_count
+from planrunner.record.permutation import exact_count
 from planrunner.report.digits import count
 
 
@@ -93,11 +93,11 @@ def test_counts_print_readably_at_any_size(value, shown):
     assert count(value) == shown
 
 
-def test_arrangement_counts_stay_exact_integers_while_json_can_write_them():
+def test_arrangement_counts_stay_exact_while_json_can_write_them():
     c = math.comb(3000, 1500)  # about 10^901: an exact int in the record
-    assert arrangements_count(c) == c
+    assert exact_count(c) == str(c)  # digits: past 2**53 - 1 a JSON reader might round it
     big = math.factorial(2000)
-    text = arrangements_count(big)
+    text = exact_count(big)
     assert isinstance(text, str) and text.endswith("e+5735")
 
 
@@ -143,3 +143,97 @@ analyses:
     null = np.array(null)
     greater, less = np.mean(null >= observed - 1e-12), np.mean(null <= observed + 1e-12)
     assert entry["exact"] and entry["p_value"] == pytest.approx(min(1.0, 2 * min(greater, less)), rel=1e-12)
+
+
+# --- whole numbers past 2**53 - 1: what every JSON reader keeps exact ----------------------------------
+# V-IJSON: RFC 7493 (I-JSON), section 2.2: integers outside [-(2**53) + 1, 2**53 - 1] are not
+# interoperable; JavaScript's Number.MAX_SAFE_INTEGER is 2**53 - 1 (ECMA-262, 21.1.2.6).
+
+def strict_reader(text: str) -> object:
+    """A JSON reader that holds every number as an IEEE double, as JavaScript, jq and spreadsheets do."""
+    return json.loads(text, parse_int=float)
+
+
+@pytest.mark.parametrize("n", [
+    2**53 - 2, 2**53 - 1,  # the largest every reader keeps: JSON integers
+    2**53, 2**53 + 1,  # 2**53 + 1 reads as 2**53 in a double: digits
+    10**300, math.comb(1200, 600),  # beyond any 64-bit integer, within the float range
+    10**3999 + 7,  # 4000 digits: the longest exact count written
+], ids=["2^53-2", "2^53-1", "2^53", "2^53+1", "10^300", "C(1200,600)", "4000-digits"])
+def test_a_count_reads_back_exactly_in_python_and_in_a_reader_of_doubles(n):
+    from planrunner.record.permutation import JSON_EXACT, count_value
+    from planrunner.record.schemas import record_schema
+
+    written = exact_count(n)
+    assert isinstance(written, int) == (n <= 2**53 - 1) and JSON_EXACT == 2**53 - 1
+    text = json.dumps({"arrangements": written})
+    assert count_value(json.loads(text)["arrangements"]) == n  # Python's json: exact
+    strict = strict_reader(text)["arrangements"]
+    assert int(strict) == n  # a reader of doubles: exact too (a double, or the string of digits)
+    # what writing it as a JSON integer would have given that reader: 2**53 + 1 becomes 2**53, 10**300 a
+    # neighbouring double, C(1200, 600) infinity (identity: doubles hold every integer up to 2**53 only)
+    as_double = strict_reader(json.dumps(n))
+    assert (math.isfinite(as_double) and int(as_double) == n) == (n <= 2**53)
+    jsonschema = pytest.importorskip("jsonschema")
+    count_schema = record_schema()["properties"]["analyses"]["items"]["properties"]["details"]["properties"]
+    jsonschema.Draft202012Validator(count_schema["arrangements"]).validate(written)
+    with pytest.raises(jsonschema.ValidationError):  # a JSON integer past 2**53 - 1 is not what records write
+        jsonschema.Draft202012Validator(count_schema["arrangements"]).validate(2**53)
+
+
+def test_more_than_4000_digits_is_scientific_text_and_not_taken_for_an_exact_count():
+    from planrunner.record.permutation import count_value
+
+    text = exact_count(10**4000 * 3)
+    mantissa, exponent = str(text).split("e+")
+    assert exponent == "4000" and float(mantissa) == pytest.approx(3.0, rel=1e-11)  # 13 digits through log10
+    assert count_value(text) is None
+
+
+def test_verify_accepts_a_record_written_with_json_integers_past_2_53(write_plan, tmp_path):
+    """A record written before counts became digits held C(60, 30) as a JSON integer: the re-run's
+    digits are the same whole number, and verify says so instead of failing."""
+    from planrunner.audit.verbs import SAME_WHOLE_NUMBER, verify_record
+    from planrunner.record.canonical import RECORD_HASH_FIELD, record_sha256
+
+    rows = "".join(f"{'a' if i % 2 else 'b'},{(i * 37) % 23 / 7:.4f}\n" for i in range(60))
+    plan = write_plan("""
+plan: sixty
+title: Sixty rows
+seed: 4
+datasets:
+  d: {file: d.csv, columns: {g: {type: category, levels: [a, b]}, y: {type: number}}}
+analyses:
+  - id: diff
+    data: d
+    outcome: y
+    groups: {by: g, compare: [a, b]}
+    statistic: mean_difference
+    method: permutation
+    resamples: 99
+""", {"d.csv": "g,y\n" + rows})
+    folder = run_plan(plan, out=tmp_path / "runs", clock=fixed_clock, history=False).folder
+    file = folder / "record.json"
+    record = json.loads(file.read_text(encoding="utf-8"))
+    assert record["analyses"][0]["details"]["arrangements"] == str(math.comb(60, 30))  # identity 18
+    record["analyses"][0]["details"]["arrangements"] = math.comb(60, 30)  # as records wrote it before
+    record[RECORD_HASH_FIELD] = record_sha256(record)
+    file.chmod(0o644)
+    file.unlink()
+    file.write_text(json.dumps(record, indent=2), encoding="utf-8")
+    report = verify_record(folder)
+    assert report.passed and [(d.path, d.rule) for d in report.differences] == [
+        ("analyses[0].details.arrangements", SAME_WHOLE_NUMBER)]
+    record["analyses"][0]["details"]["arrangements"] = math.comb(60, 30) + 1  # another number: a difference
+    record[RECORD_HASH_FIELD] = record_sha256(record)
+    file.unlink()
+    file.write_text(json.dumps(record, indent=2), encoding="utf-8")
+    assert not verify_record(folder).passed
+
+
+def test_verify_weighs_integers_past_the_float_range_without_overflow():
+    from planrunner.audit.verbs import Basis, _judge
+
+    judged = _judge("analyses[0].details.count", 10**400, 10**400 + 1, {"analyses": []},
+                    Basis(same_environment=False, reference_draws=True))
+    assert not judged.within and judged.difference == 1.0 and judged.rule == "counts must be equal"

@@ -13,6 +13,7 @@ from planrunner.execute.executors import Execution
 from planrunner.pipeline.printing import write_pdf
 from planrunner.pipeline.run import check_plan, run_plan
 from planrunner.plan.schema import Plan
+from planrunner.record.permutation import count_value
 from planrunner.record.results import NAMES, result_rows
 
 
@@ -63,7 +64,7 @@ class AnalysisResult:
                    p_value=entry.get("p_value"),
                    adjusted_p_values={a["method"]: a["p_value"] for a in entry.get("adjusted_p_values", [])},
                    n=sum((entry.get("n") or {}).get("groups", {}).values()) or None,
-                   resamples=entry.get("resamples"),
+                   resamples=count_value(entry.get("resamples")),
                    warnings=tuple(w.get("message", "") for w in entry.get("warnings", [])))
 
 

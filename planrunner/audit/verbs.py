@@ -29,6 +29,7 @@ from planrunner.plan.params import resolve_values
 from planrunner.plan.yamlsafe import load_yaml
 from planrunner.record.build import RunFacts, build_record, environment
 from planrunner.record.canonical import RECORD_HASH_FIELD, differences, record_sha256
+from planrunner.record.permutation import count_value
 from planrunner.record.rehearsal import is_rehearsal
 from planrunner.trail.store import read_json, write_new_file
 
@@ -41,6 +42,8 @@ MC_SDS = 4.0
 HEADLINE = re.compile(r"^(analyses\[\d+\]\.(estimate|standard_error|bias|p_value|intervals|adjusted_p_values)"
                       r"|datasets)")
 MC_FIELDS = {"standard_error": "standard_error_sd", "bias": "bias_sd", "p_value": "p_value_sd"}
+# records written before counts past 2**53 - 1 became strings of digits held them as JSON integers
+SAME_WHOLE_NUMBER = "the same whole number (written as its decimal digits past 2**53 - 1)"
 
 
 @dataclass(frozen=True)
@@ -146,11 +149,17 @@ def _judge(path: str, before: Any, after: Any, recorded: dict, basis: Basis) -> 
     that ``basis`` allows."""
     numeric = all(isinstance(v, (int, float)) and not isinstance(v, bool) for v in (before, after))
     if not numeric:
+        same = count_value(before)
+        if same is not None and same == count_value(after):  # 2**53 or more, as a JSON integer before
+            return FieldDifference(path, before, after, 0.0, 0.0, True, SAME_WHOLE_NUMBER)
         return FieldDifference(path, before, after, None, None, False, "must be equal")
-    diff = abs(float(before) - float(after))
+    try:
+        diff = abs(float(before - after))  # exact for two integers, however large
+    except OverflowError:  # past 1.8e308 apart
+        diff = math.inf
     if basis.same_environment:
         return FieldDifference(path, before, after, diff, 0.0, False, "same environment: bit for bit")
-    scale = max(abs(float(before)), abs(float(after)))
+    scale = max(_magnitude(before), _magnitude(after))
     fp = FLOAT_RELATIVE_TOLERANCE * scale
     if diff <= fp and not isinstance(before, int):
         return FieldDifference(path, before, after, diff, fp, True, "floating point (relative 1e-9)")
@@ -166,6 +175,13 @@ def _judge(path: str, before: Any, after: Any, recorded: dict, basis: Basis) -> 
     if isinstance(before, int) and isinstance(after, int):
         return FieldDifference(path, before, after, diff, 0.0, False, "counts must be equal")
     return FieldDifference(path, before, after, diff, fp, False, "floating point (relative 1e-9)")
+
+
+def _magnitude(x: int | float) -> float:
+    try:
+        return abs(float(x))
+    except OverflowError:  # an integer past the float range
+        return math.inf
 
 
 def draws_are_reference() -> bool:

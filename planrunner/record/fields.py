@@ -28,7 +28,7 @@ class MethodFields:
     p_value: float | None = None
     alternative: str | None = None
     exact: bool | None = None
-    resamples: int | None = None
+    resamples: int | str | None = None  # a count past 2**53 - 1 as its decimal digits (record.permutation.exact_count)
     monte_carlo: dict[str, Any] = field(default_factory=dict)
     details: dict[str, Any] = field(default_factory=dict)
     distribution: dict[str, Any] | None = None

@@ -2,11 +2,12 @@
 
 Every p-value keeps the counts behind it: ``count_greater_equal`` and ``count_less_equal`` (and
 ``count_absolute`` for the absolute two-sided rule) out of ``arrangements`` (exact) or
-``resamples`` (Monte Carlo). Counts are JSON integers up to 2⁵³ and strings of decimal digits
-beyond (exact integers that a JSON reader might round; dynamic programming counts past 2⁵³ come from
-the exact integer programme of ``exactdist``). Only where that programme would cost more than its
-bound are they the floating-point counts, written as decimal text in scientific notation with 13
-significant digits, and ``details.counts_exact`` is false.
+``resamples`` (Monte Carlo). Counts, the number of arrangements and the entry's ``resamples`` are JSON
+integers up to 2⁵³ − 1 and strings of decimal digits beyond (exact integers that a JSON reader
+might round: RFC 7493, I-JSON, section 2.2; dynamic programming counts past 2⁵³ come from the
+exact integer programme of ``exactdist``). Only where that programme would cost more than its
+bound, or an integer has more than 4000 digits, are they decimal text in scientific notation with
+13 significant digits (and ``details.counts_exact`` is false for such counts).
 """
 
 from __future__ import annotations
@@ -22,18 +23,31 @@ from planrunner.engines.results import PermutationResult
 from planrunner.record.canonical import plain_number as _f
 from planrunner.record.fields import MethodFields, precision_fields, support
 
-JSON_EXACT = 2 ** 53  # integers up to this are written as JSON numbers; every reader keeps them exact
+# the largest integer every JSON reader keeps exact: RFC 7493 (I-JSON), section 2.2, allows
+# integers in [-(2**53) + 1, 2**53 - 1]; beyond it a double cannot tell n from n + 1
+JSON_EXACT = 2 ** 53 - 1
+# Python refuses to write an int of more digits than this as text (sys.get_int_max_str_digits)
+INT_DIGITS_WRITTEN = 4000
+
+
+def exact_count(n: int) -> int | str:
+    """A whole number as the record writes it: a JSON integer up to 2**53 - 1, its exact decimal digits
+    up to 4000 digits (e.g. C(N, n)), beyond that (n! at n ≈ 1450 and up) decimal text in scientific
+    notation with 13 significant digits."""
+    n = int(n)
+    if abs(n) <= JSON_EXACT:
+        return n
+    return str(n) if abs(n) < 10**INT_DIGITS_WRITTEN else power_of_ten_text(math.log10(abs(n)))
 
 
 def _count(x: Any) -> Any:
-    """A count as the record writes it: a JSON integer up to 2**53; an exact integer beyond that as a
-    string of its decimal digits; a float count (DP counts past 2**53 beyond the exact programme's
-    bound) as decimal text in scientific notation, 13 significant digits (beyond 1.8e308 the engine
-    already gives that text, e.g. '1.660842939376e+1202')."""
+    """A count as the record writes it: an integer as `exact_count` writes it; a float count (DP counts
+    past 2**53 beyond the exact programme's bound) as decimal text in scientific notation, 13
+    significant digits (beyond 1.8e308 the engine already gives that text, e.g. '1.660842939376e+1202')."""
     if isinstance(x, str):
         return x
     if isinstance(x, (int, np.integer)) and not isinstance(x, bool):
-        return int(x) if abs(int(x)) <= JSON_EXACT else str(int(x))
+        return exact_count(int(x))
     if isinstance(x, float) and x.is_integer() and abs(x) <= JSON_EXACT:
         return int(x)
     if isinstance(x, float) and math.isfinite(x):
@@ -41,14 +55,16 @@ def _count(x: Any) -> Any:
     return _f(x)
 
 
-# Python refuses to write an int of more digits than this as text (sys.get_int_max_str_digits)
-INT_DIGITS_WRITTEN = 4000
-
-
-def arrangements_count(count: int) -> int | str:
-    """The number of arrangements as JSON can carry it: the exact int up to 4000 digits (e.g. C(N, n)),
-    beyond that (n! at n ≈ 1450 and up, a pairing count) decimal text with 13 significant digits."""
-    return int(count) if count < 10**INT_DIGITS_WRITTEN else power_of_ten_text(math.log10(count))
+def count_value(x: Any) -> int | None:
+    """The exact whole number a record's count field holds (a JSON integer or a string of its decimal
+    digits, as records write it now or wrote it before); None for decimal text in scientific notation."""
+    if isinstance(x, bool):
+        return None
+    if isinstance(x, int):
+        return x
+    if isinstance(x, str) and x.isdigit() and len(x) <= INT_DIGITS_WRITTEN:
+        return int(x)
+    return None
 
 
 def weighted_distribution(kind: str, values: np.ndarray, weights: np.ndarray | None, bins: int,
@@ -105,7 +121,7 @@ def permutation_fields(result: PermutationResult, bins: int) -> MethodFields:
         "observed": _f(result.observed), "count_greater_equal": _count(result.count_greater),
         "count_less_equal": _count(result.count_less), "count_absolute": _count(result.count_absolute),
         "p_greater": _f(result.p_greater), "p_less": _f(result.p_less), "centre": _f(result.centre),
-        "arrangements": arrangements_count(int(result.arrangements)), "computation": result.computation,
+        "arrangements": exact_count(result.arrangements), "computation": result.computation,
         "counts_exact": bool(result.counts_exact),
         "two_sided_rule": result.two_sided_rule, "tolerance": _f(result.tolerance),
         "smallest_p": _f(result.smallest_p),
@@ -120,7 +136,7 @@ def permutation_fields(result: PermutationResult, bins: int) -> MethodFields:
         details.update(shift_details)
     return MethodFields(
         estimate=_f(result.observed), p_value=_f(result.p_value), alternative=result.alternative,
-        exact=exact, resamples=int(result.resamples), intervals=intervals,
+        exact=exact, resamples=exact_count(result.resamples), intervals=intervals,
         precision=precision_fields(result.precision),
         monte_carlo={"p_value_sd": 0.0 if exact else _f(result.monte_carlo_se),
                      "p_value_interval": None if interval is None else

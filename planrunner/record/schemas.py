@@ -12,6 +12,7 @@ from typing import Any
 
 from planrunner.plan.schema import Plan
 from planrunner.record.build import FORMAT
+from planrunner.record.permutation import JSON_EXACT
 from planrunner.record.rehearsal import STAMP as REHEARSAL_STAMP
 
 DRAFT = "https://json-schema.org/draft/2020-12/schema"
@@ -30,10 +31,11 @@ _num = {"type": ["number", "null"]}
 _str = {"type": ["string", "null"]}
 _sha = {"type": "string", "pattern": "^[0-9a-f]{64}$"}
 _int0 = {"type": "integer", "minimum": 0}
-# a count of arrangements or draws: a JSON integer up to 2**53, an exact integer beyond as its decimal
-# digits, or (a float count beyond the exact programme's bound) decimal text, 13 significant digits
-_count = {"oneOf": [{"type": "integer", "minimum": 0, "maximum": 2 ** 53},
-                    {"type": "string", "pattern": "^[0-9]+$"},
+# a count of arrangements or draws: a JSON integer up to 2**53 - 1 (what every reader keeps exact,
+# RFC 7493 section 2.2), an exact integer beyond as its decimal digits (at most 4000), or (a float
+# count beyond the exact programme's bound, an integer of more digits) decimal text, 13 significant digits
+_count = {"oneOf": [{"type": "integer", "minimum": 0, "maximum": JSON_EXACT},
+                    {"type": "string", "pattern": "^[1-9][0-9]{15,3999}$"},
                     {"type": "string", "pattern": "^[0-9]\\.[0-9]{12}e\\+[0-9]+$"},
                     {"type": "null"}]}
 
@@ -75,10 +77,11 @@ _analysis = _obj({
     "adjusted_p_values": {"type": "array", "items": _obj({"method": {"type": "string"},
                                                           "p_value": {"type": "number", "minimum": 0, "maximum": 1}})},
     "alternative": _str, "exact": {"type": ["boolean", "null"]},
-    "resamples": {"type": ["integer", "null"], "minimum": 1},
+    "resamples": {"oneOf": [{"type": "null"}, {"type": "integer", "minimum": 1, "maximum": JSON_EXACT},
+                            {"type": "string", "pattern": "^[1-9][0-9]{15,3999}$"}]},
     "monte_carlo": {"type": "object"},
     "details": {"type": "object", "properties": {
-        "count_greater_equal": _count, "count_less_equal": _count, "count_absolute": _count,
+        "count_greater_equal": _count, "count_less_equal": _count, "count_absolute": _count, "arrangements": _count,
         "counts_exact": {"type": "boolean"}}},
     "distribution": {"oneOf": [{"type": "null"}, _obj({
         "support": {"oneOf": [{"type": "null"}, _obj({
