@@ -86,7 +86,8 @@ from planrunner.engines.streams import Stream, UniformRows
 from planrunner.engines.teststats import SUM_SCORES
 from planrunner.errors import EngineError
 
-__all__ = ["ENUMERATION_LIMIT", "PermutationOptions", "PermutationResult", "computation", "permutation_test"]
+__all__ = ["ENUMERATION_LIMIT", "PermutationOptions", "PermutationResult", "computation", "first_group_sums",
+           "mean_difference_layout", "permutation_test"]
 
 FEW_ARRANGEMENTS = 20  # common practice: below 20 the smallest attainable p exceeds 0.05
 TWO_SIDED_TEXT = {
@@ -185,6 +186,17 @@ def computation(samples: Sequence[np.ndarray], statistic: Statistic, options: Pe
     pooled = _pool(data, check_strata(strata, data))
     observed_value(statistic, *[to_compute_layout(a) for a in data])
     return _choose(pooled, statistic, options, fast)[0]
+
+
+def mean_difference_layout(samples: Sequence[np.ndarray], statistic: Statistic,
+                           strata: Sequence[np.ndarray] | None = None
+                           ) -> tuple[np.ndarray, tuple[tuple[int, int, tuple[int, ...]], ...]] | None:
+    """The pooled values and stratum blocks over which the Monte Carlo null of a difference of means
+    (or proportions) is drawn, as :func:`permutation_test` pools them (``engines/batched.py`` draws
+    many data sets' nulls at once); None when that fast path does not apply."""
+    data = check_samples(samples, statistic, method="the permutation test")
+    pooled = _pool(data, check_strata(strata, data))
+    return (pooled.values, pooled.blocks) if statistic.samples in (0, 2) and _sums_suffice(pooled, statistic) else None
 
 
 def _choose(pooled: _Pooled, statistic: Statistic, options: PermutationOptions,
@@ -365,7 +377,18 @@ def _mean_difference_range(pooled: _Pooled, stream: Stream, rows_per_batch: int,
 
 def _first_group_sums(keys: np.ndarray, values: np.ndarray,
                       blocks: tuple[tuple[int, int, tuple[int, ...]], ...]) -> np.ndarray:
+    """Sum of the values in group 1's slots of each row of keys (one data set's rows)."""
+    return first_group_sums(keys, values[None, :], blocks, ((0, 0, keys.shape[0]),))
+
+
+def first_group_sums(keys: np.ndarray, values: np.ndarray, blocks: tuple[tuple[int, int, tuple[int, ...]], ...],
+                     segments: Sequence[tuple[int, int, int]]) -> np.ndarray:
     """Sum of the values in group 1's slots of each row of keys, as the draw contract assigns them.
+
+    ``values`` holds one row of pooled values per data set, (D, N), all with the same ``blocks``;
+    ``segments`` are (data set, first row, stop row), covering the rows of ``keys`` in order: the
+    rows of several data sets may share one pass (``engines/batched.py``), each row still reduced
+    alone in the same order, so a row's sum never depends on the other rows.
 
     Group 1 takes, in every stratum block, the n1 positions with the smallest keys (ties to the
     lower position: the stable argsort). The n1-th smallest of ``size`` uniform keys lies, but with
@@ -374,22 +397,27 @@ def _first_group_sums(keys: np.ndarray, values: np.ndarray,
     KEY_BUCKETS buckets (bucket order is key order), the buckets before the one holding the n1-th
     key are taken whole, and only that bucket is sorted. A key is an integer multiple of 2⁻⁵³
     (numpy's doubles), so row number and key pack exactly into one int64 and one stable sort orders
-    those keys of every row at once, ties to the lower position. Rows whose n1-th key falls outside
-    the window are sorted in full.
+    those keys of every row at once, ties to the lower position (hence at most 1023 rows a pass).
+    Rows whose n1-th key falls outside the window are sorted in full.
     """
     rows = keys.shape[0]
+    owner = np.empty(rows, dtype=np.intp)  # the data set of each row
+    for dataset, first_row, stop_row in segments:
+        owner[first_row:stop_row] = dataset
     total = np.zeros(rows)
     for start, size, sizes in blocks:
         need_all = sizes[0]
         if need_all == 0:
             continue
         block = keys[:, start:start + size]
-        x = values[start:start + size]
+        x = values[:, start:start + size]
         q = need_all / size
         half = KEY_WINDOW_SDS * math.sqrt(q * (1.0 - q) / size) + 2.0 / size
         low, high = q - half, q + half
         below = block < low
-        part = np.multiply(below, x).sum(axis=1)  # faster than np.where, the same sums
+        part = np.empty(rows)
+        for dataset, first_row, stop_row in segments:  # faster than np.where, the same sums
+            part[first_row:stop_row] = np.multiply(below[first_row:stop_row], x[dataset]).sum(axis=1)
         need = need_all - np.count_nonzero(below, axis=1)  # window keys still to take, per row
         inside = np.flatnonzero((block < high) ^ below)  # row-major: row, then position
         row, column = np.divmod(inside, size)
@@ -403,18 +431,18 @@ def _first_group_sums(keys: np.ndarray, values: np.ndarray,
         target = np.minimum(target, KEY_BUCKETS - 1)
         before = np.where(target > 0, filled[np.arange(rows), target - 1], 0)
         whole = (bucket < target[row]) & ~missed[row]
-        part += np.bincount(row[whole], weights=x[column[whole]], minlength=rows)
+        part += np.bincount(row[whole], weights=x[owner[row[whole]], column[whole]], minlength=rows)
         # the bucket holding the need-th key: sort its keys, take what is still needed
         split = np.flatnonzero((bucket == target[row]) & ~missed[row])
         packed = (row[split] << 53) + (key[split] * 2.0 ** 53).astype(np.int64)
         split = split[np.argsort(packed, kind="stable")]  # by row, then key, then position
         first = np.searchsorted(row[split], np.arange(rows))
         taken = split[np.arange(split.size) - first[row[split]] < (need - before)[row[split]]]
-        part += np.bincount(row[taken], weights=x[column[taken]], minlength=rows)
+        part += np.bincount(row[taken], weights=x[owner[row[taken]], column[taken]], minlength=rows)
         for r in np.flatnonzero(missed):
             chosen = np.zeros(size, dtype=bool)
             chosen[np.argsort(block[r], kind="stable")[:need_all]] = True
-            part[r] = np.multiply(chosen, x).sum()
+            part[r] = np.multiply(chosen, x[owner[r]]).sum()
         total += part
     return total
 

@@ -53,6 +53,7 @@ __all__ = [
     "draw_parametric",
     "enumerate_cells",
     "evaluate",
+    "fast_path_applies",
     "fit_model",
     "layout",
     "model_se",
@@ -252,6 +253,11 @@ class _OrderFastPath:
     def compute(self, index_by_group: list[np.ndarray]) -> np.ndarray:
         values = [self._location(g, idx) for g, idx in enumerate(index_by_group)]
         return values[0] if len(values) == 1 else values[0] - values[1]
+
+
+def fast_path_applies(statistic: Statistic, inner: str | None) -> bool:
+    """Whether :func:`draw_cells` evaluates ``statistic`` by a fast path rather than by ``compute``."""
+    return _OrderFastPath.applies(statistic, inner) or SurvivalFastPath.applies(statistic, inner)
 
 
 def draw_cells(lay: Layout, statistic: Statistic, resamples: int, stream: Stream, batch_elements: int,

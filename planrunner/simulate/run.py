@@ -27,15 +27,25 @@ from planrunner.compile.jobs import Job, compile_jobs
 from planrunner.data.checks import check_tables
 from planrunner.data.columns import table_from_columns
 from planrunner.data.tables import Table
-from planrunner.engines.blocks import resample_ranges
+from planrunner.engines.batched import BATCH_ELEMENTS
+from planrunner.engines.blocks import mapping_ranges, resample_ranges
 from planrunner.engines.statistics import null_value
 from planrunner.engines.streams import Stream, analysis_key
 from planrunner.errors import PlanrunnerError
-from planrunner.execute.executors import Execution, dask_client, execute, process_pool, stop_dask, stop_process_pool
+from planrunner.execute.executors import (
+    Execution,
+    dask_client,
+    execute,
+    job_resamples,
+    process_pool,
+    stop_dask,
+    stop_process_pool,
+)
 from planrunner.execute.families import max_t_families
 from planrunner.plan.schema import Plan
 from planrunner.record.build import family_fields, method_fields
 from planrunner.record.decisions import decision_entry
+from planrunner.simulate.batching import batch_mapper
 
 # columns per dataset of one simulated data set, from that data set's generator
 Columns = Mapping[str, Mapping[str, np.ndarray]]
@@ -85,6 +95,9 @@ class SimulationTask:
     label: str  # the scenario's name, with the group size in a sample-size search ("name n=40")
     make: DataMaker
     used: tuple[str, ...]  # the plan datasets the analyses read
+    # data sets whose engines share passes (simulate/batching.py); None: a whole chunk; 0: one at a
+    # time, without the batched engines. Never changes a number.
+    batch: int | None = None
 
     def data_stream(self, index: int) -> np.random.Generator:
         """The data generator of data set ``index``: SeedSequence(seed, spawn_key=(label key, index))."""
@@ -115,16 +128,39 @@ def salted(job: Job, salt: tuple[int, ...]) -> Job:
     return replace(job, stream=Stream(job.stream.root_seed, job.stream.key + salt))
 
 
-def run_dataset(task: SimulationTask, index: int) -> DatasetOutcome:
-    """Every analysis of the plan on simulated data set ``index``."""
-    plan = task.plan
-    failed = _failed_whole(plan, index)
+@dataclass(frozen=True)
+class _Compiled:
+    """A data set's jobs (its plan streams salted), or the located message of its failure before them."""
+
+    index: int
+    jobs: list[Job] | None
+    failure: str | None = None
+
+
+def compile_dataset(task: SimulationTask, index: int) -> _Compiled:
+    """Simulated data set ``index`` as tables, checked, and its jobs."""
     try:
         tables = simulated_tables(task, index)
-        check_tables(plan, tables)
-        jobs = [salted(job, task.salt(index)) for job in compile_jobs(plan, tables)]
+        check_tables(task.plan, tables)
+        return _Compiled(index, [salted(job, task.salt(index)) for job in compile_jobs(task.plan, tables)])
     except PlanrunnerError as exc:
-        return failed(str(exc))
+        return _Compiled(index, None, str(exc))
+
+
+def run_dataset(task: SimulationTask, index: int) -> DatasetOutcome:
+    """Every analysis of the plan on simulated data set ``index``."""
+    return finish_dataset(task, compile_dataset(task, index))
+
+
+def finish_dataset(task: SimulationTask, compiled: _Compiled) -> DatasetOutcome:
+    """Every analysis of a compiled data set through its engines (under whatever range mapper is
+    installed: a batch's, see simulate/batching.py), its max-t families and the record's adapters."""
+    plan, index = task.plan, compiled.index
+    failed = _failed_whole(plan, index)
+    if compiled.jobs is None:
+        assert compiled.failure is not None
+        return failed(compiled.failure)
+    jobs = compiled.jobs
     results: list[Any] = []
     failures: list[str | None] = []
     for job in jobs:
@@ -232,7 +268,32 @@ def chunks(total: int, workers: int) -> list[tuple[int, int]]:
 
 def run_chunk(task: SimulationTask, start: int, stop: int) -> list[DatasetOutcome]:
     with np.errstate(all="ignore"):
-        return [run_dataset(task, index) for index in range(start, stop)]
+        if task.batch == 0:
+            return [run_dataset(task, index) for index in range(start, stop)]
+        out: list[DatasetOutcome] = []
+        for batch in batches(task, start, stop):
+            with mapping_ranges(batch_mapper([compiled.jobs for compiled in batch])):
+                out.extend(finish_dataset(task, compiled) for compiled in batch)
+        return out
+
+
+def batches(task: SimulationTask, start: int, stop: int) -> Iterator[list[_Compiled]]:
+    """The compiled data sets [start, stop) in consecutive batches of at most ``task.batch`` (None:
+    the whole range), each closed before its data sets' resamples would exceed
+    ``batched.BATCH_ELEMENTS`` doubles (at least one data set a batch)."""
+    most = stop - start if task.batch is None else task.batch
+    batch: list[_Compiled] = []
+    kept = 0
+    for index in range(start, stop):
+        compiled = compile_dataset(task, index)
+        resamples = sum(job_resamples(job) for job in compiled.jobs or ())
+        if batch and (len(batch) == most or kept + resamples > BATCH_ELEMENTS):
+            yield batch
+            batch, kept = [], 0
+        batch.append(compiled)
+        kept += resamples
+    if batch:
+        yield batch
 
 
 def run_scenario(task: SimulationTask, replicates: int, *, execution: Execution | None = None,

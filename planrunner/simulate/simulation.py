@@ -97,11 +97,13 @@ def simulate_plan(plan_path: str | Path, scenarios_path: str | Path, *, out: str
                   execution: Execution | None = None, progress: Callable[[str], Progress] | None = None,
                   command: list[str] | None = None, clock: Callable[[], dt.datetime] = utc_now,
                   lock: str | Path | None = None, refuse_deviations: bool = False,
-                  params: dict[str, str] | None = None, replicates: int | None = None) -> SimulationOutcome:
+                  params: dict[str, str] | None = None, replicates: int | None = None,
+                  batch: int | None = None) -> SimulationOutcome:
     """Simulate every scenario (and the search) and write a new folder. ``progress(label)`` gives
     the progress hook of each scenario's data sets. ``replicates`` replaces every scenario's number
-    of data sets (a quick look; the document says so). An interrupt leaves nothing behind: the
-    folder is written only when every number is in (trail/store.py)."""
+    of data sets (a quick look; the document says so). ``batch``: data sets whose engines share
+    passes (``SimulationTask.batch``; 0 runs them one at a time); it never changes a number. An
+    interrupt leaves nothing behind: the folder is written only when every number is in (trail/store.py)."""
     from planrunner.pipeline.run import load_plan
     from planrunner.simulate.scenarios import load_scenarios
     from planrunner.trail.files import lock_for_run
@@ -120,8 +122,9 @@ def simulate_plan(plan_path: str | Path, scenarios_path: str | Path, *, out: str
     execution = execution or Execution()
     plan = loaded.plan
     with stopping_on_termination(), WorkerPool(execution) as pool:
-        results = [_scenario_entry(plan, scenarios.seed, s, execution, pool, progress) for s in scenarios.scenarios]
-        search = None if scenarios.search is None else _search(plan, scenarios, execution, pool, progress)
+        results = [_scenario_entry(plan, scenarios.seed, s, execution, pool, progress, batch)
+                   for s in scenarios.scenarios]
+        search = None if scenarios.search is None else _search(plan, scenarios, execution, pool, progress, batch)
     finished = clock()
     body: dict[str, Any] = {
         "format": FORMAT,
@@ -157,8 +160,8 @@ def _environment() -> dict[str, Any]:
 
 
 def _scenario_entry(plan: Plan, seed: int, scenario: Any, execution: Execution, pool: WorkerPool,
-                    progress: Callable[[str], Progress] | None) -> dict[str, Any]:
-    outcomes = _run(plan, seed, scenario.name, scenario, scenario.replicates, execution, pool, progress)
+                    progress: Callable[[str], Progress] | None, batch: int | None) -> dict[str, Any]:
+    outcomes = _run(plan, seed, scenario.name, scenario, scenario.replicates, execution, pool, progress, batch)
     return {"name": scenario.name, "description": scenario.description, "replicates": scenario.replicates,
             "changes": dict(scenario.changes), "group_sizes": group_sizes(scenario),
             "analyses": [analysis_entry(plan, k, a, outcomes, scenario.datasets)
@@ -166,11 +169,11 @@ def _scenario_entry(plan: Plan, seed: int, scenario: Any, execution: Execution, 
 
 
 def _run(plan: Plan, seed: int, label: str, scenario: Any, replicates: int, execution: Execution,
-         pool: WorkerPool, progress: Callable[[str], Progress] | None) -> list[DatasetOutcome]:
+         pool: WorkerPool, progress: Callable[[str], Progress] | None, batch: int | None) -> list[DatasetOutcome]:
     from planrunner.pipeline.run import available_memory
 
     used = used_datasets(plan)
-    task = SimulationTask(plan, seed, label, ModelData(dict(scenario.datasets), plan, used), used)
+    task = SimulationTask(plan, seed, label, ModelData(dict(scenario.datasets), plan, used), used, batch)
     check_memory(task, execution.workers, available_memory())
     hook = progress(label) if progress is not None else None
     return run_scenario(task, replicates, execution=execution, progress=hook,
@@ -200,7 +203,7 @@ def analysis_entry(plan: Plan, k: int, analysis: Any, outcomes: list[DatasetOutc
 
 
 def _search(plan: Plan, scenarios: Any, execution: Execution, pool: WorkerPool,
-            progress: Callable[[str], Progress] | None) -> dict[str, Any]:
+            progress: Callable[[str], Progress] | None, batch: int | None) -> dict[str, Any]:
     """The named scenario at each size of the grid; the analysis alone when it is in no
     multiplicity family (its numbers do not depend on the others), else the whole plan."""
     search = scenarios.search
@@ -214,7 +217,7 @@ def _search(plan: Plan, scenarios: Any, execution: Execution, pool: WorkerPool,
     points = []
     for n in search.sizes:
         outcomes = _run(searched, scenarios.seed, f"{base.name} n={n}", base.with_group_sizes(n), base.replicates,
-                        execution, pool, progress)
+                        execution, pool, progress, batch)
         mine = [o.analyses[index] for o in outcomes]
         hits = [o.verdict == "met" for o in mine if o.verdict is not None] if by_decision else \
             [bool(o.rejected) for o in mine if o.failure is None and o.rejected is not None]
