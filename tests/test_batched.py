@@ -13,6 +13,7 @@ import pytest
 from conftest import fixed_clock
 
 from planrunner.engines import batched, permutation, schemes
+from planrunner.engines.permcore import PermutationOptions
 from planrunner.engines.statistics import bind, get_statistic
 from planrunner.engines.streams import Stream
 from planrunner.execute.executors import Execution
@@ -40,11 +41,12 @@ def test_batched_label_shuffle_nulls_are_each_data_sets_own(count, n1, n2, strat
     statistic = get_statistic("risk_difference" if binary else "mean_difference")
     data = [_two_groups(rng, n1, n2, binary) for _ in range(count)]
     codes = (np.arange(n1) % 3, np.arange(n2) % 3) if strata else None  # the same strata in every data set
-    laid = [permutation.mean_difference_layout(d, statistic, codes) for d in data]
+    options = PermutationOptions(resamples=1234, alternative="two-sided", exact="never")
+    laid = [permutation.monte_carlo_mean_difference(d, statistic, options, codes) for d in data]
     assert all(found is not None for found in laid)
     values = np.stack([found[0] for found in laid])  # type: ignore[index]
     blocks = laid[0][1]  # type: ignore[index]
-    resamples = 1234  # crosses a draw block
+    resamples = options.resamples  # crosses a draw block
     own = [permutation._random_range(permutation._pool(d, codes), statistic, STREAMS[k], 10 ** 9, True, 0, resamples)
            for k, d in enumerate(data)]
     for budget in (batched.BATCH_ELEMENTS, 7 * (n1 + n2) + 1):  # all in one pass; 7 rows a pass
@@ -99,7 +101,9 @@ def test_a_pass_never_holds_more_draws_than_its_budget(monkeypatch):
     rng = np.random.default_rng(3)
     data = [(rng.normal(size=50), rng.normal(size=50)) for _ in range(7)]
     statistic = get_statistic("mean_difference")
-    values = np.stack([permutation.mean_difference_layout(d, statistic)[0] for d in data])  # type: ignore[index]
+    options = PermutationOptions(resamples=999, alternative="two-sided")
+    values = np.stack([permutation.monte_carlo_mean_difference(d, statistic, options)[0]  # type: ignore[index]
+                       for d in data])
     lays = [schemes.layout(d, None) for d in data]
     stacked = [np.stack([lay.groups[g] for lay in lays]) for g in range(2)]
     budget = 5_000  # 50 rows of 100 draws

@@ -82,7 +82,7 @@ def mean_difference_nulls(values: np.ndarray, blocks: Blocks, streams: Sequence[
                           batch_elements: int = BATCH_ELEMENTS) -> np.ndarray:
     """The Monte Carlo null T = S1/n1 − (Σx − S1)/n2 of resamples [0, resamples) of every data set,
     (D, resamples): ``values`` (D, N) holds each data set's pooled values (stratum-major, group
-    1 first; ``permutation.mean_difference_layout``), all with the same stratum ``blocks``, and
+    1 first; ``permutation.monte_carlo_mean_difference``), all with the same stratum ``blocks``, and
     ``streams`` each data set's stream. Row d equals ``permutation._random_range`` of data set d."""
     count, width = values.shape
     n1 = sum(sizes[0] for _, _, sizes in blocks)

@@ -62,6 +62,7 @@ from planrunner.engines.permcore import (
     DYNAMIC_PROGRAMMING,
     ENUMERATION,
     ENUMERATION_LIMIT,
+    MONTE_CARLO,
     ComputedNull,
     Description,
     Judge,
@@ -87,7 +88,7 @@ from planrunner.engines.teststats import SUM_SCORES
 from planrunner.errors import EngineError
 
 __all__ = ["ENUMERATION_LIMIT", "PermutationOptions", "PermutationResult", "computation", "first_group_sums",
-           "mean_difference_layout", "permutation_test"]
+           "monte_carlo_mean_difference", "permutation_test"]
 
 FEW_ARRANGEMENTS = 20  # common practice: below 20 the smallest attainable p exceeds 0.05
 TWO_SIDED_TEXT = {
@@ -188,15 +189,20 @@ def computation(samples: Sequence[np.ndarray], statistic: Statistic, options: Pe
     return _choose(pooled, statistic, options, fast)[0]
 
 
-def mean_difference_layout(samples: Sequence[np.ndarray], statistic: Statistic,
-                           strata: Sequence[np.ndarray] | None = None
-                           ) -> tuple[np.ndarray, tuple[tuple[int, int, tuple[int, ...]], ...]] | None:
-    """The pooled values and stratum blocks over which the Monte Carlo null of a difference of means
-    (or proportions) is drawn, as :func:`permutation_test` pools them (``engines/batched.py`` draws
-    many data sets' nulls at once); None when that fast path does not apply."""
+def monte_carlo_mean_difference(samples: Sequence[np.ndarray], statistic: Statistic, options: PermutationOptions,
+                                strata: Sequence[np.ndarray] | None = None
+                                ) -> tuple[np.ndarray, tuple[tuple[int, int, tuple[int, ...]], ...]] | None:
+    """The pooled values and stratum blocks over which :func:`permutation_test` draws the Monte Carlo
+    null of a difference of means (or proportions) on these data (``engines/batched.py`` draws many
+    data sets' nulls at once); None when it would not draw that null (another statistic, an exact
+    null by enumeration or DP)."""
     data = check_samples(samples, statistic, method="the permutation test")
     pooled = _pool(data, check_strata(strata, data))
-    return (pooled.values, pooled.blocks) if statistic.samples in (0, 2) and _sums_suffice(pooled, statistic) else None
+    if statistic.samples not in (0, 2) or not _sums_suffice(pooled, statistic):
+        return None
+    if _choose(pooled, statistic, options, True)[0] != MONTE_CARLO:
+        return None
+    return pooled.values, pooled.blocks
 
 
 def _choose(pooled: _Pooled, statistic: Statistic, options: PermutationOptions,

@@ -27,12 +27,11 @@ from planrunner.compile.jobs import Job
 from planrunner.engines import batched, schemes
 from planrunner.engines.blocks import RangeMapper, RangeTask
 from planrunner.engines.bootstrap import BootstrapOptions
-from planrunner.engines.permcore import MONTE_CARLO, PermutationOptions
-from planrunner.engines.permutation import mean_difference_layout
+from planrunner.engines.permcore import PermutationOptions
+from planrunner.engines.permutation import monte_carlo_mean_difference
 from planrunner.engines.statistics import check_samples, check_strata
 from planrunner.engines.streams import Stream
 from planrunner.errors import PlanrunnerError
-from planrunner.execute.permutation import planned_computation
 
 
 @dataclass(frozen=True)
@@ -61,8 +60,8 @@ def _permutation_member(job: Job) -> tuple[Any, tuple[np.ndarray, ...]] | None:
     if (job.method != "permutation" or job.design or not isinstance(options, PermutationOptions)
             or options.precision is not None):
         return None
-    found = mean_difference_layout(job.samples, job.statistic, job.strata)
-    if found is None or planned_computation(job) != MONTE_CARLO:
+    found = monte_carlo_mean_difference(job.samples, job.statistic, options, job.strata)
+    if found is None:
         return None
     values, blocks = found
     return blocks, (values,)
