@@ -322,3 +322,112 @@ def test_effects_per_stratum_move_the_location_of_their_rows():
         for depot, shift in (("north", 0.0), ("south", -3.0)):
             cell = out["y"][(out["arm"] == arm) & (out["depot"] == depot)]
             assert abs(cell.mean() - (mean + shift)) < 4 * 2 / np.sqrt(cell.size)  # V-TOL
+
+
+def _one_way_anova_icc(totals: np.ndarray, trials: np.ndarray) -> float:
+    """The ANOVA estimator of the intraclass correlation of binary data from each cluster's successes
+    and trials (Ridout, Demétrio & Firth 1999, Biometrics 55, 137–148, the estimator ρ_A; from memory):
+    (MSB − MSW)/(MSB + (n_A − 1)·MSW)."""
+    clusters, total = totals.size, trials.sum()
+    between = (np.sum(totals**2 / trials) - totals.sum() ** 2 / total) / (clusters - 1)
+    within = (totals.sum() - np.sum(totals**2 / trials)) / (total - clusters)
+    n_a = (total - np.sum(trials**2) / total) / (clusters - 1)
+    return float((between - within) / (between + (n_a - 1) * within))
+
+
+def _batched_sd(values: np.ndarray, estimate) -> float:
+    """The Monte Carlo sd of `estimate` over all clusters, from 20 batches of clusters."""
+    return float(np.std([estimate(b) for b in np.array_split(values, 20)], ddof=1) / np.sqrt(20))
+
+
+def test_clustered_gamma_keeps_each_rows_law_and_correlates_icc():
+    """A shared Gamma(icc·shape) part plus the row's own Gamma((1 − icc)·shape) part, times the scale:
+    each row Gamma(shape, scale) (scipy.stats.gamma, Kolmogorov–Smirnov on one row per cluster) and two
+    rows of one cluster correlate icc·shape/shape = icc (Cherian 1941's bivariate gamma, from memory)."""
+    icc = 0.35
+    values = _clustered("gamma", {"shape": 2.0, "scale": 3.0}, "number", icc, clusters=20_000)
+    assert stats.kstest(values[:, 0], stats.gamma(2.0, scale=3.0).cdf).pvalue > 1e-3  # scipy reference
+    sd = _batched_sd(values, _within_pair_correlation)
+    assert abs(_within_pair_correlation(values) - icc) < 4 * sd + 1e-3  # V-TOL
+
+
+def test_clustered_binomial_rows_are_beta_binomial_with_the_stated_icc():
+    """Each row is Binomial(size, P_c) with the cluster's P_c ~ Beta(a, b), mean p and 1/(a + b + 1) = icc:
+    a row is scipy.stats.betabinom(size, a, b) (chi-square on one row per cluster; its mean is size·p),
+    and the ANOVA estimator of the trials' intraclass correlation, from each cluster's successes out of
+    2·size trials, estimates icc (Ridout, Demétrio & Firth 1999)."""
+    size, p, icc = 5, 0.3, 0.2
+    a, b = p * (1 - icc) / icc, (1 - p) * (1 - icc) / icc
+    reference = stats.betabinom(size, a, b)
+    assert 1 / (a + b + 1) == pytest.approx(icc) and reference.mean() == pytest.approx(size * p)  # identities
+    values = _clustered("binomial", {"size": size, "p": p}, "integer", icc, clusters=20_000)
+    _assert_distribution(values[:, 0], "binomial", reference)
+
+    def anova(block: np.ndarray) -> float:
+        return _one_way_anova_icc(block.sum(axis=1), np.full(block.shape[0], 2.0 * size))
+
+    assert abs(anova(values) - icc) < 4 * _batched_sd(values, anova) + 1e-3  # V-TOL
+
+
+def _frailty_pairs(family: str, parameters: dict, frailty: float, clusters: int = 4_000) -> np.ndarray:
+    rows = Rows(count=2 * clusters, clusters=ClusterRows(column="site", count=clusters, frailty=frailty))
+    out = _generate(rows, {"t": ColumnModel(model=Distribution(family=family, **parameters))},
+                    _dataset(site="integer", t="number"))
+    assert (out["site"][0::2] == out["site"][1::2]).all()
+    return out["t"].reshape(clusters, 2)
+
+
+def test_an_exponential_time_under_a_gamma_frailty_is_lomax_and_its_pairs_have_kendalls_tau():
+    """T = mean·E/Z with Z ~ Gamma(1/θ, θ): one time per cluster is scipy.stats.lomax(c = 1/θ, scale = mean/θ)
+    (an exponential mixed over a gamma rate), and two times of one cluster have Kendall's τ = θ/(θ + 2)
+    (the gamma frailty's Clayton copula; Hougaard 2000, Analysis of Multivariate Survival Data, ch. 7;
+    Clayton 1978, Biometrika 65, 141–151; from memory), scipy.stats.kendalltau on the pairs."""
+    theta, mean = 0.8, 5.0
+    times = _frailty_pairs("exponential", {"mean": mean}, theta)
+    assert stats.kstest(times[:, 0], stats.lomax(1 / theta, scale=mean / theta).cdf).pvalue > 1e-3  # scipy
+    tau = stats.kendalltau(times[:, 0], times[:, 1]).statistic
+    # V-TOL: 4 Monte Carlo sd of τ̂ from 20 batches of clusters
+    sd = _batched_sd(times, lambda b: stats.kendalltau(b[:, 0], b[:, 1]).statistic)
+    assert abs(tau - theta / (theta + 2)) < 4 * sd
+
+
+def test_a_weibull_time_under_a_gamma_frailty_has_the_closed_form_marginal_mean_and_median():
+    """The marginal survival (1 + θ(t/scale)^shape)^(−1/θ) (truth.py's Burr XII law) against the sample:
+    its mean and median within Monte Carlo error, and Kendall's τ of two times of one cluster θ/(θ + 2),
+    whatever the margins (the copula is the frailty's)."""
+    from planrunner.simulate.truth import family_mean, family_median
+
+    theta, parameters = 0.5, {"shape": 1.5, "scale": 2.0}
+    times = _frailty_pairs("weibull", parameters, theta, clusters=20_000)
+    first = times[:, 0]  # one time per cluster: independent
+    mean, median = family_mean("weibull", {**parameters, "frailty": theta}), family_median(
+        "weibull", {**parameters, "frailty": theta})
+    assert abs(first.mean() - mean) < 4 * first.std() / np.sqrt(first.size)  # V-TOL
+    # the sample median's sd: sqrt(1/4n)/f(m), f the Burr XII density at the median (V-TOL)
+    density = stats.burr12(1.5, 1 / theta, scale=2.0 * theta ** (-1 / 1.5)).pdf(median)
+    assert abs(np.median(first) - median) < 4 * np.sqrt(0.25 / first.size) / density
+    assert stats.burr12(1.5, 1 / theta, scale=2.0 * theta ** (-1 / 1.5)).median() == pytest.approx(median)
+    tau = stats.kendalltau(times[:4000, 0], times[:4000, 1]).statistic
+    assert abs(tau - theta / (theta + 2)) < 4 * _batched_sd(times[:4000], lambda b: stats.kendalltau(
+        b[:, 0], b[:, 1]).statistic)
+
+
+def test_clusters_nest_in_strata_and_groups():
+    """The strata shares apply to each group's clusters (largest remainder: 5 clusters × 0.5, 0.3, 0.2 are
+    quotas 2.5, 1.5, 1.0, floors 2, 1, 1, the one left over to the earlier of the tied fractions: 3, 1, 1);
+    each cluster lies in one stratum and one group, and its rows take its stratum."""
+    rows = Rows(groups=GroupRows(column="arm", sizes={"a": 23, "b": 20}),
+                strata=StrataRows(column="depot", shares={"north": 0.5, "east": 0.3, "west": 0.2}),
+                clusters=ClusterRows(column="site", count=5, icc=0.2))
+    dataset = Dataset(file="x.csv", columns={"arm": Column(type="category", levels=["a", "b"]),
+                                             "depot": Column(type="category", levels=["north", "east", "west"]),
+                                             "site": Column(type="integer"), "y": Column(type="number")})
+    out = _generate(rows, {"y": ColumnModel(model=Distribution(family="gamma", shape=2.0, scale=1.0))}, dataset)
+    for site in np.unique(out["site"]):
+        rows_of = out["site"] == site
+        assert len(set(out["depot"][rows_of])) == 1 and len(set(out["arm"][rows_of])) == 1
+    for arm in ("a", "b"):
+        in_arm = out["arm"] == arm
+        per_stratum = {d: len(set(out["site"][in_arm & (out["depot"] == d)])) for d in ("north", "east", "west")}
+        assert per_stratum == {"north": 3, "east": 1, "west": 1}  # largest remainder of 2.5, 1.5, 1.0
+    assert out["depot"][:5].tolist() == ["north"] * 5 and out["site"][:5].tolist() == [1] * 5

@@ -174,8 +174,25 @@ CASES = [
     (FULL, "{family: bernoulli, p: 0.3}}", "{family: bernoulli, p: 0.3}, censoring: {family: exponential, rate: 1}}",
      "censoring", "censoring cuts a positive time"),
     (FULL, "count: 5, icc: 0.1", "count: 5, icc: 1.0", "icc: 1.0", "icc must lie in [0, 1)"),
-    (FULL, "        icc: 0\n", "", "weibull", "a cluster effect is defined for normal, lognormal, bernoulli, poisson "
-     "columns, not weibull (give this column icc: 0)"),
+    (FULL, "        icc: 0\n", "", "weibull", "rows.clusters gives an icc, but a weibull time's cluster effect is a "
+     "shared gamma frailty (give frailty: VARIANCE"),
+    (FULL, "        icc: 0\n", "        icc: 0.2\n", "icc: 0.2", "a weibull time's cluster effect is a shared gamma "
+     "frailty, not an icc"),
+    (FULL, "        icc: 0\n", "        frailty: 25\n", "frailty: 25", "frailty (the gamma frailty's variance) must "
+     "lie in [0, 20] (got 25)"),
+    (FULL, "by_group: {active: {mean: 11}}}", "by_group: {active: {mean: 11}}, frailty: 0.5}", "frailty",
+     "frailty is the shared gamma frailty of exponential and weibull times; a normal column's cluster effect "
+     "is its icc"),
+    (FULL, "count: 5, icc: 0.1", "count: 5", "clusters:", "clusters need the strength of their effect"),
+    (FULL, "count: 5, icc: 0.1", "count: 5, icc: 0.1, frailty: -1", "frailty: -1",
+     "frailty (the gamma frailty's variance) must lie in [0, 20] (got -1)"),
+    (GOOD, "{family: bernoulli, p: 0.3}}", "{family: bernoulli, p: 0.3}, frailty: 0.2}", "frailty",
+     "frailty applies only with rows.clusters"),
+    (GOOD, "      strata:", "      clusters: {column: centre, count: 2, icc: 0.1}\n      strata:", "strata:",
+     "stratum 'c' gets none of the 2 clusters of a group (clusters lie within one stratum; 2 × 0.25 rounds to 0) "
+     "(give at least 4 clusters per group, or a larger share)"),
+    (PAIRS, "      pairs:", "      clusters: {column: centre, count: 5, icc: 0.1}\n      pairs:", "pairs:",
+     "pairs and clusters together are not modelled: a cluster lies within one group, a pair has a row in each"),
     (FULL, "family: lognormal, meanlog: 1, sdlog: 0.5", "family: normal, mean: 1, sd: 0.5", "level:",
      "a normal model can give values below column 'level''s declared min 0"),
     (FULL, "      hits:", "      tries: {model: {family: binomial, size: 3, p: 0.2}, icc: 0,\n"
@@ -237,6 +254,20 @@ def test_each_problem_gets_one_located_message(tmp_path, plan, base, old, new, l
     assert found, "\n".join(messages)
     assert re.search(rf"scenarios\.yaml:{line}:\d+: ", found[0]), found[0]
     assert len(messages) == 1 or "trail" in text, "\n".join(messages)
+
+
+def test_a_frailty_alone_in_rows_clusters_leaves_every_icc_column_to_say_its_own(tmp_path, plan):
+    """rows.clusters with only a frailty: the weibull time takes it; each column of an icc family is
+    named once, at its family, until it gives its own icc (0 for none)."""
+    text = FULL.replace("count: 5, icc: 0.1", "count: 5, frailty: 0.5").replace("        icc: 0\n", "")
+    problems = _problems(tmp_path, plan, text)
+    named = sorted(re.search(r"columns\.(\w+)\.model\.family: rows\.clusters gives a frailty", m).group(1)
+                   for m in problems)
+    assert named == ["flag", "hits", "level", "score"], problems
+    for column in named:
+        text = text.replace(f"      {column}: {{model:", f"      {column}: {{icc: 0, model:")
+    time = _load(tmp_path, plan, text).scenarios[0].datasets["trial"]
+    assert time.rows.clusters.frailty == 0.5 and time.rows.clusters.icc is None
 
 
 def test_the_full_base_reads(tmp_path, plan):

@@ -6,6 +6,7 @@ from __future__ import annotations
 import math
 from pathlib import Path
 
+import numpy as np
 import pytest
 
 from planrunner.pipeline.run import load_plan
@@ -204,10 +205,72 @@ def test_a_clustered_poisson_count_is_negative_binomial_with_the_same_mean(tmp_p
     plan = setup(tmp_path, "median_difference", outcome="k")
     found = true_value(plan.analyses[0], plan, designed("k", family, {"mean": 4.5}, CLUSTERED))
     assert found["value"] is None and "negative binomial" in found["reason"]
+
+
+def test_clustered_gamma_keeps_each_rows_law_and_binomial_rows_are_beta_binomial_with_the_same_mean(tmp_path):
+    """Gamma: a shared Gamma(icc·shape) part plus the row's own Gamma((1 − icc)·shape) part is
+    Gamma(shape) (a sum of independent gammas of one scale), so the means and medians are scipy's gamma
+    ones. Binomial: each row is scipy's betabinom(size, a, b) with a = p(1 − icc)/icc, b = (1 − p)(1 − icc)/icc
+    (Ridout, Demétrio & Firth 1999, Biometrics 55: icc = 1/(a + b + 1)), whose mean is size·p."""
+    from scipy import stats
+
+    gamma, first = CASES[2]
+    laws = [scipy_law("gamma", {**gamma, **first}), scipy_law("gamma", gamma)]
+    for statistic, expected in (("mean_difference", laws[0].mean() - laws[1].mean()),  # scipy reference
+                                ("median_difference", laws[0].median() - laws[1].median())):  # scipy reference
+        plan = setup(tmp_path, statistic, outcome="y")
+        found = true_value(plan.analyses[0], plan, designed("y", gamma, first, CLUSTERED))
+        assert found["value"] == pytest.approx(expected, rel=1e-12) and "shared gamma part" in found["formula"]
+    icc, size = 0.3, 12
+    a_b = {p: (p * (1 - icc) / icc, (1 - p) * (1 - icc) / icc) for p in (0.5, 0.3)}
+    assert all(1 / (a + b + 1) == pytest.approx(icc, rel=1e-12) for a, b in a_b.values())  # the ICC identity
+    laws = [stats.betabinom(size, *a_b[0.5]), stats.betabinom(size, *a_b[0.3])]
+    plan = setup(tmp_path, "mean_difference", outcome="k")
+    found = true_value(plan.analyses[0], plan, designed("k", *DISCRETE[1], CLUSTERED))
+    assert found["value"] == pytest.approx(laws[0].mean() - laws[1].mean(), rel=1e-12)  # scipy reference
+    assert "beta-binomial" in found["formula"]
+
+
+FRAILTY = {"clusters": {"column": "x", "count": 4, "frailty": 0.4}}
+
+
+def _frailty_law(family: dict, theta: float):
+    """The marginal law of a time whose hazard is multiplied by Z ~ Gamma(1/θ, θ), by a route of its
+    own: an exponential is Lomax(c = 1/θ, scale = mean/θ) (an exponential mixed over a gamma rate,
+    scipy.stats.lomax); a Weibull's mean is scale·Γ(1 + 1/shape)·E[Z^(−1/shape)], the gamma moment
+    E[Z^m] = θ^m Γ(1/θ + m)/Γ(1/θ), and its median solves E[exp(−Z·(m/scale)^shape)] = 1/2, the
+    expectation taken by scipy.stats.gamma.expect (numerical integration)."""
+    from scipy import optimize, special, stats
+
+    if family["family"] == "exponential":
+        law = stats.lomax(1 / theta, scale=family["mean"] / theta)
+        return law.mean(), law.median()
+    shape, scale = family["shape"], family["scale"]
+    moment = theta ** (-1 / shape) * special.gamma(1 / theta - 1 / shape) / special.gamma(1 / theta)
+    frailty = stats.gamma(1 / theta, scale=theta)
+
+    def survival(m):
+        return frailty.expect(lambda z: np.exp(-z * (m / scale) ** shape)) - 0.5
+
+    return scale * special.gamma(1 + 1 / shape) * moment, optimize.brentq(survival, 1e-9 * scale, 1e3 * scale,
+                                                                          xtol=1e-13)
+
+
+@pytest.mark.parametrize(("family", "first"), [CASES[3], CASES[4]], ids=["exponential", "weibull"])
+def test_a_gamma_frailty_gives_the_marginal_mean_and_median_of_the_mixture(tmp_path, family, first):
+    theta = FRAILTY["clusters"]["frailty"]
+    expected = [_frailty_law({**family, **first}, theta), _frailty_law(family, theta)]
+    for k, statistic in enumerate(("mean_difference", "median_difference")):
+        plan = setup(tmp_path, statistic, outcome="y")
+        found = true_value(plan.analyses[0], plan, designed("y", family, first, FRAILTY))
+        # the Weibull median by quad inside brentq: about 1e-8 relative
+        assert found["value"] == pytest.approx(expected[0][k] - expected[1][k], rel=1e-7), statistic
+        assert "gamma frailty" in found["formula"] and "θ = 0.4" in found["formula"]
+    # a frailty variance at or above the shape leaves the mean infinite: not defined, with the reason
     plan = setup(tmp_path, "mean_difference", outcome="y")
-    gamma = {"family": "gamma", "shape": 2.0, "scale": 1.0}
-    found = true_value(plan.analyses[0], plan, designed("y", gamma, {}, CLUSTERED))
-    assert found["value"] is None and "no cluster effect" in found["reason"]
+    heavy = {"clusters": {"column": "x", "count": 4, "frailty": 1.5}}
+    found = true_value(plan.analyses[0], plan, designed("y", family, first, heavy))
+    assert found["value"] is None and "finite only when the variance is below its shape" in found["reason"]
 
 
 PAIRED_PLAN = """\
@@ -257,3 +320,22 @@ def test_coverage_of_a_paired_mean_difference_is_nominal(tmp_path):
     assert coverage["of"] == 200
     assert abs(coverage["rate"] - 0.95) <= 4 * math.sqrt(0.95 * 0.05 / 200), coverage
     assert found["bias"] is not None and found["rmse"] is not None
+
+
+def test_a_filter_of_a_time_under_a_gamma_frailty_truncates_its_lomax_law(tmp_path):
+    """An exponential time under a gamma frailty is Lomax (scipy.stats.lomax): the mean of the rows kept
+    by `y < 7.5` against scipy's numerical conditional expectation, the median against the point that
+    halves the kept probability (lomax.ppf)."""
+    from scipy import stats
+
+    family, first = CASES[3]
+    theta = FRAILTY["clusters"]["frailty"]
+    laws = [stats.lomax(1 / theta, scale=m / theta) for m in (first["mean"], family["mean"])]
+    expected = [law.expect(lambda v: v, ub=7.5, conditional=True) for law in laws]  # scipy reference
+    plan = setup(tmp_path, "mean_difference", rows_where="y < 7.5")
+    found = true_value(plan.analyses[0], plan, designed("y", family, first, FRAILTY))
+    assert found["value"] == pytest.approx(expected[0] - expected[1], rel=1e-7, abs=1e-7)
+    halves = [law.ppf(law.cdf(7.5) / 2) for law in laws]  # scipy reference
+    plan = setup(tmp_path, "median_difference", rows_where="y < 7.5")
+    found = true_value(plan.analyses[0], plan, designed("y", family, first, FRAILTY))
+    assert found["value"] == pytest.approx(halves[0] - halves[1], rel=1e-10)

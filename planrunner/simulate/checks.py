@@ -10,6 +10,8 @@ from __future__ import annotations
 import math
 from collections.abc import Mapping
 
+import numpy as np
+
 from planrunner.plan.derived import dataset_columns, derivations
 from planrunner.plan.expr import parse_expression
 from planrunner.plan.load import GROUPING_TYPES
@@ -20,11 +22,22 @@ from planrunner.simulate.families import (
     CENSORING_PARAMETERS,
     FAMILIES,
     Family,
+    association_problem,
     censoring_problem,
+    cluster_effect,
     highest,
     parameter_problem,
 )
-from planrunner.simulate.schema import MAX_ROWS, ColumnModel, DatasetModel, GroupRows, Rows, ScenariosSchema
+from planrunner.simulate.generate import cluster_strata, ordered_levels
+from planrunner.simulate.schema import (
+    MAX_ROWS,
+    ClusterRows,
+    ColumnModel,
+    DatasetModel,
+    GroupRows,
+    Rows,
+    ScenariosSchema,
+)
 
 ID_TYPES = ("text", "integer")  # cluster and pair identifiers
 DESIGN_ROLES = ("groups", "strata", "pairs", "clusters", "order")  # a text column here cannot be an id
@@ -188,19 +201,43 @@ def _rows_problems(at: Path_, rows: Rows, columns: Mapping[str, Column]) -> list
             out.append(Problem(at + ("strata", "shares"), f"the shares add up to {total:g}, not 1",
                                "give each stratum's share of a group's rows"))
     if rows.clusters is not None:
-        clusters = rows.clusters
-        out += _declared(at + ("clusters", "column"), clusters.column, columns, ID_TYPES, "cluster identifiers")
-        if not 0 <= clusters.icc < 1:
-            out.append(Problem(at + ("clusters", "icc"), f"icc must lie in [0, 1) (got {clusters.icc:g})"))
-        smallest = min(rows.groups.sizes.values()) if rows.groups else rows.count
-        if smallest is not None and clusters.count > smallest:
-            out.append(Problem(at + ("clusters", "count"), f"{clusters.count} clusters per group, but a group has "
-                               f"only {smallest} rows", "give every cluster at least one row"))
-        if rows.strata is not None:
-            out.append(Problem(at + ("clusters",), "clusters and strata together are not modelled",
-                               "leave out strata or clusters", at_key=True))
+        out += _clusters_problems(at, rows, columns, shares_ok=not out)
     if rows.pairs is not None:
         out += _pairs_problems(at, rows, columns)
+    return out
+
+
+def _clusters_problems(at: Path_, rows: Rows, columns: Mapping[str, Column], shares_ok: bool) -> list[Problem]:
+    clusters = rows.clusters
+    assert clusters is not None
+    out = _declared(at + ("clusters", "column"), clusters.column, columns, ID_TYPES, "cluster identifiers")
+    if clusters.icc is None and clusters.frailty is None:
+        out.append(Problem(at + ("clusters",), "clusters need the strength of their effect",
+                           "add icc: VALUE (normal, lognormal, gamma, bernoulli, binomial, poisson columns) "
+                           "and/or frailty: VARIANCE (exponential and weibull times)", at_key=True))
+    for key in ("icc", "frailty"):
+        value = getattr(clusters, key)
+        problem = association_problem(key, value) if value is not None else None
+        if problem is not None:
+            out.append(Problem(at + ("clusters", key), problem))
+    smallest = min(rows.groups.sizes.values()) if rows.groups else rows.count
+    if smallest is not None and clusters.count > smallest:
+        out.append(Problem(at + ("clusters", "count"), f"{clusters.count} clusters per group, but a group has "
+                           f"only {smallest} rows", "give every cluster at least one row"))
+    strata = rows.strata
+    if strata is not None and shares_ok and strata.column in columns:
+        # clusters nested in strata: each group's clusters are shared out, so every stratum needs one
+        levels = ordered_levels(strata.shares, columns[strata.column])
+        counts = np.bincount(cluster_strata(clusters.count, [strata.shares[v] for v in levels]),
+                             minlength=len(levels))
+        for level, got in zip(levels, counts):
+            if got == 0:
+                share = strata.shares[level]
+                out.append(Problem(at + ("strata", "shares", level), f"stratum '{level}' gets none of the "
+                                   f"{clusters.count} clusters of a group (clusters lie within one stratum; "
+                                   f"{clusters.count} × {share:g} rounds to 0)",
+                                   f"give at least {math.ceil(1 / share)} clusters per group, or a larger share",
+                                   at_key=True))
     return out
 
 
@@ -216,8 +253,10 @@ def _pairs_problems(at: Path_, rows: Rows, columns: Mapping[str, Column]) -> lis
         out.append(Problem(at + ("pairs",), "pairs need exactly two groups of the same size (one row of each "
                            "pair in each group)", "give rows.groups two levels with equal sizes", at_key=True))
     if rows.clusters is not None:
-        out.append(Problem(at + ("pairs",), "pairs and clusters together are not modelled",
-                           "leave out pairs or clusters", at_key=True))
+        out.append(Problem(at + ("pairs",), "pairs and clusters together are not modelled: a cluster lies "
+                           "within one group, a pair has a row in each, and no analysis of a plan resamples both",
+                           "model a paired analysis's dataset with pairs, a clustered one's with clusters "
+                           "(each its own plan dataset)", at_key=True))
     return out
 
 
@@ -246,15 +285,39 @@ def _column_problems(at: Path_, name: str, cm: ColumnModel, model: DatasetModel,
                              column, name)
     out += _covariate_problems(at + ("covariates",), name, cm, model)
     out += _censoring_problems(at, family, cm, columns, filled, model)
-    icc = cm.icc if cm.icc is not None else (model.rows.clusters.icc if model.rows.clusters else 0.0)
-    if cm.icc is not None and model.rows.clusters is None:
-        out.append(Problem(at + ("icc",), "icc applies only with rows.clusters", "remove icc, or add clusters"))
-    elif cm.icc is not None and not 0 <= cm.icc < 1:
-        out.append(Problem(at + ("icc",), f"icc must lie in [0, 1) (got {cm.icc:g})"))
-    elif icc > 0 and not family.clustered:
-        clustered = ", ".join(f.name for f in FAMILIES.values() if f.clustered)
-        out.append(Problem(at + ("model", "family"), f"a cluster effect is defined for {clustered} columns, "
-                           f"not {family.name}", "give this column icc: 0"))
+    out += _cluster_effect_problems(at, family, cm, model.rows.clusters)
+    return out
+
+
+def _cluster_effect_problems(at: Path_, family: Family, cm: ColumnModel, clusters: ClusterRows | None) -> list[Problem]:
+    """A column's own icc or frailty must suit its family; a column whose family's kind of cluster
+    effect rows.clusters does not give must give its own (README: clusters)."""
+    out = []
+    for key in ("icc", "frailty"):
+        value = getattr(cm, key)
+        if value is None:
+            continue
+        problem = association_problem(key, value)
+        if clusters is None:
+            out.append(Problem(at + (key,), f"{key} applies only with rows.clusters", f"remove {key}, or add clusters"))
+        elif problem is not None:
+            out.append(Problem(at + (key,), problem))
+        elif key == "frailty" and family.cluster_effect != "frailty":
+            out.append(Problem(at + (key,), f"frailty is the shared gamma frailty of exponential and weibull "
+                               f"times; a {family.name} column's cluster effect is its icc", "write icc: VALUE"))
+        elif key == "icc" and family.cluster_effect == "frailty" and value != 0:
+            out.append(Problem(at + (key,), f"a {family.name} time's cluster effect is a shared gamma frailty, "
+                               "not an icc", "write frailty: VARIANCE (two times of one cluster then have "
+                               "Kendall's tau VARIANCE/(VARIANCE + 2)), or icc: 0 for none"))
+    if not out and clusters is not None and cluster_effect(family, cm, clusters).missing:
+        if family.cluster_effect == "frailty":
+            out.append(Problem(at + ("model", "family"), f"rows.clusters gives an icc, but a {family.name} time's "
+                               "cluster effect is a shared gamma frailty", "give frailty: VARIANCE here or in "
+                               "rows.clusters (Kendall's tau VARIANCE/(VARIANCE + 2)), or icc: 0 for none"))
+        else:
+            out.append(Problem(at + ("model", "family"), f"rows.clusters gives a frailty, but a {family.name} "
+                               "column's cluster effect is an intraclass correlation",
+                               "give icc: VALUE here or in rows.clusters (0 for none)"))
     return out
 
 

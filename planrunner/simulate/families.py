@@ -6,6 +6,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from typing import Any
 
 
 @dataclass(frozen=True)
@@ -18,24 +19,58 @@ class Family:
     link: str
     column_types: tuple[str, ...]  # plan column types that can hold its values
     lowest: float  # the smallest value it can produce (an upper end depends on `size` for binomial)
-    clustered: bool  # a cluster effect (icc) is defined for it (README: clusters)
+    # how a cluster shares its effect (README: clusters): "icc", an intraclass correlation, or
+    # "frailty", the variance of a gamma frailty that multiplies the hazard of every row of the cluster
+    cluster_effect: str
     survival: bool  # a positive continuous time that censoring can cut
 
 
 FAMILIES: dict[str, Family] = {f.name: f for f in (
-    Family("normal", ("mean", "sd"), "mean", "identity", ("number",), -math.inf, True, False),
-    Family("lognormal", ("meanlog", "sdlog"), "meanlog", "identity", ("number",), 0.0, True, True),
-    Family("gamma", ("shape", "scale"), "scale", "log", ("number",), 0.0, False, True),
-    Family("bernoulli", ("p",), "p", "logit", ("boolean", "integer", "number"), 0.0, True, False),
-    Family("binomial", ("size", "p"), "p", "logit", ("integer", "number"), 0.0, False, False),
-    Family("poisson", ("mean",), "mean", "log", ("integer", "number"), 0.0, True, False),
-    Family("exponential", ("mean",), "mean", "log", ("number",), 0.0, False, True),
-    Family("weibull", ("shape", "scale"), "scale", "log", ("number",), 0.0, False, True),
+    Family("normal", ("mean", "sd"), "mean", "identity", ("number",), -math.inf, "icc", False),
+    Family("lognormal", ("meanlog", "sdlog"), "meanlog", "identity", ("number",), 0.0, "icc", True),
+    Family("gamma", ("shape", "scale"), "scale", "log", ("number",), 0.0, "icc", True),
+    Family("bernoulli", ("p",), "p", "logit", ("boolean", "integer", "number"), 0.0, "icc", False),
+    Family("binomial", ("size", "p"), "p", "logit", ("integer", "number"), 0.0, "icc", False),
+    Family("poisson", ("mean",), "mean", "log", ("integer", "number"), 0.0, "icc", False),
+    Family("exponential", ("mean",), "mean", "log", ("number",), 0.0, "frailty", True),
+    Family("weibull", ("shape", "scale"), "scale", "log", ("number",), 0.0, "frailty", True),
 )}
 PARAMETER_NAMES = ("mean", "sd", "meanlog", "sdlog", "shape", "scale", "p", "size")
 MAX_BINOMIAL_SIZE = 1_000_000_000
 
 CENSORING_PARAMETERS = {"uniform": ("low", "high"), "exponential": ("rate",)}
+MAX_FRAILTY = 20.0  # the largest frailty variance (Kendall's tau 10/11): beyond it most frailties underflow
+
+
+@dataclass(frozen=True)
+class ClusterEffect:
+    """What a column's cluster effect is: `kind` "icc" or "frailty" and its value (0: none), or,
+    when the file does not say, `missing` names the key to give."""
+
+    kind: str
+    value: float
+    missing: bool = False
+
+
+def cluster_effect(family: Family, column: Any, clusters: Any) -> ClusterEffect:
+    """A column's cluster effect: its own `icc` or `frailty`, else that of rows.clusters (README:
+    clusters). A time column (frailty family) with `icc: 0` has none; with rows.clusters.icc but no
+    frailty it is `missing` (an icc does not say how strongly times share a frailty), unless that icc
+    is 0. Both objects are read by attribute (`ColumnModel`, `ClusterRows`), so this stays pure data."""
+    kind = family.cluster_effect
+    if clusters is None:
+        return ClusterEffect(kind, 0.0)
+    own = getattr(column, kind)
+    if own is not None:
+        return ClusterEffect(kind, float(own))
+    if kind == "frailty" and column.icc == 0:
+        return ClusterEffect(kind, 0.0)
+    shared = getattr(clusters, kind)
+    if shared is not None:
+        return ClusterEffect(kind, float(shared))
+    other = getattr(clusters, "icc" if kind == "frailty" else "frailty")
+    # rows.clusters gives only the other kind (giving neither is a problem of rows.clusters itself)
+    return ClusterEffect(kind, 0.0, missing=other is not None and other != 0)
 
 
 def highest(family: Family, parameters: dict[str, float]) -> float:
@@ -57,6 +92,15 @@ def parameter_problem(family: Family, name: str, value: float) -> tuple[str, str
     positive = name in ("sd", "sdlog", "shape", "scale") or (name == "mean" and family.name != "normal")
     if positive and not value > 0:
         return f"{name} must be more than 0 for a {family.name} column (got {value:g})", None
+    return None
+
+
+def association_problem(key: str, value: float) -> str | None:
+    """What is wrong with a cluster effect's value (`icc` or `frailty`), else None."""
+    if key == "icc" and not 0 <= value < 1:
+        return f"icc must lie in [0, 1) (got {value:g})"
+    if key == "frailty" and not 0 <= value <= MAX_FRAILTY:
+        return f"frailty (the gamma frailty's variance) must lie in [0, {MAX_FRAILTY:g}] (got {value:g})"
     return None
 
 

@@ -20,7 +20,7 @@ import numpy as np
 from planrunner.engines.streams import analysis_key
 from planrunner.errors import PlanError
 from planrunner.plan.schema import Column, Dataset
-from planrunner.simulate.families import FAMILIES, Family
+from planrunner.simulate.families import FAMILIES, Family, cluster_effect
 from planrunner.simulate.schema import ColumnModel, DatasetModel, Rows
 
 Parameters = dict[str, np.ndarray]
@@ -48,7 +48,8 @@ def generate(model: DatasetModel, dataset: Dataset, rng: np.random.Generator) ->
     out: dict[str, np.ndarray] = {}
     for name in draw_order(model):
         spec = model.columns[name]
-        values, event = draw_column(name, spec, layout, model.rows, out, _column_generator(entropy, name))
+        values, event = draw_column(name, spec, layout, model.rows, out, _column_generator(entropy, name),
+                                    _column_generator(entropy, name, CLUSTER_STREAM))
         out[name] = _typed(values, dataset.columns[name])
         if spec.event is not None and event is not None:
             out[spec.event] = _typed(event, dataset.columns[spec.event])
@@ -59,9 +60,14 @@ def generate(model: DatasetModel, dataset: Dataset, rng: np.random.Generator) ->
     return {name: out[name] for name in dataset.columns}
 
 
-def _column_generator(entropy: list[int], name: str) -> np.random.Generator:
-    return np.random.Generator(np.random.PCG64(np.random.SeedSequence(entropy=entropy,
-                                                                      spawn_key=(analysis_key(name),))))
+# the child of a column's stream that draws its cluster effects (gamma, binomial, exponential, Weibull),
+# so each cluster's effect depends on the cluster's number only, not on how many rows were drawn
+CLUSTER_STREAM = analysis_key("cluster effects")
+
+
+def _column_generator(entropy: list[int], name: str, *labels: int) -> np.random.Generator:
+    key = (analysis_key(name), *labels)
+    return np.random.Generator(np.random.PCG64(np.random.SeedSequence(entropy=entropy, spawn_key=key)))
 
 
 def draw_order(model: DatasetModel) -> list[str]:
@@ -108,7 +114,7 @@ def row_layout(rows: Rows, columns: Mapping[str, Column]) -> Layout:
     else:
         levels, sizes = (), [int(rows.count or 0)]
     group = np.repeat(np.arange(len(sizes)), sizes)
-    stratum, strata_levels = None, tuple[str, ...]()
+    stratum, strata_levels, shares = None, tuple[str, ...](), list[float]()
     if rows.strata is not None:
         strata_levels = ordered_levels(rows.strata.shares, columns[rows.strata.column])
         shares = [rows.strata.shares[level] for level in strata_levels]
@@ -117,7 +123,13 @@ def row_layout(rows: Rows, columns: Mapping[str, Column]) -> Layout:
     if rows.clusters is not None:
         count = rows.clusters.count
         # each group's rows in `count` consecutive blocks whose sizes differ by at most one
-        cluster = np.concatenate([g * count + np.arange(n) * count // n for g, n in enumerate(sizes)])
+        within = [np.arange(n) * count // n for n in sizes]
+        cluster = np.concatenate([g * count + k for g, k in enumerate(within)])
+        if rows.strata is not None:
+            # clusters nested in strata: the shares apply to each group's clusters, and a row is in
+            # its cluster's stratum
+            cluster_stratum = cluster_strata(count, shares)
+            stratum = np.concatenate([cluster_stratum[k] for k in within])
     pair = member = None
     if rows.pairs is not None:
         pair = np.concatenate([np.arange(n) for n in sizes])
@@ -125,6 +137,12 @@ def row_layout(rows: Rows, columns: Mapping[str, Column]) -> Layout:
     return Layout(rows=int(sum(sizes)), group=group if rows.groups is not None else None, group_levels=levels,
                   stratum=stratum, strata_levels=strata_levels, cluster=cluster, clusters=count * len(sizes),
                   pair=pair, member=member)
+
+
+def cluster_strata(count: int, shares: list[float]) -> np.ndarray:
+    """The stratum of each of a group's `count` clusters: the largest-remainder counts of clusters
+    for the shares, strata in the plan's level order."""
+    return np.repeat(np.arange(len(shares)), largest_remainder(count, shares))
 
 
 def _labels_as(labels: np.ndarray, column: Column) -> np.ndarray:
@@ -226,15 +244,21 @@ def _moved(family: Family, location: np.ndarray, predictor: np.ndarray) -> np.nd
 
 
 def draw_column(name: str, spec: ColumnModel, layout: Layout, rows: Rows, drawn: Mapping[str, np.ndarray],
-                rng: np.random.Generator) -> tuple[np.ndarray, np.ndarray | None]:
-    """The column's values, and (with censoring) whether each time was observed."""
+                rng: np.random.Generator,
+                cluster_rng: np.random.Generator | None = None) -> tuple[np.ndarray, np.ndarray | None]:
+    """The column's values, and (with censoring) whether each time was observed. `rng` draws the rows;
+    `cluster_rng` the cluster effects of the families added later (gamma, binomial, exponential, Weibull:
+    a stream of its own); normal, lognormal, bernoulli and poisson draw theirs from `rng`, first, as
+    they always have, so their numbers stay as recorded."""
     family = FAMILIES[spec.model.family]
     parameters = row_parameters(spec, layout, rows, drawn)
-    icc = spec.icc if spec.icc is not None else (rows.clusters.icc if rows.clusters is not None else 0.0)
+    effect = cluster_effect(family, spec, rows.clusters)
     if rows.pairs is not None and rows.pairs.correlation != 0:
         values = from_scores(family, parameters, _paired_scores(layout, rows.pairs.correlation, rng))
-    elif icc > 0:
-        values = _clustered(family, parameters, layout, icc, rng)
+    elif effect.value > 0 and family.name in SHARED_STREAM_CLUSTERS:
+        values = _clustered(family, parameters, layout, effect.value, rng)
+    elif effect.value > 0:
+        values = _clustered_apart(family, parameters, layout, effect.value, rng, cluster_rng or rng)
     else:
         values = _independent(family, parameters, layout.rows, rng)
     if not np.isfinite(values).all():  # e.g. a covariate effect that overflows exp()
@@ -320,13 +344,56 @@ def _clustered(family: Family, p: Parameters, layout: Layout, icc: float, rng: n
         return from_scores(family, p, z)
     shared = rng.random(layout.clusters)[layout.cluster]
     if family.name == "bernoulli":
-        prob = p["p"]
-        inner = (prob > 0) & (prob < 1)  # p of 0 or 1 has no spread to share
-        a = np.where(inner, prob, 0.5) * (1 - icc) / icc
-        b = np.where(inner, 1 - prob, 0.5) * (1 - icc) / icc
-        q = np.where(inner, special.betaincinv(a, b, shared), prob)
-        return (rng.random(n) < q).astype(float)
+        return (rng.random(n) < _beta_probability(p["p"], icc, shared)).astype(float)
     if family.name == "poisson":
         k = p["mean"] * (1 - icc) / icc
         return rng.poisson(p["mean"] * special.gammaincinv(k, shared) / k).astype(float)
-    raise ValueError(f"no cluster effect is defined for {family.name}")
+    raise ValueError(f"no cluster effect is defined for {family.name} here")
+
+
+SHARED_STREAM_CLUSTERS = ("normal", "lognormal", "bernoulli", "poisson")  # `_clustered`
+
+
+def _beta_probability(prob: np.ndarray, icc: float, shared: np.ndarray) -> np.ndarray:
+    """Each row's cluster probability: the quantile at the cluster's uniform of the beta distribution
+    with mean p and 1/(a + b + 1) = icc (a = p(1 − icc)/icc, b = (1 − p)(1 − icc)/icc), so the trials
+    of one cluster correlate icc (the beta-binomial model). p of 0 or 1 has no spread to share."""
+    from scipy import special
+
+    inner = (prob > 0) & (prob < 1)
+    a = np.where(inner, prob, 0.5) * (1 - icc) / icc
+    b = np.where(inner, 1 - prob, 0.5) * (1 - icc) / icc
+    return np.where(inner, special.betaincinv(a, b, shared), prob)
+
+
+def _clustered_apart(family: Family, p: Parameters, layout: Layout, effect: float, rng: np.random.Generator,
+                     cluster_rng: np.random.Generator) -> np.ndarray:
+    """The cluster effects drawn from their own stream (one uniform, or one gamma frailty, per cluster,
+    in cluster order), the rows from `rng` (README: clusters):
+
+    gamma (icc): a shared part plus the row's own part, S_c + E_i with S_c ~ Gamma(icc·shape, 1) and
+    E_i ~ Gamma((1 − icc)·shape, 1), times the row's scale: each row is Gamma(shape, scale) and two rows
+    of one cluster correlate icc (Cherian's bivariate gamma; S_c is the quantile of the cluster's uniform);
+    binomial (icc): the cluster's probability from the beta distribution with mean p and
+    1/(a + b + 1) = icc, each row Binomial(size, that probability) (beta-binomial rows);
+    exponential and Weibull (frailty θ): the hazard of every row of a cluster is multiplied by
+    Z_c ~ Gamma(1/θ, θ) (mean 1, variance θ): T = Λ⁻¹(E/Z_c) with E standard exponential."""
+    from scipy import special
+
+    assert layout.cluster is not None
+    n, name = layout.rows, family.name
+    if name == "gamma":
+        shared = cluster_rng.random(layout.clusters)[layout.cluster]
+        common = special.gammaincinv(effect * p["shape"], shared)
+        return p["scale"] * (common + rng.gamma((1.0 - effect) * p["shape"], 1.0, n))
+    if name == "binomial":
+        shared = cluster_rng.random(layout.clusters)[layout.cluster]
+        return rng.binomial(p["size"].astype(np.int64), _beta_probability(p["p"], effect, shared)).astype(float)
+    frailty = cluster_rng.gamma(1.0 / effect, effect, layout.clusters)[layout.cluster]
+    with np.errstate(divide="ignore", over="ignore"):
+        cumulative = rng.standard_exponential(n) / frailty  # Λ(T): the row's cumulative hazard at its time
+        if name == "exponential":
+            return p["mean"] * cumulative
+        if name == "weibull":
+            return p["scale"] * cumulative ** (1.0 / p["shape"])
+    raise ValueError(f"no cluster effect is defined for {name}")

@@ -52,6 +52,7 @@ class ColumnModel(Strict):
     censoring: Censoring | None = None
     event: ColumnName | None = None  # the plan's 0/1 column saying whether the time was observed
     icc: Number | None = None  # this column's own intraclass correlation (else rows.clusters.icc)
+    frailty: Number | None = None  # a time's own gamma frailty variance (else rows.clusters.frailty)
 
 
 class GroupRows(Strict):
@@ -67,7 +68,8 @@ class StrataRows(Strict):
 class ClusterRows(Strict):
     column: ColumnName
     count: Annotated[int, Field(ge=1, le=MAX_ROWS)]  # clusters in each group (in all, without groups)
-    icc: Number
+    icc: Number | None = None  # the intraclass correlation of the columns of icc families
+    frailty: Number | None = None  # the gamma frailty variance of exponential and Weibull times
 
 
 class PairRows(Strict):

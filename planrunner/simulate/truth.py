@@ -42,6 +42,7 @@ from typing import Any
 from planrunner.plan.derived import derivations, needed_by
 from planrunner.plan.expr import parse_expression
 from planrunner.plan.schema import Plan
+from planrunner.simulate.families import FAMILIES, ClusterEffect, cluster_effect
 
 MEAN_STATISTICS = {"mean_difference": "difference", "risk_difference": "difference", "ratio_of_means": "ratio",
                    "risk_ratio": "ratio", "mean": "one", "proportion": "one"}
@@ -52,7 +53,32 @@ def not_defined(reason: str) -> dict[str, Any]:
     return {"value": None, "reason": reason}
 
 
+def frailty_law(family: str, p: dict[str, float]) -> tuple[float, float, float]:
+    """(c, d, λ) of the Burr XII law of an exponential or Weibull time under a gamma frailty of variance
+    θ = p["frailty"]: S(t) = (1 + θ·(t/scale)^shape)^(−1/θ) = (1 + (t/λ)^c)^(−d) with c = shape,
+    d = 1/θ, λ = scale·θ^(−1/shape) (an exponential: shape 1, scale its mean; the Lomax law)."""
+    shape, scale = (1.0, p["mean"]) if family == "exponential" else (p["shape"], p["scale"])
+    theta = p["frailty"]
+    return shape, 1.0 / theta, scale * theta ** (-1.0 / shape)
+
+
+def _burr_partial_mean(c: float, d: float, lam: float, x: float) -> float:
+    """E[T · 1(T ≤ x)] of Burr XII(c, d, λ): λ·d·B(1 + 1/c, d − 1/c)·I_w(1 + 1/c, d − 1/c) with
+    w = y/(1 + y), y = (x/λ)^c (substituting y, then w, in ∫ t f(t) dt); needs d > 1/c."""
+    from scipy import special
+
+    a, b = 1.0 + 1.0 / c, d - 1.0 / c
+    whole = lam * d * float(special.beta(a, b))
+    if x == math.inf:
+        return whole
+    y = (x / lam) ** c
+    return whole * float(special.betainc(a, b, y / (1.0 + y)))
+
+
 def family_mean(family: str, p: dict[str, float]) -> float | None:
+    if p.get("frailty", 0.0) > 0:  # the marginal mean under a gamma frailty (infinite unless θ < shape)
+        c, d, lam = frailty_law(family, p)
+        return _burr_partial_mean(c, d, lam, math.inf) if d * c > 1 else math.inf
     if family in ("normal", "poisson", "exponential"):
         return p["mean"]
     if family == "lognormal":
@@ -69,6 +95,9 @@ def family_mean(family: str, p: dict[str, float]) -> float | None:
 
 
 def family_median(family: str, p: dict[str, float]) -> float | None:
+    if p.get("frailty", 0.0) > 0:  # S(m) = 1/2 under a gamma frailty
+        c, d, lam = frailty_law(family, p)
+        return lam * (2.0 ** (1.0 / d) - 1.0) ** (1.0 / c)
     if family == "normal":
         return p["mean"]
     if family == "lognormal":
@@ -91,6 +120,9 @@ _BOUND = re.compile(r"^\s*([A-Za-z_][A-Za-z0-9_]*)\s*(<=|>=|<|>)\s*([-+]?(?:\d+\
 def _law(family: str, p: dict[str, float]) -> Any:
     from scipy import stats
 
+    if p.get("frailty", 0.0) > 0:
+        c, d, lam = frailty_law(family, p)
+        return stats.burr12(c, d, scale=lam)
     return {"normal": lambda: stats.norm(p["mean"], p["sd"]),
             "lognormal": lambda: stats.lognorm(p["sdlog"], scale=math.exp(p["meanlog"])),
             "gamma": lambda: stats.gamma(p["shape"], scale=p["scale"]),
@@ -104,6 +136,9 @@ def _partial_mean(family: str, p: dict[str, float], x: float) -> float:
 
     if x == -math.inf or (x <= 0 and family != "normal"):
         return 0.0
+    if p.get("frailty", 0.0) > 0:
+        c, d, lam = frailty_law(family, p)
+        return _burr_partial_mean(c, d, lam, x)
     if family == "normal":
         z = (x - p["mean"]) / p["sd"]
         return p["mean"] * float(stats.norm.cdf(z)) - p["sd"] * float(stats.norm.pdf(z))
@@ -122,6 +157,8 @@ def truncated(of: str, family: str, p: dict[str, float], low: float, high: float
     F(low) + (F(high) − F(low))/2, the mean (E[X; X ≤ high] − E[X; X ≤ low]) / (F(high) − F(low))."""
     if family not in CONTINUOUS:
         return None
+    if of == "mean" and p.get("frailty", 0.0) > 0 and not frailty_law(family, p)[1] * frailty_law(family, p)[0] > 1:
+        return None  # the partial mean's beta integral needs θ < shape
     law = _law(family, p)
     f_low, f_high = float(law.cdf(low)), float(law.cdf(high))
     if not f_high > f_low:
@@ -140,10 +177,12 @@ def outcome_bounds(condition: str, outcome: str) -> tuple[float, float] | None:
     return (-math.inf, value) if found.group(2) in ("<", "<=") else (value, math.inf)
 
 
-def group_parameters(column: Any, level: str | None) -> dict[str, float]:
-    """The column's family parameters in one group: the model's, with the group's changes."""
+def group_parameters(column: Any, level: str | None, frailty: float = 0.0) -> dict[str, float]:
+    """The column's family parameters in one group: the model's, with the group's changes (and, for a
+    time under a gamma frailty, its variance as "frailty")."""
     written = {k: v for k, v in column.model.model_dump().items() if k != "family" and v is not None}
-    return {**written, **(column.by_group.get(level, {}) if level is not None else {})}
+    extra = {"frailty": frailty} if frailty > 0 else {}
+    return {**written, **(column.by_group.get(level, {}) if level is not None else {}), **extra}
 
 
 def true_value(analysis: Any, plan: Plan, datasets: Any) -> dict[str, Any]:
@@ -170,11 +209,23 @@ def true_value(analysis: Any, plan: Plan, datasets: Any) -> dict[str, Any]:
         return not_defined(f"a filter on the outcome of a {family} column")
 
     summary = what
+    effect = _effect(model, column)
+    frailty = effect.value if effect.kind == "frailty" else 0.0
 
     def of(family: str, p: dict[str, float]) -> float | None:
         if not bounds:
             return family_mean(family, p) if summary == "mean" else family_median(family, p)
         return truncated(summary, family, p, low, high)
+
+    def params(level: str | None) -> dict[str, float]:
+        return group_parameters(column, level, frailty)
+
+    if frailty > 0 and summary == "mean":
+        levels = [None] if model.rows.groups is None else list(model.rows.groups.sizes)
+        shapes = {params(level).get("shape", 1.0) for level in levels}
+        if frailty >= min(shapes):
+            return not_defined(f"under a gamma frailty of variance {frailty:g} the mean of a {family} time is "
+                               f"finite only when the variance is below its shape ({min(shapes):g})")
 
     if bounds:
         what = f"{what} of the rows kept ({' and '.join(c for c in conditions if outcome_bounds(c, outcome))})"
@@ -186,7 +237,7 @@ def true_value(analysis: Any, plan: Plan, datasets: Any) -> dict[str, Any]:
         first, second = analysis.groups.compare[:2] if len(analysis.groups.compare) == 2 else (None, None)
         if first is None or groups is None or groups.column != analysis.groups.by:
             return not_defined("the analysis's groups are not the scenario's groups")
-        a, b = of(family, group_parameters(column, first)), of(family, group_parameters(column, second))
+        a, b = of(family, params(first)), of(family, params(second))
         if a is None or b is None:
             return not_defined(f"the {family} family's {what} is not used (discrete)")
         if kind == "ratio":
@@ -196,7 +247,7 @@ def true_value(analysis: Any, plan: Plan, datasets: Any) -> dict[str, Any]:
     if kind != "one":
         return not_defined("a two-group statistic without groups")
     levels = list(groups.sizes) if groups is not None else [None]
-    values = [of(family, group_parameters(column, level)) for level in levels]
+    values = [of(family, params(level)) for level in levels]
     if any(v is None for v in values):
         return not_defined(f"the {family} family's {what} is not used (discrete)")
     if len(set(values)) == 1:
@@ -208,27 +259,36 @@ def true_value(analysis: Any, plan: Plan, datasets: Any) -> dict[str, Any]:
             "formula": f"group-size-weighted mean of the group means ({family}){note}"}
 
 
-# How a cluster effect leaves each row's own law (simulate/generate.py, `_clustered`): the statistics
-# here depend on the rows' laws only (a mean or median of each group, not of pairs or clusters)
+# How a cluster effect leaves each row's own law (simulate/generate.py, `_clustered`, `_clustered_apart`):
+# the statistics here depend on the rows' laws only (a mean or median of each group, not of pairs or clusters)
 CLUSTERED_ROW_LAW = {"normal": "a random intercept that keeps the total sd: each row the family's law",
                      "lognormal": "a random intercept on the log scale that keeps the total sdlog: each row the "
                                   "family's law",
+                     "gamma": "a shared gamma part of shape icc·shape plus the row's own: each row the family's "
+                              "law",
                      "bernoulli": "a beta-distributed cluster probability with mean p: each row Bernoulli(p)",
-                     "poisson": "a gamma cluster rate with mean 1: each row negative binomial with the same mean"}
+                     "binomial": "a beta-distributed cluster probability with mean p: each row beta-binomial with "
+                                 "mean size·p",
+                     "poisson": "a gamma cluster rate with mean 1: each row negative binomial with the same mean",
+                     "exponential": "a gamma frailty of mean 1: each row's survival (1 + θ·t/mean)^(−1/θ) (Lomax)",
+                     "weibull": "a gamma frailty of mean 1: each row's survival (1 + θ·(t/scale)^shape)^(−1/θ) "
+                                "(Burr XII)"}
 
 
-def _cluster_icc(model: Any, column: Any) -> float:
-    clusters = model.rows.clusters
-    return column.icc if column.icc is not None else (clusters.icc if clusters is not None else 0.0)
+def _effect(model: Any, column: Any) -> ClusterEffect:
+    return cluster_effect(FAMILIES[column.model.family], column, model.rows.clusters)
 
 
 def design_note(model: Any, column: Any) -> str:
-    """Why a pairing or cluster effect leaves the true value as for independent rows ("" without one)."""
+    """Why a pairing or cluster effect leaves the true value as for independent rows, or how a frailty
+    changes it ("" without one)."""
     if model.rows.pairs is not None and model.rows.pairs.correlation != 0:
         return ("; pairs: correlated normal scores through the family's own quantile function keep each row's "
                 "law")
-    if _cluster_icc(model, column) > 0:
-        return f"; clusters: {CLUSTERED_ROW_LAW[column.model.family]}"
+    effect = _effect(model, column)
+    if effect.value > 0:
+        law = CLUSTERED_ROW_LAW[column.model.family]
+        return f"; clusters: {law.replace('θ', f'θ = {effect.value:g}') if effect.kind == 'frailty' else law}"
     return ""
 
 
@@ -238,8 +298,6 @@ def _blocking(analysis: Any, spec: Any, model: Any, column: Any) -> str | None:
         return "the outcome's model has covariates"
     if column.censoring is not None:
         return "the outcome is censored"
-    if _cluster_icc(model, column) > 0 and column.model.family not in CLUSTERED_ROW_LAW:
-        return f"no cluster effect is modelled for the {column.model.family} family"
     linked = {analysis.outcome} | {name for name, c in model.columns.items() if c.covariates}
     for what, condition in (("rows_where", spec.rows_where),
                             ("set", spec.sets.get(analysis.set) if analysis.set is not None else None)):
