@@ -270,6 +270,17 @@ def test_a_frailty_alone_in_rows_clusters_leaves_every_icc_column_to_say_its_own
     assert time.rows.clusters.frailty == 0.5 and time.rows.clusters.icc is None
 
 
+def test_every_cluster_effect_problem_is_reported_at_once(tmp_path, plan):
+    text = FULL.replace("by_group: {active: {mean: 11}}}", "by_group: {active: {mean: 11}}, frailty: 0.5}") \
+               .replace("        icc: 0\n", "        icc: 0.3\n") \
+               .replace("{family: poisson, mean: 2}}", "{family: poisson, mean: 2}, icc: 1.5}")
+    problems = "\n".join(_problems(tmp_path, plan, text))
+    assert re.search(r":10:\d+: datasets\.trial\.columns\.score\.frailty: frailty is the shared gamma", problems)
+    assert re.search(r":13:\d+: datasets\.trial\.columns\.hits\.icc: icc must lie in \[0, 1\) \(got 1\.5\)", problems)
+    assert re.search(r":16:\d+: datasets\.trial\.columns\.time\.icc: a weibull time's cluster effect", problems)
+    assert problems.count("scenarios.yaml:") == 3, problems
+
+
 def test_the_full_base_reads(tmp_path, plan):
     file = _load(tmp_path, plan, FULL)
     assert file.search is not None and file.search.sizes == [20, 40]

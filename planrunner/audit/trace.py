@@ -348,6 +348,14 @@ TRACE: dict[str, tuple[str, ...]] = {
         SIMGEN + "test_intraclass_correlation_is_the_stated_one",
         SIMGEN + "test_clustered_normal_keeps_the_stated_total_sd",
         SIMGEN + "test_clustered_bernoulli_keeps_p_and_poisson_is_negative_binomial",
+        SIMGEN + "test_clustered_gamma_keeps_each_rows_law_and_correlates_icc",
+        SIMGEN + "test_clustered_binomial_rows_are_beta_binomial_with_the_stated_icc",
+        SIMGEN + "test_an_exponential_time_under_a_gamma_frailty_is_lomax_and_its_pairs_have_kendalls_tau",
+        SIMGEN + "test_a_weibull_time_under_a_gamma_frailty_has_the_closed_form_marginal_mean_and_median",
+        SIMGEN + "test_clusters_nest_in_strata_and_groups",
+        SIMFILE + "test_a_frailty_alone_in_rows_clusters_leaves_every_icc_column_to_say_its_own",
+        "tests/test_simulate_clusters.py::test_clustered_families_and_clusters_in_strata_run_the_same_on_every_executor",
+        "tests/test_simulate_clusters.py::test_the_cli_refuses_a_frailty_on_a_gamma_column_at_its_line",
         SIMGEN + "test_weibull_censoring_share_is_its_exact_integral",
         SIMGEN + "test_covariates_move_the_location_on_each_familys_scale",
         SIMGEN + "test_effects_per_stratum_move_the_location_of_their_rows",
@@ -378,7 +386,11 @@ TRACE: dict[str, tuple[str, ...]] = {
         "tests/test_simulate_truth.py::test_differences_and_ratios_of_each_family_equal_scipy",
         "tests/test_simulate_truth.py::test_discrete_means_equal_scipy_and_their_medians_are_not_defined",
         "tests/test_simulate_truth.py::test_a_filter_on_the_outcome_or_covariates_leave_the_true_value_undefined",
-        "tests/test_simulate_truth.py::test_a_filter_of_the_outcome_against_a_number_gives_the_truncated_law"),
+        "tests/test_simulate_truth.py::test_a_filter_of_the_outcome_against_a_number_gives_the_truncated_law",
+        "tests/test_simulate_truth.py::test_clustered_gamma_keeps_each_rows_law_and_binomial_rows_are_beta_binomial_"
+        "with_the_same_mean",
+        "tests/test_simulate_truth.py::test_a_gamma_frailty_gives_the_marginal_mean_and_median_of_the_mixture",
+        "tests/test_simulate_truth.py::test_a_filter_of_a_time_under_a_gamma_frailty_truncates_its_lomax_law"),
     "The sample-size search": (SIMCLI + "test_simulate_writes_a_hashed_document_and_both_reports",),
 }
 

@@ -27,7 +27,11 @@ mean or median of each group's rows, which depends on the rows' own laws only, n
 and the generator keeps each row's law (paired rows: correlated normal scores mapped through the
 family's own quantile function; clusters: normal and lognormal a random intercept that keeps the total
 sd, bernoulli a beta-distributed cluster probability with mean p, poisson a gamma cluster rate with mean
-1, so each row is negative binomial with the same mean; its median is discrete, so not used).
+1, so each row is negative binomial with the same mean; its median is discrete, so not used; gamma a
+shared gamma part, each row still Gamma(shape, scale); binomial a beta cluster probability, each row
+beta-binomial with mean size·p). A gamma frailty of variance θ on an exponential or Weibull time changes
+its law: its survival is (1 + θ(t/scale)^shape)^(−1/θ), Burr XII (Lomax for an exponential), whose
+median, mean (finite for θ < shape) and partial means have closed forms (`frailty_law`).
 Anything else is "not defined", with the reason, rather than a guess: covariates or censoring (their
 marginal distributions depend on how they are drawn), any other filter or set that reads the outcome or
 a column with covariates, a derived outcome, a statistic without a formula here.
