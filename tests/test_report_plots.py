@@ -14,8 +14,8 @@ from conftest import fixed_clock
 from scipy import stats
 
 from planrunner.pipeline.run import run_plan
+from planrunner.report import canvas, plots
 from planrunner.report import digits as precision
-from planrunner.report import plots
 from planrunner.report import render as report
 
 ROOT = Path(__file__).resolve().parent.parent
@@ -41,10 +41,10 @@ def texts(svg: str) -> list[str]:
 
 
 def stroke_styles(svg: str, colour: str) -> set[str]:
-    """The style attributes of every dashed or dotted line drawn in ``colour`` (matplotlib writes
-    colours in lower case)."""
-    return {m.group(0) for m in re.finditer(r'style="[^"]*stroke: ' + colour.lower() + r'[^"]*"', svg)
-            if "stroke-dasharray" in m.group(0)}
+    """The stroke attributes (colour, width, dashes) of every dashed or dotted line drawn in ``colour``."""
+    return {f"{e.get('stroke')} {e.get('stroke-width')} {e.get('stroke-dasharray')}"
+            for e in ET.fromstring(svg.encode()).iter(f"{SVG}path")
+            if e.get("stroke") == colour and e.get("stroke-dasharray")}
 
 
 def test_each_interval_method_keeps_its_style_and_its_name_whatever_its_position(demo):
@@ -124,7 +124,7 @@ def test_a_weighted_null_shows_probabilities_never_counts_or_an_axis_multiplier(
     ([2e-5, 4e-5], ["2e\u22125", "4e\u22125"]),
 ])
 def test_tick_labels_carry_their_whole_value(values, expected):
-    labels = plots.PlainTicks().format_ticks(values)
+    labels = canvas.tick_labels(values)
     assert labels == expected
     for label, value in zip(labels, values):  # every label reads back as its tick, to a thousandth of a step
         assert float(label.replace("\u2212", "-")) == pytest.approx(value, rel=1e-6)

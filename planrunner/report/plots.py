@@ -1,4 +1,5 @@
-"""Pictures of one analysis, drawn with matplotlib as SVG from the record alone.
+"""Pictures of one analysis, written as SVG by planrunner's own writer (`report/canvas.py`) from the
+record alone.
 
 Every mark drawn is a number already in the record: the histogram of the resampling (or null, or
 pseudo-value) distribution, the estimate, the interval endpoints and their Monte Carlo bands, the
@@ -13,29 +14,24 @@ alternate between full and empty; a weighted one (every arrangement or resample 
 probability) shows probabilities, never counts of 10⁶⁵. Tick labels carry their own digits (no
 axis offset or multiplier text). A thin grey line marks the value of no effect (0 for a difference
 or a correlation, 1 for a ratio) and long dashes the decision's margin or limits when the record has
-them. No mathtext (`text.parse_math` off), so a `$` in a unit stays a `$`.
+them. Text is written as text and escaped, so a `$` or a `<` in a unit stays what it is.
 
-Byte stability: a fixed `svg.hashsalt`, no date in the metadata, the font that ships with
-matplotlib, and text kept as text (`svg.fonttype: none`); the same record gives the same bytes.
+Byte stability: the writer has no random ids and no date and rounds every coordinate to 2 decimals;
+the same record gives the same bytes.
 """
 
 from __future__ import annotations
 
-import io
 import math
 import re
 from collections.abc import Callable
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Any
 
-import matplotlib
-from matplotlib.figure import Figure
-from matplotlib.ticker import Formatter as TickFormatter
-from matplotlib.ticker import MaxNLocator
-
 from planrunner.engines.statistics import STATISTICS, null_value
+from planrunner.report import canvas, labels
 from planrunner.report import digits as precision
-from planrunner.report import labels
+from planrunner.report.canvas import Area, Bars, Fill, Key, Line, Marker, Pen, Rule, Segments
 from planrunner.report.labels import INTERVAL_NAMES
 
 # Okabe & Ito (2008) colours, each paired with a line style so that greyscale keeps them apart
@@ -49,20 +45,23 @@ class MethodStyle:
     """How one interval method is drawn and named, the same in every picture and page."""
 
     colour: str
-    line: Any  # a matplotlib line style
+    line: tuple[float, ...]  # the dash pattern (on, off, ...) in points
     name: str  # the name in the trade's spelling
 
+    def pen(self, width: float) -> Pen:
+        return Pen(self.colour, width, self.line)
 
-# one fixed style per interval method, never by its position in the plan's list
+
+# one fixed style per interval method, never by its position in the plan's list; dashes in points
 METHOD_STYLES = {method: MethodStyle(colour, line, INTERVAL_NAMES[method]) for method, colour, line in (
-    ("percentile", BLUE, "--"),
-    ("bca", GREEN, ":"),
-    ("basic", PURPLE, "-."),
-    ("normal", ORANGE, (0, (5, 1, 1, 1))),
-    ("studentized", VERMILLION, (0, (3, 1, 1, 1, 1, 1))),
-    ("shift", SKY, (0, (6, 2))),
+    ("percentile", BLUE, (6.0, 2.5)),
+    ("bca", GREEN, (1.6, 2.5)),
+    ("basic", PURPLE, (10.0, 2.5, 1.6, 2.5)),
+    ("normal", ORANGE, (8.0, 1.6, 1.6, 1.6)),
+    ("studentized", VERMILLION, (4.8, 1.6, 1.6, 1.6, 1.6, 1.6)),
+    ("shift", SKY, (9.6, 3.2)),
 )}
-OTHER_METHOD = MethodStyle("#444444", (0, (2, 2)), "")
+OTHER_METHOD = MethodStyle("#444444", (3.2, 3.2), "")
 
 
 def method_style(method: Any) -> MethodStyle:
@@ -92,54 +91,6 @@ def decision_marks(entry: dict[str, Any]) -> list[tuple[str, float]]:
     if isinstance(limits, (list, tuple)):
         marks += [("limit", v) for v in _finite(*limits)]
     return marks
-
-
-class PlainTicks(TickFormatter):
-    """Tick labels that each say their whole value with just enough digits to tell neighbours
-    apart: no offset ("+1e6") or multiplier ("1e65") printed apart from the ticks, where it can
-    collide with the legend and is easily missed."""
-
-    def __call__(self, x: float, pos: int | None = None) -> str:
-        return self.format_ticks([x])[0]
-
-    def format_ticks(self, values: Any) -> list[str]:
-        values = [float(v) for v in values]
-        finite = sorted(v for v in values if math.isfinite(v))
-        big = max((abs(v) for v in finite), default=0.0)
-        steps = [b - a for a, b in zip(finite, finite[1:]) if b > a]
-        step = min(steps) if steps else (big or 1.0)
-        positional = big == 0.0 or 1e-4 <= big < 1e6
-        for digits in range(17):
-            labels = [_tick_text(v, digits, positional) for v in values]
-            if all(not math.isfinite(v) or abs(float(t.replace("\u2212", "-")) - v) <= step * 1e-3
-                   for t, v in zip(labels, values)):
-                return labels
-        return labels
-
-
-def _tick_text(value: float, digits: int, positional: bool) -> str:
-    if not math.isfinite(value):
-        return str(value)
-    text = f"{value:.{digits}f}" if positional else f"{value:.{digits}e}"
-    if not positional:
-        mantissa, exponent = text.split("e")
-        text = f"{mantissa}e{int(exponent)}"
-    if float(text) == 0.0:
-        return "0"
-    return text.replace("-", "\u2212")
-
-RC: Any = {  # matplotlib settings of every figure (Any: the stubs type the keys as a closed Literal)
-    "svg.hashsalt": "planrunner",
-    "svg.fonttype": "none",
-    "font.family": "sans-serif",
-    "font.sans-serif": ["DejaVu Sans"],
-    "font.size": 9.0,
-    "text.parse_math": False,
-    "text.usetex": False,
-    "axes.spines.top": False,
-    "axes.spines.right": False,
-    "hatch.linewidth": 0.8,
-}
 
 
 @dataclass(frozen=True)
@@ -220,18 +171,31 @@ def distribution_shape(entry: dict[str, Any], things: str) -> Shape | None:
     return Shape(edges, [], counts, f"{things} per bar", False)
 
 
-def _draw(ax: Any, shape: Shape) -> float:
+@dataclass
+class Sketch:
+    """The marks and key entries of one picture as they are gathered, before the axes are known."""
+
+    marks: list[canvas.Mark] = field(default_factory=list)
+    keys: list[Key] = field(default_factory=list)
+
+    def add(self, mark: canvas.Mark, key: Key | None = None) -> None:
+        self.marks.append(mark)
+        if key is not None:
+            self.keys.append(key)
+
+    def picture(self, x: canvas.Axis, y: canvas.Axis, height: float = 216.0, key_columns: int = 3) -> str:
+        """The SVG text: 7 × 3 inches (504 × 216 points) unless told otherwise."""
+        return canvas.Picture(504.0, height, x, [canvas.Panel(y, self.marks)], self.keys, key_columns).svg()
+
+
+def _draw(sketch: Sketch, shape: Shape) -> float:
     """Bars or spikes in grey; returns the tallest height."""
     if shape.spikes:
-        ax.vlines(shape.points, 0, shape.heights, color=BAR_EDGE, linewidth=1.6)
-        ax.plot(shape.points, shape.heights, linestyle="none", marker="o", markersize=3.0, color=BAR_EDGE)
+        sketch.add(Segments([(x, 0.0, x, h) for x, h in zip(shape.points, shape.heights)], Pen(BAR_EDGE, 1.6),
+                            name="spikes"))
+        sketch.add(Line(shape.points, shape.heights, marker=Marker("o", 3.0, BAR_EDGE), name="spike-heads"))
     else:
-        ax.stairs(shape.heights, shape.edges, fill=True, color=BAR, label="_bars")
-        ax.stairs(shape.heights, shape.edges, color=BAR_EDGE, linewidth=0.6)
-    if not shape.probability:
-        ax.yaxis.set_major_locator(MaxNLocator(integer=True))  # counts are whole numbers
-    ax.xaxis.set_major_formatter(PlainTicks())
-    ax.yaxis.set_major_formatter(PlainTicks())
+        sketch.add(Bars(shape.edges, shape.heights, Fill(BAR, edge=Pen(BAR_EDGE, 0.6))))
     return max(shape.heights) if shape.heights else 0.0
 
 
@@ -239,14 +203,20 @@ def _finite(*values: Any) -> list[float]:
     return [float(v) for v in values if isinstance(v, (int, float)) and not isinstance(v, bool) and math.isfinite(v)]
 
 
-def _limits(ax: Any, shape: Shape, *marks: Any) -> None:
+def _x_axis(shape: Shape, title: str, *marks: Any) -> canvas.Axis:
+    """The x axis: the drawn distribution and every mark, with 4% of the width to spare on each side."""
     points = _finite(*shape.span, *marks)
     lo, hi = min(points), max(points)
     pad = (hi - lo) * 0.04 or 0.5
-    ax.set_xlim(lo - pad, hi + pad)
+    return canvas.value_axis(lo - pad, hi + pad, title, count=10)
 
 
-def _reference_lines(ax: Any, entry: dict[str, Any], shape: Shape, fmt: Formatter,
+def _y_axis(shape: Shape, top: float) -> canvas.Axis:
+    """Heights from 0 to ``top``: whole-number ticks for counts, which are whole numbers."""
+    return canvas.value_axis(0.0, top or 1.0, shape.ylabel, whole=not shape.probability)
+
+
+def _reference_lines(sketch: Sketch, entry: dict[str, Any], shape: Shape, fmt: Formatter,
                      *marks: Any) -> tuple[list[float], list[str]]:
     """The line of no effect and the decision's margin or limits, each drawn when it lies within one
     width of the drawn range (beyond that it would squeeze the picture, and the text says so).
@@ -258,7 +228,8 @@ def _reference_lines(ax: Any, entry: dict[str, Any], shape: Shape, fmt: Formatte
     none_value = null_value(entry.get("statistic"))
     if none_value is not None:
         if lo - width <= none_value <= hi + width:
-            ax.axvline(none_value, color=NULL_LINE, linewidth=1.0, label=f"no effect {fmt(none_value)}")
+            pen = Pen(NULL_LINE, 1.0)
+            sketch.add(Rule(none_value, pen, name="no-effect"), Key(f"no effect {fmt(none_value)}", pen))
             drawn.append(none_value)
             said.append(f"a thin grey line marks no effect ({fmt(none_value)})")
         else:
@@ -268,8 +239,8 @@ def _reference_lines(ax: Any, entry: dict[str, Any], shape: Shape, fmt: Formatte
     if given and given[0] != none_value:
         stated = given[0]
         if lo - width <= stated <= hi + width:
-            ax.axvline(stated, color=NULL_LINE, linewidth=1.0, linestyle=(0, (1, 2)),
-                       label=f"null value {fmt(stated)}")
+            pen = Pen(NULL_LINE, 1.0, (1.0, 2.0))
+            sketch.add(Rule(stated, pen, name="null-value"), Key(f"null value {fmt(stated)}", pen))
             drawn.append(stated)
             said.append(f"a dotted grey line marks the null value of the p-value ({fmt(stated)})")
         else:
@@ -280,59 +251,13 @@ def _reference_lines(ax: Any, entry: dict[str, Any], shape: Shape, fmt: Formatte
     for label, values in groups.items():
         shown = [v for v in values if lo - width <= v <= hi + width]
         name = f"decision {label}{'s' if len(values) > 1 else ''} {' and '.join(fmt(v) for v in values)}"
+        pen = Pen(DECISION_LINE, 1.2, (9.6, 3.6))
         for k, value in enumerate(shown):
-            ax.axvline(value, color=DECISION_LINE, linewidth=1.2, linestyle=(0, (8, 3)),
-                       label=name if k == 0 else None)
+            sketch.add(Rule(value, pen, name="decision"), Key(name, pen) if k == 0 else None)
         drawn += shown
         said.append(f"long dashes mark the {name}" if len(shown) == len(values)
                     else f"the {name} {'lie' if len(values) > 1 else 'lies'} partly outside the drawn range")
     return drawn, said
-
-
-def _svg(fig: Figure) -> str:
-    buffer = io.StringIO()
-    with matplotlib.rc_context(RC):
-        fig.savefig(buffer, format="svg", metadata={"Date": None})
-    return buffer.getvalue()
-
-
-def _figure() -> tuple[Figure, Any]:
-    with matplotlib.rc_context(RC):
-        fig = Figure(figsize=(7.0, 3.0))
-        ax = fig.add_subplot()
-    return fig, ax
-
-
-def _legend(ax: Any, columns: int = 3) -> None:
-    ax.legend(loc="lower left", bbox_to_anchor=(0.0, 1.0), ncol=columns, frameon=False, fontsize=8,
-              handlelength=2.6, borderaxespad=0.2)
-    fit_margins(ax, columns)
-
-
-# Text sizes for the margins, in inches: DejaVu Sans averages under 0.6 em a character in tick labels
-# (digits, points, minus signs); a line of text is 1.2 em high.
-_EM_TICK, _EM_LEGEND = RC["font.size"] / 72.0, 8.0 / 72.0
-_CHAR, _LINE, _PAD = 0.62 * _EM_TICK, 1.2 * _EM_TICK, 0.06
-
-
-def fit_margins(ax: Any, legend_columns: int) -> None:
-    """Margins that hold the tick labels, the axis labels and the legend rows above the axes, worked
-    out from the number of characters and rows instead of a layout engine: the constrained layout
-    measured every text by drawing the figure once more, which was half of each picture's time."""
-    fig = ax.figure
-    width, height = fig.get_size_inches()
-    y_ticks = ax.yaxis.get_major_formatter().format_ticks(
-        [v for v in ax.yaxis.get_majorticklocs() if ax.get_ylim()[0] <= v <= ax.get_ylim()[1]])
-    x_ticks = ax.xaxis.get_major_formatter().format_ticks(
-        [v for v in ax.xaxis.get_majorticklocs() if ax.get_xlim()[0] <= v <= ax.get_xlim()[1]])
-    ticks = 7.0 / 72.0  # tick length and the pad to its label (3.5 points each)
-    left = _PAD + _LINE + 0.06 + ticks + _CHAR * max((len(t) for t in y_ticks), default=1)
-    bottom = _PAD + _LINE + 0.06 + ticks + _LINE
-    entries = len(ax.get_legend_handles_labels()[1])
-    rows = -(-entries // legend_columns) if entries else 0
-    top = _PAD + rows * 1.7 * _EM_LEGEND + 0.2 * _EM_LEGEND + 0.04
-    right = max(_PAD, _CHAR * len(x_ticks[-1]) / 2 + 0.04) if x_ticks else _PAD
-    fig.subplots_adjust(left=left / width, right=1 - right / width, bottom=bottom / height, top=1 - top / height)
 
 
 def _what_drawn(shape: Shape, what: str) -> str:
@@ -343,69 +268,67 @@ def _what_drawn(shape: Shape, what: str) -> str:
     return f"Histogram of {what}" + (" (bar heights are probabilities)" if shape.probability else "")
 
 
+SOLID_BLACK = Pen("#000000", 2.0)
+
+
 def resampling_plot(entry: dict[str, Any], fmt: Formatter) -> Plot | None:
     """Bootstrap replicates: bars or spikes, the estimate, each interval and the Monte Carlo band of its ends."""
     shape = distribution_shape(entry, "replicates")
     if shape is None:
         return None
     bands = {b["method"]: b for b in (entry.get("monte_carlo") or {}).get("intervals") or []}
-    with matplotlib.rc_context(RC):
-        fig, ax = _figure()
-        top = _draw(ax, shape)
-        estimate = entry.get("estimate")
-        marks: list[Any] = [estimate]
-        if _finite(estimate):
-            ax.axvline(estimate, color="black", linewidth=2.0, label=f"estimate {fmt(estimate)}")
-        alt_parts = []
-        band_labelled = False
-        for k, interval in enumerate(entry.get("intervals") or []):
-            style = method_style(interval.get("method"))
-            lower, upper = interval.get("lower"), interval.get("upper")
-            side = labels.one_sided(interval)
-            name = labels.interval_label(interval, format(interval["level"] * 100, "g"))
-            kind = "" if side else " interval"
-            ends = [e for e, key in ((lower, "lower"), (upper, "upper")) if side in (None, key)]
-            if len(_finite(*ends)) < len(ends):
-                alt_parts.append(f"{name}{kind} not available")
-                continue
-            y = top * (1.06 + 0.1 * k)
-            # a one-sided bound runs from its end to the edge of the replicates on its open side
-            span_lo, span_hi = shape.span
-            x0 = lower if lower is not None else min(span_lo, upper)
-            x1 = upper if upper is not None else max(span_hi, lower)
-            ax.plot([x0, x1], [y, y], color=style.colour, linestyle=style.line, linewidth=1.6,
-                    label=f"{name}{kind}")
-            for end in ends:
-                ax.plot([end, end], [0, y], color=style.colour, linestyle=style.line, linewidth=1.0)
-            marks += ends
-            band = bands.get(interval["method"]) or {}
-            band_text = []
-            for which in ("lower_band", "upper_band"):
-                if band.get(which) and len(_finite(*band[which])) == 2:
-                    lo, hi = band[which]
-                    ax.fill_between([lo, hi], y - top * 0.025, y + top * 0.025, facecolor=style.colour, alpha=0.35,
-                                    edgecolor=style.colour, linewidth=0.8,
-                                    label=None if band_labelled else "Monte Carlo band of the ends")
-                    band_labelled = True
-                    marks += [lo, hi]
-                    band_text.append(f"{fmt(lo)} to {fmt(hi)}")
-            shown = " to ".join(fmt(e) for e in ends) + (f" ({'upper' if side == 'lower' else 'lower'} end open)"
-                                                         if side else "")
-            alt_parts.append(f"{name}{kind} {shown}"
-                             + (f" (Monte Carlo band of the {'end' if side else 'ends'}: {'; '.join(band_text)})"
-                                if band_text else ""))
-        drawn, said = _reference_lines(ax, entry, shape, fmt, *marks)
-        _limits(ax, shape, *marks, *drawn)
-        ax.set_ylim(0, top * (1.12 + 0.1 * max(len(entry.get("intervals") or []) - 1, 0)) or 1)
-        ax.set_xlabel(axis_label(entry))
-        ax.set_ylabel(shape.ylabel)
-        _legend(ax)
+    sketch = Sketch()
+    top = _draw(sketch, shape)
+    estimate = entry.get("estimate")
+    marks: list[Any] = [estimate]
+    for value in _finite(estimate):
+        sketch.add(Rule(value, SOLID_BLACK, name="estimate"), Key(f"estimate {fmt(estimate)}", SOLID_BLACK))
+    alt_parts = []
+    band_labelled = False
+    for k, interval in enumerate(entry.get("intervals") or []):
+        style = method_style(interval.get("method"))
+        lower, upper = interval.get("lower"), interval.get("upper")
+        side = labels.one_sided(interval)
+        name = labels.interval_label(interval, format(interval["level"] * 100, "g"))
+        kind = "" if side else " interval"
+        ends = [e for e, key in ((lower, "lower"), (upper, "upper")) if side in (None, key)]
+        if len(_finite(*ends)) < len(ends):
+            alt_parts.append(f"{name}{kind} not available")
+            continue
+        y = top * (1.06 + 0.1 * k)
+        # a one-sided bound runs from its end to the edge of the replicates on its open side
+        span_lo, span_hi = shape.span
+        x0 = lower if lower is not None else min(span_lo, upper)
+        x1 = upper if upper is not None else max(span_hi, lower)
+        tag = f"interval-{interval.get('method')}"
+        sketch.add(Line([x0, x1], [y, y], style.pen(1.6), name=tag), Key(f"{name}{kind}", style.pen(1.6)))
+        sketch.add(Segments([(e, 0.0, e, y) for e in ends], style.pen(1.0), name=f"{tag}-ends"))
+        marks += ends
+        band = bands.get(interval["method"]) or {}
+        band_text = []
+        for which in ("lower_band", "upper_band"):
+            if band.get(which) and len(_finite(*band[which])) == 2:
+                lo, hi = band[which]
+                fill = Fill(style.colour, 0.35, edge=Pen(style.colour, 0.8))
+                sketch.add(Area(lo, hi, y - top * 0.025, y + top * 0.025, fill, name="band"),
+                           None if band_labelled else Key("Monte Carlo band of the ends", fill=fill))
+                band_labelled = True
+                marks += [lo, hi]
+                band_text.append(f"{fmt(lo)} to {fmt(hi)}")
+        shown = " to ".join(fmt(e) for e in ends) + (f" ({'upper' if side == 'lower' else 'lower'} end open)"
+                                                     if side else "")
+        alt_parts.append(f"{name}{kind} {shown}"
+                         + (f" (Monte Carlo band of the {'end' if side else 'ends'}: {'; '.join(band_text)})"
+                            if band_text else ""))
+    drawn, said = _reference_lines(sketch, entry, shape, fmt, *marks)
+    svg = sketch.picture(_x_axis(shape, axis_label(entry), *marks, *drawn),
+                         _y_axis(shape, top * (1.12 + 0.1 * max(len(entry.get("intervals") or []) - 1, 0))))
     size = (entry.get("distribution") or {}).get("size")
     lo, hi = shape.span
     alt = (f"{_what_drawn(shape, f'{precision.count(size)} bootstrap replicates of the {axis_label(entry)}')}, "
            f"from {fmt(lo)} to {fmt(hi)}; the estimate {fmt(estimate)} is a solid black line"
            + ("; " + "; ".join(alt_parts + said) if alt_parts or said else "") + ".")
-    return Plot(f"{entry['id']}-resampling", _svg(fig), alt)
+    return Plot(f"{entry['id']}-resampling", svg, alt)
 
 
 def tail_side(entry: dict[str, Any]) -> str | None:
@@ -424,22 +347,25 @@ def tail_side(entry: dict[str, Any]) -> str | None:
     return None
 
 
-def _shade_tail(ax: Any, shape: Shape, side: str, observed: float, tolerance: float) -> None:
+TAIL_FILL = Fill(VERMILLION, 0.55, hatch=True)
+TAIL_PEN = Pen(VERMILLION, 2.2)
+TAIL_HEAD = Marker("s", 4.0, VERMILLION)
+
+
+def _shade_tail(sketch: Sketch, shape: Shape, side: str, observed: float, tolerance: float) -> None:
     """The part of the distribution on the counted side of the observed value: the bars cut at it,
     or the spikes at or beyond it (within the test's tie tolerance), in hatched vermillion."""
     if shape.spikes:
         counted = [(x, h) for x, h in zip(shape.points, shape.heights)
                    if (x >= observed - tolerance if side == "greater" else x <= observed + tolerance)]
         if counted:
-            xs, hs = zip(*counted)
-            ax.vlines(xs, 0, hs, color=VERMILLION, linewidth=2.2)
-            ax.plot(xs, hs, linestyle="none", marker="s", markersize=4.0, color=VERMILLION)
+            sketch.add(Segments([(x, 0.0, x, h) for x, h in counted], TAIL_PEN, name="tail"))
+            sketch.add(Line([x for x, _ in counted], [h for _, h in counted], marker=TAIL_HEAD, name="tail-heads"))
         return
     for left, right, c in zip(shape.edges[:-1], shape.edges[1:], shape.heights):
         lo, hi = (max(left, observed), right) if side == "greater" else (left, min(right, observed))
         if c and hi > lo:
-            ax.fill_between([lo, hi], 0, c, facecolor=VERMILLION, alpha=0.55, edgecolor="black",
-                            hatch="////", linewidth=0.0, step=None)
+            sketch.add(Area(lo, hi, 0.0, c, TAIL_FILL, name="tail"))
 
 
 def null_plot(entry: dict[str, Any], fmt: Formatter, fmt_p: Formatter) -> Plot | None:
@@ -450,28 +376,19 @@ def null_plot(entry: dict[str, Any], fmt: Formatter, fmt_p: Formatter) -> Plot |
     observed = entry.get("estimate")
     side = tail_side(entry)
     details = entry.get("details") or {}
-    with matplotlib.rc_context(RC):
-        fig, ax = _figure()
-        top = _draw(ax, shape)
-        if side is not None and isinstance(observed, (int, float)) and _finite(observed):
-            scale = max(abs(v) for v in _finite(observed, *shape.span))
-            tolerance = max(_finite(details.get("tolerance")) + [scale * 2.0**-40])
-            _shade_tail(ax, shape, side, float(observed), abs(tolerance))
-            doubled = " (doubled)" if entry.get("alternative") == "two-sided" else ""
-            if shape.spikes:
-                ax.plot([], [], color=VERMILLION, linewidth=2.2, marker="s", markersize=4.0,
-                        label=f"values counted for the p-value{doubled}")
-            else:
-                ax.fill_between([], [], [], facecolor=VERMILLION, alpha=0.55, edgecolor="black", hatch="////",
-                                label=f"tail counted for the p-value{doubled}")
-        if _finite(observed):
-            ax.axvline(observed, color="black", linewidth=2.0, label=f"observed {fmt(observed)}")
-        drawn, said = _reference_lines(ax, entry, shape, fmt, observed)
-        _limits(ax, shape, observed, *drawn)
-        ax.set_ylim(0, top * 1.08 or 1)
-        ax.set_xlabel(axis_label(entry))
-        ax.set_ylabel(shape.ylabel)
-        _legend(ax)
+    sketch = Sketch()
+    top = _draw(sketch, shape)
+    if side is not None and isinstance(observed, (int, float)) and _finite(observed):
+        scale = max(abs(v) for v in _finite(observed, *shape.span))
+        tolerance = max(_finite(details.get("tolerance")) + [scale * 2.0**-40])
+        _shade_tail(sketch, shape, side, float(observed), abs(tolerance))
+        doubled = " (doubled)" if entry.get("alternative") == "two-sided" else ""
+        sketch.keys.append(Key(f"values counted for the p-value{doubled}", TAIL_PEN, TAIL_HEAD) if shape.spikes
+                           else Key(f"tail counted for the p-value{doubled}", fill=TAIL_FILL))
+    for value in _finite(observed):
+        sketch.add(Rule(value, SOLID_BLACK, name="observed"), Key(f"observed {fmt(observed)}", SOLID_BLACK))
+    drawn, said = _reference_lines(sketch, entry, shape, fmt, observed)
+    svg = sketch.picture(_x_axis(shape, axis_label(entry), observed, *drawn), _y_axis(shape, top * 1.08))
     size = (entry.get("distribution") or {}).get("size")
     count_key = {"greater": "count_greater_equal", "less": "count_less_equal"}.get(side or "")
     what = "all arrangements" if entry.get("exact") else "random permutations"
@@ -487,7 +404,7 @@ def null_plot(entry: dict[str, Any], fmt: Formatter, fmt_p: Formatter) -> Plot |
            f"of the {axis_label(entry)}, "
            f"from {fmt(lo)} to {fmt(hi)}; the observed value {fmt(observed)} is a solid black "
            f"line{tail}" + ("; " + "; ".join(said) if said else "") + ".")
-    return Plot(f"{entry['id']}-null", _svg(fig), alt)
+    return Plot(f"{entry['id']}-null", svg, alt)
 
 
 def pseudo_value_plot(entry: dict[str, Any], fmt: Formatter) -> Plot | None:
@@ -497,20 +414,17 @@ def pseudo_value_plot(entry: dict[str, Any], fmt: Formatter) -> Plot | None:
         return None
     estimate = entry.get("estimate")
     corrected = (entry.get("details") or {}).get("corrected_estimate")
-    with matplotlib.rc_context(RC):
-        fig, ax = _figure()
-        top = _draw(ax, shape)
-        if _finite(estimate):
-            ax.axvline(estimate, color="black", linewidth=2.0, label=f"estimate {fmt(estimate)}")
-        if _finite(corrected):
-            ax.axvline(corrected, color=BLUE, linewidth=1.6, linestyle="--",
-                       label=f"bias-corrected (mean of pseudo-values) {fmt(corrected)}")
-        drawn, said = _reference_lines(ax, entry, shape, fmt, estimate, corrected)
-        _limits(ax, shape, estimate, corrected, *drawn)
-        ax.set_ylim(0, top * 1.08 or 1)
-        ax.set_xlabel(axis_label(entry, "pseudo-value, "))
-        ax.set_ylabel(shape.ylabel)
-        _legend(ax)
+    sketch = Sketch()
+    top = _draw(sketch, shape)
+    for value in _finite(estimate):
+        sketch.add(Rule(value, SOLID_BLACK, name="estimate"), Key(f"estimate {fmt(estimate)}", SOLID_BLACK))
+    for value in _finite(corrected):
+        pen = Pen(BLUE, 1.6, (6.0, 2.5))
+        sketch.add(Rule(value, pen, name="corrected"),
+                   Key(f"bias-corrected (mean of pseudo-values) {fmt(corrected)}", pen))
+    drawn, said = _reference_lines(sketch, entry, shape, fmt, estimate, corrected)
+    svg = sketch.picture(_x_axis(shape, axis_label(entry, "pseudo-value, "), estimate, corrected, *drawn),
+                         _y_axis(shape, top * 1.08))
     size = (entry.get("distribution") or {}).get("size")
     lo, hi = shape.span
     alt = (f"{_what_drawn(shape, f'the {size} jackknife pseudo-values of the {axis_label(entry)}')}, from "
@@ -518,7 +432,7 @@ def pseudo_value_plot(entry: dict[str, Any], fmt: Formatter) -> Plot | None:
            f"black line and the bias-corrected estimate {fmt(corrected)} a dashed blue line"
            + ("; " + "; ".join(said) if said else "")
            + ". Isolated bars far from the rest are observations with a large influence on the estimate.")
-    return Plot(f"{entry['id']}-pseudo-values", _svg(fig), alt)
+    return Plot(f"{entry['id']}-pseudo-values", svg, alt)
 
 
 def plots_for(entry: dict[str, Any], fmt: Formatter, fmt_p: Formatter) -> list[Plot]:
@@ -536,17 +450,14 @@ def plots_for(entry: dict[str, Any], fmt: Formatter, fmt_p: Formatter) -> list[P
 
 
 _PROLOG = re.compile(r"\A.*?(?=<svg\b)", re.S)
-_METADATA = re.compile(r"\s*<metadata>.*?</metadata>", re.S)
 
 
 def inline_svg(plot: Plot, prefix: str, html_escape: Callable[[str], str]) -> str:
-    """The SVG ready to sit inside an HTML page: no XML prolog or metadata, ids made unique by
-    `prefix` (several pictures share one document), and the text alternative as its title."""
-    text = _METADATA.sub("", _PROLOG.sub("", plot.svg, count=1), count=1)
+    """The SVG ready to sit inside an HTML page: no XML prolog, ids made unique by `prefix` (several
+    pictures share one document), and the text alternative as its title."""
+    text = _PROLOG.sub("", plot.svg, count=1)
     text = re.sub(r'\bid="([^"]+)"', lambda m: f'id="{prefix}{m.group(1)}"', text)
     text = re.sub(r"url\(#([^)]+)\)", lambda m: f"url(#{prefix}{m.group(1)})", text)
-    text = re.sub(r'xlink:href="#([^"]+)"', lambda m: f'href="#{prefix}{m.group(1)}"', text)
-    text = text.replace(' xmlns:xlink="http://www.w3.org/1999/xlink"', "")
     title = f'<title id="{prefix}title">{html_escape(plot.alt)}</title>'
     return re.sub(r"<svg\b([^>]*)>", lambda m: f'<svg{m.group(1)} role="img" aria-labelledby="{prefix}title">'
                   f"\n {title}", text, count=1).strip() + "\n"
