@@ -415,6 +415,18 @@ def test_record_holds_the_curves_and_the_report_draws_them(write_plan, tmp_path)
     plot = curve_plot(entry)
     assert plot is not None and plot.name == "logrank-kaplan-meier" and "12 censored" in plot.alt
     assert curve_plot(entry).svg == plot.svg  # the same record gives the same bytes
+    # the drawn steps: every drop of the first group's line, read back through the axes' tick labels,
+    # is at an event time with the height of statsmodels' survival there (to the 2-decimal coordinates)
+    from svg_reading import ROUNDING, linear, marks, parse, path_points, tick_maps
+
+    root = parse(plot.svg)
+    x_map, y_map = (linear(pairs) for pairs in tick_maps(root))
+    [line] = marks(root, "curve-0")
+    corners = path_points(line.get("d"))
+    drops = [(x, y) for (x, y0), (x1, y) in zip(corners, corners[1:]) if x == x1 and y != y0]
+    assert len(drops) == len(reference.surv_times)
+    for (x, y), t, s in zip(drops, reference.surv_times, reference.surv_prob):
+        assert x == pytest.approx(x_map(t), abs=4 * ROUNDING) and y == pytest.approx(y_map(s), abs=4 * ROUNDING)
     folder = outcome.folder if hasattr(outcome, "folder") else next((tmp_path / "out").glob("remission-*"))
     assert (folder / "figures" / "logrank-kaplan-meier.svg").exists()
     assert "logrank-kaplan-meier" in (folder / "report.md").read_text(encoding="utf-8")

@@ -51,74 +51,77 @@ def analysis_series(runs: list[dict[str, Any]]) -> list[dict[str, Any]]:
     return list(series.values())
 
 
+def _interval_marks(points: list[dict[str, Any]], pen: Any, colour: str) -> list[Any]:
+    """Per run its interval as a vertical line, or a one-sided bound as a line from the bound to the
+    estimate with a caret pointing to the open side."""
+    from planrunner.report.canvas import Line, Marker
+
+    marks: list[Any] = []
+    for p in points:
+        interval, x = p["interval"], p["position"]
+        if interval and interval["lower"] is not None and interval["upper"] is not None:
+            marks.append(Line([x, x], [interval["lower"], interval["upper"]], pen, name="interval"))
+        elif interval and interval.get("side") and (bound := _bound(interval)) is not None:
+            marks.append(Line([x, x], [bound, p["estimate"]], pen, name="interval"))
+            marks.append(Line([x], [bound], marker=Marker("^" if interval["side"] == "lower" else "v", 6.0, colour),
+                              name="bound"))
+    return marks
+
+
+def _span(values: list[float]) -> tuple[float, float]:
+    lo, hi = min(values), max(values)
+    pad = (hi - lo) * 0.06 or abs(lo) * 0.1 or 0.5
+    return lo - pad, hi + pad
+
+
 def trend_svg(series: dict[str, Any], runs: list[dict[str, Any]], fmt: Any = precision.significant) -> tuple[str, str]:
     """The picture of one analysis across runs, as SVG text, and its text alternative."""
-    import matplotlib
-    from matplotlib.figure import Figure
-    from matplotlib.ticker import LogLocator, NullFormatter
-
-    from planrunner.report import plots
+    from planrunner.report import canvas, plots
+    from planrunner.report.canvas import Key, Line, Marker, Pen, Rule
 
     points = series["points"]
     has_p = any(p["p_value"] is not None for p in points)
-    with matplotlib.rc_context(plots.RC):
-        # fixed margins instead of a layout engine: an index holds a picture per analysis and is drawn
-        # after every run, and the constrained layout drew each figure twice
-        height = 4.6 if has_p else 2.8
-        fig = Figure(figsize=(7.0, height))
-        fig.subplots_adjust(left=0.13, right=0.98, top=1 - 0.42 / height, bottom=0.72 / height, hspace=0.12)
-        axes = fig.subplots(2, 1, sharex=True) if has_p else [fig.add_subplot()]
-        ax = axes[0]
-        kept = [p for p in points if p["estimate"] is not None]
-        method = next((p["interval"]["method"] for p in points if p["interval"]), None)
-        style = plots.method_style(next((m for m, s in plots.METHOD_STYLES.items() if s.name == method), method))
-        for p in kept:
-            marker_face = "white" if p["changed"] else "black"
-            interval = p["interval"]
-            if interval and interval["lower"] is not None and interval["upper"] is not None:
-                ax.plot([p["position"], p["position"]], [interval["lower"], interval["upper"]], color=style.colour,
-                        linestyle=style.line, linewidth=1.6)
-            elif interval and interval.get("side") and (bound := _bound(interval)) is not None:
-                # a one-sided bound: a line from the bound to the estimate, a caret pointing to the open side
-                ax.plot([p["position"], p["position"]], [bound, p["estimate"]], color=style.colour,
-                        linestyle=style.line, linewidth=1.6)
-                ax.plot([p["position"]], [bound], marker="^" if interval["side"] == "lower" else "v",
-                        markersize=6, color=style.colour, linestyle="none")
-            ax.plot([p["position"]], [p["estimate"]], marker="o", markersize=5, color="black",
-                    markerfacecolor=marker_face, linestyle="none")
-        ax.plot([q["position"] for q in kept], [q["estimate"] for q in kept], color="black", linewidth=0.8)
-        ax.plot([], [], marker="o", color="black", linestyle="-", linewidth=0.8, label="estimate")
-        if method:
-            level = next((p["interval"]["level"] for p in points if p["interval"]), None)
-            side = next((p["interval"].get("side") for p in points if p["interval"]), None)
-            percent = precision.significant((level or 0) * 100)
-            name = f"{method} {percent}% interval" if not side else f"{method}, one-sided {side} {percent}% bound"
-            ax.plot([], [], color=style.colour, linestyle=style.line, linewidth=1.6, label=name)
-        if any(p["changed"] for p in points):
-            ax.plot([], [], marker="o", markerfacecolor="white", color="black", linestyle="none",
-                    label="plan or lock changed")
-        for p in points:
-            if p["changed"]:
-                for a in axes:
-                    a.axvline(p["position"], color="#555555", linewidth=0.8, linestyle=(0, (4, 3)))
-        ax.set_ylabel(f"{series['label']}" + (f" ({series['unit']})" if series.get("unit") else ""))
-        ax.yaxis.set_major_formatter(plots.PlainTicks())
-        ax.legend(loc="lower left", bbox_to_anchor=(0.0, 1.0), ncol=3, frameon=False, fontsize=8, borderaxespad=0.2)
-        if has_p:
-            pax = axes[1]
-            with_p = [p for p in points if p["p_value"] is not None and p["p_value"] > 0]
-            pax.plot([p["position"] for p in with_p], [p["p_value"] for p in with_p], marker="s", markersize=4,
-                     color="black", linewidth=0.8)
-            pax.set_yscale("log")
-            pax.yaxis.set_major_locator(LogLocator(base=10.0, subs=(1.0, 2.0, 5.0)))
-            pax.yaxis.set_major_formatter(plots.PlainTicks())  # no mathtext: it is switched off
-            pax.yaxis.set_minor_formatter(NullFormatter())
-            pax.set_ylabel("p-value (log scale)")
-        axes[-1].set_xticks(range(len(runs)), [f"#{r.get('seq')}\n{str(r.get('finished_utc') or '')[:10]}"
-                                                for r in runs])
-        axes[-1].set_xlim(-0.5, len(runs) - 0.5)
-        axes[-1].set_xlabel("run (sequence number and date)")
-    svg = plots._svg(fig)
+    kept = [p for p in points if p["estimate"] is not None]
+    method = next((p["interval"]["method"] for p in points if p["interval"]), None)
+    style = plots.method_style(next((m for m, s in plots.METHOD_STYLES.items() if s.name == method), method))
+    pen = style.pen(1.6)
+    black = Pen("#000000", 0.8)
+    marks: list[Any] = _interval_marks(kept, pen, style.colour)
+    marks.append(Line([q["position"] for q in kept], [q["estimate"] for q in kept], black, name="estimates"))
+    for hollow in (False, True):
+        chosen = [q for q in kept if q["changed"] == hollow]
+        marks.append(Line([q["position"] for q in chosen], [q["estimate"] for q in chosen],
+                          marker=Marker("o", 5.0, "#000000", hollow=hollow), name="estimate"))
+    keys = [Key("estimate", black, Marker("o", 5.0, "#000000"))]
+    if method:
+        level = next((p["interval"]["level"] for p in points if p["interval"]), None)
+        side = next((p["interval"].get("side") for p in points if p["interval"]), None)
+        percent = precision.significant((level or 0) * 100)
+        keys.append(Key(f"{method} {percent}% interval" if not side else f"{method}, one-sided {side} {percent}% bound",
+                        pen))
+    if any(p["changed"] for p in points):
+        keys.append(Key("plan or lock changed", marker=Marker("o", 5.0, "#000000", hollow=True)))
+    changed = [Rule(p["position"], Pen("#555555", 0.8, (3.2, 2.4)), name="changed") for p in points if p["changed"]]
+    drawn = [v for p in kept for v in (p["estimate"], (p["interval"] or {}).get("lower"),
+                                       (p["interval"] or {}).get("upper")) if v is not None]
+    low, high = _span(drawn or [0.0])
+    unit = f" ({series['unit']})" if series.get("unit") else ""
+    panels = [canvas.Panel(canvas.value_axis(low, high, f"{series['label']}{unit}", count=6), changed + marks)]
+    if has_p:
+        with_p = [p for p in points if p["p_value"] is not None and p["p_value"] > 0]
+        values = [p["p_value"] for p in with_p] or [1.0]
+        p_low = 10.0 ** math.floor(math.log10(min(values)))
+        p_high = max(10.0 ** math.ceil(math.log10(max(values))), p_low * 10)
+        ticks = canvas.log_ticks(p_low, p_high)
+        axis = canvas.Axis(p_low, p_high, ticks, [f"{t:g}".replace("-", "\u2212") for t in ticks],
+                           "p-value (log scale)", log=True)
+        p_marks: list[Any] = [Line([p["position"] for p in with_p], [p["p_value"] for p in with_p], black,
+                                   Marker("s", 4.0, "#000000"), name="p-values")]
+        panels.append(canvas.Panel(axis, changed + p_marks))
+    x = canvas.Axis(-0.5, len(runs) - 0.5, list(range(len(runs))),
+                    [f"#{r.get('seq')}\n{str(r.get('finished_utc') or '')[:10]}" for r in runs],
+                    "run (sequence number and date)")
+    svg = canvas.Picture(504.0, 331.2 if has_p else 201.6, x, panels, keys).svg()
     said = []
     for p in points:
         interval = p["interval"]

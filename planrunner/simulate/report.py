@@ -1,9 +1,9 @@
 """HTML and Markdown views of a simulation document, and its two pictures (power against the
 group size of the search; the coverage of each interval against its nominal level).
 
-Like the run reports they only format: every number is in simulation.json. The pictures are drawn
-by matplotlib with the run reports' settings (report/plots.py: fixed hash salt, no date, text as
-text), so the same document gives the same bytes.
+Like the run reports they only format: every number is in simulation.json. The pictures are written
+by the run reports' SVG writer (report/canvas.py: no ids, no date, text as text), so the same
+document gives the same bytes.
 """
 
 from __future__ import annotations
@@ -53,49 +53,56 @@ def _coverage_points(document: dict[str, Any]) -> list[tuple[str, float, float, 
 
 def coverage_plot(document: dict[str, Any]) -> Any:
     """Each interval's simulated coverage with its Monte Carlo interval, beside its nominal level."""
-    from planrunner.report import plots
+    from planrunner.report import canvas, plots
+    from planrunner.report.canvas import Line, Marker, Pen
 
     points = _coverage_points(document)
     if not points:
         return None
-    fig, ax = plots._figure()
     ys = list(range(len(points)))[::-1]
+    marks: list[canvas.Mark] = []
     for y, (_, nominal, rate, low, high) in zip(ys, points):
-        ax.plot([low, high], [y, y], color=plots.BLUE, linewidth=1.5)
-        ax.plot([rate], [y], marker="o", color=plots.BLUE, linestyle="none")
-        ax.plot([nominal], [y], marker="|", markersize=12, color=plots.VERMILLION, linestyle="none")
-    ax.set_yticks(ys, [p[0] for p in points], fontsize=7)
-    ax.set_xlabel("coverage (dot: simulated, bar: 95% Monte Carlo interval, tick: nominal level)")
-    fig.set_size_inches(7.0, 1.0 + 0.3 * len(points))
-    plots.fit_margins(ax, 1)  # room for the long tick labels (the figures have no layout engine)
+        marks.append(Line([low, high], [y, y], Pen(plots.BLUE, 1.5), name="mc-interval"))
+        marks.append(Line([rate], [y], marker=Marker("o", 5.0, plots.BLUE), name="coverage"))
+        marks.append(Line([nominal], [y], marker=Marker("|", 12.0, plots.VERMILLION), name="nominal"))
+    reach = [v for p in points for v in p[1:]]
+    lo, hi = min(reach), max(reach)
+    pad = (hi - lo) * 0.05 or 0.01
+    x = canvas.value_axis(lo - pad, hi + pad, "coverage (dot: simulated, bar: 95% Monte Carlo interval, "
+                          "tick: nominal level)", count=8)
+    rows = canvas.Axis(-0.6, len(points) - 0.4, ys, [p[0] for p in points], label_size=7.0)
+    svg = canvas.Picture(504.0, 72.0 * (1.0 + 0.3 * len(points)), x, [canvas.Panel(rows, marks)]).svg()
     alt = "Coverage against nominal level: " + "; ".join(
         f"{label}: {percent(rate)} (nominal {percent(nominal)})" for label, nominal, rate, _, _ in points)
-    return plots.Plot("coverage", plots._svg(fig), alt)
+    return plots.Plot("coverage", svg, alt)
 
 
 def power_plot(search: dict[str, Any] | None) -> Any:
     """The search's power at each group size, with its Monte Carlo interval and the target."""
-    from planrunner.report import plots
+    from planrunner.report import canvas, plots
+    from planrunner.report.canvas import Key, Line, Marker, Pen, Rule, Segments
 
     drawn = [p for p in (search or {}).get("points", []) if p["power"]["rate"] is not None]
     if not drawn:
         return None
     assert search is not None
-    fig, ax = plots._figure()
     sizes = [p["size"] for p in drawn]
     rates = [p["power"]["rate"] for p in drawn]
-    ax.plot(sizes, rates, marker="o", color=plots.BLUE, label="simulated power")
-    ax.vlines(sizes, [p["power"]["interval"][0] for p in drawn], [p["power"]["interval"][1] for p in drawn],
-              color=plots.BLUE, linewidth=1.0, label="95% Monte Carlo interval")
-    ax.axhline(search["target"], color=plots.VERMILLION, linestyle="--", linewidth=1.0, label="target")
-    ax.set_xlabel("rows per group")
-    ax.set_ylabel("power")
-    ax.set_ylim(0.0, 1.0)
-    plots._legend(ax)
+    line, dot, bar = Pen(plots.BLUE, 1.5), Marker("o", 5.0, plots.BLUE), Pen(plots.BLUE, 1.0)
+    target = Pen(plots.VERMILLION, 1.0, (3.7, 1.6))
+    marks: list[canvas.Mark] = [
+        Line(sizes, rates, line, dot, name="power"),
+        Segments([(n, p["power"]["interval"][0], n, p["power"]["interval"][1]) for n, p in zip(sizes, drawn)], bar,
+                 name="mc-interval"),
+        Rule(search["target"], target, vertical=False, name="target")]
+    keys = [Key("simulated power", line, dot), Key("95% Monte Carlo interval", bar), Key("target", target)]
+    pad = (max(sizes) - min(sizes)) * 0.05 or 1.0
+    x = canvas.value_axis(min(sizes) - pad, max(sizes) + pad, "rows per group", count=8)
+    svg = canvas.Picture(504.0, 216.0, x, [canvas.Panel(canvas.value_axis(0.0, 1.0, "power"), marks)], keys).svg()
     alt = (f"Power of {search['analysis']} under {search['scenario']} against rows per group: "
            + "; ".join(f"n = {n}: {percent(r)}" for n, r in zip(sizes, rates))
            + f"; target {percent(search['target'])}")
-    return plots.Plot("power", plots._svg(fig), alt)
+    return plots.Plot("power", svg, alt)
 
 
 def render_simulation(document: dict[str, Any]) -> dict[str, str]:
