@@ -69,7 +69,7 @@ def coverage_plot(document: dict[str, Any]) -> Any:
     lo, hi = min(reach), max(reach)
     pad = (hi - lo) * 0.05 or 0.01
     x = canvas.value_axis(lo - pad, hi + pad, "coverage (dot: simulated, bar: 95% Monte Carlo interval, "
-                          "tick: nominal level)", count=8)
+                          "tick: nominal level)", count=6)
     rows = canvas.Axis(-0.6, len(points) - 0.4, ys, [p[0] for p in points], label_size=7.0)
     svg = canvas.Picture(504.0, 72.0 * (1.0 + 0.3 * len(points)), x, [canvas.Panel(rows, marks)]).svg()
     alt = "Coverage against nominal level: " + "; ".join(
