@@ -18,7 +18,7 @@ import numpy as np
 import pytest
 
 ROOT = Path(__file__).resolve().parent.parent
-# 10,000 rows and 3,000,000 resamples: each of the 8 ranges of two workers computes for about 40 s
+# 10,000 rows and 3,000,000 resamples: the first ranges a worker takes compute for a minute and more
 # (about 110 µs a resample measured on the development machine), far longer than the bounds below,
 # so a worker that outlived the run would still be found computing
 PLAN = """
@@ -157,19 +157,21 @@ def _assert_stopped(child: subprocess.Popen, processes: set[int], number: int, o
     assert not out.exists() or list(out.iterdir()) == []  # neither a run folder nor a staging folder
 
 
-@pytest.mark.parametrize("options", [["--workers", "2"], ["--executor", "dask", "--workers", "2"]],
+# --workers 2 on processes: the run's own process and one worker process compute; a dask cluster of 2
+@pytest.mark.parametrize("options, worker_processes", [(["--workers", "2"], 1),
+                                                       (["--executor", "dask", "--workers", "2"], 2)],
                          ids=["processes", "dask"])
-def test_sigterm_stops_every_worker_process(long_plan, tmp_path, options):
+def test_sigterm_stops_every_worker_process(long_plan, tmp_path, options, worker_processes):
     out = tmp_path / "out"
     child = _start(long_plan, out, options)
-    processes = _computing_workers(child, 2)
+    processes = _computing_workers(child, worker_processes)
     child.send_signal(signal.SIGTERM)
     _assert_stopped(child, processes, signal.SIGTERM, out)
 
 
 # serial: the signal is handled between two batches of the computing thread. threads: a range
 # already running on a thread cannot be interrupted and ends first, so the ranges here are shorter
-# (100,000 resamples in 8 ranges: under 2 s each)
+# (100,000 resamples: the helper thread's largest range, 18,750 of them, computes for about 3 s)
 @pytest.mark.parametrize("options, resamples", [([], 3_000_000),
                                                 (["--executor", "threads", "--workers", "2"], 100_000)],
                          ids=["serial", "threads"])

@@ -287,6 +287,8 @@ TRACE: dict[str, tuple[str, ...]] = {
         "tests/test_execution.py::test_interrupt_stops_cleanly_without_a_record",
         "tests/test_termination.py::test_sigterm_stops_every_worker_process",
         "tests/test_termination.py::test_sigterm_stops_a_run_in_one_process",
+        "tests/test_shared_ranges.py::test_helpers_that_take_every_range_in_reverse_give_the_serial_numbers",
+        "tests/test_shared_ranges.py::test_processes_share_ranges_with_the_calling_process_and_give_the_serial_numbers",
         "tests/test_execution.py::test_progress_bar_is_silent_off_a_terminal_and_when_quiet",
         "tests/test_execution.py::test_dask_missing_is_a_clear_error",
         "tests/test_resample_ranges.py::test_bootstrap_split_ranges_are_bit_identical"),

@@ -3,9 +3,13 @@
 The numbers never depend on how jobs are run, because every random draw comes from the job's own
 stream (see `engines.streams`) and resample r depends only on row r of it. Work is split two ways:
 jobs without resamples (the jackknife) go whole to a worker, and the resamples of a bootstrap or a
-Monte Carlo permutation test are cut into ranges of equal size (`engines.blocks`) that the
-workers compute and the calling process concatenates in order. The engine's own summary (sorting,
-intervals, counts) runs in the calling process.
+Monte Carlo permutation test are cut into ranges (`engines.blocks`) that the workers compute and the
+calling process concatenates in order. The engine's own summary (sorting, intervals, counts) runs in
+the calling process.
+
+On threads and processes the calling process is one of the ``workers``: it computes ranges itself
+while the others start, and takes whichever range is next when it is free (`_Shares`). Every range
+reads its own rows of the stream, so who computes a range changes no number.
 """
 
 from __future__ import annotations
@@ -18,6 +22,7 @@ import math
 import multiprocessing
 import os
 import pickle
+import threading
 from collections.abc import Callable
 from dataclasses import dataclass
 from typing import Any
@@ -35,15 +40,22 @@ from planrunner.engines.statistics import STATISTICS, Statistic, bind, get_stati
 from planrunner.engines.streams import DRAW_BLOCK
 from planrunner.errors import EngineError, PlanrunnerError
 from planrunner.execute.permutation import run_permutation
-from planrunner.execute.rangework import call_cached_range, ignore_interrupts
+from planrunner.execute.rangework import call_cached_range, ignore_interrupts, keep_task
 from planrunner.execute.signals import stopping_on_termination
 
 EXECUTORS = ("serial", "threads", "processes", "dask")
 EngineResult = BootstrapResult | JackknifeResult | PermutationResult
 # (resamples done, resamples in total) after every finished range and job
 Progress = Callable[[int, int], None]
-RANGES_PER_WORKER = 4  # a few ranges per worker keep them busy while one finishes early
+RANGES_PER_WORKER = 4  # dask: a few ranges per worker keep them busy while one finishes early
 MIN_RANGE = DRAW_BLOCK  # ... but none shorter than a draw block: a range's fixed cost stays small beside its work
+# threads and processes hand out ranges as workers ask for them, largest first: each is this share
+# of what is left per worker (guided self-scheduling), so the first ones amortise a worker's start
+# and the last ones are short enough that no worker waits long for another at the end
+GUIDED_SHARE = 2
+SMALLEST_SHARE = DRAW_BLOCK // 4  # ... but none shorter: a range's fixed cost (a generator, buffers) stays small
+IN_FLIGHT = 2  # ranges queued for a worker process: one computing, one on its way (the parent's round trip)
+WAIT_SECONDS = 0.1  # the calling thread wakes this often while it waits, so Ctrl-C is handled at once
 SERIAL_RANGE = 5  # draw blocks per progress step in a serial run
 SCHEDULER_TIMEOUT = 30.0  # seconds to reach a dask scheduler before giving up
 
@@ -268,18 +280,127 @@ def _spreading(submit: Callable[[RangeTask, int, int], Any], result: Callable[[A
     return mapper
 
 
+def shared_ranges(total: int, workers: int) -> list[tuple[int, int]]:
+    """Consecutive ranges covering [0, total), largest first: each 1/(GUIDED_SHARE·workers) of the
+    resamples not yet handed out, none shorter than SMALLEST_SHARE (but the last)."""
+    ranges: list[tuple[int, int]] = []
+    start = 0
+    while start < total:
+        size = max(SMALLEST_SHARE, -(-(total - start) // (GUIDED_SHARE * workers)))
+        ranges.append((start, min(total, start + size)))
+        start = ranges[-1][1]
+    return ranges
+
+
+class _Shares:
+    """The ranges of one task (`shared_ranges`), each computed once, by whoever asks for it first:
+    the calling thread (`compute_here`) or a worker (`claim`, then `finish` or `fail`). The calling
+    thread alone reports progress and collects the parts in range order (`collect`)."""
+
+    def __init__(self, task: RangeTask, total: int, workers: int, tally: _Tally):
+        self.task = task
+        self.ranges = shared_ranges(total, workers)
+        self._parts: list[np.ndarray | None] = [None] * len(self.ranges)
+        self._claimed = 0  # ranges handed out, in order
+        self._finished = 0
+        self._resamples_finished = 0
+        self._resamples_reported = 0
+        self._error: BaseException | None = None
+        self._changed = threading.Condition()
+        self._tally = tally
+
+    def claim(self) -> int | None:
+        """The next range's index, or None when every range is handed out, one failed, or `stop` was called."""
+        with self._changed:
+            if self._claimed == len(self.ranges) or self._error is not None:
+                return None
+            self._claimed += 1
+            return self._claimed - 1
+
+    def finish(self, index: int, part: np.ndarray) -> None:
+        with self._changed:
+            self._parts[index] = part
+            self._finished += 1
+            self._resamples_finished += self.ranges[index][1] - self.ranges[index][0]
+            self._changed.notify_all()
+
+    def fail(self, error: BaseException) -> None:
+        with self._changed:
+            if self._error is None:
+                self._error = error
+            self._changed.notify_all()
+
+    def stop(self) -> None:
+        """Hand out no more ranges (the calling thread is stopping: an error or an interrupt)."""
+        with self._changed:
+            self._claimed = len(self.ranges)
+
+    def compute(self, report: bool = False) -> None:
+        """Compute ranges in this thread until none is left to hand out; ``report``: in the calling thread."""
+        while (index := self.claim()) is not None:
+            self.finish(index, self.task(*self.ranges[index]))
+            if report:
+                self._report()
+
+    def compute_on_helper(self) -> None:
+        """`compute` on a helper thread: its error goes to the calling thread."""
+        try:
+            self.compute()
+        except BaseException as exc:  # noqa: BLE001 (raised again by `collect` in the calling thread)
+            self.fail(exc)
+
+    def collect(self) -> list[np.ndarray]:
+        """Every range's part in range order, once all are finished; a worker's error is raised here."""
+        while True:
+            with self._changed:
+                if self._error is None and self._finished < len(self.ranges):
+                    self._changed.wait(WAIT_SECONDS)  # a timeout: Ctrl-C is handled while waiting
+                error, done = self._error, self._finished == len(self.ranges)
+            self._report()
+            if error is not None:
+                raise error
+            if done:
+                return [part for part in self._parts if part is not None]
+
+    def _report(self) -> None:
+        with self._changed:
+            new = self._resamples_finished - self._resamples_reported
+            self._resamples_reported = self._resamples_finished
+        if new:
+            self._tally.add(new)
+
+
+def _sharing(workers: int, tally: _Tally,
+             helpers: Callable[[_Shares], None]) -> Callable[[RangeTask, int], list[np.ndarray]]:
+    """A range mapper: ``helpers(shares)`` sets the other workers on the task's ranges, the calling
+    thread computes ranges too, then collects them all in order."""
+    def mapper(task: RangeTask, total: int) -> list[np.ndarray]:
+        shares = _Shares(task, total, workers, tally)
+        try:
+            helpers(shares)
+            shares.compute(report=True)
+            return shares.collect()
+        finally:
+            shares.stop()  # after an error or an interrupt: no worker starts another range
+
+    return mapper
+
+
 def _on_threads(jobs: list[Job], execution: Execution, tally: _Tally) -> list[Any]:
-    """Resample ranges on threads of this process: numpy releases the interpreter lock while it
-    draws, gathers and reduces, so on a few cores this costs neither start-up nor copying."""
+    """Resample ranges on this thread and ``workers - 1`` more of this process: numpy releases the
+    interpreter lock while it draws, gathers and reduces, so on a few cores this costs neither
+    start-up nor copying."""
     from concurrent.futures import ThreadPoolExecutor
 
-    pool = ThreadPoolExecutor(max_workers=execution.workers, thread_name_prefix="planrunner")
+    pool = ThreadPoolExecutor(max_workers=max(1, execution.workers - 1), thread_name_prefix="planrunner")
     try:
-        mapper = _spreading(lambda task, start, stop: pool.submit(task, start, stop), lambda f: f.result(),
-                            execution.workers, tally)
-        return _run_jobs(jobs, tally, mapper, {})
+        def helpers(shares: _Shares) -> None:
+            for _ in range(execution.workers - 1):
+                pool.submit(shares.compute_on_helper)
+
+        return _run_jobs(jobs, tally, _sharing(execution.workers, tally, helpers), {})
     finally:
-        # after an error or an interrupt: queued ranges are dropped, running ones end with their range
+        # after an error or an interrupt: ranges already running end with their range
         pool.shutdown(wait=True, cancel_futures=True)
 
 
@@ -304,40 +425,62 @@ def stop_dask(client: Any, cluster: Any) -> None:
 
 
 def _on_processes(jobs: list[Job], execution: Execution, tally: _Tally) -> list[Any]:
-    pool = process_pool(execution.workers)
+    """This process and ``workers - 1`` worker processes. While they start (a fresh interpreter
+    importing numpy and the engine: a few tenths of a second), this process computes ranges."""
+    if execution.workers == 1:
+        return _run_jobs(jobs, tally, None, {})
+    pool = process_pool(execution.workers - 1)
     try:
         pending = {i: pool.apply_async(_execute_caught, (job,)) for i, job in enumerate(jobs)
                    if job.method == "jackknife"}
-
-        mapper = _cached_spreading(pool, execution.workers, tally)
-
-        results = _run_jobs(jobs, tally, mapper, {i: functools.partial(_pool_result, r) for i, r in pending.items()})
-        pool.close()
-        pool.join()
-        return results
+        helpers = functools.partial(_feed_processes, pool, execution.workers - 1)
+        return _run_jobs(jobs, tally, _sharing(execution.workers, tally, helpers),
+                         {i: functools.partial(_pool_result, r) for i, r in pending.items()})
     finally:
+        # every result is in (or the run stops): what a worker still has queued (a task it was sent
+        # while this process computed the ranges) is not needed, so it is stopped rather than waited for
         stop_process_pool(pool)
 
 
-def _cached_spreading(pool: Any, workers: int, tally: _Tally) -> Callable[[RangeTask, int], list[np.ndarray]]:
-    """`_spreading` for a process pool that sends each task's data about once per worker: the
-    pickled task rides with the first range of each worker; a worker that gets a later range
-    first answers that it needs the task, and that range is sent again with it."""
-    def mapper(task: RangeTask, total: int) -> list[np.ndarray]:
-        key, payload = new_task_key(), pickled(task)
-        ranges = _ranges(total, workers)
-        waiting = [pool.apply_async(call_cached_range, (key, payload if i < workers else None, start, stop))
-                   for i, (start, stop) in enumerate(ranges)]
-        parts = []
-        for (start, stop), pending in zip(ranges, waiting):
-            part = pending.get()
-            if isinstance(part, str):  # NEEDS_TASK: that worker had not been sent the task yet
-                part = pool.apply_async(call_cached_range, (key, payload, start, stop)).get()
-            parts.append(part)
-            tally.add(stop - start)
-        return parts
+def _feed_processes(pool: Any, processes: int, shares: _Shares) -> None:
+    """Set the pool's ``processes`` on the ranges of ``shares``: each is first sent the pickled task
+    (`rangework.keep_task`); once it has answered, it is sent ranges, IN_FLIGHT at a time, each new
+    one as one comes back. The task's data so cross about once per worker, and a worker still
+    starting holds no range back from the others. Everything below runs on the pool's result
+    thread, whose callbacks must not raise: an error goes to the calling thread through `shares`."""
+    key, payload = new_task_key(), pickled(shares.task)
 
-    return mapper
+    def guarded(step: Callable[..., None]) -> Callable[..., None]:
+        def run(*args: Any) -> None:
+            try:
+                step(*args)
+            except BaseException as exc:  # noqa: BLE001 (raised again by `collect`)
+                shares.fail(exc)
+        return run
+
+    def send(index: int, with_task: bool) -> None:
+        start, stop = shares.ranges[index]
+        pool.apply_async(call_cached_range, (key, payload if with_task else None, start, stop),
+                         callback=guarded(functools.partial(received, index)), error_callback=shares.fail)
+
+    def send_next() -> None:
+        index = shares.claim()
+        if index is not None:
+            send(index, with_task=False)
+
+    def received(index: int, part: Any) -> None:
+        if isinstance(part, str):  # NEEDS_TASK: a worker that another's keep_task passed by
+            send(index, with_task=True)
+            return
+        shares.finish(index, part)
+        send_next()
+
+    def ready(_: Any) -> None:
+        for _ in range(IN_FLIGHT):
+            send_next()
+
+    for _ in range(processes):
+        pool.apply_async(keep_task, (key, payload), callback=guarded(ready), error_callback=shares.fail)
 
 
 def _dask_worker_environment() -> Any:

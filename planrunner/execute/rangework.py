@@ -46,9 +46,22 @@ def call_cached_range(key: str, payload: bytes | None, start: int, stop: int) ->
     if task is None:
         if payload is None:
             return NEEDS_TASK
-        task = pickle.loads(payload)
-        with _KEEPING:
-            while len(TASKS) >= TASKS_KEPT:
-                del TASKS[next(iter(TASKS))]
-            TASKS[key] = task
+        task = _keep(key, payload)
     return task(start, stop)
+
+
+def keep_task(key: str, payload: bytes) -> bool:
+    """Unpickle and keep the task ``key`` (importing the engine it needs) before any range is sent:
+    the answer tells the sender that this worker is up."""
+    if key not in TASKS:
+        _keep(key, payload)
+    return True
+
+
+def _keep(key: str, payload: bytes) -> Any:
+    task = pickle.loads(payload)
+    with _KEEPING:
+        while len(TASKS) >= TASKS_KEPT:
+            del TASKS[next(iter(TASKS))]
+        TASKS[key] = task
+    return task
