@@ -14,7 +14,7 @@ from conftest import fixed_clock
 
 from planrunner.engines import batched, permutation, schemes
 from planrunner.engines.permcore import PermutationOptions
-from planrunner.engines.statistics import bind, get_statistic
+from planrunner.engines.statistics import STATISTICS, bind, get_statistic
 from planrunner.engines.streams import Stream
 from planrunner.execute.executors import Execution
 from planrunner.pipeline.run import load_plan
@@ -78,6 +78,38 @@ def test_batched_cells_bootstrap_replicates_are_each_data_sets_own(count, name, 
         replicates = batched.cells_replicates(stacked, lays[0], statistic, STREAMS[:count], resamples,
                                               batch_elements=budget)
         assert all(np.array_equal(replicates[k], own[k]) for k in range(count)), budget
+
+
+def _batched_statistics() -> list[str]:
+    """Every registered statistic the cells bootstrap batches (one column, no fast path, no model)."""
+    out = []
+    for name, statistic in STATISTICS.items():
+        if statistic.parameter is not None:
+            statistic = bind(statistic, 0.25)
+        if (statistic.columns == 1 and statistic.samples in (1, 2) and statistic.form != "model"
+                and not schemes.fast_path_applies(statistic, None)):
+            out.append(name)
+    return out
+
+
+def test_every_batched_bootstrap_statistic_reduces_each_row_alone():
+    """Every statistic the batch carries gives each data set's own replicates, bit for bit, in passes
+    that split data sets and resamples anywhere (0/1 data, so that proportions, risks and odds apply)."""
+    names = _batched_statistics()
+    assert {"mean", "mean_difference", "proportion", "sd", "risk_difference", "odds_ratio",
+            "hodges_lehmann", "t_welch"} <= set(names)
+    rng = np.random.default_rng(21)
+    for name in names:
+        statistic = STATISTICS[name] if STATISTICS[name].parameter is None else bind(STATISTICS[name], 0.25)
+        sizes = (14, 14)[:statistic.samples]  # equal: signed_rank pairs them
+        data = [tuple(rng.integers(0, 2, n).astype(float) for n in sizes) for _ in range(3)]
+        lays = [schemes.layout(d, None) for d in data]
+        stacked = [np.stack([lay.groups[g] for lay in lays]) for g in range(len(sizes))]
+        replicates = batched.cells_replicates(stacked, lays[0], statistic, STREAMS[:3], 60,
+                                              batch_elements=7 * sum(sizes))
+        for k, lay in enumerate(lays):
+            own = schemes.cells_range(lay, statistic, STREAMS[k], batched.BATCH_ELEMENTS, None, 0, 0, 60)
+            assert np.array_equal(replicates[k], own, equal_nan=True), name
 
 
 def test_passes_cover_every_resample_once_in_order():
@@ -197,9 +229,10 @@ def test_batched_outcomes_are_the_same_on_threads_and_processes(task):
             assert run_scenario(batched_task, 7, execution=execution, pool=pool) == alone, execution.executor
 
 
-def test_a_batch_closes_before_its_replicates_exceed_the_budget(task, monkeypatch):
-    per_dataset = 199 * 4 + 1001 + 199 * 2  # the resamples of one data set's jobs
-    monkeypatch.setattr(run, "BATCH_ELEMENTS", 3 * per_dataset)
+def test_a_batch_closes_before_what_it_holds_exceeds_the_budget(task, monkeypatch):
+    held = run.held_elements(run.compile_dataset(task, 0))
+    assert held == 199 * 6 + 1001 + 7 * 24  # the jobs' resamples and observations (12 rows per arm)
+    monkeypatch.setattr(run, "BATCH_ELEMENTS", 3 * held)
     sizes = [len(batch) for batch in run.batches(dataclasses.replace(task, batch=None), 0, 8)]
     assert sizes == [3, 3, 2]
     monkeypatch.setattr(run, "BATCH_ELEMENTS", 1)

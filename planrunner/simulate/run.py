@@ -179,13 +179,16 @@ def finish_dataset(task: SimulationTask, compiled: _Compiled) -> DatasetOutcome:
 
 def check_memory(task: SimulationTask, workers: int, available: int | None) -> None:
     """Refuse a scenario whose data sets would not fit, as a run refuses a plan (compile/limits.py):
-    the jobs of data set 0, against the memory each of the ``workers`` may use (each holds one data
-    set at a time). A data set 0 the analyses cannot use says nothing about memory: it is skipped."""
+    the jobs of data set 0, against the memory each of the ``workers`` may use, less what a batch
+    holds beside them (its other data sets' observations and batched replicates: at most
+    BATCH_ELEMENTS doubles; see `batches`). A data set 0 the analyses cannot use says nothing about
+    memory: it is skipped."""
     try:
         jobs = compile_jobs(task.plan, simulated_tables(task, 0))
     except PlanrunnerError:
         return
-    limits.check_jobs(jobs, available=None if available is None else available // max(1, workers))
+    beside = 0 if task.batch == 0 else 8 * BATCH_ELEMENTS
+    limits.check_jobs(jobs, available=None if available is None else max(0, available // max(1, workers) - beside))
 
 
 def _failed_whole(plan: Plan, index: int) -> Callable[[str], DatasetOutcome]:
@@ -279,21 +282,27 @@ def run_chunk(task: SimulationTask, start: int, stop: int) -> list[DatasetOutcom
 
 def batches(task: SimulationTask, start: int, stop: int) -> Iterator[list[_Compiled]]:
     """The compiled data sets [start, stop) in consecutive batches of at most ``task.batch`` (None:
-    the whole range), each closed before its data sets' resamples would exceed
-    ``batched.BATCH_ELEMENTS`` doubles (at least one data set a batch)."""
+    the whole range), each closed before what its data sets hold (`held_elements`) would exceed
+    ``BATCH_ELEMENTS`` doubles (at least one data set a batch: a large data set runs alone)."""
     most = stop - start if task.batch is None else task.batch
     batch: list[_Compiled] = []
     kept = 0
     for index in range(start, stop):
         compiled = compile_dataset(task, index)
-        resamples = sum(job_resamples(job) for job in compiled.jobs or ())
-        if batch and (len(batch) == most or kept + resamples > BATCH_ELEMENTS):
+        held = held_elements(compiled)
+        if batch and (len(batch) == most or kept + held > BATCH_ELEMENTS):
             yield batch
             batch, kept = [], 0
         batch.append(compiled)
-        kept += resamples
+        kept += held
     if batch:
         yield batch
+
+
+def held_elements(compiled: _Compiled) -> int:
+    """What a data set of a batch holds until its engines have run: its jobs' observations and,
+    at most, one replicate per resample of each (the batched ones; a jackknife draws none)."""
+    return sum(job_resamples(job) + sum(int(s.size) for s in job.samples) for job in compiled.jobs or ())
 
 
 def run_scenario(task: SimulationTask, replicates: int, *, execution: Execution | None = None,
