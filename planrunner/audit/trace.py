@@ -13,6 +13,7 @@ import re
 AUDIT, SIGN, CLI = "tests/test_audit.py::", "tests/test_signatures.py::", "tests/test_cli.py::"
 QUALIFY = "tests/test_qualify.py::"
 SIMFILE, SIMGEN = "tests/test_simulate_scenarios.py::", "tests/test_simulate_generate.py::"
+BATCHED = "tests/test_batched.py::"
 SIMRUN, SIMCLI, SIMCHECK = ("tests/test_simulate_run.py::", "tests/test_simulate_cli.py::",
                             "tests/test_simulate_checks.py::")
 REHEARSE = "tests/test_rehearse.py::"
@@ -379,6 +380,17 @@ TRACE: dict[str, tuple[str, ...]] = {
         SIMRUN + "test_a_data_set_an_analysis_cannot_use_is_counted_with_its_message",
         SIMRUN + "test_every_executor_gives_the_same_outcomes",
         SIMRUN + "test_data_sets_differ_and_repeat"),
+    # its timings are one machine's under a stated load (benchmarks/simulate.py measures them again;
+    # tests never assert timings); its promise is that batches change no number
+    "Simulation speed": (
+        BATCHED + "test_batched_label_shuffle_nulls_are_each_data_sets_own",
+        BATCHED + "test_batched_cells_bootstrap_replicates_are_each_data_sets_own",
+        BATCHED + "test_every_batched_bootstrap_statistic_reduces_each_row_alone",
+        BATCHED + "test_every_batch_size_gives_the_one_at_a_time_outcomes",
+        BATCHED + "test_batched_outcomes_are_the_same_on_threads_and_processes",
+        BATCHED + "test_simulation_json_is_the_same_with_and_without_batches",
+        BATCHED + "test_a_pass_never_holds_more_draws_than_its_budget",
+        BATCHED + "test_a_batch_closes_before_what_it_holds_exceeds_the_budget"),
     "What a simulation reports": (
         SIMCHECK + "test_power_of_a_permutation_test_matches_the_noncentral_t",
         SIMCHECK + "test_type_i_error_of_a_permutation_test_is_alpha",
@@ -400,8 +412,6 @@ NO_PROMISE: dict[str, str] = {
     "Measured": "timings of one machine on one day; tests never assert timings "
                 "(benchmarks/compare_scipy.py measures them again)",
     "Development": "points to DEVELOPERS.md",
-    "Simulation speed": "timings of one machine under a stated load; tests never assert timings "
-                        "(benchmarks/simulate.py measures them again)",
 }
 
 _HEADING = re.compile(r"^(#{1,3}) (.+?)\s*$")
