@@ -221,12 +221,17 @@ def test_every_batch_size_gives_the_one_at_a_time_outcomes(task, monkeypatch):
         assert len(answered) == 5 * 9
 
 
-def test_batched_outcomes_are_the_same_on_threads_and_processes(task):
+def test_batched_outcomes_are_the_same_on_threads_and_processes(task, monkeypatch):
     alone = run_scenario(task, 7)
     batched_task = dataclasses.replace(task, batch=3)
+    answered: list[bool] = []
+    original = batching._answers
+    monkeypatch.setattr(batching, "_answers", lambda *args: answered.append(original(*args)) or answered[-1])
     for execution in (Execution("threads", 2), Execution("processes", 2)):
         with WorkerPool(execution) as pool:
             assert run_scenario(batched_task, 7, execution=execution, pool=pool) == alone, execution.executor
+    # on threads each thread's engines were answered by its own batches (worker processes count apart)
+    assert answered == [True] * 5 * 7
 
 
 def test_a_batch_closes_before_what_it_holds_exceeds_the_budget(task, monkeypatch):

@@ -13,7 +13,6 @@ runs them, and their signatures stay the same.
 
 from __future__ import annotations
 
-import threading
 from collections.abc import Callable
 from dataclasses import dataclass
 from typing import Any
@@ -26,17 +25,8 @@ RangeTask = Callable[[int, int], np.ndarray]
 # (task, total) -> the task's results over consecutive ranges covering [0, total), in order
 RangeMapper = Callable[[RangeTask, int], list[np.ndarray]]
 
-
-
-class _Installed(threading.local):
-    """The mappers installed in this thread, innermost last: engines run in the thread that
-    installed theirs (executors keep it that way), and simulations on threads install one each."""
-
-    def __init__(self) -> None:
-        self.mappers: list[RangeMapper | None] = [None]
-
-
-_installed = _Installed()
+# the executor's mapper; engines run in the thread that installed it (executors keep it that way)
+_installed: list[RangeMapper | None] = [None]
 
 
 @dataclass(frozen=True)
@@ -60,7 +50,7 @@ class bind:
 
 def map_resamples(task: RangeTask, total: int) -> np.ndarray:
     """``task(0, total)``, or the concatenation of the installed mapper's ranges (the same numbers)."""
-    mapper = _installed.mappers[-1]
+    mapper = _installed[-1]
     if mapper is None or total == 0:
         return task(0, total)
     parts = mapper(task, total)
@@ -74,10 +64,10 @@ class mapping_ranges:
         self._mapper = mapper
 
     def __enter__(self) -> None:
-        _installed.mappers.append(self._mapper)
+        _installed.append(self._mapper)
 
     def __exit__(self, *exc: Any) -> None:
-        _installed.mappers.pop()
+        _installed.pop()
 
 
 def resample_ranges(total: int, pieces: int) -> list[tuple[int, int]]:

@@ -17,7 +17,9 @@ closes a batch before its data sets' resamples would exceed them; a batch holds 
 
 from __future__ import annotations
 
-from collections.abc import Callable, Sequence
+import threading
+from collections.abc import Callable, Iterator, Sequence
+from contextlib import contextmanager
 from dataclasses import dataclass
 from typing import Any
 
@@ -25,7 +27,7 @@ import numpy as np
 
 from planrunner.compile.jobs import Job
 from planrunner.engines import batched, schemes
-from planrunner.engines.blocks import RangeMapper, RangeTask
+from planrunner.engines.blocks import RangeMapper, RangeTask, mapping_ranges
 from planrunner.engines.bootstrap import BootstrapOptions
 from planrunner.engines.permcore import PermutationOptions
 from planrunner.engines.permutation import monte_carlo_mean_difference
@@ -150,6 +152,29 @@ def batch_mapper(jobsets: Sequence[Sequence[Job] | None]) -> RangeMapper:
         for member, values in zip(members, _compute(shape, members)):
             found[member.stream] = (shape, member, values)
     return _mapper(found)
+
+
+# each thread's batch mapper: the engines read the one mapper installed last (engines.blocks keeps
+# one stack for the process), so every simulating thread installs the same dispatcher, which hands
+# a range task to the mapper of the thread that runs it
+_by_thread: dict[int, RangeMapper] = {}
+
+
+def _dispatch(task: RangeTask, total: int) -> list[np.ndarray]:
+    mine = _by_thread.get(threading.get_ident())
+    return [task(0, total)] if mine is None else mine(task, total)
+
+
+@contextmanager
+def answering(jobsets: Sequence[Sequence[Job] | None]) -> Iterator[None]:
+    """``with answering(jobsets): ...`` runs the engines inside with this thread's batch mapper."""
+    me = threading.get_ident()
+    _by_thread[me] = batch_mapper(jobsets)
+    try:
+        with mapping_ranges(_dispatch):
+            yield
+    finally:
+        del _by_thread[me]
 
 
 def _mapper(found: dict[Stream, tuple[_Shape, _Member, np.ndarray]]) -> Callable[[RangeTask, int], list[np.ndarray]]:

@@ -28,7 +28,7 @@ from planrunner.data.checks import check_tables
 from planrunner.data.columns import table_from_columns
 from planrunner.data.tables import Table
 from planrunner.engines.batched import BATCH_ELEMENTS
-from planrunner.engines.blocks import mapping_ranges, resample_ranges
+from planrunner.engines.blocks import resample_ranges
 from planrunner.engines.statistics import null_value
 from planrunner.engines.streams import Stream, analysis_key
 from planrunner.errors import PlanrunnerError
@@ -45,7 +45,7 @@ from planrunner.execute.families import max_t_families
 from planrunner.plan.schema import Plan
 from planrunner.record.build import family_fields, method_fields
 from planrunner.record.decisions import decision_entry
-from planrunner.simulate.batching import batch_mapper
+from planrunner.simulate.batching import answering
 
 # columns per dataset of one simulated data set, from that data set's generator
 Columns = Mapping[str, Mapping[str, np.ndarray]]
@@ -275,7 +275,7 @@ def run_chunk(task: SimulationTask, start: int, stop: int) -> list[DatasetOutcom
             return [run_dataset(task, index) for index in range(start, stop)]
         out: list[DatasetOutcome] = []
         for batch in batches(task, start, stop):
-            with mapping_ranges(batch_mapper([compiled.jobs for compiled in batch])):
+            with answering([compiled.jobs for compiled in batch]):
                 out.extend(finish_dataset(task, compiled) for compiled in batch)
         return out
 
