@@ -118,3 +118,84 @@ def test_a_run_is_complete_even_when_the_index_cannot_be_written(tmp_path, capsy
     assert main(["run", str(folder / "plan.yaml"), "--param", "month=2026-10", "--quiet"]) == 0
     page = (folder / "runs" / INDEX_FILE).read_text(encoding="utf-8")
     assert page.startswith("<!DOCTYPE html>") and page.count("<tr>\n<td class=\"n\">") == 2  # replaced, both runs
+
+
+# --- the last verify of each run, from the verify log beside the history ------------------------------
+
+TWO_GROUPS = """
+plan: small
+title: Small
+seed: 8
+datasets:
+  d: {file: d.csv, columns: {g: {type: category, levels: [a, b]}, y: {type: number}}}
+analyses:
+  - id: diff
+    data: d
+    outcome: y
+    groups: {by: g, compare: [a, b]}
+    statistic: mean_difference
+    method: permutation
+    resamples: 199
+"""
+
+
+def test_the_index_shows_each_runs_last_verify_from_a_hash_chained_log(write_plan, tmp_path, capsys):
+    from planrunner.record.canonical import self_hash
+    from planrunner.trail.history import ENTRY_HASH_FIELD, GENESIS, VERIFY_FILE
+
+    plan = write_plan(TWO_GROUPS, {"d.csv": "g,y\na,1\na,2\na,4\nb,3\nb,5\nb,6\nb,9\n"})
+    runs = tmp_path / "runs"
+    for reason in ("first", "second"):
+        assert main(["run", str(plan), "--quiet", "--reason", reason]) == 0
+    first, second = (runs / e["folder"] for e in map(json.loads, (runs / "history.jsonl").read_text().splitlines()))
+    page = (runs / INDEX_FILE).read_text(encoding="utf-8")
+    assert page.count("not verified") == 2  # no verify yet: said, never left blank
+    capsys.readouterr()
+
+    assert main(["verify", str(first), "--operator", "Ana Lima"]) == 0
+    out = capsys.readouterr().out
+    assert f"verify result logged: entry 1 of {runs / VERIFY_FILE}" in out and f"index of the runs: {runs}" in out
+    text = plan.read_text(encoding="utf-8")
+    plan.write_text(text + "# edited after the runs\n", encoding="utf-8")  # the plan is no longer the recorded one
+    assert main(["verify", str(second)]) == 3
+    plan.write_text(text, encoding="utf-8")
+    entries = [json.loads(line) for line in (runs / VERIFY_FILE).read_text(encoding="utf-8").splitlines()]
+    head = entries[0]
+    assert (head["seq"], head["folder"], head["passed"], head["operator"]) == (1, first.name, True, "Ana Lima")
+    assert entries[0]["summary"] == "identical" and entries[0]["comparison"] == "same environment"
+    assert entries[1]["passed"] is False and entries[1]["problems"] == ["plan.sha256"]
+    # chained as the run history is: each entry's hash over its content, linked to the one before
+    assert [e["previous_sha256"] for e in entries] == [GENESIS, entries[0][ENTRY_HASH_FIELD]]
+    assert all(e[ENTRY_HASH_FIELD] == self_hash(e, ENTRY_HASH_FIELD) for e in entries)
+
+    runs_seen, _ = gather_runs(runs)
+    assert [(r["verified"]["status"], r["verified"]["utc"]) for r in runs_seen] == [
+        ("verified: PASSED", entries[0]["verified_utc"]), ("verified: FAILED", entries[1]["verified_utc"])]
+    page = (runs / INDEX_FILE).read_text(encoding="utf-8")  # rewritten by the second verify
+    assert page == render_index_of(runs, "html")
+    assert "verified: PASSED" in page and "⚠ verified: FAILED" in page and "1 problem(s): plan.sha256" in page
+    assert entries[0]["verified_utc"][:10] in page and "verified: PASSED" in render_index_of(runs, "md")
+    assert main(["history", str(runs)]) == 0
+    assert "verify log: 2 verify result(s)" in capsys.readouterr().out
+
+    # a pass written over the failure without its hash: the history is broken and the index shows no pass
+    forged = dict(entries[1], passed=True, summary="identical")
+    (runs / VERIFY_FILE).write_text("\n".join(json.dumps(e) for e in (entries[0], forged)) + "\n", encoding="utf-8")
+    assert main(["history", str(runs)]) == 3
+    assert f"{VERIFY_FILE} line 2: the entry was changed after it was written" in capsys.readouterr().out
+    assert [r["verified"]["status"] for r in gather_runs(runs)[0]] == [
+        "verified: PASSED", "verify log changed: its result is not shown"]
+
+
+def test_a_verify_of_a_record_no_history_logs_writes_nothing(write_plan, tmp_path, capsys):
+    plan = write_plan(TWO_GROUPS, {"d.csv": "g,y\na,1\na,2\na,4\nb,3\nb,5\nb,6\nb,9\n"})
+    assert main(["run", str(plan), "--quiet"]) == 0
+    (folder,) = [p for p in (tmp_path / "runs").iterdir() if p.is_dir()]
+    copy = tmp_path / "elsewhere" / folder.name
+    shutil.copytree(folder, copy)
+    capsys.readouterr()
+    assert main(["verify", str(copy), "--plan", str(plan)]) == 0
+    assert "verify result not logged: no run history beside the run folder logs this run" in capsys.readouterr().out
+    assert sorted(p.name for p in (tmp_path / "elsewhere").iterdir()) == [folder.name]
+    assert main(["verify", str(folder), "--operator", "a\u202eb"]) == 2  # refused before the re-run
+    assert not (tmp_path / "runs" / "verifications.jsonl").exists()

@@ -31,6 +31,7 @@ from planrunner.record.build import RunFacts, build_record, environment
 from planrunner.record.canonical import RECORD_HASH_FIELD, differences, record_sha256
 from planrunner.record.permutation import count_value
 from planrunner.record.rehearsal import is_rehearsal
+from planrunner.trail.history import VerifyOutcome
 from planrunner.trail.store import read_json, write_new_file
 
 # Differences no larger than this (relative to the larger magnitude) are floating-point noise:
@@ -320,6 +321,62 @@ def _rerun(record_file: Path, plan_file: Path, recorded: dict, loaded: Any, valu
     found.sort(key=lambda d: HEADLINE.match(d.path) is None)  # the reported numbers first (stable sort)
     return VerifyReport(record_file, plan_file, problems, notes, found, _numbers(recorded), True, plan_changes,
                         causes, basis, is_rehearsal_record)
+
+
+def verify_outcome(report: VerifyReport, signatures_passed: bool) -> VerifyOutcome:
+    """What the verify log keeps of a report: the verdict `verify` prints and how it was reached."""
+    outside = sum(not d.within for d in report.differences)
+    passed = report.passed and signatures_passed
+    if not report.rerun:
+        summary = "not re-run: " + (report.problems[0][1] if report.problems else "the analyses could not be re-run")
+    elif report.problems:
+        summary = f"{len(report.problems)} problem(s): " + ", ".join(where for where, _ in report.problems)
+    elif outside:
+        summary = f"{outside} field(s) outside tolerance"
+    elif report.differences:
+        summary = f"within tolerance ({len(report.differences)} field(s) differ)"
+    else:
+        summary = "identical"
+    if report.rerun and not report.problems and not signatures_passed:
+        summary += "; signatures fail"
+    basis = report.basis
+    comparison = ("" if basis is None else "same environment" if basis.same_environment
+                  else "reference draws" if basis.reference_draws else "other draws")
+    return VerifyOutcome(passed=passed, summary=summary, fields_differing=len(report.differences),
+                         fields_outside=outside, problems=tuple(where for where, _ in report.problems),
+                         signatures_passed=signatures_passed, comparison=comparison)
+
+
+@dataclass(frozen=True)
+class VerifyLogged:
+    log: Path  # verifications.jsonl
+    entry: dict
+    index: Path | None  # the index page, rewritten to show it
+    index_problem: str | None = None  # why the index page could not be rewritten (the entry is in the log)
+
+
+def log_verification(report: VerifyReport, signatures_passed: bool, *, operator: str,
+                     verified_utc: str) -> VerifyLogged | None:
+    """Append this verify to the verify log beside the run's history (`verifications.jsonl`) and
+    rewrite the index page there; None when no history logs the run (a copy elsewhere, history off, a
+    rehearsal): nothing is written then. Raises OutputError when the log cannot be appended to."""
+    from planrunner import __version__
+    from planrunner.trail.files import append_verification, verify_log_for
+    from planrunner.trail.history import VERIFY_FILE, new_verification
+    from planrunner.trail.index import refresh_index
+
+    _, record = read_record(report.record_file)
+    out_root = None if report.rehearsal else verify_log_for(report.record_file, record)
+    if out_root is None:
+        return None
+    outcome = verify_outcome(report, signatures_passed)
+    entry = append_verification(out_root, lambda last: new_verification(
+        last, record, report.record_file.resolve().parent.name, verified_utc=verified_utc, operator=operator,
+        planrunner=__version__, outcome=outcome))
+    try:
+        return VerifyLogged(out_root / VERIFY_FILE, entry, refresh_index(out_root))
+    except (PlanrunnerError, OSError) as exc:  # the page is a view: the entry is kept whatever happens to it
+        return VerifyLogged(out_root / VERIFY_FILE, entry, None, str(exc))
 
 
 def data_causes(recorded: dict, changed: dict[str, tuple[str, str]], tables: dict[str, Any]) -> list[str]:

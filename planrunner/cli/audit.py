@@ -53,6 +53,7 @@ def _add_audit_verbs(verbs: Any) -> None:
     add_execution_options(verify)
     verify.add_argument("--data-root", metavar="DIR", help=DATA_ROOT_HELP)
     verify.add_argument("--signers", metavar="FILE", help="the trusted signers (default: signers.yaml beside the plan)")
+    verify.add_argument("--operator", help="who verifies (default: the login name); kept in the verify log")
     verify.add_argument("--differences", metavar="FILE",
                         help="write every differing field to FILE (default: planrunner-verify-RUN-TIME.tsv "
                              "in the temporary folder, when more differ than the terminal shows)")
@@ -157,6 +158,9 @@ def _verify(args: argparse.Namespace) -> int:
     from planrunner.audit.signing import record_signatures
     from planrunner.audit.verbs import find_plan, read_record, verify_record
     from planrunner.cli.signing import signature_lines
+    from planrunner.trail.names import require_person_name
+    if args.operator is not None:  # before the re-run: the name is written on one line of the verify log
+        require_person_name(args.operator, "--operator")
     record_file, recorded = read_record(args.record)
     signatures = record_signatures(record_file, find_plan(record_file, recorded, args.plan), args.signers)
     report = verify_record(args.record, plan=args.plan, execution=execution_of(args), data_root=args.data_root)
@@ -171,6 +175,8 @@ def _verify(args: argparse.Namespace) -> int:
         print(f"  note (stated, not a failure): {note}")
     if report.basis is not None:
         print(f"comparison: {report.basis.statement()}")
+    # said before the fields: the output leads with the causes and ends with the result, the verdict last
+    _log_verification(report, signatures.passed, args.operator)
     for where, what in report.problems:
         print(f"  DIFFERENCE {where}: {what}")
     for change in report.plan_changes:
@@ -203,6 +209,26 @@ def _verify(args: argparse.Namespace) -> int:
                    else "it did not re-run to the same numbers")
         print(f"*** {REHEARSAL_WORDS}; {outcome}, and it is never a valid result ***")
     return EXIT_OK if passed else EXIT_DIFFERS
+
+
+def _log_verification(report: Any, signatures_passed: bool, operator: str | None) -> None:
+    """Keep the verdict in the verify log beside the run's history; a log that cannot be written is
+    said, and changes neither the verdict nor the exit code."""
+    from planrunner.audit.verbs import log_verification
+    from planrunner.errors import OutputError
+    from planrunner.pipeline.run import _stamp, default_operator, utc_now
+    try:
+        logged = log_verification(report, signatures_passed, operator=operator or default_operator(),
+                                  verified_utc=_stamp(utc_now()))
+    except OutputError as exc:
+        print(f"verify result NOT logged: {exc}")
+        return
+    if logged is None:
+        print("verify result not logged: no run history beside the run folder logs this run")
+    else:
+        print(f"verify result logged: entry {logged.entry['seq']} of {logged.log}")
+        print(f"index of the runs: {logged.index}" if logged.index is not None
+              else f"index of the runs NOT updated: {logged.index_problem}")
 
 
 def _print_differences(report: Any, target: str | None) -> None:
@@ -266,6 +292,8 @@ def _history(args: argparse.Namespace) -> int:
         print(f"  BROKEN {'line ' + str(p.line) if p.line else 'log'}: {p.message}")
     print("history chain: intact" if not report.problems
           else f"history chain: BROKEN ({len(report.problems)} problem(s))")
+    if report.verifications:
+        print(f"verify log: {report.verifications} verify result(s) in {report.log.parent / 'verifications.jsonl'}")
     for line in signature_lines(signatures):
         print(line)
     if args.html or args.markdown:

@@ -1,7 +1,8 @@
-"""The audit trail's files: plan locks (PLAN.lock.json) and the run history (history.jsonl).
+"""The audit trail's files: plan locks (PLAN.lock.json), the run history (history.jsonl) and the
+verify log beside it (verifications.jsonl).
 
 The logic is pure and lives in `lock` and `history`. Nothing is ever replaced: a lock is created
-new by `store.write_new_file` and read back by `store.read_json`; the history is only appended to.
+new by `store.write_new_file` and read back by `store.read_json`; the two logs are only appended to.
 """
 
 from __future__ import annotations
@@ -23,6 +24,7 @@ from planrunner.trail.history import (
     ENTRY_HASH_FIELD,
     GENESIS,
     HISTORY_FILE,
+    VERIFY_FILE,
     HistoryProblem,
     check_chain,
     entry_line,
@@ -169,11 +171,7 @@ class HistoryLog:
         return self._pending
 
     def _text(self) -> str:
-        try:
-            with open(self._log, encoding="utf-8", newline="") as handle:  # lines end at \n only
-                return handle.read()
-        except FileNotFoundError:
-            return ""
+        return _log_text(self._log)
 
     def _entries(self) -> list[dict]:
         return parse_lines(self._text())[0]
@@ -184,13 +182,7 @@ class HistoryLog:
 
     def append_entry(self, entry: dict) -> None:
         """Append one entry as one line (the log is only ever appended to), flushed to disk."""
-        text = self._text()
-        with open(self._log, "a", encoding="utf-8", newline="\n") as handle:
-            if text and not text.endswith("\n"):
-                handle.write("\n")
-            handle.write(entry_line(entry) + "\n")
-            handle.flush()
-            os.fsync(handle.fileno())
+        _append_line(self._log, self._text(), entry)
 
     def _recover(self) -> list[dict]:
         recovered = []
@@ -208,6 +200,25 @@ class HistoryLog:
                 recovered.append(entry)
             # otherwise the folder stays as it is, and `history` says why
         return recovered
+
+
+def _append_line(log: Path, text: str, entry: dict) -> None:
+    """Append ``entry`` as one line to ``log``, whose text is ``text`` now; flushed to disk."""
+    with open(log, "a", encoding="utf-8", newline="\n") as handle:
+        if text and not text.endswith("\n"):
+            handle.write("\n")
+        handle.write(entry_line(entry) + "\n")
+        handle.flush()
+        os.fsync(handle.fileno())
+
+
+def _log_text(log: Path) -> str:
+    """A log's text, read with lines ending at \n only; empty when there is no log yet."""
+    try:
+        with open(log, encoding="utf-8", newline="") as handle:
+            return handle.read()
+    except FileNotFoundError:
+        return ""
 
 
 def _waiting_entry(waiting: Path) -> dict | None:
@@ -258,6 +269,7 @@ class HistoryReport:
     log: Path
     entries: list[dict]
     problems: list[HistoryProblem]
+    verifications: int = 0  # entries of the verify log beside it
 
 
 def history_report(target: str | Path) -> HistoryReport:
@@ -302,5 +314,54 @@ def history_report(target: str | Path) -> HistoryReport:
         else:
             problems.append(HistoryProblem(0, f"run folder {folder.name} is not in the history "
                                               "(entries may have been removed from the end of the log)"))
+    verifications, verify_problems = read_verifications(log.parent)
+    problems += [HistoryProblem(0, f"{VERIFY_FILE} line {p.line}: {p.message}") for p in verify_problems]
     return HistoryReport(log, [{k: v for k, v in e.items() if k != "_line"} for e in entries],
-                         sorted(problems, key=lambda p: p.line))
+                         sorted(problems, key=lambda p: p.line), len(verifications))
+
+
+# --- the verify log --------------------------------------------------------------------------------
+
+def verify_log_for(record_file: Path, record: dict) -> Path | None:
+    """The output folder whose verify log takes the verify of this record: the folder holding its run
+    folder, when that folder's history logs this run there; None for a record that no history logs
+    (a copy elsewhere, a run with history off, a rehearsal)."""
+    out_root = record_file.resolve().parent.parent
+    entries, _ = parse_lines(_log_text(out_root / HISTORY_FILE))
+    logged = any(e.get("run_id") == record.get("run_id") and e.get("folder") == record_file.resolve().parent.name
+                 for e in entries)
+    return out_root if logged else None
+
+
+def append_verification(out_root: Path, make: Callable[[dict | None], dict]) -> dict:
+    """Append the entry ``make(last entry)`` gives to the output folder's verify log, holding the
+    folder as a run holds it while it appends to the history."""
+    log = out_root / VERIFY_FILE
+    try:
+        lock = _lock_folder(out_root)
+    except OSError as exc:
+        raise OutputError(f"cannot use the output folder: {exc.strerror or exc}", where=str(out_root)) from None
+    try:
+        text = _log_text(log)
+        entries, _ = parse_lines(text)
+        last = {k: v for k, v in entries[-1].items() if k != "_line"} if entries else None
+        entry = make(last)
+        try:
+            _append_line(log, text, entry)
+        except OSError as exc:
+            raise OutputError(f"cannot append to the verify log: {exc.strerror or exc}", where=str(log),
+                              hint="free space or check the folder's permissions") from None
+        return entry
+    finally:
+        if lock is not None:
+            os.close(lock)
+
+
+def read_verifications(out_root: Path) -> tuple[list[dict], list[HistoryProblem]]:
+    """The verify log's entries (with their `_line`) and every way its chain is broken."""
+    try:
+        text = _log_text(out_root / VERIFY_FILE)
+    except (OSError, UnicodeDecodeError) as exc:
+        return [], [HistoryProblem(0, f"cannot read the verify log: {exc}")]
+    entries, problems = parse_lines(text)
+    return entries, sorted(problems + check_chain(entries), key=lambda p: p.line)

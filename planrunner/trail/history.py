@@ -112,3 +112,62 @@ def check_chain(entries: list[dict[str, Any]]) -> list[HistoryProblem]:
         seq = body.get("seq")
         expected_seq = (seq if isinstance(seq, int) else expected_seq) + 1
     return problems
+
+
+# --- the verify log: what `planrunner verify` found, kept beside the history --------------------------
+# `verifications.jsonl` beside `history.jsonl`: one entry per verify of a logged run, appended only,
+# chained by hash exactly as the history is (seq, previous_sha256, entry_sha256; `check_chain`).
+
+VERIFY_FILE = "verifications.jsonl"
+VERIFY_FORMAT = "planrunner.verification/1"
+
+
+@dataclass(frozen=True)
+class VerifyOutcome:
+    """What one verify found, as its log entry keeps it."""
+
+    passed: bool  # verify's own verdict: exit 0
+    summary: str  # "identical", "within tolerance", "3 field(s) outside tolerance", ...
+    fields_differing: int
+    fields_outside: int
+    problems: tuple[str, ...]  # the fields of every problem (record_sha256, datasets[0].sha256, ...)
+    signatures_passed: bool
+    comparison: str  # which tolerance rule applied: "same environment", "reference draws", "other draws", ""
+
+
+def new_verification(previous: dict[str, Any] | None, record: dict[str, Any], folder: str, *, verified_utc: str,
+                     operator: str, planrunner: str, outcome: VerifyOutcome) -> dict[str, Any]:
+    """The next entry of the verify log, for the record verified (its run id, folder and recorded hash)."""
+    entry: dict[str, Any] = {
+        "format": VERIFY_FORMAT,
+        "seq": 1 if previous is None else int(previous.get("seq", 0)) + 1,
+        "run_id": record.get("run_id"),
+        "folder": folder,
+        "record_sha256": record.get("record_sha256"),
+        "verified_utc": verified_utc,
+        "operator": operator,
+        "planrunner": planrunner,
+        "passed": outcome.passed,
+        "summary": outcome.summary,
+        "fields_differing": outcome.fields_differing,
+        "fields_outside": outcome.fields_outside,
+        "problems": list(outcome.problems),
+        "signatures_passed": outcome.signatures_passed,
+        "comparison": outcome.comparison,
+        "previous_sha256": GENESIS if previous is None else previous.get(ENTRY_HASH_FIELD),
+    }
+    entry[ENTRY_HASH_FIELD] = self_hash(entry, ENTRY_HASH_FIELD)
+    return entry
+
+
+def latest_verifications(entries: list[dict[str, Any]]) -> dict[str, dict[str, Any]]:
+    """The last verify of each run (by run id, then record hash), with `intact`: whether its entry and
+    every entry before it still hold their hashes and links (an edited log is never shown as a pass)."""
+    broken = {p.line for p in check_chain(entries)}
+    first_broken = min(broken) if broken else None
+    latest: dict[str, dict[str, Any]] = {}
+    for e in entries:
+        intact = first_broken is None or e.get("_line", 0) < first_broken
+        latest[f"{e.get('run_id')} {e.get('record_sha256')}"] = {
+            **{k: v for k, v in e.items() if k != "_line"}, "intact": intact}
+    return latest
