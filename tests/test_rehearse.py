@@ -542,3 +542,36 @@ def test_xpt_and_xlsx_datasets_rehearse_and_verify_from_the_command_line(write_p
     assert cli.main(["verify", str(folder)]) == 3
     out = capsys.readouterr().out
     assert "is not the one the recorded seed makes" in out and "verify: FAILED" in out
+
+
+def test_what_xpt_cannot_hold_is_one_located_message_per_column(write_plan):
+    long_level = "x" * 201
+    plan = write_plan(f"""\
+        plan: v5
+        title: Columns version 5 cannot hold
+        seed: 3
+        datasets:
+          d:
+            file: d.xpt
+            columns:
+              g: {{type: category, levels: [a, "{long_level}"]}}
+              outcome_1: {{type: number}}
+              visits: {{type: integer, min: 9007199254740993, max: 9007199254740995}}
+        analyses:
+          - id: one
+            data: d
+            outcome: outcome_1
+            groups: {{by: g, compare: [a, "{long_level}"]}}
+            statistic: mean_difference
+            method: bootstrap
+            resamples: 99
+        """)
+    loaded, _ = load_plan(plan)
+    with pytest.raises(PlanError) as caught:
+        dummy_data(loaded, seed=3, units=8)
+    problems = caught.value.problems
+    assert len(problems) == 3
+    assert problems[0].startswith(f"{plan}:8:10: datasets.d.columns.g: its longest value is 201 bytes")
+    assert problems[1].startswith(f"{plan}:9:7: datasets.d.columns.outcome_1: 'outcome_1' is not a version 5 "
+                                  "variable name") and "e.g. to 'outcome_'" in problems[1]
+    assert problems[2].startswith(f"{plan}:10:15: datasets.d.columns.visits: whole numbers beyond ±2^53")

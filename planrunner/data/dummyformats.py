@@ -18,6 +18,7 @@ from typing import Any
 
 import numpy as np
 
+from planrunner.data.formats import SAS_EPOCH
 from planrunner.data.sheets import MAX_ROWS, cell_problems, title_problems, write_sheet
 from planrunner.data.xpt import SAS_NAME, XptColumn, column_problems, write_xpt
 from planrunner.errors import PlanError
@@ -26,7 +27,6 @@ from planrunner.plan.problems import Problem
 from planrunner.plan.schema import Dataset
 
 LABEL = "REHEARSAL DUMMY DATA"
-SAS_EPOCH = np.datetime64("1960-01-01", "D")
 EXACT_INTEGERS = 2 ** 53  # integers beyond this are not all doubles: an XPT file would change them
 
 
@@ -42,11 +42,16 @@ def _column_path(name: str, column: str) -> tuple[str, ...]:
 
 def _xpt_column(column: str, kind: str, values: np.ndarray) -> XptColumn:
     if kind == "date":
-        days = (values.astype("datetime64[D]") - SAS_EPOCH).astype(np.int64).astype(np.float64)
+        days = (values.astype("datetime64[D]") - np.datetime64(SAS_EPOCH, "D")).astype(np.int64).astype(np.float64)
         return XptColumn(column, days, True, display_format=("DATE", 9, 0))
     if kind in ("number", "integer", "boolean"):
         return XptColumn(column, np.asarray(values, dtype=np.float64), True)
     return XptColumn(column, np.asarray(values, dtype=object), False)
+
+
+def _largest(whole: np.ndarray) -> int:
+    """The largest magnitude of whole numbers, in Python integers (no float rounding, no overflow)."""
+    return max(abs(int(whole.min())), abs(int(whole.max()))) if whole.size else 0
 
 
 def member_name(name: str, file: str) -> str:
@@ -64,7 +69,7 @@ def dummy_xpt(loaded: LoadedPlan, name: str, spec: Dataset, columns: dict[str, n
     for column, declared in spec.columns.items():
         variable = _xpt_column(column, declared.type, columns[column])
         found = column_problems(variable)
-        if declared.type == "integer" and np.abs(variable.values).max(initial=0.0) > EXACT_INTEGERS:
+        if declared.type == "integer" and _largest(columns[column]) > EXACT_INTEGERS:
             found.append(("values", "whole numbers beyond ±2^53 are not all exact as doubles, the only numbers a "
                                     "version 5 file holds", f"declare min and max within ±{EXACT_INTEGERS}"))
         problems += [Problem(_column_path(name, column), what, hint, at_key=part == "name")

@@ -25,6 +25,7 @@ from __future__ import annotations
 import re
 import struct
 from dataclasses import dataclass
+from functools import cached_property
 
 import numpy as np
 
@@ -217,11 +218,14 @@ class XptColumn:
     label: str = ""
     display_format: tuple[str, int, int] | None = None  # (name, width, decimals), e.g. ("DATE", 9, 0)
 
+    @cached_property
     def encoded(self) -> list[bytes]:
         return [str(v).encode("utf-8") for v in self.values]
 
+    @cached_property
     def length(self) -> int:
-        return 8 if self.numeric else max([1, *(len(v) for v in self.encoded())])
+        """Bytes per observation: 8 for a number, the longest value's for text (at least 1)."""
+        return 8 if self.numeric else max([1, *(len(v) for v in self.encoded)])
 
 
 def double_to_ibm(values: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -266,8 +270,8 @@ def column_problems(column: XptColumn) -> list[tuple[str, str, str]]:
             problems.append(("values", f"{int(refused.sum())} value(s) lie outside the range of IBM doubles, e.g. "
                                        f"{first!r} (non-zero magnitudes from 16^-65 ≈ 5.4e-79 to below 16^63 ≈ 7.2e75)",
                              "declare min and max inside that range"))
-    elif column.length() > CHARACTER_LENGTH:
-        problems.append(("values", f"its longest value is {column.length()} bytes; a version 5 character variable "
+    elif column.length > CHARACTER_LENGTH:
+        problems.append(("values", f"its longest value is {column.length} bytes; a version 5 character variable "
                                    f"holds at most {CHARACTER_LENGTH}",
                          f"shorten the values to {CHARACTER_LENGTH} bytes"))
     return problems
@@ -288,7 +292,7 @@ def _header(prefix: bytes, *fields: bytes) -> bytes:
 
 def _namestr(number: int, column: XptColumn, position: int) -> bytes:
     form, width, decimals = column.display_format or ("", 0, 0)
-    return _NAMESTR_LAYOUT.pack(1 if column.numeric else 2, 0, column.length(), number,
+    return _NAMESTR_LAYOUT.pack(1 if column.numeric else 2, 0, column.length, number,
                                 column.name.encode("ascii").ljust(8), column.label.encode("ascii").ljust(40),
                                 form.encode("ascii").ljust(8), width, decimals, 0, bytes(2), b" " * 8, 0, 0,
                                 position, bytes(52))
@@ -321,7 +325,7 @@ def write_xpt(member: str, label: str, columns: list[XptColumn]) -> bytes:
             _header(b"SAS     ", member.encode("ascii").ljust(8), b"SASDATA ", blank, blank, b" " * 24, FIXED_STAMP),
             _header(FIXED_STAMP, b" " * 16, label.encode("ascii").ljust(40), blank),
             _header(_NAMESTR, f"000000{len(columns):04d}00000000000000000000  ".encode("ascii"))]
-    positions = np.cumsum([0] + [c.length() for c in columns])
+    positions = np.cumsum([0] + [c.length for c in columns])
     descriptions = b"".join(_namestr(i + 1, c, int(positions[i])) for i, c in enumerate(columns))
     rows = len(columns[0].values)
     table = np.empty((rows, int(positions[-1])), dtype=np.uint8)
@@ -329,6 +333,6 @@ def write_xpt(member: str, label: str, columns: list[XptColumn]) -> bytes:
         if column.numeric:
             table[:, start:stop] = double_to_ibm(column.values)[0]
         else:
-            cells = b"".join(v.ljust(column.length()) for v in column.encoded())
-            table[:, start:stop] = np.frombuffer(cells, dtype=np.uint8).reshape(rows, column.length())
+            cells = b"".join(v.ljust(column.length) for v in column.encoded)
+            table[:, start:stop] = np.frombuffer(cells, dtype=np.uint8).reshape(rows, column.length)
     return (b"".join(head) + _padded(descriptions) + _header(_OBS, _ZEROS) + _padded(table.tobytes()))
