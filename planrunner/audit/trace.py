@@ -264,7 +264,8 @@ TRACE: dict[str, tuple[str, ...]] = {
         "test_a_columns_values_do_not_depend_on_the_other_columns",
         "test_a_filter_dummy_data_cannot_meet_is_one_located_message",
         "test_a_rehearsal_never_enters_a_run_history_and_a_log_naming_one_is_flagged",
-        "test_xpt_and_xlsx_datasets_rehearse_and_verify_from_the_command_line")) + tuple(
+        "test_xpt_and_xlsx_datasets_rehearse_and_verify_from_the_command_line",
+        "test_what_xpt_cannot_hold_is_one_located_message_per_column")) + tuple(
         "tests/test_data_writers.py::" + name for name in (
             "test_ibm_worked_conversions", "test_ibm_bytes_equal_an_independent_writers",
             "test_every_double_in_ibms_range_round_trips_exactly",
