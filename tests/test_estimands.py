@@ -159,3 +159,15 @@ def test_bootstrap_percentile_interval_agrees_with_scipy_whichever_is_prespecifi
     # about 4 Monte Carlo s.d. of the difference of two independent estimates (ours at B = 2000, scipy's at 20000)
     assert abs(ours["lower"] - theirs.low) < 4 * sd["lower_sd"] * np.sqrt(1 + 2000 / 20000)
     assert abs(ours["upper"] - theirs.high) < 4 * sd["upper_sd"] * np.sqrt(1 + 2000 / 20000)
+
+
+@pytest.mark.parametrize("demo", ["liner-trial", "monthly-fill", "seal-endurance"])
+def test_every_estimand_of_a_demo_plan_is_targeted_and_every_primary_names_one(demo):
+    from pathlib import Path
+
+    plan = read_plan(Path(__file__).resolve().parents[1] / "plans" / demo / "plan.yaml").plan
+    targeted = {a.estimand for a in plan.analyses if a.estimand is not None}
+    assert plan.estimands and targeted == set(plan.estimands)  # none declared for nothing, none missing
+    assert all(a.estimand is not None for a in plan.analyses if a.role == "primary")
+    if demo == "seal-endurance":  # a test of equal curves estimates no summary: the log-rank tests name none
+        assert {a.id for a in plan.analyses if a.estimand is None} == {"leak-logrank", "rinse-logrank"}

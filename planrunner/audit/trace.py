@@ -83,6 +83,7 @@ TRACE: dict[str, tuple[str, ...]] = {
         "tests/test_estimands.py::test_role_left_out_keeps_the_old_default_and_numbers",
         "tests/test_estimands.py::test_reports_and_terminal_label_the_supplementary_interval_and_show_the_estimand",
         "tests/test_estimands.py::test_role_rules_are_checked_before_data",
+        "tests/test_estimands.py::test_every_estimand_of_a_demo_plan_is_targeted_and_every_primary_names_one",
         "tests/test_estimands.py::test_a_changed_prespecified_interval_or_estimand_is_a_deviation_named_by_its_path",
         "tests/test_plan_corpus.py::test_invalid_plan_is_reported_where_and_what"),
     "Decision rules": (
