@@ -25,7 +25,7 @@ from pathlib import Path
 import pytest
 
 from planrunner.cli import main as cli
-from planrunner.pipeline import run as runner
+from planrunner.pipeline import check as checker
 from planrunner.plan import load as plancheck
 
 HERE = Path(__file__).resolve().parent
@@ -88,7 +88,7 @@ def test_bad_input_gives_one_clear_message(case: Case, tmp_path: Path, monkeypat
         shutil.copytree(case.source, copy)
         plan = copy / "plan.yaml"
     if case.memory is not None:
-        monkeypatch.setattr(runner, "available_memory", lambda: case.memory)
+        monkeypatch.setattr(checker, "available_memory", lambda: case.memory)
     for key in case.designs:
         for method in list(plancheck.SUPPORTED_DESIGNS):
             monkeypatch.setitem(plancheck.SUPPORTED_DESIGNS, method, plancheck.SUPPORTED_DESIGNS[method] + (key,))

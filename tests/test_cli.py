@@ -93,11 +93,11 @@ def test_changed_data_file_under_pin_exit_2(tmp_path, capsys):
 
 
 def test_unexpected_failure_exit_1_with_versions(monkeypatch, capsys):
-    import planrunner.pipeline.run as runner
+    import planrunner.pipeline.check as checker
 
     def boom(*args, **kwargs):
         raise RuntimeError("simulated bug")
-    monkeypatch.setattr(runner, "check_plan", boom)
+    monkeypatch.setattr(checker, "check_plan", boom)
     assert cli.main(["check", str(DEMO)]) == 1
     err = capsys.readouterr().err
     assert "please report" in err and "numpy" in err

@@ -12,6 +12,7 @@ from planrunner.compile import limits
 from planrunner.data.checks import check_analysis
 from planrunner.data.tables import read_table
 from planrunner.errors import DataError
+from planrunner.pipeline import check as checker
 from planrunner.pipeline import run as runner
 from planrunner.plan.schema import Plan
 
@@ -109,10 +110,10 @@ def test_memory_estimate_follows_the_stated_rule(write_plan, monkeypatch):
     job = runner.check_plan(path).jobs[0]
     # kept 8*B, plus for the largest analysis 8*B more and 32 bytes * 2,000,000 draws
     assert limits.estimate_run_bytes([job]) == 8 * 100_000 * 2 + 32 * 2_000_000  # the README rule
-    monkeypatch.setattr(runner, "available_memory", lambda: 10_000_000)
+    monkeypatch.setattr(checker, "available_memory", lambda: 10_000_000)
     with pytest.raises(DataError, match="the run needs about 63 MB of memory, more than the 7.6 MB"):
         runner.check_plan(path)
-    monkeypatch.setattr(runner, "available_memory", lambda: None)  # unknown: no refusal
+    monkeypatch.setattr(checker, "available_memory", lambda: None)  # unknown: no refusal
     assert runner.check_plan(path).jobs
 
 

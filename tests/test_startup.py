@@ -63,6 +63,22 @@ def test_plan_only_check_loads_no_heavy_library(tmp_path, plan):
     assert not packages & set(HEAVY), sorted(packages & set(HEAVY))
 
 
+# what only a run needs: computing on workers, the record, the reports, signing; `check` reads the
+# plan and the data and builds the jobs, and imports none of them (pipeline/check.py)
+RUN_ONLY = ("planrunner.execute.executors", "planrunner.execute.rangework", "planrunner.record.build",
+            "planrunner.report", "planrunner.pipeline.run", "multiprocessing", "concurrent.futures")
+
+
+@pytest.mark.parametrize("plan", sorted(p.name for p in (ROOT / "plans").iterdir() if (p / "plan.yaml").is_file()))
+def test_check_with_data_loads_nothing_only_a_run_needs(tmp_path, plan):
+    code, modules = modules_loaded_by(tmp_path, "check", str(ROOT / "plans" / plan / "plan.yaml"))
+    assert code == 0
+    assert {"planrunner.pipeline.check", "planrunner.compile.jobs", "numpy"} <= modules  # data read, jobs built
+    loaded = sorted(name for name in modules if name.startswith(RUN_ONLY))
+    assert loaded == [], loaded
+    assert not {name.split(".")[0] for name in modules} & set(HEAVY)
+
+
 def test_the_probe_sees_the_libraries_a_run_needs_and_no_more(tmp_path):
     # the same probe on a run, which writes reports, must see jinja2 and the SVG writer: else the tests
     # above would prove nothing

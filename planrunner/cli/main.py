@@ -234,7 +234,7 @@ def _dispatch(args: argparse.Namespace, args_list: list[str]) -> int:
 
 
 def _check(args: argparse.Namespace) -> int:
-    from planrunner.pipeline.run import check_plan
+    from planrunner.pipeline.check import check_plan
     from planrunner.plan.params import parse_assignments
     outcome = check_plan(args.plan, with_data=not args.plan_only, params=parse_assignments(args.param),
                          data_root=args.data_root)
