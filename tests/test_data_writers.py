@@ -98,6 +98,7 @@ def test_values_outside_ibms_range_are_flagged_never_rounded():
 def columns_for_test() -> list[XptColumn]:
     days = np.array([0.0, 24_107.0, -1.0, 23_742.0])  # 1960-01-01, 2026-01-01, 1959-12-31, 2025-01-01
     return [XptColumn("ARM", np.array(["drug", "placebo", "drug", "ä-level"], dtype=object), False, "Arm"),
+            XptColumn("note", np.array(["n1", None, "n3", "n4"], dtype=object), False),
             XptColumn("score", np.array([1.0, -118.625, np.nan, 0.1]), True, "Score (points)"),
             XptColumn("visits", np.array([0.0, 3.0, 2.0 ** 53, -7.0]), True),
             XptColumn("day", days, True, "Visit day", ("DATE", 9, 0))]
@@ -112,23 +113,24 @@ def test_our_xpt_files_read_back_through_three_readers(tmp_path: Path):
     # planrunner's own reader
     ours = read_xpt(data, "scores.xpt")
     assert (ours.dataset, ours.label) == ("SCORES", "Scores")
-    assert [v.name for v in ours.variables] == ["ARM", "score", "visits", "day"]
+    assert [v.name for v in ours.variables] == ["ARM", "note", "score", "visits", "day"]
     assert ours.columns["ARM"] == ["drug", "placebo", "drug", "ä-level"]
+    assert ours.columns["note"] == ["n1", "", "n3", "n4"]  # a missing text value is blanks
     assert ours.columns["score"] == [1.0, -118.625, None, 0.1]
     assert ours.columns["visits"] == [0.0, 3.0, 2.0 ** 53, -7.0]
-    assert [v.display_format for v in ours.variables] == [None, None, None, "DATE9."]
+    assert [v.display_format for v in ours.variables] == [None, None, None, None, "DATE9."]
     # Source: pyreadstat (ReadStat) as an outside reader: names, labels, values, dates (DATE9.: days from 1960)
     frame, meta = pyreadstat.read_xport(str(path), encoding="utf-8")
-    assert meta.column_names == ["ARM", "score", "visits", "day"]
-    assert meta.column_labels[:2] == ["Arm", "Score (points)"] and meta.table_name == "SCORES"
-    assert frame["ARM"].tolist() == ours.columns["ARM"]
+    assert meta.column_names == ["ARM", "note", "score", "visits", "day"]
+    assert meta.column_labels[:3] == ["Arm", None, "Score (points)"] and meta.table_name == "SCORES"
+    assert frame["ARM"].tolist() == ours.columns["ARM"] and frame["note"].tolist() == ours.columns["note"]
     np.testing.assert_array_equal(frame["score"].to_numpy(), [1.0, -118.625, np.nan, 0.1])
     assert [pd.Timestamp(d).date() for d in frame["day"]] == [dt.date(1960, 1, 1), dt.date(2026, 1, 1),
                                                             dt.date(1959, 12, 31), dt.date(2025, 1, 1)]
     # Source: pandas.read_sas(format="xport") as an outside reader; it reads an IBM zero as 16^-65
     # (5.4e-79, see V-IBM), every other value as written
     theirs = pd.read_sas(path, format="xport", encoding="utf-8")
-    assert list(theirs.columns) == ["ARM", "score", "visits", "day"]
+    assert list(theirs.columns) == ["ARM", "note", "score", "visits", "day"]
     assert theirs["ARM"].tolist() == ours.columns["ARM"]
     np.testing.assert_array_equal(theirs["score"].to_numpy(), [1.0, -118.625, np.nan, 0.1])
     assert theirs["visits"].tolist() == [IBM_SMALLEST, 3.0, 2.0 ** 53, -7.0]
@@ -231,7 +233,7 @@ def test_a_workbook_reads_back_through_our_sheet_reader_and_pandas():
 
 def test_what_a_sheet_cannot_hold_is_refused():
     with pytest.raises(DataError) as caught:
-        write_sheet("a/b", ["x", "y"], [["\x01"], ["y" * 32_768]])
+        write_sheet("a/b", ["x", "y", "z"], [["\x01"], ["y" * 32_768], [float("nan")]])
     messages = [p.message for p in caught.value.problems]
     assert "cannot name a sheet" in messages[0] and "control character" in messages[1]
-    assert "longer than 32,767" in messages[2]
+    assert "longer than 32,767" in messages[2] and "NaN or infinite" in messages[3]

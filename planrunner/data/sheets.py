@@ -17,6 +17,7 @@ from __future__ import annotations
 
 import datetime as dt
 import io
+import math
 import re
 import warnings
 import zipfile
@@ -141,6 +142,9 @@ def cell_problems(values: list[object]) -> list[tuple[str, str]]:
     if any(ILLEGAL_CHARACTERS_RE.search(v) for v in texts):
         problems.append(("a value holds a control character, which a workbook cannot hold",
                          "remove the control characters from the levels"))
+    if any(isinstance(v, float) and not math.isfinite(v) for v in values):
+        problems.append(("a number is NaN or infinite, which a cell cannot hold (an empty cell is a missing value)",
+                         "write None for a missing value"))
     return problems
 
 

@@ -210,7 +210,8 @@ _MISSING = b"." + bytes(7)
 
 @dataclass(frozen=True)
 class XptColumn:
-    """One variable to write: numbers (float64, NaN where missing) or text values (str)."""
+    """One variable to write: numbers (float64, NaN where missing) or text values (str, None where
+    missing)."""
 
     name: str
     values: np.ndarray
@@ -220,7 +221,8 @@ class XptColumn:
 
     @cached_property
     def encoded(self) -> list[bytes]:
-        return [str(v).encode("utf-8") for v in self.values]
+        """Text values as UTF-8 (None, a missing value, as all blanks)."""
+        return [b"" if v is None else str(v).encode("utf-8") for v in self.values]
 
     @cached_property
     def length(self) -> int:
