@@ -269,3 +269,16 @@ def test_simulation_json_is_the_same_with_and_without_batches(tmp_path):
     documents = [simulate_plan(plan, scenarios, out=tmp_path / f"batch-{size}", clock=fixed_clock,
                                batch=size).document for size in (0, 2, None)]
     assert documents[1] == documents[0] and documents[2] == documents[0]  # hash and all
+
+
+def test_the_memory_check_leaves_room_for_what_a_batch_holds(task):
+    """A scenario that fits one data set at a time is refused when its batch's 16 MB would not fit."""
+    from planrunner.compile.limits import LIMIT_SHARE, estimate_run_bytes
+    from planrunner.errors import DataError
+
+    need = estimate_run_bytes(run.compile_jobs(task.plan, run.simulated_tables(task, 0)))
+    available = int(need / LIMIT_SHARE) + 1024
+    run.check_memory(task, 1, available)  # batch 0: one data set at a time fits
+    with pytest.raises(DataError, match="memory"):
+        run.check_memory(dataclasses.replace(task, batch=None), 1, available)
+    run.check_memory(dataclasses.replace(task, batch=None), 1, available + 8 * batched.BATCH_ELEMENTS)
