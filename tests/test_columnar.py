@@ -28,13 +28,13 @@ CORPUS = sorted(p for p in (HERE / "bad_inputs").iterdir() if p.is_dir())
 def read_both(spec: Dataset, folder: Path, monkeypatch) -> tuple[object, object, bool]:
     """(fast-path outcome, line-by-line outcome, whether the fast path produced the table)."""
     by_lines = []
-    original = tables._read_rows
+    original = tables.read_rows
 
     def spy(*args):
         by_lines.append(True)
         return original(*args)
 
-    monkeypatch.setattr(tables, "_read_rows", spy)
+    monkeypatch.setattr(tables, "read_rows", spy)
     outcomes = []
     for threshold in (0, 1 << 62):
         monkeypatch.setattr(columnar, "COLUMNAR_FROM_BYTES", threshold)
@@ -263,7 +263,7 @@ def test_a_plain_file_is_read_by_the_fast_path(tmp_path, monkeypatch):
     def refuse(*args):
         raise AssertionError("the line-by-line reader was asked")
 
-    monkeypatch.setattr(tables, "_read_rows", refuse)
+    monkeypatch.setattr(tables, "read_rows", refuse)
     table = tables.read_table("d", spec, tmp_path)
     assert table.rows_used == 2000 and table.lines[0] == 2 and table.lines[-1] == 2001
     assert table.columns["y"][7] == 1.0 and table.columns["id"].dtype == np.int64

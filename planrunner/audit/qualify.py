@@ -248,11 +248,11 @@ class Pack:
 
 
 def build_pack(plans: Path | None, clock: Callable[[], Any]) -> dict[str, Any]:
-    from planrunner.pipeline.run import _stamp
+    from planrunner.pipeline.run import utc_stamp
     started = clock()
     document: dict[str, Any] = {
         "format": QUALIFICATION_FORMAT,
-        "created_utc": _stamp(started),
+        "created_utc": utc_stamp(started),
         "planrunner": planrunner.__version__,
         "installation": installation(),
         "dependencies": dependencies(),

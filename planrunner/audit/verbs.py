@@ -507,14 +507,14 @@ def run_selfcheck(clock: Any = None) -> dict:
     import platform
 
     from planrunner.audit.selfcheck import CASES, run_case
-    from planrunner.pipeline.run import _stamp, utc_now
+    from planrunner.pipeline.run import utc_now, utc_stamp
     from planrunner.record.canonical import self_hash
     clock = clock or utc_now
     started = clock()
     cases = [run_case(c) for c in CASES] + _end_to_end_cases(clock)
     report = {
         "format": SELFCHECK_FORMAT,
-        "created_utc": _stamp(started),
+        "created_utc": utc_stamp(started),
         "environment": {**environment(), "processor": platform.processor()},
         "cases": cases,
         "passed": sum(c["passed"] for c in cases),

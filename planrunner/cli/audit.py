@@ -25,7 +25,7 @@ REHEARSAL_WORDS = (f"{STAMP}: this record is a rehearsal; its dummy data were ma
                    "and sizes and the plan re-run on them")
 
 
-def _add_audit_run_options(run: argparse.ArgumentParser) -> None:
+def add_audit_run_options(run: argparse.ArgumentParser) -> None:
     run.add_argument("--param", action="append", metavar="NAME=VALUE",
                      help="a value for a plan parameter (repeat for several)")
     run.add_argument("--lock", metavar="FILE",
@@ -38,7 +38,7 @@ def _add_audit_run_options(run: argparse.ArgumentParser) -> None:
     add_pdf_options(run)
 
 
-def _add_audit_verbs(verbs: Any) -> None:
+def add_audit_verbs(verbs: Any) -> None:
     lock = verbs.add_parser("lock", help="freeze a plan: write PLAN.lock.json beside it")
     lock.add_argument("plan", help="path to the plan (YAML)")
     lock.add_argument("--note", help="a note kept in the lock (e.g. the protocol version)")
@@ -133,10 +133,10 @@ def check_lock_summary(outcome: Any) -> str:
 
 
 def _lock(args: argparse.Namespace) -> int:
-    from planrunner.pipeline.run import _stamp, default_operator, utc_now
+    from planrunner.pipeline.run import default_operator, utc_now, utc_stamp
     from planrunner.plan.params import parse_assignments
     from planrunner.trail.files import lock_plan
-    path, lock = lock_plan(args.plan, operator=args.operator or default_operator(), locked_utc=_stamp(utc_now()),
+    path, lock = lock_plan(args.plan, operator=args.operator or default_operator(), locked_utc=utc_stamp(utc_now()),
                            note=args.note, params=parse_assignments(args.param))
     print(f"locked {args.plan}: sha256 {lock['sha256']}, content sha256 {lock['canonical_sha256']}")
     for d in lock["data"]:
@@ -216,10 +216,10 @@ def _log_verification(report: Any, signatures_passed: bool, operator: str | None
     said, and changes neither the verdict nor the exit code."""
     from planrunner.audit.verbs import log_verification
     from planrunner.errors import OutputError
-    from planrunner.pipeline.run import _stamp, default_operator, utc_now
+    from planrunner.pipeline.run import default_operator, utc_now, utc_stamp
     try:
         logged = log_verification(report, signatures_passed, operator=operator or default_operator(),
-                                  verified_utc=_stamp(utc_now()))
+                                  verified_utc=utc_stamp(utc_now()))
     except OutputError as exc:
         print(f"verify result NOT logged: {exc}")
         return

@@ -19,8 +19,8 @@ from typing import TYPE_CHECKING, Any, NoReturn, TextIO, cast
 from planrunner import __version__
 from planrunner.cli.audit import (
     AUDIT_VERBS,
-    _add_audit_run_options,
-    _add_audit_verbs,
+    add_audit_run_options,
+    add_audit_verbs,
     audit_summary,
     check_lock_summary,
 )
@@ -99,10 +99,10 @@ def build_parser() -> argparse.ArgumentParser:
     run.add_argument("--quiet", action="store_true", help="print only the run folder (and no progress bar)")
     add_execution_options(run)
     run.add_argument("--data-root", metavar="DIR", help=DATA_ROOT_HELP)
-    _add_audit_run_options(run)
+    add_audit_run_options(run)
     add_run_signing_options(run)
     add_rehearse_verb(verbs)
-    _add_audit_verbs(verbs)
+    add_audit_verbs(verbs)
     add_signing_verbs(verbs)
     add_simulate_verb(verbs)
     return parser

@@ -113,7 +113,7 @@ def _keygen(args: argparse.Namespace) -> int:
 
 
 def _sign(args: argparse.Namespace) -> int:
-    from planrunner.pipeline.run import _stamp, utc_now
+    from planrunner.pipeline.run import utc_now, utc_stamp
     from planrunner.trail.signatures import make_signature
     from planrunner.trail.signfiles import (
         entry_subject,
@@ -132,7 +132,7 @@ def _sign(args: argparse.Namespace) -> int:
         target, subject = file_subject(args.file)
         refuse_rehearsal_signature(target, subject, args.meaning)  # before a passphrase is asked for
     key = signing_key(args.key, args.name, args)
-    document = make_signature(key, meaning=args.meaning, signed_utc=_stamp(utc_now()), subject=subject)
+    document = make_signature(key, meaning=args.meaning, signed_utc=utc_stamp(utc_now()), subject=subject)
     written = write_signature(target, subject, document)
     print(f"signed {subject.describe()} as {args.meaning} by {document['signer']} "
           f"(key {document['fingerprint'][:16]}) at {document['signed_utc']}")

@@ -17,7 +17,7 @@ import numpy as np
 
 from planrunner.data.formats import TEXT_FORMATS, in_rows
 from planrunner.data.sets import select
-from planrunner.data.tables import FLOAT_EXACT, SHOW_LINES, Table, group_values
+from planrunner.data.tables import FLOAT_EXACT, Table, group_values, lines_text
 from planrunner.engines.statistics import MAGNITUDE_LIMIT, STATISTICS
 from planrunner.errors import DataError
 from planrunner.plan.derived import dataset_columns
@@ -40,11 +40,6 @@ def check_tables(plan: Plan, tables: dict[str, Table]) -> None:
             check_analysis(analysis, table, declared=columns[by].levels if by in columns else None)
         except DataError as exc:  # a typed file's rows are observations, not lines of text
             raise (exc if table.format in TEXT_FORMATS else in_rows(exc)) from None
-
-
-def _lines(lines: np.ndarray) -> str:
-    shown = ", ".join(str(int(n)) for n in lines[:SHOW_LINES])
-    return shown + (f" and {lines.size - SHOW_LINES} more" if lines.size > SHOW_LINES else "")
 
 
 def _excluded(table: Table) -> str:
@@ -94,7 +89,7 @@ def check_analysis(analysis: Any, table: Table, declared: list[str] | None = Non
                             hint="check the rows_where filter, the analysis set and the missing-value handling")
         if count < minimum:
             group = f"group '{label}' has" if analysis.groups else "it has"
-            raise DataError(f"{who}: {group} {count} row(s) (line(s) {_lines(table.lines[mask])}); "
+            raise DataError(f"{who}: {group} {count} row(s) (line(s) {lines_text(table.lines[mask])}); "
                             f"{METHOD_WORDS.get(analysis.method, analysis.method)} needs at least {minimum}"
                             f"{' per group' if analysis.groups else ''}", where=where,
                             hint="use more data, or relax the rows_where filter or the analysis set")
@@ -111,7 +106,7 @@ def check_analysis(analysis: Any, table: Table, declared: list[str] | None = Non
         values = np.asarray(table.columns[name][used], dtype=float)
         if values.size and np.all(values == values[0]):
             raise DataError(f"{who}: every one of the {values.size} values of the {role} '{name}' it uses is "
-                            f"{values[0]:g} (lines {_lines(table.lines[used])}); resampling cannot vary a "
+                            f"{values[0]:g} (lines {lines_text(table.lines[used])}); resampling cannot vary a "
                             "constant", where=where,
                             hint=f"check that the file is the right extract and '{name}' the right column")
     if statistic is not None and statistic.outcome == "censored" and getattr(analysis, "event", None) is not None:
@@ -137,19 +132,19 @@ def check_censored(analysis: Any, table: Table, labels: tuple[str, ...], masks: 
     negative = used & (values < 0)
     if negative.any() and not left:
         problems.append(DataError(f"{who}: {int(negative.sum())} negative time(s) in '{time_name}' (e.g. "
-                                  f"{values[negative][0]:g} on line(s) {_lines(table.lines[negative])})",
+                                  f"{values[negative][0]:g} on line(s) {lines_text(table.lines[negative])})",
                                   hint="times are measured from the origin (0) of follow-up; fix the extract"))
     bad = used & ~np.isin(events, (0.0, 1.0))
     if bad.any():
         problems.append(DataError(f"{who}: the event column '{event_name}' holds {int(bad.sum())} value(s) other "
-                                  f"than 0 and 1 (e.g. {events[bad][0]:g} on line(s) {_lines(table.lines[bad])})",
+                                  f"than 0 and 1 (e.g. {events[bad][0]:g} on line(s) {lines_text(table.lines[bad])})",
                                   hint="code 1 = event observed (detected) and 0 = censored (below the limit)"))
     word = "detected" if left else "with an observed event"
     for label, mask in zip(labels, masks):
         if mask.any() and not np.any(events[mask] == 1.0):
             where = f"group '{label}'" if analysis.groups else "the analysis"
             problems.append(DataError(f"{who}: every one of the {int(mask.sum())} rows of {where} is censored "
-                                      f"(no row {word}; lines {_lines(table.lines[mask])}), so the Kaplan–Meier "
+                                      f"(no row {word}; lines {lines_text(table.lines[mask])}), so the Kaplan–Meier "
                                       "curve never leaves 1", hint="check the event column's coding (1 = event), "
                                       "or report the follow-up without events"))
     if problems:
@@ -209,7 +204,7 @@ def _check_reach(analysis: Any, table: Table, labels: tuple[str, ...], masks: li
                 f"{who}: the Kaplan–Meier {what} of {group} is not reached: "
                 + ("too few values are detected above the limits" if left else
                    f"the estimated survival stays above {1 - (level or 0.5):g} up to the {lowest} time "
-                   f"({float(np.max(times[mask])):g})") + f" (lines {_lines(table.lines[mask])})",
+                   f"({float(np.max(times[mask])):g})") + f" (lines {lines_text(table.lines[mask])})",
                 hint="report it as not reached within the follow-up; use km_quantile with a lower level, "
                      "survival_at or rmst for this group"))
     if problems:
@@ -227,7 +222,7 @@ def _check_strata(analysis: Any, table: Table, labels: tuple[str, ...], masks: l
             if not np.any(mask & (strata == stratum)):
                 others = used & (strata == stratum)
                 raise DataError(f"{who}: stratum '{stratum}' (column '{name}') has no rows in group '{label}'; "
-                                f"its rows are on line(s) {_lines(table.lines[others])}", where=table.file,
+                                f"its rows are on line(s) {lines_text(table.lines[others])}", where=table.file,
                                 hint="exclude that stratum with the rows_where filter, merge it with another, "
                                      "or check the file")
 
@@ -245,9 +240,9 @@ def _check_pairs(analysis: Any, table: Table, labels: tuple[str, ...], masks: li
                 continue
             if count == 0:
                 elsewhere = table.lines[used & (pairs == pair)]
-                problem = f"has no row in group '{label}' (its row(s): line(s) {_lines(elsewhere)})"
+                problem = f"has no row in group '{label}' (its row(s): line(s) {lines_text(elsewhere)})"
             else:
-                problem = f"has {count} rows in group '{label}' (line(s) {_lines(table.lines[rows])})"
+                problem = f"has {count} rows in group '{label}' (line(s) {lines_text(table.lines[rows])})"
             raise DataError(f"{who}: pair '{pair}' (column '{name}') {problem}", where=table.file,
                             hint="every pair needs exactly one row in each group: fix the file, or exclude "
                                  "incomplete pairs with the rows_where filter (a deviation to document)")
@@ -265,8 +260,8 @@ def _check_clusters(analysis: Any, table: Table, labels: tuple[str, ...], masks:
                 first = masks[labels.index(seen[cluster])] & (clusters == cluster)
                 here = mask & (clusters == cluster)
                 raise DataError(f"{who}: cluster '{cluster}' (column '{name}') has rows in group '{seen[cluster]}' "
-                                f"(line(s) {_lines(table.lines[first])}) and in group '{label}' "
-                                f"(line(s) {_lines(table.lines[here])})", where=table.file,
+                                f"(line(s) {lines_text(table.lines[first])}) and in group '{label}' "
+                                f"(line(s) {lines_text(table.lines[here])})", where=table.file,
                                 hint="a cluster must lie within one group: fix the group or the cluster "
                                      "labels in the file")
             seen[cluster] = label
@@ -294,7 +289,7 @@ def _refuse_near_duplicates(analysis: Any, table: Table, column: np.ndarray, lab
             continue
         rows = column == others[0]
         raise DataError(f"{who}: column '{by}' holds '{others[0]}' ({code_points(others[0])}) beside the compared "
-                        f"level '{level}' ({code_points(level)}), on line(s) {_lines(table.lines[rows])}; they "
+                        f"level '{level}' ({code_points(level)}), on line(s) {lines_text(table.lines[rows])}; they "
                         "differ only by case, Unicode form or invisible characters, and those rows would be "
                         "left out", where=table.file,
                         hint="fix the values in the file, exclude those rows with the rows_where filter, or declare "
@@ -311,7 +306,7 @@ def refuse_inexact_integers(table: Table, name: str, used: np.ndarray, who: str)
     if beyond.any():
         first = int(values[np.flatnonzero(beyond)[0]])
         raise DataError(f"{who}: the integer column '{name}' holds {int(beyond.sum())} value(s) beyond "
-                        f"2^53 = {FLOAT_EXACT:,} (e.g. {first} on line(s) {_lines(table.lines[beyond])}); "
+                        f"2^53 = {FLOAT_EXACT:,} (e.g. {first} on line(s) {lines_text(table.lines[beyond])}); "
                         "computations use doubles, which cannot hold every whole number that large",
                         where=table.file, hint="subtract a common offset in the extract, or declare the "
                                                "column as number to accept rounding to about 16 digits")
@@ -327,7 +322,7 @@ def _refuse_overflowing(table: Table, name: str, used: np.ndarray, who: str) -> 
     if huge.any():
         first = float(values[np.flatnonzero(huge)[0]])
         raise DataError(f"{who}: column '{name}' holds {int(huge.sum())} value(s) beyond ±{MAGNITUDE_LIMIT:g} "
-                        f"(e.g. {first:g} on line(s) {_lines(table.lines[huge])}); their squares pass the largest "
+                        f"(e.g. {first:g} on line(s) {lines_text(table.lines[huge])}); their squares pass the largest "
                         "double (1.8e308), so variances, standard errors and t statistics would be infinite or 0",
                         where=table.file, hint="check the value (a unit or decimal-point error?), or express the "
                                                "column in larger units")

@@ -10,7 +10,7 @@ from pathlib import Path
 import numpy as np
 
 from planrunner.data.sets import evaluate_sets
-from planrunner.data.tables import Exclusion, Table, _lines, _list, derived_facts, filtered_and_derived
+from planrunner.data.tables import Exclusion, Table, derived_facts, filtered_and_derived, first_lines, lines_text
 from planrunner.errors import DataError
 from planrunner.plan.schema import Column, Dataset
 
@@ -64,5 +64,5 @@ def outside_declared(name: str, declared: Column, values: np.ndarray, source: st
         return None
     count = int(bad.sum())
     return DataError(f"column '{name}' ({declared.type}): {count} value(s) {what}, e.g. "
-                     f"'{values[np.flatnonzero(bad)[0]]}' on line(s) {_list(_lines(bad, line_of), count)}",
+                     f"'{values[np.flatnonzero(bad)[0]]}' on line(s) {lines_text(first_lines(bad, line_of), count)}",
                      where=source, hint=f"check the model of '{name}' against the plan's declaration")

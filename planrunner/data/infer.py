@@ -20,7 +20,7 @@ from dataclasses import dataclass
 from decimal import Decimal, InvalidOperation
 
 from planrunner.data import formats
-from planrunner.data.tables import _read_rows
+from planrunner.data.tables import read_rows
 
 MAX_LEVELS = 20
 MISSING = {"", "NA"}
@@ -40,7 +40,7 @@ class Inferred:
 def infer_columns(data: bytes, fmt: str, shown: str, sheet: str | None) -> list[Inferred]:
     """Each column of the file with the type its values allow."""
     if fmt in formats.TEXT_FORMATS:
-        header, rows, _ = _read_rows(data, fmt, shown)
+        header, rows, _ = read_rows(data, fmt, shown)
         columns: dict[str, list[object]] = {h: [r[i].strip() for r in rows] for i, h in enumerate(header)}
         labels: dict[str, str | None] = {}
         names = header

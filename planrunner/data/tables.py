@@ -14,7 +14,7 @@ import os
 import re
 import stat
 import unicodedata
-from collections.abc import Mapping
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from datetime import date
 from decimal import Decimal, InvalidOperation
@@ -168,13 +168,17 @@ def file_sha256(path: Path) -> tuple[str, int]:
     return digest.hexdigest(), size
 
 
-def _lines(mask: np.ndarray, line_of: np.ndarray) -> list[int]:
+def first_lines(mask: np.ndarray, line_of: np.ndarray) -> list[int]:
+    """The file lines of the first SHOW_LINES rows ``mask`` selects (``line_of``: each row's line)."""
     return [int(n) for n in line_of[np.flatnonzero(mask)[:SHOW_LINES]]]
 
 
-def _list(lines: list[int], total: int) -> str:
-    text = ", ".join(str(n) for n in lines)
-    return text + (f" and {total - len(lines)} more" if total > len(lines) else "")
+def lines_text(lines: Sequence[int] | np.ndarray, total: int | None = None) -> str:
+    """Line numbers as a message lists them: the first SHOW_LINES, then 'and N more' of ``total``
+    (default: as many as are given), e.g. '3, 8, 9 and 12 more'."""
+    shown = [int(n) for n in lines[:SHOW_LINES]]
+    total = len(lines) if total is None else total
+    return ", ".join(str(n) for n in shown) + (f" and {total - len(shown)} more" if total > len(shown) else "")
 
 
 def read_table(name: str, spec: Dataset, plan_folder: Path, *, data_root: Path | None = None) -> Table:
@@ -199,7 +203,7 @@ def read_table(name: str, spec: Dataset, plan_folder: Path, *, data_root: Path |
                                       dictionary=text_dictionary(spec))
             except (DataError, _Unvouched):
                 pass  # read again line by line: that reader locates every problem, all at once
-        header, rows, line_of = _read_rows(data, fmt, shown)
+        header, rows, line_of = read_rows(data, fmt, shown)
         index = _column_index(header, spec, name, fmt, shown)
         raw = {c: np.array([row[index[c]].strip() for row in rows], dtype=object) for c in spec.columns}
         ignored = tuple(h or f"(unnamed column {i + 1})" for i, h in enumerate(header) if h not in spec.columns)
@@ -283,10 +287,10 @@ def _checked_table(name: str, spec: Dataset, shown: str, raw: dict[str, np.ndarr
             if spec.missing == "refuse":
                 problems[column] = DataError(
                     f"column '{column}' has {count} missing value(s) on line(s) "
-                    f"{_list(_lines(missing, line_of), count)}", where=shown,
+                    f"{lines_text(first_lines(missing, line_of), count)}", where=shown,
                     hint=f"fill them in, or set datasets.{name}.missing: drop to exclude those rows")
                 continue
-            excluded.append(Exclusion(f"missing value in '{column}'", count, tuple(_lines(missing, line_of))))
+            excluded.append(Exclusion(f"missing value in '{column}'", count, tuple(first_lines(missing, line_of))))
             keep &= ~missing
 
     columns = {}
@@ -332,14 +336,14 @@ def filtered_and_derived(name: str, spec: Dataset, shown: str, table_columns: di
             kept = parse_expression(spec.rows_where).evaluate(table_columns)
         except ExpressionError as exc:
             lines = line_of[np.flatnonzero(keep)[list(exc.rows)]] if exc.rows else ()
-            on = f" (line(s) {_list([int(n) for n in lines[:SHOW_LINES]], len(lines))} of {shown})" if exc.rows else ""
+            on = f" (line(s) {lines_text(lines)} of {shown})" if exc.rows else ""
             raise DataError(f"the rows_where filter cannot be applied: {exc.message}{on}",
                             where=f"datasets.{name}.rows_where", hint=exc.hint) from None
         dropped = np.zeros(rows_read, dtype=bool)
         dropped[np.flatnonzero(keep)[~kept]] = True
         if dropped.any():
             excluded.append(Exclusion(f"rows_where: {spec.rows_where}", int(dropped.sum()),
-                                      tuple(_lines(dropped, line_of))))
+                                      tuple(first_lines(dropped, line_of))))
         keep &= ~dropped
         table_columns = {c: v[kept] for c, v in table_columns.items()}
     table_columns.update(_derive(name, spec, set(spec.derive) - early, table_columns, line_of[keep], shown))
@@ -467,7 +471,7 @@ def _derive(name: str, spec: Dataset, which: set[str], rows: dict[str, np.ndarra
             values = expression.evaluate({**rows, **out})
         except ExpressionError as exc:
             bad = lines[list(exc.rows)] if exc.rows else np.array([], dtype=int)
-            on = f" on line(s) {_list([int(n) for n in bad[:SHOW_LINES]], len(bad))} of {shown}" if exc.rows else ""
+            on = f" on line(s) {lines_text(bad)} of {shown}" if exc.rows else ""
             raise DataError(f"derived column '{column}' cannot be computed: {exc.message}{on}",
                             where=f"{shown}:{int(bad[0])}" if exc.rows else shown,
                             hint=f"exclude those rows with datasets.{name}.rows_where (a filter that does not use "
@@ -502,7 +506,7 @@ def group_values(values: np.ndarray) -> np.ndarray:
     return np.array([group_value(v) for v in values], dtype=object)
 
 
-def _read_rows(data: bytes, fmt: str, shown: str) -> tuple[list[str], list[list[str]], np.ndarray]:
+def read_rows(data: bytes, fmt: str, shown: str) -> tuple[list[str], list[list[str]], np.ndarray]:
     """Header, rows and the file line where each row starts.
 
     Read with the csv module rather than pandas so that every row keeps its true line number
@@ -620,7 +624,7 @@ def _convert(values: np.ndarray, keep: np.ndarray, name: str, spec: Column, show
         if not first.isprintable():  # a control character would garble the terminal
             first = first.encode("unicode_escape").decode("ascii")
         return DataError(f"column '{name}' ({kind}): {count} value(s) {what}, e.g. '{first}' on line(s) "
-                         f"{_list(_lines(bad, line_of), count)}", where=shown, hint=hint)
+                         f"{lines_text(first_lines(bad, line_of), count)}", where=shown, hint=hint)
 
     if kind in ("number", "integer"):
         text = np.where(keep, values, "0")

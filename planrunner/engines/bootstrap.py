@@ -89,8 +89,11 @@ __all__ = [
     "bca_acceleration",
     "bca_levels",
     "bootstrap",
+    "interval_or_fallback",
     "percentile_of_score",
     "quantile_rank",
+    "replicate_moments",
+    "tail_count_warnings",
 ]
 
 # relative; values this close to θ̂ count as ties (rounding, not data): 512 units in the last
@@ -637,7 +640,7 @@ def _with_intervals(result: BootstrapResult, p: Prepared, options: BootstrapOpti
         _degenerate(on_degenerate, message, warnings, "non-finite-replicates")
         return finish(intervals=no_intervals(f"{bad} of {resamples} replicates are not finite"))
 
-    moments = _moments(distribution, weights, p.estimate)
+    moments = replicate_moments(distribution, weights, p.estimate)
     order = np.argsort(distribution, kind="stable")
     ordered = distribution[order]
     cumulative = None if weights is None else np.cumsum(weights[order])
@@ -669,9 +672,9 @@ def _with_intervals(result: BootstrapResult, p: Prepared, options: BootstrapOpti
     summary = Summary(p.estimate, ordered, cumulative, confidence, moments["standard_error"], moments["bias"],
                       None if exact else moments["standard_error_sd"], None if exact else moments["bias_sd"],
                       z0, acceleration, problem, t_ordered, t_cumulative, se_hat, t_problem, options.alternative)
-    found = tuple(_interval(m, summary, on_degenerate) for m in options.intervals)
+    found = tuple(interval_or_fallback(m, summary, on_degenerate) for m in options.intervals)
     if not exact:
-        for w in _tail_warnings(found, ordered):
+        for w in tail_count_warnings(found, ordered):
             if w not in warnings:  # a fallback percentile interval repeats the percentile's warning
                 warnings.append(w)
     extra: dict[str, Any] = {}
@@ -816,7 +819,7 @@ def _degenerate(on_degenerate: str, message: str, warnings: list[EngineWarning],
     warnings.append(EngineWarning(code, message))
 
 
-def _moments(distribution: np.ndarray, weights: np.ndarray | None, estimate: float) -> dict[str, float]:
+def replicate_moments(distribution: np.ndarray, weights: np.ndarray | None, estimate: float) -> dict[str, float]:
     """Standard error and bias, with their Monte Carlo s.d. (0 when exact)."""
     if weights is not None:
         mean = float(np.sum(weights * distribution))
@@ -832,7 +835,7 @@ def _moments(distribution: np.ndarray, weights: np.ndarray | None, estimate: flo
             "bias_sd": standard_error / math.sqrt(resamples)}
 
 
-def _interval(method: str, summary: Summary, on_degenerate: str) -> Interval:
+def interval_or_fallback(method: str, summary: Summary, on_degenerate: str) -> Interval:
     """One interval; an undefined BCa or studentized one as ``on_degenerate`` declares."""
     interval = INTERVAL_METHODS[method](summary)
     if interval.lower is None and method in ("bca", "studentized"):
@@ -944,7 +947,7 @@ def _data_warnings(n: tuple[int, ...], lay: schemes.Layout, stratified: bool, pa
     return warnings
 
 
-def _tail_warnings(found: tuple[Interval, ...], ordered: np.ndarray) -> list[EngineWarning]:
+def tail_count_warnings(found: tuple[Interval, ...], ordered: np.ndarray) -> list[EngineWarning]:
     """The tail-count rule (common practice): fewer than TAIL_MINIMUM replicates beyond an endpoint."""
     warnings = []
     for iv in found:

@@ -55,15 +55,15 @@ from planrunner.engines.blocks import map_resamples
 from planrunner.engines.bootstrap import (
     ALTERNATIVES,
     TIE_TOLERANCE,
-    _interval,
-    _moments,
-    _tail_warnings,
     alpha_inside,
     bca_acceleration,
+    interval_or_fallback,
     null_test,
     percentile_of_score,
     record_settings,
+    replicate_moments,
     run_to_precision,
+    tail_count_warnings,
 )
 from planrunner.engines.intervals import INVERSION_RULES, Summary, tail_levels
 from planrunner.engines.lazy import ndtri
@@ -453,7 +453,7 @@ def _summarise(p: _Prepared, distribution: np.ndarray, se_star: np.ndarray | Non
             options.null_value, options.intervals[0], INVERSION_RULES[options.intervals[0]], None,
             note=f"no p-value: {int(bad.sum())} of {resamples} replicates are not finite")
         return replace(result, warnings=tuple(warnings), intervals=no_intervals(message), null_test=no_p)
-    moments = _moments(distribution, weights, p.estimate)
+    moments = replicate_moments(distribution, weights, p.estimate)
     if options.impose_null:
         assert se_star is not None
         test = _imposed_null_test(p, distribution, se_star, weights, details, warnings)
@@ -490,9 +490,9 @@ def _summarise(p: _Prepared, distribution: np.ndarray, se_star: np.ndarray | Non
                       None if exact else moments["standard_error_sd"], None if exact else moments["bias_sd"],
                       z0, acceleration, bca_problem, t_ordered, t_cumulative, se_hat_value, t_problem,
                       options.alternative)
-    found = tuple(_interval(m, summary, options.on_degenerate) for m in options.intervals)
+    found = tuple(interval_or_fallback(m, summary, options.on_degenerate) for m in options.intervals)
     if not exact:
-        warnings += [w for w in _tail_warnings(found, ordered) if w not in warnings]
+        warnings += [w for w in tail_count_warnings(found, ordered) if w not in warnings]
     inverted = None if options.null_value is None else null_test(options, summary, found[0], weights, warnings)
     return replace(result, warnings=tuple(warnings), intervals=found, z0=z0, acceleration=acceleration,
                    standard_error=moments["standard_error"], bias=moments["bias"],

@@ -23,13 +23,13 @@ from planrunner.execute.executors import Execution, Progress
 from planrunner.pipeline.run import (
     Clock,
     RunOutcome,
-    _run_id,
-    _stamp,
     check_plan,
     default_operator,
     execute_plan,
     load_plan,
+    new_run_id,
     utc_now,
+    utc_stamp,
     write_run,
 )
 from planrunner.plan.load import LoadedPlan
@@ -107,8 +107,8 @@ def rehearse_plan(path: str | Path, *, out: str | Path | None = None, seed: int 
         lock_entry = lock_for_run(loaded, {}, None, refuse_deviations=False)
         results, max_t = execute_plan(loaded.plan, jobs, execution=execution or Execution(), progress=progress)
     finished = clock()
-    run_id = _run_id(loaded, tables, started)
-    facts = RunFacts(run_id=run_id, started_utc=_stamp(started), finished_utc=_stamp(finished), operator=operator,
+    run_id = new_run_id(loaded, tables, started)
+    facts = RunFacts(run_id=run_id, started_utc=utc_stamp(started), finished_utc=utc_stamp(finished), operator=operator,
                      command=tuple(command or ["planrunner", "rehearse", str(path)]),
                      execution=(execution or Execution()).describe(), lock=lock_entry,
                      parameters=checked.parameters, rehearsal=entry)

@@ -56,7 +56,9 @@ def utc_now() -> dt.datetime:
     return dt.datetime.now(dt.UTC)
 
 
-def _stamp(moment: dt.datetime) -> str:
+def utc_stamp(moment: dt.datetime) -> str:
+    """A moment as the record, the logs and the signatures write it: UTC to the microsecond, e.g.
+    2026-12-03T02:43:58.689963Z."""
     return moment.astimezone(dt.UTC).strftime("%Y-%m-%dT%H:%M:%S.%fZ")
 
 
@@ -111,13 +113,13 @@ def run_plan(path: str | Path, *, out: str | Path | None = None, operator: str |
     execution = execution or Execution()
     results, max_t = execute_plan(loaded.plan, jobs, execution=execution, progress=progress)
     finished = clock()
-    run_id = _run_id(loaded, tables, started)
-    facts = RunFacts(run_id=run_id, started_utc=_stamp(started), finished_utc=_stamp(finished),
+    run_id = new_run_id(loaded, tables, started)
+    facts = RunFacts(run_id=run_id, started_utc=utc_stamp(started), finished_utc=utc_stamp(finished),
                      operator=operator,
                      command=tuple(command or ["planrunner", "run", str(path)]),
                      execution=execution.describe(), lock=lock_entry, parameters=checked.parameters)
     record = build_record(loaded, tables, jobs, results, max_t, facts)
-    signature_files, sign_entry = (signed_run_files(signing, record, to_json(record), _stamp(clock()))
+    signature_files, sign_entry = (signed_run_files(signing, record, to_json(record), utc_stamp(clock()))
                                    if signing is not None else ({}, None))
     out_root = Path(out) if out is not None else loaded.folder / "runs"
 
@@ -138,10 +140,10 @@ def execute_plan(plan: Plan, jobs: list[Job], *, execution: Execution | None = N
     return execute_all(jobs, execution=execution, progress=progress), max_t_families(plan, jobs)
 
 
-def _run_id(loaded: LoadedPlan, tables: dict[str, Table], started: dt.datetime) -> str:
+def new_run_id(loaded: LoadedPlan, tables: dict[str, Table], started: dt.datetime) -> str:
     """An id from what the run is (plan, data, start time), so an injected clock makes it stable."""
     digest = hashlib.sha256()
-    for part in [loaded.sha256, _stamp(started), *(t.sha256 for t in tables.values())]:
+    for part in [loaded.sha256, utc_stamp(started), *(t.sha256 for t in tables.values())]:
         digest.update(part.encode())
     return digest.hexdigest()[:16]
 

@@ -23,6 +23,7 @@ from planrunner.engines.streams import DRAW_BLOCK, GENERATOR
 from planrunner.errors import PlanError
 from planrunner.execute.executors import Execution
 from planrunner.execute.signals import stopping_on_termination
+from planrunner.pipeline.run import utc_now, utc_stamp
 from planrunner.plan.schema import Plan
 from planrunner.record.build import to_json
 from planrunner.record.canonical import self_hash
@@ -85,14 +86,6 @@ class SimulationOutcome:
     document: dict
 
 
-def utc_now() -> dt.datetime:
-    return dt.datetime.now(dt.UTC)
-
-
-def _stamp(moment: dt.datetime) -> str:
-    return moment.astimezone(dt.UTC).strftime("%Y-%m-%dT%H:%M:%S.%fZ")
-
-
 def simulate_plan(plan_path: str | Path, scenarios_path: str | Path, *, out: str | Path | None = None,
                   execution: Execution | None = None, progress: Callable[[str], Progress] | None = None,
                   command: list[str] | None = None, clock: Callable[[], dt.datetime] = utc_now,
@@ -129,8 +122,8 @@ def simulate_plan(plan_path: str | Path, scenarios_path: str | Path, *, out: str
     body: dict[str, Any] = {
         "format": FORMAT,
         "title": scenarios.title,
-        "started_utc": _stamp(started),
-        "finished_utc": _stamp(finished),
+        "started_utc": utc_stamp(started),
+        "finished_utc": utc_stamp(finished),
         "command": list(command or ["planrunner", "simulate", str(plan_path), "--scenarios", str(scenarios_path)]),
         "plan": {"id": plan.plan, "title": plan.title, "file": loaded.file.name, "sha256": loaded.sha256,
                  "lock": lock_entry, "parameters": dict(values)},
