@@ -104,3 +104,22 @@ def test_processes_share_ranges_with_the_calling_process_and_give_the_serial_num
         assert _bits(execute_all(jobs, execution=Execution("processes", 2))) == serial
     # the calling process computed while its worker started (how many depends on the machine's speed)
     assert computed_here
+
+
+def test_workers_started_early_are_taken_by_the_run_and_stopped_after_an_error() -> None:
+    import multiprocessing
+
+    from planrunner.errors import PlanError
+
+    jobs = _jobs()
+    serial = _bits(execute_all(jobs))
+    execution = Execution("processes", 2)
+    with executors.early_workers(execution):
+        assert [count for count, _ in executors._early] == [1]  # this process and one worker process
+        early = executors._early[0][1]
+        assert _bits(execute_all(jobs, execution=execution)) == serial
+        assert executors._early == []  # the run took the pool started early ...
+    assert early._state != "RUN"  # ... and stopped it
+    with pytest.raises(PlanError), executors.early_workers(execution):
+        raise PlanError("a plan error found while the workers start")
+    assert executors._early == [] and multiprocessing.active_children() == []  # stopped and reaped

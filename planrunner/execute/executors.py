@@ -14,6 +14,7 @@ reads its own rows of the stream, so who computes a range changes no number.
 
 from __future__ import annotations
 
+import contextlib
 import copyreg
 import functools
 import itertools
@@ -23,7 +24,7 @@ import multiprocessing
 import os
 import pickle
 import threading
-from collections.abc import Callable
+from collections.abc import Callable, Iterator
 from dataclasses import dataclass
 from typing import Any
 
@@ -424,12 +425,45 @@ def stop_dask(client: Any, cluster: Any) -> None:
         multiprocessing.active_children()  # reap the local cluster's worker processes now, not at exit
 
 
+# worker processes started ahead of a run by `early_workers`: (number of processes, pool); the
+# processes executor takes a pool of the size it needs from here instead of starting one
+_early: list[tuple[int, Any]] = []
+
+
+@contextlib.contextmanager
+def early_workers(execution: Execution) -> Iterator[None]:
+    """Start the worker processes of ``execution`` (processes, two workers or more) on entry, so that
+    they start (a fresh interpreter importing numpy: a few tenths of a second) while the plan and the
+    data are read and checked; `execute_all` inside takes them. Whatever was not taken is stopped on
+    exit, also after an error or an interrupt before computing."""
+    if execution.executor != "processes" or execution.workers < 2:
+        yield
+        return
+    entry = (execution.workers - 1, process_pool(execution.workers - 1))
+    _early.append(entry)
+    try:
+        yield
+    finally:
+        if entry in _early:
+            _early.remove(entry)
+            stop_process_pool(entry[1])
+
+
+def _worker_processes(processes: int) -> Any:
+    """A pool of ``processes`` worker processes: one started early (`early_workers`), else a new one."""
+    for entry in _early:
+        if entry[0] == processes:
+            _early.remove(entry)
+            return entry[1]
+    return process_pool(processes)
+
+
 def _on_processes(jobs: list[Job], execution: Execution, tally: _Tally) -> list[Any]:
     """This process and ``workers - 1`` worker processes. While they start (a fresh interpreter
     importing numpy and the engine: a few tenths of a second), this process computes ranges."""
     if execution.workers == 1:
         return _run_jobs(jobs, tally, None, {})
-    pool = process_pool(execution.workers - 1)
+    pool = _worker_processes(execution.workers - 1)
     try:
         pending = {i: pool.apply_async(_execute_caught, (job,)) for i, job in enumerate(jobs)
                    if job.method == "jackknife"}

@@ -20,7 +20,7 @@ from planrunner.compile.jobs import Job
 from planrunner.data.tables import Table
 from planrunner.engines.maxt import MaxTResult
 from planrunner.errors import OutputError, PlanrunnerError
-from planrunner.execute.executors import Execution, Progress, execute_all
+from planrunner.execute.executors import Execution, Progress, early_workers, execute_all
 from planrunner.execute.families import max_t_families
 from planrunner.execute.signals import holding_interrupts
 from planrunner.pipeline.check import (  # noqa: F401 (load_plan, available_memory, CheckOutcome for callers)
@@ -103,15 +103,16 @@ def run_plan(path: str | Path, *, out: str | Path | None = None, operator: str |
     """
     started = clock()
     operator = require_person_name(operator, "--operator") if operator is not None else default_operator()
-    checked = check_plan(path, params=params, data_root=data_root)
-    loaded, tables, jobs = checked.loaded, checked.tables, checked.jobs
-    assert tables is not None and jobs is not None
-    lock_entry = lock_for_run(loaded, tables, lock, refuse_deviations=refuse_deviations)
-    check_run_signing(find_signers(loaded.folder, signers), signing, today=started.date(),
-                      lock_file=Path(lock) if lock is not None else lock_path_for(loaded.file),
-                      refuse_deviations=refuse_deviations)
     execution = execution or Execution()
-    results, max_t = execute_plan(loaded.plan, jobs, execution=execution, progress=progress)
+    with early_workers(execution):  # worker processes start while the plan and data are checked
+        checked = check_plan(path, params=params, data_root=data_root)
+        loaded, tables, jobs = checked.loaded, checked.tables, checked.jobs
+        assert tables is not None and jobs is not None
+        lock_entry = lock_for_run(loaded, tables, lock, refuse_deviations=refuse_deviations)
+        check_run_signing(find_signers(loaded.folder, signers), signing, today=started.date(),
+                          lock_file=Path(lock) if lock is not None else lock_path_for(loaded.file),
+                          refuse_deviations=refuse_deviations)
+        results, max_t = execute_plan(loaded.plan, jobs, execution=execution, progress=progress)
     finished = clock()
     run_id = new_run_id(loaded, tables, started)
     facts = RunFacts(run_id=run_id, started_utc=utc_stamp(started), finished_utc=utc_stamp(finished),
