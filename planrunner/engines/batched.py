@@ -38,6 +38,7 @@ BATCH_ELEMENTS = 2_000_000  # draws a pass holds at most: the engines' default b
 # all, so they stay in a 2-core machine's cache (measured there: 3.8 ms per data set of n = 100 per
 # group and 999 resamples at 32,768 keys a pass, 6.3 ms at the one-at-a-time engine's 131,072)
 PASS_KEYS = 32_768
+MIN_PASS_ROWS = 64  # fewer rows than this a pass (wide data sets): the one-at-a-time engine's pass size
 # (data set, first row, stop row) of the rows of one pass that belong to one data set
 RowSegment = tuple[int, int, int]
 Blocks = tuple[tuple[int, int, tuple[int, ...]], ...]
@@ -94,6 +95,8 @@ def mean_difference_nulls(values: np.ndarray, blocks: Blocks, streams: Sequence[
     grand = [float(values[d].sum()) for d in range(count)]  # each data set's own 1-D sum, as its engine
     readers = [UniformRows(stream, width) for stream in streams]
     rows_per_pass = _rows_per_pass(width, batch_elements, PASS_KEYS, permutation.KEY_ROWS)
+    if rows_per_pass < MIN_PASS_ROWS:  # wide data sets: the per-call cost of tiny passes outweighs the cache
+        rows_per_pass = _rows_per_pass(width, batch_elements, permutation.KEY_CACHE_ELEMENTS, permutation.KEY_ROWS)
     buffer = np.empty((min(rows_per_pass, count * resamples), width))
     out = np.empty((count, resamples))
     for pieces in pass_segments(count, resamples, rows_per_pass):
@@ -144,7 +147,8 @@ def cells_replicates(groups: Sequence[np.ndarray], lay: schemes.Layout, statisti
         gathered = [buffer[:rows] for buffer in gathered_buffers]
         for group, (start, stop), into in zip(groups, lay.bounds, gathered):
             for dataset, row, stop_row in segments:  # each row from its own data set's observations
-                np.take(group[dataset], index[row:stop_row, start:stop], out=into[row:stop_row])
+                # "clip" only so that numpy writes into ``out`` unbuffered: the indices are in range
+                np.take(group[dataset], index[row:stop_row, start:stop], out=into[row:stop_row], mode="clip")
         with np.errstate(invalid="ignore", divide="ignore"):  # reported by the engine that reads them
             theta = statistic.compute(*gathered)
         for (dataset, row, stop_row), (_, start, stop) in zip(segments, pieces):
