@@ -39,13 +39,15 @@ PARAMETER_NAMES = ("mean", "sd", "meanlog", "sdlog", "shape", "scale", "p", "siz
 MAX_BINOMIAL_SIZE = 1_000_000_000
 
 CENSORING_PARAMETERS = {"uniform": ("low", "high"), "exponential": ("rate",)}
-MAX_FRAILTY = 20.0  # the largest frailty variance (Kendall's tau 10/11): beyond it most frailties underflow
+# the largest frailty variance (Kendall's tau 10/11): at 20 a tenth of the frailties (shape 1/20) are
+# already below 1e-20, which puts their clusters' times far beyond any data's scale
+MAX_FRAILTY = 20.0
 
 
 @dataclass(frozen=True)
 class ClusterEffect:
-    """What a column's cluster effect is: `kind` "icc" or "frailty" and its value (0: none), or,
-    when the file does not say, `missing` names the key to give."""
+    """What a column's cluster effect is: `kind` "icc" or "frailty" and its value (0: none);
+    `missing` when the file gives the column no value of its kind (the checks refuse that)."""
 
     kind: str
     value: float
@@ -54,9 +56,10 @@ class ClusterEffect:
 
 def cluster_effect(family: Family, column: Any, clusters: Any) -> ClusterEffect:
     """A column's cluster effect: its own `icc` or `frailty`, else that of rows.clusters (README:
-    clusters). A time column (frailty family) with `icc: 0` has none; with rows.clusters.icc but no
-    frailty it is `missing` (an icc does not say how strongly times share a frailty), unless that icc
-    is 0. Both objects are read by attribute (`ColumnModel`, `ClusterRows`), so this stays pure data."""
+    clusters). A time column (frailty family) with `icc: 0` has none. A column whose kind rows.clusters
+    does not give, while it gives the other kind above 0, is `missing`: an icc does not say how strongly
+    times share a frailty, nor a frailty how values correlate. Both objects are read by attribute
+    (`ColumnModel`, `ClusterRows`), so this stays pure data."""
     kind = family.cluster_effect
     if clusters is None:
         return ClusterEffect(kind, 0.0)

@@ -161,8 +161,10 @@ def truncated(of: str, family: str, p: dict[str, float], low: float, high: float
     F(low) + (F(high) − F(low))/2, the mean (E[X; X ≤ high] − E[X; X ≤ low]) / (F(high) − F(low))."""
     if family not in CONTINUOUS:
         return None
-    if of == "mean" and p.get("frailty", 0.0) > 0 and not frailty_law(family, p)[1] * frailty_law(family, p)[0] > 1:
-        return None  # the partial mean's beta integral needs θ < shape
+    if of == "mean" and p.get("frailty", 0.0) > 0:
+        c, d, _ = frailty_law(family, p)
+        if not c * d > 1:
+            return None  # the partial mean's beta integral needs θ < shape
     law = _law(family, p)
     f_low, f_high = float(law.cdf(low)), float(law.cdf(high))
     if not f_high > f_low:
@@ -229,7 +231,8 @@ def true_value(analysis: Any, plan: Plan, datasets: Any) -> dict[str, Any]:
         shapes = {params(level).get("shape", 1.0) for level in levels}
         if frailty >= min(shapes):
             return not_defined(f"under a gamma frailty of variance {frailty:g} the mean of a {family} time is "
-                               f"finite only when the variance is below its shape ({min(shapes):g})")
+                               f"finite only when the variance is below its shape ({min(shapes):g}), and so is "
+                               "the closed form of a filtered mean")
 
     if bounds:
         what = f"{what} of the rows kept ({' and '.join(c for c in conditions if outcome_bounds(c, outcome))})"
