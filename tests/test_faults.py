@@ -127,14 +127,14 @@ def test_failing_fsync_and_rename_leave_nothing(plan, tmp_path, monkeypatch, cap
 
     def no_rename(src, dst):
         raise OSError(errno.EACCES, "Permission denied")
-    monkeypatch.setattr(runner.os, "rename", no_rename)
+    monkeypatch.setattr(os, "rename", no_rename)
     assert cli.main(["run", str(plan), "--out", str(out)]) == 2
     assert "Permission denied" in capsys.readouterr().err and list(out.iterdir()) == []
-    monkeypatch.setattr(runner.os, "rename", real_rename)
+    monkeypatch.setattr(os, "rename", real_rename)
 
     def no_fsync(fd):
         raise OSError(errno.EIO, "Input/output error")
-    monkeypatch.setattr(runner.os, "fsync", no_fsync)
+    monkeypatch.setattr(os, "fsync", no_fsync)
     assert cli.main(["run", str(plan), "--out", str(out)]) == 2
     assert "Input/output error" in capsys.readouterr().err and list(out.iterdir()) == []
     monkeypatch.undo()
@@ -258,7 +258,7 @@ def test_run_folder_is_never_reused(plan, tmp_path, monkeypatch):
         if len(calls) == 1:
             raise OSError(errno.ENOTEMPTY, "Directory not empty")
         return real_rename(src, dst)
-    monkeypatch.setattr(runner.os, "rename", racing_rename)
+    monkeypatch.setattr(os, "rename", racing_rename)
     third = runner.run_plan(plan, out=out, clock=fixed_clock, operator="t")
     assert third.folder == out / f"{first.folder.name}-4" and len(calls) == 2
 
