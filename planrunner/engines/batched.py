@@ -112,11 +112,11 @@ def permutation_answers(task: RangeTask, total: int, stream: Stream, values: np.
                         resamples: int) -> bool:
     """Whether ``task`` is the Monte Carlo range task of a label-shuffle test of a difference of
     means over these pooled ``values`` and ``blocks`` on ``stream``, asked for [0, resamples)."""
-    if not (isinstance(task, range_task) and task.function is permutation._random_range and total == resamples):
+    found = permutation.mean_difference_task(task)
+    if found is None or total != resamples:
         return False
-    pooled, statistic, task_stream, _, fast = task.args
-    return (fast and task_stream == stream and permutation._sums_suffice(pooled, statistic)
-            and pooled.blocks == blocks and np.array_equal(pooled.values, values))
+    task_values, task_blocks, task_stream = found
+    return task_stream == stream and task_blocks == blocks and np.array_equal(task_values, values)
 
 
 def cells_replicates(groups: Sequence[np.ndarray], lay: schemes.Layout, statistic: Statistic,

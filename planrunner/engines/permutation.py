@@ -88,7 +88,8 @@ from planrunner.engines.teststats import SUM_SCORES
 from planrunner.errors import EngineError
 
 __all__ = ["ENUMERATION_LIMIT", "PermutationOptions", "PermutationResult", "computation", "first_group_sums",
-           "monte_carlo_mean_difference", "permutation_test"]
+           "mean_difference_task", "monte_carlo_mean_difference",
+           "permutation_test"]
 
 FEW_ARRANGEMENTS = 20  # common practice: below 20 the smallest attainable p exceeds 0.05
 TWO_SIDED_TEXT = {
@@ -203,6 +204,16 @@ def monte_carlo_mean_difference(samples: Sequence[np.ndarray], statistic: Statis
     if _choose(pooled, statistic, options, True)[0] != MONTE_CARLO:
         return None
     return pooled.values, pooled.blocks
+
+
+def mean_difference_task(task: Any) -> tuple[np.ndarray, tuple[tuple[int, int, tuple[int, ...]], ...], Stream] | None:
+    """The pooled values, stratum blocks and stream of a Monte Carlo range task of this engine that
+    draws the null of a difference of means by the first group's sums, or None for any other task
+    (``engines/batched.py`` answers only that task from a batch)."""
+    if not (isinstance(task, range_task) and task.function is _random_range):
+        return None
+    pooled, statistic, stream, _, fast = task.args
+    return (pooled.values, pooled.blocks, stream) if fast and _sums_suffice(pooled, statistic) else None
 
 
 def _choose(pooled: _Pooled, statistic: Statistic, options: PermutationOptions,
