@@ -49,7 +49,7 @@ from planrunner.record.rehearsal import STAMP as REHEARSAL_STAMP
 from planrunner.record.survival import kaplan_meier_details
 
 FORMAT = "planrunner.record/1"
-PACKAGES = ("numpy", "scipy", "pandas", "pydantic", "pyyaml", "jinja2", "matplotlib")
+PACKAGES = ("numpy", "scipy", "pandas", "pydantic", "pyyaml", "jinja2")
 CAUTION = (
     "These results are computations under the assumptions stated in the plan and in this record "
     "(the resampling scheme, the statistic, the data as read). They are not a decision. Decisions "

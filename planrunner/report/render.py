@@ -3,7 +3,7 @@
 Templates live in the top-level `templates/` folder (shipped inside the wheel as
 `planrunner/templates`). They only format: every number they show is already in the record, printed
 to the precision its Monte Carlo error supports (planrunner/precision.py). The pictures are drawn by
-planrunner/plots.py from the record alone; the HTML report embeds them as inline SVG, so it is one
+planrunner/report/plots.py (through the SVG writer report/canvas.py) from the record alone; the HTML report embeds them as inline SVG, so it is one
 self-contained file that opens offline and from an e-mail attachment, and the Markdown report links
 to them as SVG files in figures/ beside it.
 """
@@ -28,7 +28,7 @@ from planrunner.report import digits as precision
 from planrunner.report import labels
 from planrunner.report.digits import significant
 
-if TYPE_CHECKING:  # matplotlib and jinja2 are imported only when a report is drawn
+if TYPE_CHECKING:  # jinja2 and the SVG writer are imported only when a report is drawn
     import jinja2
 
     from planrunner.report import plots
@@ -276,7 +276,7 @@ def descriptive_tables(entry: dict[str, Any]) -> list[dict[str, Any]]:
 @functools.lru_cache(maxsize=64)
 def _plots(entry_json: str) -> tuple[plots.Plot, ...]:
     """The pictures of one record entry; drawing is slow and pure, so the same entry is drawn once."""
-    from planrunner.report import plots  # matplotlib loads only when a report is drawn (not for `check` or `--version`)
+    from planrunner.report import plots  # loads only when a report is drawn (not for `check` or `--version`)
     from planrunner.report.kmplot import curve_plot
 
     entry = json.loads(entry_json)
