@@ -1,6 +1,6 @@
-"""planrunner's SVG writer (report/canvas.py) checked against outside values: Heckbert's nice-numbers
-rule, numpy.histogram counts, the record's numbers under the axes' linear map, XML well-formedness
-and escaping, and the same bytes on every run."""
+"""planrunner's SVG writer (report/canvas.py) checked against outside values (V-SVG): Heckbert's
+nice-numbers rule, numpy.histogram counts, the record's numbers under the axes' linear map, XML
+well-formedness and escaping, and the same bytes on every run."""
 
 from __future__ import annotations
 

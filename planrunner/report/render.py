@@ -3,9 +3,9 @@
 Templates live in the top-level `templates/` folder (shipped inside the wheel as
 `planrunner/templates`). They only format: every number they show is already in the record, printed
 to the precision its Monte Carlo error supports (planrunner/precision.py). The pictures are drawn by
-planrunner/report/plots.py (through the SVG writer report/canvas.py) from the record alone; the HTML report embeds them as inline SVG, so it is one
-self-contained file that opens offline and from an e-mail attachment, and the Markdown report links
-to them as SVG files in figures/ beside it.
+planrunner/report/plots.py (through the SVG writer report/canvas.py) from the record alone; the HTML
+report embeds them as inline SVG, so it is one self-contained file that opens offline and from an
+e-mail attachment, and the Markdown report links to them as SVG files in figures/ beside it.
 """
 
 from __future__ import annotations
