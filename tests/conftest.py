@@ -39,6 +39,28 @@ def write_plan(tmp_path: Path):
     return write
 
 
+def two_group_plan(method: str, resamples: int, rows: str = "a,1\na,2\na,4\na,7\nb,3\nb,5\nb,6\nb,9\n",
+                   seed: int = 1) -> tuple[str, dict[str, str]]:
+    """A plan of one analysis, the mean difference of y between groups a and b of d.csv (invented
+    rows "g,y" lines), and its data: write_plan(*two_group_plan("permutation", 199))."""
+    plan = f"""
+        plan: two-groups
+        title: Two groups
+        seed: {seed}
+        datasets:
+          d: {{file: d.csv, columns: {{g: {{type: category, levels: [a, b]}}, y: {{type: number}}}}}}
+        analyses:
+          - id: diff
+            data: d
+            outcome: y
+            groups: {{by: g, compare: [a, b]}}
+            statistic: mean_difference
+            method: {method}
+            resamples: {resamples}
+        """
+    return plan, {"d.csv": "g,y\n" + rows}
+
+
 def csv_of_groups(column: str, groups: dict[str, list[float]]) -> str:
     """A two-column CSV: group,<column>."""
     lines = [f"group,{column}"] + [f"{g},{v}" for g, values in groups.items() for v in values]

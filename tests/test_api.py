@@ -8,6 +8,7 @@ import shutil
 from pathlib import Path
 
 import pytest
+from conftest import two_group_plan
 
 from planrunner import api
 from planrunner.cli import main as cli
@@ -81,26 +82,10 @@ def test_errors_are_raised_with_the_command_lines_message_and_nothing_printed(tm
 
 # --- what `run` can do besides computing: progress, signing, the PDF (the command line's own code) --------
 
-TINY = """
-    plan: tiny
-    title: tiny
-    seed: 1
-    datasets:
-      d: {file: d.csv, columns: {g: {type: category, levels: [a, b]}, y: {type: number}}}
-    analyses:
-      - id: diff
-        data: d
-        outcome: y
-        groups: {by: g, compare: [a, b]}
-        statistic: mean_difference
-        method: bootstrap
-        resamples: 2000
-    """
-TINY_DATA = {"d.csv": "g,y\na,1\na,2\na,4\na,7\nb,3\nb,5\nb,6\nb,9\n"}
 
 
 def test_progress_is_heard_by_a_function_and_the_bar_prints_nothing_off_a_terminal(write_plan, tmp_path, capsys):
-    plan = write_plan(TINY, TINY_DATA)
+    plan = write_plan(*two_group_plan("bootstrap", 2000))
     heard: list[tuple[int, int]] = []
     heard_run = api.run(plan, out=tmp_path / "runs", history=False,
                         progress=lambda done, total: heard.append((done, total)))
@@ -115,7 +100,7 @@ def test_a_signed_api_run_writes_the_files_a_signed_cli_run_writes(write_plan, t
     from planrunner.errors import SigningError
     from planrunner.trail.signfiles import generate_key
 
-    plan = write_plan(TINY, TINY_DATA)
+    plan = write_plan(*two_group_plan("bootstrap", 2000))
     generate_key(tmp_path / "ana.key", passphrase=b"correct horse", name="ana")  # invented for the test
     monkeypatch.setenv("PR_PASS", "correct horse")
     signed = api.run(plan, out=tmp_path / "api", sign_key=tmp_path / "ana.key", signer="Ana Lima",
@@ -151,7 +136,7 @@ def test_pdf_without_a_browser_or_on_unknown_paper_is_refused_before_computing(w
     from planrunner.errors import OutputError
     from planrunner.report import pdf
 
-    plan = write_plan(TINY, TINY_DATA)
+    plan = write_plan(*two_group_plan("bootstrap", 2000))
     with pytest.raises(PlanError, match="paper must be one of A4, Letter"):
         api.run(plan, out=tmp_path / "runs", pdf=True, paper="A3")
     monkeypatch.delenv(pdf.ENVIRONMENT_VARIABLE, raising=False)
@@ -170,5 +155,6 @@ def test_pdf_is_written_in_the_run_folder(write_plan, tmp_path):
         pdf.find_browser()
     except Exception:
         pytest.skip("no Chromium or Chrome here (see test_report_browser)")
-    done = api.run(write_plan(TINY, TINY_DATA), out=tmp_path / "runs", history=False, pdf=True, paper="Letter")
+    plan = write_plan(*two_group_plan("bootstrap", 2000))
+    done = api.run(plan, out=tmp_path / "runs", history=False, pdf=True, paper="Letter")
     assert done.pdf == done.folder / "report-Letter.pdf" and done.pdf.read_bytes()[:5] == b"%PDF-"

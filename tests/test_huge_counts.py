@@ -9,7 +9,7 @@ import math
 
 import numpy as np
 import pytest
-from conftest import fixed_clock
+from conftest import fixed_clock, two_group_plan
 from scipy import special, stats
 from test_permutation_plans import BINARY, analysis, binary_csv, run
 
@@ -197,21 +197,7 @@ def test_verify_accepts_a_record_written_with_json_integers_past_2_53(write_plan
     from planrunner.record.canonical import RECORD_HASH_FIELD, record_sha256
 
     rows = "".join(f"{'a' if i % 2 else 'b'},{(i * 37) % 23 / 7:.4f}\n" for i in range(60))
-    plan = write_plan("""
-plan: sixty
-title: Sixty rows
-seed: 4
-datasets:
-  d: {file: d.csv, columns: {g: {type: category, levels: [a, b]}, y: {type: number}}}
-analyses:
-  - id: diff
-    data: d
-    outcome: y
-    groups: {by: g, compare: [a, b]}
-    statistic: mean_difference
-    method: permutation
-    resamples: 99
-""", {"d.csv": "g,y\n" + rows})
+    plan = write_plan(*two_group_plan("permutation", 99, rows, seed=4))
     folder = run_plan(plan, out=tmp_path / "runs", clock=fixed_clock, history=False).folder
     file = folder / "record.json"
     record = json.loads(file.read_text(encoding="utf-8"))

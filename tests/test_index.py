@@ -10,6 +10,7 @@ import shutil
 from pathlib import Path
 
 import pytest
+from conftest import two_group_plan
 
 from planrunner.cli.main import main
 from planrunner.trail.index import INDEX_FILE, gather_runs, render_index_of
@@ -122,28 +123,13 @@ def test_a_run_is_complete_even_when_the_index_cannot_be_written(tmp_path, capsy
 
 # --- the last verify of each run, from the verify log beside the history ------------------------------
 
-TWO_GROUPS = """
-plan: small
-title: Small
-seed: 8
-datasets:
-  d: {file: d.csv, columns: {g: {type: category, levels: [a, b]}, y: {type: number}}}
-analyses:
-  - id: diff
-    data: d
-    outcome: y
-    groups: {by: g, compare: [a, b]}
-    statistic: mean_difference
-    method: permutation
-    resamples: 199
-"""
 
 
 def test_the_index_shows_each_runs_last_verify_from_a_hash_chained_log(write_plan, tmp_path, capsys):
     from planrunner.record.canonical import self_hash
     from planrunner.trail.history import ENTRY_HASH_FIELD, GENESIS, VERIFY_FILE
 
-    plan = write_plan(TWO_GROUPS, {"d.csv": "g,y\na,1\na,2\na,4\nb,3\nb,5\nb,6\nb,9\n"})
+    plan = write_plan(*two_group_plan("permutation", 199))
     runs = tmp_path / "runs"
     for reason in ("first", "second"):
         assert main(["run", str(plan), "--quiet", "--reason", reason]) == 0
@@ -188,7 +174,7 @@ def test_the_index_shows_each_runs_last_verify_from_a_hash_chained_log(write_pla
 
 
 def test_a_verify_of_a_record_no_history_logs_writes_nothing(write_plan, tmp_path, capsys):
-    plan = write_plan(TWO_GROUPS, {"d.csv": "g,y\na,1\na,2\na,4\nb,3\nb,5\nb,6\nb,9\n"})
+    plan = write_plan(*two_group_plan("permutation", 199))
     assert main(["run", str(plan), "--quiet"]) == 0
     (folder,) = [p for p in (tmp_path / "runs").iterdir() if p.is_dir()]
     copy = tmp_path / "elsewhere" / folder.name
