@@ -295,7 +295,7 @@ def shared_ranges(total: int, workers: int) -> list[tuple[int, int]]:
 
 class _Shares:
     """The ranges of one task (`shared_ranges`), each computed once, by whoever asks for it first:
-    the calling thread (`compute_here`) or a worker (`claim`, then `finish` or `fail`). The calling
+    the calling thread (`compute`) or a worker (`claim`, then `finish` or `fail`). The calling
     thread alone reports progress and collects the parts in range order (`collect`)."""
 
     def __init__(self, task: RangeTask, total: int, workers: int, tally: _Tally):
