@@ -123,3 +123,23 @@ def test_workers_started_early_are_taken_by_the_run_and_stopped_after_an_error()
     with pytest.raises(PlanError), executors.early_workers(execution):
         raise PlanError("a plan error found while the workers start")
     assert executors._early == [] and multiprocessing.active_children() == []  # stopped and reaped
+
+
+def test_worker_processes_start_without_a_long_blas_spin_and_this_process_keeps_its_environment(
+        monkeypatch) -> None:
+    import os
+
+    monkeypatch.delenv("OPENBLAS_THREAD_TIMEOUT", raising=False)
+    pool = executors.process_pool(1)
+    try:
+        seen = pool.apply(os.getenv, ("OPENBLAS_THREAD_TIMEOUT",))
+    finally:
+        executors.stop_process_pool(pool)
+    assert seen == executors.WORKER_ENVIRONMENT["OPENBLAS_THREAD_TIMEOUT"]
+    assert "OPENBLAS_THREAD_TIMEOUT" not in os.environ  # set for the workers' start only
+    monkeypatch.setenv("OPENBLAS_THREAD_TIMEOUT", "25")  # the user's own setting wins
+    pool = executors.process_pool(1)
+    try:
+        assert pool.apply(os.getenv, ("OPENBLAS_THREAD_TIMEOUT",)) == "25"
+    finally:
+        executors.stop_process_pool(pool)

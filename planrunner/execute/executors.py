@@ -405,10 +405,32 @@ def _on_threads(jobs: list[Job], execution: Execution, tally: _Tally) -> list[An
         pool.shutdown(wait=True, cancel_futures=True)
 
 
+# OpenBLAS (numpy's BLAS) starts its threads when numpy is imported, and an idle BLAS thread spins
+# for 2**28 cycles (about 0.1 s) before it sleeps: every worker process paid that in CPU at its start,
+# taken from the processes computing on a machine with few cores. 2**20 cycles (under a millisecond)
+# still keeps a thread awake between the BLAS calls of one batch. The setting changes when BLAS
+# threads sleep, never how many there are or how they split a product, so no number changes.
+WORKER_ENVIRONMENT = {"OPENBLAS_THREAD_TIMEOUT": "20"}
+
+
 def process_pool(workers: int) -> Any:
     """A pool of ``workers`` worker processes that leave Ctrl-C to this process. spawn: a clean
     interpreter per worker (forking a process that holds threads is unsafe)."""
-    return multiprocessing.get_context("spawn").Pool(workers, initializer=ignore_interrupts)
+    with _environment_for_workers():
+        return multiprocessing.get_context("spawn").Pool(workers, initializer=ignore_interrupts)
+
+
+@contextlib.contextmanager
+def _environment_for_workers() -> Iterator[None]:
+    """WORKER_ENVIRONMENT, but where the user set a variable, while the pool starts its processes
+    (spawn hands them this process's environment as it is at that moment)."""
+    added = {name: value for name, value in WORKER_ENVIRONMENT.items() if name not in os.environ}
+    os.environ.update(added)
+    try:
+        yield
+    finally:
+        for name in added:
+            os.environ.pop(name, None)
 
 
 def stop_process_pool(pool: Any) -> None:
