@@ -326,6 +326,7 @@ TRACE: dict[str, tuple[str, ...]] = {
         "test_permutation_designs_identical_serial_threads_processes_and_dask"),
     "Start-up": ("tests/test_startup.py::test_version_loads_no_heavy_library",
                  "tests/test_startup.py::test_plan_only_check_loads_no_heavy_library",
+                 "tests/test_startup.py::test_check_with_data_loads_nothing_only_a_run_needs",
                  "tests/test_startup.py::test_the_probe_sees_the_libraries_a_run_needs_and_no_more",
                  "tests/test_startup.py::test_demo_record_numbers_are_unchanged",
                  "tests/test_startup.py::test_compiled_templates_from_the_cache_render_the_same_pages",
