@@ -5,7 +5,8 @@ data sets share the numpy calls of one pass, while each data set keeps its own s
 rows are read from its stream exactly as its own range task reads them (``UniformRows`` from
 resample 0), and every reduction stays a reduction of one row, in the same order, so each data
 set's replicates are bit-identical to those of the one-at-a-time engine
-(``permutation._random_range``, ``schemes.cells_range``; tests/test_batched.py compares with ==).
+(``permutation.mean_difference_task``'s task, ``schemes.cells_range``; tests/test_batched.py compares
+with ==).
 
 A pass holds at most ``batch_elements`` draws (and no more than the one-at-a-time engines keep in
 cache), whatever the number of data sets: rows of data sets × resamples are cut into passes in
@@ -31,7 +32,7 @@ from planrunner.engines.statistics import Statistic
 from planrunner.engines.streams import Stream, UniformRows
 
 __all__ = ["BATCH_ELEMENTS", "cells_answers", "cells_replicates", "mean_difference_nulls", "pass_segments",
-           "permutation_answers"]
+           "permutation_answers", "same_cells"]
 
 BATCH_ELEMENTS = 2_000_000  # draws a pass holds at most: the engines' default batch_elements
 # keys a pass of the label-shuffle null holds: with its masks, buckets and products about 1 MB in

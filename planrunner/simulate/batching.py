@@ -10,9 +10,10 @@ from a batch only when it is the very task that was batched (same function, stre
 settings); any other task is computed as before. So batching can change no number (the tests
 compare the two paths with ==), only how many numpy calls make them.
 
-Memory: a pass holds at most ``batched.BATCH_ELEMENTS`` draws, and the replicates a batch keeps
-until its data sets have read them are at most ``BATCH_ELEMENTS`` doubles (``simulate/run.py``
-closes a batch before its data sets' resamples would exceed them; a batch holds one data set at least).
+Memory: a pass holds at most ``batched.BATCH_ELEMENTS`` draws, and the observations and replicates
+a batch keeps until its data sets have read them are at most ``BATCH_ELEMENTS`` doubles
+(``simulate/run.batches`` closes a batch before they would exceed them; a batch holds one data set
+at least).
 """
 
 from __future__ import annotations

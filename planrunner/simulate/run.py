@@ -129,7 +129,7 @@ def salted(job: Job, salt: tuple[int, ...]) -> Job:
 
 
 @dataclass(frozen=True)
-class _Compiled:
+class Compiled:
     """A data set's jobs (its plan streams salted), or the located message of its failure before them."""
 
     index: int
@@ -137,14 +137,14 @@ class _Compiled:
     failure: str | None = None
 
 
-def compile_dataset(task: SimulationTask, index: int) -> _Compiled:
+def compile_dataset(task: SimulationTask, index: int) -> Compiled:
     """Simulated data set ``index`` as tables, checked, and its jobs."""
     try:
         tables = simulated_tables(task, index)
         check_tables(task.plan, tables)
-        return _Compiled(index, [salted(job, task.salt(index)) for job in compile_jobs(task.plan, tables)])
+        return Compiled(index, [salted(job, task.salt(index)) for job in compile_jobs(task.plan, tables)])
     except PlanrunnerError as exc:
-        return _Compiled(index, None, str(exc))
+        return Compiled(index, None, str(exc))
 
 
 def run_dataset(task: SimulationTask, index: int) -> DatasetOutcome:
@@ -152,7 +152,7 @@ def run_dataset(task: SimulationTask, index: int) -> DatasetOutcome:
     return finish_dataset(task, compile_dataset(task, index))
 
 
-def finish_dataset(task: SimulationTask, compiled: _Compiled) -> DatasetOutcome:
+def finish_dataset(task: SimulationTask, compiled: Compiled) -> DatasetOutcome:
     """Every analysis of a compiled data set through its engines (under whatever range mapper is
     installed: a batch's, see simulate/batching.py), its max-t families and the record's adapters."""
     plan, index = task.plan, compiled.index
@@ -280,12 +280,12 @@ def run_chunk(task: SimulationTask, start: int, stop: int) -> list[DatasetOutcom
         return out
 
 
-def batches(task: SimulationTask, start: int, stop: int) -> Iterator[list[_Compiled]]:
+def batches(task: SimulationTask, start: int, stop: int) -> Iterator[list[Compiled]]:
     """The compiled data sets [start, stop) in consecutive batches of at most ``task.batch`` (None:
     the whole range), each closed before what its data sets hold (`held_elements`) would exceed
     ``BATCH_ELEMENTS`` doubles (at least one data set a batch: a large data set runs alone)."""
     most = stop - start if task.batch is None else task.batch
-    batch: list[_Compiled] = []
+    batch: list[Compiled] = []
     kept = 0
     for index in range(start, stop):
         compiled = compile_dataset(task, index)
@@ -299,7 +299,7 @@ def batches(task: SimulationTask, start: int, stop: int) -> Iterator[list[_Compi
         yield batch
 
 
-def held_elements(compiled: _Compiled) -> int:
+def held_elements(compiled: Compiled) -> int:
     """What a data set of a batch holds until its engines have run: its jobs' observations and,
     at most, one replicate per resample of each (the batched ones; a jackknife draws none)."""
     return sum(job_resamples(job) + sum(int(s.size) for s in job.samples) for job in compiled.jobs or ())
