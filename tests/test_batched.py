@@ -282,3 +282,21 @@ def test_the_memory_check_leaves_room_for_what_a_batch_holds(task):
     with pytest.raises(DataError, match="memory"):
         run.check_memory(dataclasses.replace(task, batch=None), 1, available)
     run.check_memory(dataclasses.replace(task, batch=None), 1, available + 8 * batched.BATCH_ELEMENTS)
+
+
+def test_simulate_runs_threads_one_data_set_at_a_time(tmp_path, monkeypatch):
+    """Batches measured slower on threads (README: Simulation speed): there the default is batch 0."""
+    plan, scenarios = tmp_path / "plan.yaml", tmp_path / "scenarios.yaml"
+    plan.write_text(PLAN, encoding="utf-8")
+    scenarios.write_text(SCENARIOS, encoding="utf-8")
+    made: list[int | None] = []
+    original = run.run_scenario
+
+    def spy(task, *args, **kwargs):
+        made.append(task.batch)
+        return original(task, *args, **kwargs)
+
+    monkeypatch.setattr("planrunner.simulate.simulation.run_scenario", spy)
+    simulate_plan(plan, scenarios, out=tmp_path / "threads", execution=Execution("threads", 2), clock=fixed_clock)
+    simulate_plan(plan, scenarios, out=tmp_path / "serial", clock=fixed_clock)
+    assert made == [0, None]

@@ -400,7 +400,8 @@ TRACE: dict[str, tuple[str, ...]] = {
         BATCHED + "test_simulation_json_is_the_same_with_and_without_batches",
         BATCHED + "test_a_pass_never_holds_more_draws_than_its_budget",
         BATCHED + "test_a_batch_closes_before_what_it_holds_exceeds_the_budget",
-        BATCHED + "test_the_memory_check_leaves_room_for_what_a_batch_holds"),
+        BATCHED + "test_the_memory_check_leaves_room_for_what_a_batch_holds",
+        BATCHED + "test_simulate_runs_threads_one_data_set_at_a_time"),
     "What a simulation reports": (
         SIMCHECK + "test_power_of_a_permutation_test_matches_the_noncentral_t",
         SIMCHECK + "test_type_i_error_of_a_permutation_test_is_alpha",
