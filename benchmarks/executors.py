@@ -111,7 +111,7 @@ def main(argv: list[str] | None = None) -> int:
 
     from planrunner import __version__
     from planrunner.execute.executors import Execution, execute_all
-    from planrunner.pipeline.run import check_plan
+    from planrunner.pipeline.check import check_plan
 
     names = args.executors.split(",")
     if names[0] != "serial":

@@ -28,7 +28,7 @@ from pathlib import Path
 import numpy as np
 
 from planrunner.execute.executors import Execution
-from planrunner.pipeline.run import load_plan
+from planrunner.pipeline.check import load_plan
 from planrunner.simulate.run import SimulationTask, WorkerPool, run_scenario, used_datasets
 
 PLAN = """\

@@ -12,7 +12,8 @@ import hashlib
 import json
 from pathlib import Path
 
-from planrunner.pipeline.run import check_plan, execute_plan
+from planrunner.pipeline.check import check_plan
+from planrunner.pipeline.run import execute_plan
 from planrunner.record.build import RunFacts, build_record
 
 ROOT = Path(__file__).resolve().parents[1]

@@ -17,7 +17,7 @@ from planrunner.engines.permcore import PermutationOptions
 from planrunner.engines.statistics import STATISTICS, bind, get_statistic
 from planrunner.engines.streams import Stream
 from planrunner.execute.executors import Execution
-from planrunner.pipeline.run import load_plan
+from planrunner.pipeline.check import load_plan
 from planrunner.simulate import batching, run
 from planrunner.simulate.run import SimulationTask, WorkerPool, run_scenario, used_datasets
 from planrunner.simulate.simulation import simulate_plan

@@ -10,7 +10,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from planrunner.errors import DataError
-from planrunner.pipeline.run import check_plan
+from planrunner.pipeline.check import check_plan
 
 PLAN = """
 plan: data-check

@@ -19,7 +19,8 @@ from planrunner.engines.permutation import permutation_test
 from planrunner.engines.statistics import get_statistic
 from planrunner.engines.streams import stream_for
 from planrunner.execute.executors import Execution, ExecutorError, execute_all
-from planrunner.pipeline.run import check_plan, run_plan
+from planrunner.pipeline.check import check_plan
+from planrunner.pipeline.run import run_plan
 
 DEMO = Path(__file__).resolve().parents[1] / "plans" / "liner-trial"
 # informational fields: when, who, how it ran; everything else must agree bit for bit

@@ -18,7 +18,7 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from planrunner.errors import PlanError, PlanrunnerError
-from planrunner.pipeline.run import check_plan
+from planrunner.pipeline.check import check_plan
 from planrunner.plan.load import read_plan
 from planrunner.plan.yamlsafe import MAX_DEPTH, MAX_PLAN_BYTES
 

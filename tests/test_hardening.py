@@ -118,7 +118,7 @@ def test_memory_estimate_follows_the_stated_rule(write_plan, monkeypatch):
 
 
 def test_available_memory_is_a_positive_number_here():
-    available = runner.available_memory()
+    available = checker.available_memory()
     assert available is None or available > 0
 
 

@@ -10,7 +10,7 @@ import pandas as pd
 import pytest
 
 from planrunner.cli import main as cli
-from planrunner.pipeline.run import check_plan
+from planrunner.pipeline.check import check_plan
 from planrunner.plan.load import read_plan
 
 ROOT = Path(__file__).resolve().parents[1]

@@ -21,8 +21,8 @@ from planrunner.cli import main as cli
 from planrunner.data.dummy import MARKER, ROWS_PER_CLUSTER, _balanced, dummy_data, stream_of
 from planrunner.data.tables import read_table
 from planrunner.errors import OutputError, PlanError
+from planrunner.pipeline.check import load_plan
 from planrunner.pipeline.rehearse import DUMMY_FOLDER, rehearse_plan
-from planrunner.pipeline.run import load_plan
 from planrunner.record.rehearsal import STAMP
 from planrunner.record.schemas import record_schema
 from planrunner.report.pdf import header

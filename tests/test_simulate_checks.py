@@ -15,7 +15,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from planrunner.pipeline.run import load_plan
+from planrunner.pipeline.check import load_plan
 from planrunner.simulate.metrics import analysis_metrics, share
 from planrunner.simulate.run import SimulationTask, alpha_of, run_scenario, used_datasets
 

@@ -162,7 +162,7 @@ def test_the_scenarios_file_is_required(files, capsys):
 
 
 def test_the_demo_scenarios_file_fits_the_demo_plan():
-    from planrunner.pipeline.run import load_plan
+    from planrunner.pipeline.check import load_plan
     from planrunner.simulate.scenarios import load_scenarios
 
     demo = Path(__file__).resolve().parents[1] / "plans" / "liner-trial"
@@ -173,10 +173,10 @@ def test_the_demo_scenarios_file_fits_the_demo_plan():
 
 
 def test_a_scenario_that_would_not_fit_in_memory_is_refused_before_computing(files, tmp_path, monkeypatch, capsys):
-    from planrunner.pipeline import run as pipeline_run
+    from planrunner.pipeline import check as pipeline_check
 
     plan, scenarios = files
-    monkeypatch.setattr(pipeline_run, "available_memory", lambda: 1000)
+    monkeypatch.setattr(pipeline_check, "available_memory", lambda: 1000)
     assert main(["simulate", str(plan), "--scenarios", str(scenarios), "--out", str(tmp_path / "out")]) == 2
     err = capsys.readouterr().err
     assert "resources" in err and "memory" in err and "analysis 'primary'" in err

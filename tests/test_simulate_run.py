@@ -11,7 +11,7 @@ import pytest
 from planrunner.data.columns import table_from_columns
 from planrunner.errors import DataError
 from planrunner.execute.executors import Execution
-from planrunner.pipeline.run import load_plan
+from planrunner.pipeline.check import load_plan
 from planrunner.simulate.metrics import analysis_metrics
 from planrunner.simulate.run import SimulationTask, WorkerPool, chunks, run_scenario, used_datasets
 

@@ -9,7 +9,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from planrunner.pipeline.run import load_plan
+from planrunner.pipeline.check import load_plan
 from planrunner.simulate.scenarios import DatasetModel
 from planrunner.simulate.truth import true_value
 

@@ -10,8 +10,9 @@ from typing import Any
 from planrunner.api.progress import ProgressBar
 from planrunner.errors import PlanError
 from planrunner.execute.executors import Execution
+from planrunner.pipeline.check import check_plan
 from planrunner.pipeline.printing import write_pdf
-from planrunner.pipeline.run import check_plan, run_plan
+from planrunner.pipeline.run import run_plan
 from planrunner.plan.schema import Plan
 from planrunner.record.permutation import count_value
 from planrunner.record.results import NAMES, result_rows

@@ -21,8 +21,9 @@ from planrunner.data.tables import file_sha256, resolve_data_path
 from planrunner.engines.streams import REFERENCE_DRAWS_SHA256, draws_sha256
 from planrunner.errors import PlanError, PlanrunnerError, RecordError
 from planrunner.execute.executors import Execution
+from planrunner.pipeline.check import load_tables
 from planrunner.pipeline.printing import read_record
-from planrunner.pipeline.run import execute_plan, load_tables
+from planrunner.pipeline.run import execute_plan
 from planrunner.plan.load import read_plan
 from planrunner.plan.params import apply as apply_parameters
 from planrunner.plan.params import resolve_values

@@ -13,7 +13,7 @@ simple and on the high side; the rule is written in the README ("What planrunner
   each draw costing about BYTES_PER_DRAW bytes for indices, keys and gathered values.
 
 The estimate is compared with LIMIT_SHARE of the memory available when the run starts (Linux:
-MemAvailable in /proc/meminfo; elsewhere the physical memory; read by `runner.available_memory`,
+MemAvailable in /proc/meminfo; elsewhere the physical memory; read by `pipeline.check.available_memory`,
 since only the runner touches the system), so other processes keep room.
 """
 

@@ -20,13 +20,12 @@ from pathlib import Path
 from planrunner.data.dummy import DEFAULT_UNITS, GENERATOR_ID, MARKER, RULES, DummyFile, dummy_data
 from planrunner.errors import OutputError, PlanError
 from planrunner.execute.executors import Execution, Progress
+from planrunner.pipeline.check import check_plan, load_plan
 from planrunner.pipeline.run import (
     Clock,
     RunOutcome,
-    check_plan,
     default_operator,
     execute_plan,
-    load_plan,
     new_run_id,
     utc_now,
     utc_stamp,

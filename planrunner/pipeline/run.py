@@ -23,13 +23,7 @@ from planrunner.errors import OutputError, PlanrunnerError
 from planrunner.execute.executors import Execution, Progress, early_workers, execute_all
 from planrunner.execute.families import max_t_families
 from planrunner.execute.signals import holding_interrupts
-from planrunner.pipeline.check import (  # noqa: F401 (load_plan, available_memory, CheckOutcome for callers)
-    CheckOutcome,
-    available_memory,
-    check_plan,
-    load_plan,
-    load_tables,
-)
+from planrunner.pipeline.check import check_plan
 from planrunner.plan.load import LoadedPlan
 from planrunner.plan.schema import Plan
 from planrunner.record.build import RunFacts, build_record, to_json

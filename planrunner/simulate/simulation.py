@@ -98,7 +98,7 @@ def simulate_plan(plan_path: str | Path, scenarios_path: str | Path, *, out: str
     passes (``SimulationTask.batch``; 0 runs them one at a time; None: a whole chunk, except on
     threads, where batches measured slower, one at a time); it never changes a number. An
     interrupt leaves nothing behind: the folder is written only when every number is in (trail/store.py)."""
-    from planrunner.pipeline.run import load_plan
+    from planrunner.pipeline.check import load_plan
     from planrunner.simulate.scenarios import load_scenarios
     from planrunner.trail.files import lock_for_run
 
@@ -166,7 +166,7 @@ def _scenario_entry(plan: Plan, seed: int, scenario: Any, execution: Execution, 
 
 def _run(plan: Plan, seed: int, label: str, scenario: Any, replicates: int, execution: Execution,
          pool: WorkerPool, progress: Callable[[str], Progress] | None, batch: int | None) -> list[DatasetOutcome]:
-    from planrunner.pipeline.run import available_memory
+    from planrunner.pipeline.check import available_memory
 
     used = used_datasets(plan)
     task = SimulationTask(plan, seed, label, ModelData(dict(scenario.datasets), plan, used), used, batch)
