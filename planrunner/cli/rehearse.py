@@ -22,7 +22,7 @@ def _seed(text: str) -> int:
 
 
 def _units(text: str) -> int:
-    from planrunner.data.dummy import MAX_UNITS, MIN_UNITS
+    from planrunner.data.units import MAX_UNITS, MIN_UNITS
     try:
         value = int(text)
     except ValueError:
@@ -33,7 +33,7 @@ def _units(text: str) -> int:
 
 
 def add_rehearse_verb(verbs: Any) -> None:
-    from planrunner.data.dummy import DEFAULT_UNITS
+    from planrunner.data.units import DEFAULT_UNITS
     rehearse = verbs.add_parser("rehearse", help="run the whole plan on dummy data made from its declared columns "
                                                  "(a rehearsal: never a result)")
     rehearse.add_argument("plan", help="path to the plan (YAML); its data files are never read")

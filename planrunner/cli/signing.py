@@ -27,7 +27,7 @@ def add_passphrase_options(verb: argparse.ArgumentParser) -> None:
 
 
 def add_signing_verbs(verbs: Any) -> None:
-    from planrunner.trail.signatures import MEANINGS
+    from planrunner.trail.meanings import MEANINGS
     keygen = verbs.add_parser("keygen", help="create an Ed25519 key pair for signing")
     keygen.add_argument("key", help="the private key file to create (the public key goes to KEY.public.json)")
     keygen.add_argument("--name", help="the owner's printed name, kept in the public key file")
@@ -83,6 +83,10 @@ def signing_key(key: str, name: str | None, args: argparse.Namespace) -> Any:
 
 def run_signing(args: argparse.Namespace) -> Any:
     """The run's signing key, or None when the run is not signed."""
+    if args.sign_key is None and not args.signer:
+        # not signed: the signing module (which loads the record and compile stages) is not needed,
+        # and `run` starts its worker processes sooner without it
+        return None
     from planrunner.trail.signfiles import run_signing_key
     return run_signing_key(args.sign_key, args.signer, passphrase_env=args.passphrase_env,
                            passphrase_file=args.passphrase_file, ask=_terminal_prompt())

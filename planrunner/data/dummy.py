@@ -42,6 +42,7 @@ from typing import Any
 import numpy as np
 
 from planrunner.data.parquet import ParquetColumn, parquet_bytes
+from planrunner.data.units import DEFAULT_UNITS, MAX_UNITS, MIN_UNITS
 from planrunner.engines.streams import Stream, analysis_key
 from planrunner.errors import DataError, ExpressionError, PlanError
 from planrunner.plan.derived import derivations
@@ -52,7 +53,6 @@ from planrunner.plan.schema import DATA_SUFFIXES, Column, Dataset, Plan
 # changes with any change of the rules below or of the file writers (they fix every byte);
 # /2: Parquet dummy files from planrunner's own writer (data/parquet.py) instead of pyarrow's
 GENERATOR_ID = "planrunner.dummy/2"
-DEFAULT_UNITS = 40
 ROWS_PER_CLUSTER = 4
 SPAN = 100.0
 DECIMALS = 3
@@ -61,7 +61,6 @@ DATE_START = np.datetime64("2026-01-01")
 DATE_DAYS = 365
 REDRAWS = 50
 STRATA_WITHOUT_LEVELS = 4  # a text or integer strata column gets this many values
-MIN_UNITS, MAX_UNITS = 4, 1_000_000
 # the delimiter of each text format (the typed formats have their own writers)
 DELIMITERS = {"csv": ",", "tsv": "\t"}
 DATASET_JSON_VERSION = "1.1.0"

@@ -27,6 +27,7 @@ from dataclasses import dataclass, field
 from typing import TYPE_CHECKING, Any
 
 from planrunner.record.canonical import canonical_json, content_sha256
+from planrunner.trail.meanings import MEANINGS
 
 if TYPE_CHECKING:
     from cryptography.hazmat.primitives.asymmetric.ed25519 import Ed25519PrivateKey, Ed25519PublicKey
@@ -37,7 +38,6 @@ if TYPE_CHECKING:
 SIGNATURE_FORMAT = "planrunner.signature/1"
 SIGNATURE_FIELD = "signature"
 SIGNERS_FORMAT = "planrunner.signers/1"
-MEANINGS = ("authored", "reviewed", "approved", "executed")
 ROLE_OF_MEANING = {"authored": "author", "reviewed": "reviewer", "approved": "approver", "executed": "executor"}
 ROLES = tuple(ROLE_OF_MEANING.values())
 SUBJECT_KINDS = ("record", "lock", "history-entry", "qualification")
