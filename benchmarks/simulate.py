@@ -27,7 +27,7 @@ from pathlib import Path
 
 import numpy as np
 
-from planrunner.execute.executors import Execution
+from planrunner.execute.pool import Execution
 from planrunner.pipeline.check import load_plan
 from planrunner.simulate.run import SimulationTask, WorkerPool, run_scenario, used_datasets
 

@@ -16,7 +16,7 @@ from planrunner.engines import batched, permutation, schemes
 from planrunner.engines.permcore import PermutationOptions
 from planrunner.engines.statistics import STATISTICS, bind, get_statistic
 from planrunner.engines.streams import Stream
-from planrunner.execute.executors import Execution
+from planrunner.execute.pool import Execution
 from planrunner.pipeline.check import load_plan
 from planrunner.simulate import batching, run
 from planrunner.simulate.run import SimulationTask, WorkerPool, run_scenario, used_datasets

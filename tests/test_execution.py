@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import dataclasses
+import operator
 import shutil
 import sys
 import tracemalloc
@@ -18,7 +19,8 @@ from planrunner.engines.permcore import PermutationOptions
 from planrunner.engines.permutation import permutation_test
 from planrunner.engines.statistics import get_statistic
 from planrunner.engines.streams import stream_for
-from planrunner.execute.executors import Execution, ExecutorError, execute_all
+from planrunner.execute.executors import execute_all
+from planrunner.execute.pool import Execution, ExecutorError
 from planrunner.pipeline.check import check_plan
 from planrunner.pipeline.run import run_plan
 
@@ -354,6 +356,7 @@ def test_a_task_reaches_a_worker_with_aligned_arrays_and_a_light_import() -> Non
     imports the engines it runs but none of the plan, data or compile stages."""
     import multiprocessing
 
+    from planrunner.engines import statistics
     from planrunner.engines.blocks import bind
     from planrunner.execute import executors, rangework
 
@@ -364,11 +367,16 @@ def test_a_task_reaches_a_worker_with_aligned_arrays_and_a_light_import() -> Non
     assert rangework.call_cached_range("aligned-test", payload, 0, 1).tolist() == [True, True]
     # a worker process as the processes executor starts it; its task and the module listing come from
     # numpy and the standard library, so that unpickling them imports no test module
-    with multiprocessing.get_context("spawn").Pool(1, initializer=rangework.ignore_interrupts) as pool:
+    with multiprocessing.get_context("spawn").Pool(1, initializer=rangework.prepare_worker) as pool:
+        imported_at_start = pool.apply(eval, ("sorted(__import__('sys').modules)",))
         ranged = pool.apply(rangework.call_cached_range, ("light", executors.pickled(bind(np.arange)), 2, 5))
+        # a statistic with a parameter travels by name and value, unpickled by the engines alone
+        quantile = statistics.bind(statistics.get_statistic("quantile"), 0.9)
+        assert pool.apply(operator.attrgetter("label"), (quantile,)) == "0.9 quantile"
         imported = pool.apply(eval, ("sorted(__import__('sys').modules)",))
     assert ranged.tolist() == [2, 3, 4]
-    assert "planrunner.engines.blocks" in imported
+    # the engines are imported as the worker starts (before its first task: `run` starts workers early)
+    assert set(rangework.ENGINE_MODULES) <= set(imported_at_start)
     heavy = [name for name in imported if name.split(".")[1:2] in (["plan"], ["data"], ["compile"], ["pipeline"])
              or name == "planrunner.execute.executors"]
     assert heavy == []

@@ -10,7 +10,7 @@ from pathlib import Path
 import pytest
 from conftest import fixed_clock
 
-from planrunner.execute.executors import Execution
+from planrunner.execute.pool import Execution
 from planrunner.pipeline.run import run_plan
 
 DATA = Path(__file__).resolve().parents[1] / "plans" / "ward-hygiene" / "data"

@@ -16,8 +16,9 @@ from planrunner.engines.bootstrap import BootstrapOptions
 from planrunner.engines.permcore import PermutationOptions
 from planrunner.engines.statistics import get_statistic
 from planrunner.engines.streams import stream_for
-from planrunner.execute import executors
-from planrunner.execute.executors import SMALLEST_SHARE, Execution, execute_all, shared_ranges
+from planrunner.execute import executors, pool
+from planrunner.execute.executors import SMALLEST_SHARE, execute_all, shared_ranges
+from planrunner.execute.pool import Execution
 
 
 def _jobs() -> list[Job]:
@@ -114,15 +115,25 @@ def test_workers_started_early_are_taken_by_the_run_and_stopped_after_an_error()
     jobs = _jobs()
     serial = _bits(execute_all(jobs))
     execution = Execution("processes", 2)
-    with executors.early_workers(execution):
-        assert [count for count, _ in executors._early] == [1]  # this process and one worker process
-        early = executors._early[0][1]
-        assert _bits(execute_all(jobs, execution=execution)) == serial
-        assert executors._early == []  # the run took the pool started early ...
+    with pool.early_workers(execution):
+        assert [count for count, _ in pool.early_pools()] == [1]  # this process and one worker process
+        early = pool.early_pools()[0][1]
+        with pool.early_workers(execution):  # the run's own, inside the command line's: no second pool
+            assert pool.early_pools() == [(1, early)]
+            assert _bits(execute_all(jobs, execution=execution)) == serial
+        assert pool.early_pools() == []  # the run took the pool started early ...
     assert early._state != "RUN"  # ... and stopped it
-    with pytest.raises(PlanError), executors.early_workers(execution):
+    assert multiprocessing.active_children() == []
+    with pytest.raises(PlanError), pool.early_workers(execution):
         raise PlanError("a plan error found while the workers start")
-    assert executors._early == [] and multiprocessing.active_children() == []  # stopped and reaped
+    assert pool.early_pools() == [] and multiprocessing.active_children() == []  # stopped and reaped
+
+
+def test_only_the_processes_executor_starts_workers_early() -> None:
+    for execution in (Execution(), Execution("threads", 2), Execution("processes", 1),
+                      Execution("dask", 2, local_processes=False)):
+        with pool.early_workers(execution):
+            assert pool.early_pools() == []
 
 
 def test_worker_processes_start_without_a_long_blas_spin_and_this_process_keeps_its_environment(
@@ -130,16 +141,16 @@ def test_worker_processes_start_without_a_long_blas_spin_and_this_process_keeps_
     import os
 
     monkeypatch.delenv("OPENBLAS_THREAD_TIMEOUT", raising=False)
-    pool = executors.process_pool(1)
+    workers = pool.process_pool(1)
     try:
-        seen = pool.apply(os.getenv, ("OPENBLAS_THREAD_TIMEOUT",))
+        seen = workers.apply(os.getenv, ("OPENBLAS_THREAD_TIMEOUT",))
     finally:
-        executors.stop_process_pool(pool)
-    assert seen == executors.WORKER_ENVIRONMENT["OPENBLAS_THREAD_TIMEOUT"]
+        pool.stop_process_pool(workers)
+    assert seen == pool.WORKER_ENVIRONMENT["OPENBLAS_THREAD_TIMEOUT"]
     assert "OPENBLAS_THREAD_TIMEOUT" not in os.environ  # set for the workers' start only
     monkeypatch.setenv("OPENBLAS_THREAD_TIMEOUT", "25")  # the user's own setting wins
-    pool = executors.process_pool(1)
+    workers = pool.process_pool(1)
     try:
-        assert pool.apply(os.getenv, ("OPENBLAS_THREAD_TIMEOUT",)) == "25"
+        assert workers.apply(os.getenv, ("OPENBLAS_THREAD_TIMEOUT",)) == "25"
     finally:
-        executors.stop_process_pool(pool)
+        pool.stop_process_pool(workers)

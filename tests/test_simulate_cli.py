@@ -11,7 +11,7 @@ from conftest import fixed_clock
 
 from planrunner.cli import simulate as cli_simulate
 from planrunner.cli.main import main
-from planrunner.execute.executors import Execution
+from planrunner.execute.pool import Execution
 from planrunner.record.canonical import self_hash
 from planrunner.simulate.simulation import HASH_FIELD, simulate_plan
 

@@ -8,7 +8,7 @@ from __future__ import annotations
 import pytest
 
 from planrunner.cli.main import main
-from planrunner.execute.executors import Execution
+from planrunner.execute.pool import Execution
 from planrunner.simulate.simulation import simulate_plan
 
 PLAN = """\

@@ -10,7 +10,7 @@ import pytest
 
 from planrunner.data.columns import table_from_columns
 from planrunner.errors import DataError
-from planrunner.execute.executors import Execution
+from planrunner.execute.pool import Execution
 from planrunner.pipeline.check import load_plan
 from planrunner.simulate.metrics import analysis_metrics
 from planrunner.simulate.run import SimulationTask, WorkerPool, chunks, run_scenario, used_datasets

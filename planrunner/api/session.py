@@ -9,7 +9,7 @@ from typing import Any
 
 from planrunner.api.progress import ProgressBar
 from planrunner.errors import PlanError
-from planrunner.execute.executors import Execution
+from planrunner.execute.pool import Execution
 from planrunner.pipeline.check import check_plan
 from planrunner.pipeline.printing import write_pdf
 from planrunner.pipeline.run import run_plan

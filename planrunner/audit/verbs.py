@@ -20,7 +20,7 @@ from planrunner.compile.jobs import compile_jobs
 from planrunner.data.tables import file_sha256, resolve_data_path
 from planrunner.engines.streams import REFERENCE_DRAWS_SHA256, draws_sha256
 from planrunner.errors import PlanError, PlanrunnerError, RecordError
-from planrunner.execute.executors import Execution
+from planrunner.execute.pool import Execution
 from planrunner.pipeline.check import load_tables
 from planrunner.pipeline.printing import read_record
 from planrunner.pipeline.run import execute_plan

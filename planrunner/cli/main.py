@@ -258,24 +258,29 @@ def _check(args: argparse.Namespace) -> int:
 
 
 def _run(args: argparse.Namespace, argv: list[str]) -> int:
-    from planrunner.pipeline.run import run_plan
-    from planrunner.plan.params import parse_assignments
+    from planrunner.execute.pool import early_workers
     execution = execution_of(args)
     if args.pdf:  # no browser: say so before computing anything
         from planrunner.report.pdf import find_browser
         find_browser()
     signing = run_signing(args)
-    bar = progress_bar(args.quiet)
     written: list[Any] = []  # the outcome, once the run folder and its history entry are in place
     try:
-        try:
-            outcome = run_plan(args.plan, out=args.out, operator=args.operator, command=["planrunner", *argv],
-                               params=parse_assignments(args.param), lock=args.lock,
-                               refuse_deviations=args.refuse_deviations, reason=args.reason,
-                               data_root=args.data_root, execution=execution, progress=bar,
-                               signing=signing, signers=args.signers, written=written.append)
-        finally:
-            bar.close()  # before any message, so that it does not land on the bar's line
+        # worker processes start before the rest of the run is imported (the progress bar's module
+        # loads the whole pipeline: about a quarter of a second) and before the plan and the data are
+        # read, so that they are up when the computing begins
+        with early_workers(execution):
+            bar = progress_bar(args.quiet)
+            try:
+                from planrunner.pipeline.run import run_plan
+                from planrunner.plan.params import parse_assignments
+                outcome = run_plan(args.plan, out=args.out, operator=args.operator,
+                                   command=["planrunner", *argv], params=parse_assignments(args.param),
+                                   lock=args.lock, refuse_deviations=args.refuse_deviations, reason=args.reason,
+                                   data_root=args.data_root, execution=execution, progress=bar,
+                                   signing=signing, signers=args.signers, written=written.append)
+            finally:
+                bar.close()  # before any message, so that it does not land on the bar's line
         pdf = None
         if args.pdf:
             from planrunner.pipeline.printing import write_pdf

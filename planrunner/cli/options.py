@@ -6,7 +6,7 @@ import argparse
 from typing import TYPE_CHECKING
 
 if TYPE_CHECKING:
-    from planrunner.execute.executors import Execution
+    from planrunner.execute.pool import Execution
 
 DATA_ROOT_HELP = ("look up the plan's data files under DIR instead of the plan's folder; "
                   "they must resolve inside DIR")
@@ -25,7 +25,7 @@ def add_execution_options(verb: argparse.ArgumentParser) -> None:
 
 def execution_of(args: argparse.Namespace) -> Execution:
     """The executor the options ask for: serial unless --workers N > 1 or --executor says otherwise."""
-    from planrunner.execute.executors import Execution
+    from planrunner.execute.pool import Execution
     executor = args.executor or ("dask" if args.scheduler else
                                  "processes" if args.workers is not None and args.workers > 1 else "serial")
     workers = args.workers if args.workers is not None else 1 if executor == "serial" else 2

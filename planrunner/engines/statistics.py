@@ -37,6 +37,7 @@ __all__ = [
     "STATISTICS",
     "Statistic",
     "bind",
+    "bound_statistic",
     "check_samples",
     "check_strata",
     "get_statistic",
@@ -124,6 +125,12 @@ def bind(statistic: Statistic, value: float | None) -> Statistic:
         statistic, value=float(value), compute=statistic.maker(float(value)),
         se=statistic.se_maker(float(value)) if statistic.se_maker is not None else statistic.se,
         label=statistic.label.replace("{value}", f"{value:g}"))
+
+
+def bound_statistic(name: str, value: float) -> Statistic:
+    """The registered statistic ``name`` bound to ``value``: how a statistic with a parameter travels
+    to a worker process (by name and value; its functions are closures, which cannot be pickled)."""
+    return bind(get_statistic(name), value)
 
 
 # --- one group, one column ------------------------------------------------------------------------

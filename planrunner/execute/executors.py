@@ -14,7 +14,6 @@ reads its own rows of the stream, so who computes a range changes no number.
 
 from __future__ import annotations
 
-import contextlib
 import copyreg
 import functools
 import itertools
@@ -24,8 +23,7 @@ import multiprocessing
 import os
 import pickle
 import threading
-from collections.abc import Callable, Iterator
-from dataclasses import dataclass
+from collections.abc import Callable
 from typing import Any
 
 import numpy as np
@@ -37,14 +35,14 @@ from planrunner.engines.jackknife import JackknifeOptions, jackknife
 from planrunner.engines.modelboot import ModelBootstrapOptions, model_bootstrap
 from planrunner.engines.permcore import PermutationOptions
 from planrunner.engines.results import BootstrapResult, JackknifeResult, PermutationResult
-from planrunner.engines.statistics import STATISTICS, Statistic, bind, get_statistic
+from planrunner.engines.statistics import STATISTICS, Statistic, bound_statistic, get_statistic
 from planrunner.engines.streams import DRAW_BLOCK
 from planrunner.errors import EngineError, PlanrunnerError
 from planrunner.execute.permutation import run_permutation
-from planrunner.execute.rangework import call_cached_range, ignore_interrupts, keep_task
+from planrunner.execute.pool import Execution, ExecutorError, stop_process_pool, worker_pool
+from planrunner.execute.rangework import call_cached_range, keep_task
 from planrunner.execute.signals import stopping_on_termination
 
-EXECUTORS = ("serial", "threads", "processes", "dask")
 EngineResult = BootstrapResult | JackknifeResult | PermutationResult
 # (resamples done, resamples in total) after every finished range and job
 Progress = Callable[[int, int], None]
@@ -61,39 +59,6 @@ SERIAL_RANGE = 5  # draw blocks per progress step in a serial run
 SCHEDULER_TIMEOUT = 30.0  # seconds to reach a dask scheduler before giving up
 
 
-class ExecutorError(PlanrunnerError):
-    """The chosen executor cannot run (a missing optional package, an unreachable scheduler)."""
-
-
-@dataclass(frozen=True)
-class Execution:
-    """How jobs are run. Informational in the record: it never changes a number."""
-
-    executor: str = "serial"
-    workers: int = 1
-    scheduler: str | None = None  # dask: address of a running scheduler; None starts a local cluster
-    local_processes: bool = True  # dask local cluster: worker processes (False: threads, for tests)
-
-    def __post_init__(self) -> None:
-        if self.executor not in EXECUTORS:
-            raise ExecutorError(f"unknown executor {self.executor!r}", hint=f"use one of {', '.join(EXECUTORS)}")
-        if self.workers < 1:
-            raise ExecutorError(f"the number of workers must be at least 1, got {self.workers}")
-        if self.executor == "serial" and self.workers != 1:
-            raise ExecutorError("the serial executor runs one worker",
-                                hint="use --executor threads, processes or dask with --workers")
-        if self.scheduler is not None and self.executor != "dask":
-            raise ExecutorError("a scheduler address is only used by the dask executor",
-                                hint="add --executor dask")
-
-    def describe(self) -> dict[str, Any]:
-        return {"executor": self.executor, "workers": self.workers, "scheduler": self.scheduler}
-
-
-def _bound_statistic(name: str, value: float) -> Statistic:
-    return bind(get_statistic(name), value)
-
-
 def _reduce_statistic(statistic: Statistic) -> tuple:
     """Registered statistics travel to workers by name, and those with a parameter (a quantile's
     level) by name and value: their functions are closures, which cannot be pickled."""
@@ -108,7 +73,7 @@ def _reduce_statistic(statistic: Statistic) -> tuple:
     plain = getattr(getattr(statistic.compute, "spec", None), "flip", None) is None
     if (same_shape and plain and registered is not None and registered.parameter is not None
             and statistic.value is not None):
-        return _bound_statistic, (statistic.name, statistic.value)
+        return bound_statistic, (statistic.name, statistic.value)
     by_value = object.__reduce_ex__(statistic, 4)  # by value, whatever fields it has
     assert isinstance(by_value, tuple)
     return by_value
@@ -405,40 +370,6 @@ def _on_threads(jobs: list[Job], execution: Execution, tally: _Tally) -> list[An
         pool.shutdown(wait=True, cancel_futures=True)
 
 
-# OpenBLAS (numpy's BLAS) starts its threads when numpy is imported, and an idle BLAS thread spins
-# for 2**28 cycles (about 0.1 s) before it sleeps: every worker process paid that in CPU at its start,
-# taken from the processes computing on a machine with few cores. 2**20 cycles (under a millisecond)
-# still keeps a thread awake between the BLAS calls of one batch. The setting changes when BLAS
-# threads sleep, never how many there are or how they split a product, so no number changes.
-WORKER_ENVIRONMENT = {"OPENBLAS_THREAD_TIMEOUT": "20"}
-
-
-def process_pool(workers: int) -> Any:
-    """A pool of ``workers`` worker processes that leave Ctrl-C to this process. spawn: a clean
-    interpreter per worker (forking a process that holds threads is unsafe)."""
-    with _environment_for_workers():
-        return multiprocessing.get_context("spawn").Pool(workers, initializer=ignore_interrupts)
-
-
-@contextlib.contextmanager
-def _environment_for_workers() -> Iterator[None]:
-    """WORKER_ENVIRONMENT, but where the user set a variable, while the pool starts its processes
-    (spawn hands them this process's environment as it is at that moment)."""
-    added = {name: value for name, value in WORKER_ENVIRONMENT.items() if name not in os.environ}
-    os.environ.update(added)
-    try:
-        yield
-    finally:
-        for name in added:
-            os.environ.pop(name, None)
-
-
-def stop_process_pool(pool: Any) -> None:
-    pool.terminate()  # after an error or an interrupt: no worker outlives the run
-    pool.join()  # and every worker is reaped: none is left a zombie after the run
-    multiprocessing.active_children()  # reaps any other finished child (the pool's helpers)
-
-
 def stop_dask(client: Any, cluster: Any) -> None:
     """Close the client, and the local cluster started for it (None with a scheduler address)."""
     client.close()
@@ -447,45 +378,12 @@ def stop_dask(client: Any, cluster: Any) -> None:
         multiprocessing.active_children()  # reap the local cluster's worker processes now, not at exit
 
 
-# worker processes started ahead of a run by `early_workers`: (number of processes, pool); the
-# processes executor takes a pool of the size it needs from here instead of starting one
-_early: list[tuple[int, Any]] = []
-
-
-@contextlib.contextmanager
-def early_workers(execution: Execution) -> Iterator[None]:
-    """Start the worker processes of ``execution`` (processes, two workers or more) on entry, so that
-    they start (a fresh interpreter importing numpy: a few tenths of a second) while the plan and the
-    data are read and checked; `execute_all` inside takes them. Whatever was not taken is stopped on
-    exit, also after an error or an interrupt before computing."""
-    if execution.executor != "processes" or execution.workers < 2:
-        yield
-        return
-    entry = (execution.workers - 1, process_pool(execution.workers - 1))
-    _early.append(entry)
-    try:
-        yield
-    finally:
-        if entry in _early:
-            _early.remove(entry)
-            stop_process_pool(entry[1])
-
-
-def _worker_processes(processes: int) -> Any:
-    """A pool of ``processes`` worker processes: one started early (`early_workers`), else a new one."""
-    for entry in _early:
-        if entry[0] == processes:
-            _early.remove(entry)
-            return entry[1]
-    return process_pool(processes)
-
-
 def _on_processes(jobs: list[Job], execution: Execution, tally: _Tally) -> list[Any]:
     """This process and ``workers - 1`` worker processes. While they start (a fresh interpreter
     importing numpy and the engine: a few tenths of a second), this process computes ranges."""
     if execution.workers == 1:
         return _run_jobs(jobs, tally, None, {})
-    pool = _worker_processes(execution.workers - 1)
+    pool = worker_pool(execution.workers - 1)
     try:
         pending = {i: pool.apply_async(_execute_caught, (job,)) for i, job in enumerate(jobs)
                    if job.method == "jackknife"}

@@ -19,7 +19,8 @@ from pathlib import Path
 
 from planrunner.data.dummy import DEFAULT_UNITS, GENERATOR_ID, MARKER, RULES, DummyFile, dummy_data
 from planrunner.errors import OutputError, PlanError
-from planrunner.execute.executors import Execution, Progress
+from planrunner.execute.executors import Progress
+from planrunner.execute.pool import Execution
 from planrunner.pipeline.check import check_plan, load_plan
 from planrunner.pipeline.run import (
     Clock,

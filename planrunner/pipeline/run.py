@@ -20,8 +20,9 @@ from planrunner.compile.jobs import Job
 from planrunner.data.tables import Table
 from planrunner.engines.maxt import MaxTResult
 from planrunner.errors import OutputError, PlanrunnerError
-from planrunner.execute.executors import Execution, Progress, early_workers, execute_all
+from planrunner.execute.executors import Progress, execute_all
 from planrunner.execute.families import max_t_families
+from planrunner.execute.pool import Execution, early_workers
 from planrunner.execute.signals import holding_interrupts
 from planrunner.pipeline.check import check_plan
 from planrunner.plan.load import LoadedPlan

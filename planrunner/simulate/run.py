@@ -32,16 +32,9 @@ from planrunner.engines.blocks import resample_ranges
 from planrunner.engines.statistics import null_value
 from planrunner.engines.streams import Stream, analysis_key
 from planrunner.errors import PlanrunnerError
-from planrunner.execute.executors import (
-    Execution,
-    dask_client,
-    execute,
-    job_resamples,
-    process_pool,
-    stop_dask,
-    stop_process_pool,
-)
+from planrunner.execute.executors import dask_client, execute, job_resamples, stop_dask
 from planrunner.execute.families import max_t_families
+from planrunner.execute.pool import Execution, process_pool, stop_process_pool
 from planrunner.plan.schema import Plan
 from planrunner.record.build import family_fields, method_fields
 from planrunner.record.decisions import decision_entry

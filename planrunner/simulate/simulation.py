@@ -21,7 +21,7 @@ import numpy as np
 
 from planrunner.engines.streams import DRAW_BLOCK, GENERATOR
 from planrunner.errors import PlanError
-from planrunner.execute.executors import Execution
+from planrunner.execute.pool import Execution
 from planrunner.execute.signals import stopping_on_termination
 from planrunner.pipeline.run import utc_now, utc_stamp
 from planrunner.plan.schema import Plan
