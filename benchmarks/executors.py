@@ -5,10 +5,15 @@ Run from the repository root (not part of the test suite; about 2 minutes per re
 
     python benchmarks/executors.py --repeats 3
     python benchmarks/compare_scipy.py --executors --repeats 3     # the same, started from there
+    python benchmarks/executors.py --repeats 5 --only E2 --command-line   # also from the command line
 
-Each workload is a plan whose jobs go through `execute_all` exactly as `planrunner run` sends them,
-so every executor pays its own start-up and tear-down (the pool's interpreters, the dask cluster)
-in every call, as a run does. The executors are run in turn within each repeat, so that a busy
+Each workload is a plan run the way `planrunner run` runs it: its worker processes started
+(`early_workers`) before the plan and data are read and checked (`check_plan`), then its jobs sent
+through `execute_all`; the time covers both steps for every executor, so every executor pays its
+own start-up and tear-down (the pool's interpreters, the dask cluster) in every call, as a run
+does. One more row, "processes, cold", starts its worker processes only once the jobs are built
+(`execute_all` alone, as code that calls it directly does): the difference from "processes" is
+what the early start saves. The executors are run in turn within each repeat, so that a busy
 machine slows them alike; the table shows the median wall time, the median CPU time of this
 process and of every worker process it started (user + system, from getrusage: workers are
 counted once they are collected, which every executor does before it returns), the speed-up
@@ -26,6 +31,7 @@ command line's entry module), so the heavy imports are made inside `main`.
 from __future__ import annotations
 
 import argparse
+import contextlib
 import hashlib
 import os
 import pickle
@@ -35,8 +41,10 @@ import sys
 import tempfile
 import time
 from pathlib import Path
+from typing import Any
 
 EXECUTORS = ("serial", "threads", "processes", "dask")
+COLD = "processes, cold"  # worker processes started by execute_all, after the jobs are built
 
 # name, words, rows, plan text, resamples; the data are invented (a skewed outcome), written to a temporary folder
 _DATA = """seed: 7
@@ -96,6 +104,59 @@ def _write_plan(folder: Path, rows: int, text: str, resamples: int) -> Path:
     return plan
 
 
+def _as_run(plan: Path, execution: Any, *, early: bool) -> list[Any]:
+    """The engine results of ``plan`` as `planrunner run` computes them (`pipeline.run.run_plan`):
+    with ``early``, the worker processes start before the plan and the data are checked."""
+    from planrunner.execute.executors import execute_all
+    from planrunner.execute.pool import early_workers
+    from planrunner.pipeline.check import check_plan
+
+    with early_workers(execution) if early else contextlib.nullcontext():
+        jobs = check_plan(plan).jobs
+        assert jobs is not None
+        return execute_all(jobs, execution=execution)
+
+
+def _command_line(plan: Path, executor: str, workers: int) -> tuple[float, float]:
+    """Wall seconds of `planrunner run PLAN` in a fresh interpreter, and the seconds its record puts
+    between started_utc and finished_utc (from reading the plan to the last result: the run's
+    computing, without the interpreter's start, the imports and the writing of the files). Run with
+    Python's bytecode cache, as an installed planrunner is (see `compare_scipy._command`)."""
+    import datetime as dt
+    import json
+    import subprocess
+
+    options = [] if executor == "serial" else ["--executor", executor, "--workers", str(workers)]
+    env = {name: value for name, value in os.environ.items() if name != "PYTHONDONTWRITEBYTECODE"}
+    start = time.perf_counter()
+    done = subprocess.run([sys.executable, "-m", "planrunner", "run", str(plan), "--quiet", *options],
+                          capture_output=True, text=True, env=env)
+    wall = time.perf_counter() - start
+    if done.returncode not in (0, 1):  # 1: a run whose warnings ask for attention
+        raise RuntimeError(f"planrunner run exited with {done.returncode}: {done.stderr[-500:]}")
+    record = json.loads((Path(done.stdout.strip().splitlines()[-1]) / "record.json").read_text())
+    moments = [dt.datetime.fromisoformat(record[key].replace("Z", "+00:00")) for key in ("started_utc", "finished_utc")]
+    return wall, (moments[1] - moments[0]).total_seconds()
+
+
+def command_line_section(plan: Path, names: list[str], workers: int, repeats: int, label: str) -> None:
+    """Each executor from the command line, in turn within each repeat: the command's wall time and
+    the record's started-to-finished time, and their speed-ups over serial."""
+    walls: dict[str, list[float]] = {n: [] for n in names}
+    spans: dict[str, list[float]] = {n: [] for n in names}
+    for _ in range(repeats):
+        for executor in names:
+            wall, span = _command_line(plan, executor, workers)
+            walls[executor].append(wall)
+            spans[executor].append(span)
+    wall0, span0 = statistics.median(walls["serial"]), statistics.median(spans["serial"])
+    for executor in names:
+        wall, span = statistics.median(walls[executor]), statistics.median(spans[executor])
+        print(f"{label:<4}  {executor:<16} command {wall:5.2f} s ({wall0 / wall:4.2f}x)   "
+              f"started-to-finished {span:5.2f} s ({span0 / span:4.2f}x)")
+    sys.stdout.flush()
+
+
 def _load() -> str:
     return "load average " + " ".join(f"{x:.2f}" for x in os.getloadavg())
 
@@ -107,33 +168,37 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--only", help="comma-separated workload names, e.g. E1")
     parser.add_argument("--executors", default=",".join(EXECUTORS),
                         help="comma-separated executors to compare (serial first: the reference)")
+    parser.add_argument("--command-line", action="store_true",
+                        help="also run each plan with `planrunner run` in a fresh interpreter per executor (wall "
+                             "time of the command, and the record's started-to-finished time)")
     args = parser.parse_args(argv)
 
     from planrunner import __version__
-    from planrunner.execute.executors import Execution, execute_all
-    from planrunner.pipeline.check import check_plan
+    from planrunner.execute.pool import Execution
 
     names = args.executors.split(",")
     if names[0] != "serial":
         names.insert(0, "serial")
-    executions = {name: Execution() if name == "serial" else Execution(name, args.workers) for name in names}
+    if "processes" in names:
+        names.insert(names.index("processes") + 1, COLD)
+    executions = {name: Execution() if name == "serial" else
+                  Execution("processes" if name == COLD else name, args.workers) for name in names}
     chosen = None if args.only is None else set(args.only.upper().split(","))
     print(f"planrunner {__version__}, Python {sys.version.split()[0]}, {os.cpu_count()} CPUs, "
           f"repeats {args.repeats}, {args.workers} workers; {_load()}")
-    print(f"{'work':<4}  {'executor':<10} {'wall s':>7} {'CPU s':>7} {'speed-up':>9} {'CPU/serial':>10}  same numbers")
+    print(f"{'work':<4}  {'executor':<16} {'wall s':>7} {'CPU s':>7} {'speed-up':>9} {'CPU/serial':>10}  same numbers")
     with tempfile.TemporaryDirectory() as tmp:
         for name, words, rows, text, resamples in WORKLOADS:
             if chosen is not None and name not in chosen:
                 continue
-            jobs = check_plan(_write_plan(Path(tmp) / name, rows, text, resamples)).jobs
-            assert jobs is not None
+            plan = _write_plan(Path(tmp) / name, rows, text, resamples)
             walls: dict[str, list[float]] = {n: [] for n in names}
             cpus: dict[str, list[float]] = {n: [] for n in names}
             digests: dict[str, set[str]] = {n: set() for n in names}
             for _ in range(args.repeats):  # in turn: a busy machine slows every executor alike
                 for executor, execution in executions.items():
                     cpu, start = _cpu_seconds(), time.perf_counter()
-                    results = execute_all(jobs, execution=execution)
+                    results = _as_run(plan, execution, early=executor != COLD)
                     walls[executor].append(time.perf_counter() - start)
                     cpus[executor].append(_cpu_seconds() - cpu)
                     digests[executor].add(hashlib.sha256(pickle.dumps(results)).hexdigest())
@@ -141,7 +206,7 @@ def main(argv: list[str] | None = None) -> int:
             for executor in names:
                 wall, cpu = statistics.median(walls[executor]), statistics.median(cpus[executor])
                 same = "yes" if digests[executor] == digests["serial"] and len(digests["serial"]) == 1 else "NO"
-                print(f"{name:<4}  {executor:<10} {wall:7.2f} {cpu:7.2f} {serial_wall / wall:8.2f}x "
+                print(f"{name:<4}  {executor:<16} {wall:7.2f} {cpu:7.2f} {serial_wall / wall:8.2f}x "
                       f"{cpu / serial_cpu:9.2f}x  {same}")
             if "dask" in walls and "processes" in walls:
                 ratio = statistics.median(walls["dask"]) / statistics.median(walls["processes"])
@@ -149,6 +214,8 @@ def main(argv: list[str] | None = None) -> int:
             else:
                 print(f"{name:<4}  ({words})")
             sys.stdout.flush()
+            if args.command_line:
+                command_line_section(plan, [n for n in names if n != COLD], args.workers, args.repeats, name)
     print(_load())
     return 0
 
