@@ -63,6 +63,47 @@ def test_plan_only_check_loads_no_heavy_library(tmp_path, plan):
     assert not packages & set(HEAVY), sorted(packages & set(HEAVY))
 
 
+def test_building_the_parser_loads_no_numpy(tmp_path):
+    # every command builds the whole parser first: it names the rehearsal's default units and the
+    # signature meanings without importing the data or signing stages (which load numpy)
+    code, packages = loaded_by(tmp_path, "--help")
+    assert code == 0
+    assert not packages & {*HEAVY, "numpy", "pydantic"}, sorted(packages & {*HEAVY, "numpy", "pydantic"})
+
+
+EARLY_PROBE = """
+import json, os, sys
+from planrunner.execute import pool
+started = pool.early_workers
+seen = []
+def early(execution):
+    seen.append(sorted(sys.modules))
+    return started(execution)
+pool.early_workers = early
+from planrunner.cli.main import main
+code = main(sys.argv[1:])
+with open(os.environ["PLANRUNNER_MODULES_OUT"], "w", encoding="utf-8") as out:
+    json.dump({"code": code, "first": seen[0], "entered": len(seen)}, out)
+"""
+
+
+def test_a_run_starts_its_worker_processes_before_it_loads_the_engines(tmp_path):
+    # the workers start (a fresh interpreter importing numpy and the engines) while this process
+    # imports the pipeline and reads the plan and the data, so they are up when the computing begins
+    out = tmp_path / "modules.json"
+    plan = ROOT / "plans" / "liner-trial" / "plan.yaml"
+    done = subprocess.run([sys.executable, "-c", EARLY_PROBE, "run", str(plan), "--out", str(tmp_path / "runs"),
+                           "--quiet", "--executor", "processes", "--workers", "2"], cwd=ROOT,
+                          env={**os.environ, "PLANRUNNER_MODULES_OUT": str(out)}, capture_output=True, text=True,
+                          timeout=300)
+    assert out.is_file(), done.stderr[-2000:]
+    found = json.loads(out.read_text(encoding="utf-8"))
+    assert found["code"] == 0
+    assert found["entered"] == 2  # the command line's, then the run's own (which reuses its pool)
+    early = {name.split(".")[0] for name in found["first"]} | set(found["first"])
+    assert not early & {"numpy", "pydantic", "planrunner.pipeline.run", "planrunner.engines"}
+
+
 # what only a run needs: computing on workers, the record, the reports, signing; `check` reads the
 # plan and the data and builds the jobs, and imports none of them (pipeline/check.py)
 RUN_ONLY = ("planrunner.execute.executors", "planrunner.execute.rangework", "planrunner.record.build",
