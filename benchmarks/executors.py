@@ -11,14 +11,21 @@ Each workload is a plan run the way `planrunner run` runs it: its worker process
 (`early_workers`) before the plan and data are read and checked (`check_plan`), then its jobs sent
 through `execute_all`; the time covers both steps for every executor, so every executor pays its
 own start-up and tear-down (the pool's interpreters, the dask cluster) in every call, as a run
-does. One more row, "processes, cold", starts its worker processes only once the jobs are built
-(`execute_all` alone, as code that calls it directly does): the difference from "processes" is
-what the early start saves. The executors are run in turn within each repeat, so that a busy
-machine slows them alike; the table shows the median wall time, the median CPU time of this
-process and of every worker process it started (user + system, from getrusage: workers are
-counted once they are collected, which every executor does before it returns), the speed-up
-over the serial run (serial wall / wall), the CPU used beside the serial run's, and whether the
-results are the serial run's bit for bit (a SHA-256 of the pickled engine results).
+does. In this process the pipeline is already loaded, so a worker has only the check's few
+hundredths of a second to start in; from the command line it also has the loading of the pipeline
+(about a quarter of a second) and is up when the computing begins. Three more rows show the
+range: "processes, up" starts its worker processes and waits until they have imported the engines
+before the clock starts (the command line's case); "processes, cold" starts them only once the jobs
+are built (`execute_all` alone, as code that calls it directly does); "dask, running" uses a dask
+cluster started once before the workloads, as `--scheduler ADDRESS` uses a running one (its
+workers' CPU is not counted). `--command-line` also runs each plan with `planrunner run` per
+executor and prints the command's wall time and the record's started-to-finished time. The
+executors are run in turn within each repeat, so that a busy machine slows them alike; the table
+shows the median wall time, the median CPU time of this process and of every worker process it
+started (user + system, from getrusage: workers are counted once they are collected, which every
+executor does before it returns), the speed-up over the serial run (serial wall / wall), the CPU
+used beside the serial run's, and whether the results are the serial run's bit for bit (a SHA-256
+of the pickled engine results).
 
 Wall-time speed-ups need an idle machine (`uptime` is printed before and after); the CPU columns
 show the overheads (start-up, copying, contention) on a busy one too.
@@ -45,6 +52,7 @@ from typing import Any
 
 EXECUTORS = ("serial", "threads", "processes", "dask")
 COLD = "processes, cold"  # worker processes started by execute_all, after the jobs are built
+UP = "processes, up"  # worker processes started and up before the clock starts (as from the command line)
 # the dask executor on a cluster already running (started once, before the workloads), as
 # `--scheduler ADDRESS` uses one: the run pays no cluster start; its workers' CPU is not counted
 RUNNING = "dask, running"
@@ -107,17 +115,33 @@ def _write_plan(folder: Path, rows: int, text: str, resamples: int) -> Path:
     return plan
 
 
-def _as_run(plan: Path, execution: Any, *, early: bool) -> list[Any]:
-    """The engine results of ``plan`` as `planrunner run` computes them (`pipeline.run.run_plan`):
-    with ``early``, the worker processes start before the plan and the data are checked."""
+def _as_run(plan: Path, execution: Any, mode: str) -> tuple[list[Any], float]:
+    """The engine results of ``plan`` as `planrunner run` computes them (`pipeline.run.run_plan`), and
+    the wall seconds taken. Worker processes start before the plan and the data are checked, or
+    with COLD once the jobs are built (`execute_all` alone), or with UP before the clock starts,
+    and are waited for until they have imported the engines (as from the command line, where
+    loading the pipeline and reading the plan and data take longer than a worker's start)."""
     from planrunner.execute.executors import execute_all
-    from planrunner.execute.pool import early_workers
+    from planrunner.execute.pool import early_pools, early_workers
+
+    with contextlib.ExitStack() as stack:
+        if mode != COLD:
+            stack.enter_context(early_workers(execution))
+        if mode == UP:
+            for _, pool in early_pools():
+                for _ in range(execution.workers - 1):
+                    pool.apply(int)  # runs once the worker's initializer has imported the engines
+        start = time.perf_counter()
+        jobs = check_plan_jobs(plan)
+        return execute_all(jobs, execution=execution), time.perf_counter() - start
+
+
+def check_plan_jobs(plan: Path) -> list[Any]:
     from planrunner.pipeline.check import check_plan
 
-    with early_workers(execution) if early else contextlib.nullcontext():
-        jobs = check_plan(plan).jobs
-        assert jobs is not None
-        return execute_all(jobs, execution=execution)
+    jobs = check_plan(plan).jobs
+    assert jobs is not None
+    return jobs
 
 
 def _command_line(plan: Path, executor: str, workers: int) -> tuple[float, float]:
@@ -183,7 +207,7 @@ def main(argv: list[str] | None = None) -> int:
     if names[0] != "serial":
         names.insert(0, "serial")
     if "processes" in names:
-        names.insert(names.index("processes") + 1, COLD)
+        names[names.index("processes") + 1:names.index("processes") + 1] = [UP, COLD]
     running = None  # (client, cluster) of the running dask cluster
     if "dask" in names:
         from planrunner.execute.executors import dask_client
@@ -193,7 +217,7 @@ def main(argv: list[str] | None = None) -> int:
         names.insert(names.index("dask") + 1, RUNNING)
     executions = {name: Execution() if name == "serial" else
                   Execution("dask", args.workers, running[1].scheduler_address) if name == RUNNING and running else
-                  Execution("processes" if name == COLD else name, args.workers) for name in names}
+                  Execution("processes" if name in (UP, COLD) else name, args.workers) for name in names}
     chosen = None if args.only is None else set(args.only.upper().split(","))
     print(f"planrunner {__version__}, Python {sys.version.split()[0]}, {os.cpu_count()} CPUs, "
           f"repeats {args.repeats}, {args.workers} workers; {_load()}")
@@ -208,9 +232,9 @@ def main(argv: list[str] | None = None) -> int:
             digests: dict[str, set[str]] = {n: set() for n in names}
             for _ in range(args.repeats):  # in turn: a busy machine slows every executor alike
                 for executor, execution in executions.items():
-                    cpu, start = _cpu_seconds(), time.perf_counter()
-                    results = _as_run(plan, execution, early=executor != COLD)
-                    walls[executor].append(time.perf_counter() - start)
+                    cpu = _cpu_seconds()
+                    results, wall = _as_run(plan, execution, executor)
+                    walls[executor].append(wall)
                     cpus[executor].append(_cpu_seconds() - cpu)
                     digests[executor].add(hashlib.sha256(pickle.dumps(results)).hexdigest())
             serial_wall, serial_cpu = statistics.median(walls["serial"]), statistics.median(cpus["serial"])
@@ -228,7 +252,7 @@ def main(argv: list[str] | None = None) -> int:
                 print(f"{name:<4}  ({words})")
             sys.stdout.flush()
             if args.command_line:
-                command_line_section(plan, [n for n in names if n not in (COLD, RUNNING)], args.workers,
+                command_line_section(plan, [n for n in names if n not in (UP, COLD, RUNNING)], args.workers,
                                      args.repeats, name)
     if running is not None:
         from planrunner.execute.executors import stop_dask

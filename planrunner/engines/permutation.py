@@ -368,7 +368,7 @@ KEY_BUCKETS = 64  # the window is cut into this many buckets; only one bucket pe
 KEY_ROWS = 512  # rows per batch of the key-window path (row numbers and keys share one int64)
 # keys per batch: about 2 MB. Measured side by side on the idle 2-core machine (widths 1000, 10,000
 # and 100,000): as fast serially as 131,072 keys or faster (1.00-1.12x), while two threads, which
-# take turns at Python's lock between the batch's numpy calls, gain 1.63-1.84x instead of 1.46-1.58x;
+# take turns at Python's lock between the batch's numpy calls, gain 1.45-1.89x instead of 1.32-1.58x;
 # 524,288 was slower serially again. A batch's sums do not depend on its size (rows are reduced alone).
 KEY_CACHE_ELEMENTS = 262_144
 
