@@ -87,21 +87,29 @@ with open(os.environ["PLANRUNNER_MODULES_OUT"], "w", encoding="utf-8") as out:
 """
 
 
-def test_a_run_starts_its_worker_processes_before_it_loads_the_engines(tmp_path):
+def _early_start(tmp_path: Path, *args: str) -> tuple[dict, str]:
+    """What `planrunner ARGS` had imported when it first entered `early_workers` (fresh interpreter),
+    how often it entered it, its exit code; and its standard output."""
+    out = tmp_path / "early.json"
+    done = subprocess.run([sys.executable, "-c", EARLY_PROBE, *args, "--executor", "processes", "--workers", "2"],
+                          cwd=ROOT, env={**os.environ, "PLANRUNNER_MODULES_OUT": str(out)}, capture_output=True,
+                          text=True, timeout=300)
+    assert out.is_file(), done.stderr[-2000:]
+    return json.loads(out.read_text(encoding="utf-8")), done.stdout
+
+
+def test_run_rehearse_and_verify_start_their_worker_processes_before_they_load_the_engines(tmp_path):
     # the workers start (a fresh interpreter importing numpy and the engines) while this process
     # imports the pipeline and reads the plan and the data, so they are up when the computing begins
-    out = tmp_path / "modules.json"
     plan = ROOT / "plans" / "liner-trial" / "plan.yaml"
-    done = subprocess.run([sys.executable, "-c", EARLY_PROBE, "run", str(plan), "--out", str(tmp_path / "runs"),
-                           "--quiet", "--executor", "processes", "--workers", "2"], cwd=ROOT,
-                          env={**os.environ, "PLANRUNNER_MODULES_OUT": str(out)}, capture_output=True, text=True,
-                          timeout=300)
-    assert out.is_file(), done.stderr[-2000:]
-    found = json.loads(out.read_text(encoding="utf-8"))
-    assert found["code"] == 0
-    assert found["entered"] == 2  # the command line's, then the run's own (which reuses its pool)
-    early = {name.split(".")[0] for name in found["first"]} | set(found["first"])
-    assert not early & {"numpy", "pydantic", "planrunner.pipeline.run", "planrunner.engines"}
+    run, printed = _early_start(tmp_path, "run", str(plan), "--out", str(tmp_path / "runs"), "--quiet")
+    rehearsal, _ = _early_start(tmp_path, "rehearse", str(plan), "--out", str(tmp_path / "rehearsals"), "--quiet")
+    verified, _ = _early_start(tmp_path, "verify", printed.strip().splitlines()[-1], "--plan", str(plan))
+    for found in (run, rehearsal, verified):
+        assert found["code"] == 0
+        assert found["entered"] == 2  # the command line's, then the stage's own (which reuses its pool)
+        early = {name.split(".")[0] for name in found["first"]} | set(found["first"])
+        assert not early & {"numpy", "pydantic", "planrunner.pipeline.run", "planrunner.engines"}
 
 
 # what only a run needs: computing on workers, the record, the reports, signing; `check` reads the

@@ -20,7 +20,7 @@ from planrunner.compile.jobs import compile_jobs
 from planrunner.data.tables import file_sha256, resolve_data_path
 from planrunner.engines.streams import REFERENCE_DRAWS_SHA256, draws_sha256
 from planrunner.errors import PlanError, PlanrunnerError, RecordError
-from planrunner.execute.pool import Execution
+from planrunner.execute.pool import Execution, early_workers
 from planrunner.pipeline.check import load_tables
 from planrunner.pipeline.printing import read_record
 from planrunner.pipeline.run import execute_plan
@@ -238,7 +238,9 @@ def verify_record(path: str | Path, *, plan: str | Path | None = None, execution
         problems.append(("plan.text", f"this installation cannot re-run the recorded plan: {message}"))
         return VerifyReport(record_file, plan_file, problems, notes, [], 0, False, plan_changes)
     loaded = replace(loaded, plan=apply_parameters(loaded.plan, values))
+    execution = execution or Execution()
     with ExitStack() as stack:
+        stack.enter_context(early_workers(execution))  # worker processes start while the data are read
         rehearsal = None
         if is_rehearsal(recorded):  # its data are dummy files, made again from the recorded seed and sizes
             rehearsal, data_root = _rehearsal_data(stack, loaded, recorded, record_file, data_root, problems)

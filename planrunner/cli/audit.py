@@ -155,15 +155,18 @@ def _table(header: tuple[str, ...], body: Sequence[tuple[str, ...]]) -> str:
 
 
 def _verify(args: argparse.Namespace) -> int:
-    from planrunner.audit.signing import record_signatures
-    from planrunner.audit.verbs import find_plan, read_record, verify_record
+    from planrunner.execute.pool import early_workers
+    execution = execution_of(args)
+    with early_workers(execution):  # as `run`: the workers start before the re-run's stages are imported
+        from planrunner.audit.signing import record_signatures
+        from planrunner.audit.verbs import find_plan, read_record, verify_record
+        from planrunner.trail.names import require_person_name
+        if args.operator is not None:  # before the re-run: the name is written on one line of the verify log
+            require_person_name(args.operator, "--operator")
+        record_file, recorded = read_record(args.record)
+        signatures = record_signatures(record_file, find_plan(record_file, recorded, args.plan), args.signers)
+        report = verify_record(args.record, plan=args.plan, execution=execution, data_root=args.data_root)
     from planrunner.cli.signing import signature_lines
-    from planrunner.trail.names import require_person_name
-    if args.operator is not None:  # before the re-run: the name is written on one line of the verify log
-        require_person_name(args.operator, "--operator")
-    record_file, recorded = read_record(args.record)
-    signatures = record_signatures(record_file, find_plan(record_file, recorded, args.plan), args.signers)
-    report = verify_record(args.record, plan=args.plan, execution=execution_of(args), data_root=args.data_root)
     print(f"verifying {report.record_file} against the plan folder {report.plan_file.parent}")
     if report.rehearsal:
         print(f"*** {REHEARSAL_WORDS} ***")

@@ -58,19 +58,22 @@ def rehearse_command(args: argparse.Namespace, argv: list[str], progress_bar: Ca
                      summary_table: Callable[[dict], str]) -> int:
     """Rehearse the plan and print the summary between two stamps (``progress_bar`` and
     ``summary_table`` are those of `run`, handed over by `cli.main`)."""
-    from planrunner.pipeline.rehearse import rehearse_plan
-    from planrunner.plan.params import parse_assignments
-    from planrunner.record.rehearsal import STAMP
+    from planrunner.execute.pool import early_workers
+    execution = execution_of(args)
     if args.pdf:  # no browser: say so before computing anything
         from planrunner.report.pdf import find_browser
         find_browser()
-    bar = progress_bar(args.quiet)
-    try:
-        outcome = rehearse_plan(args.plan, out=args.out, seed=args.seed, units=args.units,
-                                params=parse_assignments(args.param), operator=args.operator,
-                                command=["planrunner", *argv], execution=execution_of(args), progress=bar)
-    finally:
-        bar.close()
+    with early_workers(execution):  # as `run`: the workers start before the pipeline is imported
+        bar = progress_bar(args.quiet)
+        try:
+            from planrunner.pipeline.rehearse import rehearse_plan
+            from planrunner.plan.params import parse_assignments
+            outcome = rehearse_plan(args.plan, out=args.out, seed=args.seed, units=args.units,
+                                    params=parse_assignments(args.param), operator=args.operator,
+                                    command=["planrunner", *argv], execution=execution, progress=bar)
+        finally:
+            bar.close()
+    from planrunner.record.rehearsal import STAMP
     pdf = None
     if args.pdf:
         from planrunner.pipeline.printing import write_pdf

@@ -20,7 +20,7 @@ from pathlib import Path
 from planrunner.data.dummy import DEFAULT_UNITS, GENERATOR_ID, MARKER, RULES, DummyFile, dummy_data
 from planrunner.errors import OutputError, PlanError
 from planrunner.execute.executors import Progress
-from planrunner.execute.pool import Execution
+from planrunner.execute.pool import Execution, early_workers
 from planrunner.pipeline.check import check_plan, load_plan
 from planrunner.pipeline.run import (
     Clock,
@@ -98,19 +98,21 @@ def rehearse_plan(path: str | Path, *, out: str | Path | None = None, seed: int 
     loaded, _ = load_plan(path, params)
     out_root = rehearsal_root(loaded, out)
     seed = loaded.plan.seed if seed is None else seed
-    files, entry = regenerated(loaded, seed, units)
-    with dummy_root(files) as root:
-        checked = check_plan(path, params=params, data_root=root)
-        loaded, tables, jobs = checked.loaded, checked.tables, checked.jobs
-        assert tables is not None and jobs is not None
-        # the lock's identity and any deviation of the plan; the dummy files are no data deviation
-        lock_entry = lock_for_run(loaded, {}, None, refuse_deviations=False)
-        results, max_t = execute_plan(loaded.plan, jobs, execution=execution or Execution(), progress=progress)
+    execution = execution or Execution()
+    with early_workers(execution):  # worker processes start while the dummy data are made and checked
+        files, entry = regenerated(loaded, seed, units)
+        with dummy_root(files) as root:
+            checked = check_plan(path, params=params, data_root=root)
+            loaded, tables, jobs = checked.loaded, checked.tables, checked.jobs
+            assert tables is not None and jobs is not None
+            # the lock's identity and any deviation of the plan; the dummy files are no data deviation
+            lock_entry = lock_for_run(loaded, {}, None, refuse_deviations=False)
+            results, max_t = execute_plan(loaded.plan, jobs, execution=execution, progress=progress)
     finished = clock()
     run_id = new_run_id(loaded, tables, started)
     facts = RunFacts(run_id=run_id, started_utc=utc_stamp(started), finished_utc=utc_stamp(finished), operator=operator,
                      command=tuple(command or ["planrunner", "rehearse", str(path)]),
-                     execution=(execution or Execution()).describe(), lock=lock_entry,
+                     execution=execution.describe(), lock=lock_entry,
                      parameters=checked.parameters, rehearsal=entry)
     record = build_record(loaded, tables, jobs, results, max_t, facts)
     kept: dict[str, str | bytes] = {f"{DUMMY_FOLDER}/{MARKER}": MARKER_TEXT}
