@@ -129,7 +129,7 @@ def _as_run(plan: Path, execution: Any, mode: str) -> tuple[list[Any], float]:
             stack.enter_context(early_workers(execution))
         if mode == UP:
             for _, pool in early_pools():
-                for _ in range(execution.workers - 1):
+                for _ in range(execution.worker_processes):
                     pool.apply(int)  # runs once the worker's initializer has imported the engines
         start = time.perf_counter()
         jobs = check_plan_jobs(plan)

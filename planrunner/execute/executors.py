@@ -380,14 +380,14 @@ def stop_dask(client: Any, cluster: Any) -> None:
 
 def _on_processes(jobs: list[Job], execution: Execution, tally: _Tally) -> list[Any]:
     """This process and ``workers - 1`` worker processes. While they start (a fresh interpreter
-    importing numpy and the engine: a few tenths of a second), this process computes ranges."""
-    if execution.workers == 1:
+    importing numpy and the engines: 0.1–0.2 s), this process computes ranges."""
+    if execution.worker_processes == 0:
         return _run_jobs(jobs, tally, None, {})
-    pool = worker_pool(execution.workers - 1)
+    pool = worker_pool(execution.worker_processes)
     try:
         pending = {i: pool.apply_async(_execute_caught, (job,)) for i, job in enumerate(jobs)
                    if job.method == "jackknife"}
-        helpers = functools.partial(_feed_processes, pool, execution.workers - 1)
+        helpers = functools.partial(_feed_processes, pool, execution.worker_processes)
         return _run_jobs(jobs, tally, _sharing(execution.workers, tally, helpers),
                          {i: functools.partial(_pool_result, r) for i, r in pending.items()})
     finally:

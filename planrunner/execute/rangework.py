@@ -70,8 +70,8 @@ def call_cached_range(key: str, payload: bytes | None, start: int, stop: int) ->
 
 
 def keep_task(key: str, payload: bytes) -> bool:
-    """Unpickle and keep the task ``key`` (importing the engine it needs) before any range is sent:
-    the answer tells the sender that this worker is up."""
+    """Unpickle and keep the task ``key`` before any range is sent: the answer tells the sender that
+    this worker is up (its initializer has imported the engines) and holds the task's arrays."""
     if key not in TASKS:
         _keep(key, payload)
     return True

@@ -33,7 +33,6 @@ class CheckOutcome:
     parameters: dict[str, str] = field(default_factory=dict)
 
 
-
 def available_memory() -> int | None:
     """Bytes of memory available now (Linux: MemAvailable; else physical memory), None if unknown."""
     try:
